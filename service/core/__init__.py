@@ -1,0 +1,56 @@
+"""Plumbline's statistics core: pure numpy/scipy functions vectorised over series.
+
+No web framework, database or pydantic import lives here; the API, store and CLI wrap it.
+"""
+
+from .accuracy import mase, naive_scale
+from .autocorrelation import autocorrelations, ljung_box, portmanteau_lags
+from .batch import Holdout, Residuals, SeriesBatch, make_batch, residuals_of
+from .benchmarks import BENCHMARKS, benchmark_forecasts, benchmark_skill
+from .bias import bias, hac_variance_of_mean, newey_west_lags, tracking_signal
+from .catalogue import CATALOGUE, CHECK_NAMES, CheckSpec
+from .checks import CHECK_OPTIONS, BatchChecks, run_checks
+from .intervals import interval_coverage, kupiec_lr, winkler_scores
+from .multiple import benjamini_hochberg
+from .normality import jarque_bera
+from .results import CheckResult, Status
+from .sufficiency import data_sufficiency
+from .types import InputError
+from .variance import arch_lags, arch_lm
+
+__all__ = [
+    "BENCHMARKS",
+    "CATALOGUE",
+    "CHECK_NAMES",
+    "CHECK_OPTIONS",
+    "BatchChecks",
+    "CheckResult",
+    "CheckSpec",
+    "Holdout",
+    "InputError",
+    "Residuals",
+    "SeriesBatch",
+    "Status",
+    "arch_lags",
+    "arch_lm",
+    "autocorrelations",
+    "benchmark_forecasts",
+    "benchmark_skill",
+    "benjamini_hochberg",
+    "bias",
+    "data_sufficiency",
+    "hac_variance_of_mean",
+    "interval_coverage",
+    "jarque_bera",
+    "kupiec_lr",
+    "ljung_box",
+    "make_batch",
+    "mase",
+    "naive_scale",
+    "newey_west_lags",
+    "portmanteau_lags",
+    "residuals_of",
+    "run_checks",
+    "tracking_signal",
+    "winkler_scores",
+]

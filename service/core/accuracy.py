@@ -1,0 +1,77 @@
+"""Holdout accuracy: MASE, scaled by the in-sample (seasonal) naive forecast's error."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .batch import SeriesBatch
+from .results import CheckResult, skip_reasons
+from .types import FloatMatrix, FloatVector
+
+
+def naive_scale(actuals: FloatMatrix, season_length: int = 1) -> FloatVector:
+    """In-sample MAE of the naive (``m = 1``) or seasonal naive (lag ``m``) forecast.
+
+    ``scale = mean |y_t - y_{t-m}|`` over the pairs with both values observed (Hyndman &
+    Koehler 2006). For 18, 13, 16, 11, 17, 14 it is 4.4 (``m = 1``) and 2.0 (``m = 2``).
+    ``NaN`` when no pair is observed.
+    """
+    m = int(season_length)
+    if m < 1:
+        raise ValueError(f"season_length must be at least 1, got {season_length}")
+    if actuals.shape[1] <= m:
+        return np.full(actuals.shape[0], np.nan)
+    diff = np.abs(actuals[:, m:] - actuals[:, :-m])
+    count = (~np.isnan(diff)).sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(count > 0, np.nansum(diff, axis=1) / count, np.nan)
+
+
+def holdout_pairs(batch: SeriesBatch) -> tuple[FloatMatrix, np.ndarray, np.ndarray]:
+    """Holdout errors ``actual - forecast`` (NaN where either is missing), their mask and
+    count per series. Empty (zero-width) when the batch has no holdout."""
+    if batch.holdout is None:
+        empty = np.zeros((batch.n_series, 0))
+        return empty, empty.astype(bool), np.zeros(batch.n_series, dtype=np.int64)
+    err = batch.holdout.actuals - batch.holdout.forecasts
+    ok = ~np.isnan(err)
+    return err, ok, ok.sum(axis=1)
+
+
+def mase(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
+    """Mean absolute scaled error of the holdout forecasts (Hyndman & Koehler 2006).
+
+    ``MASE = mean |y_h - yhat_h| / scale`` with ``scale`` from :func:`naive_scale` on the
+    training actuals with the batch's season length. Below 1 the forecasts beat the in-sample
+    one-step (seasonal) naive forecast on average. Holdout actuals 15, 19 with forecasts 14, 14
+    after the training series above give 0.681818 (``m = 1``) and 1.5 (``m = 2``).
+
+    Skipped without a holdout (fewer than ``min_obs`` scored steps), when the training series is
+    too short for one (seasonal) difference, or when the scale is zero (a constant series).
+    """
+    m = batch.season_length
+    scale = naive_scale(batch.actuals, m)
+    err, ok, count = holdout_pairs(batch)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mae = np.where(count > 0, np.nansum(np.abs(err), axis=1) / count, np.nan)
+        value = mae / scale
+    reasons = skip_reasons(
+        batch.n_series,
+        (count < max(min_obs, 1), "no holdout" if min_obs <= 1 else f"fewer than {min_obs} holdout steps"),
+        (np.isnan(scale), f"training series too short for a lag-{m} naive forecast"),
+        (scale == 0, "the in-sample naive forecast is exact (constant series), so the scale is 0"),
+    )
+    ran = np.equal(reasons, None)
+    return CheckResult(
+        name="mase",
+        kind="metric",
+        statistic=np.where(ran, value, np.nan),
+        p_value=np.full(batch.n_series, np.nan),
+        details={
+            "scale": np.where(np.isfinite(scale), scale, np.nan),
+            "mae": np.where(ran, mae, np.nan),
+            "horizon": count,
+            "season_length": np.full(batch.n_series, m),
+        },
+        skip_reason=reasons,
+    )

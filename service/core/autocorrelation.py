@@ -1,0 +1,103 @@
+"""Residual autocorrelation: the Ljung-Box portmanteau test, Box-Pierce alongside."""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from .batch import Residuals
+from .results import CheckResult, skip_reasons
+from .types import FloatMatrix, IntVector
+
+NONSEASONAL_LAGS = 10
+
+
+def portmanteau_lags(n_obs: IntVector, season_length: int) -> IntVector:
+    """Lag rule (common practice, a rule of thumb with no single source): 10 lags for
+    non-seasonal data, ``2 m`` for seasonal period ``m``, at most ``floor(T / 5)``.
+
+    ``T = 104, m = 1`` gives 10; ``T = 156, m = 52`` gives 31; ``T = 40, m = 1`` gives 8.
+    """
+    base = NONSEASONAL_LAGS if season_length <= 1 else 2 * season_length
+    return np.minimum(base, np.asarray(n_obs) // 5).astype(np.int64)
+
+
+def autocorrelations(res: Residuals, max_lag: int) -> FloatMatrix:
+    """Sample autocorrelations ``r_1..r_max_lag`` per series (shape ``(n, max_lag)``).
+
+    ``r_k = gamma_k / gamma_0`` with the autocovariances of
+    :meth:`Residuals.autocovariances` (observed pairs, divided by ``n_obs``): statsmodels'
+    ``acf(x, adjusted=False, missing="conservative")``.
+    """
+    gamma = res.autocovariances(max_lag)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return gamma[:, 1:] / gamma[:, :1]
+
+
+def ljung_box(
+    res: Residuals,
+    *,
+    season_length: int = 1,
+    model_params: int = 0,
+    lags: int | None = None,
+    min_obs: int = 0,
+) -> CheckResult:
+    """Ljung-Box test of no autocorrelation up to lag ``L`` (Ljung & Box 1978).
+
+    ``Q = T (T + 2) sum_{k=1..L} r_k^2 / (T - k)`` with ``T = n_obs``, referred to chi-square
+    with ``df = L - model_params``; Box-Pierce ``Q_BP = T sum r_k^2`` (Box & Pierce 1970) is
+    reported in ``details`` with its p-value on the same ``df``. ``L`` follows
+    :func:`portmanteau_lags` unless ``lags`` is given (still capped at ``T - 1``).
+    Matches statsmodels' ``acorr_ljungbox(x, lags=[L], model_df=model_params, boxpierce=True)``.
+
+    Skipped when ``df <= 0`` (too few lags for the parameters estimated), when the series is
+    too short for one lag, or when the residuals are constant (no autocorrelation is defined).
+    """
+    if model_params < 0:
+        raise ValueError(f"model_params must be 0 or more, got {model_params}")
+    if lags is not None and lags < 1:
+        raise ValueError(f"lags must be at least 1, got {lags}")
+    n = res.n_obs
+    used = portmanteau_lags(n, season_length) if lags is None else np.full(n.shape, lags)
+    used = np.clip(used, 0, np.maximum(n - 1, 0)).astype(np.int64)
+    max_lag = int(used.max(initial=0))
+    df = used - model_params
+    reasons = skip_reasons(
+        n.shape[0],
+        (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
+        (used < 1, "too short for one lag (the lag rule allows at most T/5)"),
+        (df <= 0, f"no degrees of freedom left: lags minus {model_params} model parameters <= 0"),
+        (res.constant, "residuals are constant, so autocorrelation is undefined"),
+    )
+    ran = np.equal(reasons, None)
+    if max_lag >= 1:
+        r = autocorrelations(res, max_lag)
+        k = np.arange(1, max_lag + 1)[None, :]
+        within = k <= used[:, None]
+        t = n[:, None].astype(float)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            lb_terms = np.where(within, r * r / (t - k), 0.0)
+            bp_terms = np.where(within, r * r, 0.0)
+        q = n * (n + 2.0) * lb_terms.sum(axis=1)
+        q_bp = n * bp_terms.sum(axis=1)
+        r1 = r[:, 0]
+    else:
+        q = q_bp = r1 = np.full(n.shape, np.nan)
+    safe_df = np.maximum(df, 1)
+    q = np.where(ran, q, np.nan)
+    q_bp = np.where(ran, q_bp, np.nan)
+    return CheckResult(
+        name="ljung_box",
+        kind="test",
+        statistic=q,
+        p_value=stats.chi2.sf(q, safe_df),
+        details={
+            "lags": used,
+            "df": df,
+            "box_pierce": q_bp,
+            "box_pierce_p_value": stats.chi2.sf(q_bp, safe_df),
+            "acf_lag1": np.where(ran, r1, np.nan),
+        },
+        skip_reason=reasons,
+        null_hypothesis="the residuals are not autocorrelated up to the tested lag",
+    )

@@ -1,0 +1,358 @@
+"""The batch of series the core works on, validated once at the door.
+
+Rules fixed here, used by every check:
+
+* Residuals are ``e = actual - fitted``; a residual is missing where either value is missing.
+* A series' training period ends at its last observed actual; anything after it is padding.
+* Leading periods without a fitted value (a naive method has none at ``t = 1``) are dropped: the
+  residual span starts at the first observed residual.
+* Interior gaps stay gaps, never filled: means and variances use the residuals that are there;
+  a lagged quantity uses only the pairs (or regression rows) whose values are all observed, the
+  rule statsmodels calls ``missing="conservative"``. The effective sample size ``n_obs`` is the
+  number of observed residuals.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from .types import BoolMatrix, FloatMatrix, FloatVector, InputError, IntVector
+
+DEFAULT_LEVEL = 0.95
+
+
+def _matrix(name: str, values: object, n_series: int | None = None) -> FloatMatrix:
+    """Coerce to a 2-D float array; ragged sequences are padded on the right with NaN."""
+    if isinstance(values, np.ndarray):
+        arr = values.astype(float, copy=True)
+    else:
+        rows = list(values)  # type: ignore[call-overload]
+        width = max((len(r) for r in rows), default=0)
+        arr = np.full((len(rows), width), np.nan)
+        for i, row in enumerate(rows):
+            # ``None`` becomes NaN; ``float`` accepts any real number.
+            arr[i, : len(row)] = [np.nan if v is None else v for v in row]
+    if arr.ndim == 1:
+        arr = arr[None, :]
+    if arr.ndim != 2:
+        raise InputError(name, f"expected a 2-D array (series x periods), got {arr.ndim}-D")
+    if n_series is not None and arr.shape[0] != n_series:
+        raise InputError(name, f"has {arr.shape[0]} rows, expected {n_series} (one per series)")
+    if np.isinf(arr).any():
+        row = int(np.argwhere(np.isinf(arr))[0, 0])
+        raise InputError(name, "contains an infinite value", index=row)
+    return arr
+
+
+def _same_shape(name: str, arr: FloatMatrix, like: FloatMatrix, like_name: str) -> FloatMatrix:
+    if arr.shape == like.shape:
+        return arr
+    if arr.shape[0] == like.shape[0] and arr.shape[1] <= like.shape[1]:
+        # A shorter ragged row set pads to the same width.
+        out = np.full(like.shape, np.nan)
+        out[:, : arr.shape[1]] = arr
+        return out
+    raise InputError(name, f"shape {arr.shape} does not match {like_name} {like.shape}")
+
+
+def _row_lengths(arr: FloatMatrix) -> IntVector:
+    """Index of the last observed value + 1 per row (0 for an all-missing row)."""
+    observed = ~np.isnan(arr)
+    width = arr.shape[1]
+    last = width - np.argmax(observed[:, ::-1], axis=1)
+    return np.where(observed.any(axis=1), last, 0).astype(np.int64)
+
+
+def _check_row_lengths(name: str, arr: FloatMatrix, lengths: IntVector, ref: str) -> None:
+    longer = _row_lengths(arr) > lengths
+    if longer.any():
+        raise InputError(
+            name, f"has values after the last observed {ref}", index=int(np.argmax(longer))
+        )
+
+
+@dataclass(frozen=True, eq=False)
+class Holdout:
+    """Out-of-sample part: shape ``(n_series, horizon)``, column ``h`` is step ``h + 1``.
+
+    A row that is all ``NaN`` means the series has no holdout. ``lower``/``upper`` may be
+    absent; ``level`` is the nominal coverage of the intervals per series (``NaN``: none).
+    """
+
+    actuals: FloatMatrix
+    forecasts: FloatMatrix
+    lower: FloatMatrix | None = None
+    upper: FloatMatrix | None = None
+    level: FloatVector | None = None
+
+
+@dataclass(frozen=True, eq=False)
+class SeriesBatch:
+    """A validated batch of series: build it with :func:`make_batch`."""
+
+    ids: tuple[str, ...]
+    actuals: FloatMatrix
+    fitted: FloatMatrix
+    weights: FloatVector
+    season_length: int
+    model_params: int
+    holdout: Holdout | None
+
+    @property
+    def n_series(self) -> int:
+        return len(self.ids)
+
+    @property
+    def lengths(self) -> IntVector:
+        """Training length per series: last observed actual + 1."""
+        return _row_lengths(self.actuals)
+
+    def take(self, index: np.ndarray) -> SeriesBatch:
+        """The batch restricted (and reordered) to the rows in ``index``."""
+        index = np.asarray(index)
+        h = self.holdout
+        holdout = None
+        if h is not None:
+            holdout = Holdout(
+                actuals=h.actuals[index],
+                forecasts=h.forecasts[index],
+                lower=None if h.lower is None else h.lower[index],
+                upper=None if h.upper is None else h.upper[index],
+                level=None if h.level is None else h.level[index],
+            )
+        return SeriesBatch(
+            ids=tuple(self.ids[i] for i in index),
+            actuals=self.actuals[index],
+            fitted=self.fitted[index],
+            weights=self.weights[index],
+            season_length=self.season_length,
+            model_params=self.model_params,
+            holdout=holdout,
+        )
+
+
+def make_batch(
+    actuals: FloatMatrix | Sequence[Sequence[float | None]],
+    fitted: FloatMatrix | Sequence[Sequence[float | None]],
+    *,
+    ids: Sequence[str] | None = None,
+    weights: Sequence[float | None] | FloatVector | None = None,
+    season_length: int = 1,
+    model_params: int = 0,
+    holdout_actuals: FloatMatrix | Sequence[Sequence[float | None]] | None = None,
+    holdout_forecasts: FloatMatrix | Sequence[Sequence[float | None]] | None = None,
+    holdout_lower: FloatMatrix | Sequence[Sequence[float | None]] | None = None,
+    holdout_upper: FloatMatrix | Sequence[Sequence[float | None]] | None = None,
+    level: float | Sequence[float | None] | FloatVector | None = None,
+) -> SeriesBatch:
+    """Validate and assemble a batch.
+
+    Parameters
+    ----------
+    actuals, fitted : 2-D array or sequence of sequences
+        Training observations and one-step in-sample fitted values, one row per series.
+        Ragged rows are padded with ``NaN``; ``None`` means missing.
+    ids : sequence of str, optional
+        Series identifiers, unique. Default ``"0"``, ``"1"``, ...
+    weights : sequence of float, optional
+        Importance per series (``None`` or ``NaN`` entries: that series' volume). Default: the
+        volume, ``sum |actuals|`` over the training period.
+    season_length : int
+        Seasonal period ``m`` (1: non-seasonal).
+    model_params : int
+        Number of parameters the model estimated (reduces the Ljung-Box degrees of freedom).
+    holdout_actuals, holdout_forecasts : 2-D array, optional
+        Out-of-sample actuals and forecasts, given together.
+    holdout_lower, holdout_upper : 2-D array, optional
+        Prediction interval bounds, given together, ``lower <= upper``.
+    level : float or sequence, optional
+        Nominal coverage of the intervals in (0, 1); default 0.95 where intervals are given.
+
+    Raises
+    ------
+    InputError
+        Naming the argument: shapes that disagree, infinite values, duplicate ids,
+        ``season_length < 1``, ``model_params < 0``, a level outside (0, 1), lower above upper.
+    """
+    if isinstance(season_length, bool) or not isinstance(season_length, (int, np.integer)):
+        raise InputError("season_length", "must be an integer")
+    if season_length < 1:
+        raise InputError("season_length", f"must be at least 1, got {season_length}")
+    if isinstance(model_params, bool) or not isinstance(model_params, (int, np.integer)):
+        raise InputError("model_params", "must be an integer")
+    if model_params < 0:
+        raise InputError("model_params", f"must be 0 or more, got {model_params}")
+
+    a = _matrix("actuals", actuals)
+    n = a.shape[0]
+    f = _same_shape("fitted", _matrix("fitted", fitted, n), a, "actuals")
+    lengths = _row_lengths(a)
+    _check_row_lengths("fitted", f, lengths, "actual")
+
+    if ids is None:
+        id_tuple = tuple(str(i) for i in range(n))
+    else:
+        id_tuple = tuple(str(i) for i in ids)
+        if len(id_tuple) != n:
+            raise InputError("ids", f"has {len(id_tuple)} entries, expected {n}")
+        if len(set(id_tuple)) != n:
+            seen: set[str] = set()
+            for i, s in enumerate(id_tuple):
+                if s in seen:
+                    raise InputError("ids", f"duplicate series id {s!r}", index=i)
+                seen.add(s)
+
+    volume = np.nansum(np.abs(a), axis=1)
+    if weights is None:
+        w = volume
+    else:
+        w = np.array([np.nan if v is None else v for v in weights], dtype=float)
+        if w.shape != (n,):
+            raise InputError("weights", f"has {w.shape[0]} entries, expected {n}")
+        if np.isinf(w).any() or (w < 0).any():
+            bad = int(np.argmax(np.isinf(w) | (w < 0)))
+            raise InputError("weights", "must be finite and non-negative", index=bad)
+        w = np.where(np.isnan(w), volume, w)
+
+    holdout = None
+    if (holdout_actuals is None) != (holdout_forecasts is None):
+        raise InputError(
+            "holdout_forecasts" if holdout_forecasts is None else "holdout_actuals",
+            "holdout actuals and forecasts must be given together",
+        )
+    if holdout_actuals is not None:
+        ha = _matrix("holdout_actuals", holdout_actuals, n)
+        hf = _same_shape(
+            "holdout_forecasts", _matrix("holdout_forecasts", holdout_forecasts, n), ha,
+            "holdout_actuals",
+        )
+        if hf.shape[1] > ha.shape[1]:
+            ha = _same_shape("holdout_actuals", ha, hf, "holdout_forecasts")
+        lo = up = lev = None
+        if (holdout_lower is None) != (holdout_upper is None):
+            raise InputError(
+                "holdout_upper" if holdout_upper is None else "holdout_lower",
+                "interval bounds must be given together",
+            )
+        if holdout_lower is not None:
+            lo = _same_shape(
+                "holdout_lower", _matrix("holdout_lower", holdout_lower, n), ha, "holdout_actuals"
+            )
+            up = _same_shape(
+                "holdout_upper", _matrix("holdout_upper", holdout_upper, n), ha, "holdout_actuals"
+            )
+            crossed = lo > up  # NaN compares False
+            if crossed.any():
+                i, j = (int(v) for v in np.argwhere(crossed)[0])
+                raise InputError(
+                    "holdout_lower", f"lower bound above upper bound at step {j + 1}", index=i
+                )
+            has_interval = (~np.isnan(lo) & ~np.isnan(up)).any(axis=1)
+            if level is None:
+                lev = np.full(n, DEFAULT_LEVEL)
+            elif np.ndim(level) == 0:
+                lev = np.full(n, float(level))  # type: ignore[arg-type]
+            else:
+                lev = np.array([np.nan if v is None else v for v in level], dtype=float)  # type: ignore[union-attr]
+                if lev.shape != (n,):
+                    raise InputError("level", f"has {lev.shape[0]} entries, expected {n}")
+                lev = np.where(np.isnan(lev), DEFAULT_LEVEL, lev)
+            outside = ~((lev > 0) & (lev < 1))
+            if outside.any():
+                i = int(np.argmax(outside))
+                raise InputError("level", f"must lie strictly between 0 and 1, got {lev[i]}", index=i)
+            lev = np.where(has_interval, lev, np.nan)
+        holdout = Holdout(actuals=ha, forecasts=hf, lower=lo, upper=up, level=lev)
+
+    return SeriesBatch(
+        ids=id_tuple,
+        actuals=a,
+        fitted=f,
+        weights=w,
+        season_length=int(season_length),
+        model_params=int(model_params),
+        holdout=holdout,
+    )
+
+
+@dataclass(frozen=True, eq=False)
+class Residuals:
+    """Residuals of a batch with the bookkeeping every check shares.
+
+    Attributes
+    ----------
+    values : ndarray
+        ``actual - fitted``, ``NaN`` where missing, before the span start or after the end.
+    observed : ndarray of bool
+        Where ``values`` is observed.
+    n_obs : ndarray of int
+        Observed residuals per series (the effective sample size).
+    n_missing : ndarray of int
+        Missing residuals inside the span (first observed residual to last observed actual).
+    start : ndarray of int
+        Index of the first observed residual (the length for a row with none).
+    lengths : ndarray of int
+        Training length per series.
+    mean : ndarray
+        Mean of the observed residuals (``NaN`` where ``n_obs == 0``).
+    centred : ndarray
+        ``values - mean`` where observed, 0 elsewhere (so sums of lagged products skip gaps).
+    constant : ndarray of bool
+        Observed residuals all equal (within rounding), including rows with fewer than 2.
+    """
+
+    values: FloatMatrix
+    observed: BoolMatrix
+    n_obs: IntVector
+    n_missing: IntVector
+    start: IntVector
+    lengths: IntVector
+    mean: FloatVector
+    centred: FloatMatrix
+    constant: np.ndarray
+
+    def autocovariances(self, max_lag: int) -> FloatMatrix:
+        """``gamma[:, k]`` for ``k = 0..max_lag``: sum of lag-``k`` products of the centred
+        residuals over observed pairs, divided by ``n_obs`` (shape ``(n_series, max_lag + 1)``).
+        """
+        z = self.centred
+        width = z.shape[1]
+        out = np.zeros((z.shape[0], max_lag + 1))
+        out[:, 0] = np.einsum("ij,ij->i", z, z)
+        for k in range(1, min(max_lag, width - 1) + 1):
+            out[:, k] = np.einsum("ij,ij->i", z[:, k:], z[:, :-k])
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return out / self.n_obs[:, None]
+
+
+def residuals_of(batch: SeriesBatch) -> Residuals:
+    """Compute the residuals of ``batch`` under the rules in this module's docstring."""
+    e = batch.actuals - batch.fitted
+    observed = ~np.isnan(e)
+    n_obs = observed.sum(axis=1).astype(np.int64)
+    lengths = batch.lengths
+    start = np.where(observed.any(axis=1), np.argmax(observed, axis=1), lengths).astype(np.int64)
+    n_missing = np.maximum(lengths - start, 0) - n_obs
+    filled = np.where(observed, e, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = filled.sum(axis=1) / n_obs
+    mean = np.where(n_obs > 0, mean, np.nan)
+    centred = np.where(observed, e - mean[:, None], 0.0)
+    hi = np.where(observed, e, -np.inf).max(axis=1, initial=-np.inf)
+    lo = np.where(observed, e, np.inf).min(axis=1, initial=np.inf)
+    scale = np.maximum(np.abs(np.where(np.isfinite(hi), hi, 0)), 1.0)
+    constant = (n_obs < 2) | ((hi - lo) <= 1e-12 * scale)
+    return Residuals(
+        values=e,
+        observed=observed,
+        n_obs=n_obs,
+        n_missing=n_missing.astype(np.int64),
+        start=start,
+        lengths=lengths,
+        mean=mean,
+        centred=centred,
+        constant=constant,
+    )

@@ -1,0 +1,125 @@
+"""Simple benchmark forecasts fitted to the training actuals, and the model's skill over them.
+
+The four methods of the forecaster's toolbox, each forecasting ``h = 1..H`` steps past the
+training period's last observed actual ``y_T``:
+
+* ``mean``: the mean of the observed training actuals;
+* ``naive``: ``y_T``;
+* ``seasonal_naive``: the value one season earlier, ``y_{T - m + 1 + (h - 1) mod m}`` (only when
+  ``m > 1``; where that value is missing, the same season's most recent observed value);
+* ``drift``: ``y_T + h (y_T - y_first) / (T - first)``, the line through the first and last
+  observed actuals.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .accuracy import holdout_pairs
+from .batch import SeriesBatch
+from .results import CheckResult, skip_reasons
+from .types import FloatMatrix
+
+BENCHMARKS = ("mean", "naive", "seasonal_naive", "drift")
+
+
+def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatrix]:
+    """Forecasts of each benchmark, shape ``(n_series, horizon)``; ``NaN`` where undefined.
+
+    ``seasonal_naive`` is left out when the season length is 1 (it equals ``naive``).
+    """
+    a = batch.actuals
+    n, width = a.shape
+    m = batch.season_length
+    length = batch.lengths
+    has = length > 0
+    rows = np.arange(n)
+    last_idx = np.maximum(length - 1, 0)
+    observed = ~np.isnan(a)
+    first_idx = np.argmax(observed, axis=1)
+    h = np.arange(1, horizon + 1)[None, :]
+    count = observed.sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        mean = np.where(count > 0, np.where(observed, a, 0.0).sum(axis=1) / count, np.nan)
+    y_last = np.where(has, a[rows, last_idx], np.nan)
+    y_first = np.where(has, a[rows, first_idx], np.nan)
+    span = (last_idx - first_idx).astype(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        slope = np.where(span > 0, (y_last - y_first) / span, np.nan)
+    out = {
+        "mean": np.repeat(mean[:, None], horizon, axis=1),
+        "naive": np.repeat(y_last[:, None], horizon, axis=1),
+        "drift": y_last[:, None] + h * slope[:, None],
+    }
+    if m > 1:
+        # Source index one season back, then further back by whole seasons where missing.
+        src = (length[:, None] - m + (h - 1) % m).astype(np.int64)
+        values = np.full((n, horizon), np.nan)
+        for _ in range(max(width // m, 1)):
+            inside = src >= 0
+            got = np.where(inside, a[rows[:, None], np.clip(src, 0, max(width - 1, 0))], np.nan)
+            values = np.where(np.isnan(values), got, values)
+            src = src - m
+            if not np.isnan(values).any() or not inside.any():
+                break
+        out["seasonal_naive"] = values
+    return {k: out[k] for k in BENCHMARKS if k in out}
+
+
+def _rmse(err: FloatMatrix, ok: np.ndarray, count: np.ndarray) -> np.ndarray:
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.sqrt(np.where(ok, err * err, 0.0).sum(axis=1) / count)
+
+
+def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
+    """Skill over the best simple benchmark on the holdout.
+
+    ``skill = 1 - RMSE(model) / RMSE(best)``, where ``best`` is the benchmark of
+    :func:`benchmark_forecasts` with the lowest RMSE on the holdout steps the model is scored on
+    (a benchmark undefined at any of those steps is left out). Below 0 the model loses to a
+    method that needs no model at all.
+
+    Skipped without a holdout, or when the best benchmark is exact on the holdout (RMSE 0).
+    """
+    err, ok, count = holdout_pairs(batch)
+    n = batch.n_series
+    horizon = err.shape[1]
+    model_rmse = _rmse(err, ok, count)
+    names = [k for k in BENCHMARKS if k != "seasonal_naive" or batch.season_length > 1]
+    bench_rmse = np.full((n, len(names)), np.inf)
+    details: dict[str, np.ndarray] = {}
+    if horizon > 0 and batch.holdout is not None:
+        forecasts = benchmark_forecasts(batch, horizon)
+        for j, name in enumerate(names):
+            b_err = batch.holdout.actuals - forecasts[name]
+            undefined = (ok & np.isnan(b_err)).any(axis=1)
+            rmse = _rmse(np.where(ok, b_err, 0.0), ok, count)
+            bench_rmse[:, j] = np.where(undefined | (count == 0), np.inf, rmse)
+            details[f"rmse_{name}"] = np.where(np.isfinite(bench_rmse[:, j]), bench_rmse[:, j], np.nan)
+    best_j = np.argmin(bench_rmse, axis=1)
+    best = bench_rmse[np.arange(n), best_j]
+    with np.errstate(invalid="ignore", divide="ignore"):
+        skill = 1.0 - model_rmse / best
+    reasons = skip_reasons(
+        n,
+        (count < max(min_obs, 1), "no holdout" if min_obs <= 1 else f"fewer than {min_obs} holdout steps"),
+        (~np.isfinite(best), "no benchmark could be fitted to the training actuals"),
+        (best == 0, "a benchmark forecasts the holdout exactly, so skill is undefined"),
+    )
+    ran = np.equal(reasons, None)
+    best_name = np.array(names, dtype=object)[best_j]
+    return CheckResult(
+        name="benchmark_skill",
+        kind="metric",
+        statistic=np.where(ran, skill, np.nan),
+        p_value=np.full(n, np.nan),
+        details={
+            "best_benchmark": np.where(ran, best_name, None),
+            "skill": np.where(ran, skill, np.nan),
+            "rmse_model": np.where(ran, model_rmse, np.nan),
+            "rmse_best": np.where(ran, best, np.nan),
+            **details,
+            "horizon": count,
+        },
+        skip_reason=reasons,
+    )

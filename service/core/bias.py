@@ -1,0 +1,167 @@
+"""Bias: is the mean residual zero, over the whole span and recently?"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from .batch import Residuals
+from .results import CheckResult, skip_reasons
+from .types import FloatVector, IntVector
+
+BIAS_MIN_OBS = 3
+TRACKING_TRADE_LIMIT = 4.0
+TRACKING_DEFAULT_WINDOW = 12
+
+
+def newey_west_lags(n_obs: IntVector | int) -> IntVector:
+    """Newey-West truncation lag ``floor(4 (T / 100) ** (2 / 9))``.
+
+    The rule statsmodels' ``sandwich_covariance`` uses (Newey & West 1994). ``T = 100`` gives 4,
+    ``T = 20`` gives 2.
+    """
+    t = np.asarray(n_obs, dtype=float)
+    return np.floor(4.0 * (t / 100.0) ** (2.0 / 9.0)).astype(np.int64)
+
+
+def hac_variance_of_mean(res: Residuals, lags: IntVector) -> FloatVector:
+    """Newey-West (Bartlett kernel) variance of the mean residual, per series.
+
+    ``Var = (gamma_0 + 2 sum_{j=1..L} (1 - j / (L + 1)) gamma_j) / T``, with ``gamma_j`` the
+    lag-``j`` autocovariance over observed pairs divided by ``T = n_obs`` (no small-sample
+    correction): the ``cov_type="HAC", use_correction=False`` covariance of an OLS fit on a
+    constant.
+    """
+    lags = np.asarray(lags, dtype=np.int64)
+    max_lag = int(lags.max(initial=0))
+    gamma = res.autocovariances(max_lag)
+    j = np.arange(max_lag + 1)[None, :]
+    weights = np.where(j <= lags[:, None], 1.0 - j / (lags[:, None] + 1.0), 0.0)
+    weights[:, 0] = 1.0
+    long_run = gamma[:, 0] + 2.0 * (weights[:, 1:] * gamma[:, 1:]).sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return long_run / res.n_obs
+
+
+def bias(
+    res: Residuals,
+    actuals_scale: FloatVector,
+    *,
+    hac_lags: int | None = None,
+    ci_level: float = 0.95,
+    min_obs: int = BIAS_MIN_OBS,
+) -> CheckResult:
+    """t test of a zero mean residual with a Newey-West (HAC) standard error.
+
+    ``t = mean(e) / SE``, ``SE = sqrt(hac_variance_of_mean)`` with ``hac_lags`` from
+    :func:`newey_west_lags` unless given (clamped to ``n_obs - 1``). The p-value is two-sided
+    from Student's t with ``n_obs - 1`` degrees of freedom (statsmodels' OLS on a constant with
+    ``cov_type="HAC", use_t=True``); the confidence interval is ``mean +- t_{(1+level)/2} SE``.
+
+    ``percent_bias = 100 mean(e) / mean|actual|`` over the periods with a residual
+    (``actuals_scale`` is that mean). ``e > 0`` means the forecasts run low: adding
+    ``correction = mean(e)`` to them removes the bias.
+
+    A series whose residuals are all equal but not zero has ``SE = 0``: it is biased for certain
+    (``t = +-inf``, ``p = 0``). All-zero residuals skip (a perfect fit has no bias to test).
+    """
+    n = res.n_obs
+    lags = newey_west_lags(n) if hac_lags is None else np.full(n.shape, int(hac_lags))
+    lags = np.clip(lags, 0, np.maximum(n - 1, 0))
+    var = hac_variance_of_mean(res, lags)
+    se = np.sqrt(np.maximum(var, 0.0))
+    mean = res.mean
+    zero = res.constant & (np.abs(np.nan_to_num(mean)) == 0)
+    reasons = skip_reasons(
+        n.shape[0],
+        (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
+        (zero, "residuals are all zero"),
+    )
+    ran = np.equal(reasons, None)
+    df = np.maximum(n - 1, 1).astype(float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        t = np.where(se > 0, mean / se, np.sign(mean) * np.inf)
+        p = 2.0 * stats.t.sf(np.abs(t), df)
+        q = stats.t.ppf(0.5 + ci_level / 2.0, df)
+        pct = 100.0 * mean / actuals_scale
+    t = np.where(ran, t, np.nan)
+    p = np.where(ran, p, np.nan)
+    mean_r = np.where(ran, mean, np.nan)
+    se_r = np.where(ran, se, np.nan)
+    return CheckResult(
+        name="bias",
+        kind="test",
+        statistic=t,
+        p_value=p,
+        details={
+            "mean_error": mean_r,
+            "std_error": se_r,
+            "ci_low": mean_r - q * se_r,
+            "ci_high": mean_r + q * se_r,
+            "ci_level": np.full(n.shape, ci_level),
+            "percent_bias": np.where(ran & np.isfinite(pct), pct, np.nan),
+            "correction": mean_r,
+            "hac_lags": lags,
+            "df": np.where(ran, n - 1, 0),
+            "n_obs": n,
+        },
+        skip_reason=reasons,
+        null_hypothesis="the residuals have mean zero",
+    )
+
+
+def tracking_signal(
+    res: Residuals, *, window: int = TRACKING_DEFAULT_WINDOW, min_obs: int | None = None
+) -> CheckResult:
+    """Recent bias: the sum of the last ``window`` residuals over their mean absolute error.
+
+    ``TS = sum(e_last) / (sum(|e_last|) / w)``, the trade's tracking signal (common practice),
+    over the last ``w = window`` observed residuals. Its p-value does not come from the trade's
+    fixed limit of 4 (whose false-alarm rate grows with the window) but from the null
+    distribution of the sum: with independent errors of the series' own variance ``s^2``
+    (sample variance of all its residuals, ``ddof = 1``), ``sum(e_last) ~ N(0, w s^2)``, so
+    ``z = sum(e_last) / (s sqrt(w))`` and ``p = 2 sf(|z|)`` (normal approximation). Whether
+    ``|TS| > 4`` is reported in ``details`` as ``beyond_trade_limit`` for reference.
+
+    Skipped when fewer than ``min_obs`` residuals are observed (default ``2 * window``, so the
+    variance rests on more than the window itself) or the window's errors are all zero.
+    """
+    if window < 2:
+        raise ValueError(f"window must be at least 2, got {window}")
+    need = 2 * window if min_obs is None else max(min_obs, window + 1)
+    n = res.n_obs
+    observed = res.observed
+    # Rank of each observed residual counted from the end of its row: 1 is the last.
+    rank_from_end = np.cumsum(observed[:, ::-1], axis=1)[:, ::-1]
+    recent = observed & (rank_from_end <= window)
+    e = np.where(recent, res.values, 0.0)
+    total = e.sum(axis=1)
+    abs_total = np.abs(e).sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        var = np.einsum("ij,ij->i", res.centred, res.centred) / (n - 1)
+        ts = window * total / abs_total
+        z = total / np.sqrt(window * var)
+    p = 2.0 * stats.norm.sf(np.abs(z))
+    reasons = skip_reasons(
+        n.shape[0],
+        (n < need, f"fewer than {need} residuals for a window of {window}"),
+        (abs_total == 0, f"the last {window} residuals are all zero"),
+        (~(var > 0), "residuals are constant"),
+    )
+    ran = np.equal(reasons, None)
+    return CheckResult(
+        name="tracking_signal",
+        kind="test",
+        statistic=np.where(ran, ts, np.nan),
+        p_value=np.where(ran, p, np.nan),
+        details={
+            "window": np.full(n.shape, window),
+            "sum_error": np.where(ran, total, np.nan),
+            "mean_absolute_error": np.where(ran, abs_total / window, np.nan),
+            "z": np.where(ran, z, np.nan),
+            "trade_limit": np.full(n.shape, TRACKING_TRADE_LIMIT),
+            "beyond_trade_limit": ran & (np.abs(np.nan_to_num(ts)) > TRACKING_TRADE_LIMIT),
+        },
+        skip_reason=reasons,
+        null_hypothesis="the last errors have mean zero",
+    )

@@ -1,0 +1,108 @@
+"""Holdout prediction intervals: coverage (Kupiec's test) and the interval (Winkler) score."""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from .batch import SeriesBatch
+from .results import CheckResult, skip_reasons
+from .types import FloatMatrix, FloatVector
+
+
+def _xlogy(x: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """``x log y`` with ``0 log 0 = 0``."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(x == 0, 0.0, x * np.log(np.where(x == 0, 1.0, y)))
+
+
+def kupiec_lr(misses: np.ndarray, n: np.ndarray, miss_rate: np.ndarray) -> FloatVector:
+    """Kupiec's (1995) proportion-of-failures likelihood ratio.
+
+    ``LR = -2 ln[(1-p)^(T-x) p^x] + 2 ln[(1-x/T)^(T-x) (x/T)^x]`` with ``0 ln 0 = 0``,
+    chi-square with 1 degree of freedom. ``x = 6, T = 252, p = 0.01`` gives 3.49878.
+    """
+    x = np.asarray(misses, dtype=float)
+    t = np.asarray(n, dtype=float)
+    p = np.asarray(miss_rate, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        phat = x / t
+    null = _xlogy(t - x, 1.0 - p) + _xlogy(x, p)
+    alt = _xlogy(t - x, 1.0 - phat) + _xlogy(x, phat)
+    return np.maximum(2.0 * (alt - null), 0.0)
+
+
+def winkler_scores(
+    y: FloatMatrix, lower: FloatMatrix, upper: FloatMatrix, alpha: FloatVector | float
+) -> FloatMatrix:
+    """Interval score per step (Winkler 1972; Gneiting & Raftery 2007).
+
+    ``(u - l) + (2 / alpha)(l - y)`` if ``y < l``, ``+ (2 / alpha)(y - u)`` if ``y > u``.
+    With ``alpha = 0.2`` and ``[10, 20]``: ``y = 15`` scores 10, ``y = 25`` 60, ``y = 8`` 30.
+    """
+    a = np.asarray(alpha, dtype=float)
+    if a.ndim == 1:
+        a = a[:, None]
+    penalty = (2.0 / a) * (np.maximum(lower - y, 0.0) + np.maximum(y - upper, 0.0))
+    return (upper - lower) + penalty
+
+
+def interval_coverage(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
+    """Empirical coverage of the holdout intervals against their nominal level.
+
+    ``x`` = holdout steps outside ``[lower, upper]`` out of ``T`` scored steps (actual and both
+    bounds observed); Kupiec's LR (:func:`kupiec_lr`) tests a miss rate of ``1 - level``.
+    ``details`` reports ``coverage = 1 - x / T``, ``level``, misses below and above, and the
+    mean Winkler score with ``alpha = 1 - level``.
+
+    Skipped when the series has no intervals or fewer than ``min_obs`` scored steps.
+    """
+    n = batch.n_series
+    h = batch.holdout
+    if h is None or h.lower is None or h.upper is None or h.level is None:
+        reasons = np.full(n, "no holdout intervals", dtype=object)
+        nan = np.full(n, np.nan)
+        return CheckResult(
+            name="interval_coverage", kind="test", statistic=nan, p_value=nan,
+            details={"coverage": nan, "level": nan, "n_scored": np.zeros(n, dtype=np.int64)},
+            skip_reason=reasons,
+            null_hypothesis="the intervals miss at their nominal rate 1 - level",
+        )
+    y, lo, up, level = h.actuals, h.lower, h.upper, h.level
+    ok = ~(np.isnan(y) | np.isnan(lo) | np.isnan(up))
+    t = ok.sum(axis=1)
+    below = (ok & (y < lo)).sum(axis=1)
+    above = (ok & (y > up)).sum(axis=1)
+    x = below + above
+    miss_rate = 1.0 - level
+    lr = kupiec_lr(x, t, miss_rate)
+    scores = winkler_scores(np.where(ok, y, 0.0), np.where(ok, lo, 0.0), np.where(ok, up, 0.0),
+                            np.where(np.isnan(miss_rate), 1.0, miss_rate))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        coverage = 1.0 - x / t
+        winkler = np.where(ok, scores, 0.0).sum(axis=1) / t
+    reasons = skip_reasons(
+        n,
+        (np.isnan(level) | (t == 0), "no holdout intervals"),
+        (t < min_obs, f"fewer than {min_obs} holdout steps with intervals"),
+    )
+    ran = np.equal(reasons, None)
+    lr = np.where(ran, lr, np.nan)
+    return CheckResult(
+        name="interval_coverage",
+        kind="test",
+        statistic=lr,
+        p_value=stats.chi2.sf(lr, 1),
+        details={
+            "coverage": np.where(ran, coverage, np.nan),
+            "level": level,
+            "misses": np.where(ran, x, 0),
+            "misses_below": np.where(ran, below, 0),
+            "misses_above": np.where(ran, above, 0),
+            "n_scored": t,
+            "winkler_score": np.where(ran, winkler, np.nan),
+            "df": np.full(n, 1),
+        },
+        skip_reason=reasons,
+        null_hypothesis="the intervals miss at their nominal rate 1 - level",
+    )

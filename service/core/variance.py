@@ -1,0 +1,107 @@
+"""Residual variance: Engle's ARCH LM test of constant (conditional) variance."""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import stats
+
+from .batch import Residuals
+from .results import CheckResult, skip_reasons
+from .types import FloatMatrix, FloatVector, IntVector
+
+ARCH_MAX_LAGS = 10
+_CHUNK = 2048
+
+
+def arch_lags(n_obs: IntVector) -> IntVector:
+    """Lag rule ``min(10, floor(T / 5))``, statsmodels' ``het_arch`` default."""
+    return np.minimum(ARCH_MAX_LAGS, np.asarray(n_obs) // 5).astype(np.int64)
+
+
+def _lm_one_order(squares: FloatMatrix, lags: int) -> tuple[FloatVector, IntVector, FloatVector]:
+    """``n R^2`` of ``s_t`` on ``1, s_{t-1}..s_{t-lags}`` for each row, with rows that miss any
+    of those values left out. Returns (LM, rows used, centred total sum of squares)."""
+    n_series, width = squares.shape
+    rows = width - lags
+    if rows <= 0:
+        nan = np.full(n_series, np.nan)
+        return nan, np.zeros(n_series, dtype=np.int64), nan
+    # cols[:, :, 0] is s_t, cols[:, :, j] is s_{t-j}, for t = lags..width-1.
+    cols = np.stack([squares[:, lags - j : width - j] for j in range(lags + 1)], axis=2)
+    valid = ~np.isnan(cols).any(axis=2)
+    used = valid.sum(axis=1)
+    cols = np.where(valid[:, :, None], cols, 0.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        means = cols.sum(axis=1) / used[:, None]
+    # Centring every column absorbs the intercept and keeps the cross-products well scaled.
+    cols = np.where(valid[:, :, None], cols - means[:, None, :], 0.0)
+    y = cols[:, :, 0]
+    x = cols[:, :, 1:]
+    xtx = np.einsum("ntj,ntk->njk", x, x)
+    xty = np.einsum("ntj,nt->nj", x, y)
+    tss = np.einsum("nt,nt->n", y, y)
+    # Scale to unit diagonal before solving; a singular design (constant lags) gets pinv.
+    d = np.sqrt(np.einsum("njj->nj", xtx))
+    d = np.where(d > 0, d, 1.0)
+    a = xtx / d[:, :, None] / d[:, None, :]
+    b = xty / d
+    try:
+        coef = np.linalg.solve(a, b[:, :, None])[:, :, 0]
+    except np.linalg.LinAlgError:
+        coef = np.einsum("njk,nk->nj", np.linalg.pinv(a), b)
+    explained = np.einsum("nj,nj->n", coef, b)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r2 = explained / tss
+    return used * r2, used.astype(np.int64), tss
+
+
+def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> CheckResult:
+    """Engle's (1982) Lagrange multiplier test for ARCH effects.
+
+    ``LM = n R^2`` from the OLS regression of the squared residuals on a constant and their own
+    ``L`` lags, ``n`` the rows with all ``L + 1`` values observed, referred to chi-square with
+    ``L`` degrees of freedom. The residuals are squared as they are (not demeaned), as in
+    statsmodels' ``het_arch(resid, nlags=L)``. ``L`` follows :func:`arch_lags` unless given.
+
+    Skipped when the rule gives no lag, when fewer than ``L + 2`` regression rows remain, or
+    when the squared residuals do not vary (constant or ``+-c`` residuals).
+    """
+    if lags is not None and lags < 1:
+        raise ValueError(f"lags must be at least 1, got {lags}")
+    n = res.n_obs
+    n_series = n.shape[0]
+    used_lags = arch_lags(n) if lags is None else np.full(n.shape, lags, dtype=np.int64)
+    lm = np.full(n_series, np.nan)
+    rows = np.zeros(n_series, dtype=np.int64)
+    tss = np.full(n_series, np.nan)
+    squares = np.where(res.observed, res.values * res.values, np.nan)
+    # Loop over the few distinct lag orders and over blocks of rows, never over single series.
+    for order in np.unique(used_lags[used_lags >= 1]):
+        members = np.flatnonzero(used_lags == order)
+        for lo in range(0, members.size, _CHUNK):
+            idx = members[lo : lo + _CHUNK]
+            block = squares[idx]
+            # Trim to the longest span in the block so short series cost little.
+            keep = ~np.isnan(block).all(axis=0)
+            first = int(np.argmax(keep)) if keep.any() else 0
+            last = int(keep.size - np.argmax(keep[::-1])) if keep.any() else 0
+            lm[idx], rows[idx], tss[idx] = _lm_one_order(block[:, first:last], int(order))
+    flat = ~(tss > 1e-300) | res.constant
+    reasons = skip_reasons(
+        n_series,
+        (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
+        (used_lags < 1, "too short for one lag (the lag rule allows at most T/5)"),
+        (rows < used_lags + 2, "too few complete rows for the regression"),
+        (flat, "squared residuals are constant, so their variance cannot change"),
+    )
+    ran = np.equal(reasons, None)
+    lm = np.where(ran, np.maximum(lm, 0.0), np.nan)
+    return CheckResult(
+        name="arch_lm",
+        kind="test",
+        statistic=lm,
+        p_value=stats.chi2.sf(lm, np.maximum(used_lags, 1)),
+        details={"lags": used_lags, "df": used_lags, "n_rows": rows},
+        skip_reason=reasons,
+        null_hypothesis="the residual variance is constant (no ARCH effects)",
+    )
