@@ -34,6 +34,8 @@ def run(host: str, port: int, workers: int) -> None:
     """
     import uvicorn
 
+    from service.api.slowclients import uvicorn_options
+
     settings = Settings()
     secret = prepare(settings)
     if secret is not None:
@@ -42,7 +44,7 @@ def run(host: str, port: int, workers: int) -> None:
     os.environ["PLUMBLINE_MIGRATE_ON_START"] = "false"
     uvicorn.run("service.api.app:create_app", factory=True, host=host, port=port,
                 workers=max(1, workers), log_level="info", access_log=False,
-                proxy_headers=False)
+                proxy_headers=False, **uvicorn_options(settings))
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 from fastapi import APIRouter, Request
-from sqlalchemy import text
 from sqlalchemy.exc import SQLAlchemyError
 from starlette.responses import Response
 
+from ..availability import RETRY_AFTER_SECONDS, probe_database
 from ..errors import problem
 from ..http import json_response
 
@@ -22,10 +22,10 @@ def healthz() -> Response:
             responses={503: {"description": "database unreachable"}})
 def readyz(request: Request) -> Response:
     try:
-        with request.app.state.engine.connect() as conn:
-            conn.execute(text("SELECT 1"))
+        probe_database(request.app.state.engine)
     except SQLAlchemyError as exc:
-        return problem(503, f"database unreachable: {type(exc).__name__}")
+        return problem(503, f"database unreachable: {type(exc).__name__}",
+                       headers={"Retry-After": str(RETRY_AFTER_SECONDS)})
     return json_response({"status": "ready", "database": request.app.state.engine.dialect.name})
 
 
