@@ -42,6 +42,9 @@ MAX_ERRORS = 50
 """At most this many problems are reported for one request."""
 
 MAX_NAME_LENGTH = 200
+MAX_MAGNITUDE = 1e60
+NUL_MESSAGE = "must not contain NUL characters (U+0000)"
+"""Largest magnitude of a value: fourth powers of larger residuals overflow a 64-bit float."""
 TOP_LEVEL_FIELDS = frozenset(
     {"model", "version", "policy", "season_length", "model_params", "labels", "series"}
 )
@@ -161,6 +164,11 @@ def load_json(body: bytes | str) -> Any:
     try:
         return orjson.loads(body)
     except orjson.JSONDecodeError as fast_error:
+        if "surrogate" in str(fast_error):
+            # A lone UTF-16 surrogate escape is no Unicode text: it could not be stored or sent.
+            raise RequestUnparseable(
+                [{"loc": "body", "message": f"malformed JSON: {fast_error}"}]
+            ) from None
         # Slow path only for bodies orjson refuses: tell non-finite numbers from broken syntax.
         try:
             text = body.decode("utf-8") if isinstance(body, (bytes, bytearray)) else body
@@ -208,6 +216,9 @@ def _name(doc: Mapping[str, Any], key: str, errs: _Errors, *, required: bool) ->
     if len(value) > MAX_NAME_LENGTH:
         errs.add(key, f"must be at most {MAX_NAME_LENGTH} characters")
         return ""
+    if "\x00" in value:
+        errs.add(key, NUL_MESSAGE)
+        return ""
     return value
 
 
@@ -249,7 +260,9 @@ def _labels(value: Any, errs: _Errors) -> dict[str, str]:
         return {}
     out: dict[str, str] = {}
     for key, item in value.items():
-        if isinstance(item, str):
+        if "\x00" in key or (isinstance(item, str) and "\x00" in item):
+            errs.add(f"labels.{key}", NUL_MESSAGE)
+        elif isinstance(item, str):
             out[key] = item
         elif isinstance(item, (int, float)) and not isinstance(item, bool):
             out[key] = str(item)
@@ -309,6 +322,17 @@ def _flat_numbers(
             i = int(np.searchsorted(ends, pos, side="right"))
             j = int(pos - (ends[i] - lengths[i]))
             errs.add(locs[i], f"value at index {j} overflows a 64-bit float")
+        return None
+    with np.errstate(invalid="ignore"):
+        big = np.flatnonzero(np.abs(arr) > MAX_MAGNITUDE)
+    if big.size:
+        # Finite but so large that the checks' moments (up to fourth powers) would overflow.
+        ends = np.cumsum(lengths)
+        for pos in big[:MAX_ERRORS]:
+            i = int(np.searchsorted(ends, pos, side="right"))
+            j = int(pos - (ends[i] - lengths[i]))
+            errs.add(locs[i], f"value at index {j} ({arr[pos]:g}) is beyond the largest "
+                     f"magnitude the checks can use, {MAX_MAGNITUDE:g}")
         return None
     return arr, lengths
 
@@ -460,6 +484,8 @@ def parse_json_request(
             sid = f"#{i}"
         elif len(sid) > MAX_NAME_LENGTH:
             errs.add(f"{at}.id", f"must be at most {MAX_NAME_LENGTH} characters")
+        elif "\x00" in sid:
+            errs.add(f"{at}.id", NUL_MESSAGE)
         elif sid in seen:
             errs.add(f"{at}.id", f"duplicate series id {sid!r} (first at series[{seen[sid]}])")
         seen.setdefault(sid, i)

@@ -14,6 +14,7 @@ from starlette.responses import Response
 from .errors import ApiError
 
 JSON = "application/json"
+MAX_SEQ = 2**31 - 1  # largest value of an INTEGER column on PostgreSQL
 CSV = "text/csv; charset=utf-8"
 
 
@@ -54,7 +55,7 @@ def decode_cursor(cursor: str) -> int:
     try:
         raw = base64.urlsafe_b64decode(cursor + "=" * (-len(cursor) % 4)).decode()
         prefix, _, number = raw.partition(":")
-        if prefix != "before" or not number.isdigit():
+        if prefix != "before" or not number.isdigit() or int(number) > MAX_SEQ:
             raise ValueError(raw)
         return int(number)
     except (ValueError, UnicodeDecodeError):

@@ -32,7 +32,9 @@ import time
 from collections import OrderedDict
 from collections.abc import Awaitable, Callable, MutableMapping
 from dataclasses import dataclass
+from http import HTTPStatus
 from typing import Any
+from urllib.parse import parse_qsl
 
 __all__ = [
     "EXEMPT_PATHS",
@@ -54,29 +56,32 @@ MAX_TRACKED_KEYS = 10_000
 """Most buckets kept per limiter; the least recently used is dropped beyond it."""
 
 PROBLEM_TYPES = {
+    404: "not-found",
     408: "request-timeout",
     413: "body-too-large",
+    422: "invalid-request",
     429: "rate-limited",
-}
-TITLES = {
-    408: "Request Timeout",
-    413: "Content Too Large",
-    429: "Too Many Requests",
 }
 
 
 async def problem_response(
-    send: Send, status: int, detail: str, *, headers: dict[str, str] | None = None
+    send: Send,
+    status: int,
+    detail: str,
+    *,
+    headers: dict[str, str] | None = None,
+    errors: list[dict[str, str]] | None = None,
 ) -> None:
     """Send an RFC 9457 ``application/problem+json`` response straight on the ASGI channel."""
-    body = json.dumps(
-        {
-            "type": f"urn:plumbline:problem:{PROBLEM_TYPES.get(status, 'error')}",
-            "title": TITLES.get(status, "Error"),
-            "status": status,
-            "detail": detail,
-        }
-    ).encode()
+    doc: dict[str, Any] = {
+        "type": f"urn:plumbline:problem:{PROBLEM_TYPES.get(status, 'error')}",
+        "title": HTTPStatus(status).phrase,
+        "status": status,
+        "detail": detail,
+    }
+    if errors is not None:
+        doc["errors"] = errors
+    body = json.dumps(doc).encode()
     raw = [
         (b"content-type", b"application/problem+json"),
         (b"content-length", str(len(body)).encode()),
@@ -238,6 +243,9 @@ class LimitsMiddleware:
                 )
                 return
 
+        if await _refuse_nul(scope, send):
+            return
+
         length = _header(scope, b"content-length")
         if length is not None:
             try:
@@ -304,6 +312,31 @@ class LimitsMiddleware:
                 chunks.append(chunk)
             if not message.get("more_body", False):
                 return b"".join(chunks)
+
+
+async def _refuse_nul(scope: Scope, send: Send) -> bool:
+    """Answer a URL that holds a NUL character (``%00``); ``True`` if it was answered.
+
+    No stored name or id holds one (bodies are refused with 422 for it) and PostgreSQL cannot
+    compare text with it: a path with NUL names nothing (404), a query parameter with NUL is
+    invalid (422 naming it).
+    """
+    if "\x00" in scope.get("path", ""):
+        await problem_response(send, 404, "No such resource: the path holds a NUL character.")
+        return True
+    query = scope.get("query_string", b"")
+    if b"%00" not in query.lower() and b"\x00" not in query:
+        return False
+    errors = [
+        {"loc": f"query.{name.replace(chr(0), '?')}", "message": "must not contain NUL characters"}
+        for name, value in parse_qsl(query.decode("latin-1"), keep_blank_values=True)
+        if "\x00" in name or "\x00" in value
+    ]
+    if not errors:
+        return False
+    await problem_response(send, 422, f"{errors[0]['loc']}: {errors[0]['message']}",
+                           errors=errors)
+    return True
 
 
 def _replaying(body: bytes, receive: Receive) -> Receive:

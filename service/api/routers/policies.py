@@ -98,7 +98,7 @@ def get_policy(
     request: Request,
     name: str,
     principal: Annotated[Any, Depends(require("read"))],
-    version: Annotated[int | None, Query(ge=1)] = None,
+    version: Annotated[int | None, Query(ge=1, le=2**31 - 1)] = None,
 ) -> Response:
     stored = repo.get_policy(request.app.state.engine, name=name, version=version)
     if stored is not None:
