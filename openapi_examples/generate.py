@@ -108,9 +108,9 @@ def _dump(path: Path, value: Any) -> None:
 
 
 def main() -> int:
-    from fastapi.testclient import TestClient
-
     import tempfile
+
+    from fastapi.testclient import TestClient
 
     from service.api.app import create_app
     from service.settings import Settings
