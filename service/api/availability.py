@@ -93,8 +93,9 @@ def install_availability(app: Any) -> None:
                       exc_info=exc)
             return problem(500, "internal error: the service failed on this request; it has "
                            "been logged")
-        log.warning("database unavailable on %s %s: %s", request.method, request.url.path,
-                    type(exc).__name__)
+        code = getattr(getattr(exc, "orig", None), "sqlite_errorname", None)
+        log.warning("database unavailable on %s %s: %s%s", request.method, request.url.path,
+                    type(exc).__name__, f" ({code})" if code else "")
         return problem(
             503,
             "The database is unavailable; nothing was stored. Retry after the number of "

@@ -125,6 +125,26 @@ class GuardedH11Protocol(H11Protocol):
         self.transport.write(_timeout_response(self.header_read_timeout))
         self.transport.close()
 
+    def send_400_response(self, msg: str) -> None:
+        """A request uvicorn cannot parse (or a head over ``max_header_bytes``): problem+json."""
+        body = json.dumps({
+            "type": "urn:plumbline:problem:unparseable-request",
+            "title": "Bad Request",
+            "status": 400,
+            "detail": f"{msg} The request line and headers must be valid HTTP/1.1 and at most "
+                      f"{self.config.h11_max_incomplete_event_size or 16384} bytes.",
+        }).encode()
+        headers = [(b"content-type", b"application/problem+json"), (b"connection", b"close"),
+                   (b"content-length", str(len(body)).encode())]
+        try:
+            self.transport.write(self.conn.send(h11.Response(status_code=400, headers=headers,
+                                                             reason=b"Bad Request")))
+            self.transport.write(self.conn.send(h11.Data(data=body)))
+            self.transport.write(self.conn.send(h11.EndOfMessage()))
+        except h11.LocalProtocolError:
+            pass
+        self.transport.close()
+
     def connection_made(self, transport: asyncio.Transport) -> None:  # type: ignore[override]
         super().connection_made(transport)
         self._arm_head_timer()

@@ -29,6 +29,7 @@ from .models import (
     SeriesResultRow,
     TokenRow,
 )
+from .writelock import write_lock
 
 A = AssessmentRow.__table__
 SR = SeriesResultRow.__table__
@@ -208,7 +209,7 @@ def save_assessment(
         for i, s in enumerate(inputs)
     ]
     try:
-        with engine.begin() as conn:
+        with write_lock(engine), engine.begin() as conn:
             seq = conn.execute(
                 insert(A).returning(A.c.seq),
                 {

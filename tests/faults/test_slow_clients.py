@@ -119,3 +119,22 @@ def test_connections_beyond_the_cap_get_503_problem(server):
             return
         time.sleep(0.1)
     raise AssertionError("the server did not recover once the connections closed")
+
+
+def test_an_oversized_or_broken_head_is_400_problem(server):
+    # A head that keeps growing past 16 KiB (the default) before it ends, and one that is not
+    # HTTP at all.
+    for head in (b"GET /healthz HTTP/1.1\r\nHost: x\r\nX-Big: " + b"a" * 20000,
+                 b"NOT HTTP AT ALL\r\n\r\n"):
+        s = connect(server)
+        s.sendall(head)
+        time.sleep(0.2)
+        try:
+            s.sendall(b"\r\n\r\n")
+        except OSError:
+            pass  # already answered and closed
+        answer = read_all(s)
+        assert answer.startswith(b"HTTP/1.1 400"), answer[:200]
+        assert b"application/problem+json" in answer
+        doc = json.loads(answer.split(b"\r\n\r\n", 1)[1])
+        assert doc["status"] == 400 and doc["detail"]

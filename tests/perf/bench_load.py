@@ -157,10 +157,12 @@ def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--backend", choices=["sqlite", "postgresql", "both"], default="both")
     parser.add_argument("--duration", type=int, default=60)
+    parser.add_argument("--keep", type=Path, help="keep server logs and locust files here")
     args = parser.parse_args()
     results = []
     with tempfile.TemporaryDirectory(prefix="plumbline-bench-") as tmp:
-        workdir = Path(tmp)
+        workdir = args.keep or Path(tmp)
+        workdir.mkdir(parents=True, exist_ok=True)
         if args.backend in ("sqlite", "both"):
             results.append(run_backend("sqlite", f"sqlite:///{workdir / 'bench.db'}",
                                        args.duration, workdir))
