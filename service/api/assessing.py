@@ -122,42 +122,45 @@ def run(
         "model_params": req.model_params,
         **result,
     }
+    verdict = str(result["verdict"])
+    if not store:
+        head["series"] = series
+        return Outcome(body=orjson.dumps(head, option=_DUMP), assessment_id=None,
+                       verdict=verdict, replayed=False, n_series=len(series))
     head_json = orjson.dumps(head, option=_DUMP)
     encoded = [orjson.dumps(s, option=_DUMP) for s in series]
     body = head_json[:-1] + b',"series":[' + b",".join(encoded) + b"]}"
-    verdict = str(result["verdict"])
-    if store:
-        fleet = result.get("fleet") or {}
-        verdicts = [s.get("verdict") for s in series]
-        n_failed = int(fleet.get("n_failed", verdicts.count("fail")))
-        n_warned = int(fleet.get("n_warned", verdicts.count("warn")))
-        pol = result.get("policy") or {}
-        try:
-            repo.save_assessment(
-                engine,
-                assessment_id=assessment_id,  # type: ignore[arg-type]
-                created_at=created,
-                model=req.model,
-                version=req.version,
-                verdict=verdict,
-                n_failed=n_failed,
-                n_warned=n_warned,
-                policy_name=str(pol.get("name", policy.name)),
-                policy_version=int(pol.get("version", policy.version)),
-                policy_document=document,
-                head=head_json,
-                series=[repo.SeriesResult(series_id=s["id"], verdict=s["verdict"],
-                                          n_obs=int(s["n_obs"]), json=e)
-                        for s, e in zip(series, encoded, strict=True)],
-                inputs=_inputs(req),
-                idempotency_key=idempotency_key,
-                body_hash=digest,
-            )
-        except repo.IdempotencyConflict:
-            # Another request with the same key won the race: answer as its repeat would be.
-            again = replay(engine, idempotency_key, digest)  # type: ignore[arg-type]
-            if again is not None:
-                return again
-            raise
+    fleet = result.get("fleet") or {}
+    verdicts = [s.get("verdict") for s in series]
+    n_failed = int(fleet.get("n_failed", verdicts.count("fail")))
+    n_warned = int(fleet.get("n_warned", verdicts.count("warn")))
+    pol = result.get("policy") or {}
+    try:
+        repo.save_assessment(
+            engine,
+            assessment_id=assessment_id,  # type: ignore[arg-type]
+            created_at=created,
+            model=req.model,
+            version=req.version,
+            verdict=verdict,
+            n_failed=n_failed,
+            n_warned=n_warned,
+            policy_name=str(pol.get("name", policy.name)),
+            policy_version=int(pol.get("version", policy.version)),
+            policy_document=document,
+            head=head_json,
+            series=[repo.SeriesResult(series_id=s["id"], verdict=s["verdict"],
+                                      n_obs=int(s["n_obs"]), json=e)
+                    for s, e in zip(series, encoded, strict=True)],
+            inputs=_inputs(req),
+            idempotency_key=idempotency_key,
+            body_hash=digest,
+        )
+    except repo.IdempotencyConflict:
+        # Another request with the same key won the race: answer as its repeat would be.
+        again = replay(engine, idempotency_key, digest)  # type: ignore[arg-type]
+        if again is not None:
+            return again
+        raise
     return Outcome(body=body, assessment_id=assessment_id, verdict=verdict, replayed=False,
                    n_series=len(series))
