@@ -25,7 +25,6 @@ import re
 import shutil
 import signal
 import socket
-import statistics
 import subprocess
 import sys
 import tempfile
@@ -200,22 +199,25 @@ def per_series_loop(payload: bytes) -> float:
     return time.perf_counter() - t0
 
 
-def fleet_request(port: int, payload: bytes, repeats: int) -> tuple[float, str]:
+def timed_posts(url: str, payload: bytes, repeats: int) -> list[tuple[float, object]]:
+    """``repeats`` POSTs of ``payload``: (seconds end to end, response) each."""
     import httpx
 
-    times = []
-    verdict = ""
+    out = []
     with httpx.Client(timeout=300) as client:
         for _ in range(repeats):
             t0 = time.perf_counter()
-            r = client.post(f"http://127.0.0.1:{port}/v1/assessments?store=false",
-                            content=payload, headers={"Content-Type": "application/json",
-                                                      "Authorization": f"Bearer {TOKEN}"})
-            times.append(time.perf_counter() - t0)
+            r = client.post(url, content=payload, headers={"Content-Type": "application/json",
+                                                           "Authorization": f"Bearer {TOKEN}"})
+            out.append((time.perf_counter() - t0, r))
             if r.status_code != 200:
-                raise SystemExit(f"fleet request failed: {r.status_code} {r.text[:300]}")
-            verdict = r.json()["verdict"]
-    return statistics.median(times), verdict
+                raise SystemExit(f"{url}: {r.status_code} {r.text[:300]}")
+    return out
+
+
+def median_run(runs: list[tuple[float, object]]) -> tuple[float, object]:
+    ordered = sorted(runs, key=lambda run: run[0])
+    return ordered[len(ordered) // 2]
 
 
 def main() -> int:
@@ -250,8 +252,13 @@ def main() -> int:
                             args.connections, tmp)
             svc_rps = rate(f"http://127.0.0.1:{svc_port}/v1/assessments", single, args.seconds,
                            args.connections, tmp)
+            bare_fleet_s, _ = median_run(timed_posts(f"http://127.0.0.1:{bare_port}/bare",
+                                                     fleet, args.repeats))
             stop(bare)
-            fleet_s, verdict = fleet_request(svc_port, fleet, args.repeats)
+            fleet_s, response = median_run(timed_posts(
+                f"http://127.0.0.1:{svc_port}/v1/assessments?store=false", fleet, args.repeats))
+            verdict = response.json()["verdict"]
+            stages = response.headers.get("server-timing", "")
         finally:
             stop(svc)
             stop(bare)
@@ -264,6 +271,8 @@ def main() -> int:
           f"| ratio (target >= 30%) | {100 * svc_rps / bare_rps:.1f}% |\n"
           f"| {FLEET} x {N_OBS}, store=false, end to end (median of {args.repeats}) | "
           f"{fleet_s:.2f} s (verdict {verdict}) |\n"
+          f"| of which server stages (Server-Timing, ms) | {stages} |\n"
+          f"| bare endpoint, same {FLEET}-series body (transfer + parse) | {bare_fleet_s:.2f} s |\n"
           f"| per-series statsmodels/scipy loop, 4 tests | {loop_s:.2f} s |\n"
           f"| speed-up (target >= 20x) | {loop_s / fleet_s:.1f}x |")
     return 0
