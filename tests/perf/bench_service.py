@@ -121,6 +121,22 @@ def stop(proc: subprocess.Popen) -> None:
 
 # ------------------------------------------------------------------------------ load
 
+def cpu_seconds(pid: int) -> float:
+    """User + system CPU time of a process (Linux ``/proc``), robust to other load."""
+    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+
+
+def measured_rate(url: str, payload: bytes, seconds: int, connections: int, tmp: Path,
+                  pid: int) -> tuple[float, float]:
+    """(requests per wall-clock second, requests per server CPU second)."""
+    cpu0 = cpu_seconds(pid)
+    t0 = time.monotonic()
+    per_s = rate(url, payload, seconds, connections, tmp)
+    elapsed = time.monotonic() - t0
+    cpu = cpu_seconds(pid) - cpu0
+    return per_s, per_s * elapsed / cpu if cpu > 0 else float("nan")
+
 def wrk_rate(url: str, body_file: Path, seconds: int, connections: int, tmp: Path) -> float:
     script = tmp / "post.lua"
     script.write_text(
@@ -248,33 +264,42 @@ def main() -> int:
             # Warm both up (imports, first connections) before measuring.
             rate(f"http://127.0.0.1:{svc_port}/v1/assessments", single, 2, 2, tmp)
             rate(f"http://127.0.0.1:{bare_port}/bare", single, 2, 2, tmp)
-            bare_rps = rate(f"http://127.0.0.1:{bare_port}/bare", single, args.seconds,
-                            args.connections, tmp)
-            svc_rps = rate(f"http://127.0.0.1:{svc_port}/v1/assessments", single, args.seconds,
-                           args.connections, tmp)
+            bare_rps, bare_cpu = measured_rate(f"http://127.0.0.1:{bare_port}/bare", single,
+                                               args.seconds, args.connections, tmp, bare.pid)
+            svc_rps, svc_cpu = measured_rate(f"http://127.0.0.1:{svc_port}/v1/assessments",
+                                             single, args.seconds, args.connections, tmp,
+                                             svc.pid)
             bare_fleet_s, _ = median_run(timed_posts(f"http://127.0.0.1:{bare_port}/bare",
                                                      fleet, args.repeats))
             stop(bare)
+            cpu0 = cpu_seconds(svc.pid)
             fleet_s, response = median_run(timed_posts(
                 f"http://127.0.0.1:{svc_port}/v1/assessments?store=false", fleet, args.repeats))
+            fleet_cpu = (cpu_seconds(svc.pid) - cpu0) / args.repeats
             verdict = response.json()["verdict"]
             stages = response.headers.get("server-timing", "")
         finally:
             stop(svc)
             stop(bare)
+    cpu0 = time.process_time()
     loop_s = per_series_loop(fleet)
+    loop_cpu = time.process_time() - cpu0
     tool = "wrk" if shutil.which("wrk") else "python asyncio loop"
     print(f"| measure | value |\n|---|---|\n"
           f"| load tool | {tool}, {args.connections} connections, {args.seconds} s |\n"
           f"| bare FastAPI endpoint (parse only), req/s | {bare_rps:.0f} |\n"
           f"| POST /v1/assessments, 1 x {N_OBS} stored, req/s | {svc_rps:.0f} |\n"
           f"| ratio (target >= 30%) | {100 * svc_rps / bare_rps:.1f}% |\n"
+          f"| requests per server CPU second: bare / service | {bare_cpu:.0f} / {svc_cpu:.0f} "
+          f"({100 * svc_cpu / bare_cpu:.1f}%) |\n"
           f"| {FLEET} x {N_OBS}, store=false, end to end (median of {args.repeats}) | "
           f"{fleet_s:.2f} s (verdict {verdict}) |\n"
           f"| of which server stages (Server-Timing, ms) | {stages} |\n"
           f"| bare endpoint, same {FLEET}-series body (transfer + parse) | {bare_fleet_s:.2f} s |\n"
           f"| per-series statsmodels/scipy loop, 4 tests | {loop_s:.2f} s |\n"
-          f"| speed-up (target >= 20x) | {loop_s / fleet_s:.1f}x |")
+          f"| speed-up (target >= 20x) | {loop_s / fleet_s:.1f}x |\n"
+          f"| CPU seconds: service (mean per request) / loop | {fleet_cpu:.2f} / {loop_cpu:.2f} "
+          f"({loop_cpu / fleet_cpu:.1f}x) |")
     return 0
 
 
