@@ -62,6 +62,9 @@ def test_openapi_documents_bodies_and_examples(client):
     assert "SeriesBody" in doc["components"]["schemas"]
     assert post["responses"]["201"]["content"]["application/json"]["examples"]
     assert post["responses"]["422"]["content"]["application/problem+json"]["examples"]
+    assert doc["components"]["securitySchemes"]["bearer"]["scheme"] == "bearer"
+    assert post["security"] == [{"bearer": []}]
+    assert "security" not in doc["paths"]["/healthz"]["get"]
     for path in ("/v1/models/{model}/verdict", "/v1/checks", "/v1/policies", "/v1/tokens",
                  "/v1/tokens/{token_id}", "/v1/assessments/{assessment_id}/series",
                  "/healthz", "/readyz", "/metrics"):

@@ -8,7 +8,7 @@ from sqlalchemy.exc import SQLAlchemyError
 from starlette.responses import Response
 
 from ..errors import problem
-from ..http import json_response
+from ..httputil import json_response
 
 router = APIRouter(tags=["health"])
 
