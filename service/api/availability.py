@@ -3,7 +3,8 @@
 * :func:`is_unavailable` tells an outage (the server is gone, refuses connections, the SQLite
   file is read-only or its disk fails, a lock or pool wait timed out) from a bug or a constraint
   violation, which stay errors of their own.
-* :func:`install_availability` maps outages to ``503 application/problem+json`` with
+* :func:`install_availability` maps outages (met through SQLAlchemy or straight on the DBAPI
+  connection, as the hot path of saving does) to ``503 application/problem+json`` with
   ``Retry-After`` (nothing was stored: the client may retry, with the same ``Idempotency-Key``),
   and makes the engine drop a connection that met an outage. SQLite opens a connection read-only
   when the file is not writable and keeps it so: without dropping it the service would refuse
@@ -50,8 +51,36 @@ def _sqlite_outage(original: BaseException | None) -> bool:
     return isinstance(name, str) and name.startswith(_SQLITE_OUTAGE_PREFIXES)
 
 
+def _raw_error_types() -> tuple[type[BaseException], ...]:
+    """The DBAPI drivers' own error bases (the hot path runs on the DBAPI connection)."""
+    import sqlite3
+
+    found: list[type[BaseException]] = [sqlite3.Error]
+    try:
+        import psycopg
+    except ImportError:  # pragma: no cover - installed with the service
+        pass
+    else:
+        found.append(psycopg.Error)
+    return tuple(found)
+
+
+def _raw_outage(exc: BaseException) -> bool:
+    import sqlite3
+
+    if isinstance(exc, sqlite3.Error):
+        return _sqlite_outage(exc)
+    try:
+        import psycopg
+    except ImportError:  # pragma: no cover
+        return False
+    return isinstance(exc, psycopg.OperationalError | psycopg.InterfaceError)
+
+
 def is_unavailable(exc: BaseException) -> bool:
     """Whether ``exc`` means the database is unavailable (retry later), not a bug."""
+    if not isinstance(exc, SQLAlchemyError):
+        return _raw_outage(exc)
     if isinstance(exc, DBAPIError):
         original = exc.orig
         if getattr(original, "sqlite_errorname", None) is not None:
@@ -104,4 +133,13 @@ def install_availability(app: Any) -> None:
             headers={"Retry-After": str(RETRY_AFTER_SECONDS)},
         )
 
+    async def raw_unavailable(request: Any, exc: Exception) -> Any:
+        if is_unavailable(exc):
+            # Met outside SQLAlchemy's execution layer, so no connection was dropped: drop the
+            # pooled ones (an SQLite connection opened read-only stays read-only).
+            engine.dispose()
+        return await unavailable(request, exc)
+
     app.add_exception_handler(SQLAlchemyError, unavailable)
+    for error_type in _raw_error_types():
+        app.add_exception_handler(error_type, raw_unavailable)

@@ -14,7 +14,7 @@ from service.store import repository as repo
 from ..auth import require
 from ..body import read_body, require_json
 from ..errors import ApiError
-from ..http import json_body_doc, json_response, problem_docs
+from ..httputil import json_body_doc, json_response, problem_docs
 from ..policy_lookup import (
     BUILTIN_DEFAULT,
     NAME_PATTERN,
