@@ -47,6 +47,10 @@ CHECKS = [
     negative_data_rejection,
     ignored_auth,
 ]
+# POST /v1/assessments reads the CSV-only query parameters (model, version, policy,
+# season_length, model_params, level) only for CSV uploads and ignores them beside a JSON
+# body, so an out-of-range one there is not an error; every other check still applies to it.
+LENIENT = {"POST /v1/assessments": [negative_data_rejection]}
 
 
 @pytest.fixture(scope="module", params=["sqlite", "postgresql"])
@@ -60,7 +64,11 @@ def api_schema(request, tmp_path_factory):
         # Something for the read operations to find.
         r = client.post("/v1/assessments", json=assessment(n_series=2), headers=ADMIN)
         assert r.status_code == 201, r.text
-        yield schemathesis.openapi.from_asgi("/openapi.json", app)
+        schema = schemathesis.openapi.from_asgi("/openapi.json", app)
+        # The bearer token is sent by the test (a valid one); the unauthenticated and
+        # wrong-token answers are tested by ignored_auth and in test_security.py.
+        schema.config.generation.update(with_security_parameters=False)
+        yield schema
 
 
 def fuzz_operation(operation, mode: GenerationMode) -> int:
@@ -73,7 +81,8 @@ def fuzz_operation(operation, mode: GenerationMode) -> int:
     def run(case) -> None:
         nonlocal sent
         sent += 1
-        case.call_and_validate(headers=ADMIN, checks=CHECKS)
+        case.call_and_validate(headers=ADMIN, checks=CHECKS,
+                               excluded_checks=LENIENT.get(operation.label, []))
 
     run()
     return sent
