@@ -164,24 +164,25 @@ def load_json(body: bytes | str) -> Any:
     try:
         return orjson.loads(body)
     except orjson.JSONDecodeError as fast_error:
-        # Slow path only for bodies orjson refuses: tell non-finite numbers from broken syntax.
-        try:
-            text = body.decode("utf-8") if isinstance(body, (bytes, bytearray)) else body
-        except UnicodeDecodeError as exc:
-            raise RequestUnparseable(
-                [{"loc": "body", "message": f"not UTF-8 text: {exc.reason} at byte {exc.start}"}]
-            ) from None
-        try:
-            doc = json.loads(text, parse_constant=_NonFinite, parse_float=_strict_float)
-        except (json.JSONDecodeError, RecursionError):
-            raise RequestUnparseable(
-                [{"loc": "body", "message": f"malformed JSON: {fast_error}"}]
-            ) from None
-        bad = _unpaired_surrogate(doc)
-        if bad is not None:
-            raise RequestUnparseable([{"loc": bad, "message": "a string holds an unpaired "
-                                       "UTF-16 surrogate escape, which is not text"}])
-        return doc
+        reason = str(fast_error)
+    # Slow path only for bodies orjson refuses: tell non-finite numbers from broken syntax.
+    try:
+        text = body.decode("utf-8") if isinstance(body, (bytes, bytearray)) else body
+    except UnicodeDecodeError as exc:
+        raise RequestUnparseable(
+            [{"loc": "body", "message": f"not UTF-8 text: {exc.reason} at byte {exc.start}"}]
+        ) from None
+    try:
+        doc = json.loads(text, parse_constant=_NonFinite, parse_float=_strict_float)
+    except (json.JSONDecodeError, RecursionError):
+        raise RequestUnparseable(
+            [{"loc": "body", "message": f"malformed JSON: {reason}"}]
+        ) from None
+    bad = _unpaired_surrogate(doc)
+    if bad is not None:
+        raise RequestUnparseable([{"loc": bad, "message": "a string holds an unpaired "
+                                   "UTF-16 surrogate escape, which is not text"}])
+    return doc
 
 
 def _unpaired_surrogate(doc: Any) -> str | None:
