@@ -12,6 +12,7 @@ from service.core.policy import Policy, PolicyError, default_policy
 from service.store import repository as repo
 
 from .errors import ApiError, policy_errors
+from .httputil import MAX_INT
 
 NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9._-]{0,99}$"
 _NAME = re.compile(NAME_PATTERN)
@@ -23,6 +24,7 @@ def valid_name(name: str) -> bool:
 
 
 _BUILTIN: list[Policy] = []
+_BUILTIN_DOCUMENT: list[dict[str, Any]] = []
 # Stored policy versions never change, so their validated form is kept per (name, version).
 _PARSED: dict[tuple[str, int], Policy] = {}
 _PARSED_MAX = 256
@@ -33,6 +35,13 @@ def builtin_default() -> Policy:
     if not _BUILTIN:
         _BUILTIN.append(default_policy())
     return _BUILTIN[0]
+
+
+def builtin_document() -> dict[str, Any]:
+    """The built-in default policy's document, built once: callers only read it."""
+    if not _BUILTIN_DOCUMENT:
+        _BUILTIN_DOCUMENT.append(builtin_default().to_dict())
+    return _BUILTIN_DOCUMENT[0]
 
 
 def _parsed(name: str, version: int, document: dict[str, Any]) -> Policy:
@@ -71,8 +80,7 @@ def stored_or_builtin(engine: Engine, name: str, version: int | None = None
         if stored is not None:
             return _parsed(name, stored.version, stored.document), stored.document
     if name == BUILTIN_DEFAULT and version in (None, 1):
-        policy = builtin_default()
-        return policy, policy.to_dict()
+        return builtin_default(), builtin_document()
     return None
 
 
@@ -80,11 +88,15 @@ def resolve(engine: Engine, spec: str | dict[str, Any]) -> tuple[Policy, dict[st
     """The policy an assessment request names (``"name"``, ``"name@version"`` or a document)."""
     if isinstance(spec, dict):
         policy = policy_from_document(spec)
+        if "\x00" in policy.name:
+            raise ApiError(422, "policy.name: must not contain NUL characters",
+                           errors=[{"loc": "policy.name",
+                                    "message": "must not contain NUL characters"}])
         return policy, policy.to_dict()
     name, at, pinned = spec.partition("@")
     version: int | None = None
     if at:
-        if not pinned.isdigit() or int(pinned) < 1:
+        if not pinned.isdigit() or not 1 <= int(pinned) <= MAX_INT:
             raise ApiError(422, "policy: a pinned version is written name@N with N >= 1",
                            errors=[{"loc": "policy", "message": f"bad version in {spec!r}"}])
         version = int(pinned)

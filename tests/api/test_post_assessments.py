@@ -336,3 +336,52 @@ def test_values_too_large_for_the_statistics_are_422(client):
     assert r.status_code == 422
     err = r.json()["errors"][0]
     assert err["loc"] == "series[0].actuals" and "magnitude" in err["message"]
+
+
+@pytest.mark.parametrize(("doc", "loc"), [
+    ({"model": "a\u0000b", "version": "1", "series": [one_series()]}, "model"),
+    (envelope(one_series(id="a\u0000")), "series[0].id"),
+    ({"model": "m", "version": "1", "policy": {"name": "p\u0000"}, "series": [one_series()]},
+     "policy.name"),
+])
+def test_nul_characters_in_names_are_422(client, doc, loc):
+    r = post_raw(client, orjson.dumps(doc))
+    assert r.status_code == 422, r.text
+    assert r.json()["errors"][0]["loc"] == loc
+
+
+def test_unpaired_surrogate_escape_is_400_naming_the_field(client):
+    raw = (b'{"model":"m","version":"1","series":[{"id":"\\ud800","actuals":[1,2],'
+           b'"fitted":[1,2]}]}')
+    r = post_raw(client, raw)
+    assert r.status_code == 400
+    assert r.json()["errors"][0]["loc"] == "series[0].id"
+
+
+def test_series_inputs_are_kept_for_the_report(client, settings, body):
+    import numpy as np
+
+    from service.store import make_engine
+    from service.store import repository as repo
+
+    b = body(n=2, holdout=5)
+    b["series"][0]["timestamps"] = [
+        (date(2024, 1, 1) + timedelta(weeks=t)).isoformat()
+        for t in range(len(b["series"][0]["actuals"]))]
+    b["series"][1]["weight"] = 12.5
+    doc = client.post("/v1/assessments", json=b, headers=ADMIN).json()
+    engine = make_engine(settings.database_url)
+    try:
+        kept = repo.series_inputs(engine, assessment_id=doc["id"])
+    finally:
+        engine.dispose()
+    assert [k.series_id for k in kept] == ["s0", "s1"]
+    for k, s in zip(kept, b["series"], strict=True):
+        np.testing.assert_array_equal(k.actuals, s["actuals"])
+        np.testing.assert_array_equal(k.fitted, s["fitted"])
+        np.testing.assert_array_equal(k.holdout_actuals, s["holdout"]["actuals"])
+        np.testing.assert_array_equal(k.holdout_lower, s["holdout"]["lower"])
+        assert k.holdout_level == 0.95
+    assert kept[0].timestamps == b["series"][0]["timestamps"]
+    assert kept[1].timestamps is None
+    assert kept[0].weight is None and kept[1].weight == 12.5
