@@ -263,7 +263,9 @@ def make_batch(
             outside = ~((lev > 0) & (lev < 1))
             if outside.any():
                 i = int(np.argmax(outside))
-                raise InputError("level", f"must lie strictly between 0 and 1, got {lev[i]}", index=i)
+                raise InputError(
+                    "level", f"must lie strictly between 0 and 1, got {lev[i]}", index=i
+                )
             lev = np.where(has_interval, lev, np.nan)
         holdout = Holdout(actuals=ha, forecasts=hf, lower=lo, upper=up, level=lev)
 
@@ -328,6 +330,17 @@ class Residuals:
             return out / self.n_obs[:, None]
 
 
+def nearly_constant(values: FloatMatrix, observed: BoolMatrix) -> np.ndarray:
+    """Per row: the observed values all equal within rounding (range at most ``1e-12`` times
+    ``max(|largest|, |smallest|, 1)``), or fewer than 2 of them."""
+    hi = np.where(observed, values, -np.inf).max(axis=1, initial=-np.inf)
+    lo = np.where(observed, values, np.inf).min(axis=1, initial=np.inf)
+    have = observed.sum(axis=1) >= 2
+    scale = np.maximum(np.maximum(np.abs(hi), np.abs(lo)), 1.0)
+    with np.errstate(invalid="ignore"):
+        return ~have | ((hi - lo) <= 1e-12 * np.where(have, scale, 1.0))
+
+
 def residuals_of(batch: SeriesBatch) -> Residuals:
     """Compute the residuals of ``batch`` under the rules in this module's docstring."""
     e = batch.actuals - batch.fitted
@@ -341,10 +354,7 @@ def residuals_of(batch: SeriesBatch) -> Residuals:
         mean = filled.sum(axis=1) / n_obs
     mean = np.where(n_obs > 0, mean, np.nan)
     centred = np.where(observed, e - mean[:, None], 0.0)
-    hi = np.where(observed, e, -np.inf).max(axis=1, initial=-np.inf)
-    lo = np.where(observed, e, np.inf).min(axis=1, initial=np.inf)
-    scale = np.maximum(np.abs(np.where(np.isfinite(hi), hi, 0)), 1.0)
-    constant = (n_obs < 2) | ((hi - lo) <= 1e-12 * scale)
+    constant = nearly_constant(e, observed)
     return Residuals(
         values=e,
         observed=observed,

@@ -69,7 +69,8 @@ def bias(
     lags = newey_west_lags(n) if hac_lags is None else np.full(n.shape, int(hac_lags))
     lags = np.clip(lags, 0, np.maximum(n - 1, 0))
     var = hac_variance_of_mean(res, lags)
-    se = np.sqrt(np.maximum(var, 0.0))
+    # Residuals equal within rounding have no sampling variation: SE is 0, not rounding noise.
+    se = np.where(res.constant, 0.0, np.sqrt(np.maximum(var, 0.0)))
     mean = res.mean
     zero = res.constant & (np.abs(np.nan_to_num(mean)) == 0)
     reasons = skip_reasons(
@@ -146,7 +147,7 @@ def tracking_signal(
         n.shape[0],
         (n < need, f"fewer than {need} residuals for a window of {window}"),
         (abs_total == 0, f"the last {window} residuals are all zero"),
-        (~(var > 0), "residuals are constant"),
+        (res.constant | ~(var > 0), "residuals are constant"),
     )
     ran = np.equal(reasons, None)
     return CheckResult(

@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
 from scipy import stats
 
-from .batch import Residuals
+from .batch import Residuals, nearly_constant
 from .results import CheckResult, skip_reasons
 from .types import FloatMatrix, FloatVector, IntVector
 
@@ -26,33 +27,53 @@ def _lm_one_order(squares: FloatMatrix, lags: int) -> tuple[FloatVector, IntVect
     if rows <= 0:
         nan = np.full(n_series, np.nan)
         return nan, np.zeros(n_series, dtype=np.int64), nan
-    # cols[:, :, 0] is s_t, cols[:, :, j] is s_{t-j}, for t = lags..width-1.
-    cols = np.stack([squares[:, lags - j : width - j] for j in range(lags + 1)], axis=2)
-    valid = ~np.isnan(cols).any(axis=2)
+    # A regression row t (t = lags..width-1) is usable when s_{t-lags}..s_t are all observed:
+    # count the missing values in that window from a running count.
+    missing = np.zeros((n_series, width + 1), dtype=np.int64)
+    np.cumsum(np.isnan(squares), axis=1, out=missing[:, 1:])
+    valid = missing[:, lags + 1 :] == missing[:, :rows]
     used = valid.sum(axis=1)
-    cols = np.where(valid[:, :, None], cols, 0.0)
+    # window[:, t, 0] is s_t, window[:, t, j] is s_{t-j}: a strided view, copied once by where.
+    window = sliding_window_view(squares, lags + 1, axis=1)[:, :, ::-1]
+    cols = np.where(valid[:, :, None], window, 0.0)
     with np.errstate(invalid="ignore", divide="ignore"):
-        means = cols.sum(axis=1) / used[:, None]
+        means = np.where(used[:, None] > 0, cols.sum(axis=1) / used[:, None], 0.0)
     # Centring every column absorbs the intercept and keeps the cross-products well scaled.
-    cols = np.where(valid[:, :, None], cols - means[:, None, :], 0.0)
-    y = cols[:, :, 0]
-    x = cols[:, :, 1:]
-    xtx = np.einsum("ntj,ntk->njk", x, x)
-    xty = np.einsum("ntj,nt->nj", x, y)
-    tss = np.einsum("nt,nt->n", y, y)
-    # Scale to unit diagonal before solving; a singular design (constant lags) gets pinv.
+    cols -= means[:, None, :]
+    cols *= valid[:, :, None]
+    # One small Gram matrix per series: [y, x]' [y, x], a batched matrix product.
+    gram = np.matmul(cols.transpose(0, 2, 1), cols)
+    xtx = gram[:, 1:, 1:]
+    xty = gram[:, 1:, 0]
+    tss = gram[:, 0, 0]
+    # Scale to unit diagonal before solving.
     d = np.sqrt(np.einsum("njj->nj", xtx))
     d = np.where(d > 0, d, 1.0)
     a = xtx / d[:, :, None] / d[:, None, :]
     b = xty / d
-    try:
-        coef = np.linalg.solve(a, b[:, :, None])[:, :, 0]
-    except np.linalg.LinAlgError:
-        coef = np.einsum("njk,nk->nj", np.linalg.pinv(a), b)
+    coef = _solve_each(a, b)
     explained = np.einsum("nj,nj->n", coef, b)
     with np.errstate(invalid="ignore", divide="ignore"):
         r2 = explained / tss
     return used * r2, used.astype(np.int64), tss
+
+
+def _solve_each(a: np.ndarray, b: FloatMatrix) -> FloatMatrix:
+    """Solve ``a[i] x[i] = b[i]`` for a stack of systems; a singular system (a lag column that
+    does not vary, or exactly collinear lags) gets the pseudo-inverse, on its own, so one
+    series never changes how another is solved."""
+    try:
+        return np.linalg.solve(a, b[:, :, None])[:, :, 0]
+    except np.linalg.LinAlgError:
+        pass
+    sign, _ = np.linalg.slogdet(a)
+    singular = sign == 0
+    coef = np.empty_like(b)
+    regular = ~singular
+    if regular.any():
+        coef[regular] = np.linalg.solve(a[regular], b[regular][:, :, None])[:, :, 0]
+    coef[singular] = np.einsum("njk,nk->nj", np.linalg.pinv(a[singular]), b[singular])
+    return coef
 
 
 def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> CheckResult:
@@ -86,7 +107,9 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
             first = int(np.argmax(keep)) if keep.any() else 0
             last = int(keep.size - np.argmax(keep[::-1])) if keep.any() else 0
             lm[idx], rows[idx], tss[idx] = _lm_one_order(block[:, first:last], int(order))
-    flat = ~(tss > 1e-300) | res.constant
+    # Squares that do not vary: constant residuals, +-c residuals (equal |e| within rounding),
+    # or no variation left in the regression rows.
+    flat = res.constant | nearly_constant(np.abs(res.values), res.observed) | ~(tss > 0)
     reasons = skip_reasons(
         n_series,
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
