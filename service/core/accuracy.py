@@ -6,7 +6,7 @@ import numpy as np
 
 from .batch import SeriesBatch
 from .results import CheckResult, skip_reasons
-from .types import FloatMatrix, FloatVector
+from .types import FloatMatrix, FloatVector, InputError
 
 
 def naive_scale(actuals: FloatMatrix, season_length: int = 1) -> FloatVector:
@@ -18,7 +18,7 @@ def naive_scale(actuals: FloatMatrix, season_length: int = 1) -> FloatVector:
     """
     m = int(season_length)
     if m < 1:
-        raise ValueError(f"season_length must be at least 1, got {season_length}")
+        raise InputError("season_length", f"must be at least 1, got {season_length}")
     if actuals.shape[1] <= m:
         return np.full(actuals.shape[0], np.nan)
     diff = np.abs(actuals[:, m:] - actuals[:, :-m])

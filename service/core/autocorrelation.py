@@ -7,7 +7,7 @@ from scipy import stats
 
 from .batch import Residuals
 from .results import CheckResult, skip_reasons
-from .types import FloatMatrix, FloatVector, IntVector
+from .types import FloatMatrix, FloatVector, InputError, IntVector
 
 NONSEASONAL_LAGS = 10
 
@@ -74,9 +74,9 @@ def ljung_box(
     too short for one lag, or when the residuals are constant (no autocorrelation is defined).
     """
     if model_params < 0:
-        raise ValueError(f"model_params must be 0 or more, got {model_params}")
+        raise InputError("model_params", f"must be 0 or more, got {model_params}")
     if lags is not None and lags < 1:
-        raise ValueError(f"lags must be at least 1, got {lags}")
+        raise InputError("lags", f"must be at least 1, got {lags}")
     n = res.n_obs
     used = portmanteau_lags(n, season_length) if lags is None else np.full(n.shape, lags)
     used = np.clip(used, 0, np.maximum(n - 1, 0)).astype(np.int64)

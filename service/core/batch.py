@@ -26,15 +26,18 @@ DEFAULT_LEVEL = 0.95
 
 def _matrix(name: str, values: object, n_series: int | None = None) -> FloatMatrix:
     """Coerce to a 2-D float array; ragged sequences are padded on the right with NaN."""
-    if isinstance(values, np.ndarray):
-        arr = values.astype(float, copy=True)
-    else:
-        rows = list(values)  # type: ignore[call-overload]
-        width = max((len(r) for r in rows), default=0)
-        arr = np.full((len(rows), width), np.nan)
-        for i, row in enumerate(rows):
-            # ``None`` becomes NaN; ``float`` accepts any real number.
-            arr[i, : len(row)] = [np.nan if v is None else v for v in row]
+    try:
+        if isinstance(values, np.ndarray):
+            arr = values.astype(float, copy=True)
+        else:
+            rows = list(values)  # type: ignore[call-overload]
+            width = max((len(r) for r in rows), default=0)
+            arr = np.full((len(rows), width), np.nan)
+            for i, row in enumerate(rows):
+                # ``None`` becomes NaN; ``float`` accepts any real number.
+                arr[i, : len(row)] = [np.nan if v is None else v for v in row]
+    except (TypeError, ValueError) as exc:
+        raise InputError(name, "expected rows (one per series) of numbers or null") from exc
     if arr.ndim == 1:
         arr = arr[None, :]
     if arr.ndim != 2:

@@ -7,7 +7,7 @@ from scipy import stats
 
 from .batch import Residuals
 from .results import CheckResult, skip_reasons
-from .types import FloatVector, IntVector
+from .types import FloatVector, InputError, IntVector
 
 BIAS_MIN_OBS = 3
 TRACKING_TRADE_LIMIT = 4.0
@@ -65,6 +65,10 @@ def bias(
     A series whose residuals are all equal but not zero has ``SE = 0``: it is biased for certain
     (``t = +-inf``, ``p = 0``). All-zero residuals skip (a perfect fit has no bias to test).
     """
+    if hac_lags is not None and hac_lags < 0:
+        raise InputError("hac_lags", f"must be 0 or more, got {hac_lags}")
+    if not 0 < ci_level < 1:
+        raise InputError("ci_level", f"must lie strictly between 0 and 1, got {ci_level}")
     n = res.n_obs
     lags = newey_west_lags(n) if hac_lags is None else np.full(n.shape, int(hac_lags))
     lags = np.clip(lags, 0, np.maximum(n - 1, 0))
@@ -128,7 +132,7 @@ def tracking_signal(
     variance rests on more than the window itself) or the window's errors are all zero.
     """
     if window < 2:
-        raise ValueError(f"window must be at least 2, got {window}")
+        raise InputError("window", f"must be at least 2, got {window}")
     need = 2 * window if min_obs is None else max(min_obs, window + 1)
     n = res.n_obs
     observed = res.observed

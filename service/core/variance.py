@@ -8,7 +8,7 @@ from scipy import stats
 
 from .batch import Residuals, nearly_constant
 from .results import CheckResult, skip_reasons
-from .types import FloatMatrix, FloatVector, IntVector
+from .types import FloatMatrix, FloatVector, InputError, IntVector
 
 ARCH_MAX_LAGS = 10
 _CHUNK = 2048
@@ -88,7 +88,7 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     when the squared residuals do not vary (constant or ``+-c`` residuals).
     """
     if lags is not None and lags < 1:
-        raise ValueError(f"lags must be at least 1, got {lags}")
+        raise InputError("lags", f"must be at least 1, got {lags}")
     n = res.n_obs
     n_series = n.shape[0]
     used_lags = arch_lags(n) if lags is None else np.full(n.shape, lags, dtype=np.int64)
