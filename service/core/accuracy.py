@@ -23,7 +23,7 @@ def naive_scale(actuals: FloatMatrix, season_length: int = 1) -> FloatVector:
         return np.full(actuals.shape[0], np.nan)
     diff = np.abs(actuals[:, m:] - actuals[:, :-m])
     count = (~np.isnan(diff)).sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return np.where(count > 0, np.nansum(diff, axis=1) / count, np.nan)
 
 
@@ -56,7 +56,7 @@ def mase(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     m = batch.season_length
     scale = naive_scale(batch.actuals, m)
     err, _, count = holdout_pairs(batch)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         mae = np.where(count > 0, np.nansum(np.abs(err), axis=1) / count, np.nan)
         value = mae / scale
     reasons = skip_reasons(

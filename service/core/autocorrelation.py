@@ -30,7 +30,7 @@ def autocorrelations(res: Residuals, max_lag: int) -> FloatMatrix:
     ``acf(x, adjusted=False, missing="conservative")``.
     """
     gamma = res.autocovariances(max_lag)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return gamma[:, 1:] / gamma[:, :1]
 
 
@@ -48,7 +48,7 @@ def portmanteau_q(
     lags = np.asarray(lags).reshape(-1)
     k = np.arange(1, r.shape[1] + 1)[None, :]
     within = k <= lags[:, None]
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         lb_terms = np.where(within, r * r / (n[:, None] - k), 0.0)
         bp_terms = np.where(within, r * r, 0.0)
     return n * (n + 2.0) * lb_terms.sum(axis=1), n * bp_terms.sum(axis=1)

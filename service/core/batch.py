@@ -65,6 +65,8 @@ def _row_lengths(arr: FloatMatrix) -> IntVector:
     """Index of the last observed value + 1 per row (0 for an all-missing row)."""
     observed = ~np.isnan(arr)
     width = arr.shape[1]
+    if width == 0:
+        return np.zeros(arr.shape[0], dtype=np.int64)
     last = width - np.argmax(observed[:, ::-1], axis=1)
     return np.where(observed.any(axis=1), last, 0).astype(np.int64)
 
@@ -329,7 +331,7 @@ class Residuals:
         out[:, 0] = np.einsum("ij,ij->i", z, z)
         for k in range(1, min(max_lag, width - 1) + 1):
             out[:, k] = np.einsum("ij,ij->i", z[:, k:], z[:, :-k])
-        with np.errstate(invalid="ignore", divide="ignore"):
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             return out / self.n_obs[:, None]
 
 
@@ -350,10 +352,11 @@ def residuals_of(batch: SeriesBatch) -> Residuals:
     observed = ~np.isnan(e)
     n_obs = observed.sum(axis=1).astype(np.int64)
     lengths = batch.lengths
-    start = np.where(observed.any(axis=1), np.argmax(observed, axis=1), lengths).astype(np.int64)
+    first = np.argmax(observed, axis=1) if e.shape[1] else np.zeros(e.shape[0], dtype=np.int64)
+    start = np.where(observed.any(axis=1), first, lengths).astype(np.int64)
     n_missing = np.maximum(lengths - start, 0) - n_obs
     filled = np.where(observed, e, 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         mean = filled.sum(axis=1) / n_obs
     mean = np.where(n_obs > 0, mean, np.nan)
     centred = np.where(observed, e - mean[:, None], 0.0)

@@ -31,6 +31,10 @@ def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatr
     a = batch.actuals
     n, width = a.shape
     m = batch.season_length
+    if width == 0:
+        # No training period at all: every benchmark is undefined.
+        names = [k for k in BENCHMARKS if k != "seasonal_naive" or m > 1]
+        return {k: np.full((n, horizon), np.nan) for k in names}
     length = batch.lengths
     has = length > 0
     rows = np.arange(n)
@@ -39,12 +43,12 @@ def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatr
     first_idx = np.argmax(observed, axis=1)
     h = np.arange(1, horizon + 1)[None, :]
     count = observed.sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         mean = np.where(count > 0, np.where(observed, a, 0.0).sum(axis=1) / count, np.nan)
     y_last = np.where(has, a[rows, last_idx], np.nan)
     y_first = np.where(has, a[rows, first_idx], np.nan)
     span = (last_idx - first_idx).astype(float)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         slope = np.where(span > 0, (y_last - y_first) / span, np.nan)
     out = {
         "mean": np.repeat(mean[:, None], horizon, axis=1),
@@ -67,7 +71,7 @@ def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatr
 
 
 def _rmse(err: FloatMatrix, ok: np.ndarray, count: np.ndarray) -> np.ndarray:
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return np.sqrt(np.where(ok, err * err, 0.0).sum(axis=1) / count)
 
 
@@ -95,11 +99,13 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
             undefined = (ok & np.isnan(b_err)).any(axis=1)
             rmse = _rmse(np.where(ok, b_err, 0.0), ok, count)
             bench_rmse[:, j] = np.where(undefined | (count == 0), np.inf, rmse)
-            finite = np.isfinite(bench_rmse[:, j])
-            details[f"rmse_{name}"] = np.where(finite, bench_rmse[:, j], np.nan)
+    # The same keys whatever the batch holds, so a series' details never depend on the others.
+    for j, name in enumerate(names):
+        finite = np.isfinite(bench_rmse[:, j])
+        details[f"rmse_{name}"] = np.where(finite, bench_rmse[:, j], np.nan)
     best_j = np.argmin(bench_rmse, axis=1)
     best = bench_rmse[np.arange(n), best_j]
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         skill = 1.0 - model_rmse / best
     reasons = skip_reasons(
         n,

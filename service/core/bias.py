@@ -39,7 +39,7 @@ def hac_variance_of_mean(res: Residuals, lags: IntVector) -> FloatVector:
     weights = np.where(j <= lags[:, None], 1.0 - j / (lags[:, None] + 1.0), 0.0)
     weights[:, 0] = 1.0
     long_run = gamma[:, 0] + 2.0 * (weights[:, 1:] * gamma[:, 1:]).sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return long_run / res.n_obs
 
 
@@ -84,7 +84,7 @@ def bias(
     )
     ran = np.equal(reasons, None)
     df = np.maximum(n - 1, 1).astype(float)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         t = np.where(se > 0, mean / se, np.sign(mean) * np.inf)
         p = 2.0 * stats.t.sf(np.abs(t), df)
         q = stats.t.ppf(0.5 + ci_level / 2.0, df)
@@ -142,7 +142,7 @@ def tracking_signal(
     e = np.where(recent, res.values, 0.0)
     total = e.sum(axis=1)
     abs_total = np.abs(e).sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         var = np.einsum("ij,ij->i", res.centred, res.centred) / (n - 1)
         ts = window * total / abs_total
         z = total / np.sqrt(window * var)

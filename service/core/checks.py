@@ -49,7 +49,7 @@ class BatchChecks:
 
 def _mean_abs_actual(batch: SeriesBatch, res: Residuals) -> np.ndarray:
     a = np.where(res.observed, np.abs(batch.actuals), 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return a.sum(axis=1) / res.n_obs
 
 

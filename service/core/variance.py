@@ -36,7 +36,7 @@ def _lm_one_order(squares: FloatMatrix, lags: int) -> tuple[FloatVector, IntVect
     # window[:, t, 0] is s_t, window[:, t, j] is s_{t-j}: a strided view, copied once by where.
     window = sliding_window_view(squares, lags + 1, axis=1)[:, :, ::-1]
     cols = np.where(valid[:, :, None], window, 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         means = np.where(used[:, None] > 0, cols.sum(axis=1) / used[:, None], 0.0)
     # Centring every column absorbs the intercept and keeps the cross-products well scaled.
     cols -= means[:, None, :]
@@ -53,7 +53,7 @@ def _lm_one_order(squares: FloatMatrix, lags: int) -> tuple[FloatVector, IntVect
     b = xty / d
     coef = _solve_each(a, b)
     explained = np.einsum("nj,nj->n", coef, b)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         r2 = explained / tss
     return used * r2, used.astype(np.int64), tss
 
