@@ -83,7 +83,8 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     (a benchmark undefined at any of those steps is left out). Below 0 the model loses to a
     method that needs no model at all.
 
-    Skipped without a holdout, or when the best benchmark is exact on the holdout (RMSE 0).
+    Skipped without a holdout, when no benchmark is defined at every scored step (no training
+    actuals), or when the best benchmark is exact on the holdout (RMSE 0).
     """
     err, ok, count = holdout_pairs(batch)
     n = batch.n_series

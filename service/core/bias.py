@@ -62,8 +62,10 @@ def bias(
     (``actuals_scale`` is that mean). ``e > 0`` means the forecasts run low: adding
     ``correction = mean(e)`` to them removes the bias.
 
-    A series whose residuals are all equal but not zero has ``SE = 0``: it is biased for certain
-    (``t = +-inf``, ``p = 0``). All-zero residuals skip (a perfect fit has no bias to test).
+    A series whose residuals are all equal (within rounding, see ``Residuals.constant``) but not
+    zero has ``SE = 0``: it is biased for certain (``t = +-inf``, ``p = 0``). All-zero residuals
+    skip (a perfect fit has no bias to test), as do series with fewer than ``min_obs`` (default
+    3) residuals.
     """
     if hac_lags is not None and hac_lags < 0:
         raise InputError("hac_lags", f"must be 0 or more, got {hac_lags}")
@@ -129,7 +131,8 @@ def tracking_signal(
     ``|TS| > 4`` is reported in ``details`` as ``beyond_trade_limit`` for reference.
 
     Skipped when fewer than ``min_obs`` residuals are observed (default ``2 * window``, so the
-    variance rests on more than the window itself) or the window's errors are all zero.
+    variance rests on more than the window itself; never below ``window + 1``), when the
+    window's errors are all zero, or when the residuals are constant (within rounding).
     """
     if window < 2:
         raise InputError("window", f"must be at least 2, got {window}")

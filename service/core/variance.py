@@ -33,21 +33,27 @@ def _lm_one_order(squares: FloatMatrix, lags: int) -> tuple[FloatVector, IntVect
     np.cumsum(np.isnan(squares), axis=1, out=missing[:, 1:])
     valid = missing[:, lags + 1 :] == missing[:, :rows]
     used = valid.sum(axis=1)
-    # window[:, t, 0] is s_t, window[:, t, j] is s_{t-j}: a strided view, copied once by where.
-    window = sliding_window_view(squares, lags + 1, axis=1)[:, :, ::-1]
-    cols = np.where(valid[:, :, None], window, 0.0)
+    # Shift each row by the mean of its observed squares: R^2 does not change, and the
+    # cross-products below are taken about values near zero, so they do not cancel.
+    have = (~np.isnan(squares)).sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        means = np.where(used[:, None] > 0, cols.sum(axis=1) / used[:, None], 0.0)
-    # Centring every column absorbs the intercept and keeps the cross-products well scaled.
-    cols -= means[:, None, :]
-    cols *= valid[:, :, None]
-    # One small Gram matrix per series: [y, x]' [y, x], a batched matrix product.
+        shift = np.where(have > 0, np.nansum(squares, axis=1) / np.maximum(have, 1), 0.0)
+    z = squares - shift[:, None]
+    # window[:, t, 0] is z_t, window[:, t, j] is z_{t-j}: a strided view, copied once by where.
+    window = sliding_window_view(z, lags + 1, axis=1)[:, :, ::-1]
+    cols = np.where(valid[:, :, None], window, 0.0)
+    # One small Gram matrix per series, [y, x]' [y, x] over the usable rows (a batched matrix
+    # product), centred with the column sums: this absorbs the intercept.
     gram = np.matmul(cols.transpose(0, 2, 1), cols)
+    sums = np.einsum("ntj->nj", cols)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        means = np.where(used[:, None] > 0, sums / np.maximum(used, 1)[:, None], 0.0)
+    gram -= sums[:, :, None] * means[:, None, :]
     xtx = gram[:, 1:, 1:]
     xty = gram[:, 1:, 0]
     tss = gram[:, 0, 0]
     # Scale to unit diagonal before solving.
-    d = np.sqrt(np.einsum("njj->nj", xtx))
+    d = np.sqrt(np.maximum(np.einsum("njj->nj", xtx), 0.0))
     d = np.where(d > 0, d, 1.0)
     a = xtx / d[:, :, None] / d[:, None, :]
     b = xty / d

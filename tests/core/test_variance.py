@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+import warnings
+
 import numpy as np
 import pytest
 import statsmodels.api as sm
@@ -137,3 +139,24 @@ def test_bad_lags_name_the_argument():
     with pytest.raises(InputError) as err:
         arch_lm(residuals([np.arange(30.0)]), lags=0)
     assert err.value.argument == "lags"
+
+
+@pytest.mark.parametrize("lags", [1, 2, 4])
+def test_lag_columns_without_variation_explain_nothing(lags):
+    # Squares constant except the last: every lag column is constant over the regression rows,
+    # so R^2 = 0 (statsmodels' het_arch agrees to rounding: its LM is ~1e-15).
+    e = np.r_[np.ones(30), 5.0]
+    result = arch_lm(residuals([e]), lags=lags)
+    assert result.skip_reason[0] is None
+    np.testing.assert_allclose(result.statistic[0], 0.0, atol=1e-10)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")  # statsmodels warns that the design is rank-deficient
+        ref = het_arch(e, nlags=lags, result_object=True).lm
+    np.testing.assert_allclose(result.statistic[0], ref, atol=1e-10)
+
+
+def test_constant_dependent_variable_skips():
+    # s_t constant on every regression row (only the first square differs): nothing to explain.
+    result = arch_lm(residuals([np.r_[[3.0], np.full(40, 0.7)]]), lags=2)
+    assert result.skip_reason[0] == (
+        "squared residuals are constant, so their variance cannot change")
