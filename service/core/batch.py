@@ -228,6 +228,10 @@ def make_batch(
             "holdout_forecasts" if holdout_forecasts is None else "holdout_actuals",
             "holdout actuals and forecasts must be given together",
         )
+    if holdout_actuals is None and (holdout_lower is not None or holdout_upper is not None):
+        raise InputError(
+            "holdout_actuals", "interval bounds need the holdout actuals and forecasts"
+        )
     if holdout_actuals is not None:
         ha = _matrix("holdout_actuals", holdout_actuals, n)
         hf = _same_shape(

@@ -100,6 +100,8 @@ def test_holdout_parts_given_together():
             holdout_lower=[[0.0]])
     _raises("holdout_lower", holdout_actuals=[[1.0]], holdout_forecasts=[[1.0]],
             holdout_upper=[[0.0]])
+    # Bounds without a holdout would otherwise be dropped without a word.
+    _raises("holdout_actuals", holdout_lower=[[0.0]], holdout_upper=[[2.0]])
 
 
 def test_run_checks_options_are_validated():
