@@ -59,7 +59,8 @@ def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatr
         # Source index one season back, then further back by whole seasons where missing.
         src = (length[:, None] - m + (h - 1) % m).astype(np.int64)
         values = np.full((n, horizon), np.nan)
-        for _ in range(max(width // m, 1)):
+        # Enough steps back to reach index 0 from the furthest source: (width - 1) // m + 1.
+        for _ in range((width - 1) // m + 1):
             inside = src >= 0
             got = np.where(inside, a[rows[:, None], np.clip(src, 0, max(width - 1, 0))], np.nan)
             values = np.where(np.isnan(values), got, values)

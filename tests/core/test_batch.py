@@ -230,6 +230,10 @@ def series(draw):
     lead = draw(st.integers(0, min(n, 3)))
     gaps = draw(st.lists(st.integers(0, max(n - 1, 0)), max_size=3)) if n else []
     fitted = [None if (j < lead or j in gaps) else v for j, v in enumerate(fitted)]
+    # Missing actuals inside the span (the last one stays: it ends the training period).
+    holes = draw(st.lists(st.integers(0, max(n - 2, 0)), max_size=4)) if n > 1 else []
+    actuals = [None if j in holes else v for j, v in enumerate(actuals)]
+    fitted = [None if j in holes else v for j, v in enumerate(fitted)]
     h = draw(st.integers(0, 6))
     ha = draw(st.lists(finite, min_size=h, max_size=h))
     hf = draw(st.lists(finite, min_size=h, max_size=h))

@@ -112,3 +112,14 @@ def test_skips_with_reasons():
     assert result.skip_reason[2] is None
     assert result.details["best_benchmark"][0] is None
     assert benchmark_skill(make_batch([[1.0, 2.0]], [[1.0, 2.0]])).skip_reason[0] == "no holdout"
+
+
+def test_seasonal_naive_reaches_back_to_the_first_season_whatever_the_batch():
+    # computed: m = 3, T = 11; for h = 2 the value one season back (index 9) and the same
+    # season's earlier values (6, 3) are missing, so the forecast is y at index 0 = 5.
+    y = [5.0, 1.0, 2.0, None, 4.0, 5.0, None, 7.0, 8.0, None, 10.0]
+    alone = benchmark_forecasts(make_batch([y], [y], season_length=3), 3)["seasonal_naive"]
+    np.testing.assert_array_equal(alone[0], [8.0, 5.0, 10.0])
+    other = list(np.arange(20.0))
+    wide = make_batch([y, other], [y, other], season_length=3)
+    np.testing.assert_array_equal(benchmark_forecasts(wide, 3)["seasonal_naive"][0], alone[0])
