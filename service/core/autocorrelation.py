@@ -29,7 +29,7 @@ def autocorrelations(res: Residuals, max_lag: int) -> FloatMatrix:
     :meth:`Residuals.autocovariances` (observed pairs, divided by ``n_obs``): statsmodels'
     ``acf(x, adjusted=False, missing="conservative")``.
     """
-    gamma = res.autocovariances(max_lag)
+    gamma = res.standard_autocovariances(max_lag)  # the ratio does not depend on the unit
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return gamma[:, 1:] / gamma[:, :1]
 

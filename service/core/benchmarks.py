@@ -72,8 +72,13 @@ def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatr
 
 
 def _rmse(err: FloatMatrix, ok: np.ndarray, count: np.ndarray) -> np.ndarray:
+    """Root mean square of ``err`` where ``ok``, computed over the row's largest ``|err|`` so
+    squares of large errors do not overflow."""
+    peak = np.where(ok, np.abs(err), 0.0).max(axis=1, initial=0.0)
+    peak = np.where(peak > 0, peak, 1.0)
+    scaled = np.where(ok, err, 0.0) / peak[:, None]
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        return np.sqrt(np.where(ok, err * err, 0.0).sum(axis=1) / count)
+        return peak * np.sqrt((scaled * scaled).sum(axis=1) / count)
 
 
 def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:

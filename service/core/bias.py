@@ -32,9 +32,16 @@ def hac_variance_of_mean(res: Residuals, lags: IntVector) -> FloatVector:
     correction): the ``cov_type="HAC", use_correction=False`` covariance of an OLS fit on a
     constant.
     """
+    with np.errstate(invalid="ignore", over="ignore"):
+        return _standard_hac_variance(res, lags) * res.unit * res.unit
+
+
+def _standard_hac_variance(res: Residuals, lags: IntVector) -> FloatVector:
+    """:func:`hac_variance_of_mean` divided by ``res.unit ** 2`` (computed on the standardised
+    residuals, so it neither overflows nor underflows)."""
     lags = np.asarray(lags, dtype=np.int64)
     max_lag = int(lags.max(initial=0))
-    gamma = res.autocovariances(max_lag)
+    gamma = res.standard_autocovariances(max_lag)
     j = np.arange(max_lag + 1)[None, :]
     weights = np.where(j <= lags[:, None], 1.0 - j / (lags[:, None] + 1.0), 0.0)
     weights[:, 0] = 1.0
@@ -74,9 +81,10 @@ def bias(
     n = res.n_obs
     lags = newey_west_lags(n) if hac_lags is None else np.full(n.shape, int(hac_lags))
     lags = np.clip(lags, 0, np.maximum(n - 1, 0))
-    var = hac_variance_of_mean(res, lags)
+    var = _standard_hac_variance(res, lags)
     # Residuals equal within rounding have no sampling variation: SE is 0, not rounding noise.
-    se = np.where(res.constant, 0.0, np.sqrt(np.maximum(var, 0.0)))
+    with np.errstate(over="ignore"):
+        se = np.where(res.constant, 0.0, res.unit * np.sqrt(np.maximum(var, 0.0)))
     mean = res.mean
     zero = res.constant & (np.abs(np.nan_to_num(mean)) == 0)
     reasons = skip_reasons(
@@ -146,9 +154,10 @@ def tracking_signal(
     total = e.sum(axis=1)
     abs_total = np.abs(e).sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        var = np.einsum("ij,ij->i", res.centred, res.centred) / (n - 1)
+        # Sample variance in units of res.unit (standardised residuals): no overflow.
+        var = np.einsum("ij,ij->i", res.standard, res.standard) / (n - 1)
         ts = window * total / abs_total
-        z = total / np.sqrt(window * var)
+        z = (total / res.unit) / np.sqrt(window * var)
     p = 2.0 * stats.norm.sf(np.abs(z))
     reasons = skip_reasons(
         n.shape[0],

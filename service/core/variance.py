@@ -45,17 +45,25 @@ def _lm_one_order(squares: FloatMatrix, lags: int) -> tuple[FloatVector, IntVect
     # One small Gram matrix per series, [y, x]' [y, x] over the usable rows (a batched matrix
     # product), centred with the column sums: this absorbs the intercept.
     gram = np.matmul(cols.transpose(0, 2, 1), cols)
+    raw_diag = np.einsum("njj->nj", gram).copy()
     sums = np.einsum("ntj->nj", cols)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         means = np.where(used[:, None] > 0, sums / np.maximum(used, 1)[:, None], 0.0)
     gram -= sums[:, :, None] * means[:, None, :]
+    # A column whose centred sum of squares is at rounding level (1e-12 of its raw sum of
+    # squares) does not vary over the usable rows: exactly zero, so it explains nothing.
+    diag = np.einsum("njj->nj", gram)
+    flat = diag <= 1e-12 * raw_diag
+    gram[flat[:, :, None] | flat[:, None, :]] = 0.0
     xtx = gram[:, 1:, 1:]
     xty = gram[:, 1:, 0]
     tss = gram[:, 0, 0]
-    # Scale to unit diagonal before solving.
-    d = np.sqrt(np.maximum(np.einsum("njj->nj", xtx), 0.0))
+    # Scale to unit diagonal before solving; a column without variation gets a unit diagonal
+    # and zero right-hand side, so its coefficient is 0.
+    d = np.sqrt(np.einsum("njj->nj", xtx))
     d = np.where(d > 0, d, 1.0)
     a = xtx / d[:, :, None] / d[:, None, :]
+    a[:, np.arange(lags), np.arange(lags)] = 1.0
     b = xty / d
     coef = _solve_each(a, b)
     explained = np.einsum("nj,nj->n", coef, b)
@@ -101,7 +109,12 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     lm = np.full(n_series, np.nan)
     rows = np.zeros(n_series, dtype=np.int64)
     tss = np.full(n_series, np.nan)
-    squares = np.where(res.observed, res.values * res.values, np.nan)
+    # Squares of e over its largest |e| (R^2 does not depend on the unit): values in [0, 1],
+    # so the cross-products of squares neither overflow nor underflow.
+    peak = np.where(res.observed, np.abs(res.values), 0.0).max(axis=1, initial=0.0)
+    peak = np.where(peak > 0, peak, 1.0)
+    scaled = res.values / peak[:, None]
+    squares = np.where(res.observed, scaled * scaled, np.nan)
     # Loop over the few distinct lag orders and over blocks of rows, never over single series.
     for order in np.unique(used_lags[used_lags >= 1]):
         members = np.flatnonzero(used_lags == order)
@@ -115,7 +128,8 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
             lm[idx], rows[idx], tss[idx] = _lm_one_order(block[:, first:last], int(order))
     # Squares that do not vary: constant residuals, +-c residuals (equal |e| within rounding),
     # or no variation left in the regression rows.
-    flat = res.constant | nearly_constant(np.abs(res.values), res.observed) | ~(tss > 0)
+    flat = (res.constant | nearly_constant(np.abs(res.values), res.observed, res.rounding_scale)
+            | ~(tss > 0))
     reasons = skip_reasons(
         n_series,
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),

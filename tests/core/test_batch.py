@@ -291,3 +291,49 @@ def test_a_series_does_not_depend_on_the_others(items, m):
 @given(item=series(), pad=st.integers(1, 30), m=st.sampled_from([1, 2]))
 def test_trailing_padding_changes_nothing(item, pad, m):
     _assert_same(run_checks(_batch([item], m)), 0, run_checks(_batch([item], m, pad=pad)), 0)
+
+
+# --- Units: the statistics do not depend on the unit of measurement --------------------------
+
+@pytest.mark.parametrize("unit", [1e-200, 1e-60, 1e-6, 1e6, 1e60, 1e200])
+def test_scale_free_results_do_not_depend_on_the_unit(unit):
+    # Invented fleet measured in another unit: every test statistic, p-value and scale-free
+    # metric is unchanged (no overflow of squares or fourth powers, no underflow).
+    rng = np.random.default_rng(12)
+    a = rng.normal(50, 10, (4, 60))
+    f = a - rng.standard_t(4, (4, 60))
+    f[:, 0] = np.nan
+    ha = rng.normal(50, 10, (4, 6))
+    hf = ha + rng.normal(0, 2, (4, 6))
+
+    def run(k):
+        return run_checks(make_batch(a * k, f * k, season_length=4, holdout_actuals=ha * k,
+                                     holdout_forecasts=hf * k, holdout_lower=(hf - 3) * k,
+                                     holdout_upper=(hf + 3) * k, level=0.8))
+
+    base, scaled = run(1.0), run(unit)
+    for name in CHECK_NAMES:
+        assert list(scaled[name].skip_reason) == list(base[name].skip_reason), name
+        np.testing.assert_allclose(scaled[name].statistic, base[name].statistic, rtol=1e-9,
+                                   err_msg=name)
+        np.testing.assert_allclose(scaled[name].p_value, base[name].p_value, rtol=1e-9,
+                                   err_msg=name)
+    np.testing.assert_allclose(scaled["bias"].details["std_error"],
+                               base["bias"].details["std_error"] * unit, rtol=1e-9)
+
+
+def test_constant_residuals_on_a_large_level_are_constant():
+    # Invented: sales around 1.5 million, forecasts 0.1 low everywhere. actual - fitted carries
+    # the rounding of numbers near 1e6 (about 1e-10), which must not be tested as if it were data.
+    rng = np.random.default_rng(3)
+    a = rng.uniform(1e6, 2e6, (1, 80))
+    out = run_checks(make_batch(a, a - 0.1))
+    assert np.ptp(a - (a - 0.1)) > 0  # the rounding is really there
+    for name in ("tracking_signal", "ljung_box", "arch_lm", "jarque_bera"):
+        assert out[name].skip_reason[0] is not None, name
+    assert np.isposinf(out["bias"].statistic[0])
+
+
+def test_values_beyond_the_supported_magnitude():
+    _raises("actuals", 0, actuals=[[1.0, 2e250, 3.0]])
+    _raises("holdout_forecasts", 0, holdout_actuals=[[1.0]], holdout_forecasts=[[-1e251]])
