@@ -38,7 +38,8 @@ def holdout_pairs(batch: SeriesBatch) -> tuple[FloatMatrix, np.ndarray, np.ndarr
     return err, ok, ok.sum(axis=1)
 
 
-def too_few_steps_reason(min_obs: int) -> str:
+def holdout_reason(min_obs: int) -> str:
+    """Skip reason for a series with fewer scored holdout steps than ``min_obs``."""
     return "no holdout" if min_obs <= 1 else f"fewer than {min_obs} holdout steps"
 
 
@@ -61,7 +62,7 @@ def mase(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
         value = mae / scale
     reasons = skip_reasons(
         batch.n_series,
-        (count < max(min_obs, 1), too_few_steps_reason(min_obs)),
+        (count < max(min_obs, 1), holdout_reason(min_obs)),
         (np.isnan(scale), f"training series too short for a lag-{m} naive forecast"),
         (scale == 0, "the in-sample naive forecast is exact (constant series), so the scale is 0"),
     )

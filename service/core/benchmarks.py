@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .accuracy import holdout_pairs, too_few_steps_reason
+from .accuracy import holdout_pairs, holdout_reason
 from .batch import SeriesBatch
 from .results import CheckResult, skip_reasons
 from .types import FloatMatrix
@@ -116,7 +116,7 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
         skill = 1.0 - model_rmse / best
     reasons = skip_reasons(
         n,
-        (count < max(min_obs, 1), too_few_steps_reason(min_obs)),
+        (count < max(min_obs, 1), holdout_reason(min_obs)),
         (~np.isfinite(best), "no benchmark could be fitted to the training actuals"),
         (best == 0, "a benchmark forecasts the holdout exactly, so skill is undefined"),
     )
