@@ -71,8 +71,8 @@ def bias(
 
     A series whose residuals are all equal (within rounding, see ``Residuals.constant``) but not
     zero has ``SE = 0``: it is biased for certain (``t = +-inf``, ``p = 0``). All-zero residuals
-    skip (a perfect fit has no bias to test), as do series with fewer than ``min_obs`` (default
-    3) residuals.
+    (zero within the rounding of ``actual - fitted``) skip (a perfect fit has no bias to test),
+    as do series with fewer than ``min_obs`` (default 3) residuals.
     """
     if hac_lags is not None and hac_lags < 0:
         raise InputError("hac_lags", f"must be 0 or more, got {hac_lags}")
@@ -86,7 +86,8 @@ def bias(
     with np.errstate(over="ignore"):
         se = np.where(res.constant, 0.0, res.unit * np.sqrt(np.maximum(var, 0.0)))
     mean = res.mean
-    zero = res.constant & (np.abs(np.nan_to_num(mean)) == 0)
+    # All zero within rounding: a fit that reproduces the actuals up to the last bits.
+    zero = res.constant & (np.abs(np.nan_to_num(mean)) <= 1e-12 * res.rounding_scale)
     reasons = skip_reasons(
         n.shape[0],
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),

@@ -202,6 +202,16 @@ def test_bias_edge_cases_decided():
     assert list(result.skip_reason[[0, 4]]) == [None, None]
 
 
+def test_perfect_fit_up_to_rounding_is_all_zero():
+    # Invented: fitted values that reproduce the actuals through another floating-point path
+    # (0.1 + 0.2 for 0.3): residuals of about 1e-17, zero within rounding, not a certain bias.
+    a = np.full((1, 30), 0.3)
+    f = np.full((1, 30), 0.1) + np.full((1, 30), 0.2)
+    assert (a - f != 0).all()
+    result = run_checks(make_batch(a, f), only=("bias",))["bias"]
+    assert result.skip_reason[0] == "residuals are all zero"
+
+
 def test_bias_bad_options_name_the_argument():
     res = residuals([X20])
     with pytest.raises(InputError) as err:
