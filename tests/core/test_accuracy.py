@@ -47,9 +47,9 @@ def test_in_sample_naive_forecast_scores_exactly_one(m):
 
 def test_gaps_use_pairs_with_both_values():
     y = np.array([[10.0, 12.0, np.nan, 11.0, 15.0, 14.0, 13.0]])
-    # Pairs (10,12) (11,15) (15,14) (14,13): |d| = 2, 4, 1, 1 -> scale 2.
+    # computed: pairs (10,12) (11,15) (15,14) (14,13): |d| = 2, 4, 1, 1 -> scale 2.
     np.testing.assert_allclose(naive_scale(y, 1), [2.0], rtol=RTOL)
-    # A missing holdout step is not scored.
+    # A missing holdout step is not scored (computed: MAE (3 + 3) / 2 = 3, MASE 1.5).
     batch = make_batch(y, y, holdout_actuals=[[16.0, np.nan, 10.0]],
                        holdout_forecasts=[[13.0, 13.0, 13.0]])
     result = mase(batch)

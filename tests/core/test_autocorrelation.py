@@ -113,6 +113,7 @@ def test_default_lags_and_df_reported():
     rng = np.random.default_rng(1)
     res = residuals(invented_rows(rng, [30, 60, 156]), season_length=4)
     result = ljung_box(res, season_length=4, model_params=3)
+    # computed from the rule: min(2m = 8, T // 5) = 6, 8, 8 lags; df = lags - 3.
     np.testing.assert_array_equal(result.details["lags"], [6, 8, 8])
     np.testing.assert_array_equal(result.details["df"], [3, 5, 5])
 

@@ -126,6 +126,7 @@ def test_residual_bookkeeping():
     fitted = [[None, None, 6.5, 8.0, None, 9.0], [1.5, 2.0, 3.0, 3.0], [None, None]]
     b = make_batch(actuals, fitted)
     res = residuals_of(b)
+    # computed by hand from the residual rules in service/core/batch.py's docstring.
     np.testing.assert_array_equal(res.lengths, [6, 4, 0])
     np.testing.assert_array_equal(res.start, [2, 0, 0])
     np.testing.assert_array_equal(res.n_obs, [3, 3, 0])

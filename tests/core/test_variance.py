@@ -43,6 +43,7 @@ def test_macro_published(lags, lm, p):
 
 def test_lag_rule_is_het_arch_default():
     # statsmodels' acorr_lm default: min(10, nobs // 5).
+    # computed from that rule:
     np.testing.assert_array_equal(arch_lags(np.array([4, 5, 20, 49, 50, 51, 156])),
                                   [0, 1, 4, 9, 10, 10, 10])
     rng = np.random.default_rng(0)
