@@ -19,9 +19,14 @@ def arch_lags(n_obs: IntVector) -> IntVector:
     return np.minimum(ARCH_MAX_LAGS, np.asarray(n_obs) // 5).astype(np.int64)
 
 
-def _lm_one_order(squares: FloatMatrix, lags: int) -> tuple[FloatVector, IntVector, FloatVector]:
+def _lm_one_order(
+    squares: FloatMatrix, lags: int, buffer: np.ndarray | None = None
+) -> tuple[FloatVector, IntVector, FloatVector]:
     """``n R^2`` of ``s_t`` on ``1, s_{t-1}..s_{t-lags}`` for each row, with rows that miss any
-    of those values left out. Returns (LM, rows used, centred total sum of squares)."""
+    of those values left out. Returns (LM, rows used, centred total sum of squares).
+
+    ``buffer``: optional flat float array of at least ``rows x (width - lags) x (lags + 1)``
+    elements, reused between blocks for the regression rows (saves allocating them anew)."""
     n_series, width = squares.shape
     rows = width - lags
     if rows <= 0:
@@ -38,15 +43,21 @@ def _lm_one_order(squares: FloatMatrix, lags: int) -> tuple[FloatVector, IntVect
     have = (~np.isnan(squares)).sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         shift = np.where(have > 0, np.nansum(squares, axis=1) / np.maximum(have, 1), 0.0)
-    z = squares - shift[:, None]
-    # window[:, t, 0] is z_t, window[:, t, j] is z_{t-j}: a strided view, copied once by where.
+    z = np.where(np.isnan(squares), 0.0, squares - shift[:, None])
+    # window[:, t, 0] is z_t, window[:, t, j] is z_{t-j}: a strided view, copied once into the
+    # regression rows, of which the unusable ones are then zeroed.
     window = sliding_window_view(z, lags + 1, axis=1)[:, :, ::-1]
-    cols = np.where(valid[:, :, None], window, 0.0)
+    size = n_series * rows * (lags + 1)
+    if buffer is None or buffer.size < size:
+        buffer = np.empty(size)
+    cols = buffer[:size].reshape(n_series, rows, lags + 1)
+    np.copyto(cols, window)
+    cols[~valid] = 0.0
     # One small Gram matrix per series, [y, x]' [y, x] over the usable rows (a batched matrix
     # product), centred with the column sums: this absorbs the intercept.
     gram = np.matmul(cols.transpose(0, 2, 1), cols)
     raw_diag = np.einsum("njj->nj", gram).copy()
-    sums = np.einsum("ntj->nj", cols)
+    sums = np.matmul(np.ones(rows), cols)  # column sums over the usable rows
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         means = np.where(used[:, None] > 0, sums / np.maximum(used, 1)[:, None], 0.0)
     gram -= sums[:, :, None] * means[:, None, :]
@@ -116,16 +127,22 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     scaled = res.values / peak[:, None]
     squares = np.where(res.observed, scaled * scaled, np.nan)
     # Loop over the few distinct lag orders and over blocks of rows, never over single series.
+    width = squares.shape[1]
+    buffer = np.empty(min(_CHUNK, n_series) * width * (ARCH_MAX_LAGS + 1)) if n_series else None
     for order in np.unique(used_lags[used_lags >= 1]):
         members = np.flatnonzero(used_lags == order)
         for lo in range(0, members.size, _CHUNK):
             idx = members[lo : lo + _CHUNK]
-            block = squares[idx]
+            contiguous = idx[-1] - idx[0] + 1 == idx.size
+            # A run of consecutive series is a view; otherwise gather the rows.
+            block = squares[idx[0] : idx[-1] + 1] if contiguous else squares[idx]
             # Trim to the longest span in the block so short series cost little.
             keep = ~np.isnan(block).all(axis=0)
             first = int(np.argmax(keep)) if keep.any() else 0
             last = int(keep.size - np.argmax(keep[::-1])) if keep.any() else 0
-            lm[idx], rows[idx], tss[idx] = _lm_one_order(block[:, first:last], int(order))
+            lm[idx], rows[idx], tss[idx] = _lm_one_order(
+                block[:, first:last], int(order), buffer
+            )
     # Squares that do not vary: constant residuals, +-c residuals (equal |e| within rounding),
     # or no variation left in the regression rows.
     flat = (res.constant | nearly_constant(np.abs(res.values), res.observed, res.rounding_scale)
