@@ -91,7 +91,10 @@ def test_model_equal_to_best_benchmark_has_zero_skill_and_worse_is_negative():
     holdout = rng.normal(100, 5, (1, 6))
     naive = np.full((1, 6), y[0, -1])
     same = benchmark_skill(make_batch(y, y, holdout_actuals=holdout, holdout_forecasts=naive))
-    assert same.details["rmse_naive"][0] >= same.details["rmse_best"][0]
+    # The model is the naive forecast: same RMSE, so its skill is 1 - RMSE(naive) / RMSE(best).
+    assert same.details["rmse_model"][0] == same.details["rmse_naive"][0]
+    np.testing.assert_allclose(
+        same.statistic[0], 1 - same.details["rmse_naive"][0] / same.details["rmse_best"][0])
     assert same.statistic[0] <= 0.0
     worse = benchmark_skill(
         make_batch(y, y, holdout_actuals=holdout, holdout_forecasts=holdout + 50.0))
