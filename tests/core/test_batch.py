@@ -338,3 +338,32 @@ def test_constant_residuals_on_a_large_level_are_constant():
 def test_values_beyond_the_supported_magnitude():
     _raises("actuals", 0, actuals=[[1.0, 2e250, 3.0]])
     _raises("holdout_forecasts", 0, holdout_actuals=[[1.0]], holdout_forecasts=[[-1e251]])
+
+
+any_magnitude = st.one_of(
+    st.floats(-1e250, 1e250, allow_nan=False, allow_infinity=False),
+    st.floats(-1e-250, 1e-250, allow_nan=False, allow_infinity=False),
+    st.integers(-5, 5).map(float),
+)
+
+
+@given(rows=st.lists(st.lists(st.one_of(st.none(), any_magnitude), max_size=30), min_size=1,
+                     max_size=4),
+       m=st.sampled_from([1, 2, 5]), data=st.data())
+def test_any_accepted_input_runs_every_check(rows, m, data):
+    # Whatever finite values make_batch accepts, no check raises (the CheckResult itself
+    # refuses a NaN statistic without a skip reason) and no RuntimeWarning escapes.
+    fitted = [[data.draw(st.one_of(st.none(), any_magnitude)) for _ in r] for r in rows]
+    fitted = [[None if a is None else f for a, f in zip(r, fr, strict=True)]
+              for r, fr in zip(rows, fitted, strict=True)]
+    h = data.draw(st.integers(0, 4))
+    ha = [[data.draw(any_magnitude) for _ in range(h)] for _ in rows]
+    hf = [[data.draw(any_magnitude) for _ in range(h)] for _ in rows]
+    lower = [[min(a, f) for a, f in zip(x, y, strict=True)] for x, y in zip(ha, hf, strict=True)]
+    upper = [[max(a, f) for a, f in zip(x, y, strict=True)] for x, y in zip(ha, hf, strict=True)]
+    out = run_checks(make_batch(rows, fitted, season_length=m, holdout_actuals=ha,
+                                holdout_forecasts=hf, holdout_lower=lower, holdout_upper=upper))
+    for name in CHECK_NAMES:
+        r = out[name]
+        ran = r.skip_reason == None  # noqa: E711 (object array comparison)
+        assert not np.isnan(r.statistic[ran]).any(), name
