@@ -27,6 +27,7 @@ import numpy as np
 import orjson
 
 from service.core import InputError, SeriesBatch, make_batch
+from service.core.batch import MAX_MAGNITUDE
 
 __all__ = [
     "MAX_ERRORS",
@@ -43,9 +44,9 @@ MAX_ERRORS = 50
 
 MAX_NAME_LENGTH = 200
 NUL_MESSAGE = "must not contain NUL characters"
-MAX_ABS_VALUE = 1e50
-"""Largest magnitude accepted for a number: the statistics raise residuals to the fourth power
-(kurtosis), which overflows a 64-bit float beyond about 1e77."""
+MAX_ABS_VALUE = MAX_MAGNITUDE
+"""Largest magnitude accepted for a number: the core's limit (sums over a long series must stay
+finite), checked here so the error names the field and the position."""
 TOP_LEVEL_FIELDS = frozenset(
     {"model", "version", "policy", "season_length", "model_params", "labels", "series"}
 )
@@ -359,8 +360,7 @@ def _flat_numbers(
             i = int(np.searchsorted(ends, pos, side="right"))
             j = int(pos - (ends[i] - lengths[i]))
             errs.add(locs[i], f"value at index {j} ({arr[pos]:g}) is beyond the accepted "
-                     f"magnitude of {MAX_ABS_VALUE:g}; rescale the series (the statistics "
-                     "overflow 64-bit floats beyond about 1e77)")
+                     f"magnitude of {MAX_ABS_VALUE:g}; rescale the series")
         return None
     return arr, lengths
 
