@@ -213,16 +213,6 @@ class LimitsMiddleware:
         self.max_body_bytes = int(max_body_bytes)
         self.body_read_timeout = float(body_read_timeout_seconds)
 
-    @classmethod
-    def from_settings(cls, app: ASGIApp, settings: Any) -> LimitsMiddleware:
-        return cls(
-            app,
-            rate_limit_per_second=settings.rate_limit_per_second,
-            rate_limit_burst=settings.rate_limit_burst,
-            max_body_bytes=settings.max_body_bytes,
-            body_read_timeout_seconds=settings.body_read_timeout_seconds,
-        )
-
     async def __call__(self, scope: Scope, receive: Receive, send: Send) -> None:
         if scope["type"] != "http":
             await self.app(scope, receive, send)
@@ -237,8 +227,8 @@ class LimitsMiddleware:
                 await problem_response(
                     send,
                     429,
-                    "Too many requests for this token; retry after the number of seconds in "
-                    "the Retry-After header.",
+                    "Too many requests for this token (or, without one, from this client); "
+                    "retry after the number of seconds in the Retry-After header.",
                     headers={"Retry-After": _retry_after(wait)},
                 )
                 return
