@@ -323,12 +323,16 @@ def _flat_numbers(
     Reports a non-number (string, boolean, object, NaN literal, overflow) with its location.
     """
     lengths = np.fromiter(map(len, rows), dtype=np.int64, count=len(rows))
-    flat = list(chain.from_iterable(rows))
-    ok = set(map(type, flat)) <= _NUMBER_TYPES
+    types = set(map(type, chain.from_iterable(rows)))
+    ok = types <= _NUMBER_TYPES
     arr = None
     if ok:
         try:
-            arr = np.array(flat, dtype=float)
+            if type(None) in types:  # None becomes NaN on the way through a list
+                arr = np.array(list(chain.from_iterable(rows)), dtype=float)
+            else:
+                arr = np.fromiter(chain.from_iterable(rows), dtype=float,
+                                  count=int(lengths.sum()))
         except OverflowError:
             ok = False
     if not ok:
@@ -499,7 +503,7 @@ def parse_json_request(
         if not isinstance(s, dict):
             errs.add(at, f"must be an object, got {_describe(s)}")
             s = {}
-        else:
+        elif not SERIES_FIELDS.issuperset(s):
             for key in s:
                 if key not in SERIES_FIELDS:
                     errs.add(f"{at}.{key}",
