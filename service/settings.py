@@ -5,6 +5,8 @@ Nothing is read at import time: call :func:`Settings` (or :func:`load_settings`)
 
 from __future__ import annotations
 
+from typing import Literal
+
 from pydantic import Field, SecretStr
 from pydantic_settings import BaseSettings, SettingsConfigDict
 
@@ -63,6 +65,9 @@ class Settings(BaseSettings):
     )
     max_connections: int = Field(
         default=1000, ge=1, description="Most connections and requests at once per worker."
+    )
+    http_parser: Literal["auto", "h11", "httptools"] = Field(
+        default="auto", description="HTTP/1.1 parser; auto: httptools when installed, else h11."
     )
 
 

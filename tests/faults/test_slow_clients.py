@@ -1,7 +1,7 @@
 """Slow and idle clients against the real server: a request head that trickles in is answered
 408 and closed after the head timeout, an idle keep-alive connection is closed, a body that
 trickles in is answered 408, and connections beyond the per-worker cap get 503 problem+json
-with ``Retry-After`` while the server keeps serving others."""
+with ``Retry-After`` while the server keeps serving others. With either HTTP parser."""
 
 from __future__ import annotations
 
@@ -21,8 +21,10 @@ BODY_TIMEOUT = 1.0
 MAX_CONNECTIONS = 4
 
 
-@pytest.fixture(scope="module")
-def server(tmp_path_factory):
+@pytest.fixture(scope="module", params=["h11", "httptools"])
+def server(request, tmp_path_factory):
+    if request.param == "httptools":
+        pytest.importorskip("httptools")  # installed with uvicorn[standard]
     tmp = tmp_path_factory.mktemp("slow")
     srv = Server(f"sqlite:///{tmp / 'slow.db'}", tmp / "server.log", env={
         "PLUMBLINE_ADMIN_TOKEN": ADMIN_TOKEN,
@@ -30,6 +32,7 @@ def server(tmp_path_factory):
         "PLUMBLINE_KEEP_ALIVE_TIMEOUT_SECONDS": str(KEEP_ALIVE),
         "PLUMBLINE_BODY_READ_TIMEOUT_SECONDS": str(BODY_TIMEOUT),
         "PLUMBLINE_MAX_CONNECTIONS": str(MAX_CONNECTIONS),
+        "PLUMBLINE_HTTP_PARSER": request.param,
     })
     with srv:
         yield srv
