@@ -1,0 +1,139 @@
+"""``plumbline assess``: on a server through the client, or offline with the core in-process."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from typing import IO, Any
+
+from ..client import AssessmentResult, ClientError
+from . import render
+from .connect import client_from_args, retry_notice, server_from_args
+from .errors import CliError, Exit
+from .inputs import AssessInput, Overrides, load_input, load_policy_option, parse_label
+from .progress import Spinner, interactive
+
+
+def overrides_from_args(args: argparse.Namespace) -> Overrides:
+    return Overrides(
+        model=args.model,
+        version=args.version,
+        policy=None if args.policy is None else load_policy_option(args.policy),
+        season_length=args.season_length,
+        model_params=args.model_params,
+        level=args.level,
+        labels=dict(parse_label(text) for text in args.label),
+    )
+
+
+def run(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
+    if args.offline and args.server:
+        raise CliError("--offline and --server exclude each other")
+    overrides = overrides_from_args(args)
+    inp = load_input(args.file, overrides, args.format)
+    show = interactive()
+    link = None
+    if args.offline:
+        with Spinner(_what("assessing", inp) + " offline", enabled=show):
+            result = assess_offline(inp)
+        where = "offline"
+    else:
+        server = server_from_args(args, purpose="assess against")
+        with client_from_args(args, server, on_retry=retry_notice) as client:
+            with Spinner(_what("assessing", inp) + f" on {server}", enabled=show):
+                result = send(client, inp, store=args.store)
+            if result.id is not None:
+                link = report_link(client, result)
+        where = "--no-store"
+    if args.json:
+        render.dump_json(result.to_dict(), out)
+    else:
+        render.assessment(result, out, fail_on=args.fail_on, where=where, link=link)
+    return Exit.BLOCKS if result.blocks(args.fail_on) else Exit.PASSES
+
+
+def _what(verb: str, inp: AssessInput) -> str:
+    n = inp.n_series
+    return f"{verb} {inp.name}" + ("" if n is None else f" ({n:,} series)")
+
+
+
+
+def send(client: Any, inp: AssessInput, *, store: bool) -> AssessmentResult:
+    """One assessment on the server (retried with one Idempotency-Key by the client)."""
+    if inp.kind == "json":
+        try:
+            return client.assess(inp.body, store=store)
+        except ValueError as exc:  # NaN/inf in the body
+            raise CliError(f"{inp.name}: {exc}") from None
+    return client.assess(csv=inp.text, params=inp.params, store=store)
+
+
+def report_link(client: Any, result: AssessmentResult) -> str | None:
+    """The result's report link, if the answer has one, else one made by the server when it
+    offers ``POST /v1/assessments/{id}/links``; ``None`` when it does not."""
+    links = result.data.get("links")
+    if hasattr(links, "get") and links.get("report"):
+        return str(links.get("report"))
+    if result.data.get("report_url"):
+        return str(result.data["report_url"])
+    try:
+        return client.create_link(result.id)
+    except ClientError as exc:
+        sys.stderr.write(f"plumbline: no report link ({exc})\n")
+        return None
+
+
+def assess_offline(inp: AssessInput) -> AssessmentResult:
+    """Validate with ``service.ingest`` and judge with the core gate, all in this process."""
+    from .. import ingest
+    from ..core import InputError
+    from ..core.gate import assess
+    from ..core.policy import Policy, PolicyError, default_policy
+
+    try:
+        if inp.kind == "json":
+            request = ingest.parse_json_request(inp.body)
+        else:
+            request = ingest.parse_csv_request(inp.text, dict(inp.params))
+    except ingest.RequestInvalid as exc:
+        raise CliError(f"{inp.name}: invalid request: {_errors_line(exc.errors)}") from None
+    except InputError as exc:
+        raise CliError(f"{inp.name}: invalid request: {exc}") from None
+
+    policy_value = request.policy if request.policy is not None else "default"
+    if isinstance(policy_value, str):
+        policy = default_policy()
+        if policy_value != policy.name:
+            raise CliError(
+                f"policy {policy_value!r} is stored on a server; offline knows only "
+                f"{policy.name!r}: pass a policy file with --policy FILE"
+            )
+    else:
+        try:
+            policy = Policy.from_dict(policy_value)
+        except PolicyError as exc:
+            errors = [{"loc": f"policy.{e['loc']}", "message": e["message"]} for e in exc.errors]
+            raise CliError(f"{inp.name}: invalid policy: {_errors_line(errors)}") from None
+
+    data: dict[str, Any] = {
+        "id": None,
+        "created_at": None,
+        "model": request.model,
+        "version": request.version,
+        "labels": dict(request.labels or {}),
+        "season_length": request.season_length,
+        "model_params": request.model_params,
+    }
+    data.update(assess(request.batch, policy).to_dict())
+    return AssessmentResult.from_json(data)
+
+
+def _errors_line(errors: Any, limit: int = 3) -> str:
+    errors = list(errors)
+    parts = []
+    for e in errors[:limit]:
+        loc, message = e.get("loc"), e.get("message", "invalid")
+        parts.append(f"{loc}: {message}" if loc else str(message))
+    more = len(errors) - limit
+    return "; ".join(parts) + (f" (and {more} more)" if more > 0 else "")
