@@ -10,9 +10,11 @@ from .benchmarks import BENCHMARKS, benchmark_forecasts, benchmark_skill
 from .bias import bias, hac_variance_of_mean, newey_west_lags, tracking_signal
 from .catalogue import CATALOGUE, CHECK_NAMES, CheckSpec
 from .checks import CHECK_OPTIONS, BatchChecks, run_checks
+from .gate import Assessment, assess
 from .intervals import interval_coverage, kupiec_lr, winkler_scores
 from .multiple import benjamini_hochberg
 from .normality import jarque_bera
+from .policy import Policy, PolicyError, default_policy
 from .results import CheckResult, Status
 from .sufficiency import data_sufficiency
 from .types import InputError
@@ -23,22 +25,27 @@ __all__ = [
     "CATALOGUE",
     "CHECK_NAMES",
     "CHECK_OPTIONS",
+    "Assessment",
     "BatchChecks",
     "CheckResult",
     "CheckSpec",
     "Holdout",
     "InputError",
+    "Policy",
+    "PolicyError",
     "Residuals",
     "SeriesBatch",
     "Status",
     "arch_lags",
     "arch_lm",
+    "assess",
     "autocorrelations",
     "benchmark_forecasts",
     "benchmark_skill",
     "benjamini_hochberg",
     "bias",
     "data_sufficiency",
+    "default_policy",
     "hac_variance_of_mean",
     "interval_coverage",
     "jarque_bera",

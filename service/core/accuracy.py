@@ -38,6 +38,11 @@ def holdout_pairs(batch: SeriesBatch) -> tuple[FloatMatrix, np.ndarray, np.ndarr
     return err, ok, ok.sum(axis=1)
 
 
+def holdout_reason(min_obs: int) -> str:
+    """Skip reason for a series with fewer scored holdout steps than ``min_obs``."""
+    return "no holdout" if min_obs <= 1 else f"fewer than {min_obs} holdout steps"
+
+
 def mase(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     """Mean absolute scaled error of the holdout forecasts (Hyndman & Koehler 2006).
 
@@ -51,13 +56,13 @@ def mase(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     """
     m = batch.season_length
     scale = naive_scale(batch.actuals, m)
-    err, ok, count = holdout_pairs(batch)
+    err, _, count = holdout_pairs(batch)
     with np.errstate(invalid="ignore", divide="ignore"):
         mae = np.where(count > 0, np.nansum(np.abs(err), axis=1) / count, np.nan)
         value = mae / scale
     reasons = skip_reasons(
         batch.n_series,
-        (count < max(min_obs, 1), "no holdout" if min_obs <= 1 else f"fewer than {min_obs} holdout steps"),
+        (count < max(min_obs, 1), holdout_reason(min_obs)),
         (np.isnan(scale), f"training series too short for a lag-{m} naive forecast"),
         (scale == 0, "the in-sample naive forecast is exact (constant series), so the scale is 0"),
     )

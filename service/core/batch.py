@@ -263,7 +263,9 @@ def make_batch(
             outside = ~((lev > 0) & (lev < 1))
             if outside.any():
                 i = int(np.argmax(outside))
-                raise InputError("level", f"must lie strictly between 0 and 1, got {lev[i]}", index=i)
+                raise InputError(
+                    "level", f"must lie strictly between 0 and 1, got {lev[i]}", index=i
+                )
             lev = np.where(has_interval, lev, np.nan)
         holdout = Holdout(actuals=ha, forecasts=hf, lower=lo, upper=up, level=lev)
 

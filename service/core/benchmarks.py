@@ -15,7 +15,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .accuracy import holdout_pairs
+from .accuracy import holdout_pairs, holdout_reason
 from .batch import SeriesBatch
 from .results import CheckResult, skip_reasons
 from .types import FloatMatrix
@@ -95,14 +95,15 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
             undefined = (ok & np.isnan(b_err)).any(axis=1)
             rmse = _rmse(np.where(ok, b_err, 0.0), ok, count)
             bench_rmse[:, j] = np.where(undefined | (count == 0), np.inf, rmse)
-            details[f"rmse_{name}"] = np.where(np.isfinite(bench_rmse[:, j]), bench_rmse[:, j], np.nan)
+            finite = np.isfinite(bench_rmse[:, j])
+            details[f"rmse_{name}"] = np.where(finite, bench_rmse[:, j], np.nan)
     best_j = np.argmin(bench_rmse, axis=1)
     best = bench_rmse[np.arange(n), best_j]
     with np.errstate(invalid="ignore", divide="ignore"):
         skill = 1.0 - model_rmse / best
     reasons = skip_reasons(
         n,
-        (count < max(min_obs, 1), "no holdout" if min_obs <= 1 else f"fewer than {min_obs} holdout steps"),
+        (count < max(min_obs, 1), holdout_reason(min_obs)),
         (~np.isfinite(best), "no benchmark could be fitted to the training actuals"),
         (best == 0, "a benchmark forecasts the holdout exactly, so skill is undefined"),
     )
