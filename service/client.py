@@ -356,7 +356,8 @@ class PlumblineClient:
         Delay before retry ``i`` (0-based) is ``min(backoff * 2**i, max_backoff)`` seconds; a
         numeric ``Retry-After`` on a 5xx answer is honoured up to ``max_backoff``.
     sleep, on_retry
-        Injected for tests and progress reports.
+        ``sleep(seconds)`` waits between attempts (default ``time.sleep``); ``on_retry(attempt,
+        delay, what)`` is told before each retry.
     """
 
     def __init__(
@@ -370,7 +371,7 @@ class PlumblineClient:
         retries: int = 3,
         backoff: float = 0.5,
         max_backoff: float = 8.0,
-        sleep: Callable[[float], None] = time.sleep,
+        sleep: Callable[[float], None] | None = None,
         on_retry: RetryHook | None = None,
     ) -> None:
         if retries < 0:
@@ -388,7 +389,7 @@ class PlumblineClient:
         self._retries = retries
         self._backoff = backoff
         self._max_backoff = max_backoff
-        self._sleep = sleep
+        self._sleep = sleep if sleep is not None else time.sleep
         self._on_retry = on_retry
 
     @property

@@ -9,6 +9,7 @@ from typing import IO, Any
 from ..client import AssessmentResult, ClientError
 from . import render
 from .connect import client_from_args, retry_notice, server_from_args
+from .csvbody import csv_as_body, errors_line, parse_csv
 from .errors import CliError, Exit
 from .inputs import AssessInput, Overrides, load_input, load_policy_option, parse_label
 from .progress import Spinner, interactive
@@ -61,12 +62,15 @@ def _what(verb: str, inp: AssessInput) -> str:
 
 def send(client: Any, inp: AssessInput, *, store: bool) -> AssessmentResult:
     """One assessment on the server (retried with one Idempotency-Key by the client)."""
-    if inp.kind == "json":
-        try:
-            return client.assess(inp.body, store=store)
-        except ValueError as exc:  # NaN/inf in the body
-            raise CliError(f"{inp.name}: {exc}") from None
-    return client.assess(csv=inp.text, params=inp.params, store=store)
+    body = inp.body
+    if inp.kind == "csv":
+        if inp.inline_policy is None and not inp.labels:
+            return client.assess(csv=inp.text, params=inp.params, store=store)
+        body = csv_as_body(inp)
+    try:
+        return client.assess(body, store=store)
+    except ValueError as exc:  # NaN/inf in the body
+        raise CliError(f"{inp.name}: {exc}") from None
 
 
 def report_link(client: Any, result: AssessmentResult) -> str | None:
@@ -91,17 +95,19 @@ def assess_offline(inp: AssessInput) -> AssessmentResult:
     from ..core.gate import assess
     from ..core.policy import Policy, PolicyError, default_policy
 
-    try:
-        if inp.kind == "json":
+    if inp.kind == "json":
+        try:
             request = ingest.parse_json_request(inp.body)
-        else:
-            request = ingest.parse_csv_request(inp.text, dict(inp.params))
-    except ingest.RequestInvalid as exc:
-        raise CliError(f"{inp.name}: invalid request: {_errors_line(exc.errors)}") from None
-    except InputError as exc:
-        raise CliError(f"{inp.name}: invalid request: {exc}") from None
+        except ingest.RequestInvalid as exc:
+            raise CliError(f"{inp.name}: invalid request: {errors_line(exc.errors)}") from None
+        except InputError as exc:
+            raise CliError(f"{inp.name}: invalid request: {exc}") from None
+        policy_value, labels = request.policy, dict(request.labels)
+    else:
+        request = parse_csv(inp)
+        policy_value = inp.inline_policy if inp.inline_policy is not None else request.policy
+        labels = {**request.labels, **inp.labels}
 
-    policy_value = request.policy if request.policy is not None else "default"
     if isinstance(policy_value, str):
         policy = default_policy()
         if policy_value != policy.name:
@@ -114,26 +120,16 @@ def assess_offline(inp: AssessInput) -> AssessmentResult:
             policy = Policy.from_dict(policy_value)
         except PolicyError as exc:
             errors = [{"loc": f"policy.{e['loc']}", "message": e["message"]} for e in exc.errors]
-            raise CliError(f"{inp.name}: invalid policy: {_errors_line(errors)}") from None
+            raise CliError(f"{inp.name}: invalid policy: {errors_line(errors)}") from None
 
     data: dict[str, Any] = {
         "id": None,
         "created_at": None,
         "model": request.model,
         "version": request.version,
-        "labels": dict(request.labels or {}),
+        "labels": labels,
         "season_length": request.season_length,
         "model_params": request.model_params,
     }
     data.update(assess(request.batch, policy).to_dict())
     return AssessmentResult.from_json(data)
-
-
-def _errors_line(errors: Any, limit: int = 3) -> str:
-    errors = list(errors)
-    parts = []
-    for e in errors[:limit]:
-        loc, message = e.get("loc"), e.get("message", "invalid")
-        parts.append(f"{loc}: {message}" if loc else str(message))
-    more = len(errors) - limit
-    return "; ".join(parts) + (f" (and {more} more)" if more > 0 else "")

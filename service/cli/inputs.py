@@ -40,14 +40,17 @@ class AssessInput:
     """A request ready to send or compute.
 
     JSON input: ``body`` is the request body with the overrides applied. CSV input: ``text`` is
-    the file and ``params`` the query parameters.
+    the file and ``params`` the query parameters; an inline policy (``--policy FILE``) and
+    ``labels`` have no query parameter, so they travel apart (see ``csv_as_body``).
     """
 
     name: str
     kind: Kind
     body: dict[str, Any] | None = None
     text: str | None = None
-    params: dict[str, Any] = field(default_factory=dict)
+    params: dict[str, str] = field(default_factory=dict)
+    inline_policy: dict[str, Any] | None = None
+    labels: dict[str, str] = field(default_factory=dict)
 
     @property
     def n_series(self) -> int | None:
@@ -177,7 +180,14 @@ def load_input(path: str, overrides: Overrides, declared: str | None = None) -> 
         body = parse_json(name, text)
         return AssessInput(name=name, kind="json", body=apply_to_body(name, body, overrides))
     check_csv_header(name, text)
-    return AssessInput(name=name, kind="csv", text=text, params=csv_params(overrides))
+    return AssessInput(
+        name=name,
+        kind="csv",
+        text=text,
+        params=csv_params(overrides),
+        inline_policy=overrides.policy if isinstance(overrides.policy, dict) else None,
+        labels=dict(overrides.labels),
+    )
 
 
 def apply_to_body(name: str, body: dict[str, Any], o: Overrides) -> dict[str, Any]:
@@ -200,14 +210,13 @@ def apply_to_body(name: str, body: dict[str, Any], o: Overrides) -> dict[str, An
     return out
 
 
-def csv_params(o: Overrides) -> dict[str, Any]:
-    params: dict[str, Any] = {}
+def csv_params(o: Overrides) -> dict[str, str]:
+    """The query parameters of a CSV upload (all strings, as they travel)."""
+    params: dict[str, str] = {}
     for key in ("model", "version", "policy", "season_length", "model_params", "level"):
         value = getattr(o, key)
-        if value is not None:
-            params[key] = value
-    if o.labels:
-        params["labels"] = dict(o.labels)
+        if value is not None and not isinstance(value, dict):
+            params[key] = str(value)
     return params
 
 
