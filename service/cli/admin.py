@@ -6,7 +6,7 @@ import argparse
 import sys
 from typing import IO
 
-from .errors import Exit
+from .errors import CliError, Exit
 
 
 def database_url(args: argparse.Namespace) -> str:
@@ -26,10 +26,21 @@ def serve(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
 
 
 def db_upgrade(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
+    from sqlalchemy.exc import ArgumentError, NoSuchModuleError, SQLAlchemyError
+
     from ..store.migrate import upgrade
 
     url = database_url(args)
-    upgrade(url)
+    try:
+        upgrade(url)
+    except (ArgumentError, NoSuchModuleError) as exc:
+        raise CliError(f"--database: cannot use {_safe(url)!r}: {exc}") from None
+    except SQLAlchemyError as exc:
+        text = str(getattr(exc, "orig", None) or exc).strip().splitlines()
+        raise CliError(
+            f"cannot reach the database {_safe(url)}: {text[0] if text else type(exc).__name__}",
+            Exit.UNREACHABLE,
+        ) from None
     out.write(f"database upgraded: {_safe(url)}\n")
     return Exit.PASSES
 
