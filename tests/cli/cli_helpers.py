@@ -70,3 +70,49 @@ SMALL_BODY: dict[str, Any] = {
     "model": "m", "version": "1",
     "series": [{"id": "store-1", "actuals": [1.0, 2.0, 3.0], "fitted": [None, 1.5, 2.5]}],
 }
+
+
+class AppTransport(httpx.BaseTransport):
+    """``httpx.ASGITransport`` driven from synchronous code (httpx's sync ``Client`` cannot use
+    the ASGI transport itself): each request runs on an anyio event loop in a portal thread."""
+
+    def __init__(self, app: Any) -> None:
+        import anyio.from_thread
+
+        self._asgi = httpx.ASGITransport(app=app)
+        self._portal_cm = anyio.from_thread.start_blocking_portal()
+        self._portal = self._portal_cm.__enter__()
+
+    def handle_request(self, request: httpx.Request) -> httpx.Response:
+        content = request.read()
+
+        async def call() -> httpx.Response:
+            forwarded = httpx.Request(request.method, request.url, headers=request.headers,
+                                      content=content)
+            answer = await self._asgi.handle_async_request(forwarded)
+            body = await answer.aread()
+            return httpx.Response(answer.status_code, headers=answer.headers, content=body)
+
+        return self._portal.call(call)
+
+    def close(self) -> None:
+        self._portal_cm.__exit__(None, None, None)
+
+
+class FlakyTransport(httpx.BaseTransport):
+    """Fails the first assessments: the first reaches the app but its answer is lost (a reset
+    after the server stored it), the second meets a 503 from a proxy; then it passes through."""
+
+    def __init__(self, inner: httpx.BaseTransport) -> None:
+        self.inner = inner
+        self.posts: list[httpx.Request] = []
+
+    def handle_request(self, request: httpx.Request) -> httpx.Response:
+        if request.method == "POST" and request.url.path == "/v1/assessments":
+            self.posts.append(request)
+            if len(self.posts) == 1:
+                self.inner.handle_request(request)
+                raise httpx.ReadError("connection reset by peer")
+            if len(self.posts) == 2:
+                return httpx.Response(503, text="upstream unavailable")
+        return self.inner.handle_request(request)
