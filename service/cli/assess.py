@@ -8,7 +8,7 @@ from typing import IO, Any
 
 from ..client import AssessmentResult, ClientError
 from . import render
-from .connect import client_from_args, retry_notice, server_from_args
+from .connect import client_from_args, note, retry_notice, server_from_args
 from .csvbody import csv_as_body, errors_line, parse_csv
 from .errors import CliError, Exit
 from .inputs import AssessInput, Overrides, load_input, load_policy_option, parse_label
@@ -31,21 +31,22 @@ def run(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
     if args.offline and args.server:
         raise CliError("--offline and --server exclude each other")
     overrides = overrides_from_args(args)
-    inp = load_input(args.file, overrides, args.format)
-    show = interactive()
+    server = None if args.offline else server_from_args(args, purpose="assess against")
     link = None
-    if args.offline:
-        with Spinner(_what("assessing", inp) + " offline", enabled=show):
+    with Spinner(f"reading {args.file}", enabled=interactive()) as spin:
+        inp = load_input(args.file, overrides, args.format)
+        if server is None:
+            spin.update(_what("assessing", inp) + " offline")
             result = assess_offline(inp)
-        where = "offline"
-    else:
-        server = server_from_args(args, purpose="assess against")
-        with client_from_args(args, server, on_retry=retry_notice) as client:
-            with Spinner(_what("assessing", inp) + f" on {server}", enabled=show):
+            where = "offline"
+        else:
+            with client_from_args(args, server, on_retry=retry_notice) as client:
+                spin.update(_what("assessing", inp) + f" on {server}")
                 result = send(client, inp, store=args.store)
-            if result.id is not None:
-                link = report_link(client, result)
-        where = "--no-store"
+                if result.id is not None:
+                    spin.update("asking for a report link")
+                    link = report_link(client, result)
+            where = "--no-store"
     if args.json:
         render.dump_json(result.to_dict(), out)
     else:
@@ -84,7 +85,7 @@ def report_link(client: Any, result: AssessmentResult) -> str | None:
     try:
         return client.create_link(result.id)
     except ClientError as exc:
-        sys.stderr.write(f"plumbline: no report link ({exc})\n")
+        note(f"no report link ({exc})")
         return None
 
 

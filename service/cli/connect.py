@@ -8,6 +8,7 @@ import sys
 
 from ..client import PlumblineClient, RetryHook
 from .errors import CliError
+from .progress import interactive
 
 SERVER_ENV = "PLUMBLINE_SERVER"
 TOKEN_ENV = "PLUMBLINE_TOKEN"
@@ -26,7 +27,13 @@ def token_from_args(args: argparse.Namespace) -> str | None:
 
 def retry_notice(attempt: int, delay: float, what: str) -> None:
     """Retries explain a delay, so they are reported on stderr even in a CI log."""
-    sys.stderr.write(f"plumbline: {what}; retry {attempt} in {delay:.1f}s\n")
+    note(f"{what}; retry {attempt} in {delay:.1f}s")
+
+
+def note(text: str) -> None:
+    """One line on stderr, over a spinner's line when there is one."""
+    wipe = "\r\033[K" if interactive() else ""
+    sys.stderr.write(f"{wipe}plumbline: {text}\n")
     sys.stderr.flush()
 
 
