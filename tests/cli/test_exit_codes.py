@@ -202,3 +202,26 @@ def test_verdict_with_nothing_stored_blocks(cli):
 def test_verdict_unreachable_exits_3(cli):
     run = cli("verdict", "m", "--server", f"http://127.0.0.1:{closed_port()}", "--retries", "0")
     assert run.code == 3 and "server unreachable" in run.err
+
+
+def test_a_failing_report_link_changes_nothing_but_a_note(cli, body_file):
+    server = FakeServer([httpx.Response(201, json=result_json("fail")),
+                         problem(503, "Unavailable", "report links are not available")])
+    run = assess(cli, body_file, server)
+    assert run.code == 1
+    assert "no report link" in run.err and "report links are not available" in run.err
+    assert [r.url.path for r in server.requests].count("/v1/assessments/a-1/links") == 1
+
+
+def test_tokens_go_to_the_server_from_the_environment(cli, monkeypatch):
+    monkeypatch.setenv("PLUMBLINE_SERVER", URL)
+    monkeypatch.setenv("PLUMBLINE_DATABASE_URL", "sqlite:///never-opened.db")
+    server = FakeServer([httpx.Response(200, json={"items": []})])
+    run = cli("tokens", "list", "--token", "adm", http=server.client())
+    assert run.code == 0 and run.out == "no tokens\n"
+    assert server.requests[0].url.path == "/v1/tokens"
+
+
+def test_tokens_database_and_server_exclude_each_other(cli):
+    run = cli("tokens", "list", "--database", "sqlite://", "--server", URL)
+    assert run.code == 2 and "--database and --server" in run.err
