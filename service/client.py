@@ -447,7 +447,8 @@ class PlumblineClient:
             "POST", "/v1/assessments", content=content, headers=headers, params=query
         )
         data = self._json(resp)
-        return self._parse(AssessmentResult.from_json, data, replayed=resp.status_code == 200)
+        replayed = resp.status_code == 200 or resp.headers.get("Idempotent-Replayed") == "true"
+        return self._parse(AssessmentResult.from_json, data, replayed=replayed)
 
     def assessment(self, assessment_id: str) -> AssessmentResult:
         """``GET /v1/assessments/{id}``: a stored result."""

@@ -42,7 +42,7 @@ def run(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
         else:
             with client_from_args(args, server, on_retry=retry_notice) as client:
                 spin.update(_what("assessing", inp) + f" on {server}")
-                result = send(client, inp, store=args.store)
+                result = send(client, inp, store=args.store, key=args.idempotency_key)
                 if result.id is not None:
                     spin.update("asking for a report link")
                     link = report_link(client, result)
@@ -61,15 +61,19 @@ def _what(verb: str, inp: AssessInput) -> str:
 
 
 
-def send(client: Any, inp: AssessInput, *, store: bool) -> AssessmentResult:
+def send(
+    client: Any, inp: AssessInput, *, store: bool, key: str | None = None
+) -> AssessmentResult:
     """One assessment on the server (retried with one Idempotency-Key by the client)."""
     body = inp.body
     if inp.kind == "csv":
         if inp.inline_policy is None and not inp.labels:
-            return client.assess(csv=inp.text, params=inp.params, store=store)
+            return client.assess(
+                csv=inp.text, params=inp.params, store=store, idempotency_key=key
+            )
         body = csv_as_body(inp)
     try:
-        return client.assess(body, store=store)
+        return client.assess(body, store=store, idempotency_key=key)
     except ValueError as exc:  # NaN/inf in the body
         raise CliError(f"{inp.name}: {exc}") from None
 

@@ -122,6 +122,11 @@ def build_parser() -> Parser:
         "--no-store", dest="store", action="store_false",
         help="server mode: compute without storing",
     )
+    p.add_argument(
+        "--idempotency-key", metavar="KEY",
+        help="server mode: the key for this assessment (default: a new one per run), e.g. the "
+        "pipeline run id, so a re-run job gets the stored result instead of storing again",
+    )
     _server_options(p, timeout=300.0)
 
     # verdict ---------------------------------------------------------------

@@ -263,3 +263,13 @@ def test_serve_calls_the_server_runner(cli, monkeypatch):
     assert cli("serve").code == 0
     assert calls == [{"host": "127.0.0.1", "port": 8123, "workers": 2},
                      {"host": "127.0.0.1", "port": 8000, "workers": 1}]
+
+
+def test_a_rerun_with_the_same_idempotency_key_stores_once(cli, http, files):
+    first = assess(cli, http, files / "stale.json", "--idempotency-key", "pipeline-8812")
+    again = assess(cli, http, files / "stale.json", "--idempotency-key", "pipeline-8812")
+    assert first.code == again.code == 1
+    assert "stored earlier under the same Idempotency-Key" in again.out
+    assert len(stored(http)) == 1
+    other = assess(cli, http, files / "weekday.json", "--idempotency-key", "pipeline-8812")
+    assert other.code == 2 and "409" in other.err
