@@ -115,7 +115,7 @@ def assess_offline(inp: AssessInput) -> AssessmentResult:
 
     if isinstance(policy_value, str):
         policy = default_policy()
-        if policy_value != policy.name:
+        if policy_value not in (policy.name, f"{policy.name}@{policy.version}"):
             raise CliError(
                 f"policy {policy_value!r} is stored on a server; offline knows only "
                 f"{policy.name!r}: pass a policy file with --policy FILE"
@@ -132,6 +132,7 @@ def assess_offline(inp: AssessInput) -> AssessmentResult:
         "created_at": None,
         "model": request.model,
         "version": request.version,
+        "stored": False,
         "labels": labels,
         "season_length": request.season_length,
         "model_params": request.model_params,

@@ -13,6 +13,7 @@ from .progress import interactive
 SERVER_ENV = "PLUMBLINE_SERVER"
 TOKEN_ENV = "PLUMBLINE_TOKEN"
 
+
 def server_from_args(args: argparse.Namespace, *, purpose: str) -> str:
     server = args.server or os.environ.get(SERVER_ENV)
     if not server:
