@@ -37,21 +37,31 @@ def main(argv: Sequence[str] | None = None, *, http: Any = None) -> int:
         err.write(f"plumbline: error: {exc.message}\n")
         return int(exc.code)
     except RequestRejected as exc:
-        err.write(f"plumbline: error: request refused: {_hint(exc)}\n")
+        err.write(f"plumbline: error: request refused: {_hint(exc, args)}\n")
         return int(Exit.USAGE)
     except (ServerUnreachable, ServerError) as exc:
         err.write(f"plumbline: error: {exc}\n")
         return int(Exit.UNREACHABLE)
+    except BrokenPipeError:
+        # The reader of stdout went away; the command itself finished what it had to do.
+        from .render import silence_stdout
+
+        silence_stdout()
+        return int(getattr(args, "exit_code", Exit.PASSES))
     except KeyboardInterrupt:
         err.write("plumbline: interrupted\n")
         return 130
 
 
-def _hint(exc: Any) -> str:
+def _hint(exc: Any, args: Any) -> str:
     text = exc.summary()
     if exc.status == 401:
-        text += " (pass --token or set PLUMBLINE_TOKEN)"
-    elif exc.status == 403:
+        from .connect import token_from_args
+
+        given = getattr(args, "token", None) is not None or token_from_args(args) is not None
+        if not given:
+            text += " (no token given: pass --token or set PLUMBLINE_TOKEN)"
+    elif exc.status == 403 and "scope" not in text:
         text += " (the token lacks the scope this needs)"
     return text
 

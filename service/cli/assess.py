@@ -47,11 +47,13 @@ def run(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
                     spin.update("asking for a report link")
                     link = report_link(client, result)
             where = "--no-store"
+    code = Exit.BLOCKS if result.blocks(args.fail_on) else Exit.PASSES
+    args.exit_code = code  # what main answers if the output pipe closes early
     if args.json:
         render.dump_json(result.to_dict(), out)
     else:
         render.assessment(result, out, fail_on=args.fail_on, where=where, link=link)
-    return Exit.BLOCKS if result.blocks(args.fail_on) else Exit.PASSES
+    return code
 
 
 def _what(verb: str, inp: AssessInput) -> str:

@@ -10,6 +10,19 @@ from ..client import AssessmentResult, VerdictResult
 MAX_REASONS = 15
 
 
+def silence_stdout() -> None:
+    """After a reader closed the pipe (``plumbline ... | head``): send further output nowhere,
+    so the exit code, not a broken-pipe error, is what the caller gets."""
+    import os
+    import sys
+
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):  # stdout without a file descriptor (e.g. captured)
+        pass
+
+
 def dump_json(data: Any, out: IO[str]) -> None:
     out.write(json.dumps(data, indent=2, ensure_ascii=False) + "\n")
 

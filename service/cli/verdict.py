@@ -26,6 +26,8 @@ def run(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
                 f"no stored assessment for {which}; --require {args.require} not met",
                 Exit.BLOCKS,
             ) from None
+    code = Exit.PASSES if result.met else Exit.BLOCKS
+    args.exit_code = code  # what main answers if the output pipe closes early
     if args.json:
         render.dump_json(
             {
@@ -41,4 +43,4 @@ def run(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
         )
     else:
         render.verdict(result, out, require=args.require)
-    return Exit.PASSES if result.met else Exit.BLOCKS
+    return code

@@ -158,11 +158,16 @@ def test_invalid_request_exits_2_naming_the_field(cli, body_file):
                                "series[0].fitted: has 2 values, expected 3")
 
 
-@pytest.mark.parametrize(("status", "hint"), [(401, "--token"), (403, "scope")])
-def test_refused_token_exits_2_with_a_hint(cli, body_file, status, hint):
-    server = FakeServer([problem(status, "Refused", "token refused")])
+def test_refused_token_exits_2_with_a_hint(cli, body_file):
+    server = FakeServer([problem(401, "Unauthorized", "unknown or revoked token")])
     run = assess(cli, body_file, server)
-    assert run.code == 2 and hint in run.err and len(run.err.splitlines()) == 1
+    assert run.code == 2 and len(run.err.splitlines()) == 1
+    assert "unknown or revoked token" in run.err and "--token" not in run.err
+    run = cli("assess", str(body_file), "--server", URL, http=server.client())
+    assert run.code == 2 and "no token given: pass --token or set PLUMBLINE_TOKEN" in run.err
+    server = FakeServer([problem(403, "Forbidden", "not allowed")])
+    run = assess(cli, body_file, server)
+    assert run.code == 2 and "the token lacks the scope this needs" in run.err
 
 
 def verdict_body(verdict):
