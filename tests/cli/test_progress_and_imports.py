@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import io
 import json
+import os
 import subprocess
 import sys
 import time
@@ -85,3 +86,20 @@ def test_console_entry_point_runs_as_module():
                           text=True, timeout=60, cwd=ROOT)
     assert proc.returncode == 2
     assert proc.stderr.count("\n") == 1 and "required: FILE" in proc.stderr
+
+
+def test_closed_output_pipe_keeps_the_gate_exit_code(tmp_path):
+    from service import demo
+
+    demo.write_demo(str(tmp_path))
+    read_end, write_end = os.pipe()
+    os.close(read_end)  # the reader is gone before anything is written (like `| head -0`)
+    try:
+        proc = subprocess.run(
+            [sys.executable, "-m", "service.cli", "assess", str(tmp_path / "stale.json"),
+             "--offline"],
+            stdout=write_end, stderr=subprocess.PIPE, text=True, timeout=120, cwd=ROOT)
+    finally:
+        os.close(write_end)
+    assert proc.returncode == 1
+    assert "Traceback" not in proc.stderr
