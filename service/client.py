@@ -31,7 +31,9 @@ import httpx
 
 __all__ = [
     "VERDICTS",
+    "AssessmentPage",
     "AssessmentResult",
+    "AssessmentSummary",
     "CheckSummary",
     "ClientError",
     "PlumblineClient",
@@ -276,6 +278,57 @@ def _thaw(value: Any) -> Any:
 
 
 @dataclass(frozen=True)
+class AssessmentSummary:
+    """One row of ``GET /v1/assessments``."""
+
+    id: str
+    created_at: str | None
+    model: str
+    version: str
+    verdict: str
+    n_series: int
+    n_failed: int
+    n_warned: int
+    policy: PolicyRef
+
+    @classmethod
+    def from_json(cls, row: Mapping[str, Any]) -> AssessmentSummary:
+        policy = row.get("policy") or {}
+        if isinstance(policy, str):  # a bare name
+            policy = {"name": policy}
+        return cls(
+            id=str(row["id"]),
+            created_at=row.get("created_at"),
+            model=str(row["model"]),
+            version=str(row["version"]),
+            verdict=str(row["verdict"]),
+            n_series=int(row.get("n_series") or 0),
+            n_failed=int(row.get("n_failed") or 0),
+            n_warned=int(row.get("n_warned") or 0),
+            policy=PolicyRef(name=str(policy.get("name", "")), version=policy.get("version")),
+        )
+
+
+@dataclass(frozen=True)
+class AssessmentPage:
+    """A page of summaries, newest first; ``next_cursor`` fetches the next (``None``: last)."""
+
+    items: tuple[AssessmentSummary, ...]
+    next_cursor: str | None
+
+    @classmethod
+    def from_json(cls, data: Mapping[str, Any]) -> AssessmentPage:
+        items = data.get("items")
+        if not isinstance(items, list):
+            raise ValueError("'items' is not a list")
+        cursor = data.get("next_cursor")
+        return cls(
+            items=tuple(AssessmentSummary.from_json(r) for r in items),
+            next_cursor=None if cursor is None else str(cursor),
+        )
+
+
+@dataclass(frozen=True)
 class VerdictResult:
     """The latest stored verdict of a model; ``met`` answers ``require`` (``None`` without it)."""
 
@@ -455,11 +508,23 @@ class PlumblineClient:
         resp = self._send("GET", f"/v1/assessments/{_segment(assessment_id)}")
         return self._parse(AssessmentResult.from_json, self._json(resp))
 
-    def list_assessments(self, **filters: Any) -> dict[str, Any]:
-        """``GET /v1/assessments`` with filters (model, version, verdict, since, until, limit,
-        cursor): ``{"items": [...], "next_cursor": ...}``."""
+    def list_assessments(
+        self,
+        *,
+        model: str | None = None,
+        version: str | None = None,
+        verdict: str | None = None,
+        since: str | None = None,
+        until: str | None = None,
+        limit: int | None = None,
+        cursor: str | None = None,
+    ) -> AssessmentPage:
+        """``GET /v1/assessments``: one page of summaries, newest first."""
+        filters = {"model": model, "version": version, "verdict": verdict, "since": since,
+                   "until": until, "limit": limit, "cursor": cursor}
         params = {k: _param(v) for k, v in filters.items() if v is not None}
-        return self._json(self._send("GET", "/v1/assessments", params=params))
+        resp = self._send("GET", "/v1/assessments", params=params)
+        return self._parse(AssessmentPage.from_json, self._json(resp))
 
     def verdict(
         self, model: str, *, version: str | None = None, require: str | None = None

@@ -273,3 +273,18 @@ def test_a_rerun_with_the_same_idempotency_key_stores_once(cli, http, files):
     assert len(stored(http)) == 1
     other = assess(cli, http, files / "weekday.json", "--idempotency-key", "pipeline-8812")
     assert other.code == 2 and "409" in other.err
+
+
+def test_client_reads_back_what_it_stored(http, files):
+    client = PlumblineClient(URL, token=ADMIN, http=http)
+    first = client.assess(json.loads((files / "stale.json").read_text()))
+    second = client.assess(json.loads((files / "weekday.json").read_text()))
+    page = client.list_assessments(limit=1)
+    assert [r.id for r in page.items] == [second.id] and page.next_cursor is not None
+    rest = client.list_assessments(limit=1, cursor=page.next_cursor)
+    (row,) = rest.items
+    assert (row.id, row.verdict, row.n_series, row.n_failed) == (first.id, "fail", 24, 24)
+    assert row.policy.name == "default"
+    assert client.list_assessments(verdict="pass").items[0].id == second.id
+    again = client.assessment(first.id)
+    assert again.verdict == "fail" and again.reasons == first.reasons
