@@ -118,11 +118,24 @@ class DatabaseTokens:
     """Tokens straight on the database, with the store's repository functions."""
 
     def __init__(self, url: str) -> None:
+        from sqlalchemy.engine import make_url
         from sqlalchemy.exc import ArgumentError, NoSuchModuleError
 
         from ..store.engine import make_engine
 
         self._url = url
+        try:
+            parsed = make_url(url)
+        except (ArgumentError, ValueError) as exc:
+            raise CliError(f"--database: cannot use {url!r}: {exc}") from None
+        path = parsed.database
+        if parsed.get_backend_name() == "sqlite" and path and path != ":memory:":
+            if not os.path.exists(path):
+                # Opening would leave an empty file behind.
+                raise CliError(
+                    f"no database at {path}: run 'plumbline db upgrade' first "
+                    "(or give --database / PLUMBLINE_DATABASE_URL)"
+                )
         try:
             self._engine = make_engine(url)
         except (ArgumentError, NoSuchModuleError, ValueError) as exc:

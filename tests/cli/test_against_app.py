@@ -238,6 +238,10 @@ def test_db_upgrade_then_tokens_on_a_new_database(cli, tmp_path):
     url = f"sqlite:///{tmp_path / 'new.db'}"
     run = cli("tokens", "list", "--database", url)
     assert run.code == 2 and "plumbline db upgrade" in run.err
+    assert not (tmp_path / "new.db").exists()
+    (tmp_path / "new.db").touch()  # a file, but no tables in it
+    run = cli("tokens", "list", "--database", url)
+    assert run.code == 2 and "no Plumbline tables" in run.err
     run = cli("db", "upgrade", "--database", url)
     assert run.code == 0 and "database upgraded" in run.out
     assert cli("tokens", "list", "--database", url).out == "no tokens\n"
