@@ -292,3 +292,17 @@ def test_client_reads_back_what_it_stored(http, files):
     assert client.list_assessments(verdict="pass").items[0].id == second.id
     again = client.assessment(first.id)
     assert again.verdict == "fail" and again.reasons == first.reasons
+
+
+def test_tokens_on_each_database_backend(cli, migrated_url):
+    """``migrated_url`` (tests/conftest.py): a fresh migrated SQLite file and PostgreSQL schema."""
+    run = cli("tokens", "create", "--scope", "admin", "--label", "first-admin",
+              "--database", migrated_url, "--json")
+    assert run.code == 0, run.err
+    created = json.loads(run.out)
+    assert len(created["token"]) > 20 and created["scopes"] == ["admin"]
+    listing = json.loads(cli("tokens", "list", "--database", migrated_url, "--json").out)
+    assert [t["id"] for t in listing["items"]] == [created["id"]]
+    assert cli("tokens", "revoke", created["id"], "--database", migrated_url).code == 0
+    listing = json.loads(cli("tokens", "list", "--database", migrated_url, "--json").out)
+    assert listing["items"][0]["revoked_at"] is not None
