@@ -173,9 +173,10 @@ class CheckSummary:
 class AssessmentResult:
     """An assessment as the API returns it (or as ``--offline`` computes it).
 
-    ``data`` holds the whole JSON answer (read-only), the typed fields the parts a caller usually
-    needs. ``id`` is ``None`` when the result was not stored; ``replayed`` is true when the server
-    answered a repeated ``Idempotency-Key`` with the result it had stored before.
+    ``data`` holds the whole JSON answer (a read-only view of its top level; treat the nested
+    values as read-only too), the typed fields the parts a caller usually needs. ``id`` is
+    ``None`` when the result was not stored; ``replayed`` is true when the server answered a
+    repeated ``Idempotency-Key`` with the result it had stored before.
     """
 
     id: str | None
@@ -203,8 +204,10 @@ class AssessmentResult:
         return verdict_blocks(self.verdict, fail_on)
 
     def to_dict(self) -> dict[str, Any]:
-        """The full JSON answer as a plain (mutable) dict."""
-        return json.loads(json.dumps(_thaw(self.data)))
+        """A copy of the full JSON answer as a plain dict."""
+        import orjson
+
+        return orjson.loads(orjson.dumps(dict(self.data)))
 
     @classmethod
     def from_json(cls, data: Mapping[str, Any], *, replayed: bool = False) -> AssessmentResult:
@@ -249,7 +252,7 @@ class AssessmentResult:
             reasons=reasons,
             checks=checks,
             series_verdicts=series,
-            data=_freeze(data),
+            data=MappingProxyType(dict(data)),
             replayed=replayed,
         )
 
@@ -259,22 +262,6 @@ def _items(data: Mapping[str, Any], key: str) -> list[Mapping[str, Any]]:
     if not isinstance(items, list) or not all(isinstance(i, Mapping) for i in items):
         raise ValueError(f"'{key}' is not a list of objects")
     return items
-
-
-def _freeze(value: Any) -> Any:
-    if isinstance(value, Mapping):
-        return MappingProxyType({k: _freeze(v) for k, v in value.items()})
-    if isinstance(value, list | tuple):
-        return tuple(_freeze(v) for v in value)
-    return value
-
-
-def _thaw(value: Any) -> Any:
-    if isinstance(value, Mapping):
-        return {k: _thaw(v) for k, v in value.items()}
-    if isinstance(value, tuple):
-        return [_thaw(v) for v in value]
-    return value
 
 
 @dataclass(frozen=True)

@@ -50,7 +50,7 @@ def run(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
     code = Exit.BLOCKS if result.blocks(args.fail_on) else Exit.PASSES
     args.exit_code = code  # what main answers if the output pipe closes early
     if args.json:
-        render.dump_json(result.to_dict(), out)
+        render.dump_json(result.data, out)
     else:
         render.assessment(result, out, fail_on=args.fail_on, where=where, link=link)
     return code

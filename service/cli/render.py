@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 from typing import IO, Any
 
 from ..client import AssessmentResult, VerdictResult
@@ -24,7 +23,13 @@ def silence_stdout() -> None:
 
 
 def dump_json(data: Any, out: IO[str]) -> None:
-    out.write(json.dumps(data, indent=2, ensure_ascii=False) + "\n")
+    """``data`` (plain JSON types; a top-level mapping view is fine) indented, one trailing
+    newline. orjson: the stdlib encoder falls back to pure Python when indenting."""
+    import orjson
+
+    if not isinstance(data, dict) and hasattr(data, "items"):
+        data = dict(data)
+    out.write(orjson.dumps(data, option=orjson.OPT_INDENT_2).decode() + "\n")
 
 
 def _share(value: float | None) -> str:
