@@ -149,6 +149,16 @@ def request_body(world: dict[str, Any], spec: DemoModel) -> dict[str, Any]:
     }
 
 
+def to_json(body: dict[str, Any]) -> str:
+    """The body as JSON a person can read: one line per field of a series, arrays inline."""
+    head = [f"  {json.dumps(k)}: {json.dumps(v)}" for k, v in body.items() if k != "series"]
+    series = []
+    for s in body["series"]:
+        fields = ",\n     ".join(f"{json.dumps(k)}: {json.dumps(v)}" for k, v in s.items())
+        series.append(f"    {{{fields}}}")
+    return "{\n" + ",\n".join([*head, '  "series": [\n' + ",\n".join(series) + "\n  ]"]) + "\n}\n"
+
+
 def to_csv(body: dict[str, Any]) -> str:
     """The same request in the CSV long format (model etc. go in query parameters/options)."""
     lines = ["series_id,timestamp,part,actual,fitted,lower,upper"]
@@ -174,8 +184,7 @@ def write_demo(directory: str) -> list[str]:
         body = request_body(world, spec)
         path = os.path.join(directory, spec.file)
         with open(path, "w", encoding="utf-8") as fh:
-            json.dump(body, fh, indent=1)
-            fh.write("\n")
+            fh.write(to_json(body))
         paths.append(path)
         if spec.file == "weekday.json":
             csv_path = os.path.join(directory, CSV_COPY)
