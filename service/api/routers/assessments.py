@@ -8,7 +8,7 @@ from typing import Annotated, Any
 from urllib.parse import urlencode
 
 import orjson
-from fastapi import APIRouter, Depends, Header, Query, Request
+from fastapi import APIRouter, Depends, Query, Request
 from starlette.concurrency import run_in_threadpool
 from starlette.responses import Response
 
@@ -40,6 +40,42 @@ SUMMARY_COLUMNS = ("id", "created_at", "model", "version", "verdict", "n_series"
 SERIES_COLUMNS = ("assessment_id", "series_id", "series_verdict", "n_obs", "check", "status",
                   "statistic", "p_value", "p_adjusted", "message", "details")
 MAX_KEY_LENGTH = 200
+INLINE_BODY_BYTES = 64 * 1024
+
+
+def _param(name: str, where: str, description: str, schema: dict[str, Any]) -> dict[str, Any]:
+    return {"name": name, "in": where, "required": False, "description": description,
+            "schema": schema}
+
+
+# Read by the endpoint itself (cheaper than the framework's per-request parameter solving).
+POST_PARAMETERS = [
+    _param("store", "query", "false: compute without storing (then id is null); default true",
+           {"type": "boolean", "default": True}),
+    _param("Idempotency-Key", "header", "a repeat with the same key and body returns the stored "
+           "result (200); with another body, 409", {"type": "string", "maxLength": 200}),
+    _param("model", "query", "CSV uploads: the model name", {"type": "string"}),
+    _param("version", "query", "CSV uploads: the model version", {"type": "string"}),
+    _param("policy", "query", "CSV uploads: a stored policy name (name or name@N)",
+           {"type": "string"}),
+    _param("season_length", "query", "CSV uploads: seasonal period, default 1",
+           {"type": "integer", "minimum": 1}),
+    _param("model_params", "query", "CSV uploads: parameters the model estimated, default 0",
+           {"type": "integer", "minimum": 0}),
+    _param("level", "query", "CSV uploads: nominal level of the holdout intervals",
+           {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1}),
+]
+_TRUE = frozenset({"true", "1", "yes", "on"})
+_FALSE = frozenset({"false", "0", "no", "off"})
+
+
+def _store_flag(value: str | None) -> bool:
+    if value is None or value.lower() in _TRUE:
+        return True
+    if value.lower() in _FALSE:
+        return False
+    raise ApiError(422, "store must be true or false",
+                   errors=[{"loc": "query.store", "message": "must be true or false"}])
 
 
 def _idempotency_key(value: str | None) -> str | None:
@@ -60,20 +96,10 @@ def _idempotency_key(value: str | None) -> str | None:
     summary="Assess a model's residuals over a fleet of series",
     responses={200: {"description": "A repeat of an Idempotency-Key with the same body (the "
                      "stored result), or a store=false computation"}, **_PROBLEMS},
-    openapi_extra=json_body_doc("AssessmentBody", csv=True),
+    openapi_extra={**json_body_doc("AssessmentBody", csv=True), "parameters": POST_PARAMETERS},
 )
 async def post_assessment(
-    request: Request,
-    principal: Annotated[Any, Depends(require("submit"))],
-    store: Annotated[bool, Query(description="false: compute without storing (id is null)")]
-    = True,
-    idempotency_key: Annotated[str | None, Header(alias="Idempotency-Key")] = None,
-    model: Annotated[str | None, Query(description="CSV uploads: the model name")] = None,
-    version: Annotated[str | None, Query(description="CSV uploads: the model version")] = None,
-    policy: Annotated[str | None, Query(description="CSV uploads: a stored policy name")] = None,
-    season_length: Annotated[int | None, Query(description="CSV uploads")] = None,
-    model_params: Annotated[int | None, Query(description="CSV uploads")] = None,
-    level: Annotated[float | None, Query(description="CSV uploads: interval level")] = None,
+    request: Request, principal: Annotated[Any, Depends(require("submit"))]
 ) -> Response:
     """Body: JSON (the shape in the contract) or ``text/csv`` long format with the model,
     version, policy, season_length, model_params and level as query parameters."""
@@ -85,7 +111,8 @@ async def post_assessment(
     else:
         raise ApiError(415, f"Content-Type must be application/json or text/csv, got "
                        f"{kind_raw or 'none'}")
-    key = _idempotency_key(idempotency_key)
+    store = _store_flag(request.query_params.get("store"))
+    key = _idempotency_key(request.headers.get("idempotency-key"))
     state = request.app.state
     body = await read_body(request, state.settings.max_body_bytes)
     params = {k: v for k, v in request.query_params.items() if k != "store"}
@@ -103,7 +130,10 @@ async def post_assessment(
                              idempotency_key=key if store else None, digest=digest,
                              timings=timings)
 
-    outcome = await run_in_threadpool(work)
+    # Small bodies are assessed on the event loop (a few milliseconds; a thread hop and the
+    # lock hand-over between threads would cost as much); large ones in the thread pool so the
+    # loop keeps answering health checks meanwhile.
+    outcome = work() if len(body) <= INLINE_BODY_BYTES else await run_in_threadpool(work)
     headers: dict[str, str] = {"Server-Timing": outcome.server_timing()}
     if outcome.assessment_id is not None:
         headers["Location"] = f"/v1/assessments/{outcome.assessment_id}"
