@@ -230,3 +230,20 @@ def test_tokens_go_to_the_server_from_the_environment(cli, monkeypatch):
 def test_tokens_database_and_server_exclude_each_other(cli):
     run = cli("tokens", "list", "--database", "sqlite://", "--server", URL)
     assert run.code == 2 and "--database and --server" in run.err
+
+
+def test_a_slow_answer_shows_a_spinner_on_a_terminal_only(cli, body_file, monkeypatch):
+    import threading
+
+    def slow(request):
+        threading.Event().wait(0.6)  # time.sleep is patched out in this module's tests
+        return httpx.Response(201, json=result_json("pass"))
+
+    server = FakeServer([slow])
+    run = assess(cli, body_file, server, "--no-store")
+    assert run.code == 0 and run.err == ""  # not a terminal: quiet
+    monkeypatch.setattr("service.cli.assess.interactive", lambda: True)
+    run = assess(cli, body_file, server, "--no-store")
+    assert run.code == 0
+    assert f"assessing {body_file} (1 series) on {URL}" in run.err
+    assert run.err.endswith("\r\033[K")  # the line is wiped before the result is printed
