@@ -157,26 +157,57 @@ def _strict_float(text: str) -> float | _NonFinite:
     return value if math.isfinite(value) else _NonFinite(text)
 
 
-def load_json(body: bytes | str) -> Any:
+def load_json(body: bytes | bytearray | memoryview | str) -> Any:
     """Decode JSON; ``NaN``/``Infinity`` literals and overflowing numbers become markers that
     validation reports with their field, anything else that is not JSON raises
     :class:`RequestUnparseable`."""
+    if isinstance(body, memoryview):
+        body = body.tobytes()
     try:
         return orjson.loads(body)
     except orjson.JSONDecodeError as fast_error:
-        # Slow path only for bodies orjson refuses: tell non-finite numbers from broken syntax.
-        try:
-            text = body.decode("utf-8") if isinstance(body, (bytes, bytearray)) else body
-        except UnicodeDecodeError as exc:
-            raise RequestUnparseable(
-                [{"loc": "body", "message": f"not UTF-8 text: {exc.reason} at byte {exc.start}"}]
-            ) from None
-        try:
-            return json.loads(text, parse_constant=_NonFinite, parse_float=_strict_float)
-        except (json.JSONDecodeError, RecursionError):
-            raise RequestUnparseable(
-                [{"loc": "body", "message": f"malformed JSON: {fast_error}"}]
-            ) from None
+        reason = str(fast_error)
+    # Slow path only for bodies orjson refuses: tell non-finite numbers from broken syntax.
+    try:
+        text = body.decode("utf-8") if isinstance(body, (bytes, bytearray)) else body
+    except UnicodeDecodeError as exc:
+        raise RequestUnparseable(
+            [{"loc": "body", "message": f"not UTF-8 text: {exc.reason} at byte {exc.start}"}]
+        ) from None
+    try:
+        doc = json.loads(text, parse_constant=_NonFinite, parse_float=_strict_float)
+    except (json.JSONDecodeError, RecursionError):
+        raise RequestUnparseable(
+            [{"loc": "body", "message": f"malformed JSON: {reason}"}]
+        ) from None
+    bad = _unpaired_surrogate(doc)
+    if bad is not None:
+        raise RequestUnparseable([{"loc": bad, "message": "a string holds an unpaired "
+                                   "UTF-16 surrogate escape, which is not text"}])
+    return doc
+
+
+def _unpaired_surrogate(doc: Any) -> str | None:
+    """The location of the first string (or key) that is not encodable text, else ``None``."""
+    stack: list[tuple[Any, str]] = [(doc, "")]
+    while stack:
+        value, loc = stack.pop()
+        if isinstance(value, str):
+            try:
+                value.encode("utf-8")
+            except UnicodeEncodeError:
+                return loc or "body"
+        elif isinstance(value, dict):
+            for key, item in value.items():
+                where = f"{loc}.{key}" if loc else str(key)
+                try:
+                    key.encode("utf-8")
+                except UnicodeEncodeError:
+                    return loc or "body"
+                stack.append((item, where))
+        elif isinstance(value, list):
+            stack.extend((item, f"{loc}[{i}]") for i, item in enumerate(value))
+    return None
 
 
 # ---------------------------------------------------------------------------------------------
@@ -211,6 +242,9 @@ def _name(doc: Mapping[str, Any], key: str, errs: _Errors, *, required: bool) ->
     if len(value) > MAX_NAME_LENGTH:
         errs.add(key, f"must be at most {MAX_NAME_LENGTH} characters")
         return ""
+    if "\x00" in value:
+        errs.add(key, "must not contain NUL characters")
+        return ""
     return value
 
 
@@ -235,7 +269,7 @@ def _policy(value: Any, errs: _Errors) -> str | dict[str, Any]:
     if value is None:
         return "default"
     if isinstance(value, str):
-        if not value.strip() or len(value) > MAX_NAME_LENGTH:
+        if not value.strip() or len(value) > MAX_NAME_LENGTH or "\x00" in value:
             errs.add("policy", "must be a policy name (1 to 200 characters) or a policy object")
         return value
     if isinstance(value, dict):
@@ -416,8 +450,6 @@ def parse_json_request(
         timestamps that do not increase, lower above upper, levels outside (0, 1), limits.
     """
     doc = load_json(body) if isinstance(body, (bytes, bytearray, memoryview, str)) else body
-    if isinstance(doc, memoryview):  # pragma: no cover - load_json never returns one
-        doc = bytes(doc)
     if not isinstance(doc, Mapping):
         raise RequestInvalid([{"loc": "body", "message": f"must be a JSON object, got "
                                f"{_describe(doc)}"}])
@@ -474,6 +506,8 @@ def parse_json_request(
             sid = f"#{i}"
         elif len(sid) > MAX_NAME_LENGTH:
             errs.add(f"{at}.id", f"must be at most {MAX_NAME_LENGTH} characters")
+        elif "\x00" in sid:
+            errs.add(f"{at}.id", "must not contain NUL characters")
         elif sid in seen:
             errs.add(f"{at}.id", f"duplicate series id {sid!r} (first at series[{seen[sid]}])")
         seen.setdefault(sid, i)
@@ -779,9 +813,9 @@ def parse_csv_request(
                 continue
             g = groups.get(sid)
             if g is None:
-                if len(sid) > MAX_NAME_LENGTH:
+                if len(sid) > MAX_NAME_LENGTH or "\x00" in sid:
                     errs.add(f"line[{line}].series_id",
-                             f"must be at most {MAX_NAME_LENGTH} characters")
+                             f"must be at most {MAX_NAME_LENGTH} characters, without NUL")
                     continue
                 g = groups[sid] = {"a": [], "f": [], "ts": [], "ha": [], "hf": [], "lo": [],
                                    "up": [], "hts": [], "line": [line]}

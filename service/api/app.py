@@ -11,6 +11,7 @@ from service.settings import Settings
 from service.store import make_engine
 from service.store.migrate import upgrade_engine
 
+from .auth import announce_first_token, ensure_first_token
 from .errors import install_error_handlers
 from .metrics import Metrics, MetricsMiddleware
 from .openapi import examples_dir, install_openapi, load_examples
@@ -27,13 +28,17 @@ admin). Errors are `application/problem+json` (RFC 9457) naming the field at fau
 def create_app(settings: Settings | None = None) -> FastAPI:
     """Build the service for ``settings`` (default: read from the environment).
 
-    Makes the engine, applies the migrations (unless ``migrate_on_start`` is off) and wires the
-    routers, error mapping, metrics and OpenAPI examples.
+    Makes the engine, applies the migrations and mints the first admin token when no token
+    exists anywhere (unless ``migrate_on_start`` is off), and wires the routers, error mapping,
+    metrics and OpenAPI examples.
     """
     settings = settings if settings is not None else Settings()
     engine = make_engine(settings.database_url)
     if settings.migrate_on_start:
+        # This process owns start-up (``plumbline serve`` does both itself before its workers
+        # start and turns this off for them).
         upgrade_engine(engine)
+        announce_first_token(ensure_first_token(engine, settings))
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> Any:

@@ -87,3 +87,10 @@ def ensure_first_token(engine, settings) -> str | None:
         return None
     _record, secret = repo.create_token(engine, scopes=["admin"], label="first start")
     return secret
+
+
+def announce_first_token(secret: str | None) -> None:
+    """Print a newly minted first admin token, the only time it is ever shown."""
+    if secret is not None:
+        print("No API token existed, so an admin token was created. It is shown only now; "
+              f"keep it safe:\n\n    {secret}\n", flush=True)

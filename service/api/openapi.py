@@ -79,6 +79,17 @@ def _add_examples(doc: dict[str, Any], examples: list[dict[str, Any]]) -> None:
             "examples"] = items
 
 
+def _add_security(doc: dict[str, Any]) -> None:
+    doc.setdefault("components", {})["securitySchemes"] = {
+        "bearer": {"type": "http", "scheme": "bearer",
+                   "description": "A token with the scope the operation names (submit, read "
+                                  "or admin); admin holds every scope."}}
+    for path, operations in doc.get("paths", {}).items():
+        if path.startswith("/v1/"):
+            for operation in operations.values():
+                operation["security"] = [{"bearer": []}]
+
+
 def install_openapi(app: FastAPI, examples: list[dict[str, Any]]) -> None:
     """Replace ``app.openapi`` with a builder that adds body schemas and examples (cached)."""
 
@@ -87,6 +98,7 @@ def install_openapi(app: FastAPI, examples: list[dict[str, Any]]) -> None:
             doc = get_openapi(title=app.title, version=app.version,
                               description=app.description, routes=app.routes)
             _add_schemas(doc)
+            _add_security(doc)
             _add_examples(doc, examples)
             app.openapi_schema = doc
         return app.openapi_schema

@@ -12,6 +12,7 @@ from service.core.policy import Policy, PolicyError, default_policy
 from service.store import repository as repo
 
 from .errors import ApiError, policy_errors
+from .httputil import MAX_INT
 
 NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9._-]{0,99}$"
 _NAME = re.compile(NAME_PATTERN)
@@ -80,11 +81,15 @@ def resolve(engine: Engine, spec: str | dict[str, Any]) -> tuple[Policy, dict[st
     """The policy an assessment request names (``"name"``, ``"name@version"`` or a document)."""
     if isinstance(spec, dict):
         policy = policy_from_document(spec)
+        if "\x00" in policy.name:
+            raise ApiError(422, "policy.name: must not contain NUL characters",
+                           errors=[{"loc": "policy.name",
+                                    "message": "must not contain NUL characters"}])
         return policy, policy.to_dict()
     name, at, pinned = spec.partition("@")
     version: int | None = None
     if at:
-        if not pinned.isdigit() or int(pinned) < 1:
+        if not pinned.isdigit() or not 1 <= int(pinned) <= MAX_INT:
             raise ApiError(422, "policy: a pinned version is written name@N with N >= 1",
                            errors=[{"loc": "policy", "message": f"bad version in {spec!r}"}])
         version = int(pinned)

@@ -232,7 +232,7 @@ class TokenRequest(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     scopes: list[Scope] = Field(min_length=1, examples=[["read"]])
-    label: str = Field("", max_length=200, examples=["dashboard"])
+    label: str = Field("", max_length=200, pattern=r"^[^\x00]*$", examples=["dashboard"])
 
 
 class TokenCreated(BaseModel):

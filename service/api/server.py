@@ -35,10 +35,9 @@ def run(host: str, port: int, workers: int) -> None:
     import uvicorn
 
     settings = Settings()
-    secret = prepare(settings)
-    if secret is not None:
-        print("No API token existed, so an admin token was created. It is shown only now; "
-              f"keep it safe:\n\n    {secret}\n", flush=True)
+    from service.api.auth import announce_first_token
+
+    announce_first_token(prepare(settings))
     os.environ["PLUMBLINE_MIGRATE_ON_START"] = "false"
     uvicorn.run("service.api.app:create_app", factory=True, host=host, port=port,
                 workers=max(1, workers), log_level="info", access_log=False,

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+from functools import lru_cache
 from pathlib import Path
 
 from sqlalchemy import Engine
@@ -47,6 +48,7 @@ def current_revision(engine: Engine) -> str | None:
         return MigrationContext.configure(connection).get_current_revision()
 
 
+@lru_cache(maxsize=1)
 def head_revision() -> str:
     """The newest revision shipped with this package."""
     from alembic.script import ScriptDirectory

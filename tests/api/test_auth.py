@@ -126,3 +126,14 @@ def test_env_admin_token_suppresses_first_token(migrated_url):
                                                    admin_token="t")) is None
     finally:
         engine.dispose()
+
+
+def test_an_app_on_a_fresh_database_without_tokens_prints_one(database_url, capsys):
+    from service.api.app import create_app
+    from service.settings import Settings
+
+    create_app(Settings(database_url=database_url, admin_token=None)).state.engine.dispose()
+    printed = capsys.readouterr().out
+    assert "plb_" in printed
+    create_app(Settings(database_url=database_url, admin_token=None)).state.engine.dispose()
+    assert "plb_" not in capsys.readouterr().out

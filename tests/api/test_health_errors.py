@@ -26,6 +26,21 @@ def test_readyz_is_503_when_the_database_is_unreachable(tmp_path):
         assert client.get("/healthz").status_code == 200
 
 
+def test_readyz_is_503_until_the_schema_is_migrated(database_url):
+    from fastapi.testclient import TestClient
+
+    from service.api.app import create_app
+    from service.settings import Settings
+    from service.store.migrate import upgrade
+
+    settings = Settings(database_url=database_url, migrate_on_start=False, admin_token="x")
+    with TestClient(create_app(settings)) as client:
+        r = client.get("/readyz")
+        assert r.status_code == 503 and "db upgrade" in r.json()["detail"]
+        upgrade(database_url)
+        assert client.get("/readyz").json()["schema_revision"] == "0001"
+
+
 def test_metrics_count_requests_latencies_and_verdicts(client, body):
     doc = client.post("/v1/assessments", json=body(n=2), headers=ADMIN).json()
     client.get("/v1/assessments/nope", headers=ADMIN)
@@ -62,6 +77,9 @@ def test_openapi_documents_bodies_and_examples(client):
     assert "SeriesBody" in doc["components"]["schemas"]
     assert post["responses"]["201"]["content"]["application/json"]["examples"]
     assert post["responses"]["422"]["content"]["application/problem+json"]["examples"]
+    assert doc["components"]["securitySchemes"]["bearer"]["scheme"] == "bearer"
+    assert post["security"] == [{"bearer": []}]
+    assert "security" not in doc["paths"]["/healthz"]["get"]
     for path in ("/v1/models/{model}/verdict", "/v1/checks", "/v1/policies", "/v1/tokens",
                  "/v1/tokens/{token_id}", "/v1/assessments/{assessment_id}/series",
                  "/healthz", "/readyz", "/metrics"):

@@ -116,3 +116,10 @@ def test_checks_catalogue(client):
         assert item["default_policy"] == default_policy().to_dict()["checks"][spec.name]
     assert by_name["ljung_box"]["default_policy"]["fail_p"] == 0.01
     assert doc["default_policy"]["name"] == "default"
+
+
+def test_pinned_version_beyond_the_database_integers_is_422(client, body):
+    b = body(n=1)
+    b["policy"] = "default@99999999999999999999"
+    r = client.post("/v1/assessments", json=b, headers=ADMIN)
+    assert r.status_code == 422 and r.json()["errors"][0]["loc"] == "policy"

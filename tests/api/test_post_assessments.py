@@ -336,3 +336,23 @@ def test_values_too_large_for_the_statistics_are_422(client):
     assert r.status_code == 422
     err = r.json()["errors"][0]
     assert err["loc"] == "series[0].actuals" and "magnitude" in err["message"]
+
+
+@pytest.mark.parametrize(("doc", "loc"), [
+    ({"model": "a\u0000b", "version": "1", "series": [one_series()]}, "model"),
+    (envelope(one_series(id="a\u0000")), "series[0].id"),
+    ({"model": "m", "version": "1", "policy": {"name": "p\u0000"}, "series": [one_series()]},
+     "policy.name"),
+])
+def test_nul_characters_in_names_are_422(client, doc, loc):
+    r = post_raw(client, orjson.dumps(doc))
+    assert r.status_code == 422, r.text
+    assert r.json()["errors"][0]["loc"] == loc
+
+
+def test_unpaired_surrogate_escape_is_400_naming_the_field(client):
+    raw = (b'{"model":"m","version":"1","series":[{"id":"\\ud800","actuals":[1,2],'
+           b'"fitted":[1,2]}]}')
+    r = post_raw(client, raw)
+    assert r.status_code == 400
+    assert r.json()["errors"][0]["loc"] == "series[0].id"

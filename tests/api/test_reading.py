@@ -225,3 +225,13 @@ def test_bad_require_is_422(client):
     r = client.get("/v1/models/rye/verdict?require=fail", headers=ADMIN)
     assert r.status_code == 422
     assert r.json()["errors"][0]["loc"] == "query.require"
+
+
+def test_numbers_beyond_the_database_integers_are_422(client):
+    import base64
+
+    huge = base64.urlsafe_b64encode(b"before:99999999999999999999").decode().rstrip("=")
+    r = client.get(f"/v1/assessments?cursor={huge}", headers=ADMIN)
+    assert r.status_code == 422 and r.json()["errors"][0]["loc"] == "query.cursor"
+    r = client.get("/v1/policies/default?version=99999999999999999999", headers=ADMIN)
+    assert r.status_code == 422 and r.json()["errors"][0]["loc"] == "query.version"

@@ -54,3 +54,8 @@ def test_token_request_needs_json(client):
     r = client.post("/v1/tokens", content=b"{", headers={**ADMIN,
                                                          "Content-Type": "application/json"})
     assert r.status_code == 400
+
+
+def test_nul_in_label_is_422(client):
+    r = client.post("/v1/tokens", json={"scopes": ["read"], "label": "a\u0000"}, headers=ADMIN)
+    assert r.status_code == 422 and r.json()["errors"][0]["loc"] == "label"

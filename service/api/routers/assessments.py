@@ -19,7 +19,7 @@ from ..auth import require
 from ..body import is_csv, is_json, media_type, read_body
 from ..csvout import to_csv, wants_csv
 from ..errors import ApiError
-from ..http import (
+from ..httputil import (
     CSV,
     JSON,
     as_utc,

@@ -11,7 +11,7 @@ from starlette.responses import Response
 from service.core import CATALOGUE
 
 from ..auth import require
-from ..http import conditional, problem_docs
+from ..httputil import conditional, problem_docs
 from ..policy_lookup import builtin_default
 from ..schemas import CheckCatalogue
 

@@ -7,8 +7,10 @@ from sqlalchemy import text
 from sqlalchemy.exc import SQLAlchemyError
 from starlette.responses import Response
 
+from service.store.migrate import current_revision, head_revision
+
 from ..errors import problem
-from ..http import json_response
+from ..httputil import json_response
 
 router = APIRouter(tags=["health"])
 
@@ -18,15 +20,22 @@ def healthz() -> Response:
     return json_response({"status": "ok"})
 
 
-@router.get("/readyz", summary="Readiness: the database answers",
-            responses={503: {"description": "database unreachable"}})
+@router.get("/readyz", summary="Readiness: the database answers, at the schema this build needs",
+            responses={503: {"description": "database unreachable or schema not migrated"}})
 def readyz(request: Request) -> Response:
+    engine = request.app.state.engine
     try:
-        with request.app.state.engine.connect() as conn:
+        with engine.connect() as conn:
             conn.execute(text("SELECT 1"))
+        revision = current_revision(engine)
     except SQLAlchemyError as exc:
         return problem(503, f"database unreachable: {type(exc).__name__}")
-    return json_response({"status": "ready", "database": request.app.state.engine.dialect.name})
+    needed = head_revision()
+    if revision != needed:
+        return problem(503, f"database schema is at revision {revision or 'none'}, this build "
+                       f"needs {needed}: run 'plumbline db upgrade'")
+    return json_response({"status": "ready", "database": engine.dialect.name,
+                          "schema_revision": revision})
 
 
 @router.get("/metrics", summary="Prometheus text format",

@@ -11,7 +11,7 @@ from service.store import repository as repo
 
 from ..auth import require
 from ..errors import ApiError
-from ..http import json_response, problem_docs
+from ..httputil import json_response, problem_docs
 from ..schemas import ModelVerdict
 
 router = APIRouter(prefix="/v1/models", tags=["models"])

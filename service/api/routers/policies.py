@@ -14,7 +14,7 @@ from service.store import repository as repo
 from ..auth import require
 from ..body import read_body, require_json
 from ..errors import ApiError
-from ..http import json_body_doc, json_response, problem_docs
+from ..httputil import MAX_INT, json_body_doc, json_response, problem_docs
 from ..policy_lookup import (
     BUILTIN_DEFAULT,
     NAME_PATTERN,
@@ -98,7 +98,7 @@ def get_policy(
     request: Request,
     name: str,
     principal: Annotated[Any, Depends(require("read"))],
-    version: Annotated[int | None, Query(ge=1)] = None,
+    version: Annotated[int | None, Query(ge=1, le=MAX_INT)] = None,
 ) -> Response:
     stored = repo.get_policy(request.app.state.engine, name=name, version=version)
     if stored is not None:

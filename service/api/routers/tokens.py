@@ -13,7 +13,7 @@ from service.store import repository as repo
 from ..auth import require
 from ..body import read_model
 from ..errors import ApiError
-from ..http import json_body_doc, json_response, problem_docs
+from ..httputil import json_body_doc, json_response, problem_docs
 from ..schemas import TokenCreated, TokenList, TokenRequest
 
 router = APIRouter(prefix="/v1/tokens", tags=["tokens"])

@@ -14,6 +14,8 @@ from starlette.responses import Response
 from .errors import ApiError
 
 JSON = "application/json"
+MAX_INT = 2**31 - 1
+"""Largest sequence number or version (the databases' INTEGER columns are 32-bit)."""
 CSV = "text/csv; charset=utf-8"
 
 
@@ -54,7 +56,7 @@ def decode_cursor(cursor: str) -> int:
     try:
         raw = base64.urlsafe_b64decode(cursor + "=" * (-len(cursor) % 4)).decode()
         prefix, _, number = raw.partition(":")
-        if prefix != "before" or not number.isdigit():
+        if prefix != "before" or not number.isdigit() or int(number) > MAX_INT:
             raise ValueError(raw)
         return int(number)
     except (ValueError, UnicodeDecodeError):
