@@ -1,9 +1,10 @@
-"""Shared fixtures: a clean database per test on SQLite and on PostgreSQL.
+"""Test-suite wide settings and shared fixtures.
 
-PostgreSQL comes from ``PLUMBLINE_TEST_POSTGRES_URL`` (default: the local server on
-127.0.0.1:5432, database ``test``). With ``PLUMBLINE_REQUIRE_POSTGRES=1`` (as CI sets) an
-unreachable server fails the PostgreSQL tests instead of skipping them. Each PostgreSQL test
-gets a schema of its own (created, migrated, dropped afterwards).
+Databases: a clean database per test on SQLite and on PostgreSQL. PostgreSQL comes from
+``PLUMBLINE_TEST_POSTGRES_URL`` (default: the local server on 127.0.0.1:5432, database ``test``).
+With ``PLUMBLINE_REQUIRE_POSTGRES=1`` (as CI sets) an unreachable server fails the PostgreSQL
+tests instead of skipping them. Each PostgreSQL test gets a schema of its own (created, migrated,
+dropped afterwards).
 """
 
 from __future__ import annotations
@@ -13,11 +14,22 @@ import uuid
 from collections.abc import Iterator
 
 import pytest
+from hypothesis import HealthCheck, settings
+
+# Benchmarks under tests/perf are run by hand (python tests/perf/bench_core.py), never by pytest.
+collect_ignore = ["perf"]
+
+# Property tests: a quick profile by default; PLUMBLINE_HYPOTHESIS=thorough searches longer.
+settings.register_profile(
+    "default", max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow]
+)
+settings.register_profile(
+    "thorough", max_examples=2000, deadline=None, suppress_health_check=[HealthCheck.too_slow]
+)
+settings.load_profile(os.environ.get("PLUMBLINE_HYPOTHESIS", "default"))
 
 DEFAULT_POSTGRES_URL = "postgresql+psycopg://postgres@127.0.0.1:5432/test"
 BACKENDS = ("sqlite", "postgresql")
-
-
 
 _postgres_state: dict[str, str | None] = {}
 

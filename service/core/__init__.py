@@ -4,7 +4,7 @@ No web framework, database or pydantic import lives here; the API, store and CLI
 """
 
 from .accuracy import mase, naive_scale
-from .autocorrelation import autocorrelations, ljung_box, portmanteau_lags
+from .autocorrelation import autocorrelations, ljung_box, portmanteau_lags, portmanteau_q
 from .batch import Holdout, Residuals, SeriesBatch, make_batch, residuals_of
 from .benchmarks import BENCHMARKS, benchmark_forecasts, benchmark_skill
 from .bias import bias, hac_variance_of_mean, newey_west_lags, tracking_signal
@@ -56,6 +56,7 @@ __all__ = [
     "naive_scale",
     "newey_west_lags",
     "portmanteau_lags",
+    "portmanteau_q",
     "residuals_of",
     "run_checks",
     "tracking_signal",

@@ -6,7 +6,7 @@ import numpy as np
 
 from .batch import SeriesBatch
 from .results import CheckResult, skip_reasons
-from .types import FloatMatrix, FloatVector
+from .types import FloatMatrix, FloatVector, InputError
 
 
 def naive_scale(actuals: FloatMatrix, season_length: int = 1) -> FloatVector:
@@ -18,12 +18,12 @@ def naive_scale(actuals: FloatMatrix, season_length: int = 1) -> FloatVector:
     """
     m = int(season_length)
     if m < 1:
-        raise ValueError(f"season_length must be at least 1, got {season_length}")
+        raise InputError("season_length", f"must be at least 1, got {season_length}")
     if actuals.shape[1] <= m:
         return np.full(actuals.shape[0], np.nan)
     diff = np.abs(actuals[:, m:] - actuals[:, :-m])
     count = (~np.isnan(diff)).sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return np.where(count > 0, np.nansum(diff, axis=1) / count, np.nan)
 
 
@@ -57,7 +57,7 @@ def mase(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     m = batch.season_length
     scale = naive_scale(batch.actuals, m)
     err, _, count = holdout_pairs(batch)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         mae = np.where(count > 0, np.nansum(np.abs(err), axis=1) / count, np.nan)
         value = mae / scale
     reasons = skip_reasons(

@@ -7,7 +7,7 @@ from scipy import stats
 
 from .batch import Residuals
 from .results import CheckResult, skip_reasons
-from .types import FloatMatrix, IntVector
+from .types import FloatMatrix, FloatVector, InputError, IntVector
 
 NONSEASONAL_LAGS = 10
 
@@ -29,9 +29,29 @@ def autocorrelations(res: Residuals, max_lag: int) -> FloatMatrix:
     :meth:`Residuals.autocovariances` (observed pairs, divided by ``n_obs``): statsmodels'
     ``acf(x, adjusted=False, missing="conservative")``.
     """
-    gamma = res.autocovariances(max_lag)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    gamma = res.standard_autocovariances(max_lag)  # the ratio does not depend on the unit
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return gamma[:, 1:] / gamma[:, :1]
+
+
+def portmanteau_q(
+    r: FloatMatrix, n_obs: IntVector, lags: IntVector
+) -> tuple[FloatVector, FloatVector]:
+    """Ljung-Box and Box-Pierce statistics from autocorrelations ``r[:, k - 1] = r_k``.
+
+    ``Q = T (T + 2) sum_{k=1..L} r_k^2 / (T - k)`` and ``Q_BP = T sum_{k=1..L} r_k^2`` with
+    ``T = n_obs`` and ``L = lags`` per row (columns past ``L`` are ignored). From the NIST/SEMATECH
+    e-Handbook's Series F (``T = 70``, ``r_1 = -0.389878319``), ``Q(1) = 11.103``.
+    """
+    r = np.atleast_2d(np.asarray(r, dtype=float))
+    n = np.asarray(n_obs, dtype=float).reshape(-1)
+    lags = np.asarray(lags).reshape(-1)
+    k = np.arange(1, r.shape[1] + 1)[None, :]
+    within = k <= lags[:, None]
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        lb_terms = np.where(within, r * r / (n[:, None] - k), 0.0)
+        bp_terms = np.where(within, r * r, 0.0)
+    return n * (n + 2.0) * lb_terms.sum(axis=1), n * bp_terms.sum(axis=1)
 
 
 def ljung_box(
@@ -54,9 +74,9 @@ def ljung_box(
     too short for one lag, or when the residuals are constant (no autocorrelation is defined).
     """
     if model_params < 0:
-        raise ValueError(f"model_params must be 0 or more, got {model_params}")
+        raise InputError("model_params", f"must be 0 or more, got {model_params}")
     if lags is not None and lags < 1:
-        raise ValueError(f"lags must be at least 1, got {lags}")
+        raise InputError("lags", f"must be at least 1, got {lags}")
     n = res.n_obs
     used = portmanteau_lags(n, season_length) if lags is None else np.full(n.shape, lags)
     used = np.clip(used, 0, np.maximum(n - 1, 0)).astype(np.int64)
@@ -72,14 +92,7 @@ def ljung_box(
     ran = np.equal(reasons, None)
     if max_lag >= 1:
         r = autocorrelations(res, max_lag)
-        k = np.arange(1, max_lag + 1)[None, :]
-        within = k <= used[:, None]
-        t = n[:, None].astype(float)
-        with np.errstate(invalid="ignore", divide="ignore"):
-            lb_terms = np.where(within, r * r / (t - k), 0.0)
-            bp_terms = np.where(within, r * r, 0.0)
-        q = n * (n + 2.0) * lb_terms.sum(axis=1)
-        q_bp = n * bp_terms.sum(axis=1)
+        q, q_bp = portmanteau_q(r, n, used)
         r1 = r[:, 0]
     else:
         q = q_bp = r1 = np.full(n.shape, np.nan)

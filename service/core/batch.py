@@ -22,19 +22,24 @@ import numpy as np
 from .types import BoolMatrix, FloatMatrix, FloatVector, InputError, IntVector
 
 DEFAULT_LEVEL = 0.95
+MAX_MAGNITUDE = 1e250
+"""Largest accepted ``|value|``: sums over a long series must stay finite."""
 
 
 def _matrix(name: str, values: object, n_series: int | None = None) -> FloatMatrix:
     """Coerce to a 2-D float array; ragged sequences are padded on the right with NaN."""
-    if isinstance(values, np.ndarray):
-        arr = values.astype(float, copy=True)
-    else:
-        rows = list(values)  # type: ignore[call-overload]
-        width = max((len(r) for r in rows), default=0)
-        arr = np.full((len(rows), width), np.nan)
-        for i, row in enumerate(rows):
-            # ``None`` becomes NaN; ``float`` accepts any real number.
-            arr[i, : len(row)] = [np.nan if v is None else v for v in row]
+    try:
+        if isinstance(values, np.ndarray):
+            arr = values.astype(float, copy=True)
+        else:
+            rows = list(values)  # type: ignore[call-overload]
+            width = max((len(r) for r in rows), default=0)
+            arr = np.full((len(rows), width), np.nan)
+            for i, row in enumerate(rows):
+                # ``None`` becomes NaN; ``float`` accepts any real number.
+                arr[i, : len(row)] = [np.nan if v is None else v for v in row]
+    except (TypeError, ValueError) as exc:
+        raise InputError(name, "expected rows (one per series) of numbers or null") from exc
     if arr.ndim == 1:
         arr = arr[None, :]
     if arr.ndim != 2:
@@ -44,6 +49,11 @@ def _matrix(name: str, values: object, n_series: int | None = None) -> FloatMatr
     if np.isinf(arr).any():
         row = int(np.argwhere(np.isinf(arr))[0, 0])
         raise InputError(name, "contains an infinite value", index=row)
+    with np.errstate(invalid="ignore"):
+        huge = np.abs(arr) > MAX_MAGNITUDE
+    if huge.any():
+        row = int(np.argwhere(huge)[0, 0])
+        raise InputError(name, f"contains a value beyond {MAX_MAGNITUDE:g} in magnitude", index=row)
     return arr
 
 
@@ -62,6 +72,8 @@ def _row_lengths(arr: FloatMatrix) -> IntVector:
     """Index of the last observed value + 1 per row (0 for an all-missing row)."""
     observed = ~np.isnan(arr)
     width = arr.shape[1]
+    if width == 0:
+        return np.zeros(arr.shape[0], dtype=np.int64)
     last = width - np.argmax(observed[:, ::-1], axis=1)
     return np.where(observed.any(axis=1), last, 0).astype(np.int64)
 
@@ -223,6 +235,10 @@ def make_batch(
             "holdout_forecasts" if holdout_forecasts is None else "holdout_actuals",
             "holdout actuals and forecasts must be given together",
         )
+    if holdout_actuals is None and (holdout_lower is not None or holdout_upper is not None):
+        raise InputError(
+            "holdout_actuals", "interval bounds need the holdout actuals and forecasts"
+        )
     if holdout_actuals is not None:
         ha = _matrix("holdout_actuals", holdout_actuals, n)
         hf = _same_shape(
@@ -303,7 +319,16 @@ class Residuals:
     centred : ndarray
         ``values - mean`` where observed, 0 elsewhere (so sums of lagged products skip gaps).
     constant : ndarray of bool
-        Observed residuals all equal (within rounding), including rows with fewer than 2.
+        Observed residuals all equal within the rounding of ``actual - fitted`` (see
+        :func:`nearly_constant`), including rows with fewer than 2.
+    unit : ndarray
+        Largest ``|centred|`` per row (1 where that is 0): the scale-free statistics work on
+        ``standard = centred / unit``, so neither huge nor tiny units overflow or underflow.
+    standard : ndarray
+        ``centred / unit``: values in ``[-1, 1]``, 0 where not observed.
+    rounding_scale : ndarray
+        Largest ``|actual|`` or ``|fitted|`` over the observed residuals: the magnitude the
+        rounding of ``actual - fitted`` is relative to.
     """
 
     values: FloatMatrix
@@ -315,19 +340,45 @@ class Residuals:
     mean: FloatVector
     centred: FloatMatrix
     constant: np.ndarray
+    unit: FloatVector
+    standard: FloatMatrix
+    rounding_scale: FloatVector
 
     def autocovariances(self, max_lag: int) -> FloatMatrix:
         """``gamma[:, k]`` for ``k = 0..max_lag``: sum of lag-``k`` products of the centred
         residuals over observed pairs, divided by ``n_obs`` (shape ``(n_series, max_lag + 1)``).
         """
-        z = self.centred
+        with np.errstate(over="ignore", invalid="ignore"):
+            return self.standard_autocovariances(max_lag) * (self.unit * self.unit)[:, None]
+
+    def standard_autocovariances(self, max_lag: int) -> FloatMatrix:
+        """:meth:`autocovariances` of ``standard`` (the centred residuals over ``unit``):
+        the same numbers divided by ``unit**2``, free of overflow and underflow."""
+        z = self.standard
         width = z.shape[1]
         out = np.zeros((z.shape[0], max_lag + 1))
         out[:, 0] = np.einsum("ij,ij->i", z, z)
         for k in range(1, min(max_lag, width - 1) + 1):
             out[:, k] = np.einsum("ij,ij->i", z[:, k:], z[:, :-k])
-        with np.errstate(invalid="ignore", divide="ignore"):
+        with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             return out / self.n_obs[:, None]
+
+
+def nearly_constant(
+    values: FloatMatrix, observed: BoolMatrix, scale: FloatVector | float = 0.0
+) -> np.ndarray:
+    """Per row: the observed values all equal within rounding, or fewer than 2 of them.
+
+    "Within rounding": the range is at most ``1e-12`` times ``max(|largest|, |smallest|,
+    scale)``, where ``scale`` is the magnitude the values were computed from (for residuals,
+    the largest ``|actual|`` or ``|fitted|``: ``actual - fitted`` carries their rounding).
+    """
+    hi = np.where(observed, values, -np.inf).max(axis=1, initial=-np.inf)
+    lo = np.where(observed, values, np.inf).min(axis=1, initial=np.inf)
+    have = observed.sum(axis=1) >= 2
+    base = np.maximum(np.maximum(np.abs(hi), np.abs(lo)), scale)
+    with np.errstate(invalid="ignore"):
+        return ~have | ((hi - lo) <= 1e-12 * np.where(have, base, 1.0))
 
 
 def residuals_of(batch: SeriesBatch) -> Residuals:
@@ -336,17 +387,20 @@ def residuals_of(batch: SeriesBatch) -> Residuals:
     observed = ~np.isnan(e)
     n_obs = observed.sum(axis=1).astype(np.int64)
     lengths = batch.lengths
-    start = np.where(observed.any(axis=1), np.argmax(observed, axis=1), lengths).astype(np.int64)
+    first = np.argmax(observed, axis=1) if e.shape[1] else np.zeros(e.shape[0], dtype=np.int64)
+    start = np.where(observed.any(axis=1), first, lengths).astype(np.int64)
     n_missing = np.maximum(lengths - start, 0) - n_obs
     filled = np.where(observed, e, 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         mean = filled.sum(axis=1) / n_obs
     mean = np.where(n_obs > 0, mean, np.nan)
     centred = np.where(observed, e - mean[:, None], 0.0)
-    hi = np.where(observed, e, -np.inf).max(axis=1, initial=-np.inf)
-    lo = np.where(observed, e, np.inf).min(axis=1, initial=np.inf)
-    scale = np.maximum(np.abs(np.where(np.isfinite(hi), hi, 0)), 1.0)
-    constant = (n_obs < 2) | ((hi - lo) <= 1e-12 * scale)
+    magnitude = np.maximum(np.abs(batch.actuals), np.abs(batch.fitted))
+    rounding_scale = np.where(observed, magnitude, 0.0).max(axis=1, initial=0.0)
+    constant = nearly_constant(e, observed, rounding_scale)
+    unit = np.abs(centred).max(axis=1, initial=0.0)
+    unit = np.where(unit > 0, unit, 1.0)
+    standard = centred / unit[:, None]
     return Residuals(
         values=e,
         observed=observed,
@@ -357,4 +411,7 @@ def residuals_of(batch: SeriesBatch) -> Residuals:
         mean=mean,
         centred=centred,
         constant=constant,
+        unit=unit,
+        standard=standard,
+        rounding_scale=rounding_scale,
     )

@@ -31,6 +31,10 @@ def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatr
     a = batch.actuals
     n, width = a.shape
     m = batch.season_length
+    if width == 0:
+        # No training period at all: every benchmark is undefined.
+        names = [k for k in BENCHMARKS if k != "seasonal_naive" or m > 1]
+        return {k: np.full((n, horizon), np.nan) for k in names}
     length = batch.lengths
     has = length > 0
     rows = np.arange(n)
@@ -39,12 +43,12 @@ def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatr
     first_idx = np.argmax(observed, axis=1)
     h = np.arange(1, horizon + 1)[None, :]
     count = observed.sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         mean = np.where(count > 0, np.where(observed, a, 0.0).sum(axis=1) / count, np.nan)
     y_last = np.where(has, a[rows, last_idx], np.nan)
     y_first = np.where(has, a[rows, first_idx], np.nan)
     span = (last_idx - first_idx).astype(float)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         slope = np.where(span > 0, (y_last - y_first) / span, np.nan)
     out = {
         "mean": np.repeat(mean[:, None], horizon, axis=1),
@@ -55,7 +59,8 @@ def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatr
         # Source index one season back, then further back by whole seasons where missing.
         src = (length[:, None] - m + (h - 1) % m).astype(np.int64)
         values = np.full((n, horizon), np.nan)
-        for _ in range(max(width // m, 1)):
+        # Enough steps back to reach index 0 from the furthest source: (width - 1) // m + 1.
+        for _ in range((width - 1) // m + 1):
             inside = src >= 0
             got = np.where(inside, a[rows[:, None], np.clip(src, 0, max(width - 1, 0))], np.nan)
             values = np.where(np.isnan(values), got, values)
@@ -67,8 +72,13 @@ def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatr
 
 
 def _rmse(err: FloatMatrix, ok: np.ndarray, count: np.ndarray) -> np.ndarray:
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.sqrt(np.where(ok, err * err, 0.0).sum(axis=1) / count)
+    """Root mean square of ``err`` where ``ok``, computed over the row's largest ``|err|`` so
+    squares of large errors do not overflow."""
+    peak = np.where(ok, np.abs(err), 0.0).max(axis=1, initial=0.0)
+    peak = np.where(peak > 0, peak, 1.0)
+    scaled = np.where(ok, err, 0.0) / peak[:, None]
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        return peak * np.sqrt((scaled * scaled).sum(axis=1) / count)
 
 
 def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
@@ -79,7 +89,8 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     (a benchmark undefined at any of those steps is left out). Below 0 the model loses to a
     method that needs no model at all.
 
-    Skipped without a holdout, or when the best benchmark is exact on the holdout (RMSE 0).
+    Skipped without a holdout, when no benchmark is defined at every scored step (no training
+    actuals), or when the best benchmark is exact on the holdout (RMSE 0).
     """
     err, ok, count = holdout_pairs(batch)
     n = batch.n_series
@@ -95,11 +106,13 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
             undefined = (ok & np.isnan(b_err)).any(axis=1)
             rmse = _rmse(np.where(ok, b_err, 0.0), ok, count)
             bench_rmse[:, j] = np.where(undefined | (count == 0), np.inf, rmse)
-            finite = np.isfinite(bench_rmse[:, j])
-            details[f"rmse_{name}"] = np.where(finite, bench_rmse[:, j], np.nan)
+    # The same keys whatever the batch holds, so a series' details never depend on the others.
+    for j, name in enumerate(names):
+        finite = np.isfinite(bench_rmse[:, j])
+        details[f"rmse_{name}"] = np.where(finite, bench_rmse[:, j], np.nan)
     best_j = np.argmin(bench_rmse, axis=1)
     best = bench_rmse[np.arange(n), best_j]
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         skill = 1.0 - model_rmse / best
     reasons = skip_reasons(
         n,

@@ -7,7 +7,7 @@ from scipy import stats
 
 from .batch import Residuals
 from .results import CheckResult, skip_reasons
-from .types import FloatVector, IntVector
+from .types import FloatVector, InputError, IntVector
 
 BIAS_MIN_OBS = 3
 TRACKING_TRADE_LIMIT = 4.0
@@ -32,14 +32,21 @@ def hac_variance_of_mean(res: Residuals, lags: IntVector) -> FloatVector:
     correction): the ``cov_type="HAC", use_correction=False`` covariance of an OLS fit on a
     constant.
     """
+    with np.errstate(invalid="ignore", over="ignore"):
+        return _standard_hac_variance(res, lags) * res.unit * res.unit
+
+
+def _standard_hac_variance(res: Residuals, lags: IntVector) -> FloatVector:
+    """:func:`hac_variance_of_mean` divided by ``res.unit ** 2`` (computed on the standardised
+    residuals, so it neither overflows nor underflows)."""
     lags = np.asarray(lags, dtype=np.int64)
     max_lag = int(lags.max(initial=0))
-    gamma = res.autocovariances(max_lag)
+    gamma = res.standard_autocovariances(max_lag)
     j = np.arange(max_lag + 1)[None, :]
     weights = np.where(j <= lags[:, None], 1.0 - j / (lags[:, None] + 1.0), 0.0)
     weights[:, 0] = 1.0
     long_run = gamma[:, 0] + 2.0 * (weights[:, 1:] * gamma[:, 1:]).sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return long_run / res.n_obs
 
 
@@ -62,16 +69,25 @@ def bias(
     (``actuals_scale`` is that mean). ``e > 0`` means the forecasts run low: adding
     ``correction = mean(e)`` to them removes the bias.
 
-    A series whose residuals are all equal but not zero has ``SE = 0``: it is biased for certain
-    (``t = +-inf``, ``p = 0``). All-zero residuals skip (a perfect fit has no bias to test).
+    A series whose residuals are all equal (within rounding, see ``Residuals.constant``) but not
+    zero has ``SE = 0``: it is biased for certain (``t = +-inf``, ``p = 0``). All-zero residuals
+    (zero within the rounding of ``actual - fitted``) skip (a perfect fit has no bias to test),
+    as do series with fewer than ``min_obs`` (default 3) residuals.
     """
+    if hac_lags is not None and hac_lags < 0:
+        raise InputError("hac_lags", f"must be 0 or more, got {hac_lags}")
+    if not 0 < ci_level < 1:
+        raise InputError("ci_level", f"must lie strictly between 0 and 1, got {ci_level}")
     n = res.n_obs
     lags = newey_west_lags(n) if hac_lags is None else np.full(n.shape, int(hac_lags))
     lags = np.clip(lags, 0, np.maximum(n - 1, 0))
-    var = hac_variance_of_mean(res, lags)
-    se = np.sqrt(np.maximum(var, 0.0))
+    var = _standard_hac_variance(res, lags)
+    # Residuals equal within rounding have no sampling variation: SE is 0, not rounding noise.
+    with np.errstate(over="ignore"):
+        se = np.where(res.constant, 0.0, res.unit * np.sqrt(np.maximum(var, 0.0)))
     mean = res.mean
-    zero = res.constant & (np.abs(np.nan_to_num(mean)) == 0)
+    # All zero within rounding: a fit that reproduces the actuals up to the last bits.
+    zero = res.constant & (np.abs(np.nan_to_num(mean)) <= 1e-12 * res.rounding_scale)
     reasons = skip_reasons(
         n.shape[0],
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
@@ -79,7 +95,7 @@ def bias(
     )
     ran = np.equal(reasons, None)
     df = np.maximum(n - 1, 1).astype(float)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         t = np.where(se > 0, mean / se, np.sign(mean) * np.inf)
         p = 2.0 * stats.t.sf(np.abs(t), df)
         q = stats.t.ppf(0.5 + ci_level / 2.0, df)
@@ -124,10 +140,11 @@ def tracking_signal(
     ``|TS| > 4`` is reported in ``details`` as ``beyond_trade_limit`` for reference.
 
     Skipped when fewer than ``min_obs`` residuals are observed (default ``2 * window``, so the
-    variance rests on more than the window itself) or the window's errors are all zero.
+    variance rests on more than the window itself; never below ``window + 1``), when the
+    window's errors are all zero, or when the residuals are constant (within rounding).
     """
     if window < 2:
-        raise ValueError(f"window must be at least 2, got {window}")
+        raise InputError("window", f"must be at least 2, got {window}")
     need = 2 * window if min_obs is None else max(min_obs, window + 1)
     n = res.n_obs
     observed = res.observed
@@ -137,16 +154,17 @@ def tracking_signal(
     e = np.where(recent, res.values, 0.0)
     total = e.sum(axis=1)
     abs_total = np.abs(e).sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        var = np.einsum("ij,ij->i", res.centred, res.centred) / (n - 1)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        # Sample variance in units of res.unit (standardised residuals): no overflow.
+        var = np.einsum("ij,ij->i", res.standard, res.standard) / (n - 1)
         ts = window * total / abs_total
-        z = total / np.sqrt(window * var)
+        z = (total / res.unit) / np.sqrt(window * var)
     p = 2.0 * stats.norm.sf(np.abs(z))
     reasons = skip_reasons(
         n.shape[0],
         (n < need, f"fewer than {need} residuals for a window of {window}"),
         (abs_total == 0, f"the last {window} residuals are all zero"),
-        (~(var > 0), "residuals are constant"),
+        (res.constant | ~(var > 0), "residuals are constant"),
     )
     ran = np.equal(reasons, None)
     return CheckResult(

@@ -18,6 +18,7 @@ from .intervals import interval_coverage
 from .normality import jarque_bera
 from .results import CheckResult
 from .sufficiency import data_sufficiency
+from .types import InputError
 from .variance import arch_lm
 
 # Options each check accepts (besides the batch-wide season length and model parameters).
@@ -48,7 +49,7 @@ class BatchChecks:
 
 def _mean_abs_actual(batch: SeriesBatch, res: Residuals) -> np.ndarray:
     a = np.where(res.observed, np.abs(batch.actuals), 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return a.sum(axis=1) / res.n_obs
 
 
@@ -68,13 +69,13 @@ def run_checks(
     wanted = CHECK_NAMES if only is None else only
     for name in (*options, *wanted):
         if name not in CHECK_OPTIONS:
-            raise ValueError(f"unknown check {name!r}")
+            raise InputError("options" if name in options else "only", f"unknown check {name!r}")
     opts: dict[str, dict[str, Any]] = {}
     for name in wanted:
         given = {k: v for k, v in (options.get(name) or {}).items() if v is not None}
         extra = set(given) - CHECK_OPTIONS[name]
         if extra:
-            raise ValueError(f"check {name!r} takes no option {sorted(extra)[0]!r}")
+            raise InputError(f"options.{name}", f"takes no option {sorted(extra)[0]!r}")
         opts[name] = given
     res = residuals_of(batch)
     m, k = batch.season_length, batch.model_params

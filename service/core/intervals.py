@@ -12,7 +12,7 @@ from .types import FloatMatrix, FloatVector
 
 def _xlogy(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     """``x log y`` with ``0 log 0 = 0``."""
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return np.where(x == 0, 0.0, x * np.log(np.where(x == 0, 1.0, y)))
 
 
@@ -25,7 +25,7 @@ def kupiec_lr(misses: np.ndarray, n: np.ndarray, miss_rate: np.ndarray) -> Float
     x = np.asarray(misses, dtype=float)
     t = np.asarray(n, dtype=float)
     p = np.asarray(miss_rate, dtype=float)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         phat = x / t
     null = _xlogy(t - x, 1.0 - p) + _xlogy(x, p)
     alt = _xlogy(t - x, 1.0 - phat) + _xlogy(x, phat)
@@ -78,7 +78,7 @@ def interval_coverage(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     lr = kupiec_lr(x, t, miss_rate)
     scores = winkler_scores(np.where(ok, y, 0.0), np.where(ok, lo, 0.0), np.where(ok, up, 0.0),
                             np.where(np.isnan(miss_rate), 1.0, miss_rate))
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         coverage = 1.0 - x / t
         winkler = np.where(ok, scores, 0.0).sum(axis=1) / t
     reasons = skip_reasons(

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .types import FloatVector
+from .types import FloatVector, InputError
 
 
 def benjamini_hochberg(p_values: FloatVector) -> FloatVector:
@@ -17,9 +17,9 @@ def benjamini_hochberg(p_values: FloatVector) -> FloatVector:
     """
     p = np.asarray(p_values, dtype=float)
     if p.ndim != 1:
-        raise ValueError(f"p_values must be 1-D, got {p.ndim}-D")
+        raise InputError("p_values", f"must be 1-D, got {p.ndim}-D")
     if ((p < 0) | (p > 1)).any():
-        raise ValueError("p_values must lie in [0, 1]")
+        raise InputError("p_values", "must lie in [0, 1]")
     out = np.full(p.shape, np.nan)
     have = np.flatnonzero(~np.isnan(p))
     m = have.size

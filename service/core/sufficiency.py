@@ -17,7 +17,7 @@ def data_sufficiency(res: Residuals) -> CheckResult:
     """
     n = res.n_obs
     span = n + res.n_missing
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         share = np.where(span > 0, res.n_missing / span, 0.0)
     return CheckResult(
         name="data_sufficiency",

@@ -3,11 +3,12 @@
 from __future__ import annotations
 
 import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
 from scipy import stats
 
-from .batch import Residuals
+from .batch import Residuals, nearly_constant
 from .results import CheckResult, skip_reasons
-from .types import FloatMatrix, FloatVector, IntVector
+from .types import FloatMatrix, FloatVector, InputError, IntVector
 
 ARCH_MAX_LAGS = 10
 _CHUNK = 2048
@@ -18,41 +19,86 @@ def arch_lags(n_obs: IntVector) -> IntVector:
     return np.minimum(ARCH_MAX_LAGS, np.asarray(n_obs) // 5).astype(np.int64)
 
 
-def _lm_one_order(squares: FloatMatrix, lags: int) -> tuple[FloatVector, IntVector, FloatVector]:
+def _lm_one_order(
+    squares: FloatMatrix, lags: int, buffer: np.ndarray | None = None
+) -> tuple[FloatVector, IntVector, FloatVector]:
     """``n R^2`` of ``s_t`` on ``1, s_{t-1}..s_{t-lags}`` for each row, with rows that miss any
-    of those values left out. Returns (LM, rows used, centred total sum of squares)."""
+    of those values left out. Returns (LM, rows used, centred total sum of squares).
+
+    ``buffer``: optional flat float array of at least ``rows x (width - lags) x (lags + 1)``
+    elements, reused between blocks for the regression rows (saves allocating them anew)."""
     n_series, width = squares.shape
     rows = width - lags
     if rows <= 0:
         nan = np.full(n_series, np.nan)
         return nan, np.zeros(n_series, dtype=np.int64), nan
-    # cols[:, :, 0] is s_t, cols[:, :, j] is s_{t-j}, for t = lags..width-1.
-    cols = np.stack([squares[:, lags - j : width - j] for j in range(lags + 1)], axis=2)
-    valid = ~np.isnan(cols).any(axis=2)
+    # A regression row t (t = lags..width-1) is usable when s_{t-lags}..s_t are all observed:
+    # count the missing values in that window from a running count.
+    missing = np.zeros((n_series, width + 1), dtype=np.int64)
+    np.cumsum(np.isnan(squares), axis=1, out=missing[:, 1:])
+    valid = missing[:, lags + 1 :] == missing[:, :rows]
     used = valid.sum(axis=1)
-    cols = np.where(valid[:, :, None], cols, 0.0)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        means = cols.sum(axis=1) / used[:, None]
-    # Centring every column absorbs the intercept and keeps the cross-products well scaled.
-    cols = np.where(valid[:, :, None], cols - means[:, None, :], 0.0)
-    y = cols[:, :, 0]
-    x = cols[:, :, 1:]
-    xtx = np.einsum("ntj,ntk->njk", x, x)
-    xty = np.einsum("ntj,nt->nj", x, y)
-    tss = np.einsum("nt,nt->n", y, y)
-    # Scale to unit diagonal before solving; a singular design (constant lags) gets pinv.
+    # Shift each row by the mean of its observed squares: R^2 does not change, and the
+    # cross-products below are taken about values near zero, so they do not cancel.
+    have = (~np.isnan(squares)).sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        shift = np.where(have > 0, np.nansum(squares, axis=1) / np.maximum(have, 1), 0.0)
+    z = np.where(np.isnan(squares), 0.0, squares - shift[:, None])
+    # window[:, t, 0] is z_t, window[:, t, j] is z_{t-j}: a strided view, copied once into the
+    # regression rows, of which the unusable ones are then zeroed.
+    window = sliding_window_view(z, lags + 1, axis=1)[:, :, ::-1]
+    size = n_series * rows * (lags + 1)
+    if buffer is None or buffer.size < size:
+        buffer = np.empty(size)
+    cols = buffer[:size].reshape(n_series, rows, lags + 1)
+    np.copyto(cols, window)
+    cols[~valid] = 0.0
+    # One small Gram matrix per series, [y, x]' [y, x] over the usable rows (a batched matrix
+    # product), centred with the column sums: this absorbs the intercept.
+    gram = np.matmul(cols.transpose(0, 2, 1), cols)
+    raw_diag = np.einsum("njj->nj", gram).copy()
+    sums = np.matmul(np.ones(rows), cols)  # column sums over the usable rows
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        means = np.where(used[:, None] > 0, sums / np.maximum(used, 1)[:, None], 0.0)
+    gram -= sums[:, :, None] * means[:, None, :]
+    # A column whose centred sum of squares is at rounding level (1e-12 of its raw sum of
+    # squares) does not vary over the usable rows: exactly zero, so it explains nothing.
+    diag = np.einsum("njj->nj", gram)
+    flat = diag <= 1e-12 * raw_diag
+    gram[flat[:, :, None] | flat[:, None, :]] = 0.0
+    xtx = gram[:, 1:, 1:]
+    xty = gram[:, 1:, 0]
+    tss = gram[:, 0, 0]
+    # Scale to unit diagonal before solving; a column without variation gets a unit diagonal
+    # and zero right-hand side, so its coefficient is 0.
     d = np.sqrt(np.einsum("njj->nj", xtx))
     d = np.where(d > 0, d, 1.0)
     a = xtx / d[:, :, None] / d[:, None, :]
+    a[:, np.arange(lags), np.arange(lags)] = 1.0
     b = xty / d
-    try:
-        coef = np.linalg.solve(a, b[:, :, None])[:, :, 0]
-    except np.linalg.LinAlgError:
-        coef = np.einsum("njk,nk->nj", np.linalg.pinv(a), b)
+    coef = _solve_each(a, b)
     explained = np.einsum("nj,nj->n", coef, b)
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         r2 = explained / tss
     return used * r2, used.astype(np.int64), tss
+
+
+def _solve_each(a: np.ndarray, b: FloatMatrix) -> FloatMatrix:
+    """Solve ``a[i] x[i] = b[i]`` for a stack of systems; a singular system (a lag column that
+    does not vary, or exactly collinear lags) gets the pseudo-inverse, on its own, so one
+    series never changes how another is solved."""
+    try:
+        return np.linalg.solve(a, b[:, :, None])[:, :, 0]
+    except np.linalg.LinAlgError:
+        pass
+    sign, _ = np.linalg.slogdet(a)
+    singular = sign == 0
+    coef = np.empty_like(b)
+    regular = ~singular
+    if regular.any():
+        coef[regular] = np.linalg.solve(a[regular], b[regular][:, :, None])[:, :, 0]
+    coef[singular] = np.einsum("njk,nk->nj", np.linalg.pinv(a[singular]), b[singular])
+    return coef
 
 
 def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> CheckResult:
@@ -67,26 +113,40 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     when the squared residuals do not vary (constant or ``+-c`` residuals).
     """
     if lags is not None and lags < 1:
-        raise ValueError(f"lags must be at least 1, got {lags}")
+        raise InputError("lags", f"must be at least 1, got {lags}")
     n = res.n_obs
     n_series = n.shape[0]
     used_lags = arch_lags(n) if lags is None else np.full(n.shape, lags, dtype=np.int64)
     lm = np.full(n_series, np.nan)
     rows = np.zeros(n_series, dtype=np.int64)
     tss = np.full(n_series, np.nan)
-    squares = np.where(res.observed, res.values * res.values, np.nan)
+    # Squares of e over its largest |e| (R^2 does not depend on the unit): values in [0, 1],
+    # so the cross-products of squares neither overflow nor underflow.
+    peak = np.where(res.observed, np.abs(res.values), 0.0).max(axis=1, initial=0.0)
+    peak = np.where(peak > 0, peak, 1.0)
+    scaled = res.values / peak[:, None]
+    squares = np.where(res.observed, scaled * scaled, np.nan)
     # Loop over the few distinct lag orders and over blocks of rows, never over single series.
+    width = squares.shape[1]
+    buffer = np.empty(min(_CHUNK, n_series) * width * (ARCH_MAX_LAGS + 1)) if n_series else None
     for order in np.unique(used_lags[used_lags >= 1]):
         members = np.flatnonzero(used_lags == order)
         for lo in range(0, members.size, _CHUNK):
             idx = members[lo : lo + _CHUNK]
-            block = squares[idx]
+            contiguous = idx[-1] - idx[0] + 1 == idx.size
+            # A run of consecutive series is a view; otherwise gather the rows.
+            block = squares[idx[0] : idx[-1] + 1] if contiguous else squares[idx]
             # Trim to the longest span in the block so short series cost little.
             keep = ~np.isnan(block).all(axis=0)
             first = int(np.argmax(keep)) if keep.any() else 0
             last = int(keep.size - np.argmax(keep[::-1])) if keep.any() else 0
-            lm[idx], rows[idx], tss[idx] = _lm_one_order(block[:, first:last], int(order))
-    flat = ~(tss > 1e-300) | res.constant
+            lm[idx], rows[idx], tss[idx] = _lm_one_order(
+                block[:, first:last], int(order), buffer
+            )
+    # Squares that do not vary: constant residuals, +-c residuals (equal |e| within rounding),
+    # or no variation left in the regression rows.
+    flat = (res.constant | nearly_constant(np.abs(res.values), res.observed, res.rounding_scale)
+            | ~(tss > 0))
     reasons = skip_reasons(
         n_series,
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),

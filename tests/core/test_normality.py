@@ -1,0 +1,76 @@
+"""Jarque-Bera against scipy, statsmodels and published values."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+from statsmodels.stats.stattools import jarque_bera as sm_jarque_bera
+
+from service.core import jarque_bera
+
+from .reference_data import X20, observed, residuals
+
+RTOL = 1e-8
+
+
+def test_x20_published():
+    # references.md: statsmodels test_statstools.py (R fBasics): X20.
+    result = jarque_bera(residuals([X20]))
+    np.testing.assert_allclose(result.statistic[0], 1.9662677226861689, rtol=RTOL)
+    np.testing.assert_allclose(result.p_value[0], 0.3741367669648314, rtol=RTOL)
+    # Skewness -0.51526 and kurtosis 4.13910, published to 5 decimals.
+    np.testing.assert_allclose(result.details["skewness"][0], -0.51526, atol=5e-6)
+    np.testing.assert_allclose(result.details["kurtosis"][0], 4.13910, atol=5e-6)
+    np.testing.assert_allclose(result.details["excess_kurtosis"][0], 1.13910, atol=5e-6)
+    assert result.details["df"][0] == 2
+
+
+def test_log_x20_squared_published():
+    # references.md: statsmodels test_statstools.py (R fBasics): log(X20^2).
+    result = jarque_bera(residuals([np.log(X20**2)]))
+    np.testing.assert_allclose(result.statistic[0], 5.7135750796706670, rtol=RTOL)
+    np.testing.assert_allclose(result.p_value[0], 0.0574530296971343, rtol=RTOL)
+
+
+def test_matches_scipy_and_statsmodels_on_mixed_batch():
+    rng = np.random.default_rng(17)
+    rows = [rng.normal(0, 1, 8), rng.standard_t(3, 40), rng.exponential(1, 100) - 1,
+            rng.normal(0, 1, 156), rng.uniform(-1, 1, 64)]
+    rows[1][:2] = np.nan          # leading missing fitted values
+    rows[3][[20, 21, 100]] = np.nan  # interior gaps: moments over the observed residuals
+    result = jarque_bera(residuals(rows))
+    for i, row in enumerate(rows):
+        e = observed(row)
+        ref = stats.jarque_bera(e)
+        np.testing.assert_allclose(result.statistic[i], ref.statistic, rtol=RTOL)
+        np.testing.assert_allclose(result.p_value[i], ref.pvalue, rtol=RTOL)
+        jb, p, skew, kurt = sm_jarque_bera(e)
+        np.testing.assert_allclose(result.statistic[i], jb, rtol=RTOL)
+        np.testing.assert_allclose(result.p_value[i], p, rtol=RTOL)
+        np.testing.assert_allclose(result.details["skewness"][i], skew, rtol=RTOL)
+        np.testing.assert_allclose(result.details["kurtosis"][i], kurt, rtol=RTOL)
+        np.testing.assert_allclose(result.details["skewness"][i], stats.skew(e), rtol=RTOL)
+        np.testing.assert_allclose(result.details["excess_kurtosis"][i], stats.kurtosis(e),
+                                   rtol=RTOL)
+
+
+@pytest.mark.parametrize("shift", [0.0, 1e3, -5e4])
+def test_location_does_not_matter(shift):
+    # Moments are central: adding a constant leaves JB unchanged up to rounding.
+    e = np.random.default_rng(1).standard_t(4, 80)
+    base = jarque_bera(residuals([e])).statistic[0]
+    np.testing.assert_allclose(jarque_bera(residuals([e + shift])).statistic[0], base, rtol=1e-8)
+
+
+def test_skips_with_reasons():
+    rng = np.random.default_rng(2)
+    rows = [np.full(30, -1.5), np.zeros(30), rng.normal(0, 1, 7), [np.nan] * 9,
+            rng.normal(0, 1, 8)]
+    result = jarque_bera(residuals(rows))
+    assert result.skip_reason[0] == "residuals are constant"
+    assert result.skip_reason[1] == "residuals are constant"
+    assert result.skip_reason[2] == "fewer than 8 residuals"
+    assert result.skip_reason[3] == "fewer than 8 residuals"
+    assert result.skip_reason[4] is None
+    assert jarque_bera(residuals(rows), min_obs=5).skip_reason[2] is None
