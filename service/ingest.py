@@ -18,7 +18,7 @@ import json
 import math
 import warnings
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from datetime import datetime
 from itertools import chain
 from typing import Any
@@ -97,7 +97,8 @@ class AssessmentRequest:
     ``policy`` is a stored policy's name or an inline policy document (a dict, validated by the
     gate). ``timestamps`` and ``holdout_timestamps`` hold one list of ISO 8601 strings per series
     (``None`` where a series has none). ``train_lengths`` / ``holdout_lengths`` are the lengths
-    of the arrays as sent, so stored inputs can be given back exactly.
+    of the arrays as sent and ``weights_given`` the weights as sent (``None``: the default), so
+    stored inputs can be given back exactly.
     """
 
     model: str
@@ -112,7 +113,7 @@ class AssessmentRequest:
     holdout_timestamps: tuple[list[str] | None, ...]
     train_lengths: np.ndarray
     holdout_lengths: np.ndarray
-    weights_given: tuple[float | None, ...] = field(default=())
+    weights_given: tuple[float | None, ...]
 
     @property
     def n_series(self) -> int:

@@ -90,14 +90,14 @@ def _inputs(req: AssessmentRequest) -> list[repo.SeriesInput]:
                 "holdout_forecasts": h.forecasts[i, :nh],
                 "holdout_timestamps": req.holdout_timestamps[i],
             }
-            if h.lower is not None and h.upper is not None and not np.isnan(h.level[i]  # type: ignore[index]
-                                                                              ):
+            level = np.nan if h.level is None else float(h.level[i])
+            if h.lower is not None and h.upper is not None and not np.isnan(level):
                 hold["holdout_lower"] = h.lower[i, :nh]
                 hold["holdout_upper"] = h.upper[i, :nh]
-                hold["holdout_level"] = float(h.level[i])  # type: ignore[index]
-        weight = req.weights_given[i] if req.weights_given else None
+                hold["holdout_level"] = level
         out.append(repo.SeriesInput(
-            series_id=sid, weight=weight, actuals=b.actuals[i, :n], fitted=b.fitted[i, :n],
+            series_id=sid, weight=req.weights_given[i], actuals=b.actuals[i, :n],
+            fitted=b.fitted[i, :n],
             timestamps=req.timestamps[i], **hold,
         ))
     return out

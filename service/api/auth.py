@@ -61,20 +61,24 @@ def _stored(request: Request, token: str) -> Principal:
     return Principal(token_id=found.id, scopes=frozenset(found.scopes))
 
 
+async def authorize(request: Request, scope: str) -> Principal:
+    """The request's principal if its token holds ``scope`` (401/403 otherwise)."""
+    token = _bearer(request)
+    principal = _env_admin(request, token) or await run_in_threadpool(_stored, request, token)
+    if not principal.allows(scope):
+        raise ApiError(403, f"this token lacks the {scope!r} scope (it holds: "
+                       f"{', '.join(sorted(principal.scopes))})")
+    request.state.principal = principal
+    return principal
+
+
 def require(scope: str) -> Callable[[Request], object]:
     """A dependency that admits a request whose token holds ``scope`` (or ``admin``)."""
     if scope not in SCOPES:
         raise ValueError(f"unknown scope {scope!r}")
 
     async def dependency(request: Request) -> Principal:
-        token = _bearer(request)
-        principal = _env_admin(request, token) or await run_in_threadpool(
-            _stored, request, token)
-        if not principal.allows(scope):
-            raise ApiError(403, f"this token lacks the {scope!r} scope (it holds: "
-                           f"{', '.join(sorted(principal.scopes))})")
-        request.state.principal = principal
-        return principal
+        return await authorize(request, scope)
 
     dependency.__name__ = f"require_{scope}"
     return dependency

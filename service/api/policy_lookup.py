@@ -24,6 +24,7 @@ def valid_name(name: str) -> bool:
 
 
 _BUILTIN: list[Policy] = []
+_BUILTIN_DOCUMENT: list[dict[str, Any]] = []
 # Stored policy versions never change, so their validated form is kept per (name, version).
 _PARSED: dict[tuple[str, int], Policy] = {}
 _PARSED_MAX = 256
@@ -34,6 +35,13 @@ def builtin_default() -> Policy:
     if not _BUILTIN:
         _BUILTIN.append(default_policy())
     return _BUILTIN[0]
+
+
+def builtin_document() -> dict[str, Any]:
+    """The built-in default policy's document, built once: callers only read it."""
+    if not _BUILTIN_DOCUMENT:
+        _BUILTIN_DOCUMENT.append(builtin_default().to_dict())
+    return _BUILTIN_DOCUMENT[0]
 
 
 def _parsed(name: str, version: int, document: dict[str, Any]) -> Policy:
@@ -72,8 +80,7 @@ def stored_or_builtin(engine: Engine, name: str, version: int | None = None
         if stored is not None:
             return _parsed(name, stored.version, stored.document), stored.document
     if name == BUILTIN_DEFAULT and version in (None, 1):
-        policy = builtin_default()
-        return policy, policy.to_dict()
+        return builtin_default(), builtin_document()
     return None
 
 

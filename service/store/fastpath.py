@@ -100,6 +100,20 @@ def run_in_transaction(engine: Engine, work: Any) -> Any:
         raw.close()
 
 
+def run_read(engine: Engine, work: Any) -> Any:
+    """Call ``work(cursor)`` on a pooled DBAPI connection for reading (nothing to commit; the
+    pool rolls the connection back when it is returned)."""
+    raw = engine.raw_connection()
+    try:
+        cursor = raw.cursor()
+        try:
+            return work(cursor)
+        finally:
+            cursor.close()
+    finally:
+        raw.close()
+
+
 def executemany(cursor: Any, stmt: Statement, rows: Iterable[Mapping[str, Any]]) -> None:
     params = [stmt.params(r) for r in rows]
     if params:

@@ -430,7 +430,7 @@ def latest_policy_document(engine: Engine, *, name: str) -> tuple[int, dict[str,
         cursor.execute(stmt.sql, stmt.params({"name": name, "one": 1}))
         return cursor.fetchone()
 
-    row = fastpath.run_in_transaction(engine, read)
+    row = fastpath.run_read(engine, read)
     if row is None:
         return None
     return int(row[0]), orjson.loads(row[1])

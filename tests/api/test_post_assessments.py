@@ -356,3 +356,32 @@ def test_unpaired_surrogate_escape_is_400_naming_the_field(client):
     r = post_raw(client, raw)
     assert r.status_code == 400
     assert r.json()["errors"][0]["loc"] == "series[0].id"
+
+
+def test_series_inputs_are_kept_for_the_report(client, settings, body):
+    import numpy as np
+
+    from service.store import make_engine
+    from service.store import repository as repo
+
+    b = body(n=2, holdout=5)
+    b["series"][0]["timestamps"] = [
+        (date(2024, 1, 1) + timedelta(weeks=t)).isoformat()
+        for t in range(len(b["series"][0]["actuals"]))]
+    b["series"][1]["weight"] = 12.5
+    doc = client.post("/v1/assessments", json=b, headers=ADMIN).json()
+    engine = make_engine(settings.database_url)
+    try:
+        kept = repo.series_inputs(engine, assessment_id=doc["id"])
+    finally:
+        engine.dispose()
+    assert [k.series_id for k in kept] == ["s0", "s1"]
+    for k, s in zip(kept, b["series"], strict=True):
+        np.testing.assert_array_equal(k.actuals, s["actuals"])
+        np.testing.assert_array_equal(k.fitted, s["fitted"])
+        np.testing.assert_array_equal(k.holdout_actuals, s["holdout"]["actuals"])
+        np.testing.assert_array_equal(k.holdout_lower, s["holdout"]["lower"])
+        assert k.holdout_level == 0.95
+    assert kept[0].timestamps == b["series"][0]["timestamps"]
+    assert kept[1].timestamps is None
+    assert kept[0].weight is None and kept[1].weight == 12.5
