@@ -28,6 +28,7 @@ MAX_BINS = 40
 # rcParams are process-wide: one chart at a time keeps concurrent requests from mixing styles.
 _RENDER_LOCK = threading.Lock()
 _SVG_START = re.compile(r"<svg\b")
+_ID_REFS = re.compile(r'(\bid="|url\(#|href="#)([^")]+)')
 
 
 @dataclass(frozen=True)
@@ -52,16 +53,17 @@ def _figure(salt: str) -> Iterator[Any]:
         yield fig
 
 
-def _svg_text(fig: Any, label: str) -> str:
+def _svg_text(fig: Any, label: str, prefix: str) -> str:
+    """The figure as an ``<svg>`` element; every id (and reference to one) gets ``prefix``
+    so several charts can share one HTML document without clashing ids."""
     buf = io.StringIO()
     fig.savefig(buf, format="svg", metadata={"Date": None})
     text = buf.getvalue()
     match = _SVG_START.search(text)
     if match is None:  # pragma: no cover - matplotlib always writes an svg element
         raise RuntimeError("matplotlib produced no <svg> element")
-    return text[match.start() :].replace(
-        "<svg", f'<svg role="img" aria-label="{escape(label, quote=True)}"', 1
-    )
+    svg = _ID_REFS.sub(lambda m: f"{m.group(1)}{prefix}{m.group(2)}", text[match.start() :])
+    return svg.replace("<svg", f'<svg role="img" aria-label="{escape(label, quote=True)}"', 1)
 
 
 def _empty(ax: Any, message: str) -> None:
@@ -246,7 +248,7 @@ def render_chart(name: str, diag: SeriesDiagnostics) -> Chart:
         ax = fig.add_subplot()
         ax.set_title(title)
         draw(ax, diag)
-        svg = _svg_text(fig, title)
+        svg = _svg_text(fig, title, prefix=f"chart-{name}-")
     return Chart(name=name, title=title, caption=caption(diag), svg=svg)
 
 
