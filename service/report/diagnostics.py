@@ -89,8 +89,26 @@ def _parse_stamp(text: str) -> datetime | None:
         return datetime(d.year, d.month, d.day)
 
 
-def time_axis(timestamps: tuple[str, ...] | None, length: int, horizon: int) -> TimeAxis:
-    """Dates from ISO timestamps (the holdout continues at the median spacing), else numbers."""
+def _dates(stamps: tuple[str, ...] | list[str]) -> np.ndarray | None:
+    """Increasing ISO timestamps as ``datetime64[s]``, else ``None``."""
+    parsed = [_parse_stamp(str(s)) for s in stamps]
+    if any(p is None for p in parsed):
+        return None
+    # Mixed naive/aware stamps cannot be ordered; drop the zone (the axis shows local dates).
+    out = np.array([p.replace(tzinfo=None) for p in parsed], dtype="datetime64[s]")  # type: ignore[union-attr]
+    if out.size > 1 and (np.diff(out) <= np.timedelta64(0, "s")).any():
+        return None
+    return out
+
+
+def time_axis(
+    timestamps: tuple[str, ...] | None,
+    length: int,
+    horizon: int,
+    holdout_timestamps: tuple[str, ...] | None = None,
+) -> TimeAxis:
+    """Dates from ISO timestamps, else period numbers. Without holdout timestamps the holdout
+    continues at the median spacing of the training timestamps."""
     numbers = TimeAxis(
         train=np.arange(1, length + 1, dtype=float),
         holdout=np.arange(length + 1, length + horizon + 1, dtype=float),
@@ -99,16 +117,20 @@ def time_axis(timestamps: tuple[str, ...] | None, length: int, horizon: int) -> 
     )
     if not timestamps or len(timestamps) != length:
         return numbers
-    parsed = [_parse_stamp(s) for s in timestamps]
-    if any(p is None for p in parsed):
+    train = _dates(timestamps)
+    if train is None:
         return numbers
-    # Mixed naive/aware stamps cannot be ordered; drop the zone (the axis shows local dates).
-    train = np.array([p.replace(tzinfo=None) for p in parsed], dtype="datetime64[s]")  # type: ignore[union-attr]
-    steps = np.diff(train)
-    if steps.size and (steps <= np.timedelta64(0, "s")).any():
-        return numbers
-    step = np.median(steps.astype(np.int64)) if steps.size else 86400
-    holdout = train[-1] + (np.arange(1, horizon + 1) * int(step)).astype("timedelta64[s]")
+    given = None
+    if holdout_timestamps and len(holdout_timestamps) == horizon:
+        given = _dates(holdout_timestamps)
+        if given is not None and given.size and given[0] <= train[-1]:
+            given = None
+    if given is not None:
+        holdout = given
+    else:
+        steps = np.diff(train).astype(np.int64)
+        step = int(np.median(steps)) if steps.size else 86400
+        holdout = train[-1] + (np.arange(1, horizon + 1) * step).astype("timedelta64[s]")
     return TimeAxis(train=train, holdout=holdout, is_date=True, label="Date")
 
 
@@ -174,7 +196,9 @@ def series_diagnostics(
     bound = ACF_Z / np.sqrt(n_obs) if n_obs else float("nan")
 
     horizon = inputs.holdout_actuals.size if hold else 0  # type: ignore[union-attr]
-    axis = time_axis(inputs.timestamps, inputs.actuals.size, horizon)
+    axis = time_axis(
+        inputs.timestamps, inputs.actuals.size, horizon, inputs.holdout_timestamps
+    )
     view = None
     if hold:
         best = _detail(checks.get("benchmark_skill"), "best_benchmark")

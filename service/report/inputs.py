@@ -38,7 +38,8 @@ class SeriesInputs:
     """One series' arrays: the training part and, optionally, the holdout.
 
     ``timestamps`` label the training periods (ISO dates draw a date axis; anything else falls
-    back to period numbers). Holdout steps follow the last training period.
+    back to period numbers); ``holdout_timestamps`` the holdout steps, which otherwise follow
+    the last training period at its usual spacing.
     """
 
     series_id: str
@@ -50,6 +51,7 @@ class SeriesInputs:
     holdout_lower: FloatVector | None = None
     holdout_upper: FloatVector | None = None
     level: float | None = None
+    holdout_timestamps: tuple[str, ...] | None = None
 
     @property
     def has_holdout(self) -> bool:
@@ -67,7 +69,7 @@ class SeriesInputs:
     @classmethod
     def from_mapping(cls, data: Mapping[str, Any]) -> SeriesInputs:
         """Build from the request body's shape of one series (``id``, ``actuals``, ``fitted``,
-        ``timestamps``, ``holdout: {actuals, forecasts, lower, upper, level}``)."""
+        ``timestamps``, ``holdout: {actuals, forecasts, lower, upper, level, timestamps}``)."""
         if not isinstance(data, Mapping):
             raise ReportInputError("series", "must be an object")
         if "id" not in data:
@@ -92,6 +94,7 @@ class SeriesInputs:
         hold = data.get("holdout") or None
         ha = hf = lo = up = None
         level = None
+        hold_stamps = None
         if hold is not None:
             if not isinstance(hold, Mapping):
                 raise ReportInputError("holdout", "must be an object")
@@ -109,6 +112,12 @@ class SeriesInputs:
                         )
             if hold.get("level") is not None:
                 level = float(hold["level"])
+            if hold.get("timestamps") is not None:
+                hold_stamps = tuple(str(v) for v in hold["timestamps"])
+                if ha is None or len(hold_stamps) != ha.size:
+                    raise ReportInputError(
+                        "holdout.timestamps", "needs one value per holdout actual"
+                    )
         return cls(
             series_id=str(data["id"]),
             actuals=actuals,
@@ -119,4 +128,5 @@ class SeriesInputs:
             holdout_lower=lo,
             holdout_upper=up,
             level=level,
+            holdout_timestamps=hold_stamps,
         )

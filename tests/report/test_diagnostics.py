@@ -92,6 +92,11 @@ def test_time_axis_dates_and_fallback() -> None:
     ax = time_axis(("w1", "w2", "w3"), 3, 1)
     assert not ax.is_date and list(ax.train) == [1, 2, 3] and list(ax.holdout) == [4]
     assert not time_axis(("2025-01-02", "2025-01-01"), 2, 0).is_date  # not increasing
+    monthly = time_axis(("2025-01-31", "2025-02-28"), 2, 2, ("2025-03-31", "2025-04-30"))
+    assert [str(x)[:10] for x in monthly.holdout] == ["2025-03-31", "2025-04-30"]
+    # Holdout stamps that do not follow the training period are ignored, not drawn backwards.
+    odd = time_axis(weekly, 4, 1, ("2024-12-30",))
+    assert str(odd.holdout[0])[:10] == "2025-02-03"
 
 
 @pytest.mark.parametrize(
