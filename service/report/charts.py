@@ -20,9 +20,10 @@ from typing import Any
 import numpy as np
 
 from .diagnostics import SeriesDiagnostics
-from .style import CHART_RC, FIGURE_SIZE, GRID, ROLE_COLOURS
+from .style import CHART_RC, FIGURE_SIZE, GRID, ROLE_COLOURS, WIDE_FIGURE_SIZE
 
 CHART_NAMES = ("residuals", "acf", "histogram", "fitted", "holdout")
+WIDE_CHARTS = frozenset({"holdout"})
 MAX_BINS = 40
 
 # rcParams are process-wide: one chart at a time keeps concurrent requests from mixing styles.
@@ -33,22 +34,24 @@ _ID_REFS = re.compile(r'(\bid="|url\(#|href="#)([^")]+)')
 
 @dataclass(frozen=True)
 class Chart:
-    """One rendered chart: ``svg`` is an ``<svg>`` element ready to inline in HTML."""
+    """One rendered chart: ``svg`` is an ``<svg>`` element ready to inline in HTML; ``wide``
+    charts span the page's width."""
 
     name: str
     title: str
     caption: str
     svg: str
+    wide: bool = False
 
 
 @contextmanager
-def _figure(salt: str) -> Iterator[Any]:
+def _figure(salt: str, size: tuple[float, float]) -> Iterator[Any]:
     import matplotlib
     from matplotlib.backends.backend_svg import FigureCanvasSVG
     from matplotlib.figure import Figure
 
     with _RENDER_LOCK, matplotlib.rc_context({**CHART_RC, "svg.hashsalt": salt}):
-        fig = Figure(figsize=FIGURE_SIZE, layout="constrained")
+        fig = Figure(figsize=size, layout="constrained")
         FigureCanvasSVG(fig)
         yield fig
 
@@ -244,12 +247,13 @@ def render_chart(name: str, diag: SeriesDiagnostics) -> Chart:
     if name not in _SPECS:
         raise ValueError(f"unknown chart {name!r}; expected one of {', '.join(CHART_NAMES)}")
     title, draw, caption = _SPECS[name]
-    with _figure(salt=f"{diag.series_id}/{name}") as fig:
+    size = WIDE_FIGURE_SIZE if name in WIDE_CHARTS else FIGURE_SIZE
+    with _figure(salt=f"{diag.series_id}/{name}", size=size) as fig:
         ax = fig.add_subplot()
         ax.set_title(title)
         draw(ax, diag)
         svg = _svg_text(fig, title, prefix=f"chart-{name}-")
-    return Chart(name=name, title=title, caption=caption(diag), svg=svg)
+    return Chart(name=name, title=title, caption=caption(diag), svg=svg, wide=name in WIDE_CHARTS)
 
 
 def render_charts(diag: SeriesDiagnostics) -> tuple[Chart, ...]:

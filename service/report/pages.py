@@ -402,7 +402,8 @@ def render_series(
         ]
     )
     figures = "".join(
-        f'<figure class="chart" id="chart-{_e(c.name)}" data-chart="{_e(c.name)}">{c.svg}'
+        f'<figure class="chart{" wide" if c.wide else ""}" id="chart-{_e(c.name)}" '
+        f'data-chart="{_e(c.name)}">{c.svg}'
         f"<figcaption>{_e(c.caption)}</figcaption></figure>"
         for c in charts
     )

@@ -52,7 +52,9 @@ STATUS_COLOURS = MappingProxyType(
 )
 
 FIGURE_SIZE = (6.4, 4.0)
-"""Inches; the SVG scales with the page width."""
+"""Inches; the SVG scales with the page width (two charts side by side)."""
+WIDE_FIGURE_SIZE = (11.0, 4.2)
+"""The holdout chart spans the page: time runs across it."""
 
 CHART_RC = MappingProxyType(
     {
@@ -92,7 +94,7 @@ PAGE_CSS = f"""
 * {{ box-sizing: border-box; }}
 body {{ margin: 0; font: 15px/1.45 system-ui, -apple-system, "Segoe UI", "DejaVu Sans",
   sans-serif; color: var(--ink); background: #F6F8FA; }}
-main {{ max-width: 1100px; margin: 0 auto; padding: 24px 20px 48px; }}
+main {{ max-width: 1240px; margin: 0 auto; padding: 24px 20px 48px; }}
 header.top {{ display: flex; flex-wrap: wrap; gap: 16px; align-items: center;
   justify-content: space-between; border-bottom: 1px solid var(--grid); padding-bottom: 14px; }}
 h1 {{ font-size: 22px; margin: 0; }}
@@ -124,7 +126,8 @@ th, td {{ text-align: left; padding: 6px 8px; border-bottom: 1px solid #EEF1F4;
 th {{ font-size: 12px; text-transform: uppercase; letter-spacing: .04em; color: var(--muted);
   white-space: nowrap; }}
 td.num, th.num {{ text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }}
-td.id {{ min-width: 14em; overflow-wrap: anywhere; }}
+td.id {{ min-width: 11em; overflow-wrap: anywhere; }}
+#series-table {{ font-size: 13.5px; }}
 table.sortable th {{ cursor: pointer; user-select: none; }}
 table.sortable th[aria-sort="ascending"]::after {{ content: " \\25B2"; }}
 table.sortable th[aria-sort="descending"]::after {{ content: " \\25BC"; }}
@@ -138,6 +141,7 @@ dl.facts dd {{ margin: 0; font-variant-numeric: tabular-nums; }}
 .charts {{ display: grid; grid-template-columns: repeat(auto-fit, minmax(460px, 1fr));
   gap: 8px 22px; }}
 figure.chart {{ margin: 14px 0 0; }}
+figure.chart.wide {{ grid-column: 1 / -1; }}
 figure.chart svg {{ width: 100%; height: auto; display: block; }}
 figure.chart figcaption {{ color: var(--muted); font-size: 13px; margin-top: 2px; }}
 .scroll {{ overflow-x: auto; }}
