@@ -6,6 +6,7 @@ import math
 
 import numpy as np
 
+from .catalogue import SPECS
 from .results import CheckResult
 
 _WARN, _FAIL = 2, 3
@@ -118,9 +119,10 @@ def fleet_message(
     warned_share: float, fail_share: float, warn_share: float, critical: bool,
 ) -> str:
     """The fleet-level sentence for one check."""
+    title = SPECS[name].title
     if tested == 0:
-        return f"{name}: no series could be tested."
-    head = (f"{name}: {failed} of {tested} series fail and {warned} warn "
+        return f"{title}: no series could be tested."
+    head = (f"{title}: {failed} of {tested} series fail and {warned} warn "
             f"({failed_share:.1%} of the weight fails, {warned_share:.1%} warns)")
     if code >= _FAIL:
         why = (" including a critical series" if critical and failed_share <= fail_share

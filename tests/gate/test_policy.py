@@ -1,0 +1,107 @@
+"""Gate policies: defaults, validation naming the field, JSON round trip."""
+
+from __future__ import annotations
+
+import json
+
+import pytest
+from hypothesis import given
+from hypothesis import strategies as st
+
+from service.core import CHECK_NAMES, InputError
+from service.core.policy import DEFAULT_CHECKS, Policy, PolicyError, default_policy
+
+
+def test_default_policy_follows_the_hierarchy():
+    p = default_policy()
+    assert p.name == "default" and p.version == 1
+    # Essential properties can fail a model: warn at adjusted p < 0.05, fail at < 0.01.
+    for name in ("bias", "ljung_box"):
+        assert (p.check(name).warn_p, p.check(name).fail_p) == (0.05, 0.01)
+    # Useful but not essential, and recent bias: warn only.
+    for name in ("arch_lm", "jarque_bera", "tracking_signal"):
+        assert p.check(name).fail_p is None and p.check(name).warn_p is not None
+    assert p.check("mase").warn_above == 1.0
+    assert p.check("mase").fail_above > 1.0
+    assert p.check("benchmark_skill").fail_below == 0.0
+    assert set(DEFAULT_CHECKS) == set(CHECK_NAMES)
+
+
+def test_policy_round_trips_through_json_unchanged():
+    p = default_policy()
+    again = Policy.from_dict(json.loads(json.dumps(p.to_dict())))
+    assert again == p
+    assert again.to_dict() == p.to_dict()
+
+
+@given(
+    warn=st.floats(0.001, 0.2),
+    ratio=st.floats(0.01, 1.0),
+    lags=st.none() | st.integers(1, 60),
+    window=st.integers(2, 52),
+    weighting=st.sampled_from(["volume", "count", "given"]),
+    critical=st.lists(st.text(min_size=1, max_size=8), max_size=3),
+    enabled=st.booleans(),
+)
+def test_any_valid_policy_round_trips(warn, ratio, lags, window, weighting, critical, enabled):
+    doc = {
+        "name": "nightly-strict",
+        "version": 3,
+        "checks": {
+            "ljung_box": {"warn_p": warn, "fail_p": warn * ratio, "lags": lags},
+            "tracking_signal": {"window": window, "enabled": enabled},
+            "mase": {"warn_above": 1.0, "fail_above": 1.0 + ratio},
+        },
+        "fleet": {"weighting": weighting, "critical_series": critical, "fail_share": 0.1},
+    }
+    p = Policy.from_dict(doc)
+    assert Policy.from_dict(json.loads(json.dumps(p.to_dict()))) == p
+    assert p.check("tracking_signal").enabled is enabled
+    assert p.check("ljung_box").lags == lags
+    assert p.fleet.critical_series == tuple(critical)
+
+
+@pytest.mark.parametrize(
+    ("doc", "loc"),
+    [
+        ({"checks": {"bias": {"fail_p": 2}}}, "checks.bias.fail_p"),
+        ({"checks": {"bias": {"fail_p": 0.1, "warn_p": 0.05}}}, "checks.bias.fail_p"),
+        ({"checks": {"bias": {"lags": 4}}}, "checks.bias.lags"),
+        ({"checks": {"ljung_box": {"lags": 0}}}, "checks.ljung_box.lags"),
+        ({"checks": {"ljung_box": {"lags": True}}}, "checks.ljung_box.lags"),
+        ({"checks": {"tracking_signal": {"window": 1}}}, "checks.tracking_signal.window"),
+        ({"checks": {"mase": {"warn_p": 0.05}}}, "checks.mase.warn_p"),
+        ({"checks": {"mase": {"warn_above": 3, "fail_above": 2}}}, "checks.mase.warn_above"),
+        ({"checks": {"nonsense": {}}}, "checks.nonsense"),
+        ({"checks": {"bias": "on"}}, "checks.bias"),
+        ({"checks": {"bias": {"enabled": "yes"}}}, "checks.bias.enabled"),
+        ({"checks": {"bias": {"warn_p": float("nan")}}}, "checks.bias.warn_p"),
+        ({"fleet": {"weighting": "revenue"}}, "fleet.weighting"),
+        ({"fleet": {"adjustment": "holm"}}, "fleet.adjustment"),
+        ({"fleet": {"fail_share": 1.5}}, "fleet.fail_share"),
+        ({"fleet": {"critical_series": "depot-1"}}, "fleet.critical_series"),
+        ({"fleet": {"colour": "red"}}, "fleet.colour"),
+        ({"name": ""}, "name"),
+        ({"version": 0}, "version"),
+        ({"extra": 1}, "extra"),
+    ],
+)
+def test_invalid_policies_name_the_field(doc, loc):
+    with pytest.raises(PolicyError) as info:
+        Policy.from_dict(doc)
+    assert loc in [e["loc"] for e in info.value.errors]
+    assert isinstance(info.value, InputError)
+
+
+def test_every_problem_is_reported_at_once():
+    with pytest.raises(PolicyError) as info:
+        Policy.from_dict({"checks": {"bias": {"fail_p": -1}, "mase": {"lags": 2}},
+                          "fleet": {"weighting": "x"}})
+    assert {e["loc"] for e in info.value.errors} == {
+        "checks.bias.fail_p", "checks.mase.lags", "fleet.weighting"}
+
+
+def test_unnamed_checks_keep_defaults_and_disabled_checks_are_off():
+    p = Policy.from_dict({"checks": {"jarque_bera": {"enabled": False}}})
+    assert "jarque_bera" not in p.enabled_checks
+    assert p.check("bias") == DEFAULT_CHECKS["bias"]
