@@ -1,0 +1,1 @@
+"""The REST service: build it with :func:`service.api.app.create_app`."""

@@ -1,0 +1,60 @@
+"""The application factory. Nothing is built at import time: call :func:`create_app`."""
+
+from __future__ import annotations
+
+from contextlib import asynccontextmanager
+from typing import Any
+
+from fastapi import FastAPI
+
+from service.settings import Settings
+from service.store import make_engine
+from service.store.migrate import upgrade_engine
+
+from .errors import install_error_handlers
+from .metrics import Metrics, MetricsMiddleware
+from .openapi import examples_dir, install_openapi, load_examples
+from .routers import assessments, checks, health, models, policies, tokens
+
+DESCRIPTION = """Plumbline gates forecasting model releases on residual diagnostics over whole
+fleets of series: bias, autocorrelation, changing variance, normality and holdout accuracy.
+A verdict is statistical evidence, not a guarantee.
+
+Every /v1 call needs `Authorization: Bearer <token>` with the scope it names (submit, read,
+admin). Errors are `application/problem+json` (RFC 9457) naming the field at fault."""
+
+
+def create_app(settings: Settings | None = None) -> FastAPI:
+    """Build the service for ``settings`` (default: read from the environment).
+
+    Makes the engine, applies the migrations (unless ``migrate_on_start`` is off) and wires the
+    routers, error mapping, metrics and OpenAPI examples.
+    """
+    settings = settings if settings is not None else Settings()
+    engine = make_engine(settings.database_url)
+    if settings.migrate_on_start:
+        upgrade_engine(engine)
+
+    @asynccontextmanager
+    async def lifespan(_app: FastAPI) -> Any:
+        yield
+        engine.dispose()
+
+    app = FastAPI(title="Plumbline", version="1", description=DESCRIPTION, lifespan=lifespan)
+    app.state.settings = settings
+    app.state.engine = engine
+    app.state.metrics = Metrics()
+    install_error_handlers(app)
+    for module in (assessments, models, checks, policies, tokens, health):
+        app.include_router(module.router)
+    install_openapi(app, load_examples(examples_dir(settings.examples_dir)))
+    if settings.cors_origins:
+        from fastapi.middleware.cors import CORSMiddleware
+
+        app.add_middleware(CORSMiddleware, allow_origins=settings.cors_origins,
+                           allow_methods=["GET", "POST", "DELETE"],
+                           allow_headers=["Authorization", "Content-Type", "Idempotency-Key",
+                                          "If-None-Match"],
+                           expose_headers=["ETag", "Location", "Link"])
+    app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
+    return app

@@ -1,0 +1,73 @@
+"""Finding the gate policy an assessment names: stored (newest or pinned ``name@3``), the
+built-in ``default``, or an inline policy document."""
+
+from __future__ import annotations
+
+import re
+from typing import Any
+
+from sqlalchemy import Engine
+
+from service.core.policy import Policy, PolicyError, default_policy
+from service.store import repository as repo
+
+from .errors import ApiError, policy_errors
+
+NAME_PATTERN = r"^[A-Za-z0-9][A-Za-z0-9._-]{0,99}$"
+_NAME = re.compile(NAME_PATTERN)
+BUILTIN_DEFAULT = "default"
+
+
+def valid_name(name: str) -> bool:
+    return bool(_NAME.match(name))
+
+
+def builtin_default() -> Policy:
+    return default_policy()
+
+
+def policy_from_document(document: dict[str, Any], *, loc: str = "policy") -> Policy:
+    """Validate a policy document with the gate (422 naming the field on a problem)."""
+    try:
+        return Policy.from_dict(document)
+    except PolicyError as exc:
+        errors = policy_errors(exc, prefix=loc)
+        raise ApiError(422, f"{errors[0]['loc']}: {errors[0]['message']}", errors=errors,
+                       slug="invalid-policy") from None
+
+
+def stored_or_builtin(engine: Engine, name: str, version: int | None = None
+                      ) -> tuple[Policy, dict[str, Any]] | None:
+    """The policy called ``name`` (newest, or ``version``) with its document, or ``None``.
+
+    The built-in default is version 1 of ``default``; stored versions of ``default`` follow it.
+    """
+    stored = repo.get_policy(engine, name=name, version=version)
+    if stored is not None:
+        return policy_from_document(stored.document, loc="policy"), stored.document
+    if name == BUILTIN_DEFAULT and version in (None, 1):
+        policy = builtin_default()
+        return policy, policy.to_dict()
+    return None
+
+
+def resolve(engine: Engine, spec: str | dict[str, Any]) -> tuple[Policy, dict[str, Any]]:
+    """The policy an assessment request names (``"name"``, ``"name@version"`` or a document)."""
+    if isinstance(spec, dict):
+        policy = policy_from_document(spec)
+        return policy, policy.to_dict()
+    name, at, pinned = spec.partition("@")
+    version: int | None = None
+    if at:
+        if not pinned.isdigit() or int(pinned) < 1:
+            raise ApiError(422, "policy: a pinned version is written name@N with N >= 1",
+                           errors=[{"loc": "policy", "message": f"bad version in {spec!r}"}])
+        version = int(pinned)
+    found = stored_or_builtin(engine, name, version) if valid_name(name) else None
+    if found is None:
+        what = f"policy {name!r}" + (f" version {version}" if version else "")
+        raise ApiError(422, f"policy: unknown {what}",
+                       errors=[{"loc": "policy", "message": f"unknown {what}; store it with "
+                                "POST /v1/policies or send the policy inline"}],
+                       slug="unknown-policy")
+    return found

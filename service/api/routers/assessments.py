@@ -1,0 +1,224 @@
+"""``/v1/assessments``: submit an assessment, list them, read one and its per-series rows."""
+
+from __future__ import annotations
+
+from datetime import datetime
+from typing import Annotated, Any
+from urllib.parse import urlencode
+
+import orjson
+from fastapi import APIRouter, Depends, Header, Query, Request
+from starlette.concurrency import run_in_threadpool
+from starlette.responses import Response
+
+from service.store import repository as repo
+
+from .. import assessing
+from ..auth import require
+from ..body import is_csv, is_json, media_type, read_body
+from ..csvout import to_csv, wants_csv
+from ..errors import ApiError
+from ..http import (
+    CSV,
+    JSON,
+    as_utc,
+    conditional,
+    decode_cursor,
+    encode_cursor,
+    json_body_doc,
+    problem_docs,
+)
+from ..schemas import AssessmentPage, AssessmentResult, SeriesRowPage, Verdict
+
+router = APIRouter(prefix="/v1/assessments", tags=["assessments"])
+
+_PROBLEMS = problem_docs(400, 401, 403, 409, 413, 415, 422)
+_READ_PROBLEMS = problem_docs(401, 403, 404, 422)
+SUMMARY_COLUMNS = ("id", "created_at", "model", "version", "verdict", "n_series", "n_failed",
+                   "n_warned", "policy_name", "policy_version")
+SERIES_COLUMNS = ("assessment_id", "series_id", "series_verdict", "n_obs", "check", "status",
+                  "statistic", "p_value", "p_adjusted", "message", "details")
+MAX_KEY_LENGTH = 200
+
+
+def _idempotency_key(value: str | None) -> str | None:
+    if value is None:
+        return None
+    key = value.strip()
+    if not key or len(key) > MAX_KEY_LENGTH or not key.isprintable():
+        raise ApiError(422, "Idempotency-Key must be 1 to 200 printable characters",
+                       errors=[{"loc": "header.Idempotency-Key",
+                                "message": "must be 1 to 200 printable characters"}])
+    return key
+
+
+@router.post(
+    "",
+    status_code=201,
+    response_model=AssessmentResult,
+    summary="Assess a model's residuals over a fleet of series",
+    responses={200: {"description": "A repeat of an Idempotency-Key with the same body (the "
+                     "stored result), or a store=false computation"}, **_PROBLEMS},
+    openapi_extra=json_body_doc("AssessmentBody", csv=True),
+)
+async def post_assessment(
+    request: Request,
+    principal: Annotated[Any, Depends(require("submit"))],
+    store: Annotated[bool, Query(description="false: compute without storing (id is null)")]
+    = True,
+    idempotency_key: Annotated[str | None, Header(alias="Idempotency-Key")] = None,
+    model: Annotated[str | None, Query(description="CSV uploads: the model name")] = None,
+    version: Annotated[str | None, Query(description="CSV uploads: the model version")] = None,
+    policy: Annotated[str | None, Query(description="CSV uploads: a stored policy name")] = None,
+    season_length: Annotated[int | None, Query(description="CSV uploads")] = None,
+    model_params: Annotated[int | None, Query(description="CSV uploads")] = None,
+    level: Annotated[float | None, Query(description="CSV uploads: interval level")] = None,
+) -> Response:
+    """Body: JSON (the shape in the contract) or ``text/csv`` long format with the model,
+    version, policy, season_length, model_params and level as query parameters."""
+    kind_raw = media_type(request)
+    if is_json(kind_raw):
+        kind = "json"
+    elif is_csv(kind_raw):
+        kind = "csv"
+    else:
+        raise ApiError(415, f"Content-Type must be application/json or text/csv, got "
+                       f"{kind_raw or 'none'}")
+    key = _idempotency_key(idempotency_key)
+    state = request.app.state
+    body = await read_body(request, state.settings.max_body_bytes)
+    params = {k: v for k, v in request.query_params.items() if k != "store"}
+    digest = assessing.body_hash(kind, params if kind == "csv" else {}, body)
+
+    def work() -> assessing.Outcome:
+        if key is not None and store:
+            again = assessing.replay(state.engine, key, digest)
+            if again is not None:
+                return again
+        req = assessing.parse(kind, body, params, state.settings)
+        return assessing.run(state.engine, req, store=store,
+                             idempotency_key=key if store else None, digest=digest)
+
+    outcome = await run_in_threadpool(work)
+    headers: dict[str, str] = {}
+    if outcome.assessment_id is not None:
+        headers["Location"] = f"/v1/assessments/{outcome.assessment_id}"
+    if outcome.replayed:
+        headers["Idempotent-Replayed"] = "true"
+        return Response(outcome.body, status_code=200, media_type=JSON, headers=headers)
+    state.metrics.assessments.labels(outcome.verdict, "true" if store else "false").inc()
+    state.metrics.series.inc(outcome.n_series)
+    return Response(outcome.body, status_code=201 if store else 200, media_type=JSON,
+                    headers=headers)
+
+
+@router.get(
+    "",
+    response_model=AssessmentPage,
+    summary="List assessments, newest first",
+    responses={200: {"content": {"text/csv": {}}}, 304: {"description": "Not modified"},
+               **_READ_PROBLEMS},
+)
+def list_assessments(
+    request: Request,
+    principal: Annotated[Any, Depends(require("read"))],
+    model: str | None = None,
+    version: str | None = None,
+    verdict: Verdict | None = None,
+    since: Annotated[datetime | None, Query(description="created at or after (ISO 8601)")]
+    = None,
+    until: Annotated[datetime | None, Query(description="created before (ISO 8601)")] = None,
+    limit: Annotated[int, Query(ge=1)] = 50,
+    cursor: str | None = None,
+) -> Response:
+    """Summary rows (``Accept: text/csv`` for CSV). Responses carry an ``ETag``; send it back
+    in ``If-None-Match`` to get 304 when nothing changed."""
+    settings = request.app.state.settings
+    if limit > settings.page_limit_max:
+        raise ApiError(422, f"limit: at most {settings.page_limit_max}",
+                       errors=[{"loc": "query.limit",
+                                "message": f"must be at most {settings.page_limit_max}"}])
+    before = None if cursor is None else decode_cursor(cursor)
+    rows = repo.list_assessments(
+        request.app.state.engine, model=model, version=version, verdict=verdict,
+        since=as_utc(since), until=as_utc(until), before_seq=before, limit=limit + 1,
+    )
+    more = len(rows) > limit
+    rows = rows[:limit]
+    next_cursor = encode_cursor(rows[-1].seq) if more else None
+    headers = {}
+    if next_cursor is not None:
+        query = dict(request.query_params)
+        query["cursor"] = next_cursor
+        headers["Link"] = f'</v1/assessments?{urlencode(query)}>; rel="next"'
+    if wants_csv(request.headers.get("accept")):
+        body = to_csv(SUMMARY_COLUMNS, (
+            (r.id, r.created_at.isoformat(), r.model, r.version, r.verdict, r.n_series,
+             r.n_failed, r.n_warned, r.policy_name, r.policy_version) for r in rows
+        ))
+        return conditional(request, body, CSV, headers)
+    body = orjson.dumps({"items": [r.to_dict() for r in rows], "next_cursor": next_cursor})
+    return conditional(request, body, JSON, headers)
+
+
+def _stored(request: Request, assessment_id: str) -> repo.StoredAssessment:
+    found = repo.get_assessment(request.app.state.engine, assessment_id=assessment_id)
+    if found is None:
+        raise ApiError(404, f"no assessment with id {assessment_id!r}")
+    return found
+
+
+@router.get(
+    "/{assessment_id}",
+    response_model=AssessmentResult,
+    summary="One assessment's full result, as the POST returned it",
+    responses={304: {"description": "Not modified"}, **_READ_PROBLEMS},
+)
+def get_assessment(
+    request: Request, assessment_id: str,
+    principal: Annotated[Any, Depends(require("read"))],
+) -> Response:
+    return conditional(request, _stored(request, assessment_id).to_json(), JSON)
+
+
+def series_rows(assessment_id: str, series: list[dict[str, Any]], check: str | None,
+                status: str | None) -> list[dict[str, Any]]:
+    rows = []
+    for s in series:
+        for c in s.get("checks", ()):
+            if check is not None and c.get("name") != check:
+                continue
+            if status is not None and c.get("status") != status:
+                continue
+            rows.append({
+                "assessment_id": assessment_id, "series_id": s["id"],
+                "series_verdict": s.get("verdict"), "n_obs": s.get("n_obs"),
+                "check": c.get("name"), "status": c.get("status"),
+                "statistic": c.get("statistic"), "p_value": c.get("p_value"),
+                "p_adjusted": c.get("p_adjusted"), "message": c.get("message"),
+                "details": c.get("details") or {},
+            })
+    return rows
+
+
+@router.get(
+    "/{assessment_id}/series",
+    response_model=SeriesRowPage,
+    summary="One flat row per series and check (JSON or CSV)",
+    responses={200: {"content": {"text/csv": {}}}, 304: {"description": "Not modified"},
+               **_READ_PROBLEMS},
+)
+def get_series_rows(
+    request: Request, assessment_id: str,
+    principal: Annotated[Any, Depends(require("read"))],
+    check: Annotated[str | None, Query(description="only this check")] = None,
+    status: Annotated[str | None, Query(description="only rows with this status")] = None,
+) -> Response:
+    stored = _stored(request, assessment_id)
+    series = [orjson.loads(s) for s in stored.series]
+    rows = series_rows(assessment_id, series, check, status)
+    if wants_csv(request.headers.get("accept")):
+        body = to_csv(SERIES_COLUMNS, ([r[c] for c in SERIES_COLUMNS] for r in rows))
+        return conditional(request, body, CSV)
+    body = orjson.dumps({"assessment_id": assessment_id, "items": rows})
+    return conditional(request, body, JSON)

@@ -1,0 +1,62 @@
+"""``/v1/models/{model}/verdict``: may this model ship? The latest verdict, with ``require``."""
+
+from __future__ import annotations
+
+from typing import Annotated, Any
+
+from fastapi import APIRouter, Depends, Query, Request
+from starlette.responses import Response
+
+from service.store import repository as repo
+
+from ..auth import require
+from ..errors import ApiError
+from ..http import json_response, problem_docs
+from ..schemas import ModelVerdict
+
+router = APIRouter(prefix="/v1/models", tags=["models"])
+
+# Which verdicts satisfy each ``require`` level.
+MEETS = {"pass": frozenset({"pass"}), "warn": frozenset({"pass", "warn"})}
+
+
+@router.get(
+    "/{model:path}/verdict",
+    response_model=ModelVerdict,
+    summary="The latest verdict of a model (optionally of one version)",
+    responses={412: {"model": ModelVerdict, "description": "require not met: the same body as "
+                     "200, as problem+json", "content": {"application/problem+json": {}}},
+               **problem_docs(401, 403, 404, 422)},
+)
+def latest_verdict(
+    request: Request,
+    model: str,
+    principal: Annotated[Any, Depends(require("read"))],
+    version: str | None = None,
+    require_: Annotated[str | None, Query(
+        alias="require", pattern="^(pass|warn)$",
+        description="pass: 200 only on pass; warn: 200 on pass or warn; else 412")] = None,
+) -> Response:
+    found = repo.latest_assessment(request.app.state.engine, model=model, version=version)
+    if found is None:
+        what = f"model {model!r}" + (f" version {version!r}" if version is not None else "")
+        raise ApiError(404, f"no assessment of {what}")
+    body: dict[str, Any] = {
+        "model": found.model,
+        "version": found.version,
+        "verdict": found.verdict,
+        "assessment_id": found.id,
+        "created_at": found.created_at.isoformat(),
+        "policy": {"name": found.policy_name, "version": found.policy_version},
+    }
+    if require_ is None:
+        return json_response(body)
+    met = found.verdict in MEETS[require_]
+    body["require"] = require_
+    body["met"] = met
+    if met:
+        return json_response(body)
+    allowed = " or ".join(sorted(MEETS[require_], reverse=True))
+    raise ApiError(412, f"the latest verdict of {model!r} version {found.version!r} is "
+                   f"{found.verdict!r}; require={require_} needs {allowed}",
+                   slug="require-not-met", extra=body)

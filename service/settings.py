@@ -1,0 +1,51 @@
+"""The service's settings: one class, read from ``PLUMBLINE_*`` environment variables.
+
+Nothing is read at import time: call :func:`Settings` (or :func:`load_settings`) where needed.
+"""
+
+from __future__ import annotations
+
+from pydantic import Field, SecretStr
+from pydantic_settings import BaseSettings, SettingsConfigDict
+
+MIB = 1024 * 1024
+
+
+class Settings(BaseSettings):
+    """Every knob of the service. Each field ``x`` is read from ``PLUMBLINE_X``."""
+
+    model_config = SettingsConfigDict(env_prefix="PLUMBLINE_", extra="ignore")
+
+    database_url: str = Field(
+        default="sqlite:///plumbline.db",
+        description="SQLAlchemy URL; default an SQLite file plumbline.db in the working directory.",
+    )
+    admin_token: SecretStr | None = Field(
+        default=None, description="A bearer token that holds every scope (containers, CI)."
+    )
+    max_body_bytes: int = Field(default=64 * MIB, ge=1, description="Largest request body.")
+    max_series: int = Field(default=100_000, ge=1, description="Most series in one assessment.")
+    max_series_length: int = Field(
+        default=100_000, ge=1, description="Most periods in one series (training or holdout)."
+    )
+    link_secret: SecretStr | None = Field(
+        default=None, description="Key that signs shareable report links (HMAC)."
+    )
+    link_ttl_seconds: int = Field(
+        default=7 * 24 * 3600, ge=1, description="How long a signed report link stays valid."
+    )
+    cors_origins: list[str] = Field(
+        default_factory=list, description="Origins allowed by CORS; none by default."
+    )
+    page_limit_max: int = Field(default=500, ge=1, description="Largest page in list endpoints.")
+    examples_dir: str | None = Field(
+        default=None, description="Folder of OpenAPI examples (default: the source checkout's)."
+    )
+    migrate_on_start: bool = Field(
+        default=True, description="Apply database migrations when the app starts."
+    )
+
+
+def load_settings() -> Settings:
+    """Settings from the current environment."""
+    return Settings()

@@ -1,0 +1,128 @@
+"""ORM models: assessments, their per-series results and inputs, policies, tokens, keys.
+
+JSON documents are kept as text written by orjson (a stored result is handed back byte for byte);
+per-series number arrays are packed little-endian float64 bytes (``NaN`` for missing values).
+"""
+
+from __future__ import annotations
+
+from datetime import datetime
+
+from sqlalchemy import (
+    DateTime,
+    Float,
+    ForeignKey,
+    Index,
+    Integer,
+    LargeBinary,
+    String,
+    Text,
+    UniqueConstraint,
+)
+from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
+
+
+class Base(DeclarativeBase):
+    pass
+
+
+class AssessmentRow(Base):
+    """One assessment: its summary columns for listing and the result without its series."""
+
+    __tablename__ = "assessments"
+
+    seq: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    id: Mapped[str] = mapped_column(String(32), unique=True, nullable=False)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)
+    model: Mapped[str] = mapped_column(String(200), nullable=False)
+    version: Mapped[str] = mapped_column(String(200), nullable=False)
+    verdict: Mapped[str] = mapped_column(String(8), nullable=False)
+    n_series: Mapped[int] = mapped_column(Integer, nullable=False)
+    n_failed: Mapped[int] = mapped_column(Integer, nullable=False)
+    n_warned: Mapped[int] = mapped_column(Integer, nullable=False)
+    policy_name: Mapped[str] = mapped_column(String(200), nullable=False)
+    policy_version: Mapped[int] = mapped_column(Integer, nullable=False)
+    policy_document: Mapped[str] = mapped_column(Text, nullable=False)
+    result: Mapped[str] = mapped_column(Text, nullable=False)
+
+    __table_args__ = (
+        Index("ix_assessments_model_seq", "model", "seq"),
+        Index("ix_assessments_model_version_seq", "model", "version", "seq"),
+    )
+
+
+class SeriesResultRow(Base):
+    """One series' result within an assessment (its JSON as in the response)."""
+
+    __tablename__ = "series_results"
+
+    assessment_seq: Mapped[int] = mapped_column(
+        ForeignKey("assessments.seq", ondelete="CASCADE"), primary_key=True
+    )
+    position: Mapped[int] = mapped_column(Integer, primary_key=True)
+    series_id: Mapped[str] = mapped_column(String(200), nullable=False)
+    verdict: Mapped[str] = mapped_column(String(8), nullable=False)
+    n_obs: Mapped[int] = mapped_column(Integer, nullable=False)
+    result: Mapped[str] = mapped_column(Text, nullable=False)
+
+
+class SeriesInputRow(Base):
+    """The numbers one series was assessed on, kept so a report can redraw its charts."""
+
+    __tablename__ = "series_inputs"
+
+    assessment_seq: Mapped[int] = mapped_column(
+        ForeignKey("assessments.seq", ondelete="CASCADE"), primary_key=True
+    )
+    position: Mapped[int] = mapped_column(Integer, primary_key=True)
+    series_id: Mapped[str] = mapped_column(String(200), nullable=False)
+    weight: Mapped[float | None] = mapped_column(Float, nullable=True)
+    actuals: Mapped[bytes] = mapped_column(LargeBinary, nullable=False)
+    fitted: Mapped[bytes] = mapped_column(LargeBinary, nullable=False)
+    timestamps: Mapped[str | None] = mapped_column(Text, nullable=True)
+    holdout_actuals: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True)
+    holdout_forecasts: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True)
+    holdout_lower: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True)
+    holdout_upper: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True)
+    holdout_level: Mapped[float | None] = mapped_column(Float, nullable=True)
+    holdout_timestamps: Mapped[str | None] = mapped_column(Text, nullable=True)
+
+
+class PolicyRow(Base):
+    """One version of a named gate policy."""
+
+    __tablename__ = "policies"
+
+    id: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    name: Mapped[str] = mapped_column(String(200), nullable=False)
+    version: Mapped[int] = mapped_column(Integer, nullable=False)
+    document: Mapped[str] = mapped_column(Text, nullable=False)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)
+
+    __table_args__ = (UniqueConstraint("name", "version", name="uq_policies_name_version"),)
+
+
+class TokenRow(Base):
+    """An API token: only its SHA-256 hash is kept."""
+
+    __tablename__ = "tokens"
+
+    id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    token_hash: Mapped[str] = mapped_column(String(64), unique=True, nullable=False)
+    scopes: Mapped[str] = mapped_column(String(200), nullable=False)
+    label: Mapped[str] = mapped_column(String(200), nullable=False, default="")
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)
+    revoked_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+
+
+class IdempotencyKeyRow(Base):
+    """An ``Idempotency-Key`` seen with a body (by hash) and the assessment it produced."""
+
+    __tablename__ = "idempotency_keys"
+
+    key: Mapped[str] = mapped_column(String(200), primary_key=True)
+    body_hash: Mapped[str] = mapped_column(String(64), nullable=False)
+    assessment_seq: Mapped[int] = mapped_column(
+        ForeignKey("assessments.seq", ondelete="CASCADE"), nullable=False
+    )
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)

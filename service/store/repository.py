@@ -1,0 +1,505 @@
+"""Repository functions: every read and write the service makes, keyword arguments only.
+
+An assessment, all its per-series result rows, its per-series inputs and its idempotency key are
+written by :func:`save_assessment` in one transaction: after a crash either all of it is there or
+none of it.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import hmac
+import secrets
+import uuid
+from collections.abc import Sequence
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from typing import Any
+
+import numpy as np
+import orjson
+from sqlalchemy import Engine, func, insert, select, update
+from sqlalchemy.exc import IntegrityError
+
+from .models import (
+    AssessmentRow,
+    IdempotencyKeyRow,
+    PolicyRow,
+    SeriesInputRow,
+    SeriesResultRow,
+    TokenRow,
+)
+
+A = AssessmentRow.__table__
+SR = SeriesResultRow.__table__
+SI = SeriesInputRow.__table__
+P = PolicyRow.__table__
+T = TokenRow.__table__
+K = IdempotencyKeyRow.__table__
+
+TOKEN_PREFIX = "plb_"
+SCOPES = ("submit", "read", "admin")
+
+
+def utcnow() -> datetime:
+    return datetime.now(UTC)
+
+
+def _aware(value: datetime) -> datetime:
+    """SQLite hands datetimes back without their zone; they were written in UTC."""
+    return value if value.tzinfo is not None else value.replace(tzinfo=UTC)
+
+
+def new_id() -> str:
+    return uuid.uuid4().hex
+
+
+def pack(values: np.ndarray | None) -> bytes | None:
+    """Float64 little-endian bytes (``NaN`` for missing values)."""
+    return None if values is None else np.ascontiguousarray(values, dtype="<f8").tobytes()
+
+
+def unpack(blob: bytes | None) -> np.ndarray | None:
+    return None if blob is None else np.frombuffer(blob, dtype="<f8")
+
+
+# ---------------------------------------------------------------------------------------------
+# Assessments
+
+
+@dataclass(frozen=True)
+class SeriesInput:
+    """The numbers one series was assessed on (training arrays as sent, holdout if any)."""
+
+    series_id: str
+    weight: float | None
+    actuals: np.ndarray
+    fitted: np.ndarray
+    timestamps: list[str] | None = None
+    holdout_actuals: np.ndarray | None = None
+    holdout_forecasts: np.ndarray | None = None
+    holdout_lower: np.ndarray | None = None
+    holdout_upper: np.ndarray | None = None
+    holdout_level: float | None = None
+    holdout_timestamps: list[str] | None = None
+
+
+@dataclass(frozen=True)
+class AssessmentSummary:
+    """A row of the assessments list."""
+
+    seq: int
+    id: str
+    created_at: datetime
+    model: str
+    version: str
+    verdict: str
+    n_series: int
+    n_failed: int
+    n_warned: int
+    policy_name: str
+    policy_version: int
+
+    def to_dict(self) -> dict[str, Any]:
+        return {
+            "id": self.id,
+            "created_at": self.created_at.isoformat(),
+            "model": self.model,
+            "version": self.version,
+            "verdict": self.verdict,
+            "n_series": self.n_series,
+            "n_failed": self.n_failed,
+            "n_warned": self.n_warned,
+            "policy": {"name": self.policy_name, "version": self.policy_version},
+        }
+
+
+@dataclass(frozen=True)
+class StoredAssessment:
+    """A stored assessment: ``head`` is the result without its series (JSON bytes), ``series``
+    the JSON bytes of each series' result in input order."""
+
+    summary: AssessmentSummary
+    head: bytes
+    series: list[bytes]
+
+    def to_json(self) -> bytes:
+        """The full result as the POST returned it, without re-encoding the stored JSON."""
+        head = self.head
+        assert head.endswith(b"}")
+        glue = b"," if len(head) > 2 else b""
+        return head[:-1] + glue + b'"series":[' + b",".join(self.series) + b"]}"
+
+
+_SUMMARY_COLUMNS = (
+    A.c.seq, A.c.id, A.c.created_at, A.c.model, A.c.version, A.c.verdict, A.c.n_series,
+    A.c.n_failed, A.c.n_warned, A.c.policy_name, A.c.policy_version,
+)
+
+
+def _summary(row: Any) -> AssessmentSummary:
+    return AssessmentSummary(
+        seq=row.seq, id=row.id, created_at=_aware(row.created_at), model=row.model,
+        version=row.version, verdict=row.verdict, n_series=row.n_series, n_failed=row.n_failed,
+        n_warned=row.n_warned, policy_name=row.policy_name, policy_version=row.policy_version,
+    )
+
+
+class IdempotencyConflict(Exception):
+    """The idempotency key was already used with another body."""
+
+
+@dataclass(frozen=True)
+class SeriesResult:
+    """One series' result, already encoded as the JSON the API returns."""
+
+    series_id: str
+    verdict: str
+    n_obs: int
+    json: bytes
+
+
+def save_assessment(
+    engine: Engine,
+    *,
+    assessment_id: str,
+    created_at: datetime,
+    model: str,
+    version: str,
+    verdict: str,
+    n_failed: int,
+    n_warned: int,
+    policy_name: str,
+    policy_version: int,
+    policy_document: dict[str, Any],
+    head: bytes,
+    series: Sequence[SeriesResult],
+    inputs: Sequence[SeriesInput],
+    idempotency_key: str | None = None,
+    body_hash: str | None = None,
+) -> AssessmentSummary:
+    """Write an assessment with all its series rows (and its idempotency key) atomically.
+
+    ``head`` is the JSON of the result without ``series``; ``series`` the per-series results in
+    input order, ``inputs`` the numbers they were computed from (bulk inserted). Raises
+    :class:`IdempotencyConflict` when the key was taken meanwhile by another request.
+    """
+    result_rows = [
+        {"position": i, "series_id": s.series_id, "verdict": s.verdict, "n_obs": s.n_obs,
+         "result": s.json.decode()}
+        for i, s in enumerate(series)
+    ]
+    input_rows = [
+        {
+            "position": i,
+            "series_id": s.series_id,
+            "weight": s.weight,
+            "actuals": pack(s.actuals),
+            "fitted": pack(s.fitted),
+            "timestamps": None if s.timestamps is None else orjson.dumps(s.timestamps).decode(),
+            "holdout_actuals": pack(s.holdout_actuals),
+            "holdout_forecasts": pack(s.holdout_forecasts),
+            "holdout_lower": pack(s.holdout_lower),
+            "holdout_upper": pack(s.holdout_upper),
+            "holdout_level": s.holdout_level,
+            "holdout_timestamps": None if s.holdout_timestamps is None
+            else orjson.dumps(s.holdout_timestamps).decode(),
+        }
+        for i, s in enumerate(inputs)
+    ]
+    try:
+        with engine.begin() as conn:
+            seq = conn.execute(
+                insert(A).returning(A.c.seq),
+                {
+                    "id": assessment_id, "created_at": created_at, "model": model,
+                    "version": version, "verdict": verdict, "n_series": len(series),
+                    "n_failed": n_failed, "n_warned": n_warned, "policy_name": policy_name,
+                    "policy_version": policy_version,
+                    "policy_document": orjson.dumps(policy_document).decode(),
+                    "result": head.decode(),
+                },
+            ).scalar_one()
+            for row in result_rows:
+                row["assessment_seq"] = seq
+            for row in input_rows:
+                row["assessment_seq"] = seq
+            if result_rows:
+                conn.execute(insert(SR), result_rows)
+            if input_rows:
+                conn.execute(insert(SI), input_rows)
+            if idempotency_key is not None:
+                conn.execute(insert(K), {"key": idempotency_key, "body_hash": body_hash,
+                                         "assessment_seq": seq, "created_at": created_at})
+    except IntegrityError:
+        if idempotency_key is not None and find_idempotency_key(
+            engine, key=idempotency_key
+        ) is not None:
+            raise IdempotencyConflict(idempotency_key) from None
+        raise
+    return AssessmentSummary(
+        seq=seq, id=assessment_id, created_at=created_at, model=model, version=version,
+        verdict=verdict, n_series=len(series), n_failed=n_failed, n_warned=n_warned,
+        policy_name=policy_name, policy_version=policy_version,
+    )
+
+
+def get_assessment(engine: Engine, *, assessment_id: str) -> StoredAssessment | None:
+    """The stored assessment with this id, or ``None``."""
+    with engine.connect() as conn:
+        row = conn.execute(
+            select(*_SUMMARY_COLUMNS, A.c.result).where(A.c.id == assessment_id)
+        ).first()
+        if row is None:
+            return None
+        series = conn.execute(
+            select(SR.c.result).where(SR.c.assessment_seq == row.seq).order_by(SR.c.position)
+        ).scalars().all()
+    return StoredAssessment(
+        summary=_summary(row), head=row.result.encode(), series=[s.encode() for s in series]
+    )
+
+
+def get_assessment_by_seq(engine: Engine, *, seq: int) -> StoredAssessment | None:
+    with engine.connect() as conn:
+        found = conn.execute(select(A.c.id).where(A.c.seq == seq)).scalar()
+    return None if found is None else get_assessment(engine, assessment_id=found)
+
+
+def list_assessments(
+    engine: Engine,
+    *,
+    model: str | None = None,
+    version: str | None = None,
+    verdict: str | None = None,
+    since: datetime | None = None,
+    until: datetime | None = None,
+    before_seq: int | None = None,
+    limit: int = 50,
+) -> list[AssessmentSummary]:
+    """Summaries, newest first; ``before_seq`` continues a page (the cursor)."""
+    q = select(*_SUMMARY_COLUMNS)
+    if model is not None:
+        q = q.where(A.c.model == model)
+    if version is not None:
+        q = q.where(A.c.version == version)
+    if verdict is not None:
+        q = q.where(A.c.verdict == verdict)
+    if since is not None:
+        q = q.where(A.c.created_at >= since)
+    if until is not None:
+        q = q.where(A.c.created_at < until)
+    if before_seq is not None:
+        q = q.where(A.c.seq < before_seq)
+    q = q.order_by(A.c.seq.desc()).limit(limit)
+    with engine.connect() as conn:
+        return [_summary(r) for r in conn.execute(q)]
+
+
+def latest_assessment(
+    engine: Engine, *, model: str, version: str | None = None
+) -> AssessmentSummary | None:
+    """The newest assessment of ``model`` (and ``version``), or ``None``."""
+    found = list_assessments(engine, model=model, version=version, limit=1)
+    return found[0] if found else None
+
+
+def series_results(engine: Engine, *, assessment_id: str) -> list[dict[str, Any]] | None:
+    """The per-series result dicts of an assessment (``None`` when it does not exist)."""
+    stored = get_assessment(engine, assessment_id=assessment_id)
+    if stored is None:
+        return None
+    return [orjson.loads(s) for s in stored.series]
+
+
+def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | None:
+    """The stored input arrays of every series, in input order (``None``: no such id)."""
+    with engine.connect() as conn:
+        seq = conn.execute(select(A.c.seq).where(A.c.id == assessment_id)).scalar()
+        if seq is None:
+            return None
+        rows = conn.execute(
+            select(SI).where(SI.c.assessment_seq == seq).order_by(SI.c.position)
+        ).all()
+    return [
+        SeriesInput(
+            series_id=r.series_id, weight=r.weight, actuals=unpack(r.actuals),  # type: ignore[arg-type]
+            fitted=unpack(r.fitted),  # type: ignore[arg-type]
+            timestamps=None if r.timestamps is None else orjson.loads(r.timestamps),
+            holdout_actuals=unpack(r.holdout_actuals),
+            holdout_forecasts=unpack(r.holdout_forecasts),
+            holdout_lower=unpack(r.holdout_lower), holdout_upper=unpack(r.holdout_upper),
+            holdout_level=r.holdout_level,
+            holdout_timestamps=None if r.holdout_timestamps is None
+            else orjson.loads(r.holdout_timestamps),
+        )
+        for r in rows
+    ]
+
+
+def change_marker(engine: Engine) -> tuple[int, int]:
+    """``(newest seq, count)`` of assessments: changes whenever one is added or removed."""
+    with engine.connect() as conn:
+        row = conn.execute(select(func.coalesce(func.max(A.c.seq), 0), func.count())).one()
+    return int(row[0]), int(row[1])
+
+
+# ---------------------------------------------------------------------------------------------
+# Idempotency keys
+
+
+@dataclass(frozen=True)
+class IdempotencyRecord:
+    key: str
+    body_hash: str
+    assessment_seq: int
+
+
+def find_idempotency_key(engine: Engine, *, key: str) -> IdempotencyRecord | None:
+    with engine.connect() as conn:
+        row = conn.execute(select(K).where(K.c.key == key)).first()
+    if row is None:
+        return None
+    return IdempotencyRecord(key=row.key, body_hash=row.body_hash,
+                             assessment_seq=row.assessment_seq)
+
+
+# ---------------------------------------------------------------------------------------------
+# Policies
+
+
+@dataclass(frozen=True)
+class StoredPolicy:
+    name: str
+    version: int
+    document: dict[str, Any]
+    created_at: datetime
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"name": self.name, "version": self.version, "created_at":
+                self.created_at.isoformat(), "document": self.document}
+
+
+def save_policy(
+    engine: Engine, *, name: str, document: dict[str, Any], first_version: int = 1,
+    attempts: int = 5,
+) -> StoredPolicy:
+    """Store ``document`` as the next version of policy ``name`` (``first_version`` if new).
+
+    ``document`` is called with ``document["version"]`` set to the version assigned.
+    """
+    for _ in range(attempts):
+        created = utcnow()
+        try:
+            with engine.begin() as conn:
+                current = conn.execute(
+                    select(func.max(P.c.version)).where(P.c.name == name)
+                ).scalar()
+                version = first_version if current is None else int(current) + 1
+                doc = {**document, "name": name, "version": version}
+                conn.execute(insert(P), {"name": name, "version": version, "created_at": created,
+                                         "document": orjson.dumps(doc).decode()})
+            return StoredPolicy(name=name, version=version, document=doc, created_at=created)
+        except IntegrityError:  # a concurrent writer took that version: try the next one
+            continue
+    raise RuntimeError(f"could not assign a version to policy {name!r}")
+
+
+def get_policy(engine: Engine, *, name: str, version: int | None = None) -> StoredPolicy | None:
+    """Version ``version`` of policy ``name`` (default: the newest), or ``None``."""
+    q = select(P).where(P.c.name == name)
+    q = q.where(P.c.version == version) if version is not None else q.order_by(
+        P.c.version.desc()).limit(1)
+    with engine.connect() as conn:
+        row = conn.execute(q).first()
+    if row is None:
+        return None
+    return StoredPolicy(name=row.name, version=row.version, document=orjson.loads(row.document),
+                        created_at=_aware(row.created_at))
+
+
+def list_policies(engine: Engine) -> list[StoredPolicy]:
+    """The newest version of every stored policy, by name."""
+    newest = select(P.c.name, func.max(P.c.version).label("v")).group_by(P.c.name).subquery()
+    q = select(P).join(newest, (P.c.name == newest.c.name) & (P.c.version == newest.c.v))
+    with engine.connect() as conn:
+        rows = conn.execute(q.order_by(P.c.name)).all()
+    return [StoredPolicy(name=r.name, version=r.version, document=orjson.loads(r.document),
+                         created_at=_aware(r.created_at)) for r in rows]
+
+
+# ---------------------------------------------------------------------------------------------
+# Tokens
+
+
+def hash_token(token: str) -> str:
+    return hashlib.sha256(token.encode("utf-8")).hexdigest()
+
+
+@dataclass(frozen=True)
+class StoredToken:
+    id: str
+    scopes: tuple[str, ...]
+    label: str
+    created_at: datetime
+    revoked_at: datetime | None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"id": self.id, "scopes": list(self.scopes), "label": self.label,
+                "created_at": self.created_at.isoformat(),
+                "revoked_at": None if self.revoked_at is None else self.revoked_at.isoformat()}
+
+
+def _token(row: Any) -> StoredToken:
+    return StoredToken(id=row.id, scopes=tuple(row.scopes.split()), label=row.label,
+                       created_at=_aware(row.created_at),
+                       revoked_at=None if row.revoked_at is None else _aware(row.revoked_at))
+
+
+def create_token(
+    engine: Engine, *, scopes: Sequence[str], label: str = ""
+) -> tuple[StoredToken, str]:
+    """Mint a token; returns its record and the secret (shown once, only its hash is kept)."""
+    secret = TOKEN_PREFIX + secrets.token_urlsafe(32)
+    row = {"id": new_id(), "token_hash": hash_token(secret), "scopes": " ".join(scopes),
+           "label": label, "created_at": utcnow(), "revoked_at": None}
+    with engine.begin() as conn:
+        conn.execute(insert(T), row)
+    return StoredToken(id=row["id"], scopes=tuple(scopes), label=label,
+                       created_at=row["created_at"], revoked_at=None), secret
+
+
+def find_token(engine: Engine, *, secret: str) -> StoredToken | None:
+    """The live (not revoked) token whose secret is ``secret``, or ``None``.
+
+    Looked up by its SHA-256 hash, then the stored hash is compared in constant time.
+    """
+    digest = hash_token(secret)
+    with engine.connect() as conn:
+        row = conn.execute(select(T).where(T.c.token_hash == digest)).first()
+    if row is None or not hmac.compare_digest(row.token_hash, digest):
+        return None
+    if row.revoked_at is not None:
+        return None
+    return _token(row)
+
+
+def revoke_token(engine: Engine, *, token_id: str) -> bool:
+    """Revoke a token; ``False`` when no live token has that id."""
+    with engine.begin() as conn:
+        done = conn.execute(
+            update(T).where(T.c.id == token_id, T.c.revoked_at.is_(None)).values(
+                revoked_at=utcnow())
+        )
+    return bool(done.rowcount)
+
+
+def list_tokens(engine: Engine) -> list[StoredToken]:
+    with engine.connect() as conn:
+        return [_token(r) for r in conn.execute(select(T).order_by(T.c.created_at))]
+
+
+def count_tokens(engine: Engine) -> int:
+    """Tokens ever created (revoked ones included)."""
+    with engine.connect() as conn:
+        return int(conn.execute(select(func.count()).select_from(T)).scalar_one())

@@ -1,0 +1,105 @@
+"""Shared fixtures: a clean database per test on SQLite and on PostgreSQL.
+
+PostgreSQL comes from ``PLUMBLINE_TEST_POSTGRES_URL`` (default: the local server on
+127.0.0.1:5432, database ``test``). With ``PLUMBLINE_REQUIRE_POSTGRES=1`` (as CI sets) an
+unreachable server fails the PostgreSQL tests instead of skipping them. Each PostgreSQL test
+gets a schema of its own (created, migrated, dropped afterwards).
+"""
+
+from __future__ import annotations
+
+import os
+import uuid
+from collections.abc import Iterator
+
+import pytest
+
+DEFAULT_POSTGRES_URL = "postgresql+psycopg://postgres@127.0.0.1:5432/test"
+BACKENDS = ("sqlite", "postgresql")
+
+
+
+_postgres_state: dict[str, str | None] = {}
+
+
+def postgres_url() -> str:
+    return os.environ.get("PLUMBLINE_TEST_POSTGRES_URL") or DEFAULT_POSTGRES_URL
+
+
+def postgres_required() -> bool:
+    return os.environ.get("PLUMBLINE_REQUIRE_POSTGRES", "") not in ("", "0", "false", "no")
+
+
+def _postgres_problem() -> str | None:
+    """``None`` when the PostgreSQL server answers, else why not (checked once per session)."""
+    if "problem" not in _postgres_state:
+        try:
+            import psycopg
+            from sqlalchemy.engine import make_url
+
+            url = make_url(postgres_url())
+            with psycopg.connect(
+                host=url.host or "127.0.0.1", port=url.port or 5432, user=url.username,
+                password=url.password, dbname=url.database, connect_timeout=5,
+            ) as conn:
+                conn.execute("SELECT 1")
+            _postgres_state["problem"] = None
+        except Exception as exc:
+            _postgres_state["problem"] = f"{type(exc).__name__}: {exc}"
+    return _postgres_state["problem"]
+
+
+def _require_postgres() -> None:
+    problem = _postgres_problem()
+    if problem is None:
+        return
+    if postgres_required():
+        pytest.fail(f"PostgreSQL is required (PLUMBLINE_REQUIRE_POSTGRES) but unreachable at "
+                    f"{postgres_url()}: {problem}")
+    pytest.skip(f"PostgreSQL unreachable at {postgres_url()}: {problem}")
+
+
+def _schema_url(base: str, schema: str) -> str:
+    from sqlalchemy.engine import make_url
+
+    url = make_url(base).update_query_dict({"options": f"-csearch_path={schema}"})
+    return url.render_as_string(hide_password=False)
+
+
+@pytest.fixture(params=BACKENDS)
+def database_url(request: pytest.FixtureRequest, tmp_path) -> Iterator[str]:
+    """An empty database (not yet migrated) on each backend."""
+    if request.param == "sqlite":
+        yield f"sqlite:///{tmp_path / 'plumbline-test.db'}"
+        return
+    _require_postgres()
+    from sqlalchemy import create_engine, text
+
+    schema = "t_" + uuid.uuid4().hex[:16]
+    admin = create_engine(postgres_url())
+    try:
+        with admin.begin() as conn:
+            conn.execute(text(f'CREATE SCHEMA "{schema}"'))
+        yield _schema_url(postgres_url(), schema)
+    finally:
+        with admin.begin() as conn:
+            conn.execute(text(f'DROP SCHEMA IF EXISTS "{schema}" CASCADE'))
+        admin.dispose()
+
+
+@pytest.fixture
+def migrated_url(database_url: str) -> str:
+    """A database at the newest schema revision."""
+    from service.store.migrate import upgrade
+
+    upgrade(database_url)
+    return database_url
+
+
+@pytest.fixture
+def engine(migrated_url: str):
+    from service.store import make_engine
+
+    eng = make_engine(migrated_url)
+    yield eng
+    eng.dispose()
