@@ -11,10 +11,12 @@ import base64
 import hashlib
 import math
 from collections.abc import Callable, Mapping, Sequence
+from datetime import UTC, datetime
 from html import escape
 from typing import Any
 
 from service import __version__
+from service.core import CATALOGUE
 
 from .charts import Chart
 from .style import PAGE_CSS
@@ -80,6 +82,7 @@ CONTENT_SECURITY_POLICY = (
 """Nothing but the page itself: no script, style, font, image or request from elsewhere."""
 
 SeriesHref = Callable[[str], str]
+_TITLES = {spec.name: spec.title for spec in CATALOGUE}
 
 
 def _e(value: Any) -> str:
@@ -120,11 +123,25 @@ def _sort_value(value: Any) -> str:
     return ""
 
 
+def _title(check: Any) -> str:
+    """The check's name in words (the catalogue's title), else its API name."""
+    return _TITLES.get(str(check), str(check))
+
+
 def _message(check: Any, message: Any) -> str:
-    """The message without a leading ``"<check>: "`` (the check is shown beside it)."""
+    """The message without a leading ``"<check>: "`` or ``"<Title>: "`` (the check is shown
+    beside it)."""
     text = "" if message is None else str(message)
-    prefix = f"{check}: "
-    return _e(text[len(prefix) :] if check and text.startswith(prefix) else text)
+    for prefix in (f"{check}: ", f"{_title(check)}: "):
+        if check and text.startswith(prefix):
+            text = text[len(prefix) :]
+            break
+    return _e(text)
+
+
+def _check_cell(check: Any) -> str:
+    return (f'<span class="check-title">{_e(_title(check))}</span>'
+            f'<code class="check-name">{_e(check)}</code>')
 
 
 def _status(status: Any) -> str:
@@ -177,6 +194,17 @@ def series_order(series: Sequence[Mapping[str, Any]]) -> list[Mapping[str, Any]]
     return sorted(series, key=key)
 
 
+def _when(value: Any) -> str:
+    """An ISO timestamp as ``2026-12-01 22:07 UTC``; anything else as given."""
+    try:
+        moment = datetime.fromisoformat(str(value).replace("Z", "+00:00"))
+    except ValueError:
+        return str(value)
+    if moment.tzinfo is None:
+        return moment.strftime("%Y-%m-%d %H:%M")
+    return moment.astimezone(UTC).strftime("%Y-%m-%d %H:%M UTC")
+
+
 def _header(assessment: Mapping[str, Any], title: str, back: str = "") -> str:
     policy = assessment.get("policy") or {}
     bits = [
@@ -185,7 +213,7 @@ def _header(assessment: Mapping[str, Any], title: str, back: str = "") -> str:
         f"policy {_e(policy.get('name'))} v{_e(policy.get('version'))}",
     ]
     if assessment.get("created_at"):
-        bits.append(f"assessed {_e(assessment.get('created_at'))}")
+        bits.append(f"assessed {_e(_when(assessment.get('created_at')))}")
     if assessment.get("id"):
         bits.append(f"assessment <code>{_e(assessment.get('id'))}</code>")
     labels = assessment.get("labels") or {}
@@ -207,12 +235,13 @@ def _reasons(reasons: Sequence[Mapping[str, Any]], series_href: SeriesHref) -> s
     def item(r: Mapping[str, Any]) -> str:
         sid = r.get("series_id")
         where = (
-            f' <a href="{_e(series_href(str(sid)))}">{_e(sid)}</a>' if sid is not None else ""
+            f'<a href="{_e(series_href(str(sid)))}">{_e(sid)}</a>' if sid is not None
+            else "across the fleet"
         )
         return (
-            f'<li data-status="{_e(r.get("status"))}">{_status(r.get("status"))} '
-            f"<code>{_e(r.get('check'))}</code>{where}: "
-            f"{_message(r.get('check'), r.get('message'))}</li>"
+            f'<li data-status="{_e(r.get("status"))}" data-check="{_e(r.get("check"))}">'
+            f"{_status(r.get('status'))} <strong>{_e(_title(r.get('check')))}</strong>, "
+            f"{where}: {_message(r.get('check'), r.get('message'))}</li>"
         )
 
     shown = "".join(item(r) for r in reasons[:REASONS_SHOWN])
@@ -233,7 +262,7 @@ def _checks_table(checks: Sequence[Mapping[str, Any]]) -> str:
     if not checks:
         return '<p class="note">The policy enabled no check.</p>'
     rows = "".join(
-        f'<tr data-check="{_e(c.get("name"))}"><td><code>{_e(c.get("name"))}</code></td>'
+        f'<tr data-check="{_e(c.get("name"))}"><td>{_check_cell(c.get("name"))}</td>'
         f"<td>{_status(c.get('status'))}</td>"
         f'<td class="num">{_num(c.get("series_tested"))}</td>'
         f'<td class="num">{_num(c.get("series_failed"))}</td>'
@@ -359,13 +388,13 @@ def _details_text(details: Mapping[str, Any] | None) -> str:
 
 def _series_checks(checks: Sequence[Mapping[str, Any]]) -> str:
     rows = "".join(
-        f'<tr data-check="{_e(c.get("name"))}"><td><code>{_e(c.get("name"))}</code></td>'
+        f'<tr data-check="{_e(c.get("name"))}"><td>{_check_cell(c.get("name"))}</td>'
         f"<td>{_status(c.get('status'))}</td>"
         f'<td class="num">{_num(c.get("statistic"), 4)}</td>'
         f'<td class="num">{_p(c.get("p_value"))}</td>'
         f'<td class="num">{_p(c.get("p_adjusted"))}</td>'
         f"<td>{_details_text(c.get('details'))}</td>"
-        f"<td>{_e(c.get('message'))}</td></tr>"
+        f"<td>{_message(c.get('name'), c.get('message'))}</td></tr>"
         for c in checks
     )
     return (

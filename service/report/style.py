@@ -114,6 +114,8 @@ a {{ color: var(--accent); }}
 .status.warn {{ color: #6B4A00; border-color: var(--warn); background: #FFF6E0; }}
 .status.fail {{ color: #8A3700; border-color: var(--fail); background: #FCEBE0; }}
 .status.skipped {{ color: var(--muted); border-color: var(--grid); }}
+.check-title {{ display: block; font-weight: 600; }}
+.check-name {{ display: block; font-size: 12px; color: var(--muted); }}
 .note {{ color: var(--muted); font-size: 13px; }}
 section.card {{ background: #fff; border: 1px solid var(--grid); border-radius: 8px;
   padding: 4px 18px 16px; margin-top: 18px; }}

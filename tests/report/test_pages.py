@@ -11,6 +11,7 @@ from urllib.parse import quote
 
 import pytest
 
+from service.core import CATALOGUE
 from service.report import (
     CONTENT_SECURITY_POLICY,
     SeriesInputs,
@@ -54,9 +55,16 @@ def report(assessment: dict) -> str:
 def test_report_shows_verdict_reasons_checks_and_bias(assessment: dict, report: str) -> None:
     assert f'data-verdict="{assessment["verdict"]}"' in report
     assert assessment["verdict"] == "fail"  # the invented fleet plants failures
-    for r in assessment["reasons"][:20]:
-        text = r["message"].removeprefix(f"{r['check']}: ")
-        assert escape(text, quote=True) in report
+    titles = {spec.name: spec.title for spec in CATALOGUE}
+    items = re.findall(r'<li data-status="(\w+)" data-check="(\w+)">(.*?)</li>', report)
+    assert len(items) == min(len(assessment["reasons"]), 500)
+    for r, (status, check, html) in zip(assessment["reasons"], items, strict=False):
+        assert (status, check) == (r["status"], r["check"])
+        # The check in words, where (a series or the fleet), then the sentence once.
+        assert f"<strong>{titles[check]}</strong>, " in html
+        text = r["message"].removeprefix(f"{titles[check]}: ")
+        assert html.endswith(": " + escape(text, quote=True))
+        assert (r["series_id"] is None) == ("across the fleet" in html)
     for c in assessment["checks"]:
         row = re.search(rf'<tr data-check="{c["name"]}">(.*?)</tr>', report).group(1)
         cells = re.findall(r"<td[^>]*>(.*?)</td>", row)
@@ -66,6 +74,7 @@ def test_report_shows_verdict_reasons_checks_and_bias(assessment: dict, report: 
     b = assessment["fleet"]["bias"]
     assert f"{b['mean_error']:.4g}" in report
     assert "statistical evidence, not a guarantee" in report
+    assert "assessed 2026-12-01 22:00 UTC" in report  # created_at 2026-12-01T22:00:00Z
 
 
 def test_series_listed_worst_first_with_links(assessment: dict, report: str) -> None:
