@@ -18,12 +18,9 @@ from service.links import sign_link
 
 from .devtools import Browser, find_chromium
 from .fleet import invented_body
-from .server import Server
 
 pytestmark = pytest.mark.slow
 
-ADMIN = "browser-test-admin-token-8c1f"
-SECRET = "browser-test-link-secret-5e0b2a71"
 ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
 
 
@@ -46,19 +43,13 @@ def _need_browser() -> str:
 
 
 @pytest.fixture(scope="module")
-def served(tmp_path_factory: pytest.TempPathFactory):
+def served(live_server: dict):
     binary = _need_browser()
-    work = tmp_path_factory.mktemp("server")
-    env = {
-        "PLUMBLINE_DATABASE_URL": f"sqlite:///{work / 'report.db'}",
-        "PLUMBLINE_ADMIN_TOKEN": ADMIN,
-        "PLUMBLINE_LINK_SECRET": SECRET,
-    }
-    with Server(work, env) as url:
-        auth = {"Authorization": f"Bearer {ADMIN}"}
-        r = httpx.post(f"{url}/v1/assessments", json=invented_body(10), headers=auth, timeout=60)
-        assert r.status_code == 201, r.text
-        yield {"url": url, "binary": binary, "assessment": r.json(), "auth": auth}
+    url, auth = live_server["url"], live_server["auth"]
+    r = httpx.post(f"{url}/v1/assessments", json=invented_body(10), headers=auth, timeout=60)
+    assert r.status_code == 201, r.text
+    return {"url": url, "binary": binary, "assessment": r.json(), "auth": auth,
+            "secret": live_server["secret"]}
 
 
 def _check_clean(browser: Browser, what: str) -> None:
@@ -129,9 +120,9 @@ def test_report_and_series_page_in_chromium(served: dict) -> None:
 def test_expired_and_tampered_links_answer_403(served: dict) -> None:
     a, url = served["assessment"], served["url"]
     report = f"{url}/v1/assessments/{a['id']}/report"
-    expired = sign_link(secret=SECRET, assessment_id=a["id"], ttl_seconds=60,
+    expired = sign_link(secret=served["secret"], assessment_id=a["id"], ttl_seconds=60,
                         now=time.time() - 3600)
-    good = sign_link(secret=SECRET, assessment_id=a["id"], ttl_seconds=600)
+    good = sign_link(secret=served["secret"], assessment_id=a["id"], ttl_seconds=600)
     tampered = good.query.replace("signature=", "signature=x", 1)
     with Browser(served["binary"]) as b:
         for query, slug in ((expired.query, "link-expired"), (tampered, "link-invalid")):

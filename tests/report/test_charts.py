@@ -120,3 +120,15 @@ def test_report_modules_do_not_import_matplotlib() -> None:
     )
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True)
     assert done.returncode == 0, done.stderr or "matplotlib was imported"
+
+
+def test_holdout_without_intervals_draws_no_band() -> None:
+    y = [float(v) for v in 100 + 5 * np.sin(np.arange(40))]
+    d = series_diagnostics(SeriesInputs.from_mapping({
+        "id": "h", "actuals": y, "fitted": [None, *y[:-1]],
+        "holdout": {"actuals": [101.0, 99.0, 104.0], "forecasts": [100.0, 100.0, 100.0]},
+    }))
+    assert d.holdout is not None and d.holdout.lower is None and d.holdout.level is None
+    text = _texts(render_chart("holdout", d).svg)
+    assert "model forecast" in text and "prediction interval" not in text
+    assert "best benchmark" in text

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import subprocess
 import sys
 import textwrap
@@ -9,6 +10,7 @@ import time
 from datetime import UTC, datetime
 from urllib.parse import parse_qs, quote, urlsplit
 
+import httpx
 import pytest
 from fastapi.testclient import TestClient
 
@@ -194,3 +196,32 @@ def test_assessing_does_not_load_matplotlib(tmp_path) -> None:
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           cwd=str(__import__("pathlib").Path(__file__).resolve().parents[2]))
     assert done.returncode == 0, done.stderr[-3000:]
+
+
+def test_awkward_series_ids_round_trip(client) -> None:
+    body = invented_body(2)
+    body["series"][0]["id"] = "depot 4/sku#118?size=1l&x=y"
+    a = client.post("/v1/assessments", json=body, headers=AUTH).json()
+    link = client.post(f"/v1/assessments/{a['id']}/links", headers=AUTH).json()
+    page = client.get(link["url"])
+    assert page.status_code == 200
+    href = re.search(r'<tr data-series="depot[^"]*"><td class="id"><a href="([^"]+)"',
+                     page.text).group(1)
+    r = client.get(href.replace("&amp;", "&"))
+    assert r.status_code == 200, r.text
+    assert "<h1>Series depot 4/sku#118?size=1l&amp;x=y</h1>" in r.text
+
+
+def test_percent_in_a_series_id_over_the_real_server(live_server) -> None:
+    # The in-process client decodes a path twice, so ids with "%" are checked over HTTP.
+    url, auth = live_server["url"], live_server["auth"]
+    body = invented_body(2)
+    body["series"][0]["id"] = "sku 50%/x=%2F"
+    a = httpx.post(f"{url}/v1/assessments", json=body, headers=auth).json()
+    page = httpx.get(f"{url}/v1/assessments/{a['id']}/report", headers=auth)
+    href = re.search(r'<tr data-series="sku[^"]*"><td class="id"><a href="([^"]+)"',
+                     page.text).group(1)
+    assert href.endswith("/series/sku%2050%25%2Fx%3D%252F")
+    r = httpx.get(url + href, headers=auth)
+    assert r.status_code == 200, r.text
+    assert "<h1>Series sku 50%/x=%2F</h1>" in r.text
