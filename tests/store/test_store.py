@@ -1,0 +1,146 @@
+"""Storage: migrations, the engine's settings, and the repository's transactions."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from sqlalchemy import inspect, select, text
+
+from service.store import make_engine
+from service.store import repository as repo
+from service.store.migrate import current_revision, head_revision, upgrade
+
+TABLES = {"assessments", "series_results", "series_inputs", "policies", "tokens",
+          "idempotency_keys"}
+
+
+def test_upgrade_creates_every_table_and_is_repeatable(database_url):
+    upgrade(database_url)
+    upgrade(database_url)  # already at head: nothing to do
+    engine = make_engine(database_url)
+    try:
+        assert TABLES <= set(inspect(engine).get_table_names())
+        assert current_revision(engine) == head_revision()
+    finally:
+        engine.dispose()
+
+
+def test_sqlite_engine_uses_wal_busy_timeout_and_foreign_keys(tmp_path):
+    engine = make_engine(f"sqlite:///{tmp_path / 'x.db'}")
+    try:
+        with engine.connect() as conn:
+            assert conn.execute(text("PRAGMA journal_mode")).scalar() == "wal"
+            assert conn.execute(text("PRAGMA busy_timeout")).scalar() >= 1000
+            assert conn.execute(text("PRAGMA foreign_keys")).scalar() == 1
+    finally:
+        engine.dispose()
+
+
+def test_plain_postgresql_url_gets_psycopg3():
+    engine = make_engine("postgresql://u@127.0.0.1:1/db")
+    assert engine.dialect.driver == "psycopg"
+    engine.dispose()
+
+
+def test_unsupported_url_is_refused():
+    with pytest.raises(ValueError, match="unsupported"):
+        make_engine("mysql://u@127.0.0.1/db")
+
+
+def _save(engine, aid="a1", key=None, digest=None, n=3):
+    series = [repo.SeriesResult(series_id=f"s{i}", verdict="pass", n_obs=10,
+                                json=f'{{"id":"s{i}","verdict":"pass","n_obs":10}}'.encode())
+              for i in range(n)]
+    inputs = [repo.SeriesInput(series_id=f"s{i}", weight=None,
+                               actuals=np.array([1.0, np.nan, 3.0 + i]),
+                               fitted=np.array([np.nan, 1.5, 2.5]),
+                               timestamps=["2026-01-01", "2026-01-02", "2026-01-03"],
+                               holdout_actuals=np.array([4.0]) if i == 0 else None,
+                               holdout_forecasts=np.array([3.5]) if i == 0 else None)
+              for i in range(n)]
+    return repo.save_assessment(
+        engine, assessment_id=aid, created_at=repo.utcnow(), model="m", version="1",
+        verdict="pass", n_failed=0, n_warned=0, policy_name="default", policy_version=1,
+        policy_document={"name": "default"}, head=b'{"id":"' + aid.encode() + b'","verdict":'
+        b'"pass"}', series=series, inputs=inputs, idempotency_key=key, body_hash=digest,
+    )
+
+
+def test_save_and_read_back(engine):
+    _save(engine)
+    stored = repo.get_assessment(engine, assessment_id="a1")
+    assert stored is not None
+    import orjson
+
+    doc = orjson.loads(stored.to_json())
+    assert doc["id"] == "a1" and [s["id"] for s in doc["series"]] == ["s0", "s1", "s2"]
+    inputs = repo.series_inputs(engine, assessment_id="a1")
+    assert inputs is not None and len(inputs) == 3
+    np.testing.assert_array_equal(inputs[2].actuals, [1.0, np.nan, 5.0])
+    np.testing.assert_array_equal(inputs[0].fitted, [np.nan, 1.5, 2.5])
+    assert inputs[0].timestamps == ["2026-01-01", "2026-01-02", "2026-01-03"]
+    np.testing.assert_array_equal(inputs[0].holdout_actuals, [4.0])
+    assert inputs[1].holdout_actuals is None
+    assert repo.get_assessment(engine, assessment_id="nope") is None
+    assert repo.series_inputs(engine, assessment_id="nope") is None
+
+
+def test_assessment_and_rows_are_one_transaction(engine):
+    _save(engine, aid="a1", key="k", digest="h1")
+    # The second save fails on its last statement (the key is taken): nothing of it may remain.
+    with pytest.raises(repo.IdempotencyConflict):
+        _save(engine, aid="a2", key="k", digest="h2", n=5)
+    assert repo.get_assessment(engine, assessment_id="a2") is None
+    with engine.connect() as conn:
+        assert conn.execute(text("SELECT count(*) FROM series_results")).scalar() == 3
+        assert conn.execute(text("SELECT count(*) FROM series_inputs")).scalar() == 3
+        assert conn.execute(text("SELECT count(*) FROM assessments")).scalar() == 1
+
+
+def test_foreign_keys_are_enforced(engine):
+    from sqlalchemy import insert
+    from sqlalchemy.exc import IntegrityError
+
+    with pytest.raises(IntegrityError), engine.begin() as conn:
+        conn.execute(insert(repo.SR), {"assessment_seq": 999, "position": 0, "series_id": "x",
+                                       "verdict": "pass", "n_obs": 1, "result": "{}"})
+
+
+def test_list_newest_first_and_cursor(engine):
+    for i in range(4):
+        _save(engine, aid=f"a{i}", n=1)
+    rows = repo.list_assessments(engine, limit=2)
+    assert [r.id for r in rows] == ["a3", "a2"]
+    rest = repo.list_assessments(engine, limit=5, before_seq=rows[-1].seq)
+    assert [r.id for r in rest] == ["a1", "a0"]
+    assert repo.latest_assessment(engine, model="m").id == "a3"
+    assert repo.latest_assessment(engine, model="other") is None
+
+
+def test_policy_versions_count_up(engine):
+    one = repo.save_policy(engine, name="p", document={"checks": {}})
+    two = repo.save_policy(engine, name="p", document={"checks": {"bias": {}}})
+    assert (one.version, two.version) == (1, 2)
+    assert repo.get_policy(engine, name="p").version == 2
+    assert repo.get_policy(engine, name="p", version=1).document["version"] == 1
+    assert repo.get_policy(engine, name="q") is None
+    assert [p.version for p in repo.list_policies(engine)] == [2]
+
+
+def test_tokens_hash_lookup_and_revoke(engine):
+    record, secret = repo.create_token(engine, scopes=["read"], label="dash")
+    assert repo.find_token(engine, secret=secret).id == record.id
+    assert repo.find_token(engine, secret=secret + "x") is None
+    with engine.connect() as conn:
+        stored = conn.execute(select(repo.T.c.token_hash)).scalar()
+    assert stored == repo.hash_token(secret) and secret not in stored
+    assert repo.revoke_token(engine, token_id=record.id)
+    assert repo.find_token(engine, secret=secret) is None
+    assert not repo.revoke_token(engine, token_id=record.id)
+    assert repo.count_tokens(engine) == 1
+
+
+def test_pack_round_trip_keeps_nan():
+    values = np.array([1.5, np.nan, -2.0])
+    np.testing.assert_array_equal(repo.unpack(repo.pack(values)), values)
+    assert repo.pack(None) is None and repo.unpack(None) is None
