@@ -225,3 +225,46 @@ def test_percent_in_a_series_id_over_the_real_server(live_server) -> None:
     r = httpx.get(url + href, headers=auth)
     assert r.status_code == 200, r.text
     assert "<h1>Series sku 50%/x=%2F</h1>" in r.text
+
+
+def test_without_a_configured_secret_one_is_made_once_and_kept(database_url: str) -> None:
+    from service.store import make_engine
+    from service.store import repository as repo
+
+    plain = {"database_url": database_url, "admin_token": ADMIN}
+    with TestClient(create_app(Settings(**plain))) as first:
+        a = first.post("/v1/assessments", json=invented_body(2), headers=AUTH).json()
+        url = first.post(f"/v1/assessments/{a['id']}/links", headers=AUTH).json()["url"]
+        assert first.get(url).status_code == 200
+    # A restart (or another worker) on the same database opens the same link.
+    with TestClient(create_app(Settings(**plain))) as second:
+        assert second.get(url).status_code == 200
+    # A configured secret takes precedence: the old link no longer verifies.
+    with TestClient(create_app(Settings(**plain, link_secret=SECRET))) as third:
+        _problem(third.get(url), 403)
+    engine = make_engine(database_url)
+    try:
+        kept = repo.get_or_create_secret(engine, name="report_links", make=lambda: "unused")
+        assert len(kept) >= 43  # 32 random bytes, URL-safe base64
+    finally:
+        engine.dispose()
+
+
+def test_concurrent_secret_creation_keeps_one_value(database_url: str) -> None:
+    from service.store import make_engine
+    from service.store import repository as repo
+    from service.store.migrate import upgrade
+
+    upgrade(database_url)
+    engine = make_engine(database_url)
+    try:
+        def racing() -> str:
+            # Another worker stores its key between our read and our insert.
+            repo.get_or_create_secret(engine, name="k", make=lambda: "stored-by-the-other")
+            return "ours"
+
+        other = "stored-by-the-other"
+        assert repo.get_or_create_secret(engine, name="k", make=racing) == other
+        assert repo.get_or_create_secret(engine, name="k", make=lambda: "x") == other
+    finally:
+        engine.dispose()

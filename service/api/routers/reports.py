@@ -9,7 +9,6 @@ assessment is submitted.
 
 from __future__ import annotations
 
-import logging
 import threading
 from typing import Annotated, Any
 from urllib.parse import quote
@@ -29,10 +28,10 @@ from ..errors import ApiError
 from ..http import json_response, problem_docs
 
 router = APIRouter(prefix="/v1/assessments", tags=["reports"])
-log = logging.getLogger("plumbline.api.reports")
 
 HTML = "text/html; charset=utf-8"
 LINK_PARAMS = ("expires", "signature")
+LINK_SECRET_NAME = "report_links"
 _PROBLEMS = problem_docs(401, 403, 404)
 _SECRET_LOCK = threading.Lock()
 _CACHE_LOCK = threading.Lock()
@@ -53,9 +52,8 @@ class LinkCreated(BaseModel):
 
 
 def link_secret(request: Request) -> str:
-    """The key that signs links: ``PLUMBLINE_LINK_SECRET``, else one the app keeps in its state
-    (``app.state.link_secret``); without either, a random one made on first use, valid until
-    the process stops."""
+    """The key that signs links: ``PLUMBLINE_LINK_SECRET`` when set, else a random key the
+    server made on first use and keeps in its database, shared by every worker and restart."""
     state = request.app.state
     configured = state.settings.link_secret
     if configured is not None:
@@ -66,9 +64,9 @@ def link_secret(request: Request) -> str:
             with _SECRET_LOCK:
                 secret = getattr(state, "link_secret", None)
                 if not secret:
-                    log.warning("no PLUMBLINE_LINK_SECRET set: report links are signed with a "
-                                "key made at start and stop working when this process ends")
-                    secret = links.new_secret()
+                    secret = repo.get_or_create_secret(
+                        state.engine, name=LINK_SECRET_NAME, make=links.new_secret
+                    )
                     state.link_secret = secret
     if len(secret.encode()) < links.MIN_SECRET_LENGTH:
         raise ApiError(503, f"report links are not available: the link secret must be at least "
