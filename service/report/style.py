@@ -53,7 +53,7 @@ STATUS_COLOURS = MappingProxyType(
 
 FIGURE_SIZE = (6.4, 4.0)
 """Inches; the SVG scales with the page width (two charts side by side)."""
-WIDE_FIGURE_SIZE = (11.0, 4.2)
+WIDE_FIGURE_SIZE = (12.8, 4.6)
 """The holdout chart spans the page: time runs across it."""
 
 CHART_RC = MappingProxyType(

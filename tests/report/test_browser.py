@@ -63,7 +63,7 @@ def test_report_and_series_page_in_chromium(served: dict) -> None:
     link = httpx.post(f"{url}/v1/assessments/{a['id']}/links", headers=served["auth"])
     assert link.status_code == 200, link.text
     with Browser(served["binary"]) as b:
-        # 1. With the bearer token, as a CI job's browser session would send it.
+        # 1. With the bearer token in the request headers.
         b.call("Network.setExtraHTTPHeaders", headers=served["auth"])
         b.open(f"{url}/v1/assessments/{a['id']}/report")
         _check_clean(b, "report with bearer token")

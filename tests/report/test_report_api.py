@@ -172,6 +172,19 @@ def test_link_ttl_is_configurable(database_url: str) -> None:
         body = _problem(c.post(f"/v1/assessments/{a['id']}/links",
                                json={"ttl_seconds": 0}, headers=AUTH), 422)
         assert "ttl_seconds" in body["errors"][0]["loc"]
+        body = _problem(c.post(f"/v1/assessments/{a['id']}/links",
+                               json={"ttl": 60}, headers=AUTH), 422)
+        assert body["errors"][0]["loc"] == "ttl"
+        _problem(c.post(f"/v1/assessments/{a['id']}/links", content=b"{",
+                               headers={**AUTH, "Content-Type": "application/json"}), 400)
+
+
+def test_openapi_documents_the_report_endpoints(client) -> None:
+    doc = client.get("/openapi.json").json()
+    report = doc["paths"]["/v1/assessments/{assessment_id}/report"]["get"]
+    assert {p["name"] for p in report["parameters"]} >= {"expires", "signature"}
+    assert "text/html" in report["responses"]["200"]["content"]
+    assert "/v1/assessments/{assessment_id}/links" in doc["paths"]
 
 
 def test_assessing_does_not_load_matplotlib(tmp_path) -> None:

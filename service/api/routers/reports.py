@@ -15,8 +15,8 @@ from urllib.parse import quote
 
 import numpy as np
 import orjson
-from fastapi import APIRouter, Body, Request
-from pydantic import BaseModel, Field
+from fastapi import APIRouter, Body, Query, Request
+from pydantic import BaseModel, ConfigDict, Field
 from starlette.concurrency import run_in_threadpool
 from starlette.responses import Response
 
@@ -36,8 +36,17 @@ _PROBLEMS = problem_docs(401, 403, 404)
 _SECRET_LOCK = threading.Lock()
 _CACHE_LOCK = threading.Lock()
 
+# Declared for the OpenAPI document; read (and checked) by _admit. Kept as text so that a
+# malformed value is a refused link (403), not a validation error.
+Expires = Annotated[str | None, Query(
+    description="Signed link: expiry in Unix seconds (with signature, instead of a token)")]
+Signature = Annotated[str | None, Query(
+    description="Signed link: HMAC-SHA256 signature from POST /v1/assessments/{id}/links")]
+
 
 class LinkRequest(BaseModel):
+    model_config = ConfigDict(extra="forbid")
+
     ttl_seconds: int | None = Field(
         default=None, ge=1,
         description="How long the link stays valid; default and maximum: the server's "
@@ -136,7 +145,9 @@ def _stored(request: Request, assessment_id: str) -> repo.StoredAssessment:
     response_class=Response,
     responses={200: {"content": {"text/html": {}}}, **_PROBLEMS},
 )
-async def get_report(request: Request, assessment_id: str) -> Response:
+async def get_report(
+    request: Request, assessment_id: str, expires: Expires = None, signature: Signature = None
+) -> Response:
     """Fleet verdict and reasons, the per-check table, the fleet bias and every series (worst
     first), each linking to its page. Bearer token with ``read``, or a signed link."""
     query = await _admit(request, assessment_id)
@@ -196,7 +207,10 @@ def _inputs_of(request: Request, assessment_id: str, series_id: str) -> Any:
     response_class=Response,
     responses={200: {"content": {"text/html": {}}}, **_PROBLEMS},
 )
-async def get_series_report(request: Request, assessment_id: str, series_id: str) -> Response:
+async def get_series_report(
+    request: Request, assessment_id: str, series_id: str, expires: Expires = None,
+    signature: Signature = None,
+) -> Response:
     """Residuals over time, residual ACF with its bounds and the Ljung-Box lags, histogram with
     the fitted normal, residuals against fitted values and, with a holdout, actuals against
     forecasts with the interval and the best benchmark. Drawn on request (and cached)."""
