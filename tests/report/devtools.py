@@ -12,9 +12,11 @@ import base64
 import json
 import os
 import re
+import select
 import shutil
 import subprocess
 import tempfile
+import threading
 import time
 import urllib.request
 from dataclasses import dataclass, field
@@ -102,16 +104,26 @@ class Browser:
         assert self._proc.stderr is not None
         seen = []
         while time.monotonic() < deadline:
-            line = self._proc.stderr.readline()
-            if not line:
+            ready, _, _ = select.select([self._proc.stderr], [], [], 0.5)
+            if not ready:
                 if self._proc.poll() is not None:
                     break
                 continue
+            line = self._proc.stderr.readline()
+            if not line:
+                break
             seen.append(line)
             m = pattern.search(line)
             if m:
+                # Keep reading Chromium's log so a full pipe never stalls it.
+                threading.Thread(target=self._drain, daemon=True).start()
                 return int(m.group(1))
         raise RuntimeError("Chromium did not open its DevTools port:\n" + "".join(seen[-20:]))
+
+    def _drain(self) -> None:
+        assert self._proc.stderr is not None
+        for _line in self._proc.stderr:
+            pass
 
     @staticmethod
     def _page_socket(port: int) -> str:
