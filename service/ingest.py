@@ -42,6 +42,9 @@ MAX_ERRORS = 50
 """At most this many problems are reported for one request."""
 
 MAX_NAME_LENGTH = 200
+MAX_ABS_VALUE = 1e50
+"""Largest magnitude accepted for a number: the statistics raise residuals to the fourth power
+(kurtosis), which overflows a 64-bit float beyond about 1e77."""
 TOP_LEVEL_FIELDS = frozenset(
     {"model", "version", "policy", "season_length", "model_params", "labels", "series"}
 )
@@ -310,6 +313,17 @@ def _flat_numbers(
             j = int(pos - (ends[i] - lengths[i]))
             errs.add(locs[i], f"value at index {j} overflows a 64-bit float")
         return None
+    with np.errstate(invalid="ignore"):
+        huge = np.abs(arr) > MAX_ABS_VALUE
+    if huge.any():
+        ends = np.cumsum(lengths)
+        for pos in np.flatnonzero(huge)[:MAX_ERRORS]:
+            i = int(np.searchsorted(ends, pos, side="right"))
+            j = int(pos - (ends[i] - lengths[i]))
+            errs.add(locs[i], f"value at index {j} ({arr[pos]:g}) is beyond the accepted "
+                     f"magnitude of {MAX_ABS_VALUE:g}; rescale the series (the statistics "
+                     "overflow 64-bit floats beyond about 1e77)")
+        return None
     return arr, lengths
 
 
@@ -492,8 +506,8 @@ def parse_json_request(
         if w is not None and (isinstance(w, bool) or not isinstance(w, (int, float))):
             errs.add(f"{at}.weight", f"must be a number, got {_describe(w)}")
             w = None
-        elif w is not None and (not math.isfinite(float(w)) or w < 0):
-            errs.add(f"{at}.weight", "must be finite and non-negative")
+        elif w is not None and (not math.isfinite(float(w)) or not 0 <= w <= MAX_ABS_VALUE):
+            errs.add(f"{at}.weight", f"must be a non-negative number up to {MAX_ABS_VALUE:g}")
             w = None
         weights.append(None if w is None else float(w))
         h = s.get("holdout")

@@ -6,8 +6,9 @@ Kept apart from the HTTP router so the work runs in one thread-pool call per req
 from __future__ import annotations
 
 import hashlib
+import time
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -34,6 +35,11 @@ class Outcome:
     verdict: str
     replayed: bool
     n_series: int
+    timings: dict[str, float] = field(default_factory=dict)
+
+    def server_timing(self) -> str:
+        """The ``Server-Timing`` header value: milliseconds per stage."""
+        return ", ".join(f"{k};dur={v * 1000:.1f}" for k, v in self.timings.items())
 
 
 def body_hash(kind: str, params: Mapping[str, str], body: bytes) -> str:
@@ -104,10 +110,20 @@ def run(
     store: bool,
     idempotency_key: str | None = None,
     digest: str | None = None,
+    timings: dict[str, float] | None = None,
 ) -> Outcome:
-    """Assess ``req`` under its policy and (unless ``store`` is false) save it."""
+    """Assess ``req`` under its policy and (unless ``store`` is false) save it.
+
+    ``timings`` collects seconds per stage (policy, assess, encode, store).
+    """
+    timings = {} if timings is None else timings
+    clock = time.perf_counter()
     policy, document = policy_lookup.resolve(engine, req.policy)
+    timings["policy"] = time.perf_counter() - clock
+    clock = time.perf_counter()
     result = assess(req.batch, policy).to_dict()
+    timings["assess"] = time.perf_counter() - clock
+    clock = time.perf_counter()
     series = result.pop("series")
     created = repo.utcnow()
     assessment_id = repo.new_id() if store else None
@@ -122,42 +138,50 @@ def run(
         "model_params": req.model_params,
         **result,
     }
+    verdict = str(result["verdict"])
+    if not store:
+        head["series"] = series
+        encoded_all = orjson.dumps(head, option=_DUMP)
+        timings["encode"] = time.perf_counter() - clock
+        return Outcome(body=encoded_all, assessment_id=None, verdict=verdict, replayed=False,
+                       n_series=len(series), timings=timings)
     head_json = orjson.dumps(head, option=_DUMP)
     encoded = [orjson.dumps(s, option=_DUMP) for s in series]
     body = head_json[:-1] + b',"series":[' + b",".join(encoded) + b"]}"
-    verdict = str(result["verdict"])
-    if store:
-        fleet = result.get("fleet") or {}
-        verdicts = [s.get("verdict") for s in series]
-        n_failed = int(fleet.get("n_failed", verdicts.count("fail")))
-        n_warned = int(fleet.get("n_warned", verdicts.count("warn")))
-        pol = result.get("policy") or {}
-        try:
-            repo.save_assessment(
-                engine,
-                assessment_id=assessment_id,  # type: ignore[arg-type]
-                created_at=created,
-                model=req.model,
-                version=req.version,
-                verdict=verdict,
-                n_failed=n_failed,
-                n_warned=n_warned,
-                policy_name=str(pol.get("name", policy.name)),
-                policy_version=int(pol.get("version", policy.version)),
-                policy_document=document,
-                head=head_json,
-                series=[repo.SeriesResult(series_id=s["id"], verdict=s["verdict"],
-                                          n_obs=int(s["n_obs"]), json=e)
-                        for s, e in zip(series, encoded, strict=True)],
-                inputs=_inputs(req),
-                idempotency_key=idempotency_key,
-                body_hash=digest,
-            )
-        except repo.IdempotencyConflict:
-            # Another request with the same key won the race: answer as its repeat would be.
-            again = replay(engine, idempotency_key, digest)  # type: ignore[arg-type]
-            if again is not None:
-                return again
-            raise
+    timings["encode"] = time.perf_counter() - clock
+    clock = time.perf_counter()
+    fleet = result.get("fleet") or {}
+    verdicts = [s.get("verdict") for s in series]
+    n_failed = int(fleet.get("n_failed", verdicts.count("fail")))
+    n_warned = int(fleet.get("n_warned", verdicts.count("warn")))
+    pol = result.get("policy") or {}
+    try:
+        repo.save_assessment(
+            engine,
+            assessment_id=assessment_id,  # type: ignore[arg-type]
+            created_at=created,
+            model=req.model,
+            version=req.version,
+            verdict=verdict,
+            n_failed=n_failed,
+            n_warned=n_warned,
+            policy_name=str(pol.get("name", policy.name)),
+            policy_version=int(pol.get("version", policy.version)),
+            policy_document=document,
+            head=head_json,
+            series=[repo.SeriesResult(series_id=s["id"], verdict=s["verdict"],
+                                      n_obs=int(s["n_obs"]), json=e)
+                    for s, e in zip(series, encoded, strict=True)],
+            inputs=_inputs(req),
+            idempotency_key=idempotency_key,
+            body_hash=digest,
+        )
+    except repo.IdempotencyConflict:
+        # Another request with the same key won the race: answer as its repeat would be.
+        again = replay(engine, idempotency_key, digest)  # type: ignore[arg-type]
+        if again is not None:
+            return again
+        raise
+    timings["store"] = time.perf_counter() - clock
     return Outcome(body=body, assessment_id=assessment_id, verdict=verdict, replayed=False,
-                   n_series=len(series))
+                   n_series=len(series), timings=timings)

@@ -45,12 +45,16 @@ def _bearer(request: Request) -> str:
     return token
 
 
-def _identify(request: Request, token: str) -> Principal:
+def _env_admin(request: Request, token: str) -> Principal | None:
     settings = request.app.state.settings
     if settings.admin_token is not None:
         expected = settings.admin_token.get_secret_value().encode("utf-8")
         if hmac.compare_digest(token.encode("utf-8"), expected):
             return Principal(token_id="env", scopes=frozenset(SCOPES))
+    return None
+
+
+def _stored(request: Request, token: str) -> Principal:
     found = repo.find_token(request.app.state.engine, secret=token)
     if found is None:
         raise ApiError(401, "unknown or revoked token", headers=_CHALLENGE)
@@ -64,7 +68,8 @@ def require(scope: str) -> Callable[[Request], object]:
 
     async def dependency(request: Request) -> Principal:
         token = _bearer(request)
-        principal = await run_in_threadpool(_identify, request, token)
+        principal = _env_admin(request, token) or await run_in_threadpool(
+            _stored, request, token)
         if not principal.allows(scope):
             raise ApiError(403, f"this token lacks the {scope!r} scope (it holds: "
                            f"{', '.join(sorted(principal.scopes))})")

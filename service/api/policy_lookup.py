@@ -22,8 +22,28 @@ def valid_name(name: str) -> bool:
     return bool(_NAME.match(name))
 
 
+_BUILTIN: list[Policy] = []
+# Stored policy versions never change, so their validated form is kept per (name, version).
+_PARSED: dict[tuple[str, int], Policy] = {}
+_PARSED_MAX = 256
+
+
 def builtin_default() -> Policy:
-    return default_policy()
+    """The gate's default policy (built once per process; policies are immutable)."""
+    if not _BUILTIN:
+        _BUILTIN.append(default_policy())
+    return _BUILTIN[0]
+
+
+def _parsed(stored: repo.StoredPolicy) -> Policy:
+    key = (stored.name, stored.version)
+    policy = _PARSED.get(key)
+    if policy is None:
+        policy = policy_from_document(stored.document, loc="policy")
+        if len(_PARSED) >= _PARSED_MAX:
+            _PARSED.clear()
+        _PARSED[key] = policy
+    return policy
 
 
 def policy_from_document(document: dict[str, Any], *, loc: str = "policy") -> Policy:
@@ -44,7 +64,7 @@ def stored_or_builtin(engine: Engine, name: str, version: int | None = None
     """
     stored = repo.get_policy(engine, name=name, version=version)
     if stored is not None:
-        return policy_from_document(stored.document, loc="policy"), stored.document
+        return _parsed(stored), stored.document
     if name == BUILTIN_DEFAULT and version in (None, 1):
         policy = builtin_default()
         return policy, policy.to_dict()

@@ -322,3 +322,17 @@ def test_too_long_series_is_422(make_client, body):
     r = client.post("/v1/assessments", json=body(n=1), headers=ADMIN)
     assert r.status_code == 422
     assert r.json()["errors"][0]["loc"] == "series[0].actuals"
+
+
+def test_server_timing_names_each_stage(client, body):
+    r = client.post("/v1/assessments", json=body(n=1), headers=ADMIN)
+    stages = [part.split(";")[0].strip() for part in r.headers["server-timing"].split(",")]
+    assert stages == ["parse", "policy", "assess", "encode", "store"]
+
+
+def test_values_too_large_for_the_statistics_are_422(client):
+    doc = envelope(one_series(actuals=[1e300, 2e300, 3e300, 4e300]))
+    r = post_raw(client, orjson.dumps(doc))
+    assert r.status_code == 422
+    err = r.json()["errors"][0]
+    assert err["loc"] == "series[0].actuals" and "magnitude" in err["message"]

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import time
 from datetime import datetime
 from typing import Annotated, Any
 from urllib.parse import urlencode
@@ -95,12 +96,15 @@ async def post_assessment(
             again = assessing.replay(state.engine, key, digest)
             if again is not None:
                 return again
+        clock = time.perf_counter()
         req = assessing.parse(kind, body, params, state.settings)
+        timings = {"parse": time.perf_counter() - clock}
         return assessing.run(state.engine, req, store=store,
-                             idempotency_key=key if store else None, digest=digest)
+                             idempotency_key=key if store else None, digest=digest,
+                             timings=timings)
 
     outcome = await run_in_threadpool(work)
-    headers: dict[str, str] = {}
+    headers: dict[str, str] = {"Server-Timing": outcome.server_timing()}
     if outcome.assessment_id is not None:
         headers["Location"] = f"/v1/assessments/{outcome.assessment_id}"
     if outcome.replayed:

@@ -1,0 +1,282 @@
+"""Service benchmark, run by hand (not collected by pytest):
+
+    python tests/perf/bench_service.py [--seconds 10] [--connections 8]
+
+Starts the real server (one worker, SQLite in a temporary folder) on loopback and measures:
+
+1. Throughput of stored single-series assessments (156 observations) driven by ``wrk`` (Debian
+   package ``wrk``; a bounded Python load loop stands in when it is missing), against a bare
+   FastAPI endpoint under the same uvicorn settings that only parses the same JSON body.
+   Target: at least 30% of the bare endpoint's throughput.
+2. One ``store=false`` assessment of 4,000 series x 156 observations, end to end over HTTP
+   (JSON parsing included), against a per-series loop over statsmodels/scipy computing the four
+   core tests (Ljung-Box, ARCH LM, Jarque-Bera, t test of a zero mean) on the same body, JSON
+   parsing included. Target: at least 20x faster.
+
+Every request loop is bounded in time and count and only talks to 127.0.0.1.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import os
+import re
+import shutil
+import signal
+import socket
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+import orjson
+from fastapi import FastAPI, Request
+from fastapi.responses import Response
+
+ROOT = Path(__file__).resolve().parents[2]
+TOKEN = "bench-admin-token"
+N_OBS = 156
+FLEET = 4000
+SEED = 156
+
+
+def free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def series(rng: np.random.Generator, sid: str) -> dict:
+    level = 100.0 + 10.0 * np.sin(np.arange(N_OBS) * 2 * np.pi / 52)
+    e = rng.normal(0.0, 3.0, N_OBS)
+    e[1:] += 0.2 * e[:-1]
+    return {"id": sid, "actuals": np.round(level + e, 3).tolist(),
+            "fitted": [None, *np.round(level[1:], 3).tolist()]}
+
+
+def body(n: int, seed: int = SEED) -> bytes:
+    rng = np.random.default_rng(seed)
+    return orjson.dumps({"model": "bench", "version": "1", "model_params": 1,
+                         "series": [series(rng, f"s{i}") for i in range(n)]})
+
+
+# ------------------------------------------------------------------------------ bare endpoint
+
+def bare_app() -> FastAPI:
+    app = FastAPI()
+
+    @app.post("/bare")
+    async def bare(request: Request) -> Response:
+        doc = orjson.loads(await request.body())
+        return Response(orjson.dumps({"n_series": len(doc["series"])}),
+                        media_type="application/json")
+
+    return app
+
+
+def serve_bare(port: int) -> None:
+    import uvicorn
+
+    uvicorn.run(bare_app(), host="127.0.0.1", port=port, workers=1, log_level="warning",
+                access_log=False)
+
+
+# ------------------------------------------------------------------------------ processes
+
+def start(args: list[str], env_extra: dict[str, str], log: Path) -> subprocess.Popen:
+    env = {k: v for k, v in os.environ.items() if not k.startswith("PLUMBLINE_")}
+    env.update({"PYTHONPATH": str(ROOT), **env_extra})
+    with log.open("ab") as out:
+        return subprocess.Popen([sys.executable, *args], cwd=ROOT, env=env, stdout=out,
+                                stderr=subprocess.STDOUT, start_new_session=True)
+
+
+def wait_up(url: str, proc: subprocess.Popen, timeout: float = 60.0) -> None:
+    import httpx
+
+    deadline = time.monotonic() + timeout
+    while time.monotonic() < deadline:
+        if proc.poll() is not None:
+            raise SystemExit(f"server exited with {proc.returncode}")
+        try:
+            httpx.get(url, timeout=1.0)
+            return
+        except httpx.HTTPError:
+            time.sleep(0.1)
+    raise SystemExit(f"{url} did not answer")
+
+
+def stop(proc: subprocess.Popen) -> None:
+    if proc.poll() is None:
+        os.killpg(proc.pid, signal.SIGTERM)
+        try:
+            proc.wait(timeout=20)
+        except subprocess.TimeoutExpired:
+            os.killpg(proc.pid, signal.SIGKILL)
+            proc.wait()
+
+
+# ------------------------------------------------------------------------------ load
+
+def wrk_rate(url: str, body_file: Path, seconds: int, connections: int, tmp: Path) -> float:
+    script = tmp / "post.lua"
+    script.write_text(
+        'wrk.method = "POST"\n'
+        'wrk.headers["Content-Type"] = "application/json"\n'
+        f'wrk.headers["Authorization"] = "Bearer {TOKEN}"\n'
+        f'local f = io.open("{body_file}", "rb")\nwrk.body = f:read("*a")\nf:close()\n'
+        "done = function(summary, latency, requests)\n"
+        '  io.write(string.format("ERRORS %d %d\\n", summary.errors.status, '
+        "summary.errors.connect + summary.errors.read + summary.errors.write + "
+        "summary.errors.timeout))\nend\n"
+    )
+    out = subprocess.run(
+        ["wrk", "-t1", f"-c{connections}", f"-d{seconds}s", "-s", str(script), url],
+        capture_output=True, text=True, timeout=seconds + 60, check=True,
+    ).stdout
+    rate = float(re.search(r"Requests/sec:\s+([\d.]+)", out).group(1))
+    errors = re.search(r"ERRORS (\d+) (\d+)", out)
+    if errors and (int(errors.group(1)) or int(errors.group(2))):
+        raise SystemExit(f"wrk saw errors against {url}:\n{out}")
+    return rate
+
+
+def python_rate(url: str, payload: bytes, seconds: int, connections: int) -> float:
+    """Bounded asyncio load loop (used when wrk is not installed)."""
+    import httpx
+
+    async def run() -> int:
+        done = 0
+        deadline = time.monotonic() + seconds
+        headers = {"Content-Type": "application/json", "Authorization": f"Bearer {TOKEN}"}
+        async with httpx.AsyncClient(timeout=30) as client:
+            async def worker() -> None:
+                nonlocal done
+                while time.monotonic() < deadline and done < 10_000_000:
+                    r = await client.post(url, content=payload, headers=headers)
+                    if r.status_code >= 300:
+                        raise SystemExit(f"{url}: {r.status_code} {r.text[:200]}")
+                    done += 1
+            await asyncio.gather(*(worker() for _ in range(connections)))
+        return done
+
+    start_t = time.monotonic()
+    count = asyncio.run(run())
+    return count / (time.monotonic() - start_t)
+
+
+def rate(url: str, payload: bytes, seconds: int, connections: int, tmp: Path) -> float:
+    if shutil.which("wrk"):
+        path = tmp / "body.json"
+        path.write_bytes(payload)
+        return wrk_rate(url, path, seconds, connections, tmp)
+    return python_rate(url, payload, seconds, connections)
+
+
+# ------------------------------------------------------------------------------ baseline
+
+def per_series_loop(payload: bytes) -> float:
+    """statsmodels/scipy one series at a time: Ljung-Box, ARCH LM, Jarque-Bera, t test."""
+    from scipy import stats
+    from statsmodels.stats.diagnostic import acorr_ljungbox, het_arch
+
+    t0 = time.perf_counter()
+    doc = orjson.loads(payload)
+    k = doc.get("model_params", 0)
+    for s in doc["series"]:
+        a = np.array(s["actuals"], dtype=float)
+        f = np.array([np.nan if v is None else v for v in s["fitted"]], dtype=float)
+        e = a - f
+        e = e[~np.isnan(e)]
+        lags = min(10, e.size // 5)
+        acorr_ljungbox(e, lags=[lags], model_df=k)
+        het_arch(e, nlags=min(10, e.size // 5))
+        stats.jarque_bera(e)
+        stats.ttest_1samp(e, 0.0)
+    return time.perf_counter() - t0
+
+
+def timed_posts(url: str, payload: bytes, repeats: int) -> list[tuple[float, object]]:
+    """``repeats`` POSTs of ``payload``: (seconds end to end, response) each."""
+    import httpx
+
+    out = []
+    with httpx.Client(timeout=300) as client:
+        for _ in range(repeats):
+            t0 = time.perf_counter()
+            r = client.post(url, content=payload, headers={"Content-Type": "application/json",
+                                                           "Authorization": f"Bearer {TOKEN}"})
+            out.append((time.perf_counter() - t0, r))
+            if r.status_code != 200:
+                raise SystemExit(f"{url}: {r.status_code} {r.text[:300]}")
+    return out
+
+
+def median_run(runs: list[tuple[float, object]]) -> tuple[float, object]:
+    ordered = sorted(runs, key=lambda run: run[0])
+    return ordered[len(ordered) // 2]
+
+
+def main() -> int:
+    parser = argparse.ArgumentParser()
+    parser.add_argument("--seconds", type=int, default=10)
+    parser.add_argument("--connections", type=int, default=8)
+    parser.add_argument("--repeats", type=int, default=3)
+    parser.add_argument("--bare-server", type=int, help=argparse.SUPPRESS)
+    args = parser.parse_args()
+    if args.bare_server:
+        serve_bare(args.bare_server)
+        return 0
+
+    single = body(1)
+    fleet = body(FLEET)
+    with tempfile.TemporaryDirectory() as tmp_name:
+        tmp = Path(tmp_name)
+        svc_port, bare_port = free_port(), free_port()
+        svc = start(["-c", "from service.api.server import run; "
+                     f"run(host='127.0.0.1', port={svc_port}, workers=1)"],
+                    {"PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp / 'bench.db'}",
+                     "PLUMBLINE_ADMIN_TOKEN": TOKEN}, tmp / "service.log")
+        bare = start([str(Path(__file__).resolve()), "--bare-server", str(bare_port)], {},
+                     tmp / "bare.log")
+        try:
+            wait_up(f"http://127.0.0.1:{svc_port}/healthz", svc)
+            wait_up(f"http://127.0.0.1:{bare_port}/docs", bare)
+            # Warm both up (imports, first connections) before measuring.
+            rate(f"http://127.0.0.1:{svc_port}/v1/assessments", single, 2, 2, tmp)
+            rate(f"http://127.0.0.1:{bare_port}/bare", single, 2, 2, tmp)
+            bare_rps = rate(f"http://127.0.0.1:{bare_port}/bare", single, args.seconds,
+                            args.connections, tmp)
+            svc_rps = rate(f"http://127.0.0.1:{svc_port}/v1/assessments", single, args.seconds,
+                           args.connections, tmp)
+            bare_fleet_s, _ = median_run(timed_posts(f"http://127.0.0.1:{bare_port}/bare",
+                                                     fleet, args.repeats))
+            stop(bare)
+            fleet_s, response = median_run(timed_posts(
+                f"http://127.0.0.1:{svc_port}/v1/assessments?store=false", fleet, args.repeats))
+            verdict = response.json()["verdict"]
+            stages = response.headers.get("server-timing", "")
+        finally:
+            stop(svc)
+            stop(bare)
+    loop_s = per_series_loop(fleet)
+    tool = "wrk" if shutil.which("wrk") else "python asyncio loop"
+    print(f"| measure | value |\n|---|---|\n"
+          f"| load tool | {tool}, {args.connections} connections, {args.seconds} s |\n"
+          f"| bare FastAPI endpoint (parse only), req/s | {bare_rps:.0f} |\n"
+          f"| POST /v1/assessments, 1 x {N_OBS} stored, req/s | {svc_rps:.0f} |\n"
+          f"| ratio (target >= 30%) | {100 * svc_rps / bare_rps:.1f}% |\n"
+          f"| {FLEET} x {N_OBS}, store=false, end to end (median of {args.repeats}) | "
+          f"{fleet_s:.2f} s (verdict {verdict}) |\n"
+          f"| of which server stages (Server-Timing, ms) | {stages} |\n"
+          f"| bare endpoint, same {FLEET}-series body (transfer + parse) | {bare_fleet_s:.2f} s |\n"
+          f"| per-series statsmodels/scipy loop, 4 tests | {loop_s:.2f} s |\n"
+          f"| speed-up (target >= 20x) | {loop_s / fleet_s:.1f}x |")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
