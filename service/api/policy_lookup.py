@@ -35,11 +35,11 @@ def builtin_default() -> Policy:
     return _BUILTIN[0]
 
 
-def _parsed(stored: repo.StoredPolicy) -> Policy:
-    key = (stored.name, stored.version)
+def _parsed(name: str, version: int, document: dict[str, Any]) -> Policy:
+    key = (name, version)
     policy = _PARSED.get(key)
     if policy is None:
-        policy = policy_from_document(stored.document, loc="policy")
+        policy = policy_from_document(document, loc="policy")
         if len(_PARSED) >= _PARSED_MAX:
             _PARSED.clear()
         _PARSED[key] = policy
@@ -62,9 +62,14 @@ def stored_or_builtin(engine: Engine, name: str, version: int | None = None
 
     The built-in default is version 1 of ``default``; stored versions of ``default`` follow it.
     """
-    stored = repo.get_policy(engine, name=name, version=version)
-    if stored is not None:
-        return _parsed(stored), stored.document
+    if version is None:
+        latest = repo.latest_policy_document(engine, name=name)
+        if latest is not None:
+            return _parsed(name, latest[0], latest[1]), latest[1]
+    else:
+        stored = repo.get_policy(engine, name=name, version=version)
+        if stored is not None:
+            return _parsed(name, stored.version, stored.document), stored.document
     if name == BUILTIN_DEFAULT and version in (None, 1):
         policy = builtin_default()
         return policy, policy.to_dict()

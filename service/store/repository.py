@@ -21,6 +21,7 @@ import orjson
 from sqlalchemy import Engine, func, insert, select, update
 from sqlalchemy.exc import IntegrityError
 
+from . import fastpath
 from .models import (
     AssessmentRow,
     IdempotencyKeyRow,
@@ -209,31 +210,33 @@ def save_assessment(
         }
         for i, s in enumerate(inputs)
     ]
+    stmts = fastpath.statements(engine)
+
+    def write(cursor: Any) -> int:
+        cursor.execute(stmts.insert_assessment.sql, stmts.insert_assessment.params({
+            "id": assessment_id, "created_at": created_at, "model": model,
+            "version": version, "verdict": verdict, "n_series": len(series),
+            "n_failed": n_failed, "n_warned": n_warned, "policy_name": policy_name,
+            "policy_version": policy_version,
+            "policy_document": orjson.dumps(policy_document).decode(),
+            "result": head.decode(),
+        }))
+        seq = int(cursor.fetchone()[0])
+        for row in result_rows:
+            row["assessment_seq"] = seq
+        for row in input_rows:
+            row["assessment_seq"] = seq
+        fastpath.executemany(cursor, stmts.insert_series_result, result_rows)
+        fastpath.executemany(cursor, stmts.insert_series_input, input_rows)
+        if idempotency_key is not None:
+            cursor.execute(stmts.insert_key.sql, stmts.insert_key.params({
+                "key": idempotency_key, "body_hash": body_hash, "assessment_seq": seq,
+                "created_at": created_at}))
+        return seq
+
     try:
-        with engine.begin() as conn:
-            seq = conn.execute(
-                insert(A).returning(A.c.seq),
-                {
-                    "id": assessment_id, "created_at": created_at, "model": model,
-                    "version": version, "verdict": verdict, "n_series": len(series),
-                    "n_failed": n_failed, "n_warned": n_warned, "policy_name": policy_name,
-                    "policy_version": policy_version,
-                    "policy_document": orjson.dumps(policy_document).decode(),
-                    "result": head.decode(),
-                },
-            ).scalar_one()
-            for row in result_rows:
-                row["assessment_seq"] = seq
-            for row in input_rows:
-                row["assessment_seq"] = seq
-            if result_rows:
-                conn.execute(insert(SR), result_rows)
-            if input_rows:
-                conn.execute(insert(SI), input_rows)
-            if idempotency_key is not None:
-                conn.execute(insert(K), {"key": idempotency_key, "body_hash": body_hash,
-                                         "assessment_seq": seq, "created_at": created_at})
-    except IntegrityError:
+        seq = fastpath.run_in_transaction(engine, write)
+    except stmts.integrity_error:
         if idempotency_key is not None and find_idempotency_key(
             engine, key=idempotency_key
         ) is not None:
@@ -418,6 +421,21 @@ def get_policy(engine: Engine, *, name: str, version: int | None = None) -> Stor
         return None
     return StoredPolicy(name=row.name, version=row.version, document=orjson.loads(row.document),
                         created_at=_aware(row.created_at))
+
+
+def latest_policy_document(engine: Engine, *, name: str) -> tuple[int, dict[str, Any]] | None:
+    """``(version, document)`` of the newest version of policy ``name``, or ``None`` (the hot
+    path of every assessment that names a policy)."""
+    stmt = fastpath.statements(engine).latest_policy
+
+    def read(cursor: Any) -> Any:
+        cursor.execute(stmt.sql, stmt.params({"name": name, "one": 1}))
+        return cursor.fetchone()
+
+    row = fastpath.run_in_transaction(engine, read)
+    if row is None:
+        return None
+    return int(row[0]), orjson.loads(row[1])
 
 
 def list_policies(engine: Engine) -> list[StoredPolicy]:
