@@ -405,17 +405,40 @@ def _series_checks(checks: Sequence[Mapping[str, Any]]) -> str:
     )
 
 
+def neighbours(
+    series: Sequence[Mapping[str, Any]], series_id: str
+) -> tuple[str | None, str | None]:
+    """The ids before and after ``series_id`` in the worst-first order of the fleet page."""
+    ids = [str(s.get("id")) for s in series_order(series)]
+    try:
+        i = ids.index(series_id)
+    except ValueError:
+        return None, None
+    return (ids[i - 1] if i > 0 else None), (ids[i + 1] if i + 1 < len(ids) else None)
+
+
 def render_series(
     assessment: Mapping[str, Any],
     series: Mapping[str, Any],
     charts: Sequence[Chart],
     *,
     report_href: str,
+    previous: tuple[str, str] | None = None,
+    following: tuple[str, str] | None = None,
 ) -> str:
-    """One series' page: its verdict, bias, every check and the diagnostic charts."""
+    """One series' page: its verdict, bias, every check and the diagnostic charts.
+
+    ``previous`` and ``following`` are ``(series_id, href)`` of its neighbours in the fleet
+    page's worst-first order, for stepping through the failures one by one.
+    """
     sid = str(series.get("id"))
     bias = series.get("bias") or {}
-    back = f'<p class="meta"><a href="{_e(report_href)}">← back to the fleet report</a></p>'
+    steps = [f'<a href="{_e(report_href)}">← back to the fleet report</a>']
+    if previous is not None:
+        steps.append(f'<a rel="prev" href="{_e(previous[1])}">worse: {_e(previous[0])}</a>')
+    if following is not None:
+        steps.append(f'<a rel="next" href="{_e(following[1])}">next: {_e(following[0])} →</a>')
+    back = f'<p class="meta">{" · ".join(steps)}</p>'
     header = _header({**assessment, "verdict": series.get("verdict")}, f"Series {sid}", back)
     facts = _facts(
         [

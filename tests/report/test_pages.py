@@ -16,6 +16,7 @@ from service.report import (
     CONTENT_SECURITY_POLICY,
     SeriesInputs,
     find_series,
+    neighbours,
     render_charts,
     render_report,
     render_series,
@@ -155,3 +156,17 @@ def test_series_page(body: dict, assessment: dict) -> None:
         assert f'<tr data-check="{c["name"]}">' in page
     assert "<script" not in page  # the series page needs no script at all
     assert find_series(assessment, "no-such-series") is None
+    assert 'rel="prev"' not in page and 'rel="next"' not in page
+
+
+def test_neighbours_follow_the_worst_first_order(assessment: dict) -> None:
+    order = [s["id"] for s in series_order(assessment["series"])]
+    assert neighbours(assessment["series"], order[0]) == (None, order[1])
+    assert neighbours(assessment["series"], order[3]) == (order[2], order[4])
+    assert neighbours(assessment["series"], order[-1]) == (order[-2], None)
+    assert neighbours(assessment["series"], "nope") == (None, None)
+    entry = find_series(assessment, order[3])
+    page = render_series(assessment, entry, (), report_href="/r",
+                         previous=(order[2], "/p"), following=(order[4], "/n"))
+    assert f'<a rel="prev" href="/p">worse: {order[2]}</a>' in page
+    assert f'<a rel="next" href="/n">next: {order[4]} →</a>' in page

@@ -127,7 +127,14 @@ def test_signed_link_opens_only_that_report(client, stored) -> None:
     sid = stored["series"][0]["id"]
     series_path = f"{url.path}/series/{quote(sid, safe='')}?{url.query}"
     assert series_path.replace("&", "&amp;") in page.text
-    assert client.get(series_path).status_code == 200
+    series_page = client.get(series_path)
+    assert series_page.status_code == 200
+    # Its own links (back, previous, next) keep the signature too.
+    hrefs = re.findall(r'<a (?:rel="\w+" )?href="([^"]+)"', series_page.text)
+    assert len(hrefs) >= 2
+    for href in hrefs:
+        assert href.endswith("?" + url.query.replace("&", "&amp;")), href
+        assert client.get(href.replace("&amp;", "&")).status_code == 200
     # Not another assessment's report, nor the JSON of this one.
     _problem(client.get(f"/v1/assessments/{other['id']}/report?{url.query}"), 403)
     _problem(client.get(f"/v1/assessments/{stored['id']}?{url.query}"), 401)

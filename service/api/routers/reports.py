@@ -165,16 +165,6 @@ async def get_report(
     return _html(await run_in_threadpool(work))
 
 
-def _one_series(stored: repo.StoredAssessment, series_id: str) -> dict[str, Any] | None:
-    needle = b'"id":' + orjson.dumps(series_id)
-    for blob in stored.series:
-        if needle in blob:
-            entry = orjson.loads(blob)
-            if str(entry.get("id")) == series_id:
-                return entry
-    return None
-
-
 def _inputs_of(request: Request, assessment_id: str, series_id: str) -> Any:
     from service.report import SeriesInputs
 
@@ -215,16 +205,28 @@ async def get_series_report(
     the fitted normal, residuals against fitted values and, with a holdout, actuals against
     forecasts with the interval and the best benchmark. Drawn on request (and cached)."""
     query = await _admit(request, assessment_id)
-    back = _report_path(request, assessment_id) + (f"?{query}" if query else "")
+    base = _report_path(request, assessment_id)
+    suffix = f"?{query}" if query else ""
 
     def work() -> str:
-        from service.report import render_charts, render_series, series_diagnostics
+        from service.report import (
+            find_series,
+            neighbours,
+            render_charts,
+            render_series,
+            series_diagnostics,
+        )
 
         stored = _stored(request, assessment_id)
-        entry = _one_series(stored, series_id)
+        fleet = [orjson.loads(blob) for blob in stored.series]
+        entry = find_series({"series": fleet}, series_id)
         if entry is None:
             raise ApiError(404, f"assessment {assessment_id!r} has no series {series_id!r}")
         head = orjson.loads(stored.head)
+        before, after = neighbours(fleet, series_id)
+
+        def page_of(sid: str | None) -> tuple[str, str] | None:
+            return None if sid is None else (sid, f"{base}/series/{quote(sid, safe='')}{suffix}")
 
         def draw() -> tuple:
             inputs = _inputs_of(request, assessment_id, series_id)
@@ -237,7 +239,8 @@ async def get_series_report(
             return render_charts(diag)
 
         charts = _chart_cache(request).get_or_render((assessment_id, series_id), draw)
-        return render_series(head, entry, charts, report_href=back)
+        return render_series(head, entry, charts, report_href=base + suffix,
+                             previous=page_of(before), following=page_of(after))
 
     return _html(await run_in_threadpool(work))
 
