@@ -31,6 +31,7 @@ from .models import (
     ServerSecretRow,
     TokenRow,
 )
+from .writelock import write_lock
 
 A = AssessmentRow.__table__
 SR = SeriesResultRow.__table__
@@ -235,7 +236,8 @@ def save_assessment(
         return seq
 
     try:
-        seq = fastpath.run_in_transaction(engine, write)
+        with write_lock(engine):
+            seq = fastpath.run_in_transaction(engine, write)
     except stmts.integrity_error:
         if idempotency_key is not None and find_idempotency_key(
             engine, key=idempotency_key
