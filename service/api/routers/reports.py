@@ -25,7 +25,7 @@ from service.store import repository as repo
 
 from ..auth import require
 from ..errors import ApiError
-from ..http import json_response, problem_docs
+from ..httputil import json_response, problem_docs
 
 router = APIRouter(prefix="/v1/assessments", tags=["reports"])
 
@@ -249,7 +249,7 @@ async def get_series_report(
     "/{assessment_id}/links",
     summary="A signed, expiring link that opens this report without a token",
     response_model=LinkCreated,
-    responses=problem_docs(401, 403, 404, 422),
+    responses=problem_docs(400, 401, 403, 404, 422),
 )
 async def create_link(
     request: Request,
