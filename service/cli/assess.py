@@ -1,0 +1,143 @@
+"""``plumbline assess``: on a server through the client, or offline with the core in-process."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from typing import IO, Any
+
+from ..client import AssessmentResult, ClientError
+from . import render
+from .connect import client_from_args, note, retry_notice, server_from_args
+from .csvbody import csv_as_body, errors_line, parse_csv
+from .errors import CliError, Exit
+from .inputs import AssessInput, Overrides, load_input, load_policy_option, parse_label
+from .progress import Spinner, interactive
+
+
+def overrides_from_args(args: argparse.Namespace) -> Overrides:
+    return Overrides(
+        model=args.model,
+        version=args.version,
+        policy=None if args.policy is None else load_policy_option(args.policy),
+        season_length=args.season_length,
+        model_params=args.model_params,
+        level=args.level,
+        labels=dict(parse_label(text) for text in args.label),
+    )
+
+
+def run(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
+    if args.offline and args.server:
+        raise CliError("--offline and --server exclude each other")
+    overrides = overrides_from_args(args)
+    server = None if args.offline else server_from_args(args, purpose="assess against")
+    link = None
+    with Spinner(f"reading {args.file}", enabled=interactive()) as spin:
+        inp = load_input(args.file, overrides, args.format)
+        if server is None:
+            spin.update(_what("assessing", inp) + " offline")
+            result = assess_offline(inp)
+            where = "offline"
+        else:
+            with client_from_args(args, server, on_retry=retry_notice) as client:
+                spin.update(_what("assessing", inp) + f" on {server}")
+                result = send(client, inp, store=args.store, key=args.idempotency_key)
+                if result.id is not None:
+                    spin.update("asking for a report link")
+                    link = report_link(client, result)
+            where = "--no-store"
+    code = Exit.BLOCKS if result.blocks(args.fail_on) else Exit.PASSES
+    args.exit_code = code  # what main answers if the output pipe closes early
+    if args.json:
+        render.dump_json(result.data, out)
+    else:
+        render.assessment(result, out, fail_on=args.fail_on, where=where, link=link)
+    return code
+
+
+def _what(verb: str, inp: AssessInput) -> str:
+    n = inp.n_series
+    return f"{verb} {inp.name}" + ("" if n is None else f" ({n:,} series)")
+
+
+
+
+def send(
+    client: Any, inp: AssessInput, *, store: bool, key: str | None = None
+) -> AssessmentResult:
+    """One assessment on the server (retried with one Idempotency-Key by the client)."""
+    body = inp.body
+    if inp.kind == "csv":
+        if inp.inline_policy is None and not inp.labels:
+            return client.assess(
+                csv=inp.text, params=inp.params, store=store, idempotency_key=key
+            )
+        body = csv_as_body(inp)
+    try:
+        return client.assess(body, store=store, idempotency_key=key)
+    except ValueError as exc:  # NaN/inf in the body
+        raise CliError(f"{inp.name}: {exc}") from None
+
+
+def report_link(client: Any, result: AssessmentResult) -> str | None:
+    """The result's report link, if the answer has one, else one made by the server when it
+    offers ``POST /v1/assessments/{id}/links``; ``None`` when it does not."""
+    links = result.data.get("links")
+    if hasattr(links, "get") and links.get("report"):
+        return str(links.get("report"))
+    if result.data.get("report_url"):
+        return str(result.data["report_url"])
+    try:
+        return client.create_link(result.id)
+    except ClientError as exc:
+        note(f"no report link ({exc})")
+        return None
+
+
+def assess_offline(inp: AssessInput) -> AssessmentResult:
+    """Validate with ``service.ingest`` and judge with the core gate, all in this process."""
+    from .. import ingest
+    from ..core import InputError
+    from ..core.gate import assess
+    from ..core.policy import Policy, PolicyError, default_policy
+
+    if inp.kind == "json":
+        try:
+            request = ingest.parse_json_request(inp.body)
+        except ingest.RequestInvalid as exc:
+            raise CliError(f"{inp.name}: invalid request: {errors_line(exc.errors)}") from None
+        except InputError as exc:
+            raise CliError(f"{inp.name}: invalid request: {exc}") from None
+        policy_value, labels = request.policy, dict(request.labels)
+    else:
+        request = parse_csv(inp)
+        policy_value = inp.inline_policy if inp.inline_policy is not None else request.policy
+        labels = {**request.labels, **inp.labels}
+
+    if isinstance(policy_value, str):
+        policy = default_policy()
+        if policy_value not in (policy.name, f"{policy.name}@{policy.version}"):
+            raise CliError(
+                f"policy {policy_value!r} is stored on a server; offline knows only "
+                f"{policy.name!r}: pass a policy file with --policy FILE"
+            )
+    else:
+        try:
+            policy = Policy.from_dict(policy_value)
+        except PolicyError as exc:
+            errors = [{"loc": f"policy.{e['loc']}", "message": e["message"]} for e in exc.errors]
+            raise CliError(f"{inp.name}: invalid policy: {errors_line(errors)}") from None
+
+    data: dict[str, Any] = {
+        "id": None,
+        "created_at": None,
+        "model": request.model,
+        "version": request.version,
+        "stored": False,
+        "labels": labels,
+        "season_length": request.season_length,
+        "model_params": request.model_params,
+    }
+    data.update(assess(request.batch, policy).to_dict())
+    return AssessmentResult.from_json(data)

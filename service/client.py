@@ -1,0 +1,715 @@
+"""A small synchronous client for the Plumbline REST API, built on httpx.
+
+Connection errors and 5xx answers are retried with exponential backoff. Every assessment is sent
+with one ``Idempotency-Key`` reused across its retries, so a retry after a lost answer returns the
+stored result (200) instead of storing the assessment a second time.
+
+Example::
+
+    from service.client import PlumblineClient
+
+    with PlumblineClient("http://127.0.0.1:8000", token="...") as client:
+        result = client.assess(body)
+        if result.blocks("fail"):
+            raise SystemExit(1)
+
+Tests (or an application embedding the service) pass their own ``httpx.Client`` (for instance
+Starlette's ``TestClient``) as ``http=``, or an ``httpx.BaseTransport`` as ``transport=``.
+"""
+
+from __future__ import annotations
+
+import json
+import time
+import uuid
+from collections.abc import Callable, Mapping, Sequence
+from dataclasses import dataclass
+from types import MappingProxyType
+from typing import Any
+
+import httpx
+
+__all__ = [
+    "VERDICTS",
+    "AssessmentPage",
+    "AssessmentResult",
+    "AssessmentSummary",
+    "CheckSummary",
+    "ClientError",
+    "PlumblineClient",
+    "PolicyRef",
+    "Reason",
+    "RequestRejected",
+    "ServerError",
+    "ServerUnreachable",
+    "TokenCreated",
+    "TokenInfo",
+    "VerdictResult",
+    "verdict_blocks",
+]
+
+VERDICTS = ("pass", "warn", "fail")
+"""Verdicts from best to worst."""
+
+_RANK = {v: i for i, v in enumerate(VERDICTS)}
+
+
+def verdict_blocks(verdict: str, fail_on: str = "fail") -> bool:
+    """True when ``verdict`` is at or worse than ``fail_on`` (both one of :data:`VERDICTS`)."""
+    if fail_on not in _RANK:
+        raise ValueError(f"fail_on must be one of {', '.join(VERDICTS)}, got {fail_on!r}")
+    if verdict not in _RANK:
+        raise ValueError(f"verdict must be one of {', '.join(VERDICTS)}, got {verdict!r}")
+    return _RANK[verdict] >= _RANK[fail_on]
+
+
+# --------------------------------------------------------------------------- errors
+
+
+class ClientError(Exception):
+    """Base class of everything this client raises about a request."""
+
+
+class ServerUnreachable(ClientError):
+    """No answer from the server after every retry (connection refused, timeout, reset...)."""
+
+    def __init__(self, url: str, attempts: int, cause: Exception) -> None:
+        self.url = url
+        self.attempts = attempts
+        self.cause = cause
+        noun = "attempt" if attempts == 1 else "attempts"
+        super().__init__(
+            f"server unreachable at {url} after {attempts} {noun}: {_describe(cause)}"
+        )
+
+
+class ServerError(ClientError):
+    """The server answered with a 5xx after every retry, or with a body that is not the API's."""
+
+    def __init__(self, message: str, *, status: int | None = None) -> None:
+        self.status = status
+        super().__init__(message)
+
+
+class RequestRejected(ClientError):
+    """A 4xx answer: the request (body, token, scope, name...) was refused.
+
+    ``title``/``detail``/``errors`` come from the RFC 9457 problem body; ``errors`` is the list of
+    ``{"loc", "message"}`` the server gives for invalid input (empty otherwise).
+    """
+
+    def __init__(
+        self,
+        status: int,
+        title: str,
+        detail: str,
+        errors: Sequence[Mapping[str, Any]] = (),
+        body: Mapping[str, Any] | None = None,
+    ) -> None:
+        self.status = status
+        self.title = title
+        self.detail = detail
+        self.errors = tuple(dict(e) for e in errors)
+        self.body = dict(body or {})
+        super().__init__(self.summary())
+
+    def summary(self, limit: int = 3) -> str:
+        """One line: the status, then the first ``limit`` field errors (or the detail)."""
+        head = f"{self.status} {self.title}".strip()
+        if self.errors:
+            parts = [_error_text(e) for e in self.errors[:limit]]
+            more = len(self.errors) - limit
+            text = "; ".join(parts) + (f" (and {more} more)" if more > 0 else "")
+            return f"{head}: {text}"
+        return f"{head}: {self.detail}" if self.detail else head
+
+
+def _error_text(error: Mapping[str, Any]) -> str:
+    loc = error.get("loc")
+    message = str(error.get("message", "invalid"))
+    return f"{loc}: {message}" if loc else message
+
+
+def _describe(exc: Exception) -> str:
+    text = str(exc).strip()
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
+
+
+# --------------------------------------------------------------------------- results
+
+
+@dataclass(frozen=True)
+class PolicyRef:
+    """The policy an assessment was judged by."""
+
+    name: str
+    version: int | None
+
+
+@dataclass(frozen=True)
+class Reason:
+    """One warn or fail, as a sentence a person can act on."""
+
+    check: str
+    status: str
+    series_id: str | None
+    message: str
+
+
+@dataclass(frozen=True)
+class CheckSummary:
+    """One check across the fleet."""
+
+    name: str
+    status: str
+    series_tested: int
+    series_failed: int
+    series_warned: int
+    failed_share: float | None
+    message: str
+
+
+@dataclass(frozen=True)
+class AssessmentResult:
+    """An assessment as the API returns it (or as ``--offline`` computes it).
+
+    ``data`` holds the whole JSON answer (a read-only view of its top level; treat the nested
+    values as read-only too), the typed fields the parts a caller usually needs. ``id`` is
+    ``None`` when the result was not stored; ``replayed`` is true when the server answered a
+    repeated ``Idempotency-Key`` with the result it had stored before.
+    """
+
+    id: str | None
+    created_at: str | None
+    model: str | None
+    version: str | None
+    verdict: str
+    policy: PolicyRef
+    reasons: tuple[Reason, ...]
+    checks: tuple[CheckSummary, ...]
+    series_verdicts: tuple[tuple[str, str], ...]
+    data: Mapping[str, Any]
+    replayed: bool = False
+
+    @property
+    def n_series(self) -> int:
+        return len(self.series_verdicts)
+
+    def count(self, verdict: str) -> int:
+        """How many series got ``verdict``."""
+        return sum(1 for _, v in self.series_verdicts if v == verdict)
+
+    def blocks(self, fail_on: str = "fail") -> bool:
+        """True when the verdict is at or worse than ``fail_on``."""
+        return verdict_blocks(self.verdict, fail_on)
+
+    def to_dict(self) -> dict[str, Any]:
+        """A copy of the full JSON answer as a plain dict."""
+        import orjson
+
+        return orjson.loads(orjson.dumps(dict(self.data)))
+
+    @classmethod
+    def from_json(cls, data: Mapping[str, Any], *, replayed: bool = False) -> AssessmentResult:
+        """Build from the API's JSON; raises ``ValueError`` naming the first field that is off."""
+        if not isinstance(data, Mapping):
+            raise ValueError("expected a JSON object")
+        verdict = data.get("verdict")
+        if verdict not in _RANK:
+            raise ValueError(f"'verdict' is {verdict!r}, expected one of {', '.join(VERDICTS)}")
+        policy = data.get("policy") or {}
+        if not isinstance(policy, Mapping):
+            raise ValueError("'policy' is not an object")
+        reasons = tuple(
+            Reason(
+                check=str(r["check"]),
+                status=str(r["status"]),
+                series_id=None if r.get("series_id") is None else str(r["series_id"]),
+                message=str(r.get("message", "")),
+            )
+            for r in _items(data, "reasons")
+        )
+        checks = tuple(
+            CheckSummary(
+                name=str(c["name"]),
+                status=str(c["status"]),
+                series_tested=int(c.get("series_tested") or 0),
+                series_failed=int(c.get("series_failed") or 0),
+                series_warned=int(c.get("series_warned") or 0),
+                failed_share=None if c.get("failed_share") is None else float(c["failed_share"]),
+                message=str(c.get("message", "")),
+            )
+            for c in _items(data, "checks")
+        )
+        series = tuple((str(s["id"]), str(s["verdict"])) for s in _items(data, "series"))
+        return cls(
+            id=None if data.get("id") is None else str(data["id"]),
+            created_at=data.get("created_at"),
+            model=data.get("model"),
+            version=None if data.get("version") is None else str(data["version"]),
+            verdict=str(verdict),
+            policy=PolicyRef(name=str(policy.get("name", "")), version=policy.get("version")),
+            reasons=reasons,
+            checks=checks,
+            series_verdicts=series,
+            data=MappingProxyType(dict(data)),
+            replayed=replayed,
+        )
+
+
+def _items(data: Mapping[str, Any], key: str) -> list[Mapping[str, Any]]:
+    items = data.get(key) or []
+    if not isinstance(items, list) or not all(isinstance(i, Mapping) for i in items):
+        raise ValueError(f"'{key}' is not a list of objects")
+    return items
+
+
+@dataclass(frozen=True)
+class AssessmentSummary:
+    """One row of ``GET /v1/assessments``."""
+
+    id: str
+    created_at: str | None
+    model: str
+    version: str
+    verdict: str
+    n_series: int
+    n_failed: int
+    n_warned: int
+    policy: PolicyRef
+
+    @classmethod
+    def from_json(cls, row: Mapping[str, Any]) -> AssessmentSummary:
+        policy = row.get("policy") or {}
+        if isinstance(policy, str):  # a bare name
+            policy = {"name": policy}
+        return cls(
+            id=str(row["id"]),
+            created_at=row.get("created_at"),
+            model=str(row["model"]),
+            version=str(row["version"]),
+            verdict=str(row["verdict"]),
+            n_series=int(row.get("n_series") or 0),
+            n_failed=int(row.get("n_failed") or 0),
+            n_warned=int(row.get("n_warned") or 0),
+            policy=PolicyRef(name=str(policy.get("name", "")), version=policy.get("version")),
+        )
+
+
+@dataclass(frozen=True)
+class AssessmentPage:
+    """A page of summaries, newest first; ``next_cursor`` fetches the next (``None``: last)."""
+
+    items: tuple[AssessmentSummary, ...]
+    next_cursor: str | None
+
+    @classmethod
+    def from_json(cls, data: Mapping[str, Any]) -> AssessmentPage:
+        items = data.get("items")
+        if not isinstance(items, list):
+            raise ValueError("'items' is not a list")
+        cursor = data.get("next_cursor")
+        return cls(
+            items=tuple(AssessmentSummary.from_json(r) for r in items),
+            next_cursor=None if cursor is None else str(cursor),
+        )
+
+
+@dataclass(frozen=True)
+class VerdictResult:
+    """The latest stored verdict of a model; ``met`` answers ``require`` (``None`` without it)."""
+
+    model: str
+    version: str | None
+    verdict: str
+    assessment_id: str | None
+    created_at: str | None
+    met: bool | None
+
+    @classmethod
+    def from_json(cls, data: Mapping[str, Any], *, met: bool | None) -> VerdictResult:
+        if not isinstance(data, Mapping):
+            raise ValueError("expected a JSON object")
+        verdict = data.get("verdict")
+        if verdict not in _RANK:
+            raise ValueError(f"'verdict' is {verdict!r}, expected one of {', '.join(VERDICTS)}")
+        return cls(
+            model=str(data.get("model", "")),
+            version=None if data.get("version") is None else str(data["version"]),
+            verdict=str(verdict),
+            assessment_id=None if data.get("assessment_id") is None else str(data["assessment_id"]),
+            created_at=data.get("created_at"),
+            met=met,
+        )
+
+
+@dataclass(frozen=True)
+class TokenCreated:
+    """A new token; ``token`` is the secret, shown this once."""
+
+    id: str
+    token: str
+    label: str | None = None
+    scopes: tuple[str, ...] = ()
+
+
+@dataclass(frozen=True)
+class TokenInfo:
+    """A stored token without its secret."""
+
+    id: str
+    label: str | None
+    scopes: tuple[str, ...]
+    created_at: str | None
+    revoked_at: str | None
+
+    @property
+    def active(self) -> bool:
+        return self.revoked_at is None
+
+
+# --------------------------------------------------------------------------- client
+
+RetryHook = Callable[[int, float, str], None]
+"""Called before each retry with (attempt number just failed, delay in seconds, what failed)."""
+
+
+class PlumblineClient:
+    """Synchronous client of the Plumbline API.
+
+    Parameters
+    ----------
+    base_url
+        Server root, e.g. ``http://127.0.0.1:8000`` (a path prefix is kept). May be omitted when
+        ``http`` already has a ``base_url``.
+    token
+        Bearer token sent as ``Authorization``.
+    http
+        An ``httpx.Client`` to use (not closed by this client), e.g. Starlette's ``TestClient``.
+    transport
+        An ``httpx.BaseTransport`` for a client built here (ignored when ``http`` is given).
+    timeout
+        Seconds to wait for an answer (an assessment of a large fleet takes a while).
+    retries
+        Retries after the first attempt on a connection error or a 5xx answer.
+    backoff, max_backoff
+        Delay before retry ``i`` (0-based) is ``min(backoff * 2**i, max_backoff)`` seconds; a
+        numeric ``Retry-After`` on a 5xx answer is honoured up to ``max_backoff``.
+    sleep, on_retry
+        ``sleep(seconds)`` waits between attempts (default ``time.sleep``); ``on_retry(attempt,
+        delay, what)`` is told before each retry.
+    """
+
+    def __init__(
+        self,
+        base_url: str | None = None,
+        *,
+        token: str | None = None,
+        http: httpx.Client | None = None,
+        transport: httpx.BaseTransport | None = None,
+        timeout: float = 120.0,
+        retries: int = 3,
+        backoff: float = 0.5,
+        max_backoff: float = 8.0,
+        sleep: Callable[[float], None] | None = None,
+        on_retry: RetryHook | None = None,
+    ) -> None:
+        if retries < 0:
+            raise ValueError(f"retries must be >= 0, got {retries}")
+        if backoff < 0 or max_backoff < 0:
+            raise ValueError("backoff and max_backoff must be >= 0")
+        if base_url is None and http is None:
+            raise ValueError("base_url is required unless an httpx.Client is given as http")
+        self._base = "" if base_url is None else _check_base_url(base_url)
+        self._token = token
+        self._owns_http = http is None
+        self._http = http if http is not None else httpx.Client(
+            transport=transport, timeout=httpx.Timeout(timeout, connect=10.0)
+        )
+        self._retries = retries
+        self._backoff = backoff
+        self._max_backoff = max_backoff
+        self._sleep = sleep if sleep is not None else time.sleep
+        self._on_retry = on_retry
+
+    @property
+    def base_url(self) -> str:
+        return self._base or str(self._http.base_url)
+
+    def close(self) -> None:
+        if self._owns_http:
+            self._http.close()
+
+    def __enter__(self) -> PlumblineClient:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self.close()
+
+    # ------------------------------------------------------------------ endpoints
+
+    def assess(
+        self,
+        body: Mapping[str, Any] | None = None,
+        *,
+        csv: str | None = None,
+        params: Mapping[str, Any] | None = None,
+        store: bool = True,
+        idempotency_key: str | None = None,
+    ) -> AssessmentResult:
+        """``POST /v1/assessments`` with a JSON ``body`` or ``csv`` text (long format).
+
+        ``params`` become query parameters (for CSV: model, version, policy, season_length,
+        model_params, level). One ``Idempotency-Key`` (``idempotency_key`` or a fresh UUID) is
+        sent on every attempt of this call.
+        """
+        if (body is None) == (csv is None):
+            raise ValueError("give exactly one of body or csv")
+        if body is not None:
+            try:
+                content = json.dumps(body, allow_nan=False, separators=(",", ":")).encode()
+            except ValueError as exc:
+                raise ValueError(
+                    "body holds NaN or infinity, which JSON cannot carry; use null for missing"
+                ) from exc
+            content_type = "application/json"
+        else:
+            content = csv.encode()  # type: ignore[union-attr]
+            content_type = "text/csv"
+        query = {k: _param(v) for k, v in (params or {}).items() if v is not None}
+        if not store:
+            query["store"] = "false"
+        headers = {
+            "Content-Type": content_type,
+            "Idempotency-Key": idempotency_key or str(uuid.uuid4()),
+        }
+        resp = self._send(
+            "POST", "/v1/assessments", content=content, headers=headers, params=query
+        )
+        data = self._json(resp)
+        replayed = resp.status_code == 200 or resp.headers.get("Idempotent-Replayed") == "true"
+        return self._parse(AssessmentResult.from_json, data, replayed=replayed)
+
+    def assessment(self, assessment_id: str) -> AssessmentResult:
+        """``GET /v1/assessments/{id}``: a stored result."""
+        resp = self._send("GET", f"/v1/assessments/{_segment(assessment_id)}")
+        return self._parse(AssessmentResult.from_json, self._json(resp))
+
+    def list_assessments(
+        self,
+        *,
+        model: str | None = None,
+        version: str | None = None,
+        verdict: str | None = None,
+        since: str | None = None,
+        until: str | None = None,
+        limit: int | None = None,
+        cursor: str | None = None,
+    ) -> AssessmentPage:
+        """``GET /v1/assessments``: one page of summaries, newest first."""
+        filters = {"model": model, "version": version, "verdict": verdict, "since": since,
+                   "until": until, "limit": limit, "cursor": cursor}
+        params = {k: _param(v) for k, v in filters.items() if v is not None}
+        resp = self._send("GET", "/v1/assessments", params=params)
+        return self._parse(AssessmentPage.from_json, self._json(resp))
+
+    def verdict(
+        self, model: str, *, version: str | None = None, require: str | None = None
+    ) -> VerdictResult:
+        """``GET /v1/models/{model}/verdict``; with ``require``, a 412 gives ``met=False``."""
+        if require is not None and require not in ("pass", "warn"):
+            raise ValueError(f"require must be 'pass' or 'warn', got {require!r}")
+        params = {k: v for k, v in (("version", version), ("require", require)) if v is not None}
+        resp = self._send(
+            "GET", f"/v1/models/{_segment(model)}/verdict", params=params, accept={412}
+        )
+        met: bool | None = None if require is None else resp.status_code != 412
+        return self._parse(VerdictResult.from_json, self._json(resp), met=met)
+
+    def create_link(self, assessment_id: str) -> str | None:
+        """``POST /v1/assessments/{id}/links``: a shareable report URL, or ``None`` when the
+        server does not offer links (404/405) or this token may not make one (403)."""
+        try:
+            resp = self._send(
+                "POST", f"/v1/assessments/{_segment(assessment_id)}/links", retry=False
+            )
+        except RequestRejected as exc:
+            if exc.status in (403, 404, 405):
+                return None
+            raise
+        url = self._json(resp).get("url")
+        return str(url) if url else None
+
+    def create_token(self, *, scopes: Sequence[str], label: str) -> TokenCreated:
+        """``POST /v1/tokens`` (admin): the secret is in the answer only this once."""
+        body = json.dumps({"scopes": list(scopes), "label": label}).encode()
+        resp = self._send(
+            "POST", "/v1/tokens", content=body, headers={"Content-Type": "application/json"},
+            retry=False,
+        )
+        data = self._json(resp)
+        try:
+            return TokenCreated(
+                id=str(data["id"]),
+                token=str(data["token"]),
+                label=data.get("label", label),
+                scopes=tuple(data.get("scopes", scopes)),
+            )
+        except KeyError as exc:
+            raise ServerError(f"token answer lacks {exc}", status=resp.status_code) from None
+
+    def list_tokens(self) -> list[TokenInfo]:
+        """``GET /v1/tokens`` (admin): ``{"items": [{"id", "label", "scopes", "created_at",
+        "revoked_at"}]}``."""
+        data = self._json(self._send("GET", "/v1/tokens"))
+        try:
+            return [
+                TokenInfo(
+                    id=str(t["id"]),
+                    label=t.get("label"),
+                    scopes=tuple(t.get("scopes") or ()),
+                    created_at=t.get("created_at"),
+                    revoked_at=t.get("revoked_at"),
+                )
+                for t in data["items"]
+            ]
+        except (KeyError, TypeError) as exc:
+            raise ServerError(f"token list answer is malformed ({exc})") from None
+
+    def revoke_token(self, token_id: str) -> None:
+        """``DELETE /v1/tokens/{id}`` (admin)."""
+        self._send("DELETE", f"/v1/tokens/{_segment(token_id)}")
+
+    # ------------------------------------------------------------------ plumbing
+
+    def _delay(self, attempt: int, resp: httpx.Response | None = None) -> float:
+        delay = min(self._backoff * (2**attempt), self._max_backoff)
+        if resp is not None:
+            after = resp.headers.get("Retry-After", "")
+            if after.strip().isdigit():
+                delay = min(float(after), self._max_backoff)
+        return delay
+
+    def _send(
+        self,
+        method: str,
+        path: str,
+        *,
+        content: bytes | None = None,
+        headers: Mapping[str, str] | None = None,
+        params: Mapping[str, str] | None = None,
+        retry: bool = True,
+        accept: frozenset[int] | set[int] = frozenset(),
+    ) -> httpx.Response:
+        url = self._base + path
+        sent = {"Accept": "application/json, application/problem+json"}
+        if self._token:
+            sent["Authorization"] = f"Bearer {self._token}"
+        sent.update(headers or {})
+        attempts = self._retries + 1 if retry else 1
+        for attempt in range(attempts):
+            last = attempt + 1 == attempts
+            try:
+                resp = self._http.request(
+                    method, url, content=content, headers=sent, params=params or None
+                )
+            except httpx.UnsupportedProtocol as exc:
+                raise ValueError(f"server URL {self.base_url!r} is not http(s): {exc}") from exc
+            except httpx.TransportError as exc:
+                if last:
+                    raise ServerUnreachable(self.base_url, attempts, exc) from exc
+                self._pause(attempt, None, _describe(exc))
+                continue
+            if resp.status_code >= 500 and not last:
+                self._pause(attempt, resp, f"server answered {resp.status_code}")
+                continue
+            break
+        if resp.status_code >= 500:
+            raise ServerError(
+                f"server error {resp.status_code} from {method} {path} after {attempts} "
+                f"attempt{'s' if attempts != 1 else ''}: {_problem_text(resp)}",
+                status=resp.status_code,
+            )
+        if resp.status_code >= 400 and resp.status_code not in accept:
+            raise _rejected(resp)
+        return resp
+
+    def _pause(self, attempt: int, resp: httpx.Response | None, what: str) -> None:
+        delay = self._delay(attempt, resp)
+        if self._on_retry is not None:
+            self._on_retry(attempt + 1, delay, what)
+        self._sleep(delay)
+
+    @staticmethod
+    def _json(resp: httpx.Response) -> dict[str, Any]:
+        try:
+            data = resp.json()
+        except ValueError:
+            raise ServerError(
+                f"server answered {resp.status_code} with a body that is not JSON",
+                status=resp.status_code,
+            ) from None
+        if not isinstance(data, dict):
+            raise ServerError("server answer is not a JSON object", status=resp.status_code)
+        return data
+
+    @staticmethod
+    def _parse(build: Callable[..., Any], data: Mapping[str, Any], **kwargs: Any) -> Any:
+        try:
+            return build(data, **kwargs)
+        except (ValueError, KeyError, TypeError) as exc:
+            raise ServerError(f"unexpected answer from the server: {exc}") from None
+
+
+def _check_base_url(base_url: str) -> str:
+    try:
+        url = httpx.URL(base_url)
+    except httpx.InvalidURL as exc:
+        raise ValueError(f"server URL {base_url!r} is not a valid URL: {exc}") from None
+    if url.scheme not in ("http", "https") or not url.host:
+        raise ValueError(
+            f"server URL {base_url!r} must look like http://host:port (scheme and host)"
+        )
+    return base_url.rstrip("/")
+
+
+def _segment(value: str) -> str:
+    from urllib.parse import quote
+
+    return quote(str(value), safe="")
+
+
+def _param(value: Any) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    return str(value)
+
+
+def _problem(resp: httpx.Response) -> dict[str, Any]:
+    try:
+        data = resp.json()
+    except ValueError:
+        return {}
+    return data if isinstance(data, dict) else {}
+
+
+def _problem_text(resp: httpx.Response) -> str:
+    problem = _problem(resp)
+    text = problem.get("detail") or problem.get("title")
+    if text:
+        return str(text)
+    return resp.reason_phrase or "no details"
+
+
+def _rejected(resp: httpx.Response) -> RequestRejected:
+    problem = _problem(resp)
+    errors = problem.get("errors")
+    if not isinstance(errors, list):
+        errors = []
+    return RequestRejected(
+        status=resp.status_code,
+        title=str(problem.get("title") or resp.reason_phrase or ""),
+        detail=str(problem.get("detail") or ""),
+        errors=[e for e in errors if isinstance(e, Mapping)],
+        body=problem,
+    )
