@@ -82,7 +82,11 @@ def _store_flag(value: str | None) -> bool:
 
 def _iso_only(value: Any) -> Any:
     """Refuse bare numbers, which pydantic would read as Unix seconds: ISO 8601 only."""
-    if isinstance(value, str) and value.strip().lstrip("+-").replace(".", "", 1).isdigit():
+    if isinstance(value, str):
+        try:
+            float(value)  # "5", "1.5", "7e-37": pydantic would take these as Unix seconds
+        except ValueError:
+            return value
         raise ValueError("must be an ISO 8601 date-time, e.g. 2026-11-30T00:00:00Z")
     return value
 
