@@ -27,6 +27,7 @@ import numpy as np
 import orjson
 
 from service.core import InputError, SeriesBatch, make_batch
+from service.core.batch import MAX_MAGNITUDE
 
 __all__ = [
     "MAX_ERRORS",
@@ -42,9 +43,9 @@ MAX_ERRORS = 50
 """At most this many problems are reported for one request."""
 
 MAX_NAME_LENGTH = 200
-MAX_ABS_VALUE = 1e50
-"""Largest magnitude accepted for a number: the statistics raise residuals to the fourth power
-(kurtosis), which overflows a 64-bit float beyond about 1e77."""
+MAX_ABS_VALUE = MAX_MAGNITUDE
+"""Largest magnitude accepted for a number: the core's limit (sums over a long series must stay
+finite), checked here so the error names the field and the position."""
 TOP_LEVEL_FIELDS = frozenset(
     {"model", "version", "policy", "season_length", "model_params", "labels", "series"}
 )
@@ -319,12 +320,16 @@ def _flat_numbers(
     Reports a non-number (string, boolean, object, NaN literal, overflow) with its location.
     """
     lengths = np.fromiter(map(len, rows), dtype=np.int64, count=len(rows))
-    flat = list(chain.from_iterable(rows))
-    ok = set(map(type, flat)) <= _NUMBER_TYPES
+    types = set(map(type, chain.from_iterable(rows)))
+    ok = types <= _NUMBER_TYPES
     arr = None
     if ok:
         try:
-            arr = np.array(flat, dtype=float)
+            if type(None) in types:  # None becomes NaN on the way through a list
+                arr = np.array(list(chain.from_iterable(rows)), dtype=float)
+            else:
+                arr = np.fromiter(chain.from_iterable(rows), dtype=float,
+                                  count=int(lengths.sum()))
         except OverflowError:
             ok = False
     if not ok:
@@ -356,8 +361,7 @@ def _flat_numbers(
             i = int(np.searchsorted(ends, pos, side="right"))
             j = int(pos - (ends[i] - lengths[i]))
             errs.add(locs[i], f"value at index {j} ({arr[pos]:g}) is beyond the accepted "
-                     f"magnitude of {MAX_ABS_VALUE:g}; rescale the series (the statistics "
-                     "overflow 64-bit floats beyond about 1e77)")
+                     f"magnitude of {MAX_ABS_VALUE:g}; rescale the series")
         return None
     return arr, lengths
 
@@ -496,7 +500,7 @@ def parse_json_request(
         if not isinstance(s, dict):
             errs.add(at, f"must be an object, got {_describe(s)}")
             s = {}
-        else:
+        elif not SERIES_FIELDS.issuperset(s):
             for key in s:
                 if key not in SERIES_FIELDS:
                     errs.add(f"{at}.{key}",

@@ -19,6 +19,7 @@ from ..auth import authorize, require
 from ..body import is_csv, is_json, media_type, read_body
 from ..csvout import to_csv, wants_csv
 from ..errors import ApiError
+from ..gcpause import paused_gc
 from ..httputil import (
     CSV,
     JSON,
@@ -134,7 +135,14 @@ async def post_assessment(request: Request) -> Response:
     # Small bodies are assessed on the event loop (a few milliseconds; a thread hop and the
     # lock hand-over between threads would cost as much); large ones in the thread pool so the
     # loop keeps answering health checks meanwhile.
-    outcome = work() if len(body) <= INLINE_BODY_BYTES else await run_in_threadpool(work)
+    if len(body) <= INLINE_BODY_BYTES:
+        outcome = work()
+    else:
+        def large() -> assessing.Outcome:
+            with paused_gc():
+                return work()
+
+        outcome = await run_in_threadpool(large)
     headers: dict[str, str] = {"Server-Timing": outcome.server_timing()}
     if outcome.assessment_id is not None:
         headers["Location"] = f"/v1/assessments/{outcome.assessment_id}"
