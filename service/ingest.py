@@ -43,6 +43,7 @@ MAX_ERRORS = 50
 """At most this many problems are reported for one request."""
 
 MAX_NAME_LENGTH = 200
+NUL_MESSAGE = "must not contain NUL characters"
 MAX_ABS_VALUE = MAX_MAGNITUDE
 """Largest magnitude accepted for a number: the core's limit (sums over a long series must stay
 finite), checked here so the error names the field and the position."""
@@ -288,7 +289,9 @@ def _labels(value: Any, errs: _Errors) -> dict[str, str]:
         return {}
     out: dict[str, str] = {}
     for key, item in value.items():
-        if isinstance(item, str):
+        if "\x00" in key or (isinstance(item, str) and "\x00" in item):
+            errs.add(f"labels.{key}", NUL_MESSAGE)
+        elif isinstance(item, str):
             out[key] = item
         elif isinstance(item, (int, float)) and not isinstance(item, bool):
             out[key] = str(item)

@@ -44,6 +44,26 @@ class Settings(BaseSettings):
     migrate_on_start: bool = Field(
         default=True, description="Apply database migrations when the app starts."
     )
+    # Hardening (service/api/limits.py, slowclients.py): rate limits per token and per worker.
+    rate_limit_per_second: float = Field(
+        default=50.0, ge=0, description="Requests a second per token on average; 0: no limit."
+    )
+    rate_limit_burst: int = Field(default=200, ge=1, description="Requests a token may burst.")
+    body_read_timeout_seconds: float = Field(
+        default=60.0, gt=0, description="Time allowed for a whole request body to arrive."
+    )
+    header_read_timeout_seconds: float = Field(
+        default=10.0, gt=0, description="Time allowed for a request line and headers."
+    )
+    keep_alive_timeout_seconds: int = Field(
+        default=5, ge=1, description="An idle keep-alive connection is closed after this."
+    )
+    max_header_bytes: int = Field(
+        default=16 * 1024, ge=1024, description="Largest request line plus headers."
+    )
+    max_connections: int = Field(
+        default=1000, ge=1, description="Most connections and requests at once per worker."
+    )
 
 
 def load_settings() -> Settings:

@@ -43,7 +43,7 @@ def postgres_required() -> bool:
 
 
 def _postgres_problem() -> str | None:
-    """``None`` when the PostgreSQL server answers, else why not (checked once per session)."""
+    """``None`` when the PostgreSQL server answers, else why not (checked once per test run)."""
     if "problem" not in _postgres_state:
         try:
             import psycopg

@@ -15,7 +15,8 @@ from .auth import announce_first_token, ensure_first_token
 from .errors import install_error_handlers
 from .metrics import Metrics, MetricsMiddleware
 from .openapi import examples_dir, install_openapi, load_examples
-from .routers import assessments, checks, health, models, policies, tokens
+from .routers import assessments, checks, health, models, policies, reports, tokens
+from .security import install_hardening
 
 DESCRIPTION = """Plumbline gates forecasting model releases on residual diagnostics over whole
 fleets of series: bias, autocorrelation, changing variance, normality and holdout accuracy.
@@ -50,9 +51,10 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.engine = engine
     app.state.metrics = Metrics()
     install_error_handlers(app)
-    for module in (assessments, models, checks, policies, tokens, health):
+    for module in (assessments, reports, models, checks, policies, tokens, health):
         app.include_router(module.router)
     install_openapi(app, load_examples(examples_dir(settings.examples_dir)))
+    install_hardening(app, settings)
     if settings.cors_origins:
         from fastapi.middleware.cors import CORSMiddleware
 

@@ -34,6 +34,8 @@ def run(host: str, port: int, workers: int) -> None:
     """
     import uvicorn
 
+    from service.api.slowclients import uvicorn_options
+
     settings = Settings()
     from service.api.auth import announce_first_token
 
@@ -41,7 +43,7 @@ def run(host: str, port: int, workers: int) -> None:
     os.environ["PLUMBLINE_MIGRATE_ON_START"] = "false"
     uvicorn.run("service.api.app:create_app", factory=True, host=host, port=port,
                 workers=max(1, workers), log_level="info", access_log=False,
-                proxy_headers=False)
+                proxy_headers=False, **uvicorn_options(settings))
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -126,3 +126,14 @@ class IdempotencyKeyRow(Base):
         ForeignKey("assessments.seq", ondelete="CASCADE"), nullable=False
     )
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)
+
+
+class ServerSecretRow(Base):
+    """A key the server makes for itself on first use and keeps (e.g. the report-link key), so
+    every worker and every restart share it."""
+
+    __tablename__ = "server_secrets"
+
+    name: Mapped[str] = mapped_column(String(64), primary_key=True)
+    value: Mapped[str] = mapped_column(Text, nullable=False)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)

@@ -11,7 +11,7 @@ import hashlib
 import hmac
 import secrets
 import uuid
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from typing import Any
@@ -28,8 +28,10 @@ from .models import (
     PolicyRow,
     SeriesInputRow,
     SeriesResultRow,
+    ServerSecretRow,
     TokenRow,
 )
+from .writelock import write_lock
 
 A = AssessmentRow.__table__
 SR = SeriesResultRow.__table__
@@ -37,6 +39,7 @@ SI = SeriesInputRow.__table__
 P = PolicyRow.__table__
 T = TokenRow.__table__
 K = IdempotencyKeyRow.__table__
+S = ServerSecretRow.__table__
 
 TOKEN_PREFIX = "plb_"
 SCOPES = ("submit", "read", "admin")
@@ -233,7 +236,8 @@ def save_assessment(
         return seq
 
     try:
-        seq = fastpath.run_in_transaction(engine, write)
+        with write_lock(engine):
+            seq = fastpath.run_in_transaction(engine, write)
     except stmts.integrity_error:
         if idempotency_key is not None and find_idempotency_key(
             engine, key=idempotency_key
@@ -521,3 +525,26 @@ def count_tokens(engine: Engine) -> int:
     """Tokens ever created (revoked ones included)."""
     with engine.connect() as conn:
         return int(conn.execute(select(func.count()).select_from(T)).scalar_one())
+
+
+# ---------------------------------------------------------------------------------------------
+# Server secrets
+
+
+def get_or_create_secret(engine: Engine, *, name: str, make: Callable[[], str]) -> str:
+    """The secret kept under ``name``; on first use ``make()`` creates it and it is stored.
+
+    Workers starting together may race to create it: the primary key lets one insert win and
+    every caller returns that stored value.
+    """
+    with engine.connect() as conn:
+        found = conn.execute(select(S.c.value).where(S.c.name == name)).scalar()
+    if found is not None:
+        return str(found)
+    try:
+        with engine.begin() as conn:
+            conn.execute(insert(S).values(name=name, value=make(), created_at=utcnow()))
+    except IntegrityError:
+        pass  # another process stored it first
+    with engine.connect() as conn:
+        return str(conn.execute(select(S.c.value).where(S.c.name == name)).scalar_one())

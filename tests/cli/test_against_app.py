@@ -76,7 +76,8 @@ def test_assess_exit_codes_on_the_service(cli, http, files, file, verdict, fail_
     assert run.out.startswith(f"verdict: {verdict.upper()}")
     (row,) = stored(http)
     assert row["verdict"] == verdict and f"stored:  assessment {row['id']}" in run.out
-    assert "report:" not in run.out and run.err == ""  # no links endpoint: quietly none
+    # The service signs a report link for the stored assessment; the CLI prints it.
+    assert f"/v1/assessments/{row['id']}/report" in run.out and run.err == ""
 
 
 def test_json_output_is_what_the_service_stored(cli, http, files):

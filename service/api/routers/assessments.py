@@ -9,6 +9,7 @@ from urllib.parse import urlencode
 
 import orjson
 from fastapi import APIRouter, Depends, Query, Request
+from pydantic import BeforeValidator
 from starlette.concurrency import run_in_threadpool
 from starlette.responses import Response
 
@@ -77,6 +78,16 @@ def _store_flag(value: str | None) -> bool:
         return False
     raise ApiError(422, "store must be true or false",
                    errors=[{"loc": "query.store", "message": "must be true or false"}])
+
+
+def _iso_only(value: Any) -> Any:
+    """Refuse bare numbers, which pydantic would read as Unix seconds: ISO 8601 only."""
+    if isinstance(value, str) and value.strip().lstrip("+-").replace(".", "", 1).isdigit():
+        raise ValueError("must be an ISO 8601 date-time, e.g. 2026-11-30T00:00:00Z")
+    return value
+
+
+IsoDatetime = Annotated[datetime, BeforeValidator(_iso_only)]
 
 
 def _idempotency_key(value: str | None) -> str | None:
@@ -168,9 +179,9 @@ def list_assessments(
     model: str | None = None,
     version: str | None = None,
     verdict: Verdict | None = None,
-    since: Annotated[datetime | None, Query(description="created at or after (ISO 8601)")]
+    since: Annotated[IsoDatetime | None, Query(description="created at or after (ISO 8601)")]
     = None,
-    until: Annotated[datetime | None, Query(description="created before (ISO 8601)")] = None,
+    until: Annotated[IsoDatetime | None, Query(description="created before (ISO 8601)")] = None,
     limit: Annotated[int, Query(ge=1)] = 50,
     cursor: str | None = None,
 ) -> Response:

@@ -3,12 +3,12 @@
 from __future__ import annotations
 
 from fastapi import APIRouter, Request
-from sqlalchemy import text
 from sqlalchemy.exc import SQLAlchemyError
 from starlette.responses import Response
 
 from service.store.migrate import current_revision, head_revision
 
+from ..availability import RETRY_AFTER_SECONDS, probe_database
 from ..errors import problem
 from ..httputil import json_response
 
@@ -25,11 +25,11 @@ def healthz() -> Response:
 def readyz(request: Request) -> Response:
     engine = request.app.state.engine
     try:
-        with engine.connect() as conn:
-            conn.execute(text("SELECT 1"))
+        probe_database(engine)
         revision = current_revision(engine)
     except SQLAlchemyError as exc:
-        return problem(503, f"database unreachable: {type(exc).__name__}")
+        return problem(503, f"database unreachable: {type(exc).__name__}",
+                       headers={"Retry-After": str(RETRY_AFTER_SECONDS)})
     needed = head_revision()
     if revision != needed:
         return problem(503, f"database schema is at revision {revision or 'none'}, this build "

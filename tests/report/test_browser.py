@@ -1,0 +1,137 @@
+"""The report in a real browser: headless Chromium against the real server on loopback.
+
+Skips when no Chromium is installed (install the Debian package ``chromium``); with
+``PLUMBLINE_REQUIRE_BROWSER=1`` (set by CI) it fails instead. Screenshots are saved under
+``test-artifacts/``.
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from pathlib import Path
+
+import httpx
+import pytest
+
+from service.links import sign_link
+
+from .devtools import Browser, find_chromium
+from .fleet import invented_body
+
+pytestmark = pytest.mark.slow
+
+ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
+
+
+def _need_browser() -> str:
+    binary = find_chromium()
+    problem = None
+    if binary is None:
+        problem = ("no Chromium found: install the Debian package 'chromium' "
+                   "(apt-get install -y chromium) or set PLUMBLINE_CHROMIUM")
+    else:
+        try:
+            import websocket  # noqa: F401 - the DevTools connection needs websocket-client
+        except ImportError:
+            problem = "the websocket-client package is missing (pip install '.[test]')"
+    if problem:
+        if os.environ.get("PLUMBLINE_REQUIRE_BROWSER") == "1":
+            pytest.fail(f"PLUMBLINE_REQUIRE_BROWSER=1 but {problem}")
+        pytest.skip(problem)
+    return binary  # type: ignore[return-value]
+
+
+@pytest.fixture(scope="module")
+def served(live_server: dict):
+    binary = _need_browser()
+    url, auth = live_server["url"], live_server["auth"]
+    r = httpx.post(f"{url}/v1/assessments", json=invented_body(10), headers=auth, timeout=60)
+    assert r.status_code == 201, r.text
+    return {"url": url, "binary": binary, "assessment": r.json(), "auth": auth,
+            "secret": live_server["secret"]}
+
+
+def _check_clean(browser: Browser, what: str) -> None:
+    assert browser.problems.all() == [], f"{what}: {browser.problems.all()}"
+
+
+def test_report_and_series_page_in_chromium(served: dict) -> None:
+    ARTIFACTS.mkdir(exist_ok=True)
+    a = served["assessment"]
+    url = served["url"]
+    link = httpx.post(f"{url}/v1/assessments/{a['id']}/links", headers=served["auth"])
+    assert link.status_code == 200, link.text
+    with Browser(served["binary"]) as b:
+        # 1. With the bearer token in the request headers.
+        b.call("Network.setExtraHTTPHeaders", headers=served["auth"])
+        b.open(f"{url}/v1/assessments/{a['id']}/report")
+        _check_clean(b, "report with bearer token")
+        assert b.evaluate("document.querySelector('.verdict').dataset.verdict") == a["verdict"]
+        b.call("Network.setExtraHTTPHeaders", headers={})
+
+        # 2. Through the signed link, no token at all.
+        b.open(link.json()["url"])
+        _check_clean(b, "report through signed link")
+        page = b.evaluate("""({
+            verdict: document.querySelector('.verdict').textContent.trim(),
+            reasons: Array.from(document.querySelectorAll('#reasons li'))
+                          .map(li => li.textContent),
+            checks: Array.from(document.querySelectorAll('#checks-table tbody tr'))
+                         .map(tr => tr.dataset.check),
+            series: Array.from(document.querySelectorAll('#series-table tbody tr'))
+                         .map(tr => tr.dataset.series),
+            svgs: document.querySelectorAll('svg').length,
+        })""")
+        assert page["verdict"].lower() == a["verdict"] == "fail"
+        assert len(page["reasons"]) == min(len(a["reasons"]), 20)
+        for reason, shown in zip(a["reasons"], page["reasons"], strict=False):
+            assert reason["message"].split(": ", 1)[-1] in shown
+        assert page["checks"] == [c["name"] for c in a["checks"]]
+        assert len(page["series"]) == len(a["series"])
+        assert page["svgs"] == 0  # the fleet page draws no chart
+        b.screenshot(str(ARTIFACTS / "report.png"))
+
+        # The sort script runs: sorting by series id puts the ids in order.
+        b.evaluate("document.querySelector('#series-table th').click()")
+        desc = b.evaluate("Array.from(document.querySelectorAll('#series-table tbody tr'))"
+                          ".map(tr => tr.dataset.series)")
+        assert desc == sorted(page["series"], key=str.lower, reverse=True)
+
+        # 3. Open the worst series from the list: the link carries the signature along.
+        worst = page["series"][0]
+        b.evaluate(f"document.querySelector('#series-table tbody tr[data-series=\"{worst}\"] a')"
+                   ".click()")
+        b.wait_for("Page.loadEventFired")
+        b.evaluate("new Promise(r => setTimeout(r, 300))", await_promise=True)
+        _check_clean(b, "series page")
+        charts = b.evaluate("""Array.from(document.querySelectorAll('figure.chart')).map(f => {
+            const s = f.querySelector('svg').getBoundingClientRect();
+            return {name: f.dataset.chart, w: s.width, h: s.height,
+                    title: f.querySelector('svg').getAttribute('aria-label')};
+        })""")
+        assert [c["name"] for c in charts] == ["residuals", "acf", "histogram", "fitted",
+                                               "holdout"]
+        assert all(c["w"] > 300 and c["h"] > 150 for c in charts), charts
+        assert b.evaluate("document.querySelector('h1').textContent") == f"Series {worst}"
+        b.screenshot(str(ARTIFACTS / "series.png"))
+
+
+def test_expired_and_tampered_links_answer_403(served: dict) -> None:
+    a, url = served["assessment"], served["url"]
+    report = f"{url}/v1/assessments/{a['id']}/report"
+    expired = sign_link(secret=served["secret"], assessment_id=a["id"], ttl_seconds=60,
+                        now=time.time() - 3600)
+    good = sign_link(secret=served["secret"], assessment_id=a["id"], ttl_seconds=600)
+    tampered = good.query.replace("signature=", "signature=x", 1)
+    with Browser(served["binary"]) as b:
+        for query, slug in ((expired.query, "link-expired"), (tampered, "link-invalid")):
+            b.open(f"{report}?{query}")
+            assert any("HTTP 403" in p for p in b.problems.failed_requests), b.problems
+            b.problems.failed_requests.clear()
+            b.problems.console_errors.clear()
+            r = httpx.get(f"{report}?{query}")
+            assert r.status_code == 403
+            assert r.headers["content-type"].startswith("application/problem+json")
+            assert r.json()["type"].endswith(slug)
+            assert r.json()["status"] == 403
