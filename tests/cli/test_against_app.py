@@ -307,3 +307,18 @@ def test_tokens_on_each_database_backend(cli, migrated_url):
     assert cli("tokens", "revoke", created["id"], "--database", migrated_url).code == 0
     listing = json.loads(cli("tokens", "list", "--database", migrated_url, "--json").out)
     assert listing["items"][0]["revoked_at"] is not None
+
+
+def test_the_printed_report_link_opens_without_a_token(cli, http, files):
+    run = assess(cli, http, files / "stale.json")
+    (line,) = [x for x in run.out.splitlines() if x.startswith("report:")]
+    url = line.split(None, 1)[1]
+    page = http.get(url)  # no Authorization header: the signature is the permission
+    assert page.status_code == 200 and page.headers["content-type"].startswith("text/html")
+
+
+def test_a_token_without_read_scope_gets_no_link_and_no_noise(cli, http, files):
+    made = json.loads(cli("tokens", "create", "--scope", "submit", "--label", "submit-only",
+                          "--server", URL, "--token", ADMIN, "--json", http=http).out)
+    run = assess(cli, http, files / "weekday.json", token=made["token"])
+    assert run.code == 0 and "report:" not in run.out and run.err == ""
