@@ -127,8 +127,22 @@ BODY_RESPONSES = {
 }
 
 
+def _problem_422(responses: dict[str, Any]) -> None:
+    """The framework documents its own 422 as ``application/json`` (HTTPValidationError); the
+    service answers every 422 as problem+json, so say so."""
+    entry = responses.get("422")
+    content = entry.get("content", {}) if isinstance(entry, dict) else {}
+    schema = content.get("application/json", {}).get("schema", {})
+    if set(content) == {"application/json"} and schema.get("$ref", "").endswith(
+            "/HTTPValidationError"):
+        entry["content"] = {
+            "application/problem+json": {"schema": {"$ref": "#/components/schemas/Problem"}}
+        }
+
+
 def document_limits(doc: dict[str, Any]) -> dict[str, Any]:
-    """Add the hardening answers to every ``/v1`` operation of an OpenAPI document."""
+    """Add the hardening answers to every ``/v1`` operation of an OpenAPI document (and
+    document the framework's 422 as the problem+json it is)."""
     schemas = doc.get("components", {}).get("schemas", {})
     if "Problem" not in schemas:
         return doc
@@ -138,6 +152,7 @@ def document_limits(doc: dict[str, Any]) -> dict[str, Any]:
         for method, operation in item.items():
             if not isinstance(operation, dict) or "responses" not in operation:
                 continue
+            _problem_422(operation["responses"])
             wanted = dict(LIMIT_RESPONSES)
             if method in ("post", "put", "patch"):
                 wanted.update(BODY_RESPONSES)

@@ -178,3 +178,12 @@ def test_limits_are_in_the_openapi_document(make_client):
     assert "Retry-After" in post["429"]["headers"]
     get = doc["paths"]["/v1/assessments"]["get"]["responses"]
     assert "429" in get and "413" not in get
+
+
+def test_every_documented_422_is_problem_json(make_client):
+    doc = make_client().get("/openapi.json").json()
+    for path, item in doc["paths"].items():
+        for method, operation in item.items():
+            entry = operation.get("responses", {}).get("422")
+            if entry is not None and "content" in entry:
+                assert set(entry["content"]) == {"application/problem+json"}, (method, path)
