@@ -219,7 +219,8 @@ def list_assessments(
     return conditional(request, body, JSON, headers)
 
 
-def _stored(request: Request, assessment_id: str) -> repo.StoredAssessment:
+def stored_or_404(request: Request, assessment_id: str) -> repo.StoredAssessment:
+    """The stored assessment, or a 404 problem naming the id."""
     found = repo.get_assessment(request.app.state.engine, assessment_id=assessment_id)
     if found is None:
         raise ApiError(404, f"no assessment with id {assessment_id!r}")
@@ -236,7 +237,7 @@ def get_assessment(
     request: Request, assessment_id: str,
     principal: Annotated[Any, Depends(require("read"))],
 ) -> Response:
-    return conditional(request, _stored(request, assessment_id).to_json(), JSON)
+    return conditional(request, stored_or_404(request, assessment_id).to_json(), JSON)
 
 
 def series_rows(assessment_id: str, series: list[dict[str, Any]], check: str | None,
@@ -272,7 +273,7 @@ def get_series_rows(
     check: Annotated[str | None, Query(description="only this check")] = None,
     status: Annotated[str | None, Query(description="only rows with this status")] = None,
 ) -> Response:
-    stored = _stored(request, assessment_id)
+    stored = stored_or_404(request, assessment_id)
     series = [orjson.loads(s) for s in stored.series]
     rows = series_rows(assessment_id, series, check, status)
     if wants_csv(request.headers.get("accept")):

@@ -26,6 +26,7 @@ from service.store import repository as repo
 from ..auth import require
 from ..errors import ApiError
 from ..httputil import json_response, problem_docs
+from .assessments import stored_or_404
 
 router = APIRouter(prefix="/v1/assessments", tags=["reports"])
 
@@ -132,13 +133,6 @@ def _html(text: str) -> Response:
     })
 
 
-def _stored(request: Request, assessment_id: str) -> repo.StoredAssessment:
-    found = repo.get_assessment(request.app.state.engine, assessment_id=assessment_id)
-    if found is None:
-        raise ApiError(404, f"no assessment with id {assessment_id!r}")
-    return found
-
-
 @router.get(
     "/{assessment_id}/report",
     summary="The assessment's report: a self-contained HTML page",
@@ -157,7 +151,7 @@ async def get_report(
     def work() -> str:
         from service.report import render_report
 
-        assessment = orjson.loads(_stored(request, assessment_id).to_json())
+        assessment = orjson.loads(stored_or_404(request, assessment_id).to_json())
         return render_report(
             assessment, series_href=lambda sid: f"{base}/series/{quote(sid, safe='')}{suffix}"
         )
@@ -217,7 +211,7 @@ async def get_series_report(
             series_diagnostics,
         )
 
-        stored = _stored(request, assessment_id)
+        stored = stored_or_404(request, assessment_id)
         fleet = [orjson.loads(blob) for blob in stored.series]
         entry = find_series({"series": fleet}, series_id)
         if entry is None:
@@ -266,7 +260,7 @@ async def create_link(
             raise ApiError(422, f"ttl_seconds: at most {ttl} (the server's link_ttl_seconds)",
                            errors=[{"loc": "ttl_seconds", "message": f"must be at most {ttl}"}])
         ttl = body.ttl_seconds
-    await run_in_threadpool(_stored, request, assessment_id)
+    await run_in_threadpool(stored_or_404, request, assessment_id)
     link = links.sign_link(secret=link_secret(request), assessment_id=assessment_id,
                            ttl_seconds=ttl)
     # base_url already carries the app's root path.
