@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from .batch import Residuals
 from .results import CheckResult, skip_reasons
+from .tails import norm_sf_two_sided, t_ppf, t_sf_two_sided
 from .types import FloatVector, InputError, IntVector
 
 BIAS_MIN_OBS = 3
@@ -97,8 +97,8 @@ def bias(
     df = np.maximum(n - 1, 1).astype(float)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         t = np.where(se > 0, mean / se, np.sign(mean) * np.inf)
-        p = 2.0 * stats.t.sf(np.abs(t), df)
-        q = stats.t.ppf(0.5 + ci_level / 2.0, df)
+        p = t_sf_two_sided(t, df)
+        q = t_ppf(0.5 + ci_level / 2.0, df)
         pct = 100.0 * mean / actuals_scale
     t = np.where(ran, t, np.nan)
     p = np.where(ran, p, np.nan)
@@ -159,7 +159,7 @@ def tracking_signal(
         var = np.einsum("ij,ij->i", res.standard, res.standard) / (n - 1)
         ts = window * total / abs_total
         z = (total / res.unit) / np.sqrt(window * var)
-    p = 2.0 * stats.norm.sf(np.abs(z))
+    p = norm_sf_two_sided(z)
     reasons = skip_reasons(
         n.shape[0],
         (n < need, f"fewer than {need} residuals for a window of {window}"),

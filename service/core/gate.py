@@ -23,7 +23,6 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import stats
 
 from .batch import SeriesBatch
 from .catalogue import CHECK_NAMES
@@ -32,6 +31,7 @@ from .messages import fleet_message, pass_message, series_message
 from .multiple import benjamini_hochberg
 from .policy import CheckPolicy, Policy
 from .results import CheckResult, Status, to_python
+from .tails import norm_sf_two_sided
 
 # Integer status codes so statuses combine with ``max``.
 SKIPPED, PASS, WARN, FAIL = 0, 1, 2, 3
@@ -202,7 +202,7 @@ def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
     with np.errstate(invalid="ignore", divide="ignore"):
         z = mean / std if std > 0 else (np.sign(mean) * np.inf if mean else np.nan)
         pct = float(100.0 * pooled_e / pooled_y) if pooled_y > 0 else float("nan")
-    p = float(2.0 * stats.norm.sf(abs(z))) if np.isfinite(z) or np.isinf(z) else float("nan")
+    p = float(norm_sf_two_sided(z)) if np.isfinite(z) or np.isinf(z) else float("nan")
     return FleetBias(mean, pct, std, float(z), p, int(use.sum()))
 
 

@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from .batch import SeriesBatch
 from .results import CheckResult, skip_reasons
+from .tails import chi2_sf
 from .types import FloatMatrix, FloatVector
 
 
@@ -92,7 +92,7 @@ def interval_coverage(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
         name="interval_coverage",
         kind="test",
         statistic=lr,
-        p_value=stats.chi2.sf(lr, 1),
+        p_value=chi2_sf(lr, 1),
         details={
             "coverage": np.where(ran, coverage, np.nan),
             "level": level,

@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from .batch import Residuals
 from .results import CheckResult, skip_reasons
+from .tails import chi2_sf
 
 JB_MIN_OBS = 8
 
@@ -43,7 +43,7 @@ def jarque_bera(res: Residuals, *, min_obs: int = JB_MIN_OBS) -> CheckResult:
         name="jarque_bera",
         kind="test",
         statistic=jb,
-        p_value=stats.chi2.sf(jb, 2),
+        p_value=chi2_sf(jb, 2),
         details={
             "skewness": np.where(ran, skew, np.nan),
             "kurtosis": np.where(ran, kurt, np.nan),

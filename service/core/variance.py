@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
-from scipy import stats
 
 from .batch import Residuals, nearly_constant
 from .results import CheckResult, skip_reasons
+from .tails import chi2_sf
 from .types import FloatMatrix, FloatVector, InputError, IntVector
 
 ARCH_MAX_LAGS = 10
@@ -160,7 +160,7 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
         name="arch_lm",
         kind="test",
         statistic=lm,
-        p_value=stats.chi2.sf(lm, np.maximum(used_lags, 1)),
+        p_value=chi2_sf(lm, np.maximum(used_lags, 1)),
         details={"lags": used_lags, "df": used_lags, "n_rows": rows},
         skip_reason=reasons,
         null_hypothesis="the residual variance is constant (no ARCH effects)",
