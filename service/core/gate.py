@@ -28,15 +28,16 @@ from .batch import SeriesBatch
 from .catalogue import CHECK_NAMES
 from .checks import BatchChecks, run_checks
 from .messages import fleet_message, pass_message, series_message
-from .multiple import benjamini_hochberg
+from .multiple import benjamini_hochberg_rows
 from .policy import CheckPolicy, Policy
-from .results import CheckResult, Status, to_python
+from .results import Status, to_python
 from .tails import norm_sf_two_sided
 
 # Integer status codes so statuses combine with ``max``.
 SKIPPED, PASS, WARN, FAIL = 0, 1, 2, 3
 _STATUS = np.array([Status.SKIPPED.value, Status.PASS.value, Status.WARN.value, Status.FAIL.value],
                    dtype=object)
+_STATUS_ENUM = (Status.SKIPPED, Status.PASS, Status.WARN, Status.FAIL)
 
 
 @dataclass(frozen=True)
@@ -137,47 +138,65 @@ def _weights(batch: SeriesBatch, policy: Policy) -> np.ndarray:
     return np.nansum(np.abs(batch.actuals), axis=1)
 
 
-def _test_codes(p: np.ndarray, cp: CheckPolicy) -> np.ndarray:
-    codes = np.full(p.shape, PASS)
-    if cp.warn_p is not None:
-        codes = np.where(p < cp.warn_p, WARN, codes)
-    if cp.fail_p is not None:
-        codes = np.where(p < cp.fail_p, FAIL, codes)
-    return codes
+def _codes(results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjust: bool
+           ) -> tuple[np.ndarray, np.ndarray]:
+    """Status codes and BH-adjusted p-values, one row per check in ``names`` (in that order).
 
+    Tests: the (adjusted, where the policy says so) p-value against ``warn_p``/``fail_p``;
+    metrics: the statistic against their bounds. Skipped series get ``SKIPPED``; the adjusted
+    p-values of metrics are ``NaN``."""
+    checks = [results[name] for name in names]
+    n_series = results.batch.n_series
+    skipped = np.array([r.skipped for r in checks]).reshape(len(checks), n_series)
+    is_test = np.array([r.kind == "test" for r in checks], dtype=bool)
+    inf = np.inf
 
-def _metric_codes(x: np.ndarray, cp: CheckPolicy) -> np.ndarray:
-    codes = np.full(x.shape, PASS)
-    for bound, code, above in ((cp.warn_above, WARN, True), (cp.warn_below, WARN, False),
-                               (cp.fail_above, FAIL, True), (cp.fail_below, FAIL, False)):
-        if bound is not None:
-            hit = x > bound if above else x < bound
-            codes = np.where(hit, np.maximum(codes, code), codes)
-    return codes
+    def bound(values: list[float | None], missing: float) -> np.ndarray:
+        return np.array([missing if v is None else v for v in values], dtype=float)[:, None]
 
-
-def _statuses(result: CheckResult, cp: CheckPolicy, adjust: bool) -> tuple[np.ndarray, np.ndarray]:
-    skipped = result.skipped
-    if result.kind == "test":
-        p_adj = benjamini_hochberg(np.where(skipped, np.nan, result.p_value))
-        p = p_adj if (adjust and cp.adjust) else result.p_value
-        codes = _test_codes(np.where(skipped, 1.0, p), cp)
-        if result.name == "interval_coverage":
+    codes = np.full(skipped.shape, PASS)
+    p_adj = np.full(skipped.shape, np.nan)
+    if is_test.any():
+        rows = np.flatnonzero(is_test)
+        tests = [cps[i] for i in rows]
+        raw = np.array([checks[i].p_value for i in rows]).reshape(rows.size, n_series)
+        adj = benjamini_hochberg_rows(np.where(skipped[rows], np.nan, raw))
+        p_adj[rows] = adj
+        use_adj = np.array([adjust and cp.adjust for cp in tests], dtype=bool)[:, None]
+        p = np.where(skipped[rows], 1.0, np.where(use_adj, adj, raw))
+        test_codes = np.where(p < bound([cp.fail_p for cp in tests], -inf), FAIL,
+                              np.where(p < bound([cp.warn_p for cp in tests], -inf), WARN, PASS))
+        if "interval_coverage" in names:
             # Intervals too wide waste width but do not mislead: at most a warning.
-            too_wide = result.details["coverage"] > result.details["level"]
-            codes = np.where(too_wide & (codes == FAIL), WARN, codes)
-    else:
-        p_adj = np.full(result.n_series, np.nan)
-        codes = _metric_codes(np.where(skipped, np.nan, result.statistic), cp)
+            j = names.index("interval_coverage")
+            r = checks[j]
+            too_wide = r.details["coverage"] > r.details["level"]
+            k = int(np.flatnonzero(rows == j)[0])
+            test_codes[k] = np.where(too_wide & (test_codes[k] == FAIL), WARN, test_codes[k])
+        codes[rows] = test_codes
+    if not is_test.all():
+        rows = np.flatnonzero(~is_test)
+        metrics = [cps[i] for i in rows]
+        x = np.array([checks[i].statistic for i in rows]).reshape(rows.size, n_series)
+        x = np.where(skipped[rows], np.nan, x)
+        warn = ((x > bound([cp.warn_above for cp in metrics], inf))
+                | (x < bound([cp.warn_below for cp in metrics], -inf)))
+        fail = ((x > bound([cp.fail_above for cp in metrics], inf))
+                | (x < bound([cp.fail_below for cp in metrics], -inf)))
+        codes[rows] = np.where(fail, FAIL, np.where(warn, WARN, PASS))
     return np.where(skipped, SKIPPED, codes), p_adj
 
 
-def _share(weights: np.ndarray, hit: np.ndarray, tested: np.ndarray) -> float:
-    total = float(weights[tested].sum())
-    if total > 0:
-        return float(weights[hit & tested].sum()) / total
-    n = int(tested.sum())
-    return float((hit & tested).sum()) / n if n else 0.0
+def _shares(weights: np.ndarray, hit: np.ndarray, tested: np.ndarray) -> np.ndarray:
+    """Per row (check): the weighted share of the tested series that are ``hit``; by count
+    when the tested series weigh nothing, 0 when none was tested."""
+    total = np.where(tested, weights, 0.0).sum(axis=1)
+    hit_weight = np.where(hit & tested, weights, 0.0).sum(axis=1)
+    n = tested.sum(axis=1)
+    n_hit = (hit & tested).sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(total > 0, hit_weight / total,
+                        np.where(n > 0, n_hit / np.maximum(n, 1), 0.0))
 
 
 def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
@@ -208,56 +227,71 @@ def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
 
 def assess(batch: SeriesBatch, policy: Policy) -> Assessment:
     """Run the policy's checks over ``batch`` and decide."""
-    enabled = policy.enabled_checks
-    options = {n: policy.check(n).options() for n in enabled}
+    cps_all = {name: policy.check(name) for name in CHECK_NAMES}
+    enabled = tuple(name for name in CHECK_NAMES if cps_all[name].enabled)
+    options = {n: cps_all[n].options() for n in enabled}
     results = run_checks(batch, options, only=enabled)
     weights = _weights(batch, policy)
     adjust = policy.fleet.adjustment == "bh"
-    critical = np.isin(np.array(batch.ids, dtype=object), list(policy.fleet.critical_series))
+    if policy.fleet.critical_series:
+        critical = np.isin(np.array(batch.ids, dtype=object), list(policy.fleet.critical_series))
+    else:
+        critical = np.zeros(batch.n_series, dtype=bool)
 
-    codes: dict[str, np.ndarray] = {}
-    p_adjusted: dict[str, np.ndarray] = {}
+    fleet = policy.fleet
+    names = [name for name in CHECK_NAMES if name in results.checks]
+    cps = [cps_all[name] for name in names]
+    n_series = batch.n_series
     summaries: list[CheckSummary] = []
     fleet_reasons: list[tuple[int, Reason]] = []
     series_reasons: list[tuple[int, float, int, Reason]] = []
     ids = batch.ids
-    for name in CHECK_NAMES:
-        if name not in results.checks:
-            continue
-        result = results[name]
-        cp = policy.check(name)
-        c, p_adj = _statuses(result, cp, adjust)
-        codes[name], p_adjusted[name] = c, p_adj
-        tested = c != SKIPPED
-        failed, warned = c == FAIL, c == WARN
-        failed_share = _share(weights, failed, tested)
-        warned_share = _share(weights, warned, tested)
-        fail_share = cp.fail_share if cp.fail_share is not None else policy.fleet.fail_share
-        warn_share = cp.warn_share if cp.warn_share is not None else policy.fleet.warn_share
-        status = PASS if tested.any() else SKIPPED
-        if failed_share + warned_share > warn_share or (critical & warned).any():
-            status = WARN
-        if failed_share > fail_share or (critical & failed).any():
-            status = FAIL
+    if names:
+        matrix, p_matrix = _codes(results, names, cps, adjust)
+    else:
+        matrix = np.zeros((0, n_series), dtype=int)
+        p_matrix = np.zeros((0, n_series))
+    tested = matrix != SKIPPED
+    failed, warned = matrix == FAIL, matrix == WARN
+    failed_share = _shares(weights, failed, tested)
+    warned_share = _shares(weights, warned, tested)
+    fail_share = np.array([fleet.fail_share if cp.fail_share is None else cp.fail_share
+                           for cp in cps], dtype=float)
+    warn_share = np.array([fleet.warn_share if cp.warn_share is None else cp.warn_share
+                           for cp in cps], dtype=float)
+    crit_warned = (critical & warned).any(axis=1)
+    crit_failed = (critical & failed).any(axis=1)
+    status = np.where(tested.any(axis=1), PASS, SKIPPED)
+    status = np.where((failed_share + warned_share > warn_share) | crit_warned, WARN, status)
+    status = np.where((failed_share > fail_share) | crit_failed, FAIL, status)
+    counts = zip(status.tolist(), tested.sum(axis=1).tolist(), failed.sum(axis=1).tolist(),
+                 warned.sum(axis=1).tolist(), failed_share.tolist(), warned_share.tolist(),
+                 fail_share.tolist(), warn_share.tolist(), (crit_warned | crit_failed).tolist(),
+                 strict=True)
+    for name, (st, n_tested, n_failed, n_warned, f_share, w_share, f_limit, w_limit,
+               crit) in zip(names, counts, strict=True):
         summary = CheckSummary(
-            name=name, status=Status(_STATUS[status]),
-            series_tested=int(tested.sum()), series_failed=int(failed.sum()),
-            series_warned=int(warned.sum()), series_skipped=int((~tested).sum()),
-            failed_share=failed_share, warned_share=warned_share,
-            message=fleet_message(name, status, int(failed.sum()), int(warned.sum()),
-                                  int(tested.sum()), failed_share, warned_share, fail_share,
-                                  warn_share, bool((critical & (failed | warned)).any())),
+            name=name, status=_STATUS_ENUM[st],
+            series_tested=n_tested, series_failed=n_failed,
+            series_warned=n_warned, series_skipped=n_series - n_tested,
+            failed_share=f_share, warned_share=w_share,
+            message=fleet_message(name, st, n_failed, n_warned, n_tested, f_share, w_share,
+                                  f_limit, w_limit, crit),
         )
         summaries.append(summary)
-        if status >= WARN:
-            fleet_reasons.append((status, Reason(name, summary.status, None, summary.message)))
-        for i in np.flatnonzero(c >= WARN):
-            reason = Reason(name, Status(_STATUS[c[i]]), ids[i],
-                            series_message(name, int(i), int(c[i]), result, p_adj))
-            series_reasons.append((int(c[i]), -float(weights[i]), int(i), reason))
+        if st >= WARN:
+            fleet_reasons.append((st, Reason(name, summary.status, None, summary.message)))
+    rows, cols = np.nonzero(matrix >= WARN)
+    for j, i in zip(rows.tolist(), cols.tolist(), strict=True):
+        c = int(matrix[j, i])
+        name = names[j]
+        reason = Reason(name, _STATUS_ENUM[c], ids[i],
+                        series_message(name, i, c, results[name], p_matrix[j]))
+        series_reasons.append((c, -float(weights[i]), i, reason))
+    codes = dict(zip(names, matrix, strict=True))
+    p_adjusted = dict(zip(names, p_matrix, strict=True))
 
-    series_codes = np.maximum.reduce([codes[n] for n in codes]) if codes else np.zeros(
-        batch.n_series, dtype=int)
+    series_codes = matrix.max(axis=0) if names else np.zeros(n_series, dtype=int)
     fleet_code = max((s.status.severity for s in summaries), default=PASS)
     fleet_code = max(fleet_code, PASS)
     bias_summary = _fleet_bias(results, weights)
