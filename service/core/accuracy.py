@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from .batch import SeriesBatch
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
 from .types import FloatMatrix, FloatVector, InputError
 
 
@@ -60,13 +60,12 @@ def mase(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         mae = np.where(count > 0, np.nansum(np.abs(err), axis=1) / count, np.nan)
         value = mae / scale
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         batch.n_series,
         (count < max(min_obs, 1), holdout_reason(min_obs)),
         (np.isnan(scale), f"training series too short for a lag-{m} naive forecast"),
         (scale == 0, "the in-sample naive forecast is exact (constant series), so the scale is 0"),
     )
-    ran = np.equal(reasons, None)
     return CheckResult(
         name="mase",
         kind="metric",

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from .batch import Residuals
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
 from .tails import chi2_sf
 from .types import FloatMatrix, FloatVector, InputError, IntVector
 
@@ -82,14 +82,13 @@ def ljung_box(
     used = np.clip(used, 0, np.maximum(n - 1, 0)).astype(np.int64)
     max_lag = int(used.max(initial=0))
     df = used - model_params
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
         (used < 1, "too short for one lag (the lag rule allows at most T/5)"),
         (df <= 0, f"no degrees of freedom left: lags minus {model_params} model parameters <= 0"),
         (res.constant, "residuals are constant, so autocorrelation is undefined"),
     )
-    ran = np.equal(reasons, None)
     if max_lag >= 1:
         r = autocorrelations(res, max_lag)
         q, q_bp = portmanteau_q(r, n, used)

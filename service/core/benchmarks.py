@@ -17,7 +17,7 @@ import numpy as np
 
 from .accuracy import holdout_pairs, holdout_reason
 from .batch import SeriesBatch
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
 from .types import FloatMatrix
 
 BENCHMARKS = ("mean", "naive", "seasonal_naive", "drift")
@@ -114,13 +114,12 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     best = bench_rmse[np.arange(n), best_j]
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         skill = 1.0 - model_rmse / best
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         n,
         (count < max(min_obs, 1), holdout_reason(min_obs)),
         (~np.isfinite(best), "no benchmark could be fitted to the training actuals"),
         (best == 0, "a benchmark forecasts the holdout exactly, so skill is undefined"),
     )
-    ran = np.equal(reasons, None)
     best_name = np.array(names, dtype=object)[best_j]
     return CheckResult(
         name="benchmark_skill",

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from .batch import Residuals
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
 from .tails import norm_sf_two_sided, t_ppf, t_sf_two_sided
 from .types import FloatVector, InputError, IntVector
 
@@ -88,12 +88,11 @@ def bias(
     mean = res.mean
     # All zero within rounding: a fit that reproduces the actuals up to the last bits.
     zero = res.constant & (np.abs(np.nan_to_num(mean)) <= 1e-12 * res.rounding_scale)
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
         (zero, "residuals are all zero"),
     )
-    ran = np.equal(reasons, None)
     df = np.maximum(n - 1, 1).astype(float)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         t = np.where(se > 0, mean / se, np.sign(mean) * np.inf)
@@ -160,13 +159,12 @@ def tracking_signal(
         ts = window * total / abs_total
         z = (total / res.unit) / np.sqrt(window * var)
     p = norm_sf_two_sided(z)
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < need, f"fewer than {need} residuals for a window of {window}"),
         (abs_total == 0, f"the last {window} residuals are all zero"),
         (res.constant | ~(var > 0), "residuals are constant"),
     )
-    ran = np.equal(reasons, None)
     return CheckResult(
         name="tracking_signal",
         kind="test",

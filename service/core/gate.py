@@ -292,8 +292,8 @@ def assess(batch: SeriesBatch, policy: Policy) -> Assessment:
     p_adjusted = dict(zip(names, p_matrix, strict=True))
 
     series_codes = matrix.max(axis=0) if names else np.zeros(n_series, dtype=int)
-    fleet_code = max((s.status.severity for s in summaries), default=PASS)
-    fleet_code = max(fleet_code, PASS)
+    # Codes order as severities: fail > warn > pass > skipped.
+    fleet_code = max(int(status.max(initial=PASS)), PASS)
     bias_summary = _fleet_bias(results, weights)
     bias_p = policy.fleet.bias_warn_p
     if bias_p is not None and np.isfinite(bias_summary.p_value) and bias_summary.p_value < bias_p:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from .batch import Residuals
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
 from .tails import chi2_sf
 
 JB_MIN_OBS = 8
@@ -32,12 +32,11 @@ def jarque_bera(res: Residuals, *, min_obs: int = JB_MIN_OBS) -> CheckResult:
         skew = m3 / m2**1.5
         kurt = m4 / (m2 * m2)
         jb = n / 6.0 * (skew * skew + (kurt - 3.0) ** 2 / 4.0)
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < max(min_obs, 3), f"fewer than {max(min_obs, 3)} residuals"),
         (res.constant | ~(m2 > 0), "residuals are constant"),
     )
-    ran = np.equal(reasons, None)
     jb = np.where(ran, jb, np.nan)
     return CheckResult(
         name="jarque_bera",

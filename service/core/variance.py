@@ -6,7 +6,7 @@ import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
 from .batch import Residuals, nearly_constant
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
 from .tails import chi2_sf
 from .types import FloatMatrix, FloatVector, InputError, IntVector
 
@@ -147,14 +147,13 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     # or no variation left in the regression rows.
     flat = (res.constant | nearly_constant(np.abs(res.values), res.observed, res.rounding_scale)
             | ~(tss > 0))
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         n_series,
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
         (used_lags < 1, "too short for one lag (the lag rule allows at most T/5)"),
         (rows < used_lags + 2, "too few complete rows for the regression"),
         (flat, "squared residuals are constant, so their variance cannot change"),
     )
-    ran = np.equal(reasons, None)
     lm = np.where(ran, np.maximum(lm, 0.0), np.nan)
     return CheckResult(
         name="arch_lm",
