@@ -329,29 +329,38 @@ def assess(batch: SeriesBatch, policy: Policy) -> Assessment:
 
 # ------------------------------------------------------------------------------ serialisation
 
-def _column(values: np.ndarray) -> list[Any]:
-    """An array as a list of plain Python values, non-finite floats as ``None``."""
-    arr = np.asarray(values)
-    if arr.dtype.kind == "f":
-        out = arr.astype(object)
-        out[~np.isfinite(arr)] = None
-        return out.tolist()
-    return arr.tolist()
+def _columns(arrays: list[np.ndarray]) -> list[list[Any]]:
+    """Equal-length float arrays as lists of plain Python floats, non-finite as ``None``."""
+    stacked = np.array(arrays, dtype=float)
+    out = stacked.astype(object)
+    out[~np.isfinite(stacked)] = None
+    return out.tolist()
 
 
 def _to_dict(a: Assessment) -> dict[str, Any]:
     results = a.results
     n = results.batch.n_series
+    # Every float column of every check converted in one go, the others one by one.
+    float_keys: list[tuple[str, str]] = []
+    float_arrays: list[np.ndarray] = []
     columns: dict[str, dict[str, Sequence[Any]]] = {}
     for name, res in results.checks.items():
-        columns[name] = {
-            "status": _STATUS[a.status_codes[name]].tolist(),
-            "statistic": _column(res.statistic),
-            "p_value": _column(res.p_value),
-            "p_adjusted": _column(a.p_adjusted[name]),
-            "skip": res.skip_reason.tolist(),
-            **{f"d:{k}": _column(v) for k, v in res.details.items()},
-        }
+        col: dict[str, Sequence[Any]] = {"status": _STATUS[a.status_codes[name]].tolist(),
+                                         "skip": res.skip_reason.tolist()}
+        for key, values in (("statistic", res.statistic), ("p_value", res.p_value),
+                            ("p_adjusted", a.p_adjusted[name]),
+                            *((f"d:{k}", v) for k, v in res.details.items())):
+            if values.dtype.kind == "f":
+                float_keys.append((name, key))
+                float_arrays.append(values)
+            else:
+                col[key] = values.tolist()
+        columns[name] = col
+    float_arrays.append(a.weights)
+    converted = _columns(float_arrays)
+    weights = converted.pop()
+    for (name, key), values in zip(float_keys, converted, strict=True):
+        columns[name][key] = values
     detail_keys = {name: list(res.details) for name, res in results.checks.items()}
     messages: dict[tuple[str, int], str] = {}
     index_of = {sid: i for i, sid in enumerate(results.batch.ids)}
@@ -360,7 +369,6 @@ def _to_dict(a: Assessment) -> dict[str, Any]:
             messages[(r.check, index_of[r.series_id])] = r.message
     verdicts = a.series_verdicts()
     n_obs = results.residuals.n_obs.tolist()
-    weights = _column(a.weights)
     bias_cols = columns.get("bias")
     ts_cols = columns.get("tracking_signal")
     series = []
