@@ -79,7 +79,7 @@ def ljung_box(
         raise InputError("lags", f"must be at least 1, got {lags}")
     n = res.n_obs
     used = portmanteau_lags(n, season_length) if lags is None else np.full(n.shape, lags)
-    used = np.clip(used, 0, np.maximum(n - 1, 0)).astype(np.int64)
+    used = np.minimum(np.maximum(used, 0), np.maximum(n - 1, 0)).astype(np.int64)
     max_lag = int(used.max(initial=0))
     df = used - model_params
     reasons, ran = skip_reasons_and_ran(

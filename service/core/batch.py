@@ -217,7 +217,7 @@ def make_batch(
                     raise InputError("ids", f"duplicate series id {s!r}", index=i)
                 seen.add(s)
 
-    volume = np.nansum(np.abs(a), axis=1)
+    volume = np.where(np.isnan(a), 0.0, np.abs(a)).sum(axis=1)
     if weights is None:
         w = volume
     else:

@@ -80,14 +80,15 @@ def bias(
         raise InputError("ci_level", f"must lie strictly between 0 and 1, got {ci_level}")
     n = res.n_obs
     lags = newey_west_lags(n) if hac_lags is None else np.full(n.shape, int(hac_lags))
-    lags = np.clip(lags, 0, np.maximum(n - 1, 0))
+    lags = np.minimum(np.maximum(lags, 0), np.maximum(n - 1, 0))
     var = _standard_hac_variance(res, lags)
     # Residuals equal within rounding have no sampling variation: SE is 0, not rounding noise.
     with np.errstate(over="ignore"):
         se = np.where(res.constant, 0.0, res.unit * np.sqrt(np.maximum(var, 0.0)))
     mean = res.mean
     # All zero within rounding: a fit that reproduces the actuals up to the last bits.
-    zero = res.constant & (np.abs(np.nan_to_num(mean)) <= 1e-12 * res.rounding_scale)
+    # (A NaN mean, no residuals at all, counts as zero.)
+    zero = res.constant & ~(np.abs(mean) > 1e-12 * res.rounding_scale)
     reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
@@ -176,7 +177,7 @@ def tracking_signal(
             "mean_absolute_error": np.where(ran, abs_total / window, np.nan),
             "z": np.where(ran, z, np.nan),
             "trade_limit": np.full(n.shape, TRACKING_TRADE_LIMIT),
-            "beyond_trade_limit": ran & (np.abs(np.nan_to_num(ts)) > TRACKING_TRADE_LIMIT),
+            "beyond_trade_limit": ran & (np.abs(ts) > TRACKING_TRADE_LIMIT),
         },
         skip_reason=reasons,
         null_hypothesis="the last errors have mean zero",

@@ -135,7 +135,8 @@ def _weights(batch: SeriesBatch, policy: Policy) -> np.ndarray:
         return np.ones(batch.n_series)
     if weighting == "given":
         return np.asarray(batch.weights, dtype=float)
-    return np.nansum(np.abs(batch.actuals), axis=1)
+    a = batch.actuals
+    return np.where(np.isnan(a), 0.0, np.abs(a)).sum(axis=1)
 
 
 def _codes(results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjust: bool

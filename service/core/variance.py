@@ -129,7 +129,12 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     # Loop over the few distinct lag orders and over blocks of rows, never over single series.
     width = squares.shape[1]
     buffer = np.empty(min(_CHUNK, n_series) * width * (ARCH_MAX_LAGS + 1)) if n_series else None
-    for order in np.unique(used_lags[used_lags >= 1]):
+    positive = used_lags[used_lags >= 1]
+    if positive.size and (positive == positive[0]).all():
+        orders = positive[:1]  # one order for the whole batch (the usual case): no sort
+    else:
+        orders = np.unique(positive)
+    for order in orders:
         members = np.flatnonzero(used_lags == order)
         for lo in range(0, members.size, _CHUNK):
             idx = members[lo : lo + _CHUNK]
