@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 
 from .batch import Residuals, nearly_constant
 from .results import CheckResult, skip_reasons_and_ran
@@ -34,24 +33,26 @@ def _lm_one_order(
         return nan, np.zeros(n_series, dtype=np.int64), nan
     # A regression row t (t = lags..width-1) is usable when s_{t-lags}..s_t are all observed:
     # count the missing values in that window from a running count.
+    nan = np.isnan(squares)
     missing = np.zeros((n_series, width + 1), dtype=np.int64)
-    np.cumsum(np.isnan(squares), axis=1, out=missing[:, 1:])
+    np.cumsum(nan, axis=1, out=missing[:, 1:])
     valid = missing[:, lags + 1 :] == missing[:, :rows]
     used = valid.sum(axis=1)
     # Shift each row by the mean of its observed squares: R^2 does not change, and the
     # cross-products below are taken about values near zero, so they do not cancel.
-    have = (~np.isnan(squares)).sum(axis=1)
+    have = width - missing[:, -1]
+    filled = np.where(nan, 0.0, squares)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        shift = np.where(have > 0, np.nansum(squares, axis=1) / np.maximum(have, 1), 0.0)
-    z = np.where(np.isnan(squares), 0.0, squares - shift[:, None])
-    # window[:, t, 0] is z_t, window[:, t, j] is z_{t-j}: a strided view, copied once into the
-    # regression rows, of which the unusable ones are then zeroed.
-    window = sliding_window_view(z, lags + 1, axis=1)[:, :, ::-1]
+        shift = np.where(have > 0, filled.sum(axis=1) / np.maximum(have, 1), 0.0)
+    z = np.where(nan, 0.0, squares - shift[:, None])
+    # cols[:, t, 0] is z_t, cols[:, t, j] is z_{t-j}: the regression rows, one lag column
+    # copied at a time, of which the unusable ones are then zeroed.
     size = n_series * rows * (lags + 1)
     if buffer is None or buffer.size < size:
         buffer = np.empty(size)
     cols = buffer[:size].reshape(n_series, rows, lags + 1)
-    np.copyto(cols, window)
+    for j in range(lags + 1):
+        cols[:, :, j] = z[:, lags - j : width - j]
     cols[~valid] = 0.0
     # One small Gram matrix per series, [y, x]' [y, x] over the usable rows (a batched matrix
     # product), centred with the column sums: this absorbs the intercept.
