@@ -147,44 +147,31 @@ def _codes(results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjus
     metrics: the statistic against their bounds. Skipped series get ``SKIPPED``; the adjusted
     p-values of metrics are ``NaN``."""
     checks = [results[name] for name in names]
-    n_series = results.batch.n_series
-    skipped = np.array([r.skipped for r in checks]).reshape(len(checks), n_series)
-    is_test = np.array([r.kind == "test" for r in checks], dtype=bool)
-    inf = np.inf
-
-    def bound(values: list[float | None], missing: float) -> np.ndarray:
-        return np.array([missing if v is None else v for v in values], dtype=float)[:, None]
-
-    codes = np.full(skipped.shape, PASS)
-    p_adj = np.full(skipped.shape, np.nan)
-    if is_test.any():
-        rows = np.flatnonzero(is_test)
-        tests = [cps[i] for i in rows]
-        raw = np.array([checks[i].p_value for i in rows]).reshape(rows.size, n_series)
-        adj = benjamini_hochberg_rows(np.where(skipped[rows], np.nan, raw))
-        p_adj[rows] = adj
-        use_adj = np.array([adjust and cp.adjust for cp in tests], dtype=bool)[:, None]
-        p = np.where(skipped[rows], 1.0, np.where(use_adj, adj, raw))
-        test_codes = np.where(p < bound([cp.fail_p for cp in tests], -inf), FAIL,
-                              np.where(p < bound([cp.warn_p for cp in tests], -inf), WARN, PASS))
-        if "interval_coverage" in names:
-            # Intervals too wide waste width but do not mislead: at most a warning.
-            j = names.index("interval_coverage")
-            r = checks[j]
-            too_wide = r.details["coverage"] > r.details["level"]
-            k = int(np.flatnonzero(rows == j)[0])
-            test_codes[k] = np.where(too_wide & (test_codes[k] == FAIL), WARN, test_codes[k])
-        codes[rows] = test_codes
-    if not is_test.all():
-        rows = np.flatnonzero(~is_test)
-        metrics = [cps[i] for i in rows]
-        x = np.array([checks[i].statistic for i in rows]).reshape(rows.size, n_series)
-        x = np.where(skipped[rows], np.nan, x)
-        warn = ((x > bound([cp.warn_above for cp in metrics], inf))
-                | (x < bound([cp.warn_below for cp in metrics], -inf)))
-        fail = ((x > bound([cp.fail_above for cp in metrics], inf))
-                | (x < bound([cp.fail_below for cp in metrics], -inf)))
-        codes[rows] = np.where(fail, FAIL, np.where(warn, WARN, PASS))
+    shape = (len(checks), results.batch.n_series)
+    is_test = [r.kind == "test" for r in checks]
+    skipped = np.array([r.skipped for r in checks]).reshape(shape)
+    values = np.array([r.p_value if t else r.statistic
+                       for r, t in zip(checks, is_test, strict=True)]).reshape(shape)
+    # Per row: fail below, fail above, warn below, warn above (a test's p-value has only the
+    # "below" bounds); a bound that does not apply is NaN, which no comparison passes.
+    bounds = np.array([(cp.fail_p, None, cp.warn_p, None) if t else
+                       (cp.fail_below, cp.fail_above, cp.warn_below, cp.warn_above)
+                       for cp, t in zip(cps, is_test, strict=True)], dtype=float).reshape(-1, 4)
+    # Metric rows enter the adjustment as all missing, so their adjusted p-values are NaN.
+    not_test = ~np.array(is_test, dtype=bool)[:, None]
+    p_adj = benjamini_hochberg_rows(np.where(skipped | not_test, np.nan, values))
+    use_adj = np.array([adjust and t and cp.adjust for cp, t in zip(cps, is_test, strict=True)],
+                       dtype=bool)[:, None]
+    v = np.where(use_adj, p_adj, values)
+    lo_fail, hi_fail, lo_warn, hi_warn = (bounds[:, j : j + 1] for j in range(4))
+    codes = np.where((v < lo_fail) | (v > hi_fail), FAIL,
+                     np.where((v < lo_warn) | (v > hi_warn), WARN, PASS))
+    if "interval_coverage" in names:
+        # Intervals too wide waste width but do not mislead: at most a warning.
+        j = names.index("interval_coverage")
+        r = checks[j]
+        too_wide = r.details["coverage"] > r.details["level"]
+        codes[j] = np.where(too_wide & (codes[j] == FAIL), WARN, codes[j])
     return np.where(skipped, SKIPPED, codes), p_adj
 
 

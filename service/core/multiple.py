@@ -32,9 +32,10 @@ def benjamini_hochberg_rows(p: FloatMatrix) -> FloatMatrix:
     m = width - np.isnan(p).sum(axis=1)
     # NaN sorts last, so the m non-missing p-values of a row lead it in ascending order.
     order = np.argsort(p, axis=1, kind="stable")
-    ranked = np.take_along_axis(p, order, axis=1) * m[:, None] / np.arange(1, width + 1)
+    row = np.arange(p.shape[0])[:, None]
+    ranked = p[row, order] * m[:, None] / np.arange(1, width + 1)
     # Running minimum from the largest rank down; fmin passes over the trailing NaNs.
     adjusted = np.minimum(np.fmin.accumulate(ranked[:, ::-1], axis=1)[:, ::-1], 1.0)
     out = np.empty(p.shape)
-    np.put_along_axis(out, order, adjusted, axis=1)
+    out[row, order] = adjusted
     return out
