@@ -360,9 +360,9 @@ class Residuals:
         z = self.standard
         width = z.shape[1]
         out = np.zeros((z.shape[0], max_lag + 1))
-        out[:, 0] = np.einsum("ij,ij->i", z, z)
+        out[:, 0] = np.vecdot(z, z)
         for k in range(1, min(max_lag, width - 1) + 1):
-            out[:, k] = np.einsum("ij,ij->i", z[:, k:], z[:, :-k])
+            out[:, k] = np.vecdot(z[:, k:], z[:, :-k])
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             return out / self.n_obs[:, None]
 

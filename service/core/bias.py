@@ -156,7 +156,7 @@ def tracking_signal(
     abs_total = np.abs(e).sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         # Sample variance in units of res.unit (standardised residuals): no overflow.
-        var = np.einsum("ij,ij->i", res.standard, res.standard) / (n - 1)
+        var = np.vecdot(res.standard, res.standard) / (n - 1)
         ts = window * total / abs_total
         z = (total / res.unit) / np.sqrt(window * var)
     p = norm_sf_two_sided(z)

@@ -27,8 +27,8 @@ def jarque_bera(res: Residuals, *, min_obs: int = JB_MIN_OBS) -> CheckResult:
     z2 = z * z
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         m2 = z2.sum(axis=1) / n
-        m3 = np.einsum("ij,ij->i", z2, z) / n
-        m4 = np.einsum("ij,ij->i", z2, z2) / n
+        m3 = np.vecdot(z2, z) / n
+        m4 = np.vecdot(z2, z2) / n
         skew = m3 / m2**1.5
         kurt = m4 / (m2 * m2)
         jb = n / 6.0 * (skew * skew + (kurt - 3.0) ** 2 / 4.0)

@@ -78,7 +78,7 @@ def _lm_one_order(
     a[:, np.arange(lags), np.arange(lags)] = 1.0
     b = xty / d
     coef = _solve_each(a, b)
-    explained = np.einsum("nj,nj->n", coef, b)
+    explained = np.vecdot(coef, b)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         r2 = explained / tss
     return used * r2, used.astype(np.int64), tss
