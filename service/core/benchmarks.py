@@ -95,8 +95,18 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     err, ok, count = holdout_pairs(batch)
     n = batch.n_series
     horizon = err.shape[1]
-    model_rmse = _rmse(err, ok, count)
     names = [k for k in BENCHMARKS if k != "seasonal_naive" or batch.season_length > 1]
+    if horizon == 0:
+        # No holdout step in the whole batch: every series skips, with the same keys.
+        nan = np.full(n, np.nan)
+        return CheckResult(
+            name="benchmark_skill", kind="metric", statistic=nan, p_value=nan,
+            details={"best_benchmark": np.full(n, None, dtype=object), "skill": nan,
+                     "rmse_model": nan, "rmse_best": nan,
+                     **{f"rmse_{name}": nan for name in names}, "horizon": count},
+            skip_reason=np.full(n, holdout_reason(min_obs), dtype=object),
+        )
+    model_rmse = _rmse(err, ok, count)
     bench_rmse = np.full((n, len(names)), np.inf)
     details: dict[str, np.ndarray] = {}
     if horizon > 0 and batch.holdout is not None:

@@ -82,9 +82,6 @@ def bias(
     lags = newey_west_lags(n) if hac_lags is None else np.full(n.shape, int(hac_lags))
     lags = np.minimum(np.maximum(lags, 0), np.maximum(n - 1, 0))
     var = _standard_hac_variance(res, lags)
-    # Residuals equal within rounding have no sampling variation: SE is 0, not rounding noise.
-    with np.errstate(over="ignore"):
-        se = np.where(res.constant, 0.0, res.unit * np.sqrt(np.maximum(var, 0.0)))
     mean = res.mean
     # All zero within rounding: a fit that reproduces the actuals up to the last bits.
     # (A NaN mean, no residuals at all, counts as zero.)
@@ -96,6 +93,8 @@ def bias(
     )
     df = np.maximum(n - 1, 1).astype(float)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        # Residuals equal within rounding have no sampling variation: SE is 0, not noise.
+        se = np.where(res.constant, 0.0, res.unit * np.sqrt(np.maximum(var, 0.0)))
         t = np.where(se > 0, mean / se, np.sign(mean) * np.inf)
         p = t_sf_two_sided(t, df)
         q = t_ppf(0.5 + ci_level / 2.0, df)
