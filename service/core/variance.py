@@ -53,29 +53,32 @@ def _lm_one_order(
     cols = buffer[:size].reshape(n_series, rows, lags + 1)
     for j in range(lags + 1):
         cols[:, :, j] = z[:, lags - j : width - j]
-    cols[~valid] = 0.0
+    if not valid.all():
+        cols[~valid] = 0.0
     # One small Gram matrix per series, [y, x]' [y, x] over the usable rows (a batched matrix
     # product), centred with the column sums: this absorbs the intercept.
     gram = np.matmul(cols.transpose(0, 2, 1), cols)
-    raw_diag = np.einsum("njj->nj", gram).copy()
+    raw_diag = gram.diagonal(axis1=1, axis2=2).copy()
     sums = np.matmul(np.ones(rows), cols)  # column sums over the usable rows
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         means = np.where(used[:, None] > 0, sums / np.maximum(used, 1)[:, None], 0.0)
     gram -= sums[:, :, None] * means[:, None, :]
     # A column whose centred sum of squares is at rounding level (1e-12 of its raw sum of
     # squares) does not vary over the usable rows: exactly zero, so it explains nothing.
-    diag = np.einsum("njj->nj", gram)
-    flat = diag <= 1e-12 * raw_diag
-    gram[flat[:, :, None] | flat[:, None, :]] = 0.0
+    flat = gram.diagonal(axis1=1, axis2=2) <= 1e-12 * raw_diag
+    if flat.any():
+        gram[flat[:, :, None] | flat[:, None, :]] = 0.0
     xtx = gram[:, 1:, 1:]
     xty = gram[:, 1:, 0]
     tss = gram[:, 0, 0]
     # Scale to unit diagonal before solving; a column without variation gets a unit diagonal
     # and zero right-hand side, so its coefficient is 0.
-    d = np.sqrt(np.einsum("njj->nj", xtx))
+    d = np.sqrt(xtx.diagonal(axis1=1, axis2=2))
     d = np.where(d > 0, d, 1.0)
-    a = xtx / d[:, :, None] / d[:, None, :]
-    a[:, np.arange(lags), np.arange(lags)] = 1.0
+    a = np.empty(xtx.shape)  # C-contiguous, so the reshape below is a view
+    np.divide(xtx, d[:, :, None], out=a)
+    a /= d[:, None, :]
+    a.reshape(a.shape[0], lags * lags)[:, :: lags + 1] = 1.0  # the diagonal
     b = xty / d
     coef = _solve_each(a, b)
     explained = np.vecdot(coef, b)
