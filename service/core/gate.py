@@ -198,18 +198,18 @@ def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
     total = w.sum()
     if total <= 0:
         w, total = np.ones(int(use.sum())), float(use.sum())
-    res = checks.residuals
-    pooled_e = np.where(res.observed, res.values, 0.0)[use].sum()
-    pooled_y = np.where(res.observed, np.abs(checks.batch.actuals), 0.0)[use].sum()
     if total == 0:
         nan = float("nan")
         return FleetBias(nan, nan, nan, nan, nan, 0)
+    res = checks.residuals
+    pooled_e = np.where(res.observed, res.values, 0.0)[use].sum()
+    pooled_y = np.where(res.observed, np.abs(checks.batch.actuals), 0.0)[use].sum()
     mean = float((w * me[use]).sum() / total)
     std = float(np.sqrt((w * w * se[use] * se[use]).sum()) / total)
     with np.errstate(invalid="ignore", divide="ignore"):
         z = mean / std if std > 0 else (np.sign(mean) * np.inf if mean else np.nan)
         pct = float(100.0 * pooled_e / pooled_y) if pooled_y > 0 else float("nan")
-    p = float(norm_sf_two_sided(z)) if np.isfinite(z) or np.isinf(z) else float("nan")
+    p = float(norm_sf_two_sided(z)) if z == z else float("nan")  # z == z: not NaN
     return FleetBias(mean, pct, std, float(z), p, int(use.sum()))
 
 
@@ -349,7 +349,9 @@ def _to_dict(a: Assessment) -> dict[str, Any]:
     weights = converted.pop()
     for (name, key), values in zip(float_keys, converted, strict=True):
         columns[name][key] = values
-    detail_keys = {name: list(res.details) for name, res in results.checks.items()}
+    # Per check, its detail columns as (key, values) pairs, looked up once for every series.
+    detail_cols = {name: [(k, columns[name][f"d:{k}"]) for k in res.details]
+                   for name, res in results.checks.items()}
     messages: dict[tuple[str, int], str] = {}
     index_of = {sid: i for i, sid in enumerate(results.batch.ids)}
     for r in a.reasons:
@@ -376,7 +378,7 @@ def _to_dict(a: Assessment) -> dict[str, Any]:
                 "statistic": col["statistic"][i],
                 "p_value": col["p_value"][i],
                 "p_adjusted": col["p_adjusted"][i],
-                "details": {k: col[f"d:{k}"][i] for k in detail_keys[name]},
+                "details": {k: v[i] for k, v in detail_cols[name]},
                 "message": message,
             })
         bias_i = None
