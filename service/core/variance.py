@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
 
 from .batch import Residuals, nearly_constant
 from .results import CheckResult, skip_reasons_and_ran
@@ -45,14 +46,14 @@ def _lm_one_order(
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         shift = np.where(have > 0, filled.sum(axis=1) / np.maximum(have, 1), 0.0)
     z = np.where(nan, 0.0, squares - shift[:, None])
-    # cols[:, t, 0] is z_t, cols[:, t, j] is z_{t-j}: the regression rows, one lag column
-    # copied at a time, of which the unusable ones are then zeroed.
+    # window[:, t, 0] is z_t, window[:, t, j] is z_{t-j}: a strided view, copied once into the
+    # regression rows, of which the unusable ones are then zeroed.
+    window = sliding_window_view(z, lags + 1, axis=1)[:, :, ::-1]
     size = n_series * rows * (lags + 1)
     if buffer is None or buffer.size < size:
         buffer = np.empty(size)
     cols = buffer[:size].reshape(n_series, rows, lags + 1)
-    for j in range(lags + 1):
-        cols[:, :, j] = z[:, lags - j : width - j]
+    np.copyto(cols, window)
     if not valid.all():
         cols[~valid] = 0.0
     # One small Gram matrix per series, [y, x]' [y, x] over the usable rows (a batched matrix
