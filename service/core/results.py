@@ -98,20 +98,13 @@ class CheckResult:
         skipped = ~ran
         for arr in (statistic, p_value, reasons, skipped):
             arr.flags.writeable = False
-        # Details of one dtype are copied together into one read-only block; each detail is a
-        # row of it (a view of a read-only array cannot be made writeable).
-        by_dtype: dict[np.dtype, list[tuple[str, np.ndarray]]] = {}
+        frozen_details = {}
         for key, values in self.details.items():
-            arr = values if isinstance(values, np.ndarray) else np.asarray(values)
+            arr = np.array(values)
             if arr.shape != (n,):
                 raise AssertionError(f"{self.name}: detail {key!r} has shape {arr.shape}")
-            by_dtype.setdefault(arr.dtype, []).append((key, arr))
-        rows: dict[str, np.ndarray] = {}
-        for dtype, group in by_dtype.items():
-            block = np.array([arr for _, arr in group], dtype=dtype)  # (len(group), n), owned
-            block.flags.writeable = False
-            rows.update(zip((key for key, _ in group), block, strict=True))
-        frozen_details = {key: rows[key] for key in self.details}
+            arr.flags.writeable = False
+            frozen_details[key] = arr
         object.__setattr__(self, "statistic", statistic)
         object.__setattr__(self, "p_value", p_value)
         object.__setattr__(self, "skip_reason", reasons)
