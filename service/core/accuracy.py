@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from .batch import SeriesBatch
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
 from .types import FloatMatrix, FloatVector, InputError
 
 
@@ -24,7 +24,7 @@ def naive_scale(actuals: FloatMatrix, season_length: int = 1) -> FloatVector:
     diff = np.abs(actuals[:, m:] - actuals[:, :-m])
     count = (~np.isnan(diff)).sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        return np.where(count > 0, np.nansum(diff, axis=1) / count, np.nan)
+        return np.where(count > 0, np.where(np.isnan(diff), 0.0, diff).sum(axis=1) / count, np.nan)
 
 
 def holdout_pairs(batch: SeriesBatch) -> tuple[FloatMatrix, np.ndarray, np.ndarray]:
@@ -56,17 +56,16 @@ def mase(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     """
     m = batch.season_length
     scale = naive_scale(batch.actuals, m)
-    err, _, count = holdout_pairs(batch)
+    err, ok, count = holdout_pairs(batch)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        mae = np.where(count > 0, np.nansum(np.abs(err), axis=1) / count, np.nan)
+        mae = np.where(count > 0, np.where(ok, np.abs(err), 0.0).sum(axis=1) / count, np.nan)
         value = mae / scale
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         batch.n_series,
         (count < max(min_obs, 1), holdout_reason(min_obs)),
         (np.isnan(scale), f"training series too short for a lag-{m} naive forecast"),
         (scale == 0, "the in-sample naive forecast is exact (constant series), so the scale is 0"),
     )
-    ran = np.equal(reasons, None)
     return CheckResult(
         name="mase",
         kind="metric",

@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from .batch import Residuals
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
+from .tails import chi2_sf
 from .types import FloatMatrix, FloatVector, InputError, IntVector
 
 NONSEASONAL_LAGS = 10
@@ -79,17 +79,16 @@ def ljung_box(
         raise InputError("lags", f"must be at least 1, got {lags}")
     n = res.n_obs
     used = portmanteau_lags(n, season_length) if lags is None else np.full(n.shape, lags)
-    used = np.clip(used, 0, np.maximum(n - 1, 0)).astype(np.int64)
+    used = np.minimum(np.maximum(used, 0), np.maximum(n - 1, 0)).astype(np.int64)
     max_lag = int(used.max(initial=0))
     df = used - model_params
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
         (used < 1, "too short for one lag (the lag rule allows at most T/5)"),
         (df <= 0, f"no degrees of freedom left: lags minus {model_params} model parameters <= 0"),
         (res.constant, "residuals are constant, so autocorrelation is undefined"),
     )
-    ran = np.equal(reasons, None)
     if max_lag >= 1:
         r = autocorrelations(res, max_lag)
         q, q_bp = portmanteau_q(r, n, used)
@@ -103,12 +102,12 @@ def ljung_box(
         name="ljung_box",
         kind="test",
         statistic=q,
-        p_value=stats.chi2.sf(q, safe_df),
+        p_value=chi2_sf(q, safe_df),
         details={
             "lags": used,
             "df": df,
             "box_pierce": q_bp,
-            "box_pierce_p_value": stats.chi2.sf(q_bp, safe_df),
+            "box_pierce_p_value": chi2_sf(q_bp, safe_df),
             "acf_lag1": np.where(ran, r1, np.nan),
         },
         skip_reason=reasons,

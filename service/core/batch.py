@@ -16,6 +16,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import cached_property
 
 import numpy as np
 
@@ -46,11 +47,11 @@ def _matrix(name: str, values: object, n_series: int | None = None) -> FloatMatr
         raise InputError(name, f"expected a 2-D array (series x periods), got {arr.ndim}-D")
     if n_series is not None and arr.shape[0] != n_series:
         raise InputError(name, f"has {arr.shape[0]} rows, expected {n_series} (one per series)")
-    if np.isinf(arr).any():
+    with np.errstate(invalid="ignore"):
+        huge = np.abs(arr) > MAX_MAGNITUDE  # infinities included
+    if huge.any() and np.isinf(arr).any():
         row = int(np.argwhere(np.isinf(arr))[0, 0])
         raise InputError(name, "contains an infinite value", index=row)
-    with np.errstate(invalid="ignore"):
-        huge = np.abs(arr) > MAX_MAGNITUDE
     if huge.any():
         row = int(np.argwhere(huge)[0, 0])
         raise InputError(name, f"contains a value beyond {MAX_MAGNITUDE:g} in magnitude", index=row)
@@ -117,10 +118,12 @@ class SeriesBatch:
     def n_series(self) -> int:
         return len(self.ids)
 
-    @property
+    @cached_property
     def lengths(self) -> IntVector:
-        """Training length per series: last observed actual + 1."""
-        return _row_lengths(self.actuals)
+        """Training length per series: last observed actual + 1 (computed once, read-only)."""
+        lengths = _row_lengths(self.actuals)
+        lengths.flags.writeable = False
+        return lengths
 
     def take(self, index: np.ndarray) -> SeriesBatch:
         """The batch restricted (and reordered) to the rows in ``index``."""
@@ -217,7 +220,7 @@ def make_batch(
                     raise InputError("ids", f"duplicate series id {s!r}", index=i)
                 seen.add(s)
 
-    volume = np.nansum(np.abs(a), axis=1)
+    volume = np.where(np.isnan(a), 0.0, np.abs(a)).sum(axis=1)
     if weights is None:
         w = volume
     else:
@@ -357,9 +360,9 @@ class Residuals:
         z = self.standard
         width = z.shape[1]
         out = np.zeros((z.shape[0], max_lag + 1))
-        out[:, 0] = np.einsum("ij,ij->i", z, z)
+        out[:, 0] = np.vecdot(z, z)
         for k in range(1, min(max_lag, width - 1) + 1):
-            out[:, k] = np.einsum("ij,ij->i", z[:, k:], z[:, :-k])
+            out[:, k] = np.vecdot(z[:, k:], z[:, :-k])
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             return out / self.n_obs[:, None]
 

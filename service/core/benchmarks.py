@@ -17,7 +17,7 @@ import numpy as np
 
 from .accuracy import holdout_pairs, holdout_reason
 from .batch import SeriesBatch
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
 from .types import FloatMatrix
 
 BENCHMARKS = ("mean", "naive", "seasonal_naive", "drift")
@@ -95,8 +95,18 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     err, ok, count = holdout_pairs(batch)
     n = batch.n_series
     horizon = err.shape[1]
-    model_rmse = _rmse(err, ok, count)
     names = [k for k in BENCHMARKS if k != "seasonal_naive" or batch.season_length > 1]
+    if horizon == 0:
+        # No holdout step in the whole batch: every series skips, with the same keys.
+        nan = np.full(n, np.nan)
+        return CheckResult(
+            name="benchmark_skill", kind="metric", statistic=nan, p_value=nan,
+            details={"best_benchmark": np.full(n, None, dtype=object), "skill": nan,
+                     "rmse_model": nan, "rmse_best": nan,
+                     **{f"rmse_{name}": nan for name in names}, "horizon": count},
+            skip_reason=np.full(n, holdout_reason(min_obs), dtype=object),
+        )
+    model_rmse = _rmse(err, ok, count)
     bench_rmse = np.full((n, len(names)), np.inf)
     details: dict[str, np.ndarray] = {}
     if horizon > 0 and batch.holdout is not None:
@@ -114,13 +124,12 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     best = bench_rmse[np.arange(n), best_j]
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         skill = 1.0 - model_rmse / best
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         n,
         (count < max(min_obs, 1), holdout_reason(min_obs)),
         (~np.isfinite(best), "no benchmark could be fitted to the training actuals"),
         (best == 0, "a benchmark forecasts the holdout exactly, so skill is undefined"),
     )
-    ran = np.equal(reasons, None)
     best_name = np.array(names, dtype=object)[best_j]
     return CheckResult(
         name="benchmark_skill",

@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from .batch import Residuals
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
+from .tails import norm_sf_two_sided, t_ppf, t_sf_two_sided
 from .types import FloatVector, InputError, IntVector
 
 BIAS_MIN_OBS = 3
@@ -80,25 +80,24 @@ def bias(
         raise InputError("ci_level", f"must lie strictly between 0 and 1, got {ci_level}")
     n = res.n_obs
     lags = newey_west_lags(n) if hac_lags is None else np.full(n.shape, int(hac_lags))
-    lags = np.clip(lags, 0, np.maximum(n - 1, 0))
+    lags = np.minimum(np.maximum(lags, 0), np.maximum(n - 1, 0))
     var = _standard_hac_variance(res, lags)
-    # Residuals equal within rounding have no sampling variation: SE is 0, not rounding noise.
-    with np.errstate(over="ignore"):
-        se = np.where(res.constant, 0.0, res.unit * np.sqrt(np.maximum(var, 0.0)))
     mean = res.mean
     # All zero within rounding: a fit that reproduces the actuals up to the last bits.
-    zero = res.constant & (np.abs(np.nan_to_num(mean)) <= 1e-12 * res.rounding_scale)
-    reasons = skip_reasons(
+    # (A NaN mean, no residuals at all, counts as zero.)
+    zero = res.constant & ~(np.abs(mean) > 1e-12 * res.rounding_scale)
+    reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
         (zero, "residuals are all zero"),
     )
-    ran = np.equal(reasons, None)
     df = np.maximum(n - 1, 1).astype(float)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        # Residuals equal within rounding have no sampling variation: SE is 0, not noise.
+        se = np.where(res.constant, 0.0, res.unit * np.sqrt(np.maximum(var, 0.0)))
         t = np.where(se > 0, mean / se, np.sign(mean) * np.inf)
-        p = 2.0 * stats.t.sf(np.abs(t), df)
-        q = stats.t.ppf(0.5 + ci_level / 2.0, df)
+        p = t_sf_two_sided(t, df)
+        q = t_ppf(0.5 + ci_level / 2.0, df)
         pct = 100.0 * mean / actuals_scale
     t = np.where(ran, t, np.nan)
     p = np.where(ran, p, np.nan)
@@ -156,17 +155,16 @@ def tracking_signal(
     abs_total = np.abs(e).sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         # Sample variance in units of res.unit (standardised residuals): no overflow.
-        var = np.einsum("ij,ij->i", res.standard, res.standard) / (n - 1)
+        var = np.vecdot(res.standard, res.standard) / (n - 1)
         ts = window * total / abs_total
         z = (total / res.unit) / np.sqrt(window * var)
-    p = 2.0 * stats.norm.sf(np.abs(z))
-    reasons = skip_reasons(
+    p = norm_sf_two_sided(z)
+    reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < need, f"fewer than {need} residuals for a window of {window}"),
         (abs_total == 0, f"the last {window} residuals are all zero"),
         (res.constant | ~(var > 0), "residuals are constant"),
     )
-    ran = np.equal(reasons, None)
     return CheckResult(
         name="tracking_signal",
         kind="test",
@@ -178,7 +176,7 @@ def tracking_signal(
             "mean_absolute_error": np.where(ran, abs_total / window, np.nan),
             "z": np.where(ran, z, np.nan),
             "trade_limit": np.full(n.shape, TRACKING_TRADE_LIMIT),
-            "beyond_trade_limit": ran & (np.abs(np.nan_to_num(ts)) > TRACKING_TRADE_LIMIT),
+            "beyond_trade_limit": ran & (np.abs(ts) > TRACKING_TRADE_LIMIT),
         },
         skip_reason=reasons,
         null_hypothesis="the last errors have mean zero",

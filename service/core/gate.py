@@ -23,20 +23,21 @@ from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-from scipy import stats
 
 from .batch import SeriesBatch
 from .catalogue import CHECK_NAMES
 from .checks import BatchChecks, run_checks
 from .messages import fleet_message, pass_message, series_message
-from .multiple import benjamini_hochberg
+from .multiple import benjamini_hochberg_rows
 from .policy import CheckPolicy, Policy
-from .results import CheckResult, Status, to_python
+from .results import Status, to_python
+from .tails import norm_sf_two_sided
 
 # Integer status codes so statuses combine with ``max``.
 SKIPPED, PASS, WARN, FAIL = 0, 1, 2, 3
 _STATUS = np.array([Status.SKIPPED.value, Status.PASS.value, Status.WARN.value, Status.FAIL.value],
                    dtype=object)
+_STATUS_ENUM = (Status.SKIPPED, Status.PASS, Status.WARN, Status.FAIL)
 
 
 @dataclass(frozen=True)
@@ -134,50 +135,56 @@ def _weights(batch: SeriesBatch, policy: Policy) -> np.ndarray:
         return np.ones(batch.n_series)
     if weighting == "given":
         return np.asarray(batch.weights, dtype=float)
-    return np.nansum(np.abs(batch.actuals), axis=1)
+    a = batch.actuals
+    return np.where(np.isnan(a), 0.0, np.abs(a)).sum(axis=1)
 
 
-def _test_codes(p: np.ndarray, cp: CheckPolicy) -> np.ndarray:
-    codes = np.full(p.shape, PASS)
-    if cp.warn_p is not None:
-        codes = np.where(p < cp.warn_p, WARN, codes)
-    if cp.fail_p is not None:
-        codes = np.where(p < cp.fail_p, FAIL, codes)
-    return codes
+def _codes(results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjust: bool
+           ) -> tuple[np.ndarray, np.ndarray]:
+    """Status codes and BH-adjusted p-values, one row per check in ``names`` (in that order).
 
-
-def _metric_codes(x: np.ndarray, cp: CheckPolicy) -> np.ndarray:
-    codes = np.full(x.shape, PASS)
-    for bound, code, above in ((cp.warn_above, WARN, True), (cp.warn_below, WARN, False),
-                               (cp.fail_above, FAIL, True), (cp.fail_below, FAIL, False)):
-        if bound is not None:
-            hit = x > bound if above else x < bound
-            codes = np.where(hit, np.maximum(codes, code), codes)
-    return codes
-
-
-def _statuses(result: CheckResult, cp: CheckPolicy, adjust: bool) -> tuple[np.ndarray, np.ndarray]:
-    skipped = result.skipped
-    if result.kind == "test":
-        p_adj = benjamini_hochberg(np.where(skipped, np.nan, result.p_value))
-        p = p_adj if (adjust and cp.adjust) else result.p_value
-        codes = _test_codes(np.where(skipped, 1.0, p), cp)
-        if result.name == "interval_coverage":
-            # Intervals too wide waste width but do not mislead: at most a warning.
-            too_wide = result.details["coverage"] > result.details["level"]
-            codes = np.where(too_wide & (codes == FAIL), WARN, codes)
-    else:
-        p_adj = np.full(result.n_series, np.nan)
-        codes = _metric_codes(np.where(skipped, np.nan, result.statistic), cp)
+    Tests: the (adjusted, where the policy says so) p-value against ``warn_p``/``fail_p``;
+    metrics: the statistic against their bounds. Skipped series get ``SKIPPED``; the adjusted
+    p-values of metrics are ``NaN``."""
+    checks = [results[name] for name in names]
+    shape = (len(checks), results.batch.n_series)
+    is_test = [r.kind == "test" for r in checks]
+    skipped = np.array([r.skipped for r in checks]).reshape(shape)
+    values = np.array([r.p_value if t else r.statistic
+                       for r, t in zip(checks, is_test, strict=True)]).reshape(shape)
+    # Per row: fail below, fail above, warn below, warn above (a test's p-value has only the
+    # "below" bounds); a bound that does not apply is NaN, which no comparison passes.
+    bounds = np.array([(cp.fail_p, None, cp.warn_p, None) if t else
+                       (cp.fail_below, cp.fail_above, cp.warn_below, cp.warn_above)
+                       for cp, t in zip(cps, is_test, strict=True)], dtype=float).reshape(-1, 4)
+    # Metric rows enter the adjustment as all missing, so their adjusted p-values are NaN.
+    not_test = ~np.array(is_test, dtype=bool)[:, None]
+    p_adj = benjamini_hochberg_rows(np.where(skipped | not_test, np.nan, values))
+    use_adj = np.array([adjust and t and cp.adjust for cp, t in zip(cps, is_test, strict=True)],
+                       dtype=bool)[:, None]
+    v = np.where(use_adj, p_adj, values)
+    lo_fail, hi_fail, lo_warn, hi_warn = (bounds[:, j : j + 1] for j in range(4))
+    codes = np.where((v < lo_fail) | (v > hi_fail), FAIL,
+                     np.where((v < lo_warn) | (v > hi_warn), WARN, PASS))
+    if "interval_coverage" in names:
+        # Intervals too wide waste width but do not mislead: at most a warning.
+        j = names.index("interval_coverage")
+        r = checks[j]
+        too_wide = r.details["coverage"] > r.details["level"]
+        codes[j] = np.where(too_wide & (codes[j] == FAIL), WARN, codes[j])
     return np.where(skipped, SKIPPED, codes), p_adj
 
 
-def _share(weights: np.ndarray, hit: np.ndarray, tested: np.ndarray) -> float:
-    total = float(weights[tested].sum())
-    if total > 0:
-        return float(weights[hit & tested].sum()) / total
-    n = int(tested.sum())
-    return float((hit & tested).sum()) / n if n else 0.0
+def _shares(weights: np.ndarray, hit: np.ndarray, tested: np.ndarray) -> np.ndarray:
+    """Per row (check): the weighted share of the tested series that are ``hit``; by count
+    when the tested series weigh nothing, 0 when none was tested."""
+    total = np.where(tested, weights, 0.0).sum(axis=1)
+    hit_weight = np.where(hit & tested, weights, 0.0).sum(axis=1)
+    n = tested.sum(axis=1)
+    n_hit = (hit & tested).sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(total > 0, hit_weight / total,
+                        np.where(n > 0, n_hit / np.maximum(n, 1), 0.0))
 
 
 def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
@@ -191,75 +198,90 @@ def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
     total = w.sum()
     if total <= 0:
         w, total = np.ones(int(use.sum())), float(use.sum())
-    res = checks.residuals
-    pooled_e = np.where(res.observed, res.values, 0.0)[use].sum()
-    pooled_y = np.where(res.observed, np.abs(checks.batch.actuals), 0.0)[use].sum()
     if total == 0:
         nan = float("nan")
         return FleetBias(nan, nan, nan, nan, nan, 0)
+    res = checks.residuals
+    pooled_e = np.where(res.observed, res.values, 0.0)[use].sum()
+    pooled_y = np.where(res.observed, np.abs(checks.batch.actuals), 0.0)[use].sum()
     mean = float((w * me[use]).sum() / total)
     std = float(np.sqrt((w * w * se[use] * se[use]).sum()) / total)
     with np.errstate(invalid="ignore", divide="ignore"):
         z = mean / std if std > 0 else (np.sign(mean) * np.inf if mean else np.nan)
         pct = float(100.0 * pooled_e / pooled_y) if pooled_y > 0 else float("nan")
-    p = float(2.0 * stats.norm.sf(abs(z))) if np.isfinite(z) or np.isinf(z) else float("nan")
+    p = float(norm_sf_two_sided(z)) if z == z else float("nan")  # z == z: not NaN
     return FleetBias(mean, pct, std, float(z), p, int(use.sum()))
 
 
 def assess(batch: SeriesBatch, policy: Policy) -> Assessment:
     """Run the policy's checks over ``batch`` and decide."""
-    enabled = policy.enabled_checks
-    options = {n: policy.check(n).options() for n in enabled}
+    cps_all = {name: policy.check(name) for name in CHECK_NAMES}
+    enabled = tuple(name for name in CHECK_NAMES if cps_all[name].enabled)
+    options = {n: cps_all[n].options() for n in enabled}
     results = run_checks(batch, options, only=enabled)
     weights = _weights(batch, policy)
     adjust = policy.fleet.adjustment == "bh"
-    critical = np.isin(np.array(batch.ids, dtype=object), list(policy.fleet.critical_series))
+    if policy.fleet.critical_series:
+        critical = np.isin(np.array(batch.ids, dtype=object), list(policy.fleet.critical_series))
+    else:
+        critical = np.zeros(batch.n_series, dtype=bool)
 
-    codes: dict[str, np.ndarray] = {}
-    p_adjusted: dict[str, np.ndarray] = {}
+    fleet = policy.fleet
+    names = [name for name in CHECK_NAMES if name in results.checks]
+    cps = [cps_all[name] for name in names]
+    n_series = batch.n_series
     summaries: list[CheckSummary] = []
     fleet_reasons: list[tuple[int, Reason]] = []
     series_reasons: list[tuple[int, float, int, Reason]] = []
     ids = batch.ids
-    for name in CHECK_NAMES:
-        if name not in results.checks:
-            continue
-        result = results[name]
-        cp = policy.check(name)
-        c, p_adj = _statuses(result, cp, adjust)
-        codes[name], p_adjusted[name] = c, p_adj
-        tested = c != SKIPPED
-        failed, warned = c == FAIL, c == WARN
-        failed_share = _share(weights, failed, tested)
-        warned_share = _share(weights, warned, tested)
-        fail_share = cp.fail_share if cp.fail_share is not None else policy.fleet.fail_share
-        warn_share = cp.warn_share if cp.warn_share is not None else policy.fleet.warn_share
-        status = PASS if tested.any() else SKIPPED
-        if failed_share + warned_share > warn_share or (critical & warned).any():
-            status = WARN
-        if failed_share > fail_share or (critical & failed).any():
-            status = FAIL
+    if names:
+        matrix, p_matrix = _codes(results, names, cps, adjust)
+    else:
+        matrix = np.zeros((0, n_series), dtype=int)
+        p_matrix = np.zeros((0, n_series))
+    tested = matrix != SKIPPED
+    failed, warned = matrix == FAIL, matrix == WARN
+    failed_share = _shares(weights, failed, tested)
+    warned_share = _shares(weights, warned, tested)
+    fail_share = np.array([fleet.fail_share if cp.fail_share is None else cp.fail_share
+                           for cp in cps], dtype=float)
+    warn_share = np.array([fleet.warn_share if cp.warn_share is None else cp.warn_share
+                           for cp in cps], dtype=float)
+    crit_warned = (critical & warned).any(axis=1)
+    crit_failed = (critical & failed).any(axis=1)
+    status = np.where(tested.any(axis=1), PASS, SKIPPED)
+    status = np.where((failed_share + warned_share > warn_share) | crit_warned, WARN, status)
+    status = np.where((failed_share > fail_share) | crit_failed, FAIL, status)
+    counts = zip(status.tolist(), tested.sum(axis=1).tolist(), failed.sum(axis=1).tolist(),
+                 warned.sum(axis=1).tolist(), failed_share.tolist(), warned_share.tolist(),
+                 fail_share.tolist(), warn_share.tolist(), (crit_warned | crit_failed).tolist(),
+                 strict=True)
+    for name, (st, n_tested, n_failed, n_warned, f_share, w_share, f_limit, w_limit,
+               crit) in zip(names, counts, strict=True):
         summary = CheckSummary(
-            name=name, status=Status(_STATUS[status]),
-            series_tested=int(tested.sum()), series_failed=int(failed.sum()),
-            series_warned=int(warned.sum()), series_skipped=int((~tested).sum()),
-            failed_share=failed_share, warned_share=warned_share,
-            message=fleet_message(name, status, int(failed.sum()), int(warned.sum()),
-                                  int(tested.sum()), failed_share, warned_share, fail_share,
-                                  warn_share, bool((critical & (failed | warned)).any())),
+            name=name, status=_STATUS_ENUM[st],
+            series_tested=n_tested, series_failed=n_failed,
+            series_warned=n_warned, series_skipped=n_series - n_tested,
+            failed_share=f_share, warned_share=w_share,
+            message=fleet_message(name, st, n_failed, n_warned, n_tested, f_share, w_share,
+                                  f_limit, w_limit, crit),
         )
         summaries.append(summary)
-        if status >= WARN:
-            fleet_reasons.append((status, Reason(name, summary.status, None, summary.message)))
-        for i in np.flatnonzero(c >= WARN):
-            reason = Reason(name, Status(_STATUS[c[i]]), ids[i],
-                            series_message(name, int(i), int(c[i]), result, p_adj))
-            series_reasons.append((int(c[i]), -float(weights[i]), int(i), reason))
+        if st >= WARN:
+            fleet_reasons.append((st, Reason(name, summary.status, None, summary.message)))
+    rows, cols = np.nonzero(matrix >= WARN)
+    for j, i in zip(rows.tolist(), cols.tolist(), strict=True):
+        c = int(matrix[j, i])
+        name = names[j]
+        reason = Reason(name, _STATUS_ENUM[c], ids[i],
+                        series_message(name, i, c, results[name], p_matrix[j]))
+        series_reasons.append((c, -float(weights[i]), i, reason))
+    codes = dict(zip(names, matrix, strict=True))
+    p_adjusted = dict(zip(names, p_matrix, strict=True))
 
-    series_codes = np.maximum.reduce([codes[n] for n in codes]) if codes else np.zeros(
-        batch.n_series, dtype=int)
-    fleet_code = max((s.status.severity for s in summaries), default=PASS)
-    fleet_code = max(fleet_code, PASS)
+    series_codes = matrix.max(axis=0) if names else np.zeros(n_series, dtype=int)
+    # Codes order as severities: fail > warn > pass > skipped.
+    fleet_code = max(int(status.max(initial=PASS)), PASS)
     bias_summary = _fleet_bias(results, weights)
     bias_p = policy.fleet.bias_warn_p
     if bias_p is not None and np.isfinite(bias_summary.p_value) and bias_summary.p_value < bias_p:
@@ -295,30 +317,41 @@ def assess(batch: SeriesBatch, policy: Policy) -> Assessment:
 
 # ------------------------------------------------------------------------------ serialisation
 
-def _column(values: np.ndarray) -> list[Any]:
-    """An array as a list of plain Python values, non-finite floats as ``None``."""
-    arr = np.asarray(values)
-    if arr.dtype.kind == "f":
-        out = arr.astype(object)
-        out[~np.isfinite(arr)] = None
-        return out.tolist()
-    return arr.tolist()
+def _columns(arrays: list[np.ndarray]) -> list[list[Any]]:
+    """Equal-length float arrays as lists of plain Python floats, non-finite as ``None``."""
+    stacked = np.array(arrays, dtype=float)
+    out = stacked.astype(object)
+    out[~np.isfinite(stacked)] = None
+    return out.tolist()
 
 
 def _to_dict(a: Assessment) -> dict[str, Any]:
     results = a.results
     n = results.batch.n_series
+    # Every float column of every check converted in one go, the others one by one.
+    float_keys: list[tuple[str, str]] = []
+    float_arrays: list[np.ndarray] = []
     columns: dict[str, dict[str, Sequence[Any]]] = {}
     for name, res in results.checks.items():
-        columns[name] = {
-            "status": _STATUS[a.status_codes[name]].tolist(),
-            "statistic": _column(res.statistic),
-            "p_value": _column(res.p_value),
-            "p_adjusted": _column(a.p_adjusted[name]),
-            "skip": res.skip_reason.tolist(),
-            **{f"d:{k}": _column(v) for k, v in res.details.items()},
-        }
-    detail_keys = {name: list(res.details) for name, res in results.checks.items()}
+        col: dict[str, Sequence[Any]] = {"status": _STATUS[a.status_codes[name]].tolist(),
+                                         "skip": res.skip_reason.tolist()}
+        for key, values in (("statistic", res.statistic), ("p_value", res.p_value),
+                            ("p_adjusted", a.p_adjusted[name]),
+                            *((f"d:{k}", v) for k, v in res.details.items())):
+            if values.dtype.kind == "f":
+                float_keys.append((name, key))
+                float_arrays.append(values)
+            else:
+                col[key] = values.tolist()
+        columns[name] = col
+    float_arrays.append(a.weights)
+    converted = _columns(float_arrays)
+    weights = converted.pop()
+    for (name, key), values in zip(float_keys, converted, strict=True):
+        columns[name][key] = values
+    # Per check, its detail columns as (key, values) pairs, looked up once for every series.
+    detail_cols = {name: [(k, columns[name][f"d:{k}"]) for k in res.details]
+                   for name, res in results.checks.items()}
     messages: dict[tuple[str, int], str] = {}
     index_of = {sid: i for i, sid in enumerate(results.batch.ids)}
     for r in a.reasons:
@@ -326,7 +359,6 @@ def _to_dict(a: Assessment) -> dict[str, Any]:
             messages[(r.check, index_of[r.series_id])] = r.message
     verdicts = a.series_verdicts()
     n_obs = results.residuals.n_obs.tolist()
-    weights = _column(a.weights)
     bias_cols = columns.get("bias")
     ts_cols = columns.get("tracking_signal")
     series = []
@@ -346,7 +378,7 @@ def _to_dict(a: Assessment) -> dict[str, Any]:
                 "statistic": col["statistic"][i],
                 "p_value": col["p_value"][i],
                 "p_adjusted": col["p_adjusted"][i],
-                "details": {k: col[f"d:{k}"][i] for k in detail_keys[name]},
+                "details": {k: v[i] for k, v in detail_cols[name]},
                 "message": message,
             })
         bias_i = None

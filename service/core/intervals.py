@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from .batch import SeriesBatch
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
+from .tails import chi2_sf
 from .types import FloatMatrix, FloatVector
 
 
@@ -81,18 +81,17 @@ def interval_coverage(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         coverage = 1.0 - x / t
         winkler = np.where(ok, scores, 0.0).sum(axis=1) / t
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         n,
         (np.isnan(level) | (t == 0), "no holdout intervals"),
         (t < min_obs, f"fewer than {min_obs} holdout steps with intervals"),
     )
-    ran = np.equal(reasons, None)
     lr = np.where(ran, lr, np.nan)
     return CheckResult(
         name="interval_coverage",
         kind="test",
         statistic=lr,
-        p_value=stats.chi2.sf(lr, 1),
+        p_value=chi2_sf(lr, 1),
         details={
             "coverage": np.where(ran, coverage, np.nan),
             "level": level,

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .types import FloatVector, InputError
+from .types import FloatMatrix, FloatVector, InputError
 
 
 def benjamini_hochberg(p_values: FloatVector) -> FloatVector:
@@ -20,13 +20,22 @@ def benjamini_hochberg(p_values: FloatVector) -> FloatVector:
         raise InputError("p_values", f"must be 1-D, got {p.ndim}-D")
     if ((p < 0) | (p > 1)).any():
         raise InputError("p_values", "must lie in [0, 1]")
-    out = np.full(p.shape, np.nan)
-    have = np.flatnonzero(~np.isnan(p))
-    m = have.size
-    if m == 0:
-        return out
-    order = np.argsort(p[have], kind="stable")
-    ranked = p[have][order] * m / np.arange(1, m + 1)
-    adjusted = np.minimum(np.minimum.accumulate(ranked[::-1])[::-1], 1.0)
-    out[have[order]] = adjusted
+    return benjamini_hochberg_rows(p[None, :])[0]
+
+
+def benjamini_hochberg_rows(p: FloatMatrix) -> FloatMatrix:
+    """:func:`benjamini_hochberg` applied to each row of ``p`` on its own (one family of
+    tests per row), for p-values already known to lie in ``[0, 1]`` or be ``NaN``."""
+    width = p.shape[1]
+    if width == 0:
+        return np.full(p.shape, np.nan)
+    m = width - np.isnan(p).sum(axis=1)
+    # NaN sorts last, so the m non-missing p-values of a row lead it in ascending order.
+    order = np.argsort(p, axis=1, kind="stable")
+    row = np.arange(p.shape[0])[:, None]
+    ranked = p[row, order] * m[:, None] / np.arange(1, width + 1)
+    # Running minimum from the largest rank down; fmin passes over the trailing NaNs.
+    adjusted = np.minimum(np.fmin.accumulate(ranked[:, ::-1], axis=1)[:, ::-1], 1.0)
+    out = np.empty(p.shape)
+    out[row, order] = adjusted
     return out

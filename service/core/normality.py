@@ -3,10 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy import stats
 
 from .batch import Residuals
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
+from .tails import chi2_sf
 
 JB_MIN_OBS = 8
 
@@ -27,23 +27,22 @@ def jarque_bera(res: Residuals, *, min_obs: int = JB_MIN_OBS) -> CheckResult:
     z2 = z * z
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         m2 = z2.sum(axis=1) / n
-        m3 = np.einsum("ij,ij->i", z2, z) / n
-        m4 = np.einsum("ij,ij->i", z2, z2) / n
+        m3 = np.vecdot(z2, z) / n
+        m4 = np.vecdot(z2, z2) / n
         skew = m3 / m2**1.5
         kurt = m4 / (m2 * m2)
         jb = n / 6.0 * (skew * skew + (kurt - 3.0) ** 2 / 4.0)
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < max(min_obs, 3), f"fewer than {max(min_obs, 3)} residuals"),
         (res.constant | ~(m2 > 0), "residuals are constant"),
     )
-    ran = np.equal(reasons, None)
     jb = np.where(ran, jb, np.nan)
     return CheckResult(
         name="jarque_bera",
         kind="test",
         statistic=jb,
-        p_value=stats.chi2.sf(jb, 2),
+        p_value=chi2_sf(jb, 2),
         details={
             "skewness": np.where(ran, skew, np.nan),
             "kurtosis": np.where(ran, kurt, np.nan),

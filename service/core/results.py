@@ -42,12 +42,6 @@ def _is_none(values: np.ndarray) -> np.ndarray:
     return np.equal(values, None)
 
 
-def _frozen(values: np.ndarray) -> np.ndarray:
-    out = np.array(values, copy=True)
-    out.setflags(write=False)
-    return out
-
-
 def to_python(value: Any) -> Any:
     """Convert a numpy scalar to a plain Python value; non-finite floats become ``None``."""
     if isinstance(value, np.generic):
@@ -89,26 +83,35 @@ class CheckResult:
     detail_keys: tuple[str, ...] = field(default=())
 
     def __post_init__(self) -> None:
-        n = self.statistic.shape[0]
-        object.__setattr__(self, "statistic", _frozen(np.asarray(self.statistic, dtype=float)))
-        object.__setattr__(self, "p_value", _frozen(np.asarray(self.p_value, dtype=float)))
-        reasons = np.asarray(self.skip_reason, dtype=object).reshape(n)
+        # Each array is copied once (``np.array`` copies) and the copy made read-only.
+        statistic = np.array(self.statistic, dtype=float)
+        n = statistic.shape[0]
+        p_value = np.array(self.p_value, dtype=float)
+        reasons = np.array(self.skip_reason, dtype=object).reshape(n)
+        ran = _is_none(reasons)
         # A NaN statistic (or a test's NaN p-value) with no reason is a bug in the check.
-        missing = np.isnan(self.statistic) | (
-            np.isnan(self.p_value) if self.kind == "test" else False
-        )
-        unexplained = missing & _is_none(reasons)
-        if unexplained.any():
+        missing = np.isnan(statistic)
+        if self.kind == "test":
+            missing |= np.isnan(p_value)
+        if (missing & ran).any():
             raise AssertionError(f"{self.name}: NaN result without a skip reason")
-        object.__setattr__(self, "skip_reason", _frozen(reasons))
+        skipped = ~ran
+        for arr in (statistic, p_value, reasons, skipped):
+            arr.flags.writeable = False
         frozen_details = {}
         for key, values in self.details.items():
-            arr = np.asarray(values)
+            arr = np.array(values)
             if arr.shape != (n,):
                 raise AssertionError(f"{self.name}: detail {key!r} has shape {arr.shape}")
-            frozen_details[key] = _frozen(arr)
+            arr.flags.writeable = False
+            frozen_details[key] = arr
+        object.__setattr__(self, "statistic", statistic)
+        object.__setattr__(self, "p_value", p_value)
+        object.__setattr__(self, "skip_reason", reasons)
         object.__setattr__(self, "details", frozen_details)
         object.__setattr__(self, "detail_keys", tuple(frozen_details))
+        # Derived from skip_reason once; read-only like the rest.
+        object.__setattr__(self, "_skipped", skipped)
 
     @property
     def n_series(self) -> int:
@@ -116,8 +119,8 @@ class CheckResult:
 
     @property
     def skipped(self) -> np.ndarray:
-        """Boolean per series: ``True`` where the check did not run."""
-        return ~_is_none(self.skip_reason)
+        """Boolean per series: ``True`` where the check did not run (read-only)."""
+        return self._skipped
 
     def series_details(self, i: int) -> dict[str, Any]:
         """The details of series ``i`` as plain Python values."""
@@ -138,7 +141,20 @@ class CheckResult:
 
 def skip_reasons(n: int, *conditions: tuple[np.ndarray, str]) -> ObjectVector:
     """Build a skip-reason vector: the first condition that holds for a row gives its reason."""
-    reasons = np.full(n, None, dtype=object)
-    for mask, reason in conditions:
-        reasons[np.asarray(mask, dtype=bool) & _is_none(reasons)] = reason
-    return reasons
+    return skip_reasons_and_ran(n, *conditions)[0]
+
+
+def skip_reasons_and_ran(
+    n: int, *conditions: tuple[np.ndarray, str]
+) -> tuple[ObjectVector, np.ndarray]:
+    """:func:`skip_reasons` and, beside it, the boolean vector of the rows that ran (no
+    condition holds)."""
+    if not conditions:
+        return np.full(n, None, dtype=object), np.ones(n, dtype=bool)
+    masks = np.empty((len(conditions), n), dtype=bool)
+    for k, (mask, _) in enumerate(conditions):
+        masks[k] = mask
+    hit = masks.any(axis=0)
+    # One entry per condition, then None for the rows no condition holds for.
+    table = np.array([reason for _, reason in conditions] + [None], dtype=object)
+    return table[np.where(hit, masks.argmax(axis=0), len(conditions))], ~hit

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
-from scipy import stats
 
 from .batch import Residuals, nearly_constant
-from .results import CheckResult, skip_reasons
+from .results import CheckResult, skip_reasons_and_ran
+from .tails import chi2_sf
 from .types import FloatMatrix, FloatVector, InputError, IntVector
 
 ARCH_MAX_LAGS = 10
@@ -34,16 +34,18 @@ def _lm_one_order(
         return nan, np.zeros(n_series, dtype=np.int64), nan
     # A regression row t (t = lags..width-1) is usable when s_{t-lags}..s_t are all observed:
     # count the missing values in that window from a running count.
+    nan = np.isnan(squares)
     missing = np.zeros((n_series, width + 1), dtype=np.int64)
-    np.cumsum(np.isnan(squares), axis=1, out=missing[:, 1:])
+    np.cumsum(nan, axis=1, out=missing[:, 1:])
     valid = missing[:, lags + 1 :] == missing[:, :rows]
     used = valid.sum(axis=1)
     # Shift each row by the mean of its observed squares: R^2 does not change, and the
     # cross-products below are taken about values near zero, so they do not cancel.
-    have = (~np.isnan(squares)).sum(axis=1)
+    have = width - missing[:, -1]
+    filled = np.where(nan, 0.0, squares)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        shift = np.where(have > 0, np.nansum(squares, axis=1) / np.maximum(have, 1), 0.0)
-    z = np.where(np.isnan(squares), 0.0, squares - shift[:, None])
+        shift = np.where(have > 0, filled.sum(axis=1) / np.maximum(have, 1), 0.0)
+    z = np.where(nan, 0.0, squares - shift[:, None])
     # window[:, t, 0] is z_t, window[:, t, j] is z_{t-j}: a strided view, copied once into the
     # regression rows, of which the unusable ones are then zeroed.
     window = sliding_window_view(z, lags + 1, axis=1)[:, :, ::-1]
@@ -52,32 +54,35 @@ def _lm_one_order(
         buffer = np.empty(size)
     cols = buffer[:size].reshape(n_series, rows, lags + 1)
     np.copyto(cols, window)
-    cols[~valid] = 0.0
+    if not valid.all():
+        cols[~valid] = 0.0
     # One small Gram matrix per series, [y, x]' [y, x] over the usable rows (a batched matrix
     # product), centred with the column sums: this absorbs the intercept.
     gram = np.matmul(cols.transpose(0, 2, 1), cols)
-    raw_diag = np.einsum("njj->nj", gram).copy()
+    raw_diag = gram.diagonal(axis1=1, axis2=2).copy()
     sums = np.matmul(np.ones(rows), cols)  # column sums over the usable rows
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         means = np.where(used[:, None] > 0, sums / np.maximum(used, 1)[:, None], 0.0)
     gram -= sums[:, :, None] * means[:, None, :]
     # A column whose centred sum of squares is at rounding level (1e-12 of its raw sum of
     # squares) does not vary over the usable rows: exactly zero, so it explains nothing.
-    diag = np.einsum("njj->nj", gram)
-    flat = diag <= 1e-12 * raw_diag
-    gram[flat[:, :, None] | flat[:, None, :]] = 0.0
+    flat = gram.diagonal(axis1=1, axis2=2) <= 1e-12 * raw_diag
+    if flat.any():
+        gram[flat[:, :, None] | flat[:, None, :]] = 0.0
     xtx = gram[:, 1:, 1:]
     xty = gram[:, 1:, 0]
     tss = gram[:, 0, 0]
     # Scale to unit diagonal before solving; a column without variation gets a unit diagonal
     # and zero right-hand side, so its coefficient is 0.
-    d = np.sqrt(np.einsum("njj->nj", xtx))
+    d = np.sqrt(xtx.diagonal(axis1=1, axis2=2))
     d = np.where(d > 0, d, 1.0)
-    a = xtx / d[:, :, None] / d[:, None, :]
-    a[:, np.arange(lags), np.arange(lags)] = 1.0
+    a = np.empty(xtx.shape)  # C-contiguous, so the reshape below is a view
+    np.divide(xtx, d[:, :, None], out=a)
+    a /= d[:, None, :]
+    a.reshape(a.shape[0], lags * lags)[:, :: lags + 1] = 1.0  # the diagonal
     b = xty / d
     coef = _solve_each(a, b)
-    explained = np.einsum("nj,nj->n", coef, b)
+    explained = np.vecdot(coef, b)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         r2 = explained / tss
     return used * r2, used.astype(np.int64), tss
@@ -129,7 +134,12 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     # Loop over the few distinct lag orders and over blocks of rows, never over single series.
     width = squares.shape[1]
     buffer = np.empty(min(_CHUNK, n_series) * width * (ARCH_MAX_LAGS + 1)) if n_series else None
-    for order in np.unique(used_lags[used_lags >= 1]):
+    positive = used_lags[used_lags >= 1]
+    if positive.size and (positive == positive[0]).all():
+        orders = positive[:1]  # one order for the whole batch (the usual case): no sort
+    else:
+        orders = np.unique(positive)
+    for order in orders:
         members = np.flatnonzero(used_lags == order)
         for lo in range(0, members.size, _CHUNK):
             idx = members[lo : lo + _CHUNK]
@@ -147,20 +157,19 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     # or no variation left in the regression rows.
     flat = (res.constant | nearly_constant(np.abs(res.values), res.observed, res.rounding_scale)
             | ~(tss > 0))
-    reasons = skip_reasons(
+    reasons, ran = skip_reasons_and_ran(
         n_series,
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
         (used_lags < 1, "too short for one lag (the lag rule allows at most T/5)"),
         (rows < used_lags + 2, "too few complete rows for the regression"),
         (flat, "squared residuals are constant, so their variance cannot change"),
     )
-    ran = np.equal(reasons, None)
     lm = np.where(ran, np.maximum(lm, 0.0), np.nan)
     return CheckResult(
         name="arch_lm",
         kind="test",
         statistic=lm,
-        p_value=stats.chi2.sf(lm, np.maximum(used_lags, 1)),
+        p_value=chi2_sf(lm, np.maximum(used_lags, 1)),
         details={"lags": used_lags, "df": used_lags, "n_rows": rows},
         skip_reason=reasons,
         null_hypothesis="the residual variance is constant (no ARCH effects)",
