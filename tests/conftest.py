@@ -16,6 +16,8 @@ from collections.abc import Iterator
 import pytest
 from hypothesis import HealthCheck, settings
 
+from tests.postgres import postgres_url, require_postgres
+
 # Benchmarks under tests/perf are run by hand (python tests/perf/bench_core.py), never by pytest.
 collect_ignore = ["perf"]
 
@@ -28,47 +30,7 @@ settings.register_profile(
 )
 settings.load_profile(os.environ.get("PLUMBLINE_HYPOTHESIS", "default"))
 
-DEFAULT_POSTGRES_URL = "postgresql+psycopg://postgres@127.0.0.1:5432/test"
 BACKENDS = ("sqlite", "postgresql")
-
-_postgres_state: dict[str, str | None] = {}
-
-
-def postgres_url() -> str:
-    return os.environ.get("PLUMBLINE_TEST_POSTGRES_URL") or DEFAULT_POSTGRES_URL
-
-
-def postgres_required() -> bool:
-    return os.environ.get("PLUMBLINE_REQUIRE_POSTGRES", "") not in ("", "0", "false", "no")
-
-
-def _postgres_problem() -> str | None:
-    """``None`` when the PostgreSQL server answers, else why not (checked once per test run)."""
-    if "problem" not in _postgres_state:
-        try:
-            import psycopg
-            from sqlalchemy.engine import make_url
-
-            url = make_url(postgres_url())
-            with psycopg.connect(
-                host=url.host or "127.0.0.1", port=url.port or 5432, user=url.username,
-                password=url.password, dbname=url.database, connect_timeout=5,
-            ) as conn:
-                conn.execute("SELECT 1")
-            _postgres_state["problem"] = None
-        except Exception as exc:
-            _postgres_state["problem"] = f"{type(exc).__name__}: {exc}"
-    return _postgres_state["problem"]
-
-
-def _require_postgres() -> None:
-    problem = _postgres_problem()
-    if problem is None:
-        return
-    if postgres_required():
-        pytest.fail(f"PostgreSQL is required (PLUMBLINE_REQUIRE_POSTGRES) but unreachable at "
-                    f"{postgres_url()}: {problem}")
-    pytest.skip(f"PostgreSQL unreachable at {postgres_url()}: {problem}")
 
 
 def _schema_url(base: str, schema: str) -> str:
@@ -84,7 +46,7 @@ def database_url(request: pytest.FixtureRequest, tmp_path) -> Iterator[str]:
     if request.param == "sqlite":
         yield f"sqlite:///{tmp_path / 'plumbline-test.db'}"
         return
-    _require_postgres()
+    require_postgres()
     from sqlalchemy import create_engine, text
 
     schema = "t_" + uuid.uuid4().hex[:16]

@@ -2,34 +2,15 @@
 
 from __future__ import annotations
 
-import os
 import uuid
 from collections.abc import Iterator
 
 import pytest
 
-DEFAULT_POSTGRES_URL = "postgresql+psycopg://postgres@127.0.0.1:5432/test"
+from tests.postgres import postgres_url, require_postgres
+
 ADMIN_TOKEN = "plb_faults-admin-5d6e7f8091a2b3c4"
 ADMIN = {"Authorization": f"Bearer {ADMIN_TOKEN}"}
-
-
-def postgres_base_url() -> str:
-    return os.environ.get("PLUMBLINE_TEST_POSTGRES_URL") or DEFAULT_POSTGRES_URL
-
-
-def _postgres_or_skip() -> None:
-    from sqlalchemy import create_engine, text
-
-    engine = create_engine(postgres_base_url(), connect_args={"connect_timeout": 5})
-    try:
-        with engine.connect() as conn:
-            conn.execute(text("SELECT 1"))
-    except Exception as exc:
-        if os.environ.get("PLUMBLINE_REQUIRE_POSTGRES", "") not in ("", "0", "false", "no"):
-            pytest.fail(f"PostgreSQL is required but unreachable: {type(exc).__name__}")
-        pytest.skip(f"PostgreSQL unreachable: {type(exc).__name__}")
-    finally:
-        engine.dispose()
 
 
 @pytest.fixture
@@ -38,13 +19,13 @@ def postgres_database() -> Iterator[str]:
     from sqlalchemy import create_engine, text
     from sqlalchemy.engine import make_url
 
-    _postgres_or_skip()
+    require_postgres()
     name = "plumbline_faults_" + uuid.uuid4().hex[:12]
-    admin = create_engine(postgres_base_url(), isolation_level="AUTOCOMMIT")
+    admin = create_engine(postgres_url(), isolation_level="AUTOCOMMIT")
     with admin.connect() as conn:
         conn.execute(text(f'CREATE DATABASE "{name}"'))
     try:
-        yield make_url(postgres_base_url()).set(database=name).render_as_string(
+        yield make_url(postgres_url()).set(database=name).render_as_string(
             hide_password=False)
     finally:
         with admin.connect() as conn:

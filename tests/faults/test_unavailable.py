@@ -17,8 +17,9 @@ from sqlalchemy.engine import make_url
 
 from service.api.app import create_app
 from service.settings import Settings
+from tests.postgres import postgres_url
 
-from .conftest import ADMIN, ADMIN_TOKEN, postgres_base_url, series_body
+from .conftest import ADMIN, ADMIN_TOKEN, series_body
 from .serverproc import Relay
 
 PASSWORD = "relay-pw-7c1d"
@@ -121,7 +122,7 @@ def test_postgresql_cut_off(relayed):
 
 def test_postgresql_refusing_the_database(postgres_database):
     name = make_url(postgres_database).database
-    admin = create_engine(postgres_base_url(), isolation_level="AUTOCOMMIT")
+    admin = create_engine(postgres_url(), isolation_level="AUTOCOMMIT")
 
     def break_it() -> None:
         with admin.connect() as conn:

@@ -10,6 +10,7 @@ from fastapi.testclient import TestClient
 
 from service.api.app import create_app
 from service.settings import Settings
+from tests.postgres import postgres_url, require_postgres
 
 ADMIN_TOKEN = "plb_hardening-admin-0a1b2c3d4e5f"
 ADMIN = {"Authorization": f"Bearer {ADMIN_TOKEN}"}
@@ -61,33 +62,6 @@ def mint(client: TestClient, *scopes: str) -> str:
     return r.json()["token"]
 
 
-DEFAULT_POSTGRES_URL = "postgresql+psycopg://postgres@127.0.0.1:5432/test"
-
-
-def postgres_base_url() -> str:
-    import os
-
-    return os.environ.get("PLUMBLINE_TEST_POSTGRES_URL") or DEFAULT_POSTGRES_URL
-
-
-def require_postgres() -> None:
-    """Skip (or fail, with ``PLUMBLINE_REQUIRE_POSTGRES=1`` as CI sets) without PostgreSQL."""
-    import os
-
-    from sqlalchemy import create_engine, text
-
-    engine = create_engine(postgres_base_url(), connect_args={"connect_timeout": 5})
-    try:
-        with engine.connect() as conn:
-            conn.execute(text("SELECT 1"))
-    except Exception as exc:
-        if os.environ.get("PLUMBLINE_REQUIRE_POSTGRES", "") not in ("", "0", "false", "no"):
-            pytest.fail(f"PostgreSQL is required but unreachable: {type(exc).__name__}")
-        pytest.skip(f"PostgreSQL unreachable: {type(exc).__name__}")
-    finally:
-        engine.dispose()
-
-
 @pytest.fixture(scope="module")
 def postgres_schema_url() -> Iterator[str]:
     """A URL for a fresh schema of its own on the PostgreSQL server (dropped afterwards)."""
@@ -98,10 +72,10 @@ def postgres_schema_url() -> Iterator[str]:
 
     require_postgres()
     schema = "hardening_" + uuid.uuid4().hex[:12]
-    admin = create_engine(postgres_base_url())
+    admin = create_engine(postgres_url())
     with admin.begin() as conn:
         conn.execute(text(f'CREATE SCHEMA "{schema}"'))
-    url = make_url(postgres_base_url()).update_query_dict({"options": f"-csearch_path={schema}"})
+    url = make_url(postgres_url()).update_query_dict({"options": f"-csearch_path={schema}"})
     try:
         yield url.render_as_string(hide_password=False)
     finally:
