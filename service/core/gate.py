@@ -187,10 +187,12 @@ def _shares(weights: np.ndarray, hit: np.ndarray, tested: np.ndarray) -> np.ndar
                         np.where(n > 0, n_hit / np.maximum(n, 1), 0.0))
 
 
+_NO_FLEET_BIAS = FleetBias(*(float("nan"),) * 5, series_used=0)
+
+
 def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
     if "bias" not in checks.checks:
-        nan = float("nan")
-        return FleetBias(nan, nan, nan, nan, nan, 0)
+        return _NO_FLEET_BIAS
     b = checks["bias"]
     me, se = b.details["mean_error"], b.details["std_error"]
     use = np.isfinite(me) & np.isfinite(se)
@@ -199,11 +201,11 @@ def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
     if total <= 0:
         w, total = np.ones(int(use.sum())), float(use.sum())
     if total == 0:
-        nan = float("nan")
-        return FleetBias(nan, nan, nan, nan, nan, 0)
+        return _NO_FLEET_BIAS
     res = checks.residuals
-    pooled_e = np.where(res.observed, res.values, 0.0)[use].sum()
-    pooled_y = np.where(res.observed, np.abs(checks.batch.actuals), 0.0)[use].sum()
+    observed = res.observed[use]
+    pooled_e = np.where(observed, res.values[use], 0.0).sum()
+    pooled_y = np.where(observed, np.abs(checks.batch.actuals[use]), 0.0).sum()
     mean = float((w * me[use]).sum() / total)
     std = float(np.sqrt((w * w * se[use] * se[use]).sum()) / total)
     with np.errstate(invalid="ignore", divide="ignore"):
