@@ -12,6 +12,7 @@ from service.store import make_engine
 from service.store.migrate import upgrade_engine
 
 from .auth import announce_first_token, ensure_first_token
+from .batching import SubmissionBatcher
 from .errors import install_error_handlers
 from .metrics import Metrics, MetricsMiddleware
 from .openapi import examples_dir, install_openapi, load_examples
@@ -50,6 +51,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.settings = settings
     app.state.engine = engine
     app.state.metrics = Metrics()
+    app.state.batcher = SubmissionBatcher(engine, app.state.metrics)
     install_error_handlers(app)
     for module in (assessments, reports, models, checks, policies, tokens, health):
         app.include_router(module.router)

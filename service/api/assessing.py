@@ -15,7 +15,8 @@ import numpy as np
 import orjson
 from sqlalchemy import Engine
 
-from service.core.gate import assess
+from service.core.gate import assess_many
+from service.core.policy import Policy
 from service.ingest import AssessmentRequest, parse_csv_request, parse_json_request
 from service.settings import Settings
 from service.store import repository as repo
@@ -38,8 +39,10 @@ class Outcome:
     timings: dict[str, float] = field(default_factory=dict)
 
     def server_timing(self) -> str:
-        """The ``Server-Timing`` header value: milliseconds per stage."""
-        return ", ".join(f"{k};dur={v * 1000:.1f}" for k, v in self.timings.items())
+        """The ``Server-Timing`` header value: milliseconds per stage, and the number of
+        submissions assessed together with this one (``batch``) when there were several."""
+        return ", ".join(f'{k};desc="{v:g}"' if k == "batch" else f"{k};dur={v * 1000:.1f}"
+                         for k, v in self.timings.items())
 
 
 def body_hash(kind: str, params: Mapping[str, str], body: bytes) -> str:
@@ -103,27 +106,99 @@ def _inputs(req: AssessmentRequest) -> list[repo.SeriesInput]:
     return out
 
 
-def run(
-    engine: Engine,
-    req: AssessmentRequest,
-    *,
-    store: bool,
-    idempotency_key: str | None = None,
-    digest: str | None = None,
-    timings: dict[str, float] | None = None,
-) -> Outcome:
-    """Assess ``req`` under its policy and (unless ``store`` is false) save it.
+@dataclass
+class Job:
+    """One parsed submission waiting to be assessed (and stored unless ``store`` is false)."""
 
-    ``timings`` collects seconds per stage (policy, assess, encode, store).
+    req: AssessmentRequest
+    store: bool
+    idempotency_key: str | None = None
+    digest: str | None = None
+    timings: dict[str, float] = field(default_factory=dict)
+    policy: Policy | None = None
+    document: dict[str, Any] | None = None
+
+
+def resolve_policies(engine: Engine, jobs: list[Job]) -> list[ApiError | None]:
+    """Resolve the policy of each job that has none yet; a name (``"default"``,
+    ``"name@3"``) is looked up once for all the jobs that give it. Per job: the error when its
+    policy is unknown or invalid, else ``None``."""
+    found: dict[str, tuple[Policy, dict[str, Any]] | ApiError] = {}
+    errors: list[ApiError | None] = []
+    for job in jobs:
+        spec = job.req.policy
+        clock = time.perf_counter()
+        if job.policy is not None:
+            errors.append(None)
+            continue
+        try:
+            if not isinstance(spec, str):
+                hit: tuple[Policy, dict[str, Any]] | ApiError = policy_lookup.resolve(engine, spec)
+            elif spec in found:
+                hit = found[spec]
+            else:
+                hit = found[spec] = policy_lookup.resolve(engine, spec)
+        except ApiError as exc:
+            hit = exc
+            if isinstance(spec, str):
+                found[spec] = exc
+        if isinstance(hit, ApiError):
+            errors.append(hit)
+            continue
+        job.policy, job.document = hit
+        job.timings["policy"] = time.perf_counter() - clock
+        errors.append(None)
+    return errors
+
+
+def run_many(engine: Engine, jobs: list[Job]) -> list[Outcome | BaseException]:
+    """Assess ``jobs`` together and save the stored ones in one transaction.
+
+    Policies not yet resolved are resolved first (:func:`resolve_policies`). The checks of
+    jobs that share a policy and shape run in one vectorised pass
+    (:func:`service.core.gate.assess_many`); each job is still decided and answered on its own
+    series alone. A job's own failure (an unknown policy, an idempotency race it lost to a
+    different body) is returned in its place; a failure of the whole batch (the database) is
+    raised.
     """
-    timings = {} if timings is None else timings
+    outcomes: list[Outcome | BaseException | None] = list(resolve_policies(engine, jobs))
+    ready = [i for i, o in enumerate(outcomes) if o is None]
     clock = time.perf_counter()
-    policy, document = policy_lookup.resolve(engine, req.policy)
-    timings["policy"] = time.perf_counter() - clock
-    clock = time.perf_counter()
-    result = assess(req.batch, policy).to_dict()
-    timings["assess"] = time.perf_counter() - clock
-    clock = time.perf_counter()
+    assessments = assess_many([(jobs[i].req.batch, jobs[i].policy) for i in ready])  # type: ignore[misc]
+    shared = time.perf_counter() - clock
+    records: list[tuple[int, repo.NewAssessment]] = []
+    for i, assessment in zip(ready, assessments, strict=True):
+        job = jobs[i]
+        job.timings["assess"] = shared
+        clock = time.perf_counter()
+        outcomes[i], record = _answer(job, assessment.to_dict())
+        job.timings["encode"] = time.perf_counter() - clock
+        if record is not None:
+            records.append((i, record))
+    if records:
+        clock = time.perf_counter()
+        saved = repo.save_assessments(engine, [r for _, r in records])
+        took = time.perf_counter() - clock
+        for (i, _), result in zip(records, saved, strict=True):
+            jobs[i].timings["store"] = took
+            if isinstance(result, repo.IdempotencyConflict):
+                # Another request with the same key won the race: answer as its repeat would.
+                job = jobs[i]
+                try:
+                    again = replay(engine, job.idempotency_key, job.digest)  # type: ignore[arg-type]
+                except ApiError as exc:
+                    outcomes[i] = exc
+                else:
+                    outcomes[i] = again if again is not None else result
+    if len(ready) > 1:
+        for i in ready:
+            jobs[i].timings["batch"] = len(ready)
+    return outcomes  # type: ignore[return-value]
+
+
+def _answer(job: Job, result: dict[str, Any]) -> tuple[Outcome, repo.NewAssessment | None]:
+    """The response body of one job and, when it is stored, the record to write."""
+    req, store, policy = job.req, job.store, job.policy
     series = result.pop("series")
     created = repo.utcnow()
     assessment_id = repo.new_id() if store else None
@@ -141,47 +216,33 @@ def run(
     verdict = str(result["verdict"])
     if not store:
         head["series"] = series
-        encoded_all = orjson.dumps(head, option=_DUMP)
-        timings["encode"] = time.perf_counter() - clock
-        return Outcome(body=encoded_all, assessment_id=None, verdict=verdict, replayed=False,
-                       n_series=len(series), timings=timings)
+        return Outcome(body=orjson.dumps(head, option=_DUMP), assessment_id=None,
+                       verdict=verdict, replayed=False, n_series=len(series),
+                       timings=job.timings), None
     head_json = orjson.dumps(head, option=_DUMP)
     encoded = [orjson.dumps(s, option=_DUMP) for s in series]
     body = head_json[:-1] + b',"series":[' + b",".join(encoded) + b"]}"
-    timings["encode"] = time.perf_counter() - clock
-    clock = time.perf_counter()
     fleet = result.get("fleet") or {}
     verdicts = [s.get("verdict") for s in series]
-    n_failed = int(fleet.get("n_failed", verdicts.count("fail")))
-    n_warned = int(fleet.get("n_warned", verdicts.count("warn")))
     pol = result.get("policy") or {}
-    try:
-        repo.save_assessment(
-            engine,
-            assessment_id=assessment_id,  # type: ignore[arg-type]
-            created_at=created,
-            model=req.model,
-            version=req.version,
-            verdict=verdict,
-            n_failed=n_failed,
-            n_warned=n_warned,
-            policy_name=str(pol.get("name", policy.name)),
-            policy_version=int(pol.get("version", policy.version)),
-            policy_document=document,
-            head=head_json,
-            series=[repo.SeriesResult(series_id=s["id"], verdict=s["verdict"],
-                                      n_obs=int(s["n_obs"]), json=e)
-                    for s, e in zip(series, encoded, strict=True)],
-            inputs=_inputs(req),
-            idempotency_key=idempotency_key,
-            body_hash=digest,
-        )
-    except repo.IdempotencyConflict:
-        # Another request with the same key won the race: answer as its repeat would be.
-        again = replay(engine, idempotency_key, digest)  # type: ignore[arg-type]
-        if again is not None:
-            return again
-        raise
-    timings["store"] = time.perf_counter() - clock
+    record = repo.NewAssessment(
+        assessment_id=assessment_id,  # type: ignore[arg-type]
+        created_at=created,
+        model=req.model,
+        version=req.version,
+        verdict=verdict,
+        n_failed=int(fleet.get("n_failed", verdicts.count("fail"))),
+        n_warned=int(fleet.get("n_warned", verdicts.count("warn"))),
+        policy_name=str(pol.get("name", policy.name)),  # type: ignore[union-attr]
+        policy_version=int(pol.get("version", policy.version)),  # type: ignore[union-attr]
+        policy_document=job.document,  # type: ignore[arg-type]
+        head=head_json,
+        series=[repo.SeriesResult(series_id=s["id"], verdict=s["verdict"],
+                                  n_obs=int(s["n_obs"]), json=e)
+                for s, e in zip(series, encoded, strict=True)],
+        inputs=_inputs(req),
+        idempotency_key=job.idempotency_key if store else None,
+        body_hash=job.digest,
+    )
     return Outcome(body=body, assessment_id=assessment_id, verdict=verdict, replayed=False,
-                   n_series=len(series), timings=timings)
+                   n_series=len(series), timings=job.timings), record

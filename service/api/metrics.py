@@ -45,6 +45,11 @@ class Metrics:
         self.series = Counter(
             "plumbline_series_assessed", "Series assessed.", registry=self.registry,
         )
+        self.batch_size = Histogram(
+            "plumbline_submissions_per_pass",
+            "Small submissions assessed together in one pass of the statistics core.",
+            buckets=(1, 2, 4, 8, 16, 32, 64, 128, 256), registry=self.registry,
+        )
 
     def render(self) -> bytes:
         return generate_latest(self.registry)

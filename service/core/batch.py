@@ -15,7 +15,7 @@ Rules fixed here, used by every check:
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, fields
 from functools import cached_property
 
 import numpy as np
@@ -299,6 +299,52 @@ def make_batch(
     )
 
 
+def stack_key(batch: SeriesBatch) -> tuple[object, ...]:
+    """What batches must share to be stacked by :func:`stack_batches`: season length, model
+    parameters and the shape of every matrix (so stacking adds rows and nothing else)."""
+    h = batch.holdout
+    hold: tuple[object, ...] = ()
+    if h is not None:
+        hold = (h.actuals.shape[1], h.lower is not None, h.level is not None)
+    return (batch.season_length, batch.model_params, batch.actuals.shape[1], hold)
+
+
+def stack_batches(batches: Sequence[SeriesBatch]) -> SeriesBatch:
+    """One batch holding the rows of ``batches`` in order (all with the same
+    :func:`stack_key`). Series ids may repeat across the parts: the checks never read them.
+
+    Every check works row by row, so each part's rows of the stacked batch's results are the
+    part's own results; :meth:`BatchChecks.split` hands them back.
+    """
+    first = batches[0]
+    if len(batches) == 1:
+        return first
+    key = stack_key(first)
+    if any(stack_key(b) != key for b in batches[1:]):
+        raise ValueError("stack_batches: the batches differ in season length, model "
+                         "parameters or shape")
+    holdout = None
+    if first.holdout is not None:
+        parts = [b.holdout for b in batches]
+
+        def rows(name: str) -> FloatMatrix | None:
+            if getattr(first.holdout, name) is None:
+                return None
+            return np.concatenate([getattr(p, name) for p in parts])
+
+        holdout = Holdout(actuals=rows("actuals"), forecasts=rows("forecasts"),  # type: ignore[arg-type]
+                          lower=rows("lower"), upper=rows("upper"), level=rows("level"))
+    return SeriesBatch(
+        ids=tuple(i for b in batches for i in b.ids),
+        actuals=np.concatenate([b.actuals for b in batches]),
+        fitted=np.concatenate([b.fitted for b in batches]),
+        weights=np.concatenate([b.weights for b in batches]),
+        season_length=first.season_length,
+        model_params=first.model_params,
+        holdout=holdout,
+    )
+
+
 @dataclass(frozen=True, eq=False)
 class Residuals:
     """Residuals of a batch with the bookkeeping every check shares.
@@ -346,6 +392,10 @@ class Residuals:
     unit: FloatVector
     standard: FloatMatrix
     rounding_scale: FloatVector
+
+    def rows(self, part: slice) -> Residuals:
+        """The residuals of the series in ``part`` (a slice of rows)."""
+        return Residuals(**{f.name: getattr(self, f.name)[part] for f in fields(Residuals)})
 
     def autocovariances(self, max_lag: int) -> FloatMatrix:
         """``gamma[:, k]`` for ``k = 0..max_lag``: sum of lag-``k`` products of the centred

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -45,6 +45,20 @@ class BatchChecks:
 
     def __getitem__(self, name: str) -> CheckResult:
         return self.checks[name]
+
+    def split(self, parts: Sequence[SeriesBatch]) -> list[BatchChecks]:
+        """Hand back each part's results from checks run over ``stack_batches(parts)``."""
+        if len(parts) == 1:
+            return [BatchChecks(batch=parts[0], residuals=self.residuals, checks=self.checks)]
+        out, start = [], 0
+        for part in parts:
+            rows = slice(start, start + part.n_series)
+            start = rows.stop
+            out.append(BatchChecks(batch=part, residuals=self.residuals.rows(rows),
+                                   checks={k: r.rows(rows) for k, r in self.checks.items()}))
+        if start != self.batch.n_series:
+            raise ValueError("split: the parts do not add up to the checked batch")
+        return out
 
 
 def _mean_abs_actual(batch: SeriesBatch, res: Residuals) -> np.ndarray:

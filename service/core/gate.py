@@ -24,7 +24,7 @@ from typing import Any
 
 import numpy as np
 
-from .batch import SeriesBatch
+from .batch import SeriesBatch, stack_batches, stack_key
 from .catalogue import CHECK_NAMES
 from .checks import BatchChecks, run_checks
 from .messages import fleet_message, pass_message, series_message
@@ -215,12 +215,46 @@ def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
     return FleetBias(mean, pct, std, float(z), p, int(use.sum()))
 
 
-def assess(batch: SeriesBatch, policy: Policy) -> Assessment:
-    """Run the policy's checks over ``batch`` and decide."""
+def _plan(policy: Policy) -> tuple[dict[str, CheckPolicy], tuple[str, ...],
+                                    dict[str, dict[str, Any]]]:
+    """The policy's settings per check, the checks it enables and their options."""
     cps_all = {name: policy.check(name) for name in CHECK_NAMES}
     enabled = tuple(name for name in CHECK_NAMES if cps_all[name].enabled)
-    options = {n: cps_all[n].options() for n in enabled}
-    results = run_checks(batch, options, only=enabled)
+    return cps_all, enabled, {n: cps_all[n].options() for n in enabled}
+
+
+def assess(batch: SeriesBatch, policy: Policy) -> Assessment:
+    """Run the policy's checks over ``batch`` and decide."""
+    cps_all, enabled, options = _plan(policy)
+    return _decide(run_checks(batch, options, only=enabled), policy, cps_all)
+
+
+def assess_many(items: Sequence[tuple[SeriesBatch, Policy]]) -> list[Assessment]:
+    """``[assess(batch, policy) for batch, policy in items]``, with the checks of every batch
+    that shares a policy (the same object) and a :func:`stack_key` run in one vectorised pass.
+
+    Each check works row by row, so the results are those of separate calls; the decision
+    (adjustment across series, shares, reasons) is still made per batch, on its own series.
+    This is how the service answers many small concurrent submissions at once.
+    """
+    groups: dict[tuple[object, ...], list[int]] = {}
+    for i, (batch, policy) in enumerate(items):
+        groups.setdefault((id(policy), *stack_key(batch)), []).append(i)
+    out: list[Assessment | None] = [None] * len(items)
+    for members in groups.values():
+        policy = items[members[0]][1]
+        parts = [items[i][0] for i in members]
+        cps_all, enabled, options = _plan(policy)
+        checked = run_checks(stack_batches(parts), options, only=enabled)
+        for i, results in zip(members, checked.split(parts), strict=True):
+            out[i] = _decide(results, policy, cps_all)
+    return out  # type: ignore[return-value]
+
+
+def _decide(results: BatchChecks, policy: Policy, cps_all: Mapping[str, CheckPolicy]
+            ) -> Assessment:
+    """Steps 2 to 5 of the module docstring over checks already run."""
+    batch = results.batch
     weights = _weights(batch, policy)
     adjust = policy.fleet.adjustment == "bh"
     if policy.fleet.critical_series:

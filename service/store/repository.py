@@ -1,7 +1,7 @@
 """Repository functions: every read and write the service makes, keyword arguments only.
 
 An assessment, all its per-series result rows, its per-series inputs and its idempotency key are
-written by :func:`save_assessment` in one transaction: after a crash either all of it is there or
+written by :func:`save_assessments` in one transaction: after a crash either all of it is there or
 none of it.
 """
 
@@ -163,92 +163,135 @@ class SeriesResult:
     json: bytes
 
 
-def save_assessment(
-    engine: Engine,
-    *,
-    assessment_id: str,
-    created_at: datetime,
-    model: str,
-    version: str,
-    verdict: str,
-    n_failed: int,
-    n_warned: int,
-    policy_name: str,
-    policy_version: int,
-    policy_document: dict[str, Any],
-    head: bytes,
-    series: Sequence[SeriesResult],
-    inputs: Sequence[SeriesInput],
-    idempotency_key: str | None = None,
-    body_hash: str | None = None,
-) -> AssessmentSummary:
-    """Write an assessment with all its series rows (and its idempotency key) atomically.
+@dataclass(frozen=True)
+class NewAssessment:
+    """Everything :func:`save_assessments` writes for one assessment.
 
     ``head`` is the JSON of the result without ``series``; ``series`` the per-series results in
-    input order, ``inputs`` the numbers they were computed from (bulk inserted). Raises
-    :class:`IdempotencyConflict` when the key was taken meanwhile by another request.
+    input order, ``inputs`` the numbers they were computed from.
     """
-    result_rows = [
-        {"position": i, "series_id": s.series_id, "verdict": s.verdict, "n_obs": s.n_obs,
-         "result": s.json.decode()}
-        for i, s in enumerate(series)
-    ]
-    input_rows = [
-        {
-            "position": i,
-            "series_id": s.series_id,
-            "weight": s.weight,
-            "actuals": pack(s.actuals),
-            "fitted": pack(s.fitted),
-            "timestamps": None if s.timestamps is None else orjson.dumps(s.timestamps).decode(),
-            "holdout_actuals": pack(s.holdout_actuals),
-            "holdout_forecasts": pack(s.holdout_forecasts),
-            "holdout_lower": pack(s.holdout_lower),
-            "holdout_upper": pack(s.holdout_upper),
-            "holdout_level": s.holdout_level,
-            "holdout_timestamps": None if s.holdout_timestamps is None
-            else orjson.dumps(s.holdout_timestamps).decode(),
-        }
-        for i, s in enumerate(inputs)
-    ]
+
+    assessment_id: str
+    created_at: datetime
+    model: str
+    version: str
+    verdict: str
+    n_failed: int
+    n_warned: int
+    policy_name: str
+    policy_version: int
+    policy_document: dict[str, Any]
+    head: bytes
+    series: Sequence[SeriesResult]
+    inputs: Sequence[SeriesInput]
+    idempotency_key: str | None = None
+    body_hash: str | None = None
+
+    def summary(self, seq: int) -> AssessmentSummary:
+        return AssessmentSummary(
+            seq=seq, id=self.assessment_id, created_at=self.created_at, model=self.model,
+            version=self.version, verdict=self.verdict, n_series=len(self.series),
+            n_failed=self.n_failed, n_warned=self.n_warned, policy_name=self.policy_name,
+            policy_version=self.policy_version,
+        )
+
+
+def _input_row(i: int, s: SeriesInput) -> dict[str, Any]:
+    return {
+        "position": i,
+        "series_id": s.series_id,
+        "weight": s.weight,
+        "actuals": pack(s.actuals),
+        "fitted": pack(s.fitted),
+        "timestamps": None if s.timestamps is None else orjson.dumps(s.timestamps).decode(),
+        "holdout_actuals": pack(s.holdout_actuals),
+        "holdout_forecasts": pack(s.holdout_forecasts),
+        "holdout_lower": pack(s.holdout_lower),
+        "holdout_upper": pack(s.holdout_upper),
+        "holdout_level": s.holdout_level,
+        "holdout_timestamps": None if s.holdout_timestamps is None
+        else orjson.dumps(s.holdout_timestamps).decode(),
+    }
+
+
+def _write_all(engine: Engine, records: Sequence[NewAssessment]) -> list[int]:
+    """Write ``records`` in one transaction; their sequence numbers in order."""
     stmts = fastpath.statements(engine)
 
-    def write(cursor: Any) -> int:
-        cursor.execute(stmts.insert_assessment.sql, stmts.insert_assessment.params({
-            "id": assessment_id, "created_at": created_at, "model": model,
-            "version": version, "verdict": verdict, "n_series": len(series),
-            "n_failed": n_failed, "n_warned": n_warned, "policy_name": policy_name,
-            "policy_version": policy_version,
-            "policy_document": orjson.dumps(policy_document).decode(),
-            "result": head.decode(),
-        }))
-        seq = int(cursor.fetchone()[0])
-        for row in result_rows:
-            row["assessment_seq"] = seq
-        for row in input_rows:
-            row["assessment_seq"] = seq
+    def write(cursor: Any) -> list[int]:
+        seqs = []
+        result_rows: list[dict[str, Any]] = []
+        input_rows: list[dict[str, Any]] = []
+        for r in records:
+            cursor.execute(stmts.insert_assessment.sql, stmts.insert_assessment.params({
+                "id": r.assessment_id, "created_at": r.created_at, "model": r.model,
+                "version": r.version, "verdict": r.verdict, "n_series": len(r.series),
+                "n_failed": r.n_failed, "n_warned": r.n_warned, "policy_name": r.policy_name,
+                "policy_version": r.policy_version,
+                "policy_document": orjson.dumps(r.policy_document).decode(),
+                "result": r.head.decode(),
+            }))
+            seq = int(cursor.fetchone()[0])
+            seqs.append(seq)
+            result_rows += [
+                {"assessment_seq": seq, "position": i, "series_id": s.series_id,
+                 "verdict": s.verdict, "n_obs": s.n_obs, "result": s.json.decode()}
+                for i, s in enumerate(r.series)
+            ]
+            input_rows += [{"assessment_seq": seq, **_input_row(i, s)}
+                           for i, s in enumerate(r.inputs)]
+            if r.idempotency_key is not None:
+                cursor.execute(stmts.insert_key.sql, stmts.insert_key.params({
+                    "key": r.idempotency_key, "body_hash": r.body_hash, "assessment_seq": seq,
+                    "created_at": r.created_at}))
+        # Every series row of every assessment in two statements.
         fastpath.executemany(cursor, stmts.insert_series_result, result_rows)
         fastpath.executemany(cursor, stmts.insert_series_input, input_rows)
-        if idempotency_key is not None:
-            cursor.execute(stmts.insert_key.sql, stmts.insert_key.params({
-                "key": idempotency_key, "body_hash": body_hash, "assessment_seq": seq,
-                "created_at": created_at}))
-        return seq
+        return seqs
 
+    with write_lock(engine):
+        return fastpath.run_in_transaction(engine, write)
+
+
+def save_assessments(
+    engine: Engine, records: Sequence[NewAssessment]
+) -> list[AssessmentSummary | IdempotencyConflict]:
+    """Write several assessments, each with all its series rows and its idempotency key.
+
+    All of them go in one transaction (one commit for many small submissions); each
+    assessment is whole or absent after a crash either way. When one of them meets a key
+    taken meanwhile, each is written again in a transaction of its own, so the others are
+    still saved and only that one answers :class:`IdempotencyConflict` (returned in its
+    place, not raised). Other database errors are raised.
+    """
+    if not records:
+        return []
+    stmts = fastpath.statements(engine)
     try:
-        with write_lock(engine):
-            seq = fastpath.run_in_transaction(engine, write)
+        return [r.summary(seq) for r, seq in zip(records, _write_all(engine, records),
+                                                 strict=True)]
     except stmts.integrity_error:
-        if idempotency_key is not None and find_idempotency_key(
-            engine, key=idempotency_key
-        ) is not None:
-            raise IdempotencyConflict(idempotency_key) from None
-        raise
-    return AssessmentSummary(
-        seq=seq, id=assessment_id, created_at=created_at, model=model, version=version,
-        verdict=verdict, n_series=len(series), n_failed=n_failed, n_warned=n_warned,
-        policy_name=policy_name, policy_version=policy_version,
-    )
+        if len(records) == 1:
+            r = records[0]
+            if r.idempotency_key is not None and find_idempotency_key(
+                engine, key=r.idempotency_key
+            ) is not None:
+                return [IdempotencyConflict(r.idempotency_key)]
+            raise
+    out: list[AssessmentSummary | IdempotencyConflict] = []
+    for r in records:
+        out += save_assessments(engine, [r])
+    return out
+
+
+def save_assessment(engine: Engine, **fields: Any) -> AssessmentSummary:
+    """Write one assessment (the fields of :class:`NewAssessment`) with all its series rows
+    and its idempotency key atomically. Raises :class:`IdempotencyConflict` when the key was
+    taken meanwhile by another request."""
+    (saved,) = save_assessments(engine, [NewAssessment(**fields)])
+    if isinstance(saved, IdempotencyConflict):
+        raise saved
+    return saved
 
 
 def get_assessment(engine: Engine, *, assessment_id: str) -> StoredAssessment | None:

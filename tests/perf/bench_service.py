@@ -281,7 +281,10 @@ def main() -> int:
         svc = start(["-c", "from service.api.server import run; "
                      f"run(host='127.0.0.1', port={svc_port}, workers=1)"],
                     {"PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp / 'bench.db'}",
-                     "PLUMBLINE_ADMIN_TOKEN": TOKEN}, tmp / "service.log")
+                     "PLUMBLINE_ADMIN_TOKEN": TOKEN,
+                     # The per-token rate limit (50/s by default) would answer most of the
+                     # load with 429: this measures the assessment path, so it is off.
+                     "PLUMBLINE_RATE_LIMIT_PER_SECOND": "0"}, tmp / "service.log")
         bare = start([str(Path(__file__).resolve()), "--bare-server", str(bare_port)], {},
                      tmp / "bare.log")
         try:

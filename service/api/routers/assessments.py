@@ -135,27 +135,35 @@ async def post_assessment(request: Request) -> Response:
     params = {k: v for k, v in request.query_params.items() if k != "store"}
     digest = assessing.body_hash(kind, params if kind == "csv" else {}, body)
 
-    def work() -> assessing.Outcome:
+    def replayed() -> assessing.Outcome | None:
         if key is not None and store:
-            again = assessing.replay(state.engine, key, digest)
-            if again is not None:
-                return again
+            return assessing.replay(state.engine, key, digest)
+        return None
+
+    def job() -> assessing.Job:
         clock = time.perf_counter()
         req = assessing.parse(kind, body, params, state.settings)
-        timings = {"parse": time.perf_counter() - clock}
-        return assessing.run(state.engine, req, store=store,
-                             idempotency_key=key if store else None, digest=digest,
-                             timings=timings)
+        return assessing.Job(req=req, store=store, idempotency_key=key if store else None,
+                             digest=digest, timings={"parse": time.perf_counter() - clock})
 
-    # Small bodies are assessed on the event loop (a few milliseconds; a thread hop and the
-    # lock hand-over between threads would cost as much); large ones in the thread pool so the
-    # loop keeps answering health checks meanwhile.
+    # Small bodies are parsed on the event loop (a thread hop and the lock hand-over between
+    # threads would cost as much) and assessed together with the other small submissions
+    # waiting at the same moment (service/api/batching.py); large ones go to the thread pool
+    # so the loop keeps answering meanwhile.
     if len(body) <= INLINE_BODY_BYTES:
-        outcome = work()
+        outcome = replayed()
+        if outcome is None:
+            outcome = await state.batcher.submit(job())
     else:
         def large() -> assessing.Outcome:
             with paused_gc():
-                return work()
+                again = replayed()
+                if again is not None:
+                    return again
+                (done,) = assessing.run_many(state.engine, [job()])
+                if isinstance(done, BaseException):
+                    raise done
+                return done
 
         outcome = await run_in_threadpool(large)
     headers: dict[str, str] = {"Server-Timing": outcome.server_timing()}

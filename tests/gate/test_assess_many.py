@@ -1,0 +1,71 @@
+"""``assess_many``: checks stacked across batches give each batch exactly its own result."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from service.core import assess, default_policy, make_batch
+from service.core.batch import stack_batches
+from service.core.gate import assess_many
+from service.core.policy import Policy
+
+
+def invented_batch(rng, n, t=104, horizon=0, intervals=False, season=1, gaps=False,
+                   prefix="s"):
+    """Invented weekly series (level near 100), some flawed, optionally with a holdout."""
+    actuals = 100 + 5 * rng.standard_normal((n, t))
+    e = rng.standard_normal((n, t))
+    e[:, 1:] += rng.uniform(0, 0.8) * e[:, :-1]  # some autocorrelation
+    e += rng.uniform(-0.5, 0.5, (n, 1))  # some bias
+    fitted = actuals - e
+    fitted[:, 0] = np.nan
+    if gaps:
+        fitted[:, 20:23] = np.nan
+    kwargs = {}
+    if horizon:
+        ha = 100 + 5 * rng.standard_normal((n, horizon))
+        hf = ha + rng.standard_normal((n, horizon))
+        kwargs = {"holdout_actuals": ha, "holdout_forecasts": hf}
+        if intervals:
+            kwargs |= {"holdout_lower": hf - 1.6, "holdout_upper": hf + 1.6, "level": 0.9}
+    return make_batch(actuals, fitted, ids=[f"{prefix}-{i}" for i in range(n)],
+                      season_length=season, **kwargs)
+
+
+def test_same_results_as_separate_calls_exactly():
+    rng = np.random.default_rng(20261202)
+    policy = default_policy()
+    batches = [invented_batch(rng, 1) for _ in range(6)]
+    batches += [invented_batch(rng, 5, horizon=12, intervals=True) for _ in range(3)]
+    batches += [invented_batch(rng, 1, t=60, season=12, gaps=True) for _ in range(3)]
+    batches += [invented_batch(rng, 3, horizon=8) for _ in range(2)]
+    order = rng.permutation(len(batches))
+    items = [(batches[i], policy) for i in order]
+    together = assess_many(items)
+    assert len(together) == len(items)
+    for (batch, pol), got in zip(items, together, strict=True):
+        # Row-by-row work on same-shaped matrices: equal to the last bit, not just close.
+        assert got.to_dict() == assess(batch, pol).to_dict()
+        assert got.ids == batch.ids
+
+
+def test_policies_are_kept_apart():
+    rng = np.random.default_rng(7)
+    strict = Policy.from_dict({"name": "strict", "checks": {"ljung_box": {"lags": 5}},
+                               "fleet": {"adjustment": "none"}})
+    items = [(invented_batch(rng, 2), strict if i % 2 else default_policy())
+             for i in range(6)]
+    for (batch, pol), got in zip(items, assess_many(items), strict=True):
+        assert got.policy is pol
+        assert got.to_dict() == assess(batch, pol).to_dict()
+
+
+def test_stack_refuses_different_shapes():
+    rng = np.random.default_rng(1)
+    with pytest.raises(ValueError, match="shape"):
+        stack_batches([invented_batch(rng, 1, t=50), invented_batch(rng, 1, t=60)])
+
+
+def test_empty_list():
+    assert assess_many([]) == []
