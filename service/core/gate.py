@@ -206,8 +206,14 @@ def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
     observed = res.observed[use]
     pooled_e = np.where(observed, res.values[use], 0.0).sum()
     pooled_y = np.where(observed, np.abs(checks.batch.actuals[use]), 0.0).sum()
-    mean = float((w * me[use]).sum() / total)
-    std = float(np.sqrt((w * w * se[use] * se[use]).sum()) / total)
+    # Weighted mean and its standard error sqrt(sum w^2 SE^2) / sum w, computed with the
+    # weight shares and the largest term factored out, so values near the accepted magnitude
+    # neither overflow nor underflow.
+    share = w / total
+    mean = float((share * me[use]).sum())
+    spread = np.abs(share * se[use])
+    peak = float(spread.max(initial=0.0))
+    std = peak * float(np.sqrt(np.square(spread / peak).sum())) if peak > 0 else 0.0
     with np.errstate(invalid="ignore", divide="ignore"):
         z = mean / std if std > 0 else (np.sign(mean) * np.inf if mean else np.nan)
         pct = float(100.0 * pooled_e / pooled_y) if pooled_y > 0 else float("nan")
@@ -385,51 +391,55 @@ def _to_dict(a: Assessment) -> dict[str, Any]:
     weights = converted.pop()
     for (name, key), values in zip(float_keys, converted, strict=True):
         columns[name][key] = values
-    # Per check, its detail columns as (key, values) pairs, looked up once for every series.
-    detail_cols = {name: [(k, columns[name][f"d:{k}"]) for k in res.details]
-                   for name, res in results.checks.items()}
     messages: dict[tuple[str, int], str] = {}
     index_of = {sid: i for i, sid in enumerate(results.batch.ids)}
     for r in a.reasons:
         if r.series_id is not None:
             messages[(r.check, index_of[r.series_id])] = r.message
+    # Built column by column: per check, the list of its per-series entries, then one
+    # series' entries are the i-th of each list.
+    per_check = []
+    for name, res in results.checks.items():
+        col = columns[name]
+        passed = pass_message(name)
+        text = [
+            skip if status == "skipped" else passed if status == "pass"
+            else messages.get((name, i), "")
+            for i, (status, skip) in enumerate(zip(col["status"], col["skip"], strict=True))
+        ]
+        keys = tuple(res.details)
+        if keys:
+            details = [dict(zip(keys, row, strict=True)) for row in
+                       zip(*(col[f"d:{k}"] for k in keys), strict=True)]
+        else:
+            details = [{} for _ in range(n)]
+        per_check.append([
+            {"name": name, "status": st, "statistic": stat, "p_value": p, "p_adjusted": p_adj,
+             "details": det, "message": msg}
+            for st, stat, p, p_adj, det, msg in zip(
+                col["status"], col["statistic"], col["p_value"], col["p_adjusted"], details,
+                text, strict=True)
+        ])
     verdicts = a.series_verdicts()
     n_obs = results.residuals.n_obs.tolist()
     bias_cols = columns.get("bias")
     ts_cols = columns.get("tracking_signal")
-    series = []
-    for i in range(n):
-        checks_i = []
-        for name, col in columns.items():
-            status = col["status"][i]
-            if status == "skipped":
-                message = col["skip"][i]
-            elif status == "pass":
-                message = pass_message(name)
-            else:
-                message = messages.get((name, i), "")
-            checks_i.append({
-                "name": name,
-                "status": status,
-                "statistic": col["statistic"][i],
-                "p_value": col["p_value"][i],
-                "p_adjusted": col["p_adjusted"][i],
-                "details": {k: v[i] for k, v in detail_cols[name]},
-                "message": message,
-            })
-        bias_i = None
-        if bias_cols is not None:
-            bias_i = {k: bias_cols[f"d:{k}"][i] for k in
-                      ("mean_error", "std_error", "ci_low", "ci_high", "percent_bias")}
-            bias_i["tracking_signal"] = ts_cols["statistic"][i] if ts_cols else None
-        series.append({
-            "id": results.batch.ids[i],
-            "verdict": verdicts[i],
-            "n_obs": n_obs[i],
-            "weight": weights[i],
-            "bias": bias_i,
-            "checks": checks_i,
-        })
+    if bias_cols is not None:
+        tracking = ts_cols["statistic"] if ts_cols else [None] * n
+        bias_keys = ("mean_error", "std_error", "ci_low", "ci_high", "percent_bias",
+                     "tracking_signal")
+        bias_rows: list[dict[str, Any] | None] = [
+            dict(zip(bias_keys, row, strict=True)) for row in zip(
+                *(bias_cols[f"d:{k}"] for k in bias_keys[:-1]), tracking, strict=True)
+        ]
+    else:
+        bias_rows = [None] * n
+    checks_rows = map(list, zip(*per_check, strict=True)) if per_check else ([] for _ in range(n))
+    series = [
+        {"id": sid, "verdict": v, "n_obs": k, "weight": w, "bias": b, "checks": c}
+        for sid, v, k, w, b, c in zip(results.batch.ids, verdicts, n_obs, weights, bias_rows,
+                                      checks_rows, strict=True)
+    ]
     n_failed = sum(v == "fail" for v in verdicts)
     n_warned = sum(v == "warn" for v in verdicts)
     return {

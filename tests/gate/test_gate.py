@@ -174,3 +174,31 @@ def test_short_series_warn_through_data_sufficiency_and_skip_the_rest():
     assert statuses["ljung_box"] == "skipped"
     msg = next(c["message"] for c in s["checks"] if c["name"] == "ljung_box")
     assert msg
+
+
+def test_fleet_bias_is_the_weighted_mean_and_its_standard_error():
+    # Definition (docs: fleet bias): mean = sum w_i me_i / sum w_i,
+    # SE = sqrt(sum w_i^2 SE_i^2) / sum w_i, z = mean / SE, two-sided normal p (scipy).
+    from scipy import stats
+
+    batch = invented_fleet(n=30, t=52, bias_rows=range(10), shift=0.3, seed=5)
+    result = assess(batch, default_policy())
+    b = result.results["bias"].details
+    w = result.weights
+    mean = (w * b["mean_error"]).sum() / w.sum()
+    se = np.sqrt((w**2 * b["std_error"] ** 2).sum()) / w.sum()
+    fb = result.fleet_bias
+    np.testing.assert_allclose([fb.mean_error, fb.std_error], [mean, se], rtol=1e-12)
+    np.testing.assert_allclose(fb.p_value, 2 * stats.norm.sf(abs(mean / se)), rtol=1e-9)
+
+
+def test_fleet_bias_does_not_overflow_near_the_accepted_magnitude():
+    # The same fleet in a unit 1e200 times larger: the same z and p, the mean scaled exactly
+    # (the weights are volumes, which scale too, and cancel in the weighted mean).
+    small = invented_fleet(n=20, t=52, bias_rows=range(20), shift=0.3, seed=8)
+    big = make_batch(small.actuals * 1e200, small.fitted * 1e200, ids=small.ids)
+    fs = assess(small, default_policy()).fleet_bias
+    fb = assess(big, default_policy()).fleet_bias
+    assert np.isfinite([fb.mean_error, fb.std_error, fb.statistic, fb.p_value]).all()
+    np.testing.assert_allclose(fb.statistic, fs.statistic, rtol=1e-9)
+    np.testing.assert_allclose(fb.mean_error, fs.mean_error * 1e200, rtol=1e-9)
