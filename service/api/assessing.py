@@ -1,6 +1,8 @@
 """Running an assessment request: request -> arrays -> core -> verdict -> store -> response.
 
-Kept apart from the HTTP router so the work runs in one thread-pool call per request.
+Kept apart from the HTTP router. :func:`run_many` takes a list of parsed submissions: the small
+ones that wait together on the event loop (service/api/batching.py), or one large one in the
+thread pool.
 """
 
 from __future__ import annotations
@@ -157,9 +159,10 @@ def run_many(engine: Engine, jobs: list[Job]) -> list[Outcome | BaseException]:
     Policies not yet resolved are resolved first (:func:`resolve_policies`). The checks of
     jobs that share a policy and shape run in one vectorised pass
     (:func:`service.core.gate.assess_many`); each job is still decided and answered on its own
-    series alone. A job's own failure (an unknown policy, an idempotency race it lost to a
-    different body) is returned in its place; a failure of the whole batch (the database) is
-    raised.
+    series alone. A job's own failure is returned in its place: an unknown policy, an
+    idempotency race it lost to a different body, a database error on its write (then it was
+    not written; jobs with ``store`` false keep their answers). An error looking a policy up
+    in the database is raised, for the whole list.
     """
     outcomes: list[Outcome | BaseException | None] = list(resolve_policies(engine, jobs))
     ready = [i for i, o in enumerate(outcomes) if o is None]
@@ -177,23 +180,35 @@ def run_many(engine: Engine, jobs: list[Job]) -> list[Outcome | BaseException]:
             records.append((i, record))
     if records:
         clock = time.perf_counter()
-        saved = repo.save_assessments(engine, [r for _, r in records])
+        try:
+            saved: list[repo.AssessmentSummary | Exception] = repo.save_assessments(
+                engine, [r for _, r in records])
+        except Exception as exc:  # nothing was written: each stored job answers the error
+            saved = [exc] * len(records)
         took = time.perf_counter() - clock
         for (i, _), result in zip(records, saved, strict=True):
             jobs[i].timings["store"] = took
             if isinstance(result, repo.IdempotencyConflict):
-                # Another request with the same key won the race: answer as its repeat would.
-                job = jobs[i]
-                try:
-                    again = replay(engine, job.idempotency_key, job.digest)  # type: ignore[arg-type]
-                except ApiError as exc:
-                    outcomes[i] = exc
-                else:
-                    outcomes[i] = again if again is not None else result
-    if len(ready) > 1:
+                outcomes[i] = _lost_race(engine, jobs[i])
+            elif isinstance(result, Exception):
+                outcomes[i] = result
+    if len(jobs) > 1:
         for i in ready:
-            jobs[i].timings["batch"] = len(ready)
+            jobs[i].timings["batch"] = len(jobs)
     return outcomes  # type: ignore[return-value]
+
+
+def _lost_race(engine: Engine, job: Job) -> Outcome | ApiError:
+    """Another request with the same key was stored first: answer as its repeat would."""
+    try:
+        again = replay(engine, job.idempotency_key, job.digest)  # type: ignore[arg-type]
+    except ApiError as exc:  # the other request had another body: 409
+        return exc
+    if again is not None:
+        return again
+    return ApiError(409, f"Idempotency-Key {job.idempotency_key!r} was being used by another "
+                    "request at the same moment; send the request again",
+                    slug="idempotency-key-reused")
 
 
 def _answer(job: Job, result: dict[str, Any]) -> tuple[Outcome, repo.NewAssessment | None]:

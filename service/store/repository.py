@@ -255,14 +255,16 @@ def _write_all(engine: Engine, records: Sequence[NewAssessment]) -> list[int]:
 
 def save_assessments(
     engine: Engine, records: Sequence[NewAssessment]
-) -> list[AssessmentSummary | IdempotencyConflict]:
+) -> list[AssessmentSummary | Exception]:
     """Write several assessments, each with all its series rows and its idempotency key.
 
     All of them go in one transaction (one commit for many small submissions); each
-    assessment is whole or absent after a crash either way. When one of them meets a key
-    taken meanwhile, each is written again in a transaction of its own, so the others are
-    still saved and only that one answers :class:`IdempotencyConflict` (returned in its
-    place, not raised). Other database errors are raised.
+    assessment is whole or absent after a crash either way. A database error on that
+    transaction is raised: then none of them was written. When one of them meets a key taken
+    meanwhile, each is written again in a transaction of its own, so the others are still
+    saved; then each record's own outcome is returned in its place: its summary, an
+    :class:`IdempotencyConflict`, or the database error that kept it out (so a caller never
+    takes a written record for a lost one, or the reverse).
     """
     if not records:
         return []
@@ -278,9 +280,12 @@ def save_assessments(
             ) is not None:
                 return [IdempotencyConflict(r.idempotency_key)]
             raise
-    out: list[AssessmentSummary | IdempotencyConflict] = []
+    out: list[AssessmentSummary | Exception] = []
     for r in records:
-        out += save_assessments(engine, [r])
+        try:
+            out += save_assessments(engine, [r])
+        except Exception as exc:  # this record alone is not written
+            out.append(exc)
     return out
 
 
@@ -289,7 +294,7 @@ def save_assessment(engine: Engine, **fields: Any) -> AssessmentSummary:
     and its idempotency key atomically. Raises :class:`IdempotencyConflict` when the key was
     taken meanwhile by another request."""
     (saved,) = save_assessments(engine, [NewAssessment(**fields)])
-    if isinstance(saved, IdempotencyConflict):
+    if isinstance(saved, Exception):
         raise saved
     return saved
 

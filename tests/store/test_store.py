@@ -144,3 +144,49 @@ def test_pack_round_trip_keeps_nan():
     values = np.array([1.5, np.nan, -2.0])
     np.testing.assert_array_equal(repo.unpack(repo.pack(values)), values)
     assert repo.pack(None) is None and repo.unpack(None) is None
+
+
+def _record(aid, key=None, digest=None):
+    series = [repo.SeriesResult(series_id="s0", verdict="pass", n_obs=2,
+                                json=b'{"id":"s0","verdict":"pass","n_obs":2}')]
+    inputs = [repo.SeriesInput(series_id="s0", weight=None, actuals=np.array([1.0, 2.0]),
+                               fitted=np.array([np.nan, 1.5]))]
+    return repo.NewAssessment(
+        assessment_id=aid, created_at=repo.utcnow(), model="m", version="1", verdict="pass",
+        n_failed=0, n_warned=0, policy_name="default", policy_version=1,
+        policy_document={"name": "default"}, head=b'{"id":"' + aid.encode() + b'"}',
+        series=series, inputs=inputs, idempotency_key=key, body_hash=digest)
+
+
+def test_many_in_one_transaction_and_a_taken_key_keeps_the_others(engine):
+    _save(engine, aid="first", key="k1", digest="d1")
+    saved = repo.save_assessments(engine, [_record("b1"), _record("b2", key="k1", digest="d2"),
+                                           _record("b3", key="k3", digest="d3")])
+    assert isinstance(saved[1], repo.IdempotencyConflict)
+    assert [s.id for s in (saved[0], saved[2])] == ["b1", "b3"]
+    listed = {row.id for row in repo.list_assessments(engine, limit=10)}
+    assert listed == {"first", "b1", "b3"}
+
+
+def test_a_write_failing_after_a_conflict_is_reported_for_that_record_only(engine, monkeypatch):
+    # After a key conflict each record is written alone; when the database then fails on one,
+    # that record's outcome is the error and the ones written before it are reported written.
+    _save(engine, aid="first", key="k1", digest="d1")
+    real = repo._write_all
+    calls = []
+
+    def flaky(eng, records):
+        calls.append([r.assessment_id for r in records])
+        if [r.assessment_id for r in records] == ["c3"]:
+            raise RuntimeError("database went away")
+        return real(eng, records)
+
+    monkeypatch.setattr(repo, "_write_all", flaky)
+    saved = repo.save_assessments(engine, [_record("c1"), _record("c2", key="k1", digest="x"),
+                                           _record("c3")])
+    assert calls[0] == ["c1", "c2", "c3"] and calls[1:] == [["c1"], ["c2"], ["c3"]]
+    assert saved[0].id == "c1"
+    assert isinstance(saved[1], repo.IdempotencyConflict)
+    assert isinstance(saved[2], RuntimeError)
+    listed = {row.id for row in repo.list_assessments(engine, limit=10)}
+    assert listed == {"first", "c1"}
