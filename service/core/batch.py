@@ -301,17 +301,31 @@ def make_batch(
 
 def stack_key(batch: SeriesBatch) -> tuple[object, ...]:
     """What batches must share to be stacked by :func:`stack_batches`: season length, model
-    parameters and the shape of every matrix (so stacking adds rows and nothing else)."""
+    parameters, the shape of every matrix and where values are missing in each.
+
+    With the same shape and missing values, every check does the same arithmetic on a part's
+    rows stacked or alone (the same lag orders, regression rows and trimmed spans), so the
+    results agree to the last bit, not merely to rounding.
+    """
     h = batch.holdout
     hold: tuple[object, ...] = ()
     if h is not None:
-        hold = (h.actuals.shape[1], h.lower is not None, h.level is not None)
-    return (batch.season_length, batch.model_params, batch.actuals.shape[1], hold)
+        hold = (h.actuals.shape[1], h.lower is not None, h.level is not None,
+                _missing(h.actuals), _missing(h.forecasts),
+                None if h.lower is None else _missing(h.lower),
+                None if h.upper is None else _missing(h.upper),
+                None if h.level is None else _missing(h.level))
+    return (batch.season_length, batch.model_params, batch.actuals.shape,
+            _missing(batch.actuals), _missing(batch.fitted), hold)
+
+
+def _missing(values: np.ndarray) -> bytes:
+    return np.packbits(np.isnan(values)).tobytes()
 
 
 def stack_batches(batches: Sequence[SeriesBatch]) -> SeriesBatch:
-    """One batch holding the rows of ``batches`` in order (all with the same
-    :func:`stack_key`). Series ids may repeat across the parts: the checks never read them.
+    """One batch holding the rows of ``batches`` in order. Series ids may repeat across the
+    parts: the checks never read them.
 
     Every check works row by row, so each part's rows of the stacked batch's results are the
     part's own results; :meth:`BatchChecks.split` hands them back.
@@ -319,8 +333,9 @@ def stack_batches(batches: Sequence[SeriesBatch]) -> SeriesBatch:
     first = batches[0]
     if len(batches) == 1:
         return first
-    key = stack_key(first)
-    if any(stack_key(b) != key for b in batches[1:]):
+    if any(b.actuals.shape[1] != first.actuals.shape[1]
+           or (b.season_length, b.model_params) != (first.season_length, first.model_params)
+           or (b.holdout is None) != (first.holdout is None) for b in batches[1:]):
         raise ValueError("stack_batches: the batches differ in season length, model "
                          "parameters or shape")
     holdout = None

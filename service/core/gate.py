@@ -237,12 +237,15 @@ def assess(batch: SeriesBatch, policy: Policy) -> Assessment:
 
 def assess_many(items: Sequence[tuple[SeriesBatch, Policy]]) -> list[Assessment]:
     """``[assess(batch, policy) for batch, policy in items]``, with the checks of every batch
-    that shares a policy (the same object) and a :func:`stack_key` run in one vectorised pass.
+    that shares a policy (the same object) and a :func:`stack_key` (shape and missing values)
+    run in one vectorised pass.
 
-    Each check works row by row, so the results are those of separate calls; the decision
-    (adjustment across series, shares, reasons) is still made per batch, on its own series.
-    This is how the service answers many small concurrent submissions at once.
+    Each check works row by row, so the results are those of separate calls, to the last bit;
+    the decision (adjustment across series, shares, reasons) is still made per batch, on its
+    own series. This is how the service answers many small concurrent submissions at once.
     """
+    if len(items) == 1:
+        return [assess(*items[0])]
     groups: dict[tuple[object, ...], list[int]] = {}
     for i, (batch, policy) in enumerate(items):
         groups.setdefault((id(policy), *stack_key(batch)), []).append(i)

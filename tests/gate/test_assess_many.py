@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from service.core import assess, default_policy, make_batch
-from service.core.batch import stack_batches
+from service.core.batch import stack_batches, stack_key
 from service.core.gate import assess_many
 from service.core.policy import Policy
 
@@ -69,3 +69,38 @@ def test_stack_refuses_different_shapes():
 
 def test_empty_list():
     assert assess_many([]) == []
+
+
+def test_ragged_rows_answer_as_alone_to_the_last_bit():
+    # Each batch's rows end at different periods, with gaps and leading misses: lag rules,
+    # degrees of freedom, regression rows and the spans a check trims to differ from row to
+    # row. Batches with the same missing values are stacked (two of each pattern here), the
+    # others are kept apart: either way each answers exactly as alone.
+    rng = np.random.default_rng(11)
+    policy = default_policy()
+    patterns = []
+    for k in range(4):
+        n, t = int(rng.integers(1, 5)), 120
+        missing = np.zeros((n, t), dtype=bool)
+        for i in range(n):
+            end = int(rng.integers(12, t + 1)) if (i or k % 2) else t
+            missing[i, end:] = True
+        lead = np.zeros((n, t), dtype=bool)
+        for i in range(n):
+            lead[i, : int(rng.integers(0, 4))] = True
+            gap = int(rng.integers(5, 10))
+            lead[i, gap : gap + int(rng.integers(0, 3))] = True
+        patterns.append((missing, lead))
+    items = []
+    for k in range(8):
+        missing, lead = patterns[k % 4]
+        n, t = missing.shape
+        actuals = 100 + 5 * rng.standard_normal((n, t))
+        fitted = actuals - rng.standard_normal((n, t)) * rng.uniform(0.5, 3.0, (n, 1))
+        actuals[missing] = np.nan
+        fitted[missing | lead] = np.nan
+        batch = make_batch(actuals, fitted, ids=[f"r{k}-{i}" for i in range(n)], model_params=1)
+        items.append((batch, policy))
+    assert len({stack_key(b) for b, _ in items}) == 4
+    for (batch, pol), got in zip(items, assess_many(items), strict=True):
+        assert got.to_dict() == assess(batch, pol).to_dict()
