@@ -19,9 +19,9 @@ import pytest
 from sqlalchemy import text
 
 from service.store import make_engine
+from tests.serverproc import Server
 
 from .conftest import ADMIN, ADMIN_TOKEN, series_body
-from .serverproc import Server
 
 ROUNDS = int(os.environ.get("PLUMBLINE_KILL_ROUNDS", "4"))
 CLIENTS = 4

@@ -12,8 +12,9 @@ import time
 import httpx
 import pytest
 
+from tests.serverproc import Server
+
 from .conftest import ADMIN_TOKEN
-from .serverproc import Server
 
 HEAD_TIMEOUT = 1.0
 KEEP_ALIVE = 1

@@ -20,7 +20,7 @@ from service.settings import Settings
 from tests.postgres import postgres_url
 
 from .conftest import ADMIN, ADMIN_TOKEN, series_body
-from .serverproc import Relay
+from .relay import Relay
 
 PASSWORD = "relay-pw-7c1d"
 

@@ -34,7 +34,7 @@ import httpx  # noqa: E402
 from sqlalchemy import create_engine, text  # noqa: E402
 from sqlalchemy.engine import make_url  # noqa: E402
 
-from tests.faults.serverproc import Server  # noqa: E402
+from tests.serverproc import Server  # noqa: E402
 
 ADMIN_TOKEN = "plb_bench-admin-" + uuid.uuid4().hex
 POSTERS = 64

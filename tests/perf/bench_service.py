@@ -28,8 +28,6 @@ import asyncio
 import os
 import re
 import shutil
-import signal
-import socket
 import subprocess
 import sys
 import tempfile
@@ -37,22 +35,26 @@ import time
 from pathlib import Path
 from typing import Any
 
+sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
+
 import numpy as np
 import orjson
 from fastapi import FastAPI, Request
 from fastapi.responses import Response
 
-ROOT = Path(__file__).resolve().parents[2]
+from tests.serverproc import (
+    ServerDidNotStart,
+    free_port,
+    run_args,
+    start_python,
+    stop,
+    wait_until_answers,
+)
+
 TOKEN = "bench-admin-token"
 N_OBS = 156
 FLEET = 4000
 SEED = 156
-
-
-def free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 def series(rng: np.random.Generator, sid: str) -> dict:
@@ -126,41 +128,6 @@ def serve_bare(port: int) -> None:
 
     uvicorn.run(bare_app(), host="127.0.0.1", port=port, workers=1, log_level="warning",
                 access_log=False)
-
-
-# ------------------------------------------------------------------------------ processes
-
-def start(args: list[str], env_extra: dict[str, str], log: Path) -> subprocess.Popen:
-    env = {k: v for k, v in os.environ.items() if not k.startswith("PLUMBLINE_")}
-    env.update({"PYTHONPATH": str(ROOT), **env_extra})
-    with log.open("ab") as out:
-        return subprocess.Popen([sys.executable, *args], cwd=ROOT, env=env, stdout=out,
-                                stderr=subprocess.STDOUT, start_new_session=True)
-
-
-def wait_up(url: str, proc: subprocess.Popen, timeout: float = 60.0) -> None:
-    import httpx
-
-    deadline = time.monotonic() + timeout
-    while time.monotonic() < deadline:
-        if proc.poll() is not None:
-            raise SystemExit(f"server exited with {proc.returncode}")
-        try:
-            httpx.get(url, timeout=1.0)
-            return
-        except httpx.HTTPError:
-            time.sleep(0.1)
-    raise SystemExit(f"{url} did not answer")
-
-
-def stop(proc: subprocess.Popen) -> None:
-    if proc.poll() is None:
-        os.killpg(proc.pid, signal.SIGTERM)
-        try:
-            proc.wait(timeout=20)
-        except subprocess.TimeoutExpired:
-            os.killpg(proc.pid, signal.SIGKILL)
-            proc.wait()
 
 
 # ------------------------------------------------------------------------------ load
@@ -334,21 +301,20 @@ def main() -> int:
                        # The per-token rate limit (50/s by default) would answer most of the
                        # load with 429: this measures the assessment path, so it is off.
                        "PLUMBLINE_RATE_LIMIT_PER_SECOND": "0"}
-        svc = start(["-c", "from service.api.server import run; "
-                     f"run(host='127.0.0.1', port={svc_port}, workers=1)"],
-                    {"PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp / 'bench.db'}", **service_env},
-                    tmp / "service.log")
-        bare = start([str(Path(__file__).resolve()), "--bare-server", str(bare_port)], {},
-                     tmp / "bare.log")
-        memo = start([str(Path(__file__).resolve()), "--memoised-server", str(memo_port)],
-                     {"PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp / 'memo.db'}", **service_env},
-                     tmp / "memo.log")
+        svc = start_python(run_args(svc_port),
+                           {"PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp / 'bench.db'}",
+                            **service_env}, tmp / "service.log")
+        bare = start_python([str(Path(__file__).resolve()), "--bare-server", str(bare_port)],
+                            {}, tmp / "bare.log")
+        memo = start_python([str(Path(__file__).resolve()), "--memoised-server", str(memo_port)],
+                            {"PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp / 'memo.db'}",
+                             **service_env}, tmp / "memo.log")
         svc_url = f"http://127.0.0.1:{svc_port}/v1/assessments"
         memo_url = f"http://127.0.0.1:{memo_port}/v1/assessments"
         try:
-            wait_up(f"http://127.0.0.1:{svc_port}/healthz", svc)
-            wait_up(f"http://127.0.0.1:{bare_port}/docs", bare)
-            wait_up(f"http://127.0.0.1:{memo_port}/healthz", memo)
+            wait_until_answers(f"http://127.0.0.1:{svc_port}/healthz", svc, tmp / "service.log")
+            wait_until_answers(f"http://127.0.0.1:{bare_port}/docs", bare, tmp / "bare.log")
+            wait_until_answers(f"http://127.0.0.1:{memo_port}/healthz", memo, tmp / "memo.log")
             # Warm every server up (imports, first connections) before measuring.
             for url in (svc_url, memo_url, *(f"http://127.0.0.1:{bare_port}/{path}" for path
                                              in ("bare", "bare-orjson", "statsmodels"))):
@@ -380,6 +346,8 @@ def main() -> int:
             fleet_cpu = (cpu_seconds(svc.pid) - cpu0) / args.repeats
             verdict = response.json()["verdict"]
             stages = response.headers.get("server-timing", "")
+        except ServerDidNotStart as exc:
+            raise SystemExit(str(exc)) from None
         finally:
             stop(svc)
             stop(bare)
