@@ -1,0 +1,150 @@
+"""Vectorised number and timestamp arrays: per array, never a Python loop per value.
+
+A series' values are joined into one flat list whose element types are collected in one pass,
+converted by numpy in one call, and checked (non-finite values, magnitude, timestamp order) with
+array operations; only when something is wrong is the offending row searched for its position.
+"""
+
+from __future__ import annotations
+
+import warnings
+from collections.abc import Sequence
+from datetime import datetime
+from itertools import chain
+from typing import Any
+
+import numpy as np
+
+from .request import MAX_ABS_VALUE, MAX_ERRORS, Errors, NonFinite, describe
+
+_NUMBER_TYPES = frozenset({float, int, type(None)})
+
+
+def _locate_bad(row: Sequence[Any]) -> tuple[int, Any] | None:
+    for j, v in enumerate(row):
+        if type(v) not in _NUMBER_TYPES:
+            return j, v
+        if type(v) is int and abs(v) > 1.7e308:
+            return j, NonFinite(str(v))
+    return None
+
+
+def flat_numbers(
+    rows: Sequence[Sequence[Any]], locs: Sequence[str], errs: Errors
+) -> tuple[np.ndarray, np.ndarray] | None:
+    """Join ``rows`` into one float array (``None`` -> NaN); return it and the row lengths.
+
+    Reports a non-number (string, boolean, object, NaN literal, overflow) with its location.
+    """
+    lengths = np.fromiter(map(len, rows), dtype=np.int64, count=len(rows))
+    types = set(map(type, chain.from_iterable(rows)))
+    ok = types <= _NUMBER_TYPES
+    arr = None
+    if ok:
+        try:
+            if type(None) in types:  # None becomes NaN on the way through a list
+                arr = np.array(list(chain.from_iterable(rows)), dtype=float)
+            else:
+                arr = np.fromiter(chain.from_iterable(rows), dtype=float,
+                                  count=int(lengths.sum()))
+        except OverflowError:
+            ok = False
+    if not ok:
+        for row, loc in zip(rows, locs, strict=True):
+            bad = _locate_bad(row)
+            if bad is not None:
+                j, v = bad
+                if isinstance(v, NonFinite):
+                    errs.add(loc, f"value at index {j}: {v.describe()}")
+                else:
+                    errs.add(loc, f"value at index {j} must be a number or null, got "
+                             f"{describe(v)}")
+                if errs.full:
+                    break
+        return None
+    assert arr is not None
+    if arr.size and not np.isfinite(arr[~np.isnan(arr)]).all():
+        ends = np.cumsum(lengths)
+        for pos in np.flatnonzero(np.isinf(arr))[:MAX_ERRORS]:
+            i = int(np.searchsorted(ends, pos, side="right"))
+            j = int(pos - (ends[i] - lengths[i]))
+            errs.add(locs[i], f"value at index {j} overflows a 64-bit float")
+        return None
+    with np.errstate(invalid="ignore"):
+        huge = np.abs(arr) > MAX_ABS_VALUE
+    if huge.any():
+        ends = np.cumsum(lengths)
+        for pos in np.flatnonzero(huge)[:MAX_ERRORS]:
+            i = int(np.searchsorted(ends, pos, side="right"))
+            j = int(pos - (ends[i] - lengths[i]))
+            errs.add(locs[i], f"value at index {j} ({arr[pos]:g}) is beyond the accepted "
+                     f"magnitude of {MAX_ABS_VALUE:g}; rescale the series")
+        return None
+    return arr, lengths
+
+
+def padded_matrix(flat: np.ndarray, lengths: np.ndarray, width: int | None = None) -> np.ndarray:
+    """Right-pad the rows of ``flat`` with NaN into an ``(n, width)`` matrix."""
+    width = int(lengths.max(initial=0)) if width is None else width
+    out = np.full((lengths.shape[0], width), np.nan)
+    out[np.arange(width)[None, :] < lengths[:, None]] = flat
+    return out
+
+
+def check_timestamps(
+    rows: Sequence[Sequence[Any] | None], locs: Sequence[str], errs: Errors
+) -> None:
+    """Check ISO 8601 timestamps: strings, parseable, strictly increasing within each row."""
+    present = [(i, r) for i, r in enumerate(rows) if r is not None]
+    if not present:
+        return
+    flat = list(chain.from_iterable(r for _, r in present))
+    if set(map(type, flat)) - {str}:
+        for i, r in present:
+            for j, v in enumerate(r):
+                if not isinstance(v, str):
+                    errs.add(locs[i], f"value at index {j} must be an ISO 8601 string, got "
+                             f"{describe(v)}")
+                    break
+        return
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            stamps = np.array(flat, dtype="datetime64[us]").astype(np.int64)
+    except (ValueError, OverflowError):
+        for i, r in present:
+            for j, v in enumerate(r):
+                try:
+                    datetime.fromisoformat(v)
+                except ValueError:
+                    errs.add(locs[i], f"value at index {j} ({v[:40]!r}) is not an ISO 8601 "
+                             "date or date-time")
+                    break
+            if errs.full:
+                break
+        if not errs.items:  # numpy refused what Python accepts: say so plainly.
+            errs.add(locs[present[0][0]], "timestamps must be ISO 8601 dates or date-times")
+        return
+    lengths = np.array([len(r) for _, r in present], dtype=np.int64)
+    if stamps.size < 2:
+        return
+    starts = np.cumsum(lengths) - lengths
+    step_ok = np.diff(stamps) > 0
+    boundary = np.zeros(stamps.size - 1, dtype=bool)
+    inner = starts[1:] - 1
+    boundary[inner[(inner >= 0) & (inner < boundary.size)]] = True
+    bad = ~step_ok & ~boundary
+    if bad.any():
+        ends = np.cumsum(lengths)
+        reported: set[int] = set()
+        for pos in np.flatnonzero(bad):
+            k = int(np.searchsorted(ends, pos + 1, side="right"))
+            if k in reported:
+                continue
+            reported.add(k)
+            j = int(pos + 1 - starts[k])
+            i = present[k][0]
+            errs.add(locs[i], f"must be strictly increasing: index {j} "
+                     f"({present[k][1][j][:40]!r}) is not after index {j - 1}")
+            if errs.full:
+                break

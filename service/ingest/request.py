@@ -1,0 +1,129 @@
+"""The shared shapes of request parsing: limits, error types, the parsed request.
+
+:class:`RequestInvalid` (and its subclass :class:`RequestUnparseable`) carry every problem found
+with the field it concerns; :class:`Errors` collects them, as many as :data:`MAX_ERRORS` at a
+time, and raises once at a checkpoint. :class:`AssessmentRequest` is what both parsers return.
+:class:`NonFinite` marks a ``NaN``/``Infinity`` literal or an overflowing number in a decoded
+body, and :func:`describe` names a value's kind in an error message.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from service.core import SeriesBatch
+from service.core.batch import MAX_MAGNITUDE
+
+MAX_ERRORS = 50
+"""At most this many problems are reported for one request."""
+
+MAX_NAME_LENGTH = 200
+NUL_MESSAGE = "must not contain NUL characters"
+MAX_ABS_VALUE = MAX_MAGNITUDE
+"""Largest magnitude accepted for a number: the core's limit (sums over a long series must stay
+finite), checked here so the error names the field and the position."""
+
+
+class RequestInvalid(ValueError):
+    """The request is well-formed but its content is invalid.
+
+    ``errors`` is a list of ``{"loc": "series[3].fitted", "message": "..."}``.
+    """
+
+    def __init__(self, errors: Sequence[Mapping[str, str]], detail: str | None = None) -> None:
+        self.errors = [{"loc": str(e["loc"]), "message": str(e["message"])} for e in errors]
+        if detail is None:
+            first = self.errors[0] if self.errors else {"loc": "body", "message": "invalid"}
+            more = len(self.errors) - 1
+            detail = f"{first['loc']}: {first['message']}" + (
+                f" (and {more} more problem{'s' if more > 1 else ''})" if more > 0 else ""
+            )
+        self.detail = detail
+        super().__init__(detail)
+
+
+class RequestUnparseable(RequestInvalid):
+    """The body is not valid JSON (or CSV) at all."""
+
+
+@dataclass(frozen=True, eq=False)
+class AssessmentRequest:
+    """A parsed, validated assessment request.
+
+    ``policy`` is a stored policy's name or an inline policy document (a dict, validated by the
+    gate). ``timestamps`` and ``holdout_timestamps`` hold one list of ISO 8601 strings per series
+    (``None`` where a series has none). ``train_lengths`` / ``holdout_lengths`` are the lengths
+    of the arrays as sent and ``weights_given`` the weights as sent (``None``: the default), so
+    stored inputs can be given back exactly.
+    """
+
+    model: str
+    version: str
+    policy: str | dict[str, Any]
+    season_length: int
+    model_params: int
+    labels: dict[str, str]
+    ids: tuple[str, ...]
+    batch: SeriesBatch
+    timestamps: tuple[list[str] | None, ...]
+    holdout_timestamps: tuple[list[str] | None, ...]
+    train_lengths: np.ndarray
+    holdout_lengths: np.ndarray
+    weights_given: tuple[float | None, ...]
+
+    @property
+    def n_series(self) -> int:
+        return len(self.ids)
+
+
+class Errors:
+    """Collects problems; raises once at a checkpoint."""
+
+    def __init__(self) -> None:
+        self.items: list[dict[str, str]] = []
+
+    def add(self, loc: str, message: str) -> None:
+        if len(self.items) < MAX_ERRORS:
+            self.items.append({"loc": loc, "message": message})
+
+    @property
+    def full(self) -> bool:
+        return len(self.items) >= MAX_ERRORS
+
+    def check(self) -> None:
+        if self.items:
+            raise RequestInvalid(self.items)
+
+
+class NonFinite:
+    """Placeholder for a ``NaN``/``Infinity`` literal or an overflowing number in the body."""
+
+    __slots__ = ("text",)
+
+    def __init__(self, text: str) -> None:
+        self.text = text
+
+    def describe(self) -> str:
+        if self.text in ("NaN", "Infinity", "-Infinity"):
+            return f"{self.text} is not a JSON number: send null for a missing value"
+        return f"the number {self.text[:40]} overflows a 64-bit float"
+
+
+def describe(value: Any) -> str:
+    if isinstance(value, NonFinite):
+        return value.describe()
+    if value is None:
+        return "null"
+    if isinstance(value, bool):
+        return "a boolean"
+    if isinstance(value, str):
+        return "a string"
+    if isinstance(value, (list, tuple)):
+        return "an array"
+    if isinstance(value, dict):
+        return "an object"
+    return type(value).__name__
