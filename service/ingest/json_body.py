@@ -56,6 +56,17 @@ def _strict_float(text: str) -> float | NonFinite:
     return value if math.isfinite(value) else NonFinite(text)
 
 
+def _strict_int(text: str) -> int | float | NonFinite:
+    """An integer literal read as orjson reads it (the fast path): an integer within 64 bits,
+    a float beyond, a marker beyond a float's range. (Python itself refuses to convert
+    integers of more than 4,300 digits.)"""
+    if len(text) - text.startswith("-") <= 20:
+        value = int(text)
+        if -(2**63) <= value < 2**64:
+            return value
+    return _strict_float(text)
+
+
 def load_json(body: bytes | bytearray | memoryview | str) -> Any:
     """Decode JSON; ``NaN``/``Infinity`` literals and overflowing numbers become markers that
     validation reports with their field, anything else that is not JSON raises
@@ -74,7 +85,8 @@ def load_json(body: bytes | bytearray | memoryview | str) -> Any:
             [{"loc": "body", "message": f"not UTF-8 text: {exc.reason} at byte {exc.start}"}]
         ) from None
     try:
-        doc = json.loads(text, parse_constant=NonFinite, parse_float=_strict_float)
+        doc = json.loads(text, parse_constant=NonFinite, parse_float=_strict_float,
+                         parse_int=_strict_int)
     except (json.JSONDecodeError, RecursionError):
         raise RequestUnparseable(
             [{"loc": "body", "message": f"malformed JSON: {reason}"}]

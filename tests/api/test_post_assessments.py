@@ -208,6 +208,40 @@ def test_non_finite_literals_name_the_field(client, raw, loc, words):
     assert err["loc"] == loc and words in err["message"]
 
 
+_SERIES = b'"id":"a","actuals":[1,2,3,4],"fitted":[null,1,2,3]'
+
+
+@pytest.mark.parametrize("digits", [400, 5000])  # 5,000: beyond Python's int-conversion limit
+@pytest.mark.parametrize(("template", "loc"), [
+    (b'{"model":"m","version":"1","series":[{' + _SERIES + b',"weight":BIG}]}',
+     "series[0].weight"),
+    (b'{"model":"m","version":"1","series":[{' + _SERIES + b',"holdout":{"actuals":[1],'
+     b'"forecasts":[1],"lower":[0],"upper":[2],"level":BIG}}]}', "series[0].holdout.level"),
+    (b'{"model":"m","version":"1","season_length":BIG,"series":[{' + _SERIES + b'}]}',
+     "season_length"),
+    (b'{"model":"m","version":"1","labels":{"run":BIG},"series":[{' + _SERIES + b'}]}',
+     "labels.run"),
+    (b'{"model":"m","version":"1","policy":{"name":"p","checks":{"bias":{"fail_p":BIG}}},'
+     b'"series":[{' + _SERIES + b'}]}', "policy.checks.bias.fail_p"),
+    (b'{"model":"m","version":"1","series":[{"id":"a","actuals":[1,BIG,3,4],'
+     b'"fitted":[null,1,2,3]}]}', "series[0].actuals"),
+])
+def test_integers_too_large_for_a_float_name_the_field(client, template, loc, digits):
+    r = post_raw(client, template.replace(b"BIG", b"1" + b"0" * digits))
+    assert r.status_code == 422, r.text
+    assert r.headers["content-type"] == "application/problem+json"
+    assert r.json()["errors"][0]["loc"] == loc
+
+
+@pytest.mark.parametrize("digits", [400, 5000])
+def test_a_policy_with_an_integer_too_large_is_422(client, digits):
+    raw = b'{"name":"p","checks":{"ljung_box":{"lags":1' + b"0" * digits + b"}}}"
+    r = client.post("/v1/policies", content=raw,
+                    headers={**ADMIN, "Content-Type": "application/json"})
+    assert r.status_code == 422, r.text
+    assert r.json()["errors"][0]["loc"] == "checks.ljung_box.lags"
+
+
 @pytest.mark.parametrize(("doc", "loc"), [
     (envelope(one_series(fitted=[1.0, 2.0])), "series[0].fitted"),
     (envelope(one_series(), one_series()), "series[1].id"),
