@@ -16,7 +16,9 @@ router = APIRouter(tags=["health"])
 
 
 @router.get("/healthz", summary="Liveness: the process answers")
-def healthz() -> Response:
+async def healthz() -> Response:
+    # On the event loop: no thread-pool hop (a fifth of a millisecond), and no wait for a
+    # free thread when the pool is busy with database work.
     return json_response({"status": "ok"})
 
 
@@ -40,6 +42,6 @@ def readyz(request: Request) -> Response:
 
 @router.get("/metrics", summary="Prometheus text format",
             responses={200: {"content": {"text/plain": {}}}})
-def metrics(request: Request) -> Response:
-    m = request.app.state.metrics
+async def metrics(request: Request) -> Response:
+    m = request.app.state.metrics  # rendering is in-memory work: on the event loop too
     return Response(m.render(), media_type=m.content_type)
