@@ -16,6 +16,7 @@ from typing import Any
 import numpy as np
 import orjson
 from sqlalchemy import Engine
+from sqlalchemy.exc import SQLAlchemyError
 
 from service.core.gate import assess_many
 from service.core.policy import Policy
@@ -121,12 +122,13 @@ class Job:
     document: dict[str, Any] | None = None
 
 
-def resolve_policies(engine: Engine, jobs: list[Job]) -> list[ApiError | None]:
+def resolve_policies(engine: Engine, jobs: list[Job]) -> list[Exception | None]:
     """Resolve the policy of each job that has none yet; a name (``"default"``,
     ``"name@3"``) is looked up once for all the jobs that give it. Per job: the error when its
-    policy is unknown or invalid, else ``None``."""
-    found: dict[str, tuple[Policy, dict[str, Any]] | ApiError] = {}
-    errors: list[ApiError | None] = []
+    policy is unknown or invalid, or the database error that kept its name from being looked
+    up (a job with an inline policy needs no database), else ``None``."""
+    found: dict[str, tuple[Policy, dict[str, Any]] | Exception] = {}
+    errors: list[Exception | None] = []
     for job in jobs:
         spec = job.req.policy
         clock = time.perf_counter()
@@ -135,16 +137,17 @@ def resolve_policies(engine: Engine, jobs: list[Job]) -> list[ApiError | None]:
             continue
         try:
             if not isinstance(spec, str):
-                hit: tuple[Policy, dict[str, Any]] | ApiError = policy_lookup.resolve(engine, spec)
+                hit: tuple[Policy, dict[str, Any]] | Exception = policy_lookup.resolve(engine,
+                                                                                       spec)
             elif spec in found:
                 hit = found[spec]
             else:
                 hit = found[spec] = policy_lookup.resolve(engine, spec)
-        except ApiError as exc:
+        except (ApiError, SQLAlchemyError) as exc:
             hit = exc
             if isinstance(spec, str):
                 found[spec] = exc
-        if isinstance(hit, ApiError):
+        if isinstance(hit, Exception):
             errors.append(hit)
             continue
         job.policy, job.document = hit
@@ -160,9 +163,8 @@ def run_many(engine: Engine, jobs: list[Job]) -> list[Outcome | BaseException]:
     jobs that share a policy and shape run in one vectorised pass
     (:func:`service.core.gate.assess_many`); each job is still decided and answered on its own
     series alone. A job's own failure is returned in its place: an unknown policy, an
-    idempotency race it lost to a different body, a database error on its write (then it was
-    not written; jobs with ``store`` false keep their answers). An error looking a policy up
-    in the database is raised, for the whole list.
+    idempotency race it lost to a different body, a database error looking its policy up or
+    on its write (then it was not written; jobs with ``store`` false keep their answers).
     """
     outcomes: list[Outcome | BaseException | None] = list(resolve_policies(engine, jobs))
     ready = [i for i, o in enumerate(outcomes) if o is None]

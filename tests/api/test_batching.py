@@ -477,3 +477,74 @@ def test_database_failure_spares_the_submissions_that_store_nothing(database_url
             assert await listed_ids(client) == []
 
     run(scenario())
+
+
+# --- 7. CSV uploads and policy lookups inside a pass -----------------------------------------
+
+
+def as_csv(body: dict[str, Any]) -> bytes:
+    """The same series in the CSV long format (one row per series and period)."""
+    lines = ["series_id,actual,fitted"]
+    for s in body["series"]:
+        for a, f in zip(s["actuals"], s["fitted"], strict=True):
+            lines.append(f"{s['id']},{a!r},{'' if f is None else repr(f)}")
+    return ("\n".join(lines) + "\n").encode()
+
+
+async def post_csv(client: httpx.AsyncClient, body: dict[str, Any]) -> httpx.Response:
+    return await client.post(
+        "/v1/assessments", content=as_csv(body),
+        params={"model": body["model"], "version": body["version"]},
+        headers={**ADMIN, "Content-Type": "text/csv"})
+
+
+def test_a_csv_upload_in_a_pass_answers_as_alone(database_url, passes):
+    csv_body = submission("bakery-csv", seeds=(4401,), biases=(1.0,))
+    json_bodies = [submission(f"bakery{i}", seeds=(4410 + i,)) for i in range(4)]
+
+    async def scenario() -> None:
+        async with serving(database_url) as (app, client):
+            got_csv, *got_json = await asyncio.gather(
+                post_csv(client, csv_body), *(post(client, b) for b in json_bodies))
+            assert max(len(jobs) for jobs in passes_of(passes, app)) > 1
+            assert pass_holding(passes_of(passes, app), series_ids(csv_body))
+            assert [r.status_code for r in got_json] == [201] * 4
+        async with serving(database_url) as (_app, client):
+            lone = await post_csv(client, csv_body)
+        assert got_csv.status_code == lone.status_code == 201, got_csv.text
+        assert batch_size_header(got_csv) is not None and batch_size_header(lone) is None
+        drop = ("id", "created_at", "labels")  # the CSV upload carries no labels
+        assert ({k: v for k, v in got_csv.json().items() if k not in drop}
+                == {k: v for k, v in lone.json().items() if k not in drop})
+        assert_matches_outside_references(csv_body, got_csv.json())
+
+    run(scenario())
+
+
+def test_a_failed_policy_lookup_spares_inline_policies(database_url, passes):
+    # The database fails when a policy is looked up by name; a submission with its policy
+    # inline needs no lookup and, with store=false, no database at all: it is answered.
+    named = [submission(f"depot{i}", seeds=(4500 + i,)) for i in range(3)]
+    inline = [submission(f"yard{i}", seeds=(4510 + i,),
+                         policy={"name": "yard-rules", "checks": {"ljung_box": {"lags": 8}}})
+              for i in range(3)]
+
+    def database_down(*_a: Any, **_k: Any) -> Any:
+        raise sqlalchemy.exc.OperationalError("x", {}, Exception("down"))
+
+    async def scenario() -> None:
+        async with serving(database_url) as (app, client):
+            with pytest.MonkeyPatch.context() as mp:
+                mp.setattr(repo, "latest_policy_document", database_down)
+                responses = await asyncio.gather(
+                    *(post(client, b, store=False) for b in [*named, *inline]))
+            assert max(len(jobs) for jobs in passes_of(passes, app)) > 1
+            for r in responses[:3]:
+                assert r.status_code == 503, r.text
+                assert r.headers["content-type"] == PROBLEM_JSON
+            for r in responses[3:]:
+                assert r.status_code == 200, r.text
+                assert r.json()["policy"]["name"] == "yard-rules"
+                assert check(r.json()["series"][0], "ljung_box")["details"]["lags"] == 8
+
+    run(scenario())
