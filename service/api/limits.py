@@ -279,7 +279,9 @@ class LimitsMiddleware:
             try:
                 if remaining <= 0:
                     raise TimeoutError
-                message = await asyncio.wait_for(receive(), timeout=remaining)
+                # A timeout scope, not wait_for: no task is made per chunk.
+                async with asyncio.timeout(remaining):
+                    message = await receive()
             except TimeoutError:
                 await problem_response(
                     send,
