@@ -133,11 +133,13 @@ async def post_assessment(request: Request) -> Response:
     state = request.app.state
     body = await read_body(request, state.settings.max_body_bytes)
     params = {k: v for k, v in request.query_params.items() if k != "store"}
-    digest = assessing.body_hash(kind, params if kind == "csv" else {}, body)
+    # The fingerprint matters only to an Idempotency-Key (its replay and its stored row).
+    digest = (assessing.body_hash(kind, params if kind == "csv" else {}, body)
+              if key is not None and store else None)
 
     def replayed() -> assessing.Outcome | None:
-        if key is not None and store:
-            return assessing.replay(state.engine, key, digest)
+        if digest is not None:
+            return assessing.replay(state.engine, key, digest)  # type: ignore[arg-type]
         return None
 
     def job() -> assessing.Job:
