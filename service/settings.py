@@ -25,6 +25,11 @@ class Settings(BaseSettings):
     admin_token: SecretStr | None = Field(
         default=None, description="A bearer token that holds every scope (containers, CI)."
     )
+    token_cache_seconds: float = Field(
+        default=2.0, ge=0, le=300,
+        description="How long a worker remembers a verified stored token; 0: look up every "
+        "request (revocation then takes effect at once on every worker).",
+    )
     max_body_bytes: int = Field(default=64 * MIB, ge=1, description="Largest request body.")
     max_series: int = Field(default=100_000, ge=1, description="Most series in one assessment.")
     max_series_length: int = Field(

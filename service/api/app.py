@@ -11,7 +11,7 @@ from service.settings import Settings
 from service.store import make_engine
 from service.store.migrate import upgrade_engine
 
-from .auth import announce_first_token, ensure_first_token
+from .auth import TokenCache, announce_first_token, ensure_first_token
 from .batching import SubmissionBatcher
 from .errors import install_error_handlers
 from .metrics import Metrics, MetricsMiddleware
@@ -52,6 +52,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     app.state.engine = engine
     app.state.metrics = Metrics()
     app.state.batcher = SubmissionBatcher(engine, app.state.metrics)
+    app.state.token_cache = TokenCache(settings.token_cache_seconds)
     install_error_handlers(app)
     for module in (assessments, reports, models, checks, policies, tokens, health):
         app.include_router(module.router)

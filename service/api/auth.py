@@ -3,11 +3,19 @@
 ``submit`` may post assessments, ``read`` may GET under /v1, ``admin`` may do everything
 (tokens, policies, and what the other two may). Tokens are kept as SHA-256 hashes only;
 ``PLUMBLINE_ADMIN_TOKEN`` is compared in constant time and holds every scope.
+
+A stored token, once verified, is remembered by the worker for ``token_cache_seconds``
+(:class:`TokenCache`), so that a pipeline posting many small assessments does not pay a
+database lookup (and a thread hop) on each. Revoking through the API forgets it at once on the
+worker that revoked it; other workers, and revocations made on the database directly, take
+effect within that time. ``0`` looks every request up.
 """
 
 from __future__ import annotations
 
 import hmac
+import threading
+import time
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -31,6 +39,57 @@ class Principal:
 
     def allows(self, scope: str) -> bool:
         return "admin" in self.scopes or scope in self.scopes
+
+
+class TokenCache:
+    """Stored tokens this worker verified lately: SHA-256 of the secret -> principal, each for
+    ``seconds`` after its lookup. Holds at most ``max_entries`` (then starts afresh); never
+    remembers a failed lookup."""
+
+    def __init__(self, seconds: float, max_entries: int = 4096,
+                 clock: Callable[[], float] = time.monotonic) -> None:
+        self.seconds = float(seconds)
+        self.max_entries = max_entries
+        self._clock = clock
+        self._entries: dict[str, tuple[float, Principal]] = {}
+        # Token ids revoked here lately: a lookup that began before the revocation must not
+        # put the token back.
+        self._revoked: dict[str, float] = {}
+        self._lock = threading.Lock()  # revocations run in the thread pool
+
+    def get(self, token: str) -> Principal | None:
+        if self.seconds <= 0:
+            return None
+        key = repo.hash_token(token)
+        found = self._entries.get(key)
+        if found is None:
+            return None
+        if self._clock() >= found[0]:
+            with self._lock:
+                self._entries.pop(key, None)
+            return None
+        return found[1]
+
+    def put(self, token: str, principal: Principal) -> None:
+        if self.seconds <= 0:
+            return
+        key = repo.hash_token(token)
+        now = self._clock()
+        with self._lock:
+            if self._revoked.get(principal.token_id, now) > now:
+                return
+            if len(self._entries) >= self.max_entries:
+                self._entries.clear()
+            self._entries[key] = (now + self.seconds, principal)
+
+    def forget(self, token_id: str) -> None:
+        """Drop the token with this id (it was just revoked here)."""
+        now = self._clock()
+        with self._lock:
+            for key in [k for k, (_, p) in self._entries.items() if p.token_id == token_id]:
+                del self._entries[key]
+            self._revoked = {t: until for t, until in self._revoked.items() if until > now}
+            self._revoked[token_id] = now + self.seconds
 
 
 def _bearer(request: Request) -> str:
@@ -64,7 +123,13 @@ def _stored(request: Request, token: str) -> Principal:
 async def authorize(request: Request, scope: str) -> Principal:
     """The request's principal if its token holds ``scope`` (401/403 otherwise)."""
     token = _bearer(request)
-    principal = _env_admin(request, token) or await run_in_threadpool(_stored, request, token)
+    principal = _env_admin(request, token)
+    if principal is None:
+        cache: TokenCache = request.app.state.token_cache
+        principal = cache.get(token)
+        if principal is None:
+            principal = await run_in_threadpool(_stored, request, token)
+            cache.put(token, principal)
     if not principal.allows(scope):
         raise ApiError(403, f"this token lacks the {scope!r} scope (it holds: "
                        f"{', '.join(sorted(principal.scopes))})")

@@ -26,7 +26,10 @@ def app(db_url):
     from service.api.app import create_app
     from service.settings import Settings
 
-    return create_app(Settings(database_url=db_url, admin_token=ADMIN))
+    # Tokens revoked by the CLI straight on the database must be refused at once here, so the
+    # app looks every token up (token_cache_seconds=0); the default, a worker remembering a
+    # verified token for 2 s, is tested in tests/api/test_token_cache.py.
+    return create_app(Settings(database_url=db_url, admin_token=ADMIN, token_cache_seconds=0))
 
 
 @pytest.fixture

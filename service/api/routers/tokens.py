@@ -54,4 +54,5 @@ def revoke_token(
 ) -> Response:
     if not repo.revoke_token(request.app.state.engine, token_id=token_id):
         raise ApiError(404, f"no live token with id {token_id!r}")
+    request.app.state.token_cache.forget(token_id)
     return Response(status_code=204)
