@@ -8,6 +8,10 @@ from sqlalchemy import Engine, create_engine, event
 from sqlalchemy.engine import make_url
 
 SQLITE_BUSY_TIMEOUT_MS = 10_000
+POSTGRES_CONNECT_TIMEOUT_SECONDS = 5
+"""How long a new PostgreSQL connection may take (libpq's ``connect_timeout``): without it a
+server whose packets are dropped holds a connection attempt for the operating system's TCP
+timeout, minutes, and with it the worker. A ``connect_timeout`` in the URL wins."""
 
 
 def _sqlite_pragmas(dbapi_connection: Any, _record: Any) -> None:
@@ -24,7 +28,8 @@ def _sqlite_pragmas(dbapi_connection: Any, _record: Any) -> None:
 
 
 def make_engine(url: str, **kwargs: Any) -> Engine:
-    """An engine for ``url``: SQLite (WAL mode, busy timeout, foreign keys on) or PostgreSQL.
+    """An engine for ``url``: SQLite (WAL mode, busy timeout, foreign keys on) or PostgreSQL
+    (connections checked before use, a connect timeout).
 
     A plain ``postgresql://`` URL is given the psycopg 3 driver.
     """
@@ -42,6 +47,9 @@ def make_engine(url: str, **kwargs: Any) -> Engine:
         if parsed.get_driver_name() in ("", "psycopg2", "postgresql"):
             parsed = parsed.set(drivername="postgresql+psycopg")
         kwargs.setdefault("pool_pre_ping", True)
-        return create_engine(parsed, **kwargs)
+        connect_args = dict(kwargs.pop("connect_args", {}))
+        if "connect_timeout" not in parsed.query:
+            connect_args.setdefault("connect_timeout", POSTGRES_CONNECT_TIMEOUT_SECONDS)
+        return create_engine(parsed, connect_args=connect_args, **kwargs)
     raise ValueError(f"unsupported database URL scheme {parsed.drivername!r}: use sqlite:/// or "
                      "postgresql+psycopg://")

@@ -42,6 +42,48 @@ def test_plain_postgresql_url_gets_psycopg3():
     engine.dispose()
 
 
+def test_postgresql_connections_give_up_on_a_silent_server(monkeypatch):
+    # A server that accepts the TCP connection and never answers (as one behind a network
+    # that drops its replies would): the attempt ends after the connect timeout instead of
+    # holding the worker for the operating system's TCP timeout.
+    import socket
+    import threading
+
+    from sqlalchemy.exc import OperationalError
+
+    from service.store import engine as engine_module
+
+    monkeypatch.setattr(engine_module, "POSTGRES_CONNECT_TIMEOUT_SECONDS", 1)
+    silent = socket.socket()
+    silent.bind(("127.0.0.1", 0))
+    silent.listen(4)
+    port = silent.getsockname()[1]
+    engine = make_engine(f"postgresql://u@127.0.0.1:{port}/db")
+    outcome: list[BaseException] = []
+
+    def connect() -> None:
+        try:
+            engine.connect().close()
+        except BaseException as exc:
+            outcome.append(exc)
+
+    worker = threading.Thread(target=connect, daemon=True)
+    worker.start()
+    worker.join(60)  # a guard against a hang, not a speed check
+    silent.close()
+    engine.dispose()
+    assert not worker.is_alive(), "the connection attempt did not give up"
+    assert len(outcome) == 1 and isinstance(outcome[0], OperationalError)
+    assert "timeout" in str(outcome[0]).lower()
+
+
+def test_a_connect_timeout_in_the_url_wins():
+    engine = make_engine("postgresql://u@127.0.0.1:1/db?connect_timeout=17")
+    _, params = engine.dialect.create_connect_args(engine.url)
+    assert str(params.get("connect_timeout")) == "17"
+    engine.dispose()
+
+
 def test_unsupported_url_is_refused():
     with pytest.raises(ValueError, match="unsupported"):
         make_engine("mysql://u@127.0.0.1/db")
