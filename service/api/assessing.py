@@ -18,7 +18,7 @@ import orjson
 from sqlalchemy import Engine
 from sqlalchemy.exc import SQLAlchemyError
 
-from service.core.gate import assess_many
+from service.core.gate import assess_many_dicts
 from service.core.policy import Policy
 from service.ingest import AssessmentRequest, parse_csv_request, parse_json_request
 from service.settings import Settings
@@ -161,7 +161,7 @@ def run_many(engine: Engine, jobs: list[Job]) -> list[Outcome | BaseException]:
 
     Policies not yet resolved are resolved first (:func:`resolve_policies`). The checks of
     jobs that share a policy and shape run in one vectorised pass
-    (:func:`service.core.gate.assess_many`); each job is still decided and answered on its own
+    (:func:`service.core.gate.assess_many_dicts`); each job is still decided and answered on its own
     series alone. A job's own failure is returned in its place: an unknown policy, an
     idempotency race it lost to a different body, a database error looking its policy up or
     on its write (then it was not written; jobs with ``store`` false keep their answers).
@@ -169,14 +169,14 @@ def run_many(engine: Engine, jobs: list[Job]) -> list[Outcome | BaseException]:
     outcomes: list[Outcome | BaseException | None] = list(resolve_policies(engine, jobs))
     ready = [i for i, o in enumerate(outcomes) if o is None]
     clock = time.perf_counter()
-    assessments = assess_many([(jobs[i].req.batch, jobs[i].policy) for i in ready])  # type: ignore[misc]
+    results = assess_many_dicts([(jobs[i].req.batch, jobs[i].policy) for i in ready])  # type: ignore[misc]
     shared = time.perf_counter() - clock
     records: list[tuple[int, repo.NewAssessment]] = []
-    for i, assessment in zip(ready, assessments, strict=True):
+    for i, result in zip(ready, results, strict=True):
         job = jobs[i]
         job.timings["assess"] = shared
         clock = time.perf_counter()
-        outcomes[i], record = _answer(job, assessment.to_dict())
+        outcomes[i], record = _answer(job, result)
         job.timings["encode"] = time.perf_counter() - clock
         if record is not None:
             records.append((i, record))

@@ -18,7 +18,7 @@ A verdict is statistical evidence under the stated assumptions, not a guarantee.
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -139,9 +139,10 @@ def _weights(batch: SeriesBatch, policy: Policy) -> np.ndarray:
     return np.where(np.isnan(a), 0.0, np.abs(a)).sum(axis=1)
 
 
-def _codes(results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjust: bool
-           ) -> tuple[np.ndarray, np.ndarray]:
-    """Status codes and BH-adjusted p-values, one row per check in ``names`` (in that order).
+def _codes(results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjust: bool,
+           part_size: int) -> tuple[np.ndarray, np.ndarray]:
+    """Status codes and BH-adjusted p-values, one row per check in ``names`` (in that order),
+    the adjustment made within each run of ``part_size`` series (one part's).
 
     Tests: the (adjusted, where the policy says so) p-value against ``warn_p``/``fail_p``;
     metrics: the statistic against their bounds. Skipped series get ``SKIPPED``; the adjusted
@@ -159,7 +160,13 @@ def _codes(results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjus
                        for cp, t in zip(cps, is_test, strict=True)], dtype=float).reshape(-1, 4)
     # Metric rows enter the adjustment as all missing, so their adjusted p-values are NaN.
     not_test = ~np.array(is_test, dtype=bool)[:, None]
-    p_adj = benjamini_hochberg_rows(np.where(skipped | not_test, np.nan, values))
+    p_in = np.where(skipped | not_test, np.nan, values)
+    if part_size == shape[1]:
+        p_adj = benjamini_hochberg_rows(p_in)
+    elif part_size == 1:
+        p_adj = p_in  # one p-value adjusted on its own is itself
+    else:
+        p_adj = benjamini_hochberg_rows(p_in.reshape(-1, part_size)).reshape(shape)
     use_adj = np.array([adjust and t and cp.adjust for cp, t in zip(cps, is_test, strict=True)],
                        dtype=bool)[:, None]
     v = np.where(use_adj, p_adj, values)
@@ -176,12 +183,12 @@ def _codes(results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjus
 
 
 def _shares(weights: np.ndarray, hit: np.ndarray, tested: np.ndarray) -> np.ndarray:
-    """Per row (check): the weighted share of the tested series that are ``hit``; by count
-    when the tested series weigh nothing, 0 when none was tested."""
-    total = np.where(tested, weights, 0.0).sum(axis=1)
-    hit_weight = np.where(hit & tested, weights, 0.0).sum(axis=1)
-    n = tested.sum(axis=1)
-    n_hit = (hit & tested).sum(axis=1)
+    """Per check (and part): the weighted share of the tested series that are ``hit``, over
+    the last axis; by count when the tested series weigh nothing, 0 when none was tested."""
+    total = np.where(tested, weights, 0.0).sum(axis=-1)
+    hit_weight = np.where(hit & tested, weights, 0.0).sum(axis=-1)
+    n = tested.sum(axis=-1)
+    n_hit = (hit & tested).sum(axis=-1)
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(total > 0, hit_weight / total,
                         np.where(n > 0, n_hit / np.maximum(n, 1), 0.0))
@@ -244,26 +251,64 @@ def assess_many(items: Sequence[tuple[SeriesBatch, Policy]]) -> list[Assessment]
     the decision (adjustment across series, shares, reasons) is still made per batch, on its
     own series. This is how the service answers many small concurrent submissions at once.
     """
-    if len(items) == 1:
-        return [assess(*items[0])]
+    out: list[Assessment | None] = [None] * len(items)
+    for members, decided in _decided_groups(items):
+        for i, assessment in zip(members, decided.assessments, strict=True):
+            out[i] = assessment
+    return out  # type: ignore[return-value]
+
+
+def assess_many_dicts(items: Sequence[tuple[SeriesBatch, Policy]]) -> list[dict[str, Any]]:
+    """``[assess(batch, policy).to_dict() for batch, policy in items]``, as
+    :func:`assess_many` groups them, with each group's series rows built at once."""
+    out: list[dict[str, Any] | None] = [None] * len(items)
+    for members, decided in _decided_groups(items):
+        for i, doc in zip(members, _rendered(decided), strict=True):
+            out[i] = doc
+    return out  # type: ignore[return-value]
+
+
+def _decided_groups(items: Sequence[tuple[SeriesBatch, Policy]]
+                    ) -> Iterator[tuple[list[int], _Decided]]:
+    """The groups of :func:`assess_many`: the positions in ``items`` of each and its decision."""
     groups: dict[tuple[object, ...], list[int]] = {}
     for i, (batch, policy) in enumerate(items):
-        groups.setdefault((id(policy), *stack_key(batch)), []).append(i)
-    out: list[Assessment | None] = [None] * len(items)
+        key = (id(policy), *stack_key(batch)) if len(items) > 1 else ()
+        groups.setdefault(key, []).append(i)
     for members in groups.values():
         policy = items[members[0]][1]
         parts = [items[i][0] for i in members]
         cps_all, enabled, options = _plan(policy)
         checked = run_checks(stack_batches(parts), options, only=enabled)
-        for i, results in zip(members, checked.split(parts), strict=True):
-            out[i] = _decide(results, policy, cps_all)
-    return out  # type: ignore[return-value]
+        yield members, _decide_parts(checked, parts, policy, cps_all)
 
 
 def _decide(results: BatchChecks, policy: Policy, cps_all: Mapping[str, CheckPolicy]
             ) -> Assessment:
     """Steps 2 to 5 of the module docstring over checks already run."""
-    batch = results.batch
+    return _decide_parts(results, [results.batch], policy, cps_all).assessments[0]
+
+
+@dataclass(frozen=True, eq=False)
+class _Decided:
+    """The assessments of stacked parts, and the stacked tables their results are read from."""
+
+    assessments: list[Assessment]
+    checks: BatchChecks
+    status_codes: Mapping[str, np.ndarray]
+    p_adjusted: Mapping[str, np.ndarray]
+    weights: np.ndarray
+
+
+def _decide_parts(stacked: BatchChecks, parts: Sequence[SeriesBatch], policy: Policy,
+                  cps_all: Mapping[str, CheckPolicy]) -> _Decided:
+    """:func:`_decide` for each of ``parts`` (batches of one size, stacked in ``stacked``),
+    vectorised over the parts: every per-series quantity is computed once over the stacked
+    rows and every per-part reduction runs along the last axis of a (check, part, series)
+    array, so each part gets the numbers it would get alone."""
+    batch = stacked.batch
+    n_parts = len(parts)
+    size = batch.n_series // n_parts if n_parts else 0
     weights = _weights(batch, policy)
     adjust = policy.fleet.adjustment == "bh"
     if policy.fleet.critical_series:
@@ -272,92 +317,109 @@ def _decide(results: BatchChecks, policy: Policy, cps_all: Mapping[str, CheckPol
         critical = np.zeros(batch.n_series, dtype=bool)
 
     fleet = policy.fleet
-    names = [name for name in CHECK_NAMES if name in results.checks]
+    names = [name for name in CHECK_NAMES if name in stacked.checks]
     cps = [cps_all[name] for name in names]
-    n_series = batch.n_series
-    summaries: list[CheckSummary] = []
-    fleet_reasons: list[tuple[int, Reason]] = []
-    series_reasons: list[tuple[int, float, int, Reason]] = []
-    ids = batch.ids
     if names:
-        matrix, p_matrix = _codes(results, names, cps, adjust)
+        matrix, p_matrix = _codes(stacked, names, cps, adjust, size)
     else:
-        matrix = np.zeros((0, n_series), dtype=int)
-        p_matrix = np.zeros((0, n_series))
-    tested = matrix != SKIPPED
-    failed, warned = matrix == FAIL, matrix == WARN
-    failed_share = _shares(weights, failed, tested)
-    warned_share = _shares(weights, warned, tested)
+        matrix = np.zeros((0, batch.n_series), dtype=int)
+        p_matrix = np.zeros((0, batch.n_series))
+    # (check, part, series within the part): reductions over the last axis are per part.
+    cube = matrix.reshape(len(names), n_parts, size)
+    w_parts = weights.reshape(n_parts, size)
+    tested = cube != SKIPPED
+    failed, warned = cube == FAIL, cube == WARN
+    failed_share = _shares(w_parts, failed, tested)
+    warned_share = _shares(w_parts, warned, tested)
     fail_share = np.array([fleet.fail_share if cp.fail_share is None else cp.fail_share
-                           for cp in cps], dtype=float)
+                           for cp in cps], dtype=float)[:, None]
     warn_share = np.array([fleet.warn_share if cp.warn_share is None else cp.warn_share
-                           for cp in cps], dtype=float)
-    crit_warned = (critical & warned).any(axis=1)
-    crit_failed = (critical & failed).any(axis=1)
-    status = np.where(tested.any(axis=1), PASS, SKIPPED)
+                           for cp in cps], dtype=float)[:, None]
+    crit_parts = critical.reshape(n_parts, size)
+    crit_warned = (crit_parts & warned).any(axis=-1)
+    crit_failed = (crit_parts & failed).any(axis=-1)
+    status = np.where(tested.any(axis=-1), PASS, SKIPPED)
     status = np.where((failed_share + warned_share > warn_share) | crit_warned, WARN, status)
     status = np.where((failed_share > fail_share) | crit_failed, FAIL, status)
-    counts = zip(status.tolist(), tested.sum(axis=1).tolist(), failed.sum(axis=1).tolist(),
-                 warned.sum(axis=1).tolist(), failed_share.tolist(), warned_share.tolist(),
-                 fail_share.tolist(), warn_share.tolist(), (crit_warned | crit_failed).tolist(),
-                 strict=True)
-    for name, (st, n_tested, n_failed, n_warned, f_share, w_share, f_limit, w_limit,
-               crit) in zip(names, counts, strict=True):
-        summary = CheckSummary(
-            name=name, status=_STATUS_ENUM[st],
-            series_tested=n_tested, series_failed=n_failed,
-            series_warned=n_warned, series_skipped=n_series - n_tested,
-            failed_share=f_share, warned_share=w_share,
-            message=fleet_message(name, st, n_failed, n_warned, n_tested, f_share, w_share,
-                                  f_limit, w_limit, crit),
-        )
-        summaries.append(summary)
-        if st >= WARN:
-            fleet_reasons.append((st, Reason(name, summary.status, None, summary.message)))
-    rows, cols = np.nonzero(matrix >= WARN)
-    for j, i in zip(rows.tolist(), cols.tolist(), strict=True):
-        c = int(matrix[j, i])
-        name = names[j]
-        reason = Reason(name, _STATUS_ENUM[c], ids[i],
-                        series_message(name, i, c, results[name], p_matrix[j]))
-        series_reasons.append((c, -float(weights[i]), i, reason))
-    codes = dict(zip(names, matrix, strict=True))
-    p_adjusted = dict(zip(names, p_matrix, strict=True))
+    # Per part (columns), per check (rows): plain Python values, converted once.
+    columns = [a.T.tolist() for a in (
+        status, tested.sum(axis=-1), failed.sum(axis=-1), warned.sum(axis=-1), failed_share,
+        warned_share, np.broadcast_to(fail_share, status.shape),
+        np.broadcast_to(warn_share, status.shape), crit_warned | crit_failed)]
+    # Series reasons of every part at once: (check, part, series) of each warn or fail.
+    hits: list[list[tuple[int, int, int]]] = [[] for _ in range(n_parts)]
+    for j, g, i in zip(*(ix.tolist() for ix in np.nonzero(cube >= WARN)), strict=True):
+        hits[g].append((j, i, int(cube[j, g, i])))
+    series_codes_all = (matrix.max(axis=0) if names
+                        else np.zeros(batch.n_series, dtype=int))
+    split = stacked.split(parts) if n_parts > 1 else [stacked]
+    out = []
+    for g, (part, results) in enumerate(zip(parts, split, strict=True)):
+        rows = slice(g * size, (g + 1) * size)
+        part_weights = weights[rows]
+        summaries: list[CheckSummary] = []
+        fleet_reasons: list[tuple[int, Reason]] = []
+        series_reasons: list[tuple[int, float, int, Reason]] = []
+        for name, (st, n_tested, n_failed, n_warned, f_share, w_share, f_limit, w_limit,
+                   crit) in zip(names, zip(*(col[g] for col in columns), strict=True),
+                                strict=True):
+            summary = CheckSummary(
+                name=name, status=_STATUS_ENUM[st],
+                series_tested=n_tested, series_failed=n_failed,
+                series_warned=n_warned, series_skipped=size - n_tested,
+                failed_share=f_share, warned_share=w_share,
+                message=fleet_message(name, st, n_failed, n_warned, n_tested, f_share,
+                                      w_share, f_limit, w_limit, crit),
+            )
+            summaries.append(summary)
+            if st >= WARN:
+                fleet_reasons.append((st, Reason(name, summary.status, None, summary.message)))
+        for j, i, c in hits[g]:
+            name = names[j]
+            reason = Reason(name, _STATUS_ENUM[c], part.ids[i],
+                            series_message(name, rows.start + i, c, stacked[name],
+                                           p_matrix[j]))
+            series_reasons.append((c, -float(part_weights[i]), i, reason))
+        codes = dict(zip(names, matrix[:, rows], strict=True))
+        p_adjusted = dict(zip(names, p_matrix[:, rows], strict=True))
+        # Codes order as severities: fail > warn > pass > skipped.
+        fleet_code = max(int(status[:, g].max(initial=PASS)), PASS)
+        bias_summary = _fleet_bias(results, part_weights)
+        bias_p = policy.fleet.bias_warn_p
+        if (bias_p is not None and np.isfinite(bias_summary.p_value)
+                and bias_summary.p_value < bias_p):
+            fleet_code = max(fleet_code, WARN)
+            fleet_reasons.append((WARN, Reason("bias", Status.WARN, None,
+                                               _fleet_bias_message(bias_summary))))
+        fleet_reasons.sort(key=lambda r: -r[0])
+        series_reasons.sort(key=lambda r: (-r[0], r[1], r[2]))
+        ordered: list[Reason] = []
+        for severity in (FAIL, WARN):
+            ordered += [r for s, r in fleet_reasons if s == severity]
+            ordered += [r[3] for r in series_reasons if r[0] == severity]
+        out.append(Assessment(
+            verdict=Status(_STATUS[fleet_code]),
+            policy=policy,
+            results=results,
+            weights=part_weights,
+            status_codes=codes,
+            p_adjusted=p_adjusted,
+            series_codes=series_codes_all[rows],
+            summaries=tuple(summaries),
+            reasons=tuple(ordered),
+            fleet_bias=bias_summary,
+        ))
+    return _Decided(out, stacked, dict(zip(names, matrix, strict=True)),
+                    dict(zip(names, p_matrix, strict=True)), weights)
 
-    series_codes = matrix.max(axis=0) if names else np.zeros(n_series, dtype=int)
-    # Codes order as severities: fail > warn > pass > skipped.
-    fleet_code = max(int(status.max(initial=PASS)), PASS)
-    bias_summary = _fleet_bias(results, weights)
-    bias_p = policy.fleet.bias_warn_p
-    if bias_p is not None and np.isfinite(bias_summary.p_value) and bias_summary.p_value < bias_p:
-        fleet_code = max(fleet_code, WARN)
-        direction = "low" if bias_summary.mean_error > 0 else "high"
-        fleet_reasons.append((WARN, Reason(
-            "bias", Status.WARN, None,
-            f"Across the fleet the forecasts run {direction}: the weighted mean error is "
-            f"{bias_summary.mean_error:+.3g} ({bias_summary.percent_bias:+.2f}% of volume; "
-            f"z = {bias_summary.statistic:.2f}, p = {bias_summary.p_value:.2g}, series taken as "
-            "independent). No single series need be significant for this to matter in "
-            "aggregate: check for a shared level shift or a biased transformation.",
-        )))
-    fleet_reasons.sort(key=lambda r: -r[0])
-    series_reasons.sort(key=lambda r: (-r[0], r[1], r[2]))
-    ordered: list[Reason] = []
-    for severity in (FAIL, WARN):
-        ordered += [r for s, r in fleet_reasons if s == severity]
-        ordered += [r[3] for r in series_reasons if r[0] == severity]
-    return Assessment(
-        verdict=Status(_STATUS[fleet_code]),
-        policy=policy,
-        results=results,
-        weights=weights,
-        status_codes=codes,
-        p_adjusted=p_adjusted,
-        series_codes=series_codes,
-        summaries=tuple(summaries),
-        reasons=tuple(ordered),
-        fleet_bias=bias_summary,
-    )
+
+def _fleet_bias_message(b: FleetBias) -> str:
+    direction = "low" if b.mean_error > 0 else "high"
+    return (f"Across the fleet the forecasts run {direction}: the weighted mean error is "
+            f"{b.mean_error:+.3g} ({b.percent_bias:+.2f}% of volume; z = {b.statistic:.2f}, "
+            f"p = {b.p_value:.2g}, series taken as independent). No single series need be "
+            "significant for this to matter in aggregate: check for a shared level shift or a "
+            "biased transformation.")
 
 
 # ------------------------------------------------------------------------------ serialisation
@@ -371,17 +433,25 @@ def _columns(arrays: list[np.ndarray]) -> list[list[Any]]:
 
 
 def _to_dict(a: Assessment) -> dict[str, Any]:
-    results = a.results
+    return _rendered(_Decided([a], a.results, a.status_codes, a.p_adjusted, a.weights))[0]
+
+
+def _rendered(d: _Decided) -> list[dict[str, Any]]:
+    """The JSON-ready result of each assessment in ``d``, their series rows built at once over
+    the stacked tables (column by column: per check, the list of its per-series entries; a
+    series' entries are the i-th of each list)."""
+    results = d.checks
     n = results.batch.n_series
+    size = n // len(d.assessments) if d.assessments else 0
     # Every float column of every check converted in one go, the others one by one.
     float_keys: list[tuple[str, str]] = []
     float_arrays: list[np.ndarray] = []
     columns: dict[str, dict[str, Sequence[Any]]] = {}
     for name, res in results.checks.items():
-        col: dict[str, Sequence[Any]] = {"status": _STATUS[a.status_codes[name]].tolist(),
+        col: dict[str, Sequence[Any]] = {"status": _STATUS[d.status_codes[name]].tolist(),
                                          "skip": res.skip_reason.tolist()}
         for key, values in (("statistic", res.statistic), ("p_value", res.p_value),
-                            ("p_adjusted", a.p_adjusted[name]),
+                            ("p_adjusted", d.p_adjusted[name]),
                             *((f"d:{k}", v) for k, v in res.details.items())):
             if values.dtype.kind == "f":
                 float_keys.append((name, key))
@@ -389,18 +459,19 @@ def _to_dict(a: Assessment) -> dict[str, Any]:
             else:
                 col[key] = values.tolist()
         columns[name] = col
-    float_arrays.append(a.weights)
+    float_arrays.append(d.weights)
     converted = _columns(float_arrays)
     weights = converted.pop()
     for (name, key), values in zip(float_keys, converted, strict=True):
         columns[name][key] = values
     messages: dict[tuple[str, int], str] = {}
-    index_of = {sid: i for i, sid in enumerate(results.batch.ids)}
-    for r in a.reasons:
-        if r.series_id is not None:
-            messages[(r.check, index_of[r.series_id])] = r.message
-    # Built column by column: per check, the list of its per-series entries, then one
-    # series' entries are the i-th of each list.
+    verdicts: list[str] = []
+    for g, a in enumerate(d.assessments):
+        index_of = {sid: g * size + i for i, sid in enumerate(a.ids)}
+        for r in a.reasons:
+            if r.series_id is not None:
+                messages[(r.check, index_of[r.series_id])] = r.message
+        verdicts += a.series_verdicts()
     per_check = []
     for name, res in results.checks.items():
         col = columns[name]
@@ -423,7 +494,6 @@ def _to_dict(a: Assessment) -> dict[str, Any]:
                 col["status"], col["statistic"], col["p_value"], col["p_adjusted"], details,
                 text, strict=True)
         ])
-    verdicts = a.series_verdicts()
     n_obs = results.residuals.n_obs.tolist()
     bias_cols = columns.get("bias")
     ts_cols = columns.get("tracking_signal")
@@ -443,19 +513,23 @@ def _to_dict(a: Assessment) -> dict[str, Any]:
         for sid, v, k, w, b, c in zip(results.batch.ids, verdicts, n_obs, weights, bias_rows,
                                       checks_rows, strict=True)
     ]
-    n_failed = sum(v == "fail" for v in verdicts)
-    n_warned = sum(v == "warn" for v in verdicts)
-    return {
-        "verdict": a.verdict.value,
-        "policy": {"name": a.policy.name, "version": a.policy.version},
-        "reasons": [r.to_dict() for r in a.reasons],
-        "checks": [s.to_dict() for s in a.summaries],
-        "fleet": {
-            "n_series": n,
-            "n_failed": n_failed,
-            "n_warned": n_warned,
-            "n_passed": n - n_failed - n_warned,
-            "bias": a.fleet_bias.to_dict(),
-        },
-        "series": series,
-    }
+    out = []
+    for g, a in enumerate(d.assessments):
+        part = verdicts[g * size:(g + 1) * size]
+        n_failed = sum(v == "fail" for v in part)
+        n_warned = sum(v == "warn" for v in part)
+        out.append({
+            "verdict": a.verdict.value,
+            "policy": {"name": a.policy.name, "version": a.policy.version},
+            "reasons": [r.to_dict() for r in a.reasons],
+            "checks": [s.to_dict() for s in a.summaries],
+            "fleet": {
+                "n_series": size,
+                "n_failed": n_failed,
+                "n_warned": n_warned,
+                "n_passed": size - n_failed - n_warned,
+                "bias": a.fleet_bias.to_dict(),
+            },
+            "series": series[g * size:(g + 1) * size],
+        })
+    return out

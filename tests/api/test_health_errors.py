@@ -93,7 +93,7 @@ def test_unexpected_error_is_a_problem_500_without_internals(make_client, body, 
         raise RuntimeError("secret internals")
 
     client = make_client()
-    monkeypatch.setattr(assessing, "assess_many", explode)
+    monkeypatch.setattr(assessing, "assess_many_dicts", explode)
     r = client.post("/v1/assessments", json=body(n=1), headers=ADMIN)
     assert r.status_code == 500
     assert r.headers["content-type"] == "application/problem+json"

@@ -7,7 +7,7 @@ import pytest
 
 from service.core import assess, default_policy, make_batch
 from service.core.batch import stack_batches, stack_key
-from service.core.gate import assess_many
+from service.core.gate import assess_many, assess_many_dicts
 from service.core.policy import Policy
 
 
@@ -43,10 +43,13 @@ def test_same_results_as_separate_calls_exactly():
     order = rng.permutation(len(batches))
     items = [(batches[i], policy) for i in order]
     together = assess_many(items)
-    assert len(together) == len(items)
-    for (batch, pol), got in zip(items, together, strict=True):
+    docs = assess_many_dicts(items)
+    assert len(together) == len(docs) == len(items)
+    for (batch, pol), got, doc in zip(items, together, docs, strict=True):
         # Row-by-row work on same-shaped matrices: equal to the last bit, not just close.
-        assert got.to_dict() == assess(batch, pol).to_dict()
+        alone = assess(batch, pol).to_dict()
+        assert got.to_dict() == alone
+        assert doc == alone  # the series rows of a whole group built at once
         assert got.ids == batch.ids
 
 
@@ -56,9 +59,10 @@ def test_policies_are_kept_apart():
                                "fleet": {"adjustment": "none"}})
     items = [(invented_batch(rng, 2), strict if i % 2 else default_policy())
              for i in range(6)]
-    for (batch, pol), got in zip(items, assess_many(items), strict=True):
+    for (batch, pol), got, doc in zip(items, assess_many(items), assess_many_dicts(items),
+                                      strict=True):
         assert got.policy is pol
-        assert got.to_dict() == assess(batch, pol).to_dict()
+        assert got.to_dict() == doc == assess(batch, pol).to_dict()
 
 
 def test_stack_refuses_different_shapes():
@@ -68,7 +72,24 @@ def test_stack_refuses_different_shapes():
 
 
 def test_empty_list():
-    assert assess_many([]) == []
+    assert assess_many([]) == [] and assess_many_dicts([]) == []
+
+
+def test_critical_series_weights_and_adjustment_per_part():
+    # Policies that use every part of the decision: critical series (by id, which repeat
+    # across the stacked parts), given weights, no adjustment, a fleet-bias warning.
+    rng = np.random.default_rng(23)
+    policies = [
+        Policy.from_dict({"name": "crit", "fleet": {"critical_series": ["s-0", "s-2"],
+                                                    "weighting": "given", "bias_warn_p": 0.3}}),
+        Policy.from_dict({"name": "plain", "fleet": {"adjustment": "none",
+                                                     "weighting": "count"}}),
+    ]
+    for pol in policies:
+        items = [(invented_batch(rng, n), pol) for n in (1, 1, 1, 3, 3, 1, 3)]
+        for (batch, p), got, doc in zip(items, assess_many(items), assess_many_dicts(items),
+                                        strict=True):
+            assert got.to_dict() == doc == assess(batch, p).to_dict()
 
 
 def test_ragged_rows_answer_as_alone_to_the_last_bit():
@@ -102,5 +123,6 @@ def test_ragged_rows_answer_as_alone_to_the_last_bit():
         batch = make_batch(actuals, fitted, ids=[f"r{k}-{i}" for i in range(n)], model_params=1)
         items.append((batch, policy))
     assert len({stack_key(b) for b, _ in items}) == 4
-    for (batch, pol), got in zip(items, assess_many(items), strict=True):
-        assert got.to_dict() == assess(batch, pol).to_dict()
+    for (batch, pol), got, doc in zip(items, assess_many(items), assess_many_dicts(items),
+                                      strict=True):
+        assert got.to_dict() == doc == assess(batch, pol).to_dict()

@@ -107,19 +107,15 @@ def serve_memoised(port: int) -> None:
     from service.api import assessing
     from service.api.server import run
 
-    real = assessing.assess_many
+    real = assessing.assess_many_dicts
     memo: list[dict] = []
-
-    class Memo:
-        def to_dict(self) -> dict:
-            return dict(memo[0])  # the service only pops "series" from it
 
     def memoised(items):
         if not memo:
-            memo.append(real(items[:1])[0].to_dict())
-        return [Memo() for _ in items]
+            memo.append(real(items[:1])[0])
+        return [dict(memo[0]) for _ in items]  # the service only pops "series" from it
 
-    assessing.assess_many = memoised
+    assessing.assess_many_dicts = memoised
     run(host="127.0.0.1", port=port, workers=1)
 
 
