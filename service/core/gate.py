@@ -308,7 +308,9 @@ def _decide_parts(stacked: BatchChecks, parts: Sequence[SeriesBatch], policy: Po
     array, so each part gets the numbers it would get alone."""
     batch = stacked.batch
     n_parts = len(parts)
-    size = batch.n_series // n_parts if n_parts else 0
+    size = parts[0].n_series if parts else 0
+    if any(part.n_series != size for part in parts) or n_parts * size != batch.n_series:
+        raise ValueError("_decide_parts: the parts must be of one size and make up the batch")
     weights = _weights(batch, policy)
     adjust = policy.fleet.adjustment == "bh"
     if policy.fleet.critical_series:
