@@ -289,16 +289,6 @@ def save_assessments(
     return out
 
 
-def save_assessment(engine: Engine, **fields: Any) -> AssessmentSummary:
-    """Write one assessment (the fields of :class:`NewAssessment`) with all its series rows
-    and its idempotency key atomically. Raises :class:`IdempotencyConflict` when the key was
-    taken meanwhile by another request."""
-    (saved,) = save_assessments(engine, [NewAssessment(**fields)])
-    if isinstance(saved, Exception):
-        raise saved
-    return saved
-
-
 def get_assessment(engine: Engine, *, assessment_id: str) -> StoredAssessment | None:
     """The stored assessment with this id, or ``None``."""
     with engine.connect() as conn:

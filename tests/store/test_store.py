@@ -100,12 +100,15 @@ def _save(engine, aid="a1", key=None, digest=None, n=3):
                                holdout_actuals=np.array([4.0]) if i == 0 else None,
                                holdout_forecasts=np.array([3.5]) if i == 0 else None)
               for i in range(n)]
-    return repo.save_assessment(
-        engine, assessment_id=aid, created_at=repo.utcnow(), model="m", version="1",
+    (saved,) = repo.save_assessments(engine, [repo.NewAssessment(
+        assessment_id=aid, created_at=repo.utcnow(), model="m", version="1",
         verdict="pass", n_failed=0, n_warned=0, policy_name="default", policy_version=1,
         policy_document={"name": "default"}, head=b'{"id":"' + aid.encode() + b'","verdict":'
         b'"pass"}', series=series, inputs=inputs, idempotency_key=key, body_hash=digest,
-    )
+    )])
+    if isinstance(saved, Exception):
+        raise saved
+    return saved
 
 
 def test_save_and_read_back(engine):
