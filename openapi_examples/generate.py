@@ -87,8 +87,9 @@ def _csv(doc: dict[str, Any]) -> str:
         for ts, a, f in zip(s["timestamps"], s["actuals"], s["fitted"], strict=True):
             lines.append(f"{s['id']},{ts},train,{a:g},{f:g},,")
         h = s["holdout"]
-        for ts, a, f, lo, up in zip(h["timestamps"], h["actuals"], h["forecasts"], h["lower"],
-                                    h["upper"], strict=True):
+        for ts, a, f, lo, up in zip(
+            h["timestamps"], h["actuals"], h["forecasts"], h["lower"], h["upper"], strict=True
+        ):
             lines.append(f"{s['id']},{ts},holdout,{a:g},{f:g},{lo:g},{up:g}")
     return "\n".join(lines) + "\n"
 
@@ -119,60 +120,88 @@ def main() -> int:
     (HERE / "responses").mkdir(exist_ok=True)
     examples: list[dict[str, Any]] = []
     with tempfile.TemporaryDirectory() as tmp:
-        settings = Settings(database_url=f"sqlite:///{tmp}/examples.db", admin_token="examples",
-                            examples_dir=tmp)
+        settings = Settings(
+            database_url=f"sqlite:///{tmp}/examples.db", admin_token="examples", examples_dir=tmp
+        )
         with TestClient(create_app(settings)) as client:
             auth = {"Authorization": "Bearer examples"}
 
-            def post(name: str, summary: str, request: Any, *, csv_params: str | None = None
-                     ) -> None:
+            def post(
+                name: str, summary: str, request: Any, *, csv_params: str | None = None
+            ) -> None:
                 if csv_params is None:
-                    r = client.post("/v1/assessments?store=false", content=orjson.dumps(request),
-                                    headers={**auth, "Content-Type": "application/json"})
+                    r = client.post(
+                        "/v1/assessments?store=false",
+                        content=orjson.dumps(request),
+                        headers={**auth, "Content-Type": "application/json"},
+                    )
                     req_file = f"requests/{name}.json"
                     _dump(HERE / req_file, request)
                 else:
-                    r = client.post(f"/v1/assessments?store=false&{csv_params}",
-                                    content=request.encode(),
-                                    headers={**auth, "Content-Type": "text/csv"})
+                    r = client.post(
+                        f"/v1/assessments?store=false&{csv_params}",
+                        content=request.encode(),
+                        headers={**auth, "Content-Type": "text/csv"},
+                    )
                     req_file = f"requests/{name}.csv"
                     (HERE / req_file).write_text(request)
                 answer = r.json()
                 status = 201 if r.status_code == 200 else r.status_code
                 res_file = f"responses/{name}.json"
                 _dump(HERE / res_file, _fix(answer))
-                entry: dict[str, Any] = {"name": name, "summary": summary, "request": req_file,
-                                         "response": res_file, "status": status}
+                entry: dict[str, Any] = {
+                    "name": name,
+                    "summary": summary,
+                    "request": req_file,
+                    "response": res_file,
+                    "status": status,
+                }
                 if csv_params is not None:
                     entry["query"] = csv_params
                 if status < 400:
                     entry["verdict"] = answer["verdict"]
                 examples.append(entry)
 
-            post("sound-model", "Invented bakery chain: a sound daily model (weekly season)",
-                 _request("sound", "2026.11.30"))
-            post("biased-model", "Invented bakery chain: forecasts 7% too low every day",
-                 _request("biased", "2026.11.30-b"))
-            post("seasonal-miss", "Invented bakery chain: a flat forecast that misses the "
-                 "weekly pattern (autocorrelated residuals)", _request("seasonal-miss",
-                                                                       "2026.11.30-c"))
-            post("csv-upload", "Invented bakery chain: two shops as a CSV long-format upload",
-                 _csv(_request("sound", "2026.11.30")),
-                 csv_params="model=daily-loaves&version=2026.11.30&season_length=7"
-                            "&model_params=2&level=0.95")
+            post(
+                "sound-model",
+                "Invented bakery chain: a sound daily model (weekly season)",
+                _request("sound", "2026.11.30"),
+            )
+            post(
+                "biased-model",
+                "Invented bakery chain: forecasts 7% too low every day",
+                _request("biased", "2026.11.30-b"),
+            )
+            post(
+                "seasonal-miss",
+                "Invented bakery chain: a flat forecast that misses the "
+                "weekly pattern (autocorrelated residuals)",
+                _request("seasonal-miss", "2026.11.30-c"),
+            )
+            post(
+                "csv-upload",
+                "Invented bakery chain: two shops as a CSV long-format upload",
+                _csv(_request("sound", "2026.11.30")),
+                csv_params="model=daily-loaves&version=2026.11.30&season_length=7"
+                "&model_params=2&level=0.95",
+            )
             bad = _request("sound", "2026.11.30")
             bad["series"] = bad["series"][:2]
             bad["series"][0]["fitted"] = bad["series"][0]["fitted"][:-3]
             bad["series"][1]["holdout"]["lower"][0] = bad["series"][1]["holdout"]["upper"][0] + 5
             bad["series"][1]["holdout"]["level"] = 95
-            post("invalid-body", "Error: fitted shorter than actuals, a level given in percent",
-                 bad)
-    _dump(HERE / "index.json", {
-        "scenario": "Invented: Crumb & Kiln, a fictional bakery chain, and its daily loaves "
-                    "model. No real business or data.",
-        "generated_by": "openapi_examples/generate.py",
-        "examples": examples,
-    })
+            post(
+                "invalid-body", "Error: fitted shorter than actuals, a level given in percent", bad
+            )
+    _dump(
+        HERE / "index.json",
+        {
+            "scenario": "Invented: Crumb & Kiln, a fictional bakery chain, and its daily loaves "
+            "model. No real business or data.",
+            "generated_by": "openapi_examples/generate.py",
+            "examples": examples,
+        },
+    )
     for e in examples:
         print(f"{e['name']:16s} status {e['status']} verdict {e.get('verdict', '-')}")
     return 0

@@ -78,9 +78,7 @@ class ServerUnreachable(ClientError):
         self.attempts = attempts
         self.cause = cause
         noun = "attempt" if attempts == 1 else "attempts"
-        super().__init__(
-            f"server unreachable at {url} after {attempts} {noun}: {_describe(cause)}"
-        )
+        super().__init__(f"server unreachable at {url} after {attempts} {noun}: {_describe(cause)}")
 
 
 class ServerError(ClientError):
@@ -423,8 +421,10 @@ class PlumblineClient:
         self._base = "" if base_url is None else _check_base_url(base_url)
         self._token = token
         self._owns_http = http is None
-        self._http = http if http is not None else httpx.Client(
-            transport=transport, timeout=httpx.Timeout(timeout, connect=10.0)
+        self._http = (
+            http
+            if http is not None
+            else httpx.Client(transport=transport, timeout=httpx.Timeout(timeout, connect=10.0))
         )
         self._retries = retries
         self._backoff = backoff
@@ -483,9 +483,7 @@ class PlumblineClient:
             "Content-Type": content_type,
             "Idempotency-Key": idempotency_key or str(uuid.uuid4()),
         }
-        resp = self._send(
-            "POST", "/v1/assessments", content=content, headers=headers, params=query
-        )
+        resp = self._send("POST", "/v1/assessments", content=content, headers=headers, params=query)
         data = self._json(resp)
         replayed = resp.status_code == 200 or resp.headers.get("Idempotent-Replayed") == "true"
         return self._parse(AssessmentResult.from_json, data, replayed=replayed)
@@ -507,8 +505,15 @@ class PlumblineClient:
         cursor: str | None = None,
     ) -> AssessmentPage:
         """``GET /v1/assessments``: one page of summaries, newest first."""
-        filters = {"model": model, "version": version, "verdict": verdict, "since": since,
-                   "until": until, "limit": limit, "cursor": cursor}
+        filters = {
+            "model": model,
+            "version": version,
+            "verdict": verdict,
+            "since": since,
+            "until": until,
+            "limit": limit,
+            "cursor": cursor,
+        }
         params = {k: _param(v) for k, v in filters.items() if v is not None}
         resp = self._send("GET", "/v1/assessments", params=params)
         return self._parse(AssessmentPage.from_json, self._json(resp))
@@ -544,7 +549,10 @@ class PlumblineClient:
         """``POST /v1/tokens`` (admin): the secret is in the answer only this once."""
         body = json.dumps({"scopes": list(scopes), "label": label}).encode()
         resp = self._send(
-            "POST", "/v1/tokens", content=body, headers={"Content-Type": "application/json"},
+            "POST",
+            "/v1/tokens",
+            content=body,
+            headers={"Content-Type": "application/json"},
             retry=False,
         )
         data = self._json(resp)

@@ -60,12 +60,21 @@ class DemoModel:
 
 
 MODELS = (
-    DemoModel("weekday.json", "wrenfield-pickups-weekday",
-              "sound: each dock's own level and weekly profile"),
-    DemoModel("stale.json", "wrenfield-pickups-stale",
-              "biased: fitted before the network grew, about 12% low"),
-    DemoModel("shared-week.json", "wrenfield-pickups-shared-week",
-              "one shared weekly profile: the waterfront weekend peak is left in the residuals"),
+    DemoModel(
+        "weekday.json",
+        "wrenfield-pickups-weekday",
+        "sound: each dock's own level and weekly profile",
+    ),
+    DemoModel(
+        "stale.json",
+        "wrenfield-pickups-stale",
+        "biased: fitted before the network grew, about 12% low",
+    ),
+    DemoModel(
+        "shared-week.json",
+        "wrenfield-pickups-shared-week",
+        "one shared weekly profile: the waterfront weekend peak is left in the residuals",
+    ),
 )
 CSV_COPY = "weekday.csv"
 VERSION = "demo-2026.12"
@@ -101,8 +110,14 @@ def simulate() -> dict[str, Any]:
     sd = NOISE_SHARE * level
     pickups = np.maximum(np.round(mean + sd[:, None] * rng.standard_normal(mean.shape)), 0.0)
     names = [f"dock-{i + 1:02d}" for i in range(N_DOCKS - 1)] + ["waterfront"]
-    return {"ids": names, "level": level, "mean": mean, "sd": sd, "pickups": pickups,
-            "weekday": weekday}
+    return {
+        "ids": names,
+        "level": level,
+        "mean": mean,
+        "sd": sd,
+        "pickups": pickups,
+        "weekday": weekday,
+    }
 
 
 def _fitted(world: dict[str, Any], model: str) -> np.ndarray:
@@ -125,19 +140,21 @@ def request_body(world: dict[str, Any], spec: DemoModel) -> dict[str, Any]:
         hold = slice(TRAIN_DAYS, TRAIN_DAYS + HOLDOUT_DAYS)
         forecast = np.round(fitted[i, hold], 2)
         half = Z95 * world["sd"][i]
-        series.append({
-            "id": dock,
-            "actuals": world["pickups"][i, train].tolist(),
-            "fitted": np.round(fitted[i, train], 2).tolist(),
-            "timestamps": dates,
-            "holdout": {
-                "actuals": world["pickups"][i, hold].tolist(),
-                "forecasts": forecast.tolist(),
-                "lower": np.round(forecast - half, 2).tolist(),
-                "upper": np.round(forecast + half, 2).tolist(),
-                "level": LEVEL,
-            },
-        })
+        series.append(
+            {
+                "id": dock,
+                "actuals": world["pickups"][i, train].tolist(),
+                "fitted": np.round(fitted[i, train], 2).tolist(),
+                "timestamps": dates,
+                "holdout": {
+                    "actuals": world["pickups"][i, hold].tolist(),
+                    "forecasts": forecast.tolist(),
+                    "lower": np.round(forecast - half, 2).tolist(),
+                    "upper": np.round(forecast + half, 2).tolist(),
+                    "level": LEVEL,
+                },
+            }
+        )
     return {
         "model": spec.model,
         "version": VERSION,
@@ -193,11 +210,17 @@ def write_demo(directory: str) -> list[str]:
             paths.append(csv_path)
     readme = os.path.join(directory, "README.txt")
     with open(readme, "w", encoding="utf-8") as fh:
-        fh.write(README.format(
-            n=N_DOCKS, train=TRAIN_DAYS, hold=HOLDOUT_DAYS, csv=CSV_COPY, dir=directory,
-            version=VERSION,
-            models="\n".join(f"  {m.file:<17} {m.model}: {m.story}" for m in MODELS),
-        ))
+        fh.write(
+            README.format(
+                n=N_DOCKS,
+                train=TRAIN_DAYS,
+                hold=HOLDOUT_DAYS,
+                csv=CSV_COPY,
+                dir=directory,
+                version=VERSION,
+                models="\n".join(f"  {m.file:<17} {m.model}: {m.story}" for m in MODELS),
+            )
+        )
     paths.append(readme)
     return paths
 

@@ -26,7 +26,9 @@ class Settings(BaseSettings):
         default=None, description="A bearer token that holds every scope (containers, CI)."
     )
     token_cache_seconds: float = Field(
-        default=2.0, ge=0, le=300,
+        default=2.0,
+        ge=0,
+        le=300,
         description="How long a worker remembers a verified stored token; 0: look up every "
         "request (revocation then takes effect at once on every worker).",
     )

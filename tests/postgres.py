@@ -32,8 +32,12 @@ def _postgres_problem() -> str | None:
 
             url = make_url(postgres_url())
             with psycopg.connect(
-                host=url.host or "127.0.0.1", port=url.port or 5432, user=url.username,
-                password=url.password, dbname=url.database, connect_timeout=5,
+                host=url.host or "127.0.0.1",
+                port=url.port or 5432,
+                user=url.username,
+                password=url.password,
+                dbname=url.database,
+                connect_timeout=5,
             ) as conn:
                 conn.execute("SELECT 1")
             _postgres_state["problem"] = None
@@ -48,6 +52,8 @@ def require_postgres() -> None:
     if problem is None:
         return
     if postgres_required():
-        pytest.fail(f"PostgreSQL is required (PLUMBLINE_REQUIRE_POSTGRES) but unreachable at "
-                    f"{postgres_url()}: {problem}")
+        pytest.fail(
+            f"PostgreSQL is required (PLUMBLINE_REQUIRE_POSTGRES) but unreachable at "
+            f"{postgres_url()}: {problem}"
+        )
     pytest.skip(f"PostgreSQL unreachable at {postgres_url()}: {problem}")

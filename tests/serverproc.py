@@ -37,28 +37,36 @@ def free_port() -> int:
 
 def run_args(port: int, workers: int = 1) -> list[str]:
     """Python arguments for ``service.api.server.run`` on loopback."""
-    return ["-c", "from service.api.server import run; "
-                  f"run(host='{HOST}', port={port}, workers={workers})"]
+    return [
+        "-c",
+        f"from service.api.server import run; run(host='{HOST}', port={port}, workers={workers})",
+    ]
 
 
-def start_python(args: list[str], env: Mapping[str, str], log: Path, *,
-                 cwd: Path = ROOT) -> subprocess.Popen:
+def start_python(
+    args: list[str], env: Mapping[str, str], log: Path, *, cwd: Path = ROOT
+) -> subprocess.Popen:
     """``python *args`` in a new process group (so a signal reaches every worker), with
     ``env`` over this environment less its ``PLUMBLINE_*`` variables; output appended to
     ``log``."""
     full = {k: v for k, v in os.environ.items() if not k.startswith("PLUMBLINE_")}
     full.update({"PYTHONPATH": str(ROOT), "PYTHONUNBUFFERED": "1", **env})
     with log.open("ab") as out:
-        return subprocess.Popen([sys.executable, *args], cwd=cwd, env=full, stdout=out,
-                                stderr=subprocess.STDOUT, start_new_session=True)
+        return subprocess.Popen(
+            [sys.executable, *args],
+            cwd=cwd,
+            env=full,
+            stdout=out,
+            stderr=subprocess.STDOUT,
+            start_new_session=True,
+        )
 
 
 def log_tail(log: Path, chars: int = 3000) -> str:
     return log.read_text(errors="replace")[-chars:] if log.exists() else ""
 
 
-def wait_until_answers(url: str, proc: subprocess.Popen, log: Path,
-                       timeout: float = 60.0) -> None:
+def wait_until_answers(url: str, proc: subprocess.Popen, log: Path, timeout: float = 60.0) -> None:
     """Until ``url`` answers 200; :class:`ServerDidNotStart` (with the log's tail) if the
     process exits first or the timeout passes."""
     deadline = time.monotonic() + timeout
@@ -94,8 +102,14 @@ class Server:
     """``service.api.server.run`` on a free loopback port (the same one on every
     :meth:`start`), ready once ``/readyz`` answers 200."""
 
-    def __init__(self, database_url: str, log: Path, *, workers: int = 1,
-                 env: Mapping[str, str] | None = None) -> None:
+    def __init__(
+        self,
+        database_url: str,
+        log: Path,
+        *,
+        workers: int = 1,
+        env: Mapping[str, str] | None = None,
+    ) -> None:
         self.log = log
         self.workers = workers
         self.env = {"PLUMBLINE_DATABASE_URL": database_url, **(env or {})}

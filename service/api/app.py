@@ -61,10 +61,12 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     if settings.cors_origins:
         from fastapi.middleware.cors import CORSMiddleware
 
-        app.add_middleware(CORSMiddleware, allow_origins=settings.cors_origins,
-                           allow_methods=["GET", "POST", "DELETE"],
-                           allow_headers=["Authorization", "Content-Type", "Idempotency-Key",
-                                          "If-None-Match"],
-                           expose_headers=["ETag", "Location", "Link"])
+        app.add_middleware(
+            CORSMiddleware,
+            allow_origins=settings.cors_origins,
+            allow_methods=["GET", "POST", "DELETE"],
+            allow_headers=["Authorization", "Content-Type", "Idempotency-Key", "If-None-Match"],
+            expose_headers=["ETag", "Location", "Link"],
+        )
     app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
     return app

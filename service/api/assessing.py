@@ -44,8 +44,10 @@ class Outcome:
     def server_timing(self) -> str:
         """The ``Server-Timing`` header value: milliseconds per stage, and the number of
         submissions assessed together with this one (``batch``) when there were several."""
-        return ", ".join(f'{k};desc="{v:g}"' if k == "batch" else f"{k};dur={v * 1000:.1f}"
-                         for k, v in self.timings.items())
+        return ", ".join(
+            f'{k};desc="{v:g}"' if k == "batch" else f"{k};dur={v * 1000:.1f}"
+            for k, v in self.timings.items()
+        )
 
 
 def body_hash(kind: str, params: Mapping[str, str], body: bytes) -> str:
@@ -65,18 +67,27 @@ def replay(engine: Engine, key: str, digest: str) -> Outcome | None:
     if record is None:
         return None
     if record.body_hash != digest:
-        raise ApiError(409, f"Idempotency-Key {key!r} was already used with another request "
-                       "body; use a new key for a new assessment", slug="idempotency-key-reused")
+        raise ApiError(
+            409,
+            f"Idempotency-Key {key!r} was already used with another request "
+            "body; use a new key for a new assessment",
+            slug="idempotency-key-reused",
+        )
     stored = repo.get_assessment_by_seq(engine, seq=record.assessment_seq)
     if stored is None:  # removed meanwhile: treat the key as free
         return None
-    return Outcome(body=stored.to_json(), assessment_id=stored.summary.id,
-                   verdict=stored.summary.verdict, replayed=True,
-                   n_series=stored.summary.n_series)
+    return Outcome(
+        body=stored.to_json(),
+        assessment_id=stored.summary.id,
+        verdict=stored.summary.verdict,
+        replayed=True,
+        n_series=stored.summary.n_series,
+    )
 
 
-def parse(kind: str, body: bytes, params: Mapping[str, str], settings: Settings
-          ) -> AssessmentRequest:
+def parse(
+    kind: str, body: bytes, params: Mapping[str, str], settings: Settings
+) -> AssessmentRequest:
     limits = {"max_series": settings.max_series, "max_series_length": settings.max_series_length}
     if kind == "csv":
         return parse_csv_request(body, params, **limits)
@@ -101,11 +112,16 @@ def _inputs(req: AssessmentRequest) -> list[repo.SeriesInput]:
                 hold["holdout_lower"] = h.lower[i, :nh]
                 hold["holdout_upper"] = h.upper[i, :nh]
                 hold["holdout_level"] = level
-        out.append(repo.SeriesInput(
-            series_id=sid, weight=req.weights_given[i], actuals=b.actuals[i, :n],
-            fitted=b.fitted[i, :n],
-            timestamps=req.timestamps[i], **hold,
-        ))
+        out.append(
+            repo.SeriesInput(
+                series_id=sid,
+                weight=req.weights_given[i],
+                actuals=b.actuals[i, :n],
+                fitted=b.fitted[i, :n],
+                timestamps=req.timestamps[i],
+                **hold,
+            )
+        )
     return out
 
 
@@ -137,8 +153,7 @@ def resolve_policies(engine: Engine, jobs: list[Job]) -> list[Exception | None]:
             continue
         try:
             if not isinstance(spec, str):
-                hit: tuple[Policy, dict[str, Any]] | Exception = policy_lookup.resolve(engine,
-                                                                                       spec)
+                hit: tuple[Policy, dict[str, Any]] | Exception = policy_lookup.resolve(engine, spec)
             elif spec in found:
                 hit = found[spec]
             else:
@@ -184,7 +199,8 @@ def run_many(engine: Engine, jobs: list[Job]) -> list[Outcome | BaseException]:
         clock = time.perf_counter()
         try:
             saved: list[repo.AssessmentSummary | Exception] = repo.save_assessments(
-                engine, [r for _, r in records])
+                engine, [r for _, r in records]
+            )
         except Exception as exc:  # nothing was written: each stored job answers the error
             saved = [exc] * len(records)
         took = time.perf_counter() - clock
@@ -208,9 +224,12 @@ def _lost_race(engine: Engine, job: Job) -> Outcome | ApiError:
         return exc
     if again is not None:
         return again
-    return ApiError(409, f"Idempotency-Key {job.idempotency_key!r} was being used by another "
-                    "request at the same moment; send the request again",
-                    slug="idempotency-key-reused")
+    return ApiError(
+        409,
+        f"Idempotency-Key {job.idempotency_key!r} was being used by another "
+        "request at the same moment; send the request again",
+        slug="idempotency-key-reused",
+    )
 
 
 def _answer(job: Job, result: dict[str, Any]) -> tuple[Outcome, repo.NewAssessment | None]:
@@ -233,9 +252,14 @@ def _answer(job: Job, result: dict[str, Any]) -> tuple[Outcome, repo.NewAssessme
     verdict = str(result["verdict"])
     if not store:
         head["series"] = series
-        return Outcome(body=orjson.dumps(head, option=_DUMP), assessment_id=None,
-                       verdict=verdict, replayed=False, n_series=len(series),
-                       timings=job.timings), None
+        return Outcome(
+            body=orjson.dumps(head, option=_DUMP),
+            assessment_id=None,
+            verdict=verdict,
+            replayed=False,
+            n_series=len(series),
+            timings=job.timings,
+        ), None
     head_json = orjson.dumps(head, option=_DUMP)
     encoded = [orjson.dumps(s, option=_DUMP) for s in series]
     body = head_json[:-1] + b',"series":[' + b",".join(encoded) + b"]}"
@@ -254,12 +278,21 @@ def _answer(job: Job, result: dict[str, Any]) -> tuple[Outcome, repo.NewAssessme
         policy_version=int(pol.get("version", policy.version)),  # type: ignore[union-attr]
         policy_document=job.document,  # type: ignore[arg-type]
         head=head_json,
-        series=[repo.SeriesResult(series_id=s["id"], verdict=s["verdict"],
-                                  n_obs=int(s["n_obs"]), json=e)
-                for s, e in zip(series, encoded, strict=True)],
+        series=[
+            repo.SeriesResult(
+                series_id=s["id"], verdict=s["verdict"], n_obs=int(s["n_obs"]), json=e
+            )
+            for s, e in zip(series, encoded, strict=True)
+        ],
         inputs=_inputs(req),
         idempotency_key=job.idempotency_key if store else None,
         body_hash=job.digest,
     )
-    return Outcome(body=body, assessment_id=assessment_id, verdict=verdict, replayed=False,
-                   n_series=len(series), timings=job.timings), record
+    return Outcome(
+        body=body,
+        assessment_id=assessment_id,
+        verdict=verdict,
+        replayed=False,
+        n_series=len(series),
+        timings=job.timings,
+    ), record

@@ -46,8 +46,9 @@ class TokenCache:
     ``seconds`` after its lookup. Holds at most ``max_entries`` (then starts afresh); never
     remembers a failed lookup."""
 
-    def __init__(self, seconds: float, max_entries: int = 4096,
-                 clock: Callable[[], float] = time.monotonic) -> None:
+    def __init__(
+        self, seconds: float, max_entries: int = 4096, clock: Callable[[], float] = time.monotonic
+    ) -> None:
         self.seconds = float(seconds)
         self.max_entries = max_entries
         self._clock = clock
@@ -95,8 +96,11 @@ class TokenCache:
 def _bearer(request: Request) -> str:
     header = request.headers.get("authorization")
     if not header:
-        raise ApiError(401, "missing Authorization header: send 'Authorization: Bearer <token>'",
-                       headers=_CHALLENGE)
+        raise ApiError(
+            401,
+            "missing Authorization header: send 'Authorization: Bearer <token>'",
+            headers=_CHALLENGE,
+        )
     scheme, _, token = header.partition(" ")
     token = token.strip()
     if scheme.lower() != "bearer" or not token:
@@ -131,8 +135,11 @@ async def authorize(request: Request, scope: str) -> Principal:
             principal = await run_in_threadpool(_stored, request, token)
             cache.put(token, principal)
     if not principal.allows(scope):
-        raise ApiError(403, f"this token lacks the {scope!r} scope (it holds: "
-                       f"{', '.join(sorted(principal.scopes))})")
+        raise ApiError(
+            403,
+            f"this token lacks the {scope!r} scope (it holds: "
+            f"{', '.join(sorted(principal.scopes))})",
+        )
     request.state.principal = principal
     return principal
 
@@ -161,5 +168,8 @@ def ensure_first_token(engine, settings) -> str | None:
 def announce_first_token(secret: str | None) -> None:
     """Print a newly minted first admin token, the only time it is ever shown."""
     if secret is not None:
-        print("No API token existed, so an admin token was created. It is shown only now; "
-              f"keep it safe:\n\n    {secret}\n", flush=True)
+        print(
+            "No API token existed, so an admin token was created. It is shown only now; "
+            f"keep it safe:\n\n    {secret}\n",
+            flush=True,
+        )

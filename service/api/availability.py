@@ -41,8 +41,14 @@ RETRY_AFTER_SECONDS = 5
 log = logging.getLogger("plumbline.api")
 
 # SQLite result codes (by name) that mean the file cannot be written now, not a bad statement.
-_SQLITE_OUTAGE_PREFIXES = ("SQLITE_READONLY", "SQLITE_IOERR", "SQLITE_CANTOPEN", "SQLITE_FULL",
-                           "SQLITE_BUSY", "SQLITE_LOCKED")
+_SQLITE_OUTAGE_PREFIXES = (
+    "SQLITE_READONLY",
+    "SQLITE_IOERR",
+    "SQLITE_CANTOPEN",
+    "SQLITE_FULL",
+    "SQLITE_BUSY",
+    "SQLITE_LOCKED",
+)
 _OUTAGE_TYPES = (OperationalError, InterfaceError, DisconnectionError, PoolTimeoutError)
 
 
@@ -118,13 +124,18 @@ def install_availability(app: Any) -> None:
 
     async def unavailable(request: Any, exc: Exception) -> Any:
         if not is_unavailable(exc):
-            log.error("database error on %s %s", request.method, request.url.path,
-                      exc_info=exc)
-            return problem(500, "internal error: the service failed on this request; it has "
-                           "been logged")
+            log.error("database error on %s %s", request.method, request.url.path, exc_info=exc)
+            return problem(
+                500, "internal error: the service failed on this request; it has been logged"
+            )
         code = getattr(getattr(exc, "orig", None), "sqlite_errorname", None)
-        log.warning("database unavailable on %s %s: %s%s", request.method, request.url.path,
-                    type(exc).__name__, f" ({code})" if code else "")
+        log.warning(
+            "database unavailable on %s %s: %s%s",
+            request.method,
+            request.url.path,
+            type(exc).__name__,
+            f" ({code})" if code else "",
+        )
         return problem(
             503,
             "The database is unavailable; nothing was stored. Retry after the number of "

@@ -25,8 +25,7 @@ from .metrics import Metrics
 class SubmissionBatcher:
     """Collects :class:`~service.api.assessing.Job` s on the event loop and runs them together."""
 
-    def __init__(self, engine: Engine, metrics: Metrics | None = None, max_jobs: int = 256
-                 ) -> None:
+    def __init__(self, engine: Engine, metrics: Metrics | None = None, max_jobs: int = 256) -> None:
         self._engine = engine
         self._metrics = metrics
         self._max_jobs = max_jobs
@@ -55,7 +54,7 @@ class SubmissionBatcher:
             loop.call_soon(self._run)
             return
         self._seen = 0
-        waiting, self._waiting = self._waiting[: self._max_jobs], self._waiting[self._max_jobs:]
+        waiting, self._waiting = self._waiting[: self._max_jobs], self._waiting[self._max_jobs :]
         self._scheduled = bool(self._waiting)
         if self._scheduled:
             loop.call_soon(self._run)

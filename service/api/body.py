@@ -21,8 +21,9 @@ def media_type(request: Request) -> str:
 
 
 def is_json(kind: str) -> bool:
-    return kind == "application/json" or (kind.startswith("application/") and
-                                          kind.endswith("+json"))
+    return kind == "application/json" or (
+        kind.startswith("application/") and kind.endswith("+json")
+    )
 
 
 def is_csv(kind: str) -> bool:
@@ -39,15 +40,19 @@ async def read_body(request: Request, limit: int) -> bytes:
         except ValueError:
             raise ApiError(400, "Content-Length is not a number") from None
         if size > limit:
-            raise ApiError(413, f"request body of {size} bytes exceeds the limit of {limit} "
-                           "bytes (PLUMBLINE_MAX_BODY_BYTES)")
+            raise ApiError(
+                413,
+                f"request body of {size} bytes exceeds the limit of {limit} "
+                "bytes (PLUMBLINE_MAX_BODY_BYTES)",
+            )
     chunks: list[bytes] = []
     total = 0
     async for chunk in request.stream():
         total += len(chunk)
         if total > limit:
-            raise ApiError(413, f"request body exceeds the limit of {limit} bytes "
-                           "(PLUMBLINE_MAX_BODY_BYTES)")
+            raise ApiError(
+                413, f"request body exceeds the limit of {limit} bytes (PLUMBLINE_MAX_BODY_BYTES)"
+            )
         chunks.append(chunk)
     return b"".join(chunks)
 
@@ -64,8 +69,11 @@ async def read_model(request: Request, model: type[M], limit: int) -> M:
     raw = await read_body(request, limit)
     doc: Any = load_json(raw)
     if not isinstance(doc, dict):
-        raise ApiError(422, "body must be a JSON object",
-                       errors=[{"loc": "body", "message": "must be a JSON object"}])
+        raise ApiError(
+            422,
+            "body must be a JSON object",
+            errors=[{"loc": "body", "message": "must be a JSON object"}],
+        )
     try:
         return model.model_validate(doc)
     except ValidationError as exc:

@@ -89,16 +89,17 @@ def problem(
         body["errors"] = [{"loc": str(e["loc"]), "message": str(e["message"])} for e in errors]
     for key, value in (extra or {}).items():
         body.setdefault(key, value)
-    return Response(orjson.dumps(body), status_code=status, media_type=PROBLEM_JSON,
-                    headers=dict(headers or {}))
+    return Response(
+        orjson.dumps(body), status_code=status, media_type=PROBLEM_JSON, headers=dict(headers or {})
+    )
 
 
 def policy_errors(exc: InputError, prefix: str = "policy") -> list[dict[str, str]]:
     """Field errors of a policy problem, located under ``prefix`` (``policy.checks.bias...``)."""
     raw = getattr(exc, "errors", None)
-    items = raw if isinstance(raw, list) and raw else [
-        {"loc": exc.argument, "message": exc.message}
-    ]
+    items = (
+        raw if isinstance(raw, list) and raw else [{"loc": exc.argument, "message": exc.message}]
+    )
     out = []
     for item in items:
         loc = str(item.get("loc", "") or "")
@@ -117,8 +118,9 @@ def _pydantic_loc(parts: Sequence[Any]) -> str:
     return out or "body"
 
 
-def validation_errors(raw: Sequence[Mapping[str, Any]], *, drop_body: bool = True
-                      ) -> list[dict[str, str]]:
+def validation_errors(
+    raw: Sequence[Mapping[str, Any]], *, drop_body: bool = True
+) -> list[dict[str, str]]:
     """Pydantic/FastAPI errors as ``{loc, message}`` (``body.`` dropped: locs are relative to
     the body; query and header locs keep their ``query.`` / ``header.`` prefix)."""
     out = []
@@ -135,8 +137,15 @@ def install_error_handlers(app: FastAPI) -> None:
 
     @app.exception_handler(ApiError)
     async def _api_error(_request: Request, exc: ApiError) -> Response:
-        return problem(exc.status, exc.detail, errors=exc.errors, slug=exc.slug,
-                       title=exc.title, headers=exc.headers, extra=exc.extra)
+        return problem(
+            exc.status,
+            exc.detail,
+            errors=exc.errors,
+            slug=exc.slug,
+            title=exc.title,
+            headers=exc.headers,
+            extra=exc.extra,
+        )
 
     @app.exception_handler(RequestInvalid)
     async def _request_invalid(_request: Request, exc: RequestInvalid) -> Response:
@@ -166,5 +175,6 @@ def install_error_handlers(app: FastAPI) -> None:
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, exc: Exception) -> Response:
         log.exception("unhandled error on %s %s", request.method, request.url.path)
-        return problem(500, "internal error: the service failed on this request; it has been "
-                       "logged")
+        return problem(
+            500, "internal error: the service failed on this request; it has been logged"
+        )

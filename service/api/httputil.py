@@ -19,10 +19,13 @@ MAX_INT = 2**31 - 1
 CSV = "text/csv; charset=utf-8"
 
 
-def json_response(value: Any, status: int = 200, headers: dict[str, str] | None = None
-                  ) -> Response:
-    return Response(orjson.dumps(value, option=orjson.OPT_SERIALIZE_NUMPY), status_code=status,
-                    media_type=JSON, headers=headers)
+def json_response(value: Any, status: int = 200, headers: dict[str, str] | None = None) -> Response:
+    return Response(
+        orjson.dumps(value, option=orjson.OPT_SERIALIZE_NUMPY),
+        status_code=status,
+        media_type=JSON,
+        headers=headers,
+    )
 
 
 def etag_of(body: bytes) -> str:
@@ -36,12 +39,17 @@ def _matches(header: str, etag: str) -> bool:
     return any(tag.strip().removeprefix("W/") == bare for tag in header.split(","))
 
 
-def conditional(request: Request, body: bytes, media_type: str,
-                headers: dict[str, str] | None = None) -> Response:
+def conditional(
+    request: Request, body: bytes, media_type: str, headers: dict[str, str] | None = None
+) -> Response:
     """``body`` with an ``ETag``; 304 (no body) when ``If-None-Match`` already has it."""
     etag = etag_of(body)
-    out = {"ETag": etag, "Vary": "Accept, Authorization", "Cache-Control": "private, no-cache",
-           **(headers or {})}
+    out = {
+        "ETag": etag,
+        "Vary": "Accept, Authorization",
+        "Cache-Control": "private, no-cache",
+        **(headers or {}),
+    }
     seen = request.headers.get("if-none-match")
     if seen is not None and _matches(seen, etag):
         return Response(status_code=304, headers=out)
@@ -60,9 +68,16 @@ def decode_cursor(cursor: str) -> int:
             raise ValueError(raw)
         return int(number)
     except (ValueError, UnicodeDecodeError):
-        raise ApiError(422, "cursor: not a cursor this service gave out",
-                       errors=[{"loc": "query.cursor", "message": "invalid cursor; pass the "
-                                "next_cursor of a previous page unchanged"}]) from None
+        raise ApiError(
+            422,
+            "cursor: not a cursor this service gave out",
+            errors=[
+                {
+                    "loc": "query.cursor",
+                    "message": "invalid cursor; pass the next_cursor of a previous page unchanged",
+                }
+            ],
+        ) from None
 
 
 def as_utc(value: datetime | None) -> datetime | None:
@@ -76,15 +91,15 @@ def problem_docs(*codes: int) -> dict[int | str, dict[str, Any]]:
     """OpenAPI ``responses`` entries for problem+json answers."""
     from .schemas import Problem
 
-    return {code: {"model": Problem, "content": {"application/problem+json": {}}}
-            for code in codes}
+    return {code: {"model": Problem, "content": {"application/problem+json": {}}} for code in codes}
 
 
 def json_body_doc(schema: str, *, csv: bool = False) -> dict[str, Any]:
     """``openapi_extra`` documenting a JSON request body by a component schema name (the body
     itself is read by the endpoint, with the size limit, not by the framework)."""
-    content: dict[str, Any] = {"application/json": {"schema": {
-        "$ref": f"#/components/schemas/{schema}"}}}
+    content: dict[str, Any] = {
+        "application/json": {"schema": {"$ref": f"#/components/schemas/{schema}"}}
+    }
     if csv:
         content["text/csv"] = {"schema": {"type": "string"}}
     return {"requestBody": {"required": True, "content": content}}

@@ -326,8 +326,7 @@ async def _refuse_nul(scope: Scope, send: Send) -> bool:
     ]
     if not errors:
         return False
-    await problem_response(send, 422, f"{errors[0]['loc']}: {errors[0]['message']}",
-                           errors=errors)
+    await problem_response(send, 422, f"{errors[0]['loc']}: {errors[0]['message']}", errors=errors)
     return True
 
 

@@ -18,8 +18,22 @@ from prometheus_client import (
 )
 from prometheus_client.exposition import CONTENT_TYPE_LATEST
 
-LATENCY_BUCKETS = (0.001, 0.0025, 0.005, 0.01, 0.025, 0.05, 0.1, 0.25, 0.5, 1.0, 2.5, 5.0,
-                   10.0, 30.0)
+LATENCY_BUCKETS = (
+    0.001,
+    0.0025,
+    0.005,
+    0.01,
+    0.025,
+    0.05,
+    0.1,
+    0.25,
+    0.5,
+    1.0,
+    2.5,
+    5.0,
+    10.0,
+    30.0,
+)
 
 
 class Metrics:
@@ -31,24 +45,34 @@ class Metrics:
         disable_created_metrics()  # the *_created series only add noise here
         self.registry = CollectorRegistry()
         self.requests = Counter(
-            "plumbline_http_requests", "HTTP requests answered.",
-            ["method", "route", "status"], registry=self.registry,
+            "plumbline_http_requests",
+            "HTTP requests answered.",
+            ["method", "route", "status"],
+            registry=self.registry,
         )
         self.latency = Histogram(
-            "plumbline_http_request_duration_seconds", "Time to answer an HTTP request.",
-            ["method", "route"], buckets=LATENCY_BUCKETS, registry=self.registry,
+            "plumbline_http_request_duration_seconds",
+            "Time to answer an HTTP request.",
+            ["method", "route"],
+            buckets=LATENCY_BUCKETS,
+            registry=self.registry,
         )
         self.assessments = Counter(
-            "plumbline_assessments", "Assessments computed, by verdict and whether stored.",
-            ["verdict", "stored"], registry=self.registry,
+            "plumbline_assessments",
+            "Assessments computed, by verdict and whether stored.",
+            ["verdict", "stored"],
+            registry=self.registry,
         )
         self.series = Counter(
-            "plumbline_series_assessed", "Series assessed.", registry=self.registry,
+            "plumbline_series_assessed",
+            "Series assessed.",
+            registry=self.registry,
         )
         self.batch_size = Histogram(
             "plumbline_submissions_per_pass",
             "Small submissions assessed together in one pass of the statistics core.",
-            buckets=(1, 2, 4, 8, 16, 32, 64, 128, 256), registry=self.registry,
+            buckets=(1, 2, 4, 8, 16, 32, 64, 128, 256),
+            registry=self.registry,
         )
 
     def render(self) -> bytes:

@@ -29,8 +29,11 @@ def load_examples(directory: Path | None) -> list[dict[str, Any]]:
     for item in index.get("examples", []):
         entry = dict(item)
         request_path = directory / item["request"]
-        entry["request_body"] = (request_path.read_text() if item["request"].endswith(".csv")
-                                 else orjson.loads(request_path.read_bytes()))
+        entry["request_body"] = (
+            request_path.read_text()
+            if item["request"].endswith(".csv")
+            else orjson.loads(request_path.read_bytes())
+        )
         if item.get("response"):
             entry["response_body"] = orjson.loads((directory / item["response"]).read_bytes())
         out.append(entry)
@@ -56,7 +59,9 @@ def _add_examples(doc: dict[str, Any], examples: list[dict[str, Any]]) -> None:
         name = ex["name"]
         if ex.get("status", 201) >= 400:
             problems.setdefault(str(ex["status"]), {})[name] = {
-                "summary": ex["summary"], "value": ex["response_body"]}
+                "summary": ex["summary"],
+                "value": ex["response_body"],
+            }
             target = csv_examples if ex["request"].endswith(".csv") else json_examples
             target[name] = {"summary": ex["summary"], "value": ex["request_body"]}
             continue
@@ -72,18 +77,24 @@ def _add_examples(doc: dict[str, Any], examples: list[dict[str, Any]]) -> None:
     responses = post["responses"]
     if ok_examples:
         responses["201"].setdefault("content", {}).setdefault("application/json", {})[
-            "examples"] = ok_examples
+            "examples"
+        ] = ok_examples
     for status, items in problems.items():
         entry = responses.setdefault(status, {"description": "problem"})
-        entry.setdefault("content", {}).setdefault("application/problem+json", {})[
-            "examples"] = items
+        entry.setdefault("content", {}).setdefault("application/problem+json", {})["examples"] = (
+            items
+        )
 
 
 def _add_security(doc: dict[str, Any]) -> None:
     doc.setdefault("components", {})["securitySchemes"] = {
-        "bearer": {"type": "http", "scheme": "bearer",
-                   "description": "A token with the scope the operation names (submit, read "
-                                  "or admin); admin holds every scope."}}
+        "bearer": {
+            "type": "http",
+            "scheme": "bearer",
+            "description": "A token with the scope the operation names (submit, read "
+            "or admin); admin holds every scope.",
+        }
+    }
     for path, operations in doc.get("paths", {}).items():
         if path.startswith("/v1/"):
             for operation in operations.values():
@@ -95,8 +106,9 @@ def install_openapi(app: FastAPI, examples: list[dict[str, Any]]) -> None:
 
     def build() -> dict[str, Any]:
         if app.openapi_schema is None:
-            doc = get_openapi(title=app.title, version=app.version,
-                              description=app.description, routes=app.routes)
+            doc = get_openapi(
+                title=app.title, version=app.version, description=app.description, routes=app.routes
+            )
             _add_schemas(doc)
             _add_security(doc)
             _add_examples(doc, examples)

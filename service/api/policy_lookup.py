@@ -61,12 +61,14 @@ def policy_from_document(document: dict[str, Any], *, loc: str = "policy") -> Po
         return Policy.from_dict(document)
     except PolicyError as exc:
         errors = policy_errors(exc, prefix=loc)
-        raise ApiError(422, f"{errors[0]['loc']}: {errors[0]['message']}", errors=errors,
-                       slug="invalid-policy") from None
+        raise ApiError(
+            422, f"{errors[0]['loc']}: {errors[0]['message']}", errors=errors, slug="invalid-policy"
+        ) from None
 
 
-def stored_or_builtin(engine: Engine, name: str, version: int | None = None
-                      ) -> tuple[Policy, dict[str, Any]] | None:
+def stored_or_builtin(
+    engine: Engine, name: str, version: int | None = None
+) -> tuple[Policy, dict[str, Any]] | None:
     """The policy called ``name`` (newest, or ``version``) with its document, or ``None``.
 
     The built-in default is version 1 of ``default``; stored versions of ``default`` follow it.
@@ -89,22 +91,35 @@ def resolve(engine: Engine, spec: str | dict[str, Any]) -> tuple[Policy, dict[st
     if isinstance(spec, dict):
         policy = policy_from_document(spec)
         if "\x00" in policy.name:
-            raise ApiError(422, "policy.name: must not contain NUL characters",
-                           errors=[{"loc": "policy.name",
-                                    "message": "must not contain NUL characters"}])
+            raise ApiError(
+                422,
+                "policy.name: must not contain NUL characters",
+                errors=[{"loc": "policy.name", "message": "must not contain NUL characters"}],
+            )
         return policy, policy.to_dict()
     name, at, pinned = spec.partition("@")
     version: int | None = None
     if at:
         if not pinned.isdigit() or not 1 <= int(pinned) <= MAX_INT:
-            raise ApiError(422, "policy: a pinned version is written name@N with N >= 1",
-                           errors=[{"loc": "policy", "message": f"bad version in {spec!r}"}])
+            raise ApiError(
+                422,
+                "policy: a pinned version is written name@N with N >= 1",
+                errors=[{"loc": "policy", "message": f"bad version in {spec!r}"}],
+            )
         version = int(pinned)
     found = stored_or_builtin(engine, name, version) if valid_name(name) else None
     if found is None:
         what = f"policy {name!r}" + (f" version {version}" if version else "")
-        raise ApiError(422, f"policy: unknown {what}",
-                       errors=[{"loc": "policy", "message": f"unknown {what}; store it with "
-                                "POST /v1/policies or send the policy inline"}],
-                       slug="unknown-policy")
+        raise ApiError(
+            422,
+            f"policy: unknown {what}",
+            errors=[
+                {
+                    "loc": "policy",
+                    "message": f"unknown {what}; store it with "
+                    "POST /v1/policies or send the policy inline",
+                }
+            ],
+            slug="unknown-policy",
+        )
     return found

@@ -66,8 +66,9 @@ class AssessmentBody(BaseModel):
     model: str = Field(examples=["weekly-demand"])
     version: str = Field(examples=["2026.11.30"])
     policy: str | dict[str, Any] = Field(
-        "default", description="A stored policy's name (optionally name@version) or an inline "
-        "policy document."
+        "default",
+        description="A stored policy's name (optionally name@version) or an inline "
+        "policy document.",
     )
     season_length: int = Field(1, ge=1, description="Seasonal period; 1 is non-seasonal.")
     model_params: int = Field(0, ge=0, description="Parameters the model estimated.")

@@ -134,7 +134,8 @@ def _problem_422(responses: dict[str, Any]) -> None:
     content = entry.get("content", {}) if isinstance(entry, dict) else {}
     schema = content.get("application/json", {}).get("schema", {})
     if set(content) == {"application/json"} and schema.get("$ref", "").endswith(
-            "/HTTPValidationError"):
+        "/HTTPValidationError"
+    ):
         entry["content"] = {
             "application/problem+json": {"schema": {"$ref": "#/components/schemas/Problem"}}
         }

@@ -41,9 +41,17 @@ def run(host: str, port: int, workers: int) -> None:
 
     announce_first_token(prepare(settings))
     os.environ["PLUMBLINE_MIGRATE_ON_START"] = "false"
-    uvicorn.run("service.api.app:create_app", factory=True, host=host, port=port,
-                workers=max(1, workers), log_level="info", access_log=False,
-                proxy_headers=False, **uvicorn_options(settings))
+    uvicorn.run(
+        "service.api.app:create_app",
+        factory=True,
+        host=host,
+        port=port,
+        workers=max(1, workers),
+        log_level="info",
+        access_log=False,
+        proxy_headers=False,
+        **uvicorn_options(settings),
+    )
 
 
 def main(argv: list[str] | None = None) -> int:

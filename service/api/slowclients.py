@@ -99,13 +99,15 @@ class _OverloadGuard:
 
 
 def _problem_400(msg: str, limit: int) -> bytes:
-    return json.dumps({
-        "type": "urn:plumbline:problem:unparseable-request",
-        "title": "Bad Request",
-        "status": 400,
-        "detail": f"{msg} The request line and headers must be valid HTTP/1.1 and at most "
-                  f"{limit} bytes.",
-    }).encode()
+    return json.dumps(
+        {
+            "type": "urn:plumbline:problem:unparseable-request",
+            "title": "Bad Request",
+            "status": 400,
+            "detail": f"{msg} The request line and headers must be valid HTTP/1.1 and at most "
+            f"{limit} bytes.",
+        }
+    ).encode()
 
 
 class _Guards:
@@ -152,11 +154,17 @@ class GuardedH11Protocol(_Guards, H11Protocol):
     def send_400_response(self, msg: str) -> None:
         """A request h11 cannot parse (or a head over ``max_header_bytes``): problem+json."""
         body = _problem_400(msg, self.config.h11_max_incomplete_event_size or 16384)
-        headers = [(b"content-type", b"application/problem+json"), (b"connection", b"close"),
-                   (b"content-length", str(len(body)).encode())]
+        headers = [
+            (b"content-type", b"application/problem+json"),
+            (b"connection", b"close"),
+            (b"content-length", str(len(body)).encode()),
+        ]
         try:
-            self.transport.write(self.conn.send(h11.Response(status_code=400, headers=headers,
-                                                             reason=b"Bad Request")))
+            self.transport.write(
+                self.conn.send(
+                    h11.Response(status_code=400, headers=headers, reason=b"Bad Request")
+                )
+            )
             self.transport.write(self.conn.send(h11.Data(data=body)))
             self.transport.write(self.conn.send(h11.EndOfMessage()))
         except h11.LocalProtocolError:
@@ -214,7 +222,8 @@ if HttpToolsProtocol is not None:
             body = _problem_400(msg, self.max_header_bytes)
             self.transport.write(
                 b"HTTP/1.1 400 Bad Request\r\ncontent-type: application/problem+json\r\n"
-                b"connection: close\r\ncontent-length: %d\r\n\r\n" % len(body) + body)
+                b"connection: close\r\ncontent-length: %d\r\n\r\n" % len(body) + body
+            )
             self.transport.close()
 
         def connection_made(self, transport: asyncio.Transport) -> None:  # type: ignore[override]
@@ -225,8 +234,11 @@ if HttpToolsProtocol is not None:
             if self._in_head:
                 self._head_bytes += len(data)
             super().data_received(data)
-            if (self._in_head and self._head_bytes > self.max_header_bytes
-                    and not self.transport.is_closing()):
+            if (
+                self._in_head
+                and self._head_bytes > self.max_header_bytes
+                and not self.transport.is_closing()
+            ):
                 # The head is still not complete and already over the limit.
                 self._disarm_head_timer()
                 self.send_400_response("Request head too large.")
@@ -260,11 +272,11 @@ def protocol_class(header_read_timeout: float, parser: str = "auto") -> type[asy
     ``auto`` (httptools when installed, as uvicorn would pick, else h11), ``h11`` or
     ``httptools``."""
     millis = max(1, round(header_read_timeout * 1000))
-    kind = parser if parser != "auto" else (
-        "httptools" if HttpToolsProtocol is not None else "h11")
+    kind = parser if parser != "auto" else ("httptools" if HttpToolsProtocol is not None else "h11")
     if kind not in _BASES:
-        raise ValueError(f"http_parser {parser!r} is not available here; use one of "
-                         f"{sorted(_BASES)} or auto")
+        raise ValueError(
+            f"http_parser {parser!r} is not available here; use one of {sorted(_BASES)} or auto"
+        )
     return _variant(f"{_PREFIX}{kind}_{millis}")
 
 
@@ -277,7 +289,7 @@ if HttpToolsProtocol is not None:
 def _variant(name: str) -> type[asyncio.Protocol]:
     cls = _VARIANTS.get(name)
     if cls is None:
-        kind, _, millis = name[len(_PREFIX):].partition("_")
+        kind, _, millis = name[len(_PREFIX) :].partition("_")
         cls = type(name, (_BASES[kind],), {"header_read_timeout": int(millis) / 1000})
         cls.__module__ = __name__
         cls.__qualname__ = name
@@ -286,7 +298,7 @@ def _variant(name: str) -> type[asyncio.Protocol]:
 
 
 def __getattr__(name: str) -> Any:
-    kind, _, millis = name[len(_PREFIX):].partition("_")
+    kind, _, millis = name[len(_PREFIX) :].partition("_")
     if name.startswith(_PREFIX) and kind in _BASES and millis.isdigit():
         return _variant(name)
     raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -61,18 +61,12 @@ def _what(verb: str, inp: AssessInput) -> str:
     return f"{verb} {inp.name}" + ("" if n is None else f" ({n:,} series)")
 
 
-
-
-def send(
-    client: Any, inp: AssessInput, *, store: bool, key: str | None = None
-) -> AssessmentResult:
+def send(client: Any, inp: AssessInput, *, store: bool, key: str | None = None) -> AssessmentResult:
     """One assessment on the server (retried with one Idempotency-Key by the client)."""
     body = inp.body
     if inp.kind == "csv":
         if inp.inline_policy is None and not inp.labels:
-            return client.assess(
-                csv=inp.text, params=inp.params, store=store, idempotency_key=key
-            )
+            return client.assess(csv=inp.text, params=inp.params, store=store, idempotency_key=key)
         body = csv_as_body(inp)
     try:
         return client.assess(body, store=store, idempotency_key=key)

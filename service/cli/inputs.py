@@ -164,8 +164,7 @@ def load_policy_option(value: str) -> str | dict[str, Any]:
         policy = json.loads(text)
     except json.JSONDecodeError as exc:
         raise CliError(
-            f"policy file {name}: not valid JSON: {exc.msg} "
-            f"(line {exc.lineno}, column {exc.colno})"
+            f"policy file {name}: not valid JSON: {exc.msg} (line {exc.lineno}, column {exc.colno})"
         ) from None
     if not isinstance(policy, dict):
         raise CliError(f"policy file {name}: expected a JSON object, got {_json_type(policy)}")
@@ -192,9 +191,7 @@ def load_input(path: str, overrides: Overrides, declared: str | None = None) -> 
 
 def apply_to_body(name: str, body: dict[str, Any], o: Overrides) -> dict[str, Any]:
     if o.level is not None:
-        raise CliError(
-            "--level applies to CSV input; in JSON give holdout.level in each series"
-        )
+        raise CliError("--level applies to CSV input; in JSON give holdout.level in each series")
     out = dict(body)
     for key in ("model", "version", "policy", "season_length", "model_params"):
         value = getattr(o, key)

@@ -50,16 +50,23 @@ def _level(text: str) -> float:
 def _server_options(p: argparse.ArgumentParser, *, timeout: float = 30.0) -> None:
     g = p.add_argument_group("server")
     g.add_argument(
-        "--server", metavar="URL", help="service root, e.g. http://127.0.0.1:8000 "
-        "(default: $PLUMBLINE_SERVER)"
+        "--server",
+        metavar="URL",
+        help="service root, e.g. http://127.0.0.1:8000 (default: $PLUMBLINE_SERVER)",
     )
     g.add_argument("--token", metavar="T", help="bearer token (default: $PLUMBLINE_TOKEN)")
     g.add_argument(
-        "--timeout", metavar="SECONDS", type=_positive_float, default=timeout,
+        "--timeout",
+        metavar="SECONDS",
+        type=_positive_float,
+        default=timeout,
         help=f"seconds to wait for one answer (default {timeout:g})",
     )
     g.add_argument(
-        "--retries", metavar="N", type=_int_at_least(0), default=3,
+        "--retries",
+        metavar="N",
+        type=_int_at_least(0),
+        default=3,
         help="retries on connection errors and 5xx answers, with backoff (default 3)",
     )
 
@@ -85,33 +92,44 @@ def build_parser() -> Parser:
     )
     p.add_argument("file", metavar="FILE", help="JSON or CSV file ('-' reads standard input)")
     p.add_argument(
-        "--format", choices=("json", "csv"), help="file format (default: from the extension, "
-        "else from the content)"
+        "--format",
+        choices=("json", "csv"),
+        help="file format (default: from the extension, else from the content)",
     )
     p.add_argument("--model", metavar="M", help="model name (overrides the file's)")
     p.add_argument("--version", metavar="V", help="model version (overrides the file's)")
     p.add_argument(
-        "--policy", metavar="NAME|FILE",
+        "--policy",
+        metavar="NAME|FILE",
         help="a stored policy name, or a JSON policy file sent inline (default: the file's, "
         "else 'default')",
     )
     p.add_argument(
-        "--season-length", metavar="M", type=_int_at_least(1),
+        "--season-length",
+        metavar="M",
+        type=_int_at_least(1),
         help="season length, e.g. 7 for daily data with a weekly cycle (default 1)",
     )
     p.add_argument(
-        "--model-params", metavar="K", type=_int_at_least(0),
+        "--model-params",
+        metavar="K",
+        type=_int_at_least(0),
         help="parameters the model estimated (reduces the Ljung-Box df; default 0)",
     )
     p.add_argument(
         "--level", metavar="L", type=_level, help="CSV only: nominal level of the intervals"
     )
     p.add_argument(
-        "--label", metavar="KEY=VALUE", action="append", default=[],
+        "--label",
+        metavar="KEY=VALUE",
+        action="append",
+        default=[],
         help="a label to store with the assessment (repeatable)",
     )
     p.add_argument(
-        "--fail-on", choices=("fail", "warn"), default="fail",
+        "--fail-on",
+        choices=("fail", "warn"),
+        default="fail",
         help="block (exit 1) on this verdict or worse (default fail)",
     )
     p.add_argument("--json", action="store_true", help="print the full result as JSON")
@@ -119,11 +137,14 @@ def build_parser() -> Parser:
         "--offline", action="store_true", help="compute locally, no server, nothing stored"
     )
     p.add_argument(
-        "--no-store", dest="store", action="store_false",
+        "--no-store",
+        dest="store",
+        action="store_false",
         help="server mode: compute without storing",
     )
     p.add_argument(
-        "--idempotency-key", metavar="KEY",
+        "--idempotency-key",
+        metavar="KEY",
         help="server mode: the key for this assessment (default: a new one per run), e.g. the "
         "pipeline run id, so a re-run job gets the stored result instead of storing again",
     )
@@ -139,7 +160,9 @@ def build_parser() -> Parser:
     p.add_argument("model", metavar="MODEL")
     p.add_argument("--version", metavar="V", help="only assessments of this version")
     p.add_argument(
-        "--require", choices=("pass", "warn"), default="pass",
+        "--require",
+        choices=("pass", "warn"),
+        default="pass",
         help="pass: only pass meets it; warn: pass or warn (default pass)",
     )
     p.add_argument("--json", action="store_true", help="print the answer as JSON")
@@ -155,8 +178,13 @@ def build_parser() -> Parser:
     tsub = p.add_subparsers(dest="tokens_command", metavar="ACTION", required=True)
     t = tsub.add_parser("create", help="create a token; its secret is printed once")
     t.add_argument(
-        "--scope", dest="scopes", metavar="SCOPE", action="append", choices=SCOPES,
-        required=True, help="submit, read or admin (repeatable)",
+        "--scope",
+        dest="scopes",
+        metavar="SCOPE",
+        action="append",
+        choices=SCOPES,
+        required=True,
+        help="submit, read or admin (repeatable)",
     )
     t.add_argument("--label", metavar="NAME", required=True, help="who or what uses it")
     t = tsub.add_parser("list", help="list tokens (no secrets)")
@@ -175,7 +203,10 @@ def build_parser() -> Parser:
     p.add_argument("--host", default="127.0.0.1", help="interface (default 127.0.0.1)")
     p.add_argument("--port", type=_int_at_least(1), default=8000, help="port (default 8000)")
     p.add_argument(
-        "--workers", metavar="N", type=_int_at_least(1), default=1,
+        "--workers",
+        metavar="N",
+        type=_int_at_least(1),
+        default=1,
         help="worker processes (default 1)",
     )
 
@@ -183,8 +214,9 @@ def build_parser() -> Parser:
     dsub = p.add_subparsers(dest="db_command", metavar="ACTION", required=True)
     d = dsub.add_parser("upgrade", help="apply the database migrations")
     d.add_argument(
-        "--database", metavar="URL", help="SQLAlchemy URL (default: $PLUMBLINE_DATABASE_URL, "
-        "else sqlite:///plumbline.db)"
+        "--database",
+        metavar="URL",
+        help="SQLAlchemy URL (default: $PLUMBLINE_DATABASE_URL, else sqlite:///plumbline.db)",
     )
 
     p = sub.add_parser(
@@ -195,7 +227,10 @@ def build_parser() -> Parser:
         "cycle in its residuals.",
     )
     p.add_argument(
-        "directory", metavar="DIR", nargs="?", default="plumbline-demo",
+        "directory",
+        metavar="DIR",
+        nargs="?",
+        default="plumbline-demo",
         help="where to write the files (default ./plumbline-demo)",
     )
     return parser

@@ -55,8 +55,12 @@ def _unique(scopes: list[str]) -> list[str]:
 def _print_created(created: TokenCreated, out: IO[str], *, as_json: bool) -> None:
     if as_json:
         render.dump_json(
-            {"id": created.id, "token": created.token, "label": created.label,
-             "scopes": list(created.scopes)},
+            {
+                "id": created.id,
+                "token": created.token,
+                "label": created.label,
+                "scopes": list(created.scopes),
+            },
             out,
         )
         return
@@ -70,11 +74,18 @@ def _print_created(created: TokenCreated, out: IO[str], *, as_json: bool) -> Non
 def _print_list(tokens: list[TokenInfo], out: IO[str], *, as_json: bool) -> None:
     if as_json:
         render.dump_json(
-            {"items": [
-                {"id": t.id, "label": t.label, "scopes": list(t.scopes),
-                 "created_at": t.created_at, "revoked_at": t.revoked_at}
-                for t in tokens
-            ]},
+            {
+                "items": [
+                    {
+                        "id": t.id,
+                        "label": t.label,
+                        "scopes": list(t.scopes),
+                        "created_at": t.created_at,
+                        "revoked_at": t.revoked_at,
+                    }
+                    for t in tokens
+                ]
+            },
             out,
         )
         return
@@ -166,15 +177,18 @@ class DatabaseTokens:
         from ..store import repository
 
         stored, secret = repository.create_token(self._engine, scopes=scopes, label=label)
-        return TokenCreated(id=stored.id, token=secret, label=stored.label,
-                            scopes=tuple(stored.scopes))
+        return TokenCreated(
+            id=stored.id, token=secret, label=stored.label, scopes=tuple(stored.scopes)
+        )
 
     def list(self) -> list[TokenInfo]:
         from ..store import repository
 
         return [
             TokenInfo(
-                id=t.id, label=t.label, scopes=tuple(t.scopes),
+                id=t.id,
+                label=t.label,
+                scopes=tuple(t.scopes),
                 created_at=t.created_at.isoformat(),
                 revoked_at=None if t.revoked_at is None else t.revoked_at.isoformat(),
             )

@@ -245,7 +245,9 @@ def make_batch(
     if holdout_actuals is not None:
         ha = _matrix("holdout_actuals", holdout_actuals, n)
         hf = _same_shape(
-            "holdout_forecasts", _matrix("holdout_forecasts", holdout_forecasts, n), ha,
+            "holdout_forecasts",
+            _matrix("holdout_forecasts", holdout_forecasts, n),
+            ha,
             "holdout_actuals",
         )
         if hf.shape[1] > ha.shape[1]:
@@ -310,13 +312,24 @@ def stack_key(batch: SeriesBatch) -> tuple[object, ...]:
     h = batch.holdout
     hold: tuple[object, ...] = ()
     if h is not None:
-        hold = (h.actuals.shape[1], h.lower is not None, h.level is not None,
-                _missing(h.actuals), _missing(h.forecasts),
-                None if h.lower is None else _missing(h.lower),
-                None if h.upper is None else _missing(h.upper),
-                None if h.level is None else _missing(h.level))
-    return (batch.season_length, batch.model_params, batch.actuals.shape,
-            _missing(batch.actuals), _missing(batch.fitted), hold)
+        hold = (
+            h.actuals.shape[1],
+            h.lower is not None,
+            h.level is not None,
+            _missing(h.actuals),
+            _missing(h.forecasts),
+            None if h.lower is None else _missing(h.lower),
+            None if h.upper is None else _missing(h.upper),
+            None if h.level is None else _missing(h.level),
+        )
+    return (
+        batch.season_length,
+        batch.model_params,
+        batch.actuals.shape,
+        _missing(batch.actuals),
+        _missing(batch.fitted),
+        hold,
+    )
 
 
 def _missing(values: np.ndarray) -> bytes:
@@ -333,11 +346,15 @@ def stack_batches(batches: Sequence[SeriesBatch]) -> SeriesBatch:
     first = batches[0]
     if len(batches) == 1:
         return first
-    if any(b.actuals.shape[1] != first.actuals.shape[1]
-           or (b.season_length, b.model_params) != (first.season_length, first.model_params)
-           or (b.holdout is None) != (first.holdout is None) for b in batches[1:]):
-        raise ValueError("stack_batches: the batches differ in season length, model "
-                         "parameters or shape")
+    if any(
+        b.actuals.shape[1] != first.actuals.shape[1]
+        or (b.season_length, b.model_params) != (first.season_length, first.model_params)
+        or (b.holdout is None) != (first.holdout is None)
+        for b in batches[1:]
+    ):
+        raise ValueError(
+            "stack_batches: the batches differ in season length, model parameters or shape"
+        )
     holdout = None
     if first.holdout is not None:
         parts = [b.holdout for b in batches]
@@ -347,8 +364,13 @@ def stack_batches(batches: Sequence[SeriesBatch]) -> SeriesBatch:
                 return None
             return np.concatenate([getattr(p, name) for p in parts])
 
-        holdout = Holdout(actuals=rows("actuals"), forecasts=rows("forecasts"),  # type: ignore[arg-type]
-                          lower=rows("lower"), upper=rows("upper"), level=rows("level"))
+        holdout = Holdout(
+            actuals=rows("actuals"),
+            forecasts=rows("forecasts"),  # type: ignore[arg-type]
+            lower=rows("lower"),
+            upper=rows("upper"),
+            level=rows("level"),
+        )
     return SeriesBatch(
         ids=tuple(i for b in batches for i in b.ids),
         actuals=np.concatenate([b.actuals for b in batches]),

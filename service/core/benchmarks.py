@@ -100,10 +100,18 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
         # No holdout step in the whole batch: every series skips, with the same keys.
         nan = np.full(n, np.nan)
         return CheckResult(
-            name="benchmark_skill", kind="metric", statistic=nan, p_value=nan,
-            details={"best_benchmark": np.full(n, None, dtype=object), "skill": nan,
-                     "rmse_model": nan, "rmse_best": nan,
-                     **{f"rmse_{name}": nan for name in names}, "horizon": count},
+            name="benchmark_skill",
+            kind="metric",
+            statistic=nan,
+            p_value=nan,
+            details={
+                "best_benchmark": np.full(n, None, dtype=object),
+                "skill": nan,
+                "rmse_model": nan,
+                "rmse_best": nan,
+                **{f"rmse_{name}": nan for name in names},
+                "horizon": count,
+            },
             skip_reason=np.full(n, holdout_reason(min_obs), dtype=object),
         )
     model_rmse = _rmse(err, ok, count)

@@ -54,8 +54,13 @@ class BatchChecks:
         for part in parts:
             rows = slice(start, start + part.n_series)
             start = rows.stop
-            out.append(BatchChecks(batch=part, residuals=self.residuals.rows(rows),
-                                   checks={k: r.rows(rows) for k, r in self.checks.items()}))
+            out.append(
+                BatchChecks(
+                    batch=part,
+                    residuals=self.residuals.rows(rows),
+                    checks={k: r.rows(rows) for k, r in self.checks.items()},
+                )
+            )
         if start != self.batch.n_series:
             raise ValueError("split: the parts do not add up to the checked batch")
         return out

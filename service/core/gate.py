@@ -35,8 +35,9 @@ from .tails import norm_sf_two_sided
 
 # Integer status codes so statuses combine with ``max``.
 SKIPPED, PASS, WARN, FAIL = 0, 1, 2, 3
-_STATUS = np.array([Status.SKIPPED.value, Status.PASS.value, Status.WARN.value, Status.FAIL.value],
-                   dtype=object)
+_STATUS = np.array(
+    [Status.SKIPPED.value, Status.PASS.value, Status.WARN.value, Status.FAIL.value], dtype=object
+)
 _STATUS_ENUM = (Status.SKIPPED, Status.PASS, Status.WARN, Status.FAIL)
 
 
@@ -51,8 +52,12 @@ class Reason:
     message: str
 
     def to_dict(self) -> dict[str, Any]:
-        return {"check": self.check, "status": self.status.value, "series_id": self.series_id,
-                "message": self.message}
+        return {
+            "check": self.check,
+            "status": self.status.value,
+            "series_id": self.series_id,
+            "message": self.message,
+        }
 
 
 @dataclass(frozen=True)
@@ -71,10 +76,14 @@ class CheckSummary:
 
     def to_dict(self) -> dict[str, Any]:
         return {
-            "name": self.name, "status": self.status.value,
-            "series_tested": self.series_tested, "series_failed": self.series_failed,
-            "series_warned": self.series_warned, "series_skipped": self.series_skipped,
-            "failed_share": self.failed_share, "warned_share": self.warned_share,
+            "name": self.name,
+            "status": self.status.value,
+            "series_tested": self.series_tested,
+            "series_failed": self.series_failed,
+            "series_warned": self.series_warned,
+            "series_skipped": self.series_skipped,
+            "failed_share": self.failed_share,
+            "warned_share": self.warned_share,
             "message": self.message,
         }
 
@@ -98,8 +107,17 @@ class FleetBias:
     series_used: int
 
     def to_dict(self) -> dict[str, Any]:
-        return {k: to_python(getattr(self, k)) for k in
-                ("mean_error", "percent_bias", "std_error", "statistic", "p_value", "series_used")}
+        return {
+            k: to_python(getattr(self, k))
+            for k in (
+                "mean_error",
+                "percent_bias",
+                "std_error",
+                "statistic",
+                "p_value",
+                "series_used",
+            )
+        }
 
 
 @dataclass(frozen=True, eq=False)
@@ -139,8 +157,9 @@ def _weights(batch: SeriesBatch, policy: Policy) -> np.ndarray:
     return np.where(np.isnan(a), 0.0, np.abs(a)).sum(axis=1)
 
 
-def _codes(results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjust: bool,
-           part_size: int) -> tuple[np.ndarray, np.ndarray]:
+def _codes(
+    results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjust: bool, part_size: int
+) -> tuple[np.ndarray, np.ndarray]:
     """Status codes and BH-adjusted p-values, one row per check in ``names`` (in that order),
     the adjustment made within each run of ``part_size`` series (one part's).
 
@@ -151,13 +170,20 @@ def _codes(results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjus
     shape = (len(checks), results.batch.n_series)
     is_test = [r.kind == "test" for r in checks]
     skipped = np.array([r.skipped for r in checks]).reshape(shape)
-    values = np.array([r.p_value if t else r.statistic
-                       for r, t in zip(checks, is_test, strict=True)]).reshape(shape)
+    values = np.array(
+        [r.p_value if t else r.statistic for r, t in zip(checks, is_test, strict=True)]
+    ).reshape(shape)
     # Per row: fail below, fail above, warn below, warn above (a test's p-value has only the
     # "below" bounds); a bound that does not apply is NaN, which no comparison passes.
-    bounds = np.array([(cp.fail_p, None, cp.warn_p, None) if t else
-                       (cp.fail_below, cp.fail_above, cp.warn_below, cp.warn_above)
-                       for cp, t in zip(cps, is_test, strict=True)], dtype=float).reshape(-1, 4)
+    bounds = np.array(
+        [
+            (cp.fail_p, None, cp.warn_p, None)
+            if t
+            else (cp.fail_below, cp.fail_above, cp.warn_below, cp.warn_above)
+            for cp, t in zip(cps, is_test, strict=True)
+        ],
+        dtype=float,
+    ).reshape(-1, 4)
     # Metric rows enter the adjustment as all missing, so their adjusted p-values are NaN.
     not_test = ~np.array(is_test, dtype=bool)[:, None]
     p_in = np.where(skipped | not_test, np.nan, values)
@@ -167,12 +193,14 @@ def _codes(results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjus
         p_adj = p_in  # one p-value adjusted on its own is itself
     else:
         p_adj = benjamini_hochberg_rows(p_in.reshape(-1, part_size)).reshape(shape)
-    use_adj = np.array([adjust and t and cp.adjust for cp, t in zip(cps, is_test, strict=True)],
-                       dtype=bool)[:, None]
+    use_adj = np.array(
+        [adjust and t and cp.adjust for cp, t in zip(cps, is_test, strict=True)], dtype=bool
+    )[:, None]
     v = np.where(use_adj, p_adj, values)
     lo_fail, hi_fail, lo_warn, hi_warn = (bounds[:, j : j + 1] for j in range(4))
-    codes = np.where((v < lo_fail) | (v > hi_fail), FAIL,
-                     np.where((v < lo_warn) | (v > hi_warn), WARN, PASS))
+    codes = np.where(
+        (v < lo_fail) | (v > hi_fail), FAIL, np.where((v < lo_warn) | (v > hi_warn), WARN, PASS)
+    )
     if "interval_coverage" in names:
         # Intervals too wide waste width but do not mislead: at most a warning.
         j = names.index("interval_coverage")
@@ -190,8 +218,9 @@ def _shares(weights: np.ndarray, hit: np.ndarray, tested: np.ndarray) -> np.ndar
     n = tested.sum(axis=-1)
     n_hit = (hit & tested).sum(axis=-1)
     with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(total > 0, hit_weight / total,
-                        np.where(n > 0, n_hit / np.maximum(n, 1), 0.0))
+        return np.where(
+            total > 0, hit_weight / total, np.where(n > 0, n_hit / np.maximum(n, 1), 0.0)
+        )
 
 
 _NO_FLEET_BIAS = FleetBias(*(float("nan"),) * 5, series_used=0)
@@ -228,8 +257,9 @@ def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
     return FleetBias(mean, pct, std, float(z), p, int(use.sum()))
 
 
-def _plan(policy: Policy) -> tuple[dict[str, CheckPolicy], tuple[str, ...],
-                                    dict[str, dict[str, Any]]]:
+def _plan(
+    policy: Policy,
+) -> tuple[dict[str, CheckPolicy], tuple[str, ...], dict[str, dict[str, Any]]]:
     """The policy's settings per check, the checks it enables and their options."""
     cps_all = {name: policy.check(name) for name in CHECK_NAMES}
     enabled = tuple(name for name in CHECK_NAMES if cps_all[name].enabled)
@@ -268,8 +298,9 @@ def assess_many_dicts(items: Sequence[tuple[SeriesBatch, Policy]]) -> list[dict[
     return out  # type: ignore[return-value]
 
 
-def _decided_groups(items: Sequence[tuple[SeriesBatch, Policy]]
-                    ) -> Iterator[tuple[list[int], _Decided]]:
+def _decided_groups(
+    items: Sequence[tuple[SeriesBatch, Policy]],
+) -> Iterator[tuple[list[int], _Decided]]:
     """The groups of :func:`assess_many`: the positions in ``items`` of each and its decision."""
     groups: dict[tuple[object, ...], list[int]] = {}
     for i, (batch, policy) in enumerate(items):
@@ -283,8 +314,7 @@ def _decided_groups(items: Sequence[tuple[SeriesBatch, Policy]]
         yield members, _decide_parts(checked, parts, policy, cps_all)
 
 
-def _decide(results: BatchChecks, policy: Policy, cps_all: Mapping[str, CheckPolicy]
-            ) -> Assessment:
+def _decide(results: BatchChecks, policy: Policy, cps_all: Mapping[str, CheckPolicy]) -> Assessment:
     """Steps 2 to 5 of the module docstring over checks already run."""
     return _decide_parts(results, [results.batch], policy, cps_all).assessments[0]
 
@@ -300,8 +330,12 @@ class _Decided:
     weights: np.ndarray
 
 
-def _decide_parts(stacked: BatchChecks, parts: Sequence[SeriesBatch], policy: Policy,
-                  cps_all: Mapping[str, CheckPolicy]) -> _Decided:
+def _decide_parts(
+    stacked: BatchChecks,
+    parts: Sequence[SeriesBatch],
+    policy: Policy,
+    cps_all: Mapping[str, CheckPolicy],
+) -> _Decided:
     """:func:`_decide` for each of ``parts`` (batches of one size, stacked in ``stacked``),
     vectorised over the parts: every per-series quantity is computed once over the stacked
     rows and every per-part reduction runs along the last axis of a (check, part, series)
@@ -333,10 +367,12 @@ def _decide_parts(stacked: BatchChecks, parts: Sequence[SeriesBatch], policy: Po
     failed, warned = cube == FAIL, cube == WARN
     failed_share = _shares(w_parts, failed, tested)
     warned_share = _shares(w_parts, warned, tested)
-    fail_share = np.array([fleet.fail_share if cp.fail_share is None else cp.fail_share
-                           for cp in cps], dtype=float)[:, None]
-    warn_share = np.array([fleet.warn_share if cp.warn_share is None else cp.warn_share
-                           for cp in cps], dtype=float)[:, None]
+    fail_share = np.array(
+        [fleet.fail_share if cp.fail_share is None else cp.fail_share for cp in cps], dtype=float
+    )[:, None]
+    warn_share = np.array(
+        [fleet.warn_share if cp.warn_share is None else cp.warn_share for cp in cps], dtype=float
+    )[:, None]
     crit_parts = critical.reshape(n_parts, size)
     crit_warned = (crit_parts & warned).any(axis=-1)
     crit_failed = (crit_parts & failed).any(axis=-1)
@@ -344,16 +380,25 @@ def _decide_parts(stacked: BatchChecks, parts: Sequence[SeriesBatch], policy: Po
     status = np.where((failed_share + warned_share > warn_share) | crit_warned, WARN, status)
     status = np.where((failed_share > fail_share) | crit_failed, FAIL, status)
     # Per part (columns), per check (rows): plain Python values, converted once.
-    columns = [a.T.tolist() for a in (
-        status, tested.sum(axis=-1), failed.sum(axis=-1), warned.sum(axis=-1), failed_share,
-        warned_share, np.broadcast_to(fail_share, status.shape),
-        np.broadcast_to(warn_share, status.shape), crit_warned | crit_failed)]
+    columns = [
+        a.T.tolist()
+        for a in (
+            status,
+            tested.sum(axis=-1),
+            failed.sum(axis=-1),
+            warned.sum(axis=-1),
+            failed_share,
+            warned_share,
+            np.broadcast_to(fail_share, status.shape),
+            np.broadcast_to(warn_share, status.shape),
+            crit_warned | crit_failed,
+        )
+    ]
     # Series reasons of every part at once: (check, part, series) of each warn or fail.
     hits: list[list[tuple[int, int, int]]] = [[] for _ in range(n_parts)]
     for j, g, i in zip(*(ix.tolist() for ix in np.nonzero(cube >= WARN)), strict=True):
         hits[g].append((j, i, int(cube[j, g, i])))
-    series_codes_all = (matrix.max(axis=0) if names
-                        else np.zeros(batch.n_series, dtype=int))
+    series_codes_all = matrix.max(axis=0) if names else np.zeros(batch.n_series, dtype=int)
     split = stacked.split(parts) if n_parts > 1 else [stacked]
     out = []
     for g, (part, results) in enumerate(zip(parts, split, strict=True)):
@@ -362,25 +407,41 @@ def _decide_parts(stacked: BatchChecks, parts: Sequence[SeriesBatch], policy: Po
         summaries: list[CheckSummary] = []
         fleet_reasons: list[tuple[int, Reason]] = []
         series_reasons: list[tuple[int, float, int, Reason]] = []
-        for name, (st, n_tested, n_failed, n_warned, f_share, w_share, f_limit, w_limit,
-                   crit) in zip(names, zip(*(col[g] for col in columns), strict=True),
-                                strict=True):
+        for name, (
+            st,
+            n_tested,
+            n_failed,
+            n_warned,
+            f_share,
+            w_share,
+            f_limit,
+            w_limit,
+            crit,
+        ) in zip(names, zip(*(col[g] for col in columns), strict=True), strict=True):
             summary = CheckSummary(
-                name=name, status=_STATUS_ENUM[st],
-                series_tested=n_tested, series_failed=n_failed,
-                series_warned=n_warned, series_skipped=size - n_tested,
-                failed_share=f_share, warned_share=w_share,
-                message=fleet_message(name, st, n_failed, n_warned, n_tested, f_share,
-                                      w_share, f_limit, w_limit, crit),
+                name=name,
+                status=_STATUS_ENUM[st],
+                series_tested=n_tested,
+                series_failed=n_failed,
+                series_warned=n_warned,
+                series_skipped=size - n_tested,
+                failed_share=f_share,
+                warned_share=w_share,
+                message=fleet_message(
+                    name, st, n_failed, n_warned, n_tested, f_share, w_share, f_limit, w_limit, crit
+                ),
             )
             summaries.append(summary)
             if st >= WARN:
                 fleet_reasons.append((st, Reason(name, summary.status, None, summary.message)))
         for j, i, c in hits[g]:
             name = names[j]
-            reason = Reason(name, _STATUS_ENUM[c], part.ids[i],
-                            series_message(name, rows.start + i, c, stacked[name],
-                                           p_matrix[j]))
+            reason = Reason(
+                name,
+                _STATUS_ENUM[c],
+                part.ids[i],
+                series_message(name, rows.start + i, c, stacked[name], p_matrix[j]),
+            )
             series_reasons.append((c, -float(part_weights[i]), i, reason))
         codes = dict(zip(names, matrix[:, rows], strict=True))
         p_adjusted = dict(zip(names, p_matrix[:, rows], strict=True))
@@ -388,43 +449,57 @@ def _decide_parts(stacked: BatchChecks, parts: Sequence[SeriesBatch], policy: Po
         fleet_code = max(int(status[:, g].max(initial=PASS)), PASS)
         bias_summary = _fleet_bias(results, part_weights)
         bias_p = policy.fleet.bias_warn_p
-        if (bias_p is not None and np.isfinite(bias_summary.p_value)
-                and bias_summary.p_value < bias_p):
+        if (
+            bias_p is not None
+            and np.isfinite(bias_summary.p_value)
+            and bias_summary.p_value < bias_p
+        ):
             fleet_code = max(fleet_code, WARN)
-            fleet_reasons.append((WARN, Reason("bias", Status.WARN, None,
-                                               _fleet_bias_message(bias_summary))))
+            fleet_reasons.append(
+                (WARN, Reason("bias", Status.WARN, None, _fleet_bias_message(bias_summary)))
+            )
         fleet_reasons.sort(key=lambda r: -r[0])
         series_reasons.sort(key=lambda r: (-r[0], r[1], r[2]))
         ordered: list[Reason] = []
         for severity in (FAIL, WARN):
             ordered += [r for s, r in fleet_reasons if s == severity]
             ordered += [r[3] for r in series_reasons if r[0] == severity]
-        out.append(Assessment(
-            verdict=Status(_STATUS[fleet_code]),
-            policy=policy,
-            results=results,
-            weights=part_weights,
-            status_codes=codes,
-            p_adjusted=p_adjusted,
-            series_codes=series_codes_all[rows],
-            summaries=tuple(summaries),
-            reasons=tuple(ordered),
-            fleet_bias=bias_summary,
-        ))
-    return _Decided(out, stacked, dict(zip(names, matrix, strict=True)),
-                    dict(zip(names, p_matrix, strict=True)), weights)
+        out.append(
+            Assessment(
+                verdict=Status(_STATUS[fleet_code]),
+                policy=policy,
+                results=results,
+                weights=part_weights,
+                status_codes=codes,
+                p_adjusted=p_adjusted,
+                series_codes=series_codes_all[rows],
+                summaries=tuple(summaries),
+                reasons=tuple(ordered),
+                fleet_bias=bias_summary,
+            )
+        )
+    return _Decided(
+        out,
+        stacked,
+        dict(zip(names, matrix, strict=True)),
+        dict(zip(names, p_matrix, strict=True)),
+        weights,
+    )
 
 
 def _fleet_bias_message(b: FleetBias) -> str:
     direction = "low" if b.mean_error > 0 else "high"
-    return (f"Across the fleet the forecasts run {direction}: the weighted mean error is "
-            f"{b.mean_error:+.3g} ({b.percent_bias:+.2f}% of volume; z = {b.statistic:.2f}, "
-            f"p = {b.p_value:.2g}, series taken as independent). No single series need be "
-            "significant for this to matter in aggregate: check for a shared level shift or a "
-            "biased transformation.")
+    return (
+        f"Across the fleet the forecasts run {direction}: the weighted mean error is "
+        f"{b.mean_error:+.3g} ({b.percent_bias:+.2f}% of volume; z = {b.statistic:.2f}, "
+        f"p = {b.p_value:.2g}, series taken as independent). No single series need be "
+        "significant for this to matter in aggregate: check for a shared level shift or a "
+        "biased transformation."
+    )
 
 
 # ------------------------------------------------------------------------------ serialisation
+
 
 def _columns(arrays: list[np.ndarray]) -> list[list[Any]]:
     """Equal-length float arrays as lists of plain Python floats, non-finite as ``None``."""
@@ -450,11 +525,16 @@ def _rendered(d: _Decided) -> list[dict[str, Any]]:
     float_arrays: list[np.ndarray] = []
     columns: dict[str, dict[str, Sequence[Any]]] = {}
     for name, res in results.checks.items():
-        col: dict[str, Sequence[Any]] = {"status": _STATUS[d.status_codes[name]].tolist(),
-                                         "skip": res.skip_reason.tolist()}
-        for key, values in (("statistic", res.statistic), ("p_value", res.p_value),
-                            ("p_adjusted", d.p_adjusted[name]),
-                            *((f"d:{k}", v) for k, v in res.details.items())):
+        col: dict[str, Sequence[Any]] = {
+            "status": _STATUS[d.status_codes[name]].tolist(),
+            "skip": res.skip_reason.tolist(),
+        }
+        for key, values in (
+            ("statistic", res.statistic),
+            ("p_value", res.p_value),
+            ("p_adjusted", d.p_adjusted[name]),
+            *((f"d:{k}", v) for k, v in res.details.items()),
+        ):
             if values.dtype.kind == "f":
                 float_keys.append((name, key))
                 float_arrays.append(values)
@@ -479,59 +559,88 @@ def _rendered(d: _Decided) -> list[dict[str, Any]]:
         col = columns[name]
         passed = pass_message(name)
         text = [
-            skip if status == "skipped" else passed if status == "pass"
+            skip
+            if status == "skipped"
+            else passed
+            if status == "pass"
             else messages.get((name, i), "")
             for i, (status, skip) in enumerate(zip(col["status"], col["skip"], strict=True))
         ]
         keys = tuple(res.details)
         if keys:
-            details = [dict(zip(keys, row, strict=True)) for row in
-                       zip(*(col[f"d:{k}"] for k in keys), strict=True)]
+            details = [
+                dict(zip(keys, row, strict=True))
+                for row in zip(*(col[f"d:{k}"] for k in keys), strict=True)
+            ]
         else:
             details = [{} for _ in range(n)]
-        per_check.append([
-            {"name": name, "status": st, "statistic": stat, "p_value": p, "p_adjusted": p_adj,
-             "details": det, "message": msg}
-            for st, stat, p, p_adj, det, msg in zip(
-                col["status"], col["statistic"], col["p_value"], col["p_adjusted"], details,
-                text, strict=True)
-        ])
+        per_check.append(
+            [
+                {
+                    "name": name,
+                    "status": st,
+                    "statistic": stat,
+                    "p_value": p,
+                    "p_adjusted": p_adj,
+                    "details": det,
+                    "message": msg,
+                }
+                for st, stat, p, p_adj, det, msg in zip(
+                    col["status"],
+                    col["statistic"],
+                    col["p_value"],
+                    col["p_adjusted"],
+                    details,
+                    text,
+                    strict=True,
+                )
+            ]
+        )
     n_obs = results.residuals.n_obs.tolist()
     bias_cols = columns.get("bias")
     ts_cols = columns.get("tracking_signal")
     if bias_cols is not None:
         tracking = ts_cols["statistic"] if ts_cols else [None] * n
-        bias_keys = ("mean_error", "std_error", "ci_low", "ci_high", "percent_bias",
-                     "tracking_signal")
+        bias_keys = (
+            "mean_error",
+            "std_error",
+            "ci_low",
+            "ci_high",
+            "percent_bias",
+            "tracking_signal",
+        )
         bias_rows: list[dict[str, Any] | None] = [
-            dict(zip(bias_keys, row, strict=True)) for row in zip(
-                *(bias_cols[f"d:{k}"] for k in bias_keys[:-1]), tracking, strict=True)
+            dict(zip(bias_keys, row, strict=True))
+            for row in zip(*(bias_cols[f"d:{k}"] for k in bias_keys[:-1]), tracking, strict=True)
         ]
     else:
         bias_rows = [None] * n
     checks_rows = map(list, zip(*per_check, strict=True)) if per_check else ([] for _ in range(n))
     series = [
         {"id": sid, "verdict": v, "n_obs": k, "weight": w, "bias": b, "checks": c}
-        for sid, v, k, w, b, c in zip(results.batch.ids, verdicts, n_obs, weights, bias_rows,
-                                      checks_rows, strict=True)
+        for sid, v, k, w, b, c in zip(
+            results.batch.ids, verdicts, n_obs, weights, bias_rows, checks_rows, strict=True
+        )
     ]
     out = []
     for g, a in enumerate(d.assessments):
-        part = verdicts[g * size:(g + 1) * size]
+        part = verdicts[g * size : (g + 1) * size]
         n_failed = sum(v == "fail" for v in part)
         n_warned = sum(v == "warn" for v in part)
-        out.append({
-            "verdict": a.verdict.value,
-            "policy": {"name": a.policy.name, "version": a.policy.version},
-            "reasons": [r.to_dict() for r in a.reasons],
-            "checks": [s.to_dict() for s in a.summaries],
-            "fleet": {
-                "n_series": size,
-                "n_failed": n_failed,
-                "n_warned": n_warned,
-                "n_passed": size - n_failed - n_warned,
-                "bias": a.fleet_bias.to_dict(),
-            },
-            "series": series[g * size:(g + 1) * size],
-        })
+        out.append(
+            {
+                "verdict": a.verdict.value,
+                "policy": {"name": a.policy.name, "version": a.policy.version},
+                "reasons": [r.to_dict() for r in a.reasons],
+                "checks": [s.to_dict() for s in a.summaries],
+                "fleet": {
+                    "n_series": size,
+                    "n_failed": n_failed,
+                    "n_warned": n_warned,
+                    "n_passed": size - n_failed - n_warned,
+                    "bias": a.fleet_bias.to_dict(),
+                },
+                "series": series[g * size : (g + 1) * size],
+            }
+        )
     return out

@@ -63,7 +63,10 @@ def interval_coverage(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
         reasons = np.full(n, "no holdout intervals", dtype=object)
         nan = np.full(n, np.nan)
         return CheckResult(
-            name="interval_coverage", kind="test", statistic=nan, p_value=nan,
+            name="interval_coverage",
+            kind="test",
+            statistic=nan,
+            p_value=nan,
             details={"coverage": nan, "level": nan, "n_scored": np.zeros(n, dtype=np.int64)},
             skip_reason=reasons,
             null_hypothesis="the intervals miss at their nominal rate 1 - level",
@@ -76,8 +79,12 @@ def interval_coverage(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     x = below + above
     miss_rate = 1.0 - level
     lr = kupiec_lr(x, t, miss_rate)
-    scores = winkler_scores(np.where(ok, y, 0.0), np.where(ok, lo, 0.0), np.where(ok, up, 0.0),
-                            np.where(np.isnan(miss_rate), 1.0, miss_rate))
+    scores = winkler_scores(
+        np.where(ok, y, 0.0),
+        np.where(ok, lo, 0.0),
+        np.where(ok, up, 0.0),
+        np.where(np.isnan(miss_rate), 1.0, miss_rate),
+    )
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         coverage = 1.0 - x / t
         winkler = np.where(ok, scores, 0.0).sum(axis=1) / t

@@ -328,10 +328,12 @@ def _parse_policy(document: Mapping[str, Any]) -> Policy:
         raw_checks = {}
     for check_name, raw in raw_checks.items():
         if check_name not in SPECS:
-            errors.append({
-                "loc": f"checks.{check_name}",
-                "message": f"unknown check; known: {', '.join(CHECK_NAMES)}",
-            })
+            errors.append(
+                {
+                    "loc": f"checks.{check_name}",
+                    "message": f"unknown check; known: {', '.join(CHECK_NAMES)}",
+                }
+            )
             continue
         parsed = _parse_check(check_name, raw, errors)
         if parsed is not None:

@@ -130,12 +130,17 @@ class CheckResult:
         """The same result for the series in ``part`` (a slice of rows): read-only views of
         arrays this result already checked, so nothing is copied or checked again."""
         out = object.__new__(CheckResult)
-        for name, value in (("name", self.name), ("kind", self.kind),
-                            ("statistic", self.statistic[part]), ("p_value", self.p_value[part]),
-                            ("details", {k: v[part] for k, v in self.details.items()}),
-                            ("skip_reason", self.skip_reason[part]),
-                            ("null_hypothesis", self.null_hypothesis),
-                            ("detail_keys", self.detail_keys), ("_skipped", self._skipped[part])):
+        for name, value in (
+            ("name", self.name),
+            ("kind", self.kind),
+            ("statistic", self.statistic[part]),
+            ("p_value", self.p_value[part]),
+            ("details", {k: v[part] for k, v in self.details.items()}),
+            ("skip_reason", self.skip_reason[part]),
+            ("null_hypothesis", self.null_hypothesis),
+            ("detail_keys", self.detail_keys),
+            ("_skipped", self._skipped[part]),
+        ):
             object.__setattr__(out, name, value)
         return out
 

@@ -150,13 +150,14 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
             keep = ~np.isnan(block).all(axis=0)
             first = int(np.argmax(keep)) if keep.any() else 0
             last = int(keep.size - np.argmax(keep[::-1])) if keep.any() else 0
-            lm[idx], rows[idx], tss[idx] = _lm_one_order(
-                block[:, first:last], int(order), buffer
-            )
+            lm[idx], rows[idx], tss[idx] = _lm_one_order(block[:, first:last], int(order), buffer)
     # Squares that do not vary: constant residuals, +-c residuals (equal |e| within rounding),
     # or no variation left in the regression rows.
-    flat = (res.constant | nearly_constant(np.abs(res.values), res.observed, res.rounding_scale)
-            | ~(tss > 0))
+    flat = (
+        res.constant
+        | nearly_constant(np.abs(res.values), res.observed, res.rounding_scale)
+        | ~(tss > 0)
+    )
     reasons, ran = skip_reasons_and_ran(
         n_series,
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),

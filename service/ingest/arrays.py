@@ -45,8 +45,7 @@ def flat_numbers(
             if type(None) in types:  # None becomes NaN on the way through a list
                 arr = np.array(list(chain.from_iterable(rows)), dtype=float)
             else:
-                arr = np.fromiter(chain.from_iterable(rows), dtype=float,
-                                  count=int(lengths.sum()))
+                arr = np.fromiter(chain.from_iterable(rows), dtype=float, count=int(lengths.sum()))
         except OverflowError:
             ok = False
     if not ok:
@@ -57,8 +56,7 @@ def flat_numbers(
                 if isinstance(v, NonFinite):
                     errs.add(loc, f"value at index {j}: {v.describe()}")
                 else:
-                    errs.add(loc, f"value at index {j} must be a number or null, got "
-                             f"{describe(v)}")
+                    errs.add(loc, f"value at index {j} must be a number or null, got {describe(v)}")
                 if errs.full:
                     break
         return None
@@ -77,8 +75,11 @@ def flat_numbers(
         for pos in np.flatnonzero(huge)[:MAX_ERRORS]:
             i = int(np.searchsorted(ends, pos, side="right"))
             j = int(pos - (ends[i] - lengths[i]))
-            errs.add(locs[i], f"value at index {j} ({arr[pos]:g}) is beyond the accepted "
-                     f"magnitude of {MAX_ABS_VALUE:g}; rescale the series")
+            errs.add(
+                locs[i],
+                f"value at index {j} ({arr[pos]:g}) is beyond the accepted "
+                f"magnitude of {MAX_ABS_VALUE:g}; rescale the series",
+            )
         return None
     return arr, lengths
 
@@ -103,8 +104,9 @@ def check_timestamps(
         for i, r in present:
             for j, v in enumerate(r):
                 if not isinstance(v, str):
-                    errs.add(locs[i], f"value at index {j} must be an ISO 8601 string, got "
-                             f"{describe(v)}")
+                    errs.add(
+                        locs[i], f"value at index {j} must be an ISO 8601 string, got {describe(v)}"
+                    )
                     break
         return
     try:
@@ -117,8 +119,10 @@ def check_timestamps(
                 try:
                     datetime.fromisoformat(v)
                 except ValueError:
-                    errs.add(locs[i], f"value at index {j} ({v[:40]!r}) is not an ISO 8601 "
-                             "date or date-time")
+                    errs.add(
+                        locs[i],
+                        f"value at index {j} ({v[:40]!r}) is not an ISO 8601 date or date-time",
+                    )
                     break
             if errs.full:
                 break
@@ -144,7 +148,10 @@ def check_timestamps(
             reported.add(k)
             j = int(pos + 1 - starts[k])
             i = present[k][0]
-            errs.add(locs[i], f"must be strictly increasing: index {j} "
-                     f"({present[k][1][j][:40]!r}) is not after index {j - 1}")
+            errs.add(
+                locs[i],
+                f"must be strictly increasing: index {j} "
+                f"({present[k][1][j][:40]!r}) is not after index {j - 1}",
+            )
             if errs.full:
                 break

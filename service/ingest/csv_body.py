@@ -32,8 +32,9 @@ def _csv_float(text: str) -> float:
     return value
 
 
-def _param_int(params: Mapping[str, str], key: str, errs: Errors, default: int,
-               minimum: int) -> int:
+def _param_int(
+    params: Mapping[str, str], key: str, errs: Errors, default: int, minimum: int
+) -> int:
     raw = params.get(key)
     if raw is None or raw == "":
         return default
@@ -86,12 +87,16 @@ def parse_csv_request(
     col = {name: k for k, name in enumerate(header)}
     for name in CSV_REQUIRED:
         if name not in col:
-            errs.add(f"header.{name}", f"required column {name!r} is missing (columns: "
-                     f"{', '.join(header)})")
+            errs.add(
+                f"header.{name}",
+                f"required column {name!r} is missing (columns: {', '.join(header)})",
+            )
     for name in header:
         if name not in CSV_REQUIRED and name not in CSV_OPTIONAL:
-            errs.add(f"header.{name}", "unknown column; expected "
-                     f"{', '.join(CSV_REQUIRED + CSV_OPTIONAL)}")
+            errs.add(
+                f"header.{name}",
+                f"unknown column; expected {', '.join(CSV_REQUIRED + CSV_OPTIONAL)}",
+            )
     if len(col) != len(header):
         errs.add("header", "a column name appears twice")
     errs.check()
@@ -135,19 +140,32 @@ def parse_csv_request(
             g = groups.get(sid)
             if g is None:
                 if len(sid) > MAX_NAME_LENGTH or "\x00" in sid:
-                    errs.add(f"line[{line}].series_id",
-                             f"must be at most {MAX_NAME_LENGTH} characters, without NUL")
+                    errs.add(
+                        f"line[{line}].series_id",
+                        f"must be at most {MAX_NAME_LENGTH} characters, without NUL",
+                    )
                     continue
-                g = groups[sid] = {"a": [], "f": [], "ts": [], "ha": [], "hf": [], "lo": [],
-                                   "up": [], "hts": [], "line": [line]}
+                g = groups[sid] = {
+                    "a": [],
+                    "f": [],
+                    "ts": [],
+                    "ha": [],
+                    "hf": [],
+                    "lo": [],
+                    "up": [],
+                    "hts": [],
+                    "line": [line],
+                }
             values = []
             for key, k in (("actual", k_a), ("fitted", k_f), ("lower", k_lo), ("upper", k_up)):
                 cell = row[k].strip() if k is not None else ""
                 try:
                     values.append(_csv_float(cell))
                 except ValueError:
-                    errs.add(f"line[{line}].{key}", f"must be a finite number or empty, got "
-                             f"{cell[:40]!r}")
+                    errs.add(
+                        f"line[{line}].{key}",
+                        f"must be a finite number or empty, got {cell[:40]!r}",
+                    )
                     values.append(math.nan)
             ts = row[k_ts].strip() if k_ts is not None else ""
             if part == "holdout":
@@ -189,14 +207,17 @@ def parse_csv_request(
             errs.add(f"series[{i}].actuals", f"series {sid!r} has holdout rows but no train rows")
             continue
         if max_series_length is not None and max(len(g["a"]), len(g["ha"])) > max_series_length:
-            errs.add(f"series[{i}].actuals", f"series {sid!r} has more than "
-                     f"{max_series_length} rows")
+            errs.add(
+                f"series[{i}].actuals", f"series {sid!r} has more than {max_series_length} rows"
+            )
             continue
         s: dict[str, Any] = {"id": sid, "actuals": g["a"], "fitted": g["f"]}
         if k_ts is not None:
             if any(not t for t in g["ts"]):
-                errs.add(f"series[{i}].timestamps", f"series {sid!r}: every row needs a "
-                         "timestamp when the column is present")
+                errs.add(
+                    f"series[{i}].timestamps",
+                    f"series {sid!r}: every row needs a timestamp when the column is present",
+                )
             else:
                 s["timestamps"] = g["ts"]
         if g["ha"]:
@@ -206,8 +227,10 @@ def parse_csv_request(
             if any(lo_given) or any(up_given):
                 h["lower"], h["upper"] = g["lo"], g["up"]
                 if lo_given != up_given:
-                    errs.add(f"series[{i}].holdout.lower", f"series {sid!r}: lower and upper "
-                             "must be given on the same holdout rows")
+                    errs.add(
+                        f"series[{i}].holdout.lower",
+                        f"series {sid!r}: lower and upper must be given on the same holdout rows",
+                    )
                 if level is not None:
                     h["level"] = level
             if k_ts is not None and all(g["hts"]):
@@ -216,8 +239,14 @@ def parse_csv_request(
         series.append(s)
     errs.check()
     # The rest of the checks (lengths, order, bounds, limits) are the JSON body's.
-    doc = {"model": model, "version": version, "policy": policy,
-           "season_length": season_length, "model_params": model_params, "series": series}
+    doc = {
+        "model": model,
+        "version": version,
+        "policy": policy,
+        "season_length": season_length,
+        "model_params": model_params,
+        "series": series,
+    }
     return _with_nan_as_null(doc, max_series=max_series, max_series_length=max_series_length)
 
 

@@ -85,16 +85,24 @@ def load_json(body: bytes | bytearray | memoryview | str) -> Any:
             [{"loc": "body", "message": f"not UTF-8 text: {exc.reason} at byte {exc.start}"}]
         ) from None
     try:
-        doc = json.loads(text, parse_constant=NonFinite, parse_float=_strict_float,
-                         parse_int=_strict_int)
+        doc = json.loads(
+            text, parse_constant=NonFinite, parse_float=_strict_float, parse_int=_strict_int
+        )
     except (json.JSONDecodeError, RecursionError):
         raise RequestUnparseable(
             [{"loc": "body", "message": f"malformed JSON: {reason}"}]
         ) from None
     bad = _unpaired_surrogate(doc)
     if bad is not None:
-        raise RequestUnparseable([{"loc": bad, "message": "a string holds an unpaired "
-                                   "UTF-16 surrogate escape, which is not text"}])
+        raise RequestUnparseable(
+            [
+                {
+                    "loc": bad,
+                    "message": "a string holds an unpaired "
+                    "UTF-16 surrogate escape, which is not text",
+                }
+            ]
+        )
     return doc
 
 
@@ -140,8 +148,9 @@ def parse_json_request(
     """
     doc = load_json(body) if isinstance(body, (bytes, bytearray, memoryview, str)) else body
     if not isinstance(doc, Mapping):
-        raise RequestInvalid([{"loc": "body", "message": f"must be a JSON object, got "
-                               f"{describe(doc)}"}])
+        raise RequestInvalid(
+            [{"loc": "body", "message": f"must be a JSON object, got {describe(doc)}"}]
+        )
     errs = Errors()
     for key in doc:
         if key not in TOP_LEVEL_FIELDS:
@@ -187,8 +196,9 @@ def parse_json_request(
         elif not SERIES_FIELDS.issuperset(s):
             for key in s:
                 if key not in SERIES_FIELDS:
-                    errs.add(f"{at}.{key}",
-                             f"unknown field; expected one of {sorted(SERIES_FIELDS)}")
+                    errs.add(
+                        f"{at}.{key}", f"unknown field; expected one of {sorted(SERIES_FIELDS)}"
+                    )
         sid = s.get("id")
         if not isinstance(sid, str) or not sid:
             errs.add(f"{at}.id", f"must be a non-empty string, got {describe(sid)}")
@@ -204,15 +214,22 @@ def parse_json_request(
         a, f = s.get("actuals"), s.get("fitted")
         for key, v in (("actuals", a), ("fitted", f)):
             if not isinstance(v, list):
-                errs.add(f"{at}.{key}", "is required" if v is None
-                         else f"must be an array of numbers, got {describe(v)}")
+                errs.add(
+                    f"{at}.{key}",
+                    "is required"
+                    if v is None
+                    else f"must be an array of numbers, got {describe(v)}",
+                )
         a = a if isinstance(a, list) else empty
         f = f if isinstance(f, list) else empty
         if isinstance(s.get("actuals"), list) and not a:
             errs.add(f"{at}.actuals", "must hold at least one value")
         if len(f) != len(a) and isinstance(s.get("fitted"), list):
-            errs.add(f"{at}.fitted", f"has {len(f)} values, actuals has {len(a)}: give one fitted"
-                     " value (or null) per actual")
+            errs.add(
+                f"{at}.fitted",
+                f"has {len(f)} values, actuals has {len(a)}: give one fitted"
+                " value (or null) per actual",
+            )
         if max_series_length is not None and len(a) > max_series_length:
             errs.add(f"{at}.actuals", f"has {len(a)} values; the limit is {max_series_length}")
         actual_rows.append(a)
@@ -243,19 +260,25 @@ def parse_json_request(
             else:
                 for key in h:
                     if key not in HOLDOUT_FIELDS:
-                        errs.add(f"{at}.holdout.{key}",
-                                 f"unknown field; expected one of {sorted(HOLDOUT_FIELDS)}")
+                        errs.add(
+                            f"{at}.holdout.{key}",
+                            f"unknown field; expected one of {sorted(HOLDOUT_FIELDS)}",
+                        )
                 for key in ("actuals", "forecasts", "lower", "upper"):
                     v = h.get(key)
                     if v is not None and not isinstance(v, list):
-                        errs.add(f"{at}.holdout.{key}",
-                                 f"must be an array of numbers, got {describe(v)}")
+                        errs.add(
+                            f"{at}.holdout.{key}", f"must be an array of numbers, got {describe(v)}"
+                        )
                     elif v is not None:
                         hrow[key] = v
                 if ("actuals" in hrow) != ("forecasts" in hrow):
                     missing = "forecasts" if "actuals" in hrow else "actuals"
-                    errs.add(f"{at}.holdout.{missing}", "is required with holdout "
-                             + ("actuals" if missing == "forecasts" else "forecasts"))
+                    errs.add(
+                        f"{at}.holdout.{missing}",
+                        "is required with holdout "
+                        + ("actuals" if missing == "forecasts" else "forecasts"),
+                    )
                 if ("lower" in hrow) != ("upper" in hrow):
                     missing = "upper" if "lower" in hrow else "lower"
                     errs.add(f"{at}.holdout.{missing}", "lower and upper must be given together")
@@ -266,27 +289,34 @@ def parse_json_request(
                     if not ha:
                         errs.add(f"{at}.holdout.actuals", "must hold at least one value")
                     if max_series_length is not None and len(ha) > max_series_length:
-                        errs.add(f"{at}.holdout.actuals",
-                                 f"has {len(ha)} values; the limit is {max_series_length}")
+                        errs.add(
+                            f"{at}.holdout.actuals",
+                            f"has {len(ha)} values; the limit is {max_series_length}",
+                        )
                     for key in ("forecasts", "lower", "upper"):
                         if key in hrow and len(hrow[key]) != len(ha):
-                            errs.add(f"{at}.holdout.{key}", f"has {len(hrow[key])} values, "
-                                     f"holdout actuals has {len(ha)}")
+                            errs.add(
+                                f"{at}.holdout.{key}",
+                                f"has {len(hrow[key])} values, holdout actuals has {len(ha)}",
+                            )
                 level = h.get("level")
                 if level is not None:
                     if isinstance(level, bool) or not isinstance(level, (int, float)):
-                        errs.add(f"{at}.holdout.level", f"must be a number, got "
-                                 f"{describe(level)}")
+                        errs.add(f"{at}.holdout.level", f"must be a number, got {describe(level)}")
                         level = None
                     elif not 0.0 < float(level) < 1.0:
-                        errs.add(f"{at}.holdout.level",
-                                 f"must lie strictly between 0 and 1, got {level}")
+                        errs.add(
+                            f"{at}.holdout.level", f"must lie strictly between 0 and 1, got {level}"
+                        )
                         level = None
                 hts = h.get("timestamps")
-                if hts is not None and (not isinstance(hts, list) or ha is None
-                                        or len(hts) != len(ha)):
-                    errs.add(f"{at}.holdout.timestamps",
-                             "must be an array of strings, one per holdout actual")
+                if hts is not None and (
+                    not isinstance(hts, list) or ha is None or len(hts) != len(ha)
+                ):
+                    errs.add(
+                        f"{at}.holdout.timestamps",
+                        "must be an array of strings, one per holdout actual",
+                    )
                     hts = None
         has_holdout[i] = "actuals" in hrow and "forecasts" in hrow
         has_interval[i] = has_holdout[i] and "lower" in hrow and "upper" in hrow
@@ -339,18 +369,27 @@ def parse_json_request(
                         continue
                     done.add(i)
                     j = int(pos - (ends[i] - lo_len[i]))
-                    errs.add(f"series[{i}].holdout.lower", f"lower bound {lo_flat[pos]:g} is "
-                             f"above upper bound {up_flat[pos]:g} at index {j}")
+                    errs.add(
+                        f"series[{i}].holdout.lower",
+                        f"lower bound {lo_flat[pos]:g} is "
+                        f"above upper bound {up_flat[pos]:g} at index {j}",
+                    )
                     if errs.full:
                         break
                 errs.check()
             kwargs["holdout_lower"] = padded_matrix(lo_flat, lo_len, hwidth)
             kwargs["holdout_upper"] = padded_matrix(up_flat, lo_len, hwidth)
-            kwargs["level"] = [lv if iv else None for lv, iv in zip(levels, has_interval,
-                                                                    strict=True)]
+            kwargs["level"] = [
+                lv if iv else None for lv, iv in zip(levels, has_interval, strict=True)
+            ]
     batch = _make_batch(
-        actuals, fitted, ids=ids, weights=weights, season_length=season_length,
-        model_params=model_params, **kwargs,
+        actuals,
+        fitted,
+        ids=ids,
+        weights=weights,
+        season_length=season_length,
+        model_params=model_params,
+        **kwargs,
     )
     return AssessmentRequest(
         model=model,

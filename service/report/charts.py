@@ -70,8 +70,15 @@ def _svg_text(fig: Any, label: str, prefix: str) -> str:
 
 
 def _empty(ax: Any, message: str) -> None:
-    ax.text(0.5, 0.5, message, transform=ax.transAxes, ha="center", va="center",
-            color=ROLE_COLOURS["reference"])
+    ax.text(
+        0.5,
+        0.5,
+        message,
+        transform=ax.transAxes,
+        ha="center",
+        va="center",
+        color=ROLE_COLOURS["reference"],
+    )
     ax.set_xticks([])
     ax.set_yticks([])
 
@@ -102,11 +109,18 @@ def _residuals(ax: Any, d: SeriesDiagnostics) -> None:
     x = d.axis.train
     if d.tracking_window and ok.sum() >= 1:
         last = np.flatnonzero(ok)[-d.tracking_window :]
-        ax.axvspan(x[last[0]], x[last[-1]], color=ROLE_COLOURS["highlight"], alpha=0.10,
-                   linewidth=0, label=f"last {len(last)} residuals (tracking-signal window)")
+        ax.axvspan(
+            x[last[0]],
+            x[last[-1]],
+            color=ROLE_COLOURS["highlight"],
+            alpha=0.10,
+            linewidth=0,
+            label=f"last {len(last)} residuals (tracking-signal window)",
+        )
     _zero_line(ax)
-    ax.plot(x, d.residuals, color=ROLE_COLOURS["residual"], marker="o", markersize=2.4,
-            label="residual")
+    ax.plot(
+        x, d.residuals, color=ROLE_COLOURS["residual"], marker="o", markersize=2.4, label="residual"
+    )
     ax.set_xlabel(d.axis.label)
     ax.set_ylabel("Residual (actual − fitted)\n[series units]")
     _date_axis(ax, d.axis.is_date)
@@ -119,21 +133,44 @@ def _acf(ax: Any, d: SeriesDiagnostics) -> None:
         return
     lags = np.arange(1, d.acf.size + 1)
     if d.ljung_box_lags:
-        ax.axvspan(0.5, d.ljung_box_lags + 0.5, color=ROLE_COLOURS["highlight"], alpha=0.10,
-                   linewidth=0, label=f"lags 1–{d.ljung_box_lags} used by Ljung-Box")
+        ax.axvspan(
+            0.5,
+            d.ljung_box_lags + 0.5,
+            color=ROLE_COLOURS["highlight"],
+            alpha=0.10,
+            linewidth=0,
+            label=f"lags 1–{d.ljung_box_lags} used by Ljung-Box",
+        )
     b = d.acf_bound
     ax.axhspan(-b, b, color=GRID, alpha=0.6, linewidth=0)
-    ax.axhline(b, color=ROLE_COLOURS["reference"], linestyle="--", linewidth=1.0,
-               label=f"±1.96/√T = ±{b:.3g} (T = {d.n_obs})")
+    ax.axhline(
+        b,
+        color=ROLE_COLOURS["reference"],
+        linestyle="--",
+        linewidth=1.0,
+        label=f"±1.96/√T = ±{b:.3g} (T = {d.n_obs})",
+    )
     ax.axhline(-b, color=ROLE_COLOURS["reference"], linestyle="--", linewidth=1.0)
     _zero_line(ax)
     outside = np.abs(d.acf) > b
     ax.vlines(lags, 0, d.acf, color=ROLE_COLOURS["residual"], linewidth=1.6)
-    ax.plot(lags[~outside], d.acf[~outside], "o", color=ROLE_COLOURS["residual"],
-            markersize=3.5, label="autocorrelation")
+    ax.plot(
+        lags[~outside],
+        d.acf[~outside],
+        "o",
+        color=ROLE_COLOURS["residual"],
+        markersize=3.5,
+        label="autocorrelation",
+    )
     if outside.any():
-        ax.plot(lags[outside], d.acf[outside], "D", color=ROLE_COLOURS["forecast"],
-                markersize=4.5, label="outside the bounds")
+        ax.plot(
+            lags[outside],
+            d.acf[outside],
+            "D",
+            color=ROLE_COLOURS["forecast"],
+            markersize=4.5,
+            label="outside the bounds",
+        )
     ax.set_xlim(0.3, d.acf.size + 0.7)
     top = max(float(np.nanmax(np.abs(d.acf))), b) * 1.25
     ax.set_ylim(-top, top)
@@ -150,12 +187,25 @@ def _histogram(ax: Any, d: SeriesDiagnostics) -> None:
     edges = np.histogram_bin_edges(e, bins="auto")
     if edges.size - 1 > MAX_BINS:
         edges = np.histogram_bin_edges(e, bins=MAX_BINS)
-    ax.hist(e, bins=edges, density=True, color=ROLE_COLOURS["interval"], alpha=0.75,
-            edgecolor="white", linewidth=0.6, label=f"residuals (n = {e.size})")
+    ax.hist(
+        e,
+        bins=edges,
+        density=True,
+        color=ROLE_COLOURS["interval"],
+        alpha=0.75,
+        edgecolor="white",
+        linewidth=0.6,
+        label=f"residuals (n = {e.size})",
+    )
     span = np.linspace(min(edges[0], d.mean - 4 * d.std), max(edges[-1], d.mean + 4 * d.std), 200)
     pdf = np.exp(-0.5 * ((span - d.mean) / d.std) ** 2) / (d.std * np.sqrt(2 * np.pi))
-    ax.plot(span, pdf, color=ROLE_COLOURS["fit"], linewidth=2.0,
-            label=f"normal, mean {d.mean:.3g}, sd {d.std:.3g}")
+    ax.plot(
+        span,
+        pdf,
+        color=ROLE_COLOURS["fit"],
+        linewidth=2.0,
+        label=f"normal, mean {d.mean:.3g}, sd {d.std:.3g}",
+    )
     ax.axvline(0.0, color=ROLE_COLOURS["reference"], linewidth=1.0)
     ax.set_xlabel("Residual [series units]")
     ax.set_ylabel("Density [1 / series unit]")
@@ -168,8 +218,15 @@ def _fitted(ax: Any, d: SeriesDiagnostics) -> None:
         _empty(ax, "no residuals to draw")
         return
     _zero_line(ax)
-    ax.scatter(d.fitted[ok], d.residuals[ok], s=12, color=ROLE_COLOURS["residual"], alpha=0.75,
-               edgecolors="none", label="one period")
+    ax.scatter(
+        d.fitted[ok],
+        d.residuals[ok],
+        s=12,
+        color=ROLE_COLOURS["residual"],
+        alpha=0.75,
+        edgecolors="none",
+        label="one period",
+    )
     ax.set_xlabel("Fitted value [series units]")
     ax.set_ylabel("Residual [series units]")
     _legend(ax)
@@ -182,19 +239,50 @@ def _holdout(ax: Any, d: SeriesDiagnostics) -> None:
         return
     x_train = d.axis.train[h.context_start :]
     x_hold = d.axis.holdout
-    ax.plot(x_train, d.actuals[h.context_start :], color=ROLE_COLOURS["actual"], linewidth=1.1,
-            alpha=0.55, label="training actuals")
+    ax.plot(
+        x_train,
+        d.actuals[h.context_start :],
+        color=ROLE_COLOURS["actual"],
+        linewidth=1.1,
+        alpha=0.55,
+        label="training actuals",
+    )
     if h.lower is not None and h.upper is not None:
         level = f"{h.level:.0%} " if h.level else ""
-        ax.fill_between(x_hold, h.lower, h.upper, color=ROLE_COLOURS["interval"], alpha=0.35,
-                        linewidth=0, label=f"{level}prediction interval")
-    ax.plot(x_hold, h.actuals, color=ROLE_COLOURS["actual"], marker="o", markersize=3.0,
-            label="holdout actuals")
-    ax.plot(x_hold, h.forecasts, color=ROLE_COLOURS["forecast"], marker="s", markersize=3.0,
-            label="model forecast")
+        ax.fill_between(
+            x_hold,
+            h.lower,
+            h.upper,
+            color=ROLE_COLOURS["interval"],
+            alpha=0.35,
+            linewidth=0,
+            label=f"{level}prediction interval",
+        )
+    ax.plot(
+        x_hold,
+        h.actuals,
+        color=ROLE_COLOURS["actual"],
+        marker="o",
+        markersize=3.0,
+        label="holdout actuals",
+    )
+    ax.plot(
+        x_hold,
+        h.forecasts,
+        color=ROLE_COLOURS["forecast"],
+        marker="s",
+        markersize=3.0,
+        label="model forecast",
+    )
     if h.benchmark_forecasts is not None:
-        ax.plot(x_hold, h.benchmark_forecasts, color=ROLE_COLOURS["benchmark"], linestyle="--",
-                linewidth=1.6, label=f"best benchmark: {h.benchmark.replace('_', ' ')}")  # type: ignore[union-attr]
+        ax.plot(
+            x_hold,
+            h.benchmark_forecasts,
+            color=ROLE_COLOURS["benchmark"],
+            linestyle="--",
+            linewidth=1.6,
+            label=f"best benchmark: {h.benchmark.replace('_', ' ')}",
+        )  # type: ignore[union-attr]
     if x_train.size:
         ax.axvline(x_train[-1], color=ROLE_COLOURS["reference"], linestyle=":", linewidth=1.0)
     ax.set_xlabel(d.axis.label)
@@ -209,35 +297,48 @@ _SPECS: dict[str, tuple[str, _Draw, _Caption]] = {
     "residuals": (
         "Residuals over time",
         _residuals,
-        lambda d: "Actual minus fitted value per period, with the zero line. Runs on one side "
-        "of zero point to bias; a spread that changes over time points to unstable variance.",
+        lambda d: (
+            "Actual minus fitted value per period, with the zero line. Runs on one side "
+            "of zero point to bias; a spread that changes over time points to unstable variance."
+        ),
     ),
     "acf": (
         "Residual autocorrelation",
         _acf,
-        lambda d: "Sample autocorrelation of the residuals by lag, with the approximate 95% "
-        f"bounds ±1.96/√T for white noise (T = {d.n_obs} residuals)"
-        + (f"; shaded: lags 1–{d.ljung_box_lags}, the ones the Ljung-Box test summed."
-           if d.ljung_box_lags else "."),
+        lambda d: (
+            "Sample autocorrelation of the residuals by lag, with the approximate 95% "
+            f"bounds ±1.96/√T for white noise (T = {d.n_obs} residuals)"
+            + (
+                f"; shaded: lags 1–{d.ljung_box_lags}, the ones the Ljung-Box test summed."
+                if d.ljung_box_lags
+                else "."
+            )
+        ),
     ),
     "histogram": (
         "Residual distribution",
         _histogram,
-        lambda d: "Histogram of the residuals (as a density) with the normal density of the "
-        "same mean and standard deviation. Heavy tails or skew show as departures from the curve.",
+        lambda d: (
+            "Histogram of the residuals (as a density) with the normal density of the "
+            "same mean and standard deviation. Heavy tails or skew show as departures from the curve."
+        ),
     ),
     "fitted": (
         "Residuals against fitted values",
         _fitted,
-        lambda d: "Each dot is one period. A spread that widens as the fitted level grows "
-        "suggests errors proportional to the level (a log or multiplicative model may fit better).",
+        lambda d: (
+            "Each dot is one period. A spread that widens as the fitted level grows "
+            "suggests errors proportional to the level (a log or multiplicative model may fit better)."
+        ),
     ),
     "holdout": (
         "Holdout: actuals against forecasts",
         _holdout,
-        lambda d: "The out-of-sample period after the dotted line: actuals, the model's "
-        "forecasts, its prediction interval and the forecast of the best simple benchmark "
-        "fitted to the same training actuals.",
+        lambda d: (
+            "The out-of-sample period after the dotted line: actuals, the model's "
+            "forecasts, its prediction interval and the forecast of the best simple benchmark "
+            "fitted to the same training actuals."
+        ),
     ),
 }
 

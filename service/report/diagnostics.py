@@ -196,9 +196,7 @@ def series_diagnostics(
     bound = ACF_Z / np.sqrt(n_obs) if n_obs else float("nan")
 
     horizon = inputs.holdout_actuals.size if hold else 0  # type: ignore[union-attr]
-    axis = time_axis(
-        inputs.timestamps, inputs.actuals.size, horizon, inputs.holdout_timestamps
-    )
+    axis = time_axis(inputs.timestamps, inputs.actuals.size, horizon, inputs.holdout_timestamps)
     view = None
     if hold:
         best = _detail(checks.get("benchmark_skill"), "best_benchmark")

@@ -99,7 +99,7 @@ def _num(value: Any, digits: int = 3) -> str:
             return "—"
         if value != 0 and (abs(value) >= 1e7 or abs(value) < 1e-3):
             return f"{value:.{digits}g}"
-        if abs(value) >= 10 ** digits:
+        if abs(value) >= 10**digits:
             return f"{value:,.0f}"
         return f"{value:.{digits}g}"
     return _e(value)
@@ -140,8 +140,10 @@ def _message(check: Any, message: Any) -> str:
 
 
 def _check_cell(check: Any) -> str:
-    return (f'<span class="check-title">{_e(_title(check))}</span>'
-            f'<code class="check-name">{_e(check)}</code>')
+    return (
+        f'<span class="check-title">{_e(_title(check))}</span>'
+        f'<code class="check-name">{_e(check)}</code>'
+    )
 
 
 def _status(status: Any) -> str:
@@ -159,7 +161,7 @@ def _page(title: str, body: str, *, script: bool = False) -> str:
         '<link rel="icon" href="data:,">'
         f"<title>{_e(title)}</title><style>{PAGE_CSS}</style></head>"
         f"<body><main>{body}"
-        f'<footer><p>{DISCLAIMER} Rendered by Plumbline {_e(__version__)}.</p></footer>'
+        f"<footer><p>{DISCLAIMER} Rendered by Plumbline {_e(__version__)}.</p></footer>"
         f"</main>{js}</body></html>\n"
     )
 
@@ -218,9 +220,7 @@ def _header(assessment: Mapping[str, Any], title: str, back: str = "") -> str:
         bits.append(f"assessment <code>{_e(assessment.get('id'))}</code>")
     labels = assessment.get("labels") or {}
     if labels:
-        bits.append(
-            "labels " + ", ".join(f"{_e(k)}={_e(v)}" for k, v in sorted(labels.items()))
-        )
+        bits.append("labels " + ", ".join(f"{_e(k)}={_e(v)}" for k, v in sorted(labels.items())))
     return (
         f'<header class="top"><div>{back}<h1>{_e(title)}</h1>'
         f'<div class="meta">{" · ".join(bits)}</div></div>'
@@ -235,7 +235,8 @@ def _reasons(reasons: Sequence[Mapping[str, Any]], series_href: SeriesHref) -> s
     def item(r: Mapping[str, Any]) -> str:
         sid = r.get("series_id")
         where = (
-            f'<a href="{_e(series_href(str(sid)))}">{_e(sid)}</a>' if sid is not None
+            f'<a href="{_e(series_href(str(sid)))}">{_e(sid)}</a>'
+            if sid is not None
             else "across the fleet"
         )
         return (
@@ -288,8 +289,10 @@ def _fleet_bias(fleet: Mapping[str, Any]) -> str:
         [
             ("Mean error (actual − fitted)", _num(b.get("mean_error"), 4)),
             ("Standard error", _num(b.get("std_error"), 4)),
-            ("Percent bias", "—" if b.get("percent_bias") is None
-             else f"{_num(b.get('percent_bias'), 3)}%"),
+            (
+                "Percent bias",
+                "—" if b.get("percent_bias") is None else f"{_num(b.get('percent_bias'), 3)}%",
+            ),
             ("t statistic", _num(b.get("statistic"), 4)),
             ("p-value", _p(b.get("p_value"))),
         ]
@@ -341,7 +344,7 @@ def _series_table(series: Sequence[Mapping[str, Any]], series_href: SeriesHref) 
         '<th class="num" data-type="num">Mean error</th>'
         '<th class="num" data-type="num">% bias</th>'
         '<th class="num" data-type="num">Tracking signal</th>'
-        f'</tr></thead><tbody>{"".join(rows)}</tbody></table></div>'
+        f"</tr></thead><tbody>{''.join(rows)}</tbody></table></div>"
     )
 
 
@@ -446,10 +449,14 @@ def render_series(
             ("Residuals", _num(series.get("n_obs"))),
             ("Weight", _num(series.get("weight"))),
             ("Mean error", _num(bias.get("mean_error"), 4)),
-            ("95% interval of the mean", f"{_num(bias.get('ci_low'), 4)} to "
-             f"{_num(bias.get('ci_high'), 4)}"),
-            ("Percent bias", "—" if bias.get("percent_bias") is None
-             else f"{_num(bias.get('percent_bias'))}%"),
+            (
+                "95% interval of the mean",
+                f"{_num(bias.get('ci_low'), 4)} to {_num(bias.get('ci_high'), 4)}",
+            ),
+            (
+                "Percent bias",
+                "—" if bias.get("percent_bias") is None else f"{_num(bias.get('percent_bias'))}%",
+            ),
             ("Tracking signal", _num(bias.get("tracking_signal"))),
         ]
     )

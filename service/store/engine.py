@@ -51,5 +51,7 @@ def make_engine(url: str, **kwargs: Any) -> Engine:
         if "connect_timeout" not in parsed.query:
             connect_args.setdefault("connect_timeout", POSTGRES_CONNECT_TIMEOUT_SECONDS)
         return create_engine(parsed, connect_args=connect_args, **kwargs)
-    raise ValueError(f"unsupported database URL scheme {parsed.drivername!r}: use sqlite:/// or "
-                     "postgresql+psycopg://")
+    raise ValueError(
+        f"unsupported database URL scheme {parsed.drivername!r}: use sqlite:/// or "
+        "postgresql+psycopg://"
+    )

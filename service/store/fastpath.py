@@ -32,8 +32,10 @@ class Statement:
         if self.defaults:  # parameters the statement binds itself (OFFSET 0 on SQLite)
             values = {**self.defaults, **values}
         if self.processors:
-            values = {k: (self.processors[k](v) if k in self.processors and v is not None
-                          else v) for k, v in values.items()}
+            values = {
+                k: (self.processors[k](v) if k in self.processors and v is not None else v)
+                for k, v in values.items()
+            }
         if self.positional:
             return [values[k] for k in self.keys]
         return {k: values[k] for k in self.keys}
@@ -49,25 +51,37 @@ def _compile(engine: Engine, stmt: Any, table: Table, keys: Sequence[str]) -> St
             if proc is not None:
                 processors[key] = proc
     defaults = {k: v for k, v in compiled.params.items() if k not in keys}
-    return Statement(sql=str(compiled), keys=tuple(order) if order else tuple(compiled.params),
-                     positional=order is not None, processors=processors, defaults=defaults)
+    return Statement(
+        sql=str(compiled),
+        keys=tuple(order) if order else tuple(compiled.params),
+        positional=order is not None,
+        processors=processors,
+        defaults=defaults,
+    )
 
 
 class Statements:
     """The compiled statements for one engine."""
 
     def __init__(self, engine: Engine) -> None:
-        a, sr, si, k = (AssessmentRow.__table__, SeriesResultRow.__table__,
-                        SeriesInputRow.__table__, IdempotencyKeyRow.__table__)
+        a, sr, si, k = (
+            AssessmentRow.__table__,
+            SeriesResultRow.__table__,
+            SeriesInputRow.__table__,
+            IdempotencyKeyRow.__table__,
+        )
         p = PolicyRow.__table__
         a_keys = [c.name for c in a.c if c.name != "seq"]
         self.insert_assessment = _compile(engine, insert(a).returning(a.c.seq), a, a_keys)
         self.insert_series_result = _compile(engine, insert(sr), sr, [c.name for c in sr.c])
         self.insert_series_input = _compile(engine, insert(si), si, [c.name for c in si.c])
         self.insert_key = _compile(engine, insert(k), k, [c.name for c in k.c])
-        latest = (select(p.c.version, p.c.document)
-                  .where(p.c.name == bindparam("name")).order_by(p.c.version.desc())
-                  .limit(bindparam("one")))
+        latest = (
+            select(p.c.version, p.c.document)
+            .where(p.c.name == bindparam("name"))
+            .order_by(p.c.version.desc())
+            .limit(bindparam("one"))
+        )
         self.latest_policy = _compile(engine, latest, p, ["name", "one"])
         self.integrity_error = engine.dialect.dbapi.IntegrityError
 

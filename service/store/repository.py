@@ -136,16 +136,33 @@ class StoredAssessment:
 
 
 _SUMMARY_COLUMNS = (
-    A.c.seq, A.c.id, A.c.created_at, A.c.model, A.c.version, A.c.verdict, A.c.n_series,
-    A.c.n_failed, A.c.n_warned, A.c.policy_name, A.c.policy_version,
+    A.c.seq,
+    A.c.id,
+    A.c.created_at,
+    A.c.model,
+    A.c.version,
+    A.c.verdict,
+    A.c.n_series,
+    A.c.n_failed,
+    A.c.n_warned,
+    A.c.policy_name,
+    A.c.policy_version,
 )
 
 
 def _summary(row: Any) -> AssessmentSummary:
     return AssessmentSummary(
-        seq=row.seq, id=row.id, created_at=_aware(row.created_at), model=row.model,
-        version=row.version, verdict=row.verdict, n_series=row.n_series, n_failed=row.n_failed,
-        n_warned=row.n_warned, policy_name=row.policy_name, policy_version=row.policy_version,
+        seq=row.seq,
+        id=row.id,
+        created_at=_aware(row.created_at),
+        model=row.model,
+        version=row.version,
+        verdict=row.verdict,
+        n_series=row.n_series,
+        n_failed=row.n_failed,
+        n_warned=row.n_warned,
+        policy_name=row.policy_name,
+        policy_version=row.policy_version,
     )
 
 
@@ -189,9 +206,16 @@ class NewAssessment:
 
     def summary(self, seq: int) -> AssessmentSummary:
         return AssessmentSummary(
-            seq=seq, id=self.assessment_id, created_at=self.created_at, model=self.model,
-            version=self.version, verdict=self.verdict, n_series=len(self.series),
-            n_failed=self.n_failed, n_warned=self.n_warned, policy_name=self.policy_name,
+            seq=seq,
+            id=self.assessment_id,
+            created_at=self.created_at,
+            model=self.model,
+            version=self.version,
+            verdict=self.verdict,
+            n_series=len(self.series),
+            n_failed=self.n_failed,
+            n_warned=self.n_warned,
+            policy_name=self.policy_name,
             policy_version=self.policy_version,
         )
 
@@ -209,7 +233,8 @@ def _input_row(i: int, s: SeriesInput) -> dict[str, Any]:
         "holdout_lower": pack(s.holdout_lower),
         "holdout_upper": pack(s.holdout_upper),
         "holdout_level": s.holdout_level,
-        "holdout_timestamps": None if s.holdout_timestamps is None
+        "holdout_timestamps": None
+        if s.holdout_timestamps is None
         else orjson.dumps(s.holdout_timestamps).decode(),
     }
 
@@ -223,27 +248,53 @@ def _write_all(engine: Engine, records: Sequence[NewAssessment]) -> list[int]:
         result_rows: list[dict[str, Any]] = []
         input_rows: list[dict[str, Any]] = []
         for r in records:
-            cursor.execute(stmts.insert_assessment.sql, stmts.insert_assessment.params({
-                "id": r.assessment_id, "created_at": r.created_at, "model": r.model,
-                "version": r.version, "verdict": r.verdict, "n_series": len(r.series),
-                "n_failed": r.n_failed, "n_warned": r.n_warned, "policy_name": r.policy_name,
-                "policy_version": r.policy_version,
-                "policy_document": orjson.dumps(r.policy_document).decode(),
-                "result": r.head.decode(),
-            }))
+            cursor.execute(
+                stmts.insert_assessment.sql,
+                stmts.insert_assessment.params(
+                    {
+                        "id": r.assessment_id,
+                        "created_at": r.created_at,
+                        "model": r.model,
+                        "version": r.version,
+                        "verdict": r.verdict,
+                        "n_series": len(r.series),
+                        "n_failed": r.n_failed,
+                        "n_warned": r.n_warned,
+                        "policy_name": r.policy_name,
+                        "policy_version": r.policy_version,
+                        "policy_document": orjson.dumps(r.policy_document).decode(),
+                        "result": r.head.decode(),
+                    }
+                ),
+            )
             seq = int(cursor.fetchone()[0])
             seqs.append(seq)
             result_rows += [
-                {"assessment_seq": seq, "position": i, "series_id": s.series_id,
-                 "verdict": s.verdict, "n_obs": s.n_obs, "result": s.json.decode()}
+                {
+                    "assessment_seq": seq,
+                    "position": i,
+                    "series_id": s.series_id,
+                    "verdict": s.verdict,
+                    "n_obs": s.n_obs,
+                    "result": s.json.decode(),
+                }
                 for i, s in enumerate(r.series)
             ]
-            input_rows += [{"assessment_seq": seq, **_input_row(i, s)}
-                           for i, s in enumerate(r.inputs)]
+            input_rows += [
+                {"assessment_seq": seq, **_input_row(i, s)} for i, s in enumerate(r.inputs)
+            ]
             if r.idempotency_key is not None:
-                cursor.execute(stmts.insert_key.sql, stmts.insert_key.params({
-                    "key": r.idempotency_key, "body_hash": r.body_hash, "assessment_seq": seq,
-                    "created_at": r.created_at}))
+                cursor.execute(
+                    stmts.insert_key.sql,
+                    stmts.insert_key.params(
+                        {
+                            "key": r.idempotency_key,
+                            "body_hash": r.body_hash,
+                            "assessment_seq": seq,
+                            "created_at": r.created_at,
+                        }
+                    ),
+                )
         # Every series row of every assessment in two statements.
         fastpath.executemany(cursor, stmts.insert_series_result, result_rows)
         fastpath.executemany(cursor, stmts.insert_series_input, input_rows)
@@ -270,14 +321,14 @@ def save_assessments(
         return []
     stmts = fastpath.statements(engine)
     try:
-        return [r.summary(seq) for r, seq in zip(records, _write_all(engine, records),
-                                                 strict=True)]
+        return [r.summary(seq) for r, seq in zip(records, _write_all(engine, records), strict=True)]
     except stmts.integrity_error:
         if len(records) == 1:
             r = records[0]
-            if r.idempotency_key is not None and find_idempotency_key(
-                engine, key=r.idempotency_key
-            ) is not None:
+            if (
+                r.idempotency_key is not None
+                and find_idempotency_key(engine, key=r.idempotency_key) is not None
+            ):
                 return [IdempotencyConflict(r.idempotency_key)]
             raise
     out: list[AssessmentSummary | Exception] = []
@@ -297,9 +348,13 @@ def get_assessment(engine: Engine, *, assessment_id: str) -> StoredAssessment | 
         ).first()
         if row is None:
             return None
-        series = conn.execute(
-            select(SR.c.result).where(SR.c.assessment_seq == row.seq).order_by(SR.c.position)
-        ).scalars().all()
+        series = (
+            conn.execute(
+                select(SR.c.result).where(SR.c.assessment_seq == row.seq).order_by(SR.c.position)
+            )
+            .scalars()
+            .all()
+        )
     return StoredAssessment(
         summary=_summary(row), head=row.result.encode(), series=[s.encode() for s in series]
     )
@@ -368,14 +423,18 @@ def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | 
         ).all()
     return [
         SeriesInput(
-            series_id=r.series_id, weight=r.weight, actuals=unpack(r.actuals),  # type: ignore[arg-type]
+            series_id=r.series_id,
+            weight=r.weight,
+            actuals=unpack(r.actuals),  # type: ignore[arg-type]
             fitted=unpack(r.fitted),  # type: ignore[arg-type]
             timestamps=None if r.timestamps is None else orjson.loads(r.timestamps),
             holdout_actuals=unpack(r.holdout_actuals),
             holdout_forecasts=unpack(r.holdout_forecasts),
-            holdout_lower=unpack(r.holdout_lower), holdout_upper=unpack(r.holdout_upper),
+            holdout_lower=unpack(r.holdout_lower),
+            holdout_upper=unpack(r.holdout_upper),
             holdout_level=r.holdout_level,
-            holdout_timestamps=None if r.holdout_timestamps is None
+            holdout_timestamps=None
+            if r.holdout_timestamps is None
             else orjson.loads(r.holdout_timestamps),
         )
         for r in rows
@@ -405,8 +464,9 @@ def find_idempotency_key(engine: Engine, *, key: str) -> IdempotencyRecord | Non
         row = conn.execute(select(K).where(K.c.key == key)).first()
     if row is None:
         return None
-    return IdempotencyRecord(key=row.key, body_hash=row.body_hash,
-                             assessment_seq=row.assessment_seq)
+    return IdempotencyRecord(
+        key=row.key, body_hash=row.body_hash, assessment_seq=row.assessment_seq
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -421,12 +481,20 @@ class StoredPolicy:
     created_at: datetime
 
     def to_dict(self) -> dict[str, Any]:
-        return {"name": self.name, "version": self.version, "created_at":
-                self.created_at.isoformat(), "document": self.document}
+        return {
+            "name": self.name,
+            "version": self.version,
+            "created_at": self.created_at.isoformat(),
+            "document": self.document,
+        }
 
 
 def save_policy(
-    engine: Engine, *, name: str, document: dict[str, Any], first_version: int = 1,
+    engine: Engine,
+    *,
+    name: str,
+    document: dict[str, Any],
+    first_version: int = 1,
     attempts: int = 5,
 ) -> StoredPolicy:
     """Store ``document`` as the next version of policy ``name`` (``first_version`` if new).
@@ -442,8 +510,15 @@ def save_policy(
                 ).scalar()
                 version = first_version if current is None else int(current) + 1
                 doc = {**document, "name": name, "version": version}
-                conn.execute(insert(P), {"name": name, "version": version, "created_at": created,
-                                         "document": orjson.dumps(doc).decode()})
+                conn.execute(
+                    insert(P),
+                    {
+                        "name": name,
+                        "version": version,
+                        "created_at": created,
+                        "document": orjson.dumps(doc).decode(),
+                    },
+                )
             return StoredPolicy(name=name, version=version, document=doc, created_at=created)
         except IntegrityError:  # a concurrent writer took that version: try the next one
             continue
@@ -453,14 +528,21 @@ def save_policy(
 def get_policy(engine: Engine, *, name: str, version: int | None = None) -> StoredPolicy | None:
     """Version ``version`` of policy ``name`` (default: the newest), or ``None``."""
     q = select(P).where(P.c.name == name)
-    q = q.where(P.c.version == version) if version is not None else q.order_by(
-        P.c.version.desc()).limit(1)
+    q = (
+        q.where(P.c.version == version)
+        if version is not None
+        else q.order_by(P.c.version.desc()).limit(1)
+    )
     with engine.connect() as conn:
         row = conn.execute(q).first()
     if row is None:
         return None
-    return StoredPolicy(name=row.name, version=row.version, document=orjson.loads(row.document),
-                        created_at=_aware(row.created_at))
+    return StoredPolicy(
+        name=row.name,
+        version=row.version,
+        document=orjson.loads(row.document),
+        created_at=_aware(row.created_at),
+    )
 
 
 def latest_policy_document(engine: Engine, *, name: str) -> tuple[int, dict[str, Any]] | None:
@@ -484,8 +566,15 @@ def list_policies(engine: Engine) -> list[StoredPolicy]:
     q = select(P).join(newest, (P.c.name == newest.c.name) & (P.c.version == newest.c.v))
     with engine.connect() as conn:
         rows = conn.execute(q.order_by(P.c.name)).all()
-    return [StoredPolicy(name=r.name, version=r.version, document=orjson.loads(r.document),
-                         created_at=_aware(r.created_at)) for r in rows]
+    return [
+        StoredPolicy(
+            name=r.name,
+            version=r.version,
+            document=orjson.loads(r.document),
+            created_at=_aware(r.created_at),
+        )
+        for r in rows
+    ]
 
 
 # ---------------------------------------------------------------------------------------------
@@ -505,15 +594,23 @@ class StoredToken:
     revoked_at: datetime | None
 
     def to_dict(self) -> dict[str, Any]:
-        return {"id": self.id, "scopes": list(self.scopes), "label": self.label,
-                "created_at": self.created_at.isoformat(),
-                "revoked_at": None if self.revoked_at is None else self.revoked_at.isoformat()}
+        return {
+            "id": self.id,
+            "scopes": list(self.scopes),
+            "label": self.label,
+            "created_at": self.created_at.isoformat(),
+            "revoked_at": None if self.revoked_at is None else self.revoked_at.isoformat(),
+        }
 
 
 def _token(row: Any) -> StoredToken:
-    return StoredToken(id=row.id, scopes=tuple(row.scopes.split()), label=row.label,
-                       created_at=_aware(row.created_at),
-                       revoked_at=None if row.revoked_at is None else _aware(row.revoked_at))
+    return StoredToken(
+        id=row.id,
+        scopes=tuple(row.scopes.split()),
+        label=row.label,
+        created_at=_aware(row.created_at),
+        revoked_at=None if row.revoked_at is None else _aware(row.revoked_at),
+    )
 
 
 def create_token(
@@ -521,12 +618,23 @@ def create_token(
 ) -> tuple[StoredToken, str]:
     """Mint a token; returns its record and the secret (shown once, only its hash is kept)."""
     secret = TOKEN_PREFIX + secrets.token_urlsafe(32)
-    row = {"id": new_id(), "token_hash": hash_token(secret), "scopes": " ".join(scopes),
-           "label": label, "created_at": utcnow(), "revoked_at": None}
+    row = {
+        "id": new_id(),
+        "token_hash": hash_token(secret),
+        "scopes": " ".join(scopes),
+        "label": label,
+        "created_at": utcnow(),
+        "revoked_at": None,
+    }
     with engine.begin() as conn:
         conn.execute(insert(T), row)
-    return StoredToken(id=row["id"], scopes=tuple(scopes), label=label,
-                       created_at=row["created_at"], revoked_at=None), secret
+    return StoredToken(
+        id=row["id"],
+        scopes=tuple(scopes),
+        label=label,
+        created_at=row["created_at"],
+        revoked_at=None,
+    ), secret
 
 
 def find_token(engine: Engine, *, secret: str) -> StoredToken | None:
@@ -548,8 +656,9 @@ def revoke_token(engine: Engine, *, token_id: str) -> bool:
     """Revoke a token; ``False`` when no live token has that id."""
     with engine.begin() as conn:
         done = conn.execute(
-            update(T).where(T.c.id == token_id, T.c.revoked_at.is_(None)).values(
-                revoked_at=utcnow())
+            update(T)
+            .where(T.c.id == token_id, T.c.revoked_at.is_(None))
+            .values(revoked_at=utcnow())
         )
     return bool(done.rowcount)
 

@@ -46,8 +46,7 @@ def token(client: TestClient) -> Callable[..., dict[str, str]]:
     """Mint a token with the given scopes; returns its Authorization header."""
 
     def mint(*scopes: str) -> dict[str, str]:
-        r = client.post("/v1/tokens", json={"scopes": list(scopes), "label": "test"},
-                        headers=ADMIN)
+        r = client.post("/v1/tokens", json={"scopes": list(scopes), "label": "test"}, headers=ADMIN)
         assert r.status_code == 201, r.text
         return {"Authorization": f"Bearer {r.json()['token']}"}
 
@@ -58,9 +57,14 @@ def token(client: TestClient) -> Callable[..., dict[str, str]]:
 def body() -> Callable[..., dict[str, Any]]:
     """An assessment body with ``n`` white-noise series (keywords go to the series maker)."""
 
-    def make(n: int = 3, model: str = "loaves-daily", version: str = "1", **kw: Any
-             ) -> dict[str, Any]:
-        return {"model": model, "version": version, "labels": {"run": "7"},
-                "series": [white_noise_series(f"s{i}", seed=i, **kw) for i in range(n)]}
+    def make(
+        n: int = 3, model: str = "loaves-daily", version: str = "1", **kw: Any
+    ) -> dict[str, Any]:
+        return {
+            "model": model,
+            "version": version,
+            "labels": {"run": "7"},
+            "series": [white_noise_series(f"s{i}", seed=i, **kw) for i in range(n)],
+        }
 
     return make

@@ -10,8 +10,9 @@ ADMIN_TOKEN = "test-admin-token-0123456789"
 ADMIN = {"Authorization": f"Bearer {ADMIN_TOKEN}"}
 
 
-def white_noise_series(sid: str, n: int = 156, seed: int = 0, bias: float = 0.0,
-                       phi: float = 0.0, holdout: int = 0) -> dict[str, Any]:
+def white_noise_series(
+    sid: str, n: int = 156, seed: int = 0, bias: float = 0.0, phi: float = 0.0, holdout: int = 0
+) -> dict[str, Any]:
     """A series whose residuals are N(bias, 1) (AR(1) with coefficient ``phi``)."""
     rng = np.random.default_rng(seed)
     level = 100.0 + 10.0 * np.sin(np.arange(n + holdout) * 2 * np.pi / 52)

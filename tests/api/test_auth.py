@@ -30,12 +30,20 @@ def test_other_scheme_is_401(client):
 
 
 def test_every_v1_endpoint_needs_a_token(client):
-    for method, path in [("POST", "/v1/assessments"), ("GET", "/v1/assessments"),
-                         ("GET", "/v1/assessments/x"), ("GET", "/v1/assessments/x/series"),
-                         ("GET", "/v1/models/m/verdict"), ("GET", "/v1/checks"),
-                         ("POST", "/v1/policies"), ("GET", "/v1/policies"),
-                         ("GET", "/v1/policies/default"), ("POST", "/v1/tokens"),
-                         ("GET", "/v1/tokens"), ("DELETE", "/v1/tokens/x")]:
+    for method, path in [
+        ("POST", "/v1/assessments"),
+        ("GET", "/v1/assessments"),
+        ("GET", "/v1/assessments/x"),
+        ("GET", "/v1/assessments/x/series"),
+        ("GET", "/v1/models/m/verdict"),
+        ("GET", "/v1/checks"),
+        ("POST", "/v1/policies"),
+        ("GET", "/v1/policies"),
+        ("GET", "/v1/policies/default"),
+        ("POST", "/v1/tokens"),
+        ("GET", "/v1/tokens"),
+        ("DELETE", "/v1/tokens/x"),
+    ]:
         assert client.request(method, path).status_code == 401, (method, path)
 
 
@@ -91,8 +99,7 @@ def test_tokens_are_stored_only_as_sha256_hashes(client, settings):
 
 def test_wrong_env_token_of_same_length_is_refused(client):
     wrong = "x" * len(ADMIN["Authorization"].removeprefix("Bearer "))
-    assert client.get("/v1/checks", headers={"Authorization": f"Bearer {wrong}"}
-                      ).status_code == 401
+    assert client.get("/v1/checks", headers={"Authorization": f"Bearer {wrong}"}).status_code == 401
 
 
 def test_no_admin_token_configured_means_only_stored_tokens(make_client):
@@ -122,8 +129,9 @@ def test_env_admin_token_suppresses_first_token(migrated_url):
 
     engine = make_engine(migrated_url)
     try:
-        assert ensure_first_token(engine, Settings(database_url=migrated_url,
-                                                   admin_token="t")) is None
+        assert (
+            ensure_first_token(engine, Settings(database_url=migrated_url, admin_token="t")) is None
+        )
     finally:
         engine.dispose()
 

@@ -91,8 +91,10 @@ def test_a_failing_pass_fails_each_of_its_submissions(monkeypatch: pytest.Monkey
 
     async def scenario() -> list[Any]:
         batcher = SubmissionBatcher(engine=None)  # type: ignore[arg-type]
-        return await asyncio.gather(*(batcher.submit(f"j{i}") for i in range(3)),  # type: ignore[arg-type]
-                                    return_exceptions=True)
+        return await asyncio.gather(
+            *(batcher.submit(f"j{i}") for i in range(3)),  # type: ignore[arg-type]
+            return_exceptions=True,
+        )
 
     answers = asyncio.run(scenario())
     assert all(isinstance(a, RuntimeError) for a in answers)

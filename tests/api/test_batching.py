@@ -53,12 +53,14 @@ def run(coro: Coroutine[Any, Any, Any]) -> Any:
 @asynccontextmanager
 async def serving(database_url: str) -> AsyncIterator[tuple[Any, httpx.AsyncClient]]:
     """A fresh app on ``database_url`` with its lifespan running, and an in-process client."""
-    app = create_app(Settings(database_url=database_url, admin_token=ADMIN_TOKEN,
-                              rate_limit_per_second=0))
+    app = create_app(
+        Settings(database_url=database_url, admin_token=ADMIN_TOKEN, rate_limit_per_second=0)
+    )
     async with app.router.lifespan_context(app):
         transport = httpx.ASGITransport(app=app)
-        async with httpx.AsyncClient(transport=transport,
-                                     base_url="http://plumbline.test") as client:
+        async with httpx.AsyncClient(
+            transport=transport, base_url="http://plumbline.test"
+        ) as client:
             yield app, client
 
 
@@ -68,23 +70,47 @@ def small(body: dict[str, Any]) -> dict[str, Any]:
     return body
 
 
-def submission(prefix: str, n_series: int = 1, *, seeds: tuple[int, ...] | None = None,
-               lengths: tuple[int, ...] | None = None, biases: tuple[float, ...] | None = None,
-               phis: tuple[float, ...] | None = None, holdout: int = 0,
-               **top: Any) -> dict[str, Any]:
+def submission(
+    prefix: str,
+    n_series: int = 1,
+    *,
+    seeds: tuple[int, ...] | None = None,
+    lengths: tuple[int, ...] | None = None,
+    biases: tuple[float, ...] | None = None,
+    phis: tuple[float, ...] | None = None,
+    holdout: int = 0,
+    **top: Any,
+) -> dict[str, Any]:
     """An invented assessment body: ``n_series`` series named ``prefix-0``, ``prefix-1``, ..."""
     seeds = seeds or tuple(range(n_series))
     lengths = lengths or (104,) * n_series
     biases = biases or (0.0,) * n_series
     phis = phis or (0.0,) * n_series
-    series = [white_noise_series(f"{prefix}-{i}", n=lengths[i], seed=seeds[i], bias=biases[i],
-                                 phi=phis[i], holdout=holdout) for i in range(n_series)]
-    return small({"model": "footfall-weekly", "version": "3", "labels": {"scenario": "invented"},
-                  "series": series, **top})
+    series = [
+        white_noise_series(
+            f"{prefix}-{i}",
+            n=lengths[i],
+            seed=seeds[i],
+            bias=biases[i],
+            phi=phis[i],
+            holdout=holdout,
+        )
+        for i in range(n_series)
+    ]
+    return small(
+        {
+            "model": "footfall-weekly",
+            "version": "3",
+            "labels": {"scenario": "invented"},
+            "series": series,
+            **top,
+        }
+    )
 
 
-async def post(client: httpx.AsyncClient, body: dict[str, Any], *, store: bool = True,
-               key: str | None = None) -> httpx.Response:
+async def post(
+    client: httpx.AsyncClient, body: dict[str, Any], *, store: bool = True, key: str | None = None
+) -> httpx.Response:
     headers = dict(ADMIN)
     if key is not None:
         headers["Idempotency-Key"] = key
@@ -92,8 +118,9 @@ async def post(client: httpx.AsyncClient, body: dict[str, Any], *, store: bool =
     return await client.post("/v1/assessments", json=body, params=params, headers=headers)
 
 
-async def post_all(client: httpx.AsyncClient, bodies: list[dict[str, Any]], **kw: Any
-                   ) -> list[httpx.Response]:
+async def post_all(
+    client: httpx.AsyncClient, bodies: list[dict[str, Any]], **kw: Any
+) -> list[httpx.Response]:
     """All of ``bodies`` at once (one gather), answers in the order of ``bodies``."""
     return list(await asyncio.gather(*(post(client, b, **kw) for b in bodies)))
 
@@ -121,7 +148,7 @@ def batch_size_header(response: httpx.Response) -> int | None:
         name, _, rest = part.strip().partition(";")
         if name == "batch":
             assert rest.startswith('desc="') and rest.endswith('"'), part
-            return int(rest[len('desc="'):-1])
+            return int(rest[len('desc="') : -1])
     return None
 
 
@@ -159,13 +186,15 @@ def passes(monkeypatch: pytest.MonkeyPatch) -> list[tuple[Any, list[tuple[str, .
     return seen
 
 
-def passes_of(seen: list[tuple[Any, list[tuple[str, ...]]]], app: Any
-              ) -> list[list[tuple[str, ...]]]:
+def passes_of(
+    seen: list[tuple[Any, list[tuple[str, ...]]]], app: Any
+) -> list[list[tuple[str, ...]]]:
     return [jobs for engine, jobs in seen if engine is app.state.engine]
 
 
-def pass_holding(groups: list[list[tuple[str, ...]]], ids: tuple[str, ...]
-                 ) -> list[tuple[str, ...]]:
+def pass_holding(
+    groups: list[list[tuple[str, ...]]], ids: tuple[str, ...]
+) -> list[tuple[str, ...]]:
     (found,) = [jobs for jobs in groups if ids in jobs]
     return found
 
@@ -195,8 +224,7 @@ def assert_matches_outside_references(body: dict[str, Any], doc: dict[str, Any])
         e = np.asarray(sent["actuals"]) - np.asarray(sent["fitted"])
         lb = check(got, "ljung_box")
         # model_df: the degrees of freedom the model's estimated parameters take from Q.
-        ref = acorr_ljungbox(e, lags=[lb["details"]["lags"]],
-                             model_df=body.get("model_params", 0))
+        ref = acorr_ljungbox(e, lags=[lb["details"]["lags"]], model_df=body.get("model_params", 0))
         assert lb["statistic"] == pytest.approx(float(ref["lb_stat"].iloc[0]), rel=1e-9)
         assert lb["p_value"] == pytest.approx(float(ref["lb_pvalue"].iloc[0]), rel=1e-9)
         jb = check(got, "jarque_bera")
@@ -208,8 +236,15 @@ def assert_matches_outside_references(body: dict[str, Any], doc: dict[str, Any])
 
 def twelve_branches() -> list[dict[str, Any]]:
     """Twelve invented branches, one series each, same length; a third biased, some AR(1)."""
-    return [submission(f"branch{i:02d}", seeds=(9100 + i,), biases=(1.2 * (i % 3 == 2),),
-                       phis=(0.5 * (i % 4 == 1),)) for i in range(12)]
+    return [
+        submission(
+            f"branch{i:02d}",
+            seeds=(9100 + i,),
+            biases=(1.2 * (i % 3 == 2),),
+            phis=(0.5 * (i % 4 == 1),),
+        )
+        for i in range(12)
+    ]
 
 
 def test_concurrent_single_series_are_batched_and_answer_as_alone(database_url, passes):
@@ -229,7 +264,8 @@ def test_concurrent_single_series_are_batched_and_answer_as_alone(database_url, 
 
             groups = passes_of(passes, app)
             assert sorted(ids for jobs in groups for ids in jobs) == sorted(
-                series_ids(b) for b in bodies)
+                series_ids(b) for b in bodies
+            )
             assert max(len(jobs) for jobs in groups) > 1
             for body, r in zip(bodies, responses, strict=True):
                 size = len(pass_holding(groups, series_ids(body)))
@@ -255,10 +291,17 @@ def mixed_shapes() -> list[dict[str, Any]]:
     return [
         submission("kiosk", lengths=(40,), seeds=(501,)),
         submission("arcade", lengths=(156,), seeds=(502,), holdout=13),
-        submission("mall", 4, seeds=(503, 504, 505, 506), lengths=(104, 90, 104, 70),
-                   biases=(0.0, 1.5, 0.0, 0.0), phis=(0.0, 0.0, 0.6, 0.0)),
-        submission("depot", lengths=(80,), seeds=(507,), phis=(0.4,), season_length=4,
-                   model_params=2),
+        submission(
+            "mall",
+            4,
+            seeds=(503, 504, 505, 506),
+            lengths=(104, 90, 104, 70),
+            biases=(0.0, 1.5, 0.0, 0.0),
+            phis=(0.0, 0.0, 0.6, 0.0),
+        ),
+        submission(
+            "depot", lengths=(80,), seeds=(507,), phis=(0.4,), season_length=4, model_params=2
+        ),
         submission("station", 2, seeds=(508, 509), lengths=(120, 120), holdout=8),
     ]
 
@@ -331,8 +374,10 @@ def test_same_key_same_body_at_once_stores_one_and_replays_it(database_url, pass
     async def scenario() -> None:
         async with serving(database_url) as (app, client):
             first, second, other = await asyncio.gather(
-                post(client, body, key="harbour-run-41"), post(client, body, key="harbour-run-41"),
-                post(client, bystander))
+                post(client, body, key="harbour-run-41"),
+                post(client, body, key="harbour-run-41"),
+                post(client, bystander),
+            )
             assert sorted([first.status_code, second.status_code]) == [200, 201]
             fresh, replayed = (first, second) if first.status_code == 201 else (second, first)
             assert replayed.headers["idempotent-replayed"] == "true"
@@ -345,8 +390,9 @@ def test_same_key_same_body_at_once_stores_one_and_replays_it(database_url, pass
             assert together.count(series_ids(body)) == 2
             # A submission without a key in that pass is still stored.
             assert other.status_code == 201, other.text
-            assert sorted(await listed_ids(client)) == sorted([fresh.json()["id"],
-                                                               other.json()["id"]])
+            assert sorted(await listed_ids(client)) == sorted(
+                [fresh.json()["id"], other.json()["id"]]
+            )
 
     run(scenario())
 
@@ -359,11 +405,14 @@ def test_same_key_other_body_at_once_is_409_and_one_is_stored(database_url, pass
     async def scenario() -> None:
         async with serving(database_url) as (app, client):
             a, b, other = await asyncio.gather(
-                post(client, one, key="pier-run-7"), post(client, other_body, key="pier-run-7"),
-                post(client, bystander))
+                post(client, one, key="pier-run-7"),
+                post(client, other_body, key="pier-run-7"),
+                post(client, bystander),
+            )
             assert sorted([a.status_code, b.status_code]) == [201, 409]
             (won_body, won), (_lost_body, lost) = sorted(
-                [(one, a), (other_body, b)], key=lambda pair: pair[1].status_code)
+                [(one, a), (other_body, b)], key=lambda pair: pair[1].status_code
+            )
             assert lost.headers["content-type"] == PROBLEM_JSON
             assert lost.json()["status"] == 409
             assert "Idempotency-Key" in lost.json()["detail"]
@@ -371,16 +420,19 @@ def test_same_key_other_body_at_once_is_409_and_one_is_stored(database_url, pass
             groups = passes_of(passes, app)
             assert len(pass_holding(groups, series_ids(one))) > 1
             assert other.status_code == 201, other.text
-            assert sorted(await listed_ids(client)) == sorted([won.json()["id"],
-                                                               other.json()["id"]])
+            assert sorted(await listed_ids(client)) == sorted(
+                [won.json()["id"], other.json()["id"]]
+            )
             stored = await client.get(f"/v1/assessments/{won.json()['id']}", headers=ADMIN)
             # What is stored is the winner's own assessment, not the loser's.
             assert stored.json() == won.json()
             assert [s["n_obs"] for s in stored.json()["series"]] == [
-                len(won_body["series"][0]["actuals"])]
+                len(won_body["series"][0]["actuals"])
+            ]
             bias = check(stored.json()["series"][0], "bias")
             e = np.asarray(won_body["series"][0]["actuals"]) - np.asarray(
-                won_body["series"][0]["fitted"])
+                won_body["series"][0]["fitted"]
+            )
             assert bias["details"]["mean_error"] == pytest.approx(float(e.mean()), rel=1e-12)
 
     run(scenario())
@@ -390,14 +442,16 @@ def test_same_key_other_body_at_once_is_409_and_one_is_stored(database_url, pass
 
 
 def test_store_false_among_stored_is_answered_and_not_kept(database_url, passes):
-    bodies = [submission(f"market{i}", seeds=(6600 + i,), biases=(1.0 * (i % 2),))
-              for i in range(8)]
+    bodies = [
+        submission(f"market{i}", seeds=(6600 + i,), biases=(1.0 * (i % 2),)) for i in range(8)
+    ]
     keep = [i % 2 == 0 for i in range(8)]
 
     async def scenario() -> None:
         async with serving(database_url) as (app, client):
-            responses = await asyncio.gather(*(post(client, b, store=s)
-                                               for b, s in zip(bodies, keep, strict=True)))
+            responses = await asyncio.gather(
+                *(post(client, b, store=s) for b, s in zip(bodies, keep, strict=True))
+            )
             groups = passes_of(passes, app)
             assert max(len(jobs) for jobs in groups) > 1
             stored_ids = []
@@ -464,8 +518,9 @@ def test_database_failure_spares_the_submissions_that_store_nothing(database_url
         async with serving(database_url) as (app, client):
             with pytest.MonkeyPatch.context() as mp:
                 mp.setattr(repo, "save_assessments", database_down)
-                responses = await asyncio.gather(*(post(client, b, store=s)
-                                                   for b, s in zip(bodies, keep, strict=True)))
+                responses = await asyncio.gather(
+                    *(post(client, b, store=s) for b, s in zip(bodies, keep, strict=True))
+                )
             assert max(len(jobs) for jobs in passes_of(passes, app)) > 1
             for s, r in zip(keep, responses, strict=True):
                 if s:
@@ -493,9 +548,11 @@ def as_csv(body: dict[str, Any]) -> bytes:
 
 async def post_csv(client: httpx.AsyncClient, body: dict[str, Any]) -> httpx.Response:
     return await client.post(
-        "/v1/assessments", content=as_csv(body),
+        "/v1/assessments",
+        content=as_csv(body),
         params={"model": body["model"], "version": body["version"]},
-        headers={**ADMIN, "Content-Type": "text/csv"})
+        headers={**ADMIN, "Content-Type": "text/csv"},
+    )
 
 
 def test_a_csv_upload_in_a_pass_answers_as_alone(database_url, passes):
@@ -505,7 +562,8 @@ def test_a_csv_upload_in_a_pass_answers_as_alone(database_url, passes):
     async def scenario() -> None:
         async with serving(database_url) as (app, client):
             got_csv, *got_json = await asyncio.gather(
-                post_csv(client, csv_body), *(post(client, b) for b in json_bodies))
+                post_csv(client, csv_body), *(post(client, b) for b in json_bodies)
+            )
             assert max(len(jobs) for jobs in passes_of(passes, app)) > 1
             assert pass_holding(passes_of(passes, app), series_ids(csv_body))
             assert [r.status_code for r in got_json] == [201] * 4
@@ -514,8 +572,9 @@ def test_a_csv_upload_in_a_pass_answers_as_alone(database_url, passes):
         assert got_csv.status_code == lone.status_code == 201, got_csv.text
         assert batch_size_header(got_csv) is not None and batch_size_header(lone) is None
         drop = ("id", "created_at", "labels")  # the CSV upload carries no labels
-        assert ({k: v for k, v in got_csv.json().items() if k not in drop}
-                == {k: v for k, v in lone.json().items() if k not in drop})
+        assert {k: v for k, v in got_csv.json().items() if k not in drop} == {
+            k: v for k, v in lone.json().items() if k not in drop
+        }
         assert_matches_outside_references(csv_body, got_csv.json())
 
     run(scenario())
@@ -525,9 +584,14 @@ def test_a_failed_policy_lookup_spares_inline_policies(database_url, passes):
     # The database fails when a policy is looked up by name; a submission with its policy
     # inline needs no lookup and, with store=false, no database at all: it is answered.
     named = [submission(f"depot{i}", seeds=(4500 + i,)) for i in range(3)]
-    inline = [submission(f"yard{i}", seeds=(4510 + i,),
-                         policy={"name": "yard-rules", "checks": {"ljung_box": {"lags": 8}}})
-              for i in range(3)]
+    inline = [
+        submission(
+            f"yard{i}",
+            seeds=(4510 + i,),
+            policy={"name": "yard-rules", "checks": {"ljung_box": {"lags": 8}}},
+        )
+        for i in range(3)
+    ]
 
     def database_down(*_a: Any, **_k: Any) -> Any:
         raise sqlalchemy.exc.OperationalError("x", {}, Exception("down"))
@@ -537,7 +601,8 @@ def test_a_failed_policy_lookup_spares_inline_policies(database_url, passes):
             with pytest.MonkeyPatch.context() as mp:
                 mp.setattr(repo, "latest_policy_document", database_down)
                 responses = await asyncio.gather(
-                    *(post(client, b, store=False) for b in [*named, *inline]))
+                    *(post(client, b, store=False) for b in [*named, *inline])
+                )
             assert max(len(jobs) for jobs in passes_of(passes, app)) > 1
             for r in responses[:3]:
                 assert r.status_code == 503, r.text

@@ -17,8 +17,11 @@ def test_readyz_is_503_when_the_database_is_unreachable(tmp_path):
     from service.api.app import create_app
     from service.settings import Settings
 
-    settings = Settings(database_url="postgresql+psycopg://nobody@127.0.0.1:1/none",
-                        migrate_on_start=False, admin_token="x")
+    settings = Settings(
+        database_url="postgresql+psycopg://nobody@127.0.0.1:1/none",
+        migrate_on_start=False,
+        admin_token="x",
+    )
     with TestClient(create_app(settings)) as client:
         r = client.get("/readyz")
         assert r.status_code == 503
@@ -45,13 +48,15 @@ def test_metrics_count_requests_latencies_and_verdicts(client, body):
     doc = client.post("/v1/assessments", json=body(n=2), headers=ADMIN).json()
     client.get("/v1/assessments/nope", headers=ADMIN)
     text = client.get("/metrics").text
-    assert ('plumbline_http_requests_total{method="POST",route="/v1/assessments",status="201"}'
-            ' 1.0') in text
-    assert ('plumbline_http_requests_total{method="GET",route="/v1/assessments/{assessment_id}"'
-            ',status="404"} 1.0') in text
+    assert (
+        'plumbline_http_requests_total{method="POST",route="/v1/assessments",status="201"} 1.0'
+    ) in text
+    assert (
+        'plumbline_http_requests_total{method="GET",route="/v1/assessments/{assessment_id}"'
+        ',status="404"} 1.0'
+    ) in text
     assert "plumbline_http_request_duration_seconds_bucket" in text
-    assert (f'plumbline_assessments_total{{stored="true",verdict="{doc["verdict"]}"}} 1.0'
-            in text)
+    assert f'plumbline_assessments_total{{stored="true",verdict="{doc["verdict"]}"}} 1.0' in text
     assert "plumbline_series_assessed_total 2.0" in text
 
 
@@ -80,9 +85,17 @@ def test_openapi_documents_bodies_and_examples(client):
     assert doc["components"]["securitySchemes"]["bearer"]["scheme"] == "bearer"
     assert post["security"] == [{"bearer": []}]
     assert "security" not in doc["paths"]["/healthz"]["get"]
-    for path in ("/v1/models/{model}/verdict", "/v1/checks", "/v1/policies", "/v1/tokens",
-                 "/v1/tokens/{token_id}", "/v1/assessments/{assessment_id}/series",
-                 "/healthz", "/readyz", "/metrics"):
+    for path in (
+        "/v1/models/{model}/verdict",
+        "/v1/checks",
+        "/v1/policies",
+        "/v1/tokens",
+        "/v1/tokens/{token_id}",
+        "/v1/assessments/{assessment_id}/series",
+        "/healthz",
+        "/readyz",
+        "/metrics",
+    ):
         assert path in doc["paths"], path
 
 

@@ -26,11 +26,17 @@ def test_the_examples_cover_the_scenarios():
 def test_posting_an_example_gives_its_recorded_answer(client, example):
     query = "?" + example["query"] if example.get("query") else ""
     if example["request"].endswith(".csv"):
-        r = client.post(f"/v1/assessments{query}", content=example["request_body"].encode(),
-                        headers={**ADMIN, "Content-Type": "text/csv"})
+        r = client.post(
+            f"/v1/assessments{query}",
+            content=example["request_body"].encode(),
+            headers={**ADMIN, "Content-Type": "text/csv"},
+        )
     else:
-        r = client.post(f"/v1/assessments{query}", content=orjson.dumps(example["request_body"]),
-                        headers={**ADMIN, "Content-Type": "application/json"})
+        r = client.post(
+            f"/v1/assessments{query}",
+            content=orjson.dumps(example["request_body"]),
+            headers={**ADMIN, "Content-Type": "application/json"},
+        )
     assert r.status_code == example["status"], r.text
     got, recorded = r.json(), example["response_body"]
     if example["status"] >= 400:

@@ -9,8 +9,11 @@ from service.core.policy import default_policy
 
 from .helpers import ADMIN
 
-STRICT = {"name": "strict-daily", "description": "fail on warn-level evidence",
-          "checks": {"ljung_box": {"warn_p": 0.1, "fail_p": 0.05}}}
+STRICT = {
+    "name": "strict-daily",
+    "description": "fail on warn-level evidence",
+    "checks": {"ljung_box": {"warn_p": 0.1, "fail_p": 0.05}},
+}
 
 
 def test_posting_a_name_again_makes_the_next_version(client):
@@ -29,8 +32,9 @@ def test_posting_a_name_again_makes_the_next_version(client):
 
 def test_stored_policy_is_used_by_name_and_pinned_version(client, body):
     client.post("/v1/policies", json=STRICT, headers=ADMIN)
-    client.post("/v1/policies", json={**STRICT, "checks": {"bias": {"enabled": False}}},
-                headers=ADMIN)
+    client.post(
+        "/v1/policies", json={**STRICT, "checks": {"bias": {"enabled": False}}}, headers=ADMIN
+    )
     b = body(n=2)
     b["policy"] = "strict-daily"
     doc = client.post("/v1/assessments", json=b, headers=ADMIN).json()
@@ -62,21 +66,25 @@ def test_default_is_builtin_until_overridden(client):
     r = client.get("/v1/policies/default", headers=ADMIN).json()
     assert r["builtin"] is True and r["version"] == 1
     assert r["document"] == default_policy().to_dict()
-    stored = client.post("/v1/policies", json={"name": "default", "fleet": {"fail_share": 0.1}},
-                         headers=ADMIN).json()
+    stored = client.post(
+        "/v1/policies", json={"name": "default", "fleet": {"fail_share": 0.1}}, headers=ADMIN
+    ).json()
     assert stored["version"] == 2
     assert client.get("/v1/policies/default", headers=ADMIN).json()["version"] == 2
     assert client.get("/v1/policies/default?version=1", headers=ADMIN).json()["builtin"]
 
 
-@pytest.mark.parametrize(("doc", "loc"), [
-    ({"checks": {}}, "name"),
-    ({"name": "has space"}, "name"),
-    ({"name": "ok", "checks": {"ljung_box": {"fail_p": 2}}}, "checks.ljung_box.fail_p"),
-    ({"name": "ok", "checks": {"nope": {}}}, "checks.nope"),
-    ({"name": "ok", "fleet": {"weighting": "heavy"}}, "fleet.weighting"),
-    ({"name": "ok", "colour": 1}, "colour"),
-])
+@pytest.mark.parametrize(
+    ("doc", "loc"),
+    [
+        ({"checks": {}}, "name"),
+        ({"name": "has space"}, "name"),
+        ({"name": "ok", "checks": {"ljung_box": {"fail_p": 2}}}, "checks.ljung_box.fail_p"),
+        ({"name": "ok", "checks": {"nope": {}}}, "checks.nope"),
+        ({"name": "ok", "fleet": {"weighting": "heavy"}}, "fleet.weighting"),
+        ({"name": "ok", "colour": 1}, "colour"),
+    ],
+)
 def test_invalid_policies_are_422_naming_the_field(client, doc, loc):
     r = client.post("/v1/policies", json=doc, headers=ADMIN)
     assert r.status_code == 422, r.text
@@ -89,11 +97,13 @@ def test_policy_writes_need_admin(client, token):
 
 
 def test_policy_body_errors(client):
-    r = client.post("/v1/policies", content=b"name=x",
-                    headers={**ADMIN, "Content-Type": "text/plain"})
+    r = client.post(
+        "/v1/policies", content=b"name=x", headers={**ADMIN, "Content-Type": "text/plain"}
+    )
     assert r.status_code == 415
-    r = client.post("/v1/policies", content=b"{", headers={**ADMIN,
-                                                           "Content-Type": "application/json"})
+    r = client.post(
+        "/v1/policies", content=b"{", headers={**ADMIN, "Content-Type": "application/json"}
+    )
     assert r.status_code == 400
     r = client.post("/v1/policies", json=[1], headers=ADMIN)
     assert r.status_code == 422

@@ -13,13 +13,28 @@ from service.ingest import parse_json_request
 
 from .helpers import ADMIN
 
-CONTRACT_TOP = {"id", "created_at", "model", "version", "policy", "verdict", "reasons", "checks",
-                "series"}
-CONTRACT_CHECK = {"name", "status", "series_tested", "series_failed", "series_warned",
-                  "failed_share", "message"}
+CONTRACT_TOP = {
+    "id",
+    "created_at",
+    "model",
+    "version",
+    "policy",
+    "verdict",
+    "reasons",
+    "checks",
+    "series",
+}
+CONTRACT_CHECK = {
+    "name",
+    "status",
+    "series_tested",
+    "series_failed",
+    "series_warned",
+    "failed_share",
+    "message",
+}
 CONTRACT_SERIES = {"id", "verdict", "n_obs", "bias", "checks"}
-CONTRACT_BIAS = {"mean_error", "std_error", "ci_low", "ci_high", "percent_bias",
-                 "tracking_signal"}
+CONTRACT_BIAS = {"mean_error", "std_error", "ci_low", "ci_high", "percent_bias", "tracking_signal"}
 CONTRACT_SERIES_CHECK = {"name", "status", "statistic", "p_value", "p_adjusted", "details"}
 
 
@@ -90,8 +105,9 @@ def to_csv(b: dict) -> str:
             lines.append(f"{s['id']},{day},{a},{'' if f is None else f},train,,")
         h = s.get("holdout")
         if h:
-            for t, (a, f, lo, up) in enumerate(zip(h["actuals"], h["forecasts"], h["lower"],
-                                                   h["upper"], strict=True)):
+            for t, (a, f, lo, up) in enumerate(
+                zip(h["actuals"], h["forecasts"], h["lower"], h["upper"], strict=True)
+            ):
                 day = (date(2025, 1, 1) + timedelta(days=t)).isoformat()
                 lines.append(f"{s['id']},{day},{a},{f},holdout,{lo},{up}")
     return "\n".join(lines) + "\n"
@@ -103,7 +119,8 @@ def test_csv_upload_matches_the_json_body(client, body):
         s.pop("timestamps", None)
     r_json = client.post("/v1/assessments?store=false", json=b, headers=ADMIN).json()
     r = client.post(
-        "/v1/assessments?model=loaves-daily&version=1&level=0.95", content=to_csv(b),
+        "/v1/assessments?model=loaves-daily&version=1&level=0.95",
+        content=to_csv(b),
         headers={**ADMIN, "Content-Type": "text/csv"},
     )
     assert r.status_code == 201, r.text
@@ -114,31 +131,41 @@ def test_csv_upload_matches_the_json_body(client, body):
 
 
 def test_csv_without_model_is_422_naming_it(client, body):
-    r = client.post("/v1/assessments", content=to_csv(body(n=1)),
-                    headers={**ADMIN, "Content-Type": "text/csv"})
+    r = client.post(
+        "/v1/assessments", content=to_csv(body(n=1)), headers={**ADMIN, "Content-Type": "text/csv"}
+    )
     assert r.status_code == 422
     assert {"model", "version"} <= {e["loc"] for e in r.json()["errors"]}
 
 
 def test_csv_missing_column_is_422(client):
-    r = client.post("/v1/assessments?model=m&version=1", content="series_id,actual\na,1\n",
-                    headers={**ADMIN, "Content-Type": "text/csv"})
+    r = client.post(
+        "/v1/assessments?model=m&version=1",
+        content="series_id,actual\na,1\n",
+        headers={**ADMIN, "Content-Type": "text/csv"},
+    )
     assert r.status_code == 422
     assert r.json()["errors"][0]["loc"] == "header.fitted"
 
 
 def test_csv_formula_cell_is_422_naming_line_and_column(client):
     text = "series_id,actual,fitted\na,1,\na,=1+2,1\n"
-    r = client.post("/v1/assessments?model=m&version=1", content=text,
-                    headers={**ADMIN, "Content-Type": "text/csv"})
+    r = client.post(
+        "/v1/assessments?model=m&version=1",
+        content=text,
+        headers={**ADMIN, "Content-Type": "text/csv"},
+    )
     assert r.status_code == 422
     assert r.json()["errors"][0]["loc"] == "line[3].actual"
 
 
 def test_malformed_csv_is_400(client):
     text = 'series_id,actual,fitted\n"a,1,2\n'
-    r = client.post("/v1/assessments?model=m&version=1", content=text,
-                    headers={**ADMIN, "Content-Type": "text/csv"})
+    r = client.post(
+        "/v1/assessments?model=m&version=1",
+        content=text,
+        headers={**ADMIN, "Content-Type": "text/csv"},
+    )
     assert r.status_code == 400
     assert r.headers["content-type"] == "application/problem+json"
 
@@ -164,8 +191,9 @@ def test_idempotency_key_with_another_body_is_409(client, body):
 
 
 def test_bad_idempotency_key_is_422(client, body):
-    r = client.post("/v1/assessments", json=body(n=1),
-                    headers={**ADMIN, "Idempotency-Key": "x" * 201})
+    r = client.post(
+        "/v1/assessments", json=body(n=1), headers={**ADMIN, "Idempotency-Key": "x" * 201}
+    )
     assert r.status_code == 422
     assert r.json()["errors"][0]["loc"] == "header.Idempotency-Key"
 
@@ -177,8 +205,9 @@ def test_bad_store_flag_is_422(client, body):
 
 
 def post_raw(client, raw: bytes):
-    return client.post("/v1/assessments", content=raw,
-                       headers={**ADMIN, "Content-Type": "application/json"})
+    return client.post(
+        "/v1/assessments", content=raw, headers={**ADMIN, "Content-Type": "application/json"}
+    )
 
 
 def one_series(**fields) -> dict:
@@ -191,16 +220,33 @@ def envelope(*series) -> dict:
     return {"model": "m", "version": "1", "series": list(series)}
 
 
-@pytest.mark.parametrize(("raw", "loc", "words"), [
-    (b'{"model":"m","version":"1","series":[{"id":"a","actuals":[1,NaN],"fitted":[1,2]}]}',
-     "series[0].actuals", "NaN"),
-    (b'{"model":"m","version":"1","series":[{"id":"a","actuals":[1,2],"fitted":[1,Infinity]}]}',
-     "series[0].fitted", "Infinity"),
-    (b'{"model":"m","version":"1","series":[{"id":"a","actuals":[1,2e400],"fitted":[1,2]}]}',
-     "series[0].actuals", "overflows"),
-    (b'{"model":"m","version":"1","series":[{"id":"a","actuals":[1,2],"fitted":[1,' + b"9" * 400
-     + b"]}]}", "series[0].fitted", "overflows"),
-])
+@pytest.mark.parametrize(
+    ("raw", "loc", "words"),
+    [
+        (
+            b'{"model":"m","version":"1","series":[{"id":"a","actuals":[1,NaN],"fitted":[1,2]}]}',
+            "series[0].actuals",
+            "NaN",
+        ),
+        (
+            b'{"model":"m","version":"1","series":[{"id":"a","actuals":[1,2],"fitted":[1,Infinity]}]}',
+            "series[0].fitted",
+            "Infinity",
+        ),
+        (
+            b'{"model":"m","version":"1","series":[{"id":"a","actuals":[1,2e400],"fitted":[1,2]}]}',
+            "series[0].actuals",
+            "overflows",
+        ),
+        (
+            b'{"model":"m","version":"1","series":[{"id":"a","actuals":[1,2],"fitted":[1,'
+            + b"9" * 400
+            + b"]}]}",
+            "series[0].fitted",
+            "overflows",
+        ),
+    ],
+)
 def test_non_finite_literals_name_the_field(client, raw, loc, words):
     r = post_raw(client, raw)
     assert r.status_code == 422, r.text
@@ -212,20 +258,38 @@ _SERIES = b'"id":"a","actuals":[1,2,3,4],"fitted":[null,1,2,3]'
 
 
 @pytest.mark.parametrize("digits", [400, 5000])  # 5,000: beyond Python's int-conversion limit
-@pytest.mark.parametrize(("template", "loc"), [
-    (b'{"model":"m","version":"1","series":[{' + _SERIES + b',"weight":BIG}]}',
-     "series[0].weight"),
-    (b'{"model":"m","version":"1","series":[{' + _SERIES + b',"holdout":{"actuals":[1],'
-     b'"forecasts":[1],"lower":[0],"upper":[2],"level":BIG}}]}', "series[0].holdout.level"),
-    (b'{"model":"m","version":"1","season_length":BIG,"series":[{' + _SERIES + b'}]}',
-     "season_length"),
-    (b'{"model":"m","version":"1","labels":{"run":BIG},"series":[{' + _SERIES + b'}]}',
-     "labels.run"),
-    (b'{"model":"m","version":"1","policy":{"name":"p","checks":{"bias":{"fail_p":BIG}}},'
-     b'"series":[{' + _SERIES + b'}]}', "policy.checks.bias.fail_p"),
-    (b'{"model":"m","version":"1","series":[{"id":"a","actuals":[1,BIG,3,4],'
-     b'"fitted":[null,1,2,3]}]}', "series[0].actuals"),
-])
+@pytest.mark.parametrize(
+    ("template", "loc"),
+    [
+        (
+            b'{"model":"m","version":"1","series":[{' + _SERIES + b',"weight":BIG}]}',
+            "series[0].weight",
+        ),
+        (
+            b'{"model":"m","version":"1","series":[{' + _SERIES + b',"holdout":{"actuals":[1],'
+            b'"forecasts":[1],"lower":[0],"upper":[2],"level":BIG}}]}',
+            "series[0].holdout.level",
+        ),
+        (
+            b'{"model":"m","version":"1","season_length":BIG,"series":[{' + _SERIES + b"}]}",
+            "season_length",
+        ),
+        (
+            b'{"model":"m","version":"1","labels":{"run":BIG},"series":[{' + _SERIES + b"}]}",
+            "labels.run",
+        ),
+        (
+            b'{"model":"m","version":"1","policy":{"name":"p","checks":{"bias":{"fail_p":BIG}}},'
+            b'"series":[{' + _SERIES + b"}]}",
+            "policy.checks.bias.fail_p",
+        ),
+        (
+            b'{"model":"m","version":"1","series":[{"id":"a","actuals":[1,BIG,3,4],'
+            b'"fitted":[null,1,2,3]}]}',
+            "series[0].actuals",
+        ),
+    ],
+)
 def test_integers_too_large_for_a_float_name_the_field(client, template, loc, digits):
     r = post_raw(client, template.replace(b"BIG", b"1" + b"0" * digits))
     assert r.status_code == 422, r.text
@@ -236,50 +300,111 @@ def test_integers_too_large_for_a_float_name_the_field(client, template, loc, di
 @pytest.mark.parametrize("digits", [400, 5000])
 def test_a_policy_with_an_integer_too_large_is_422(client, digits):
     raw = b'{"name":"p","checks":{"ljung_box":{"lags":1' + b"0" * digits + b"}}}"
-    r = client.post("/v1/policies", content=raw,
-                    headers={**ADMIN, "Content-Type": "application/json"})
+    r = client.post(
+        "/v1/policies", content=raw, headers={**ADMIN, "Content-Type": "application/json"}
+    )
     assert r.status_code == 422, r.text
     assert r.json()["errors"][0]["loc"] == "checks.ljung_box.lags"
 
 
-@pytest.mark.parametrize(("doc", "loc"), [
-    (envelope(one_series(fitted=[1.0, 2.0])), "series[0].fitted"),
-    (envelope(one_series(), one_series()), "series[1].id"),
-    (envelope(one_series(timestamps=["2025-01-01", "2025-01-03", "2025-01-02", "2025-01-04"])),
-     "series[0].timestamps"),
-    (envelope(one_series(timestamps=["2025-01-01", "2025-01-01", "2025-01-02", "2025-01-04"])),
-     "series[0].timestamps"),
-    (envelope(one_series(timestamps=["2025-01-01", "soon", "2025-01-02", "2025-01-04"])),
-     "series[0].timestamps"),
-    (envelope(one_series(holdout={"actuals": [1, 2], "forecasts": [1, 2], "lower": [0, 3],
-                                  "upper": [2, 2.5]})), "series[0].holdout.lower"),
-    (envelope(one_series(holdout={"actuals": [1, 2], "forecasts": [1, 2], "lower": [0, 1],
-                                  "upper": [2, 3], "level": 1.0})), "series[0].holdout.level"),
-    (envelope(one_series(holdout={"actuals": [1, 2], "forecasts": [1, 2], "lower": [0, 1],
-                                  "upper": [2, 3], "level": 0})), "series[0].holdout.level"),
-    (envelope(one_series(holdout={"actuals": [1, 2], "forecasts": [1]})),
-     "series[0].holdout.forecasts"),
-    (envelope(one_series(holdout={"actuals": [1, 2]})), "series[0].holdout.forecasts"),
-    (envelope(one_series(actuals=[1, "2", 3, 4])), "series[0].actuals"),
-    (envelope(one_series(actuals=[1, True, 3, 4])), "series[0].actuals"),
-    (envelope(one_series(weight=-1)), "series[0].weight"),
-    (envelope(one_series(id="")), "series[0].id"),
-    (envelope(one_series(colour="red")), "series[0].colour"),
-    (envelope(one_series(actuals=[])), "series[0].actuals"),
-    ({"model": "m", "version": "1", "series": []}, "series"),
-    ({"model": "m", "series": [one_series()]}, "version"),
-    ({"model": "m", "version": "1", "season_length": 0, "series": [one_series()]},
-     "season_length"),
-    ({"model": "m", "version": "1", "model_params": -1, "series": [one_series()]},
-     "model_params"),
-    ({"model": "m", "version": "1", "labels": {"a": [1]}, "series": [one_series()]},
-     "labels.a"),
-    ({"model": "m", "version": "1", "policy": "no-such-policy", "series": [one_series()]},
-     "policy"),
-    ({"model": "m", "version": "1", "policy": 5, "series": [one_series()]}, "policy"),
-    ({"model": "m", "version": "1", "seasonal_length": 4, "series": [one_series()]},
-     "seasonal_length"),
-])
+@pytest.mark.parametrize(
+    ("doc", "loc"),
+    [
+        (envelope(one_series(fitted=[1.0, 2.0])), "series[0].fitted"),
+        (envelope(one_series(), one_series()), "series[1].id"),
+        (
+            envelope(
+                one_series(timestamps=["2025-01-01", "2025-01-03", "2025-01-02", "2025-01-04"])
+            ),
+            "series[0].timestamps",
+        ),
+        (
+            envelope(
+                one_series(timestamps=["2025-01-01", "2025-01-01", "2025-01-02", "2025-01-04"])
+            ),
+            "series[0].timestamps",
+        ),
+        (
+            envelope(one_series(timestamps=["2025-01-01", "soon", "2025-01-02", "2025-01-04"])),
+            "series[0].timestamps",
+        ),
+        (
+            envelope(
+                one_series(
+                    holdout={
+                        "actuals": [1, 2],
+                        "forecasts": [1, 2],
+                        "lower": [0, 3],
+                        "upper": [2, 2.5],
+                    }
+                )
+            ),
+            "series[0].holdout.lower",
+        ),
+        (
+            envelope(
+                one_series(
+                    holdout={
+                        "actuals": [1, 2],
+                        "forecasts": [1, 2],
+                        "lower": [0, 1],
+                        "upper": [2, 3],
+                        "level": 1.0,
+                    }
+                )
+            ),
+            "series[0].holdout.level",
+        ),
+        (
+            envelope(
+                one_series(
+                    holdout={
+                        "actuals": [1, 2],
+                        "forecasts": [1, 2],
+                        "lower": [0, 1],
+                        "upper": [2, 3],
+                        "level": 0,
+                    }
+                )
+            ),
+            "series[0].holdout.level",
+        ),
+        (
+            envelope(one_series(holdout={"actuals": [1, 2], "forecasts": [1]})),
+            "series[0].holdout.forecasts",
+        ),
+        (envelope(one_series(holdout={"actuals": [1, 2]})), "series[0].holdout.forecasts"),
+        (envelope(one_series(actuals=[1, "2", 3, 4])), "series[0].actuals"),
+        (envelope(one_series(actuals=[1, True, 3, 4])), "series[0].actuals"),
+        (envelope(one_series(weight=-1)), "series[0].weight"),
+        (envelope(one_series(id="")), "series[0].id"),
+        (envelope(one_series(colour="red")), "series[0].colour"),
+        (envelope(one_series(actuals=[])), "series[0].actuals"),
+        ({"model": "m", "version": "1", "series": []}, "series"),
+        ({"model": "m", "series": [one_series()]}, "version"),
+        (
+            {"model": "m", "version": "1", "season_length": 0, "series": [one_series()]},
+            "season_length",
+        ),
+        (
+            {"model": "m", "version": "1", "model_params": -1, "series": [one_series()]},
+            "model_params",
+        ),
+        (
+            {"model": "m", "version": "1", "labels": {"a": [1]}, "series": [one_series()]},
+            "labels.a",
+        ),
+        (
+            {"model": "m", "version": "1", "policy": "no-such-policy", "series": [one_series()]},
+            "policy",
+        ),
+        ({"model": "m", "version": "1", "policy": 5, "series": [one_series()]}, "policy"),
+        (
+            {"model": "m", "version": "1", "seasonal_length": 4, "series": [one_series()]},
+            "seasonal_length",
+        ),
+    ],
+)
 def test_invalid_bodies_are_422_naming_the_field(client, doc, loc):
     r = post_raw(client, orjson.dumps(doc))
     assert r.status_code == 422, r.text
@@ -324,8 +449,11 @@ def test_wrong_content_type_is_415(client, body, ctype):
 
 def test_declared_length_over_limit_is_413(make_client, body):
     client = make_client(max_body_bytes=1000)
-    r = client.post("/v1/assessments", content=orjson.dumps(body(n=3)),
-                    headers={**ADMIN, "Content-Type": "application/json"})
+    r = client.post(
+        "/v1/assessments",
+        content=orjson.dumps(body(n=3)),
+        headers={**ADMIN, "Content-Type": "application/json"},
+    )
     assert r.status_code == 413
     assert r.headers["content-type"] == "application/problem+json"
 
@@ -339,8 +467,9 @@ def test_streamed_body_over_limit_is_413(make_client):
             sent.append(1)
             yield b" " * 100
 
-    r = client.post("/v1/assessments", content=chunks(),
-                    headers={**ADMIN, "Content-Type": "application/json"})
+    r = client.post(
+        "/v1/assessments", content=chunks(), headers={**ADMIN, "Content-Type": "application/json"}
+    )
     assert r.status_code == 413
 
 
@@ -372,12 +501,17 @@ def test_values_too_large_for_the_statistics_are_422(client):
     assert err["loc"] == "series[0].actuals" and "magnitude" in err["message"]
 
 
-@pytest.mark.parametrize(("doc", "loc"), [
-    ({"model": "a\u0000b", "version": "1", "series": [one_series()]}, "model"),
-    (envelope(one_series(id="a\u0000")), "series[0].id"),
-    ({"model": "m", "version": "1", "policy": {"name": "p\u0000"}, "series": [one_series()]},
-     "policy.name"),
-])
+@pytest.mark.parametrize(
+    ("doc", "loc"),
+    [
+        ({"model": "a\u0000b", "version": "1", "series": [one_series()]}, "model"),
+        (envelope(one_series(id="a\u0000")), "series[0].id"),
+        (
+            {"model": "m", "version": "1", "policy": {"name": "p\u0000"}, "series": [one_series()]},
+            "policy.name",
+        ),
+    ],
+)
 def test_nul_characters_in_names_are_422(client, doc, loc):
     r = post_raw(client, orjson.dumps(doc))
     assert r.status_code == 422, r.text
@@ -385,8 +519,7 @@ def test_nul_characters_in_names_are_422(client, doc, loc):
 
 
 def test_unpaired_surrogate_escape_is_400_naming_the_field(client):
-    raw = (b'{"model":"m","version":"1","series":[{"id":"\\ud800","actuals":[1,2],'
-           b'"fitted":[1,2]}]}')
+    raw = b'{"model":"m","version":"1","series":[{"id":"\\ud800","actuals":[1,2],"fitted":[1,2]}]}'
     r = post_raw(client, raw)
     assert r.status_code == 400
     assert r.json()["errors"][0]["loc"] == "series[0].id"
@@ -401,7 +534,8 @@ def test_series_inputs_are_kept_for_the_report(client, settings, body):
     b = body(n=2, holdout=5)
     b["series"][0]["timestamps"] = [
         (date(2024, 1, 1) + timedelta(weeks=t)).isoformat()
-        for t in range(len(b["series"][0]["actuals"]))]
+        for t in range(len(b["series"][0]["actuals"]))
+    ]
     b["series"][1]["weight"] = 12.5
     doc = client.post("/v1/assessments", json=b, headers=ADMIN).json()
     engine = make_engine(settings.database_url)

@@ -27,8 +27,17 @@ def test_list_is_newest_first_with_summary_rows(client, body):
     items = client.get("/v1/assessments", headers=ADMIN).json()["items"]
     assert [i["id"] for i in items] == [second["id"], first["id"]]
     row = items[0]
-    assert set(row) >= {"id", "created_at", "model", "version", "verdict", "n_series",
-                        "n_failed", "n_warned", "policy"}
+    assert set(row) >= {
+        "id",
+        "created_at",
+        "model",
+        "version",
+        "verdict",
+        "n_series",
+        "n_failed",
+        "n_warned",
+        "policy",
+    }
     assert row["n_series"] == 2 and row["verdict"] == "fail" and row["n_failed"] == 2
     assert row["policy"] == {"name": "default", "version": 1}
 
@@ -47,12 +56,16 @@ def test_list_filters(client, body):
     assert ids("model=rye&version=1") == [a["id"]]
     newest_first = (c, b, a)
     for verdict in ("pass", "warn", "fail"):
-        assert ids(f"verdict={verdict}") == [x["id"] for x in newest_first
-                                             if x["verdict"] == verdict]
+        assert ids(f"verdict={verdict}") == [
+            x["id"] for x in newest_first if x["verdict"] == verdict
+        ]
     assert b["id"] in ids("verdict=fail")
     now = datetime.now(UTC)
     assert set(ids(f"since={(now - timedelta(hours=1)).isoformat()}".replace("+", "%2B"))) == {
-        a["id"], b["id"], c["id"]}
+        a["id"],
+        b["id"],
+        c["id"],
+    }
     assert ids(f"since={(now + timedelta(hours=1)).isoformat()}".replace("+", "%2B")) == []
     assert ids(f"until={(now - timedelta(hours=1)).isoformat()}".replace("+", "%2B")) == []
     assert ids("until=2999-01-01") != []
@@ -76,13 +89,16 @@ def test_cursor_pagination_walks_every_row_once(client, body):
     assert pages == 3
 
 
-@pytest.mark.parametrize(("query", "loc"), [
-    ("cursor=garbage!", "query.cursor"),
-    ("limit=0", "query.limit"),
-    ("limit=100000", "query.limit"),
-    ("verdict=maybe", "query.verdict"),
-    ("since=yesterday", "query.since"),
-])
+@pytest.mark.parametrize(
+    ("query", "loc"),
+    [
+        ("cursor=garbage!", "query.cursor"),
+        ("limit=0", "query.limit"),
+        ("limit=100000", "query.limit"),
+        ("verdict=maybe", "query.verdict"),
+        ("since=yesterday", "query.since"),
+    ],
+)
 def test_bad_list_parameters_are_422(client, query, loc):
     r = client.get(f"/v1/assessments?{query}", headers=ADMIN)
     assert r.status_code == 422
@@ -97,17 +113,27 @@ def test_list_as_csv(client, body):
     assert r.headers["content-type"].startswith("text/csv")
     rows = list(csv.DictReader(io.StringIO(r.text)))
     assert rows[0]["id"] == a["id"] and rows[0]["n_series"] == "2"
-    assert set(rows[0]) == {"id", "created_at", "model", "version", "verdict", "n_series",
-                            "n_failed", "n_warned", "policy_name", "policy_version"}
+    assert set(rows[0]) == {
+        "id",
+        "created_at",
+        "model",
+        "version",
+        "verdict",
+        "n_series",
+        "n_failed",
+        "n_warned",
+        "policy_name",
+        "policy_version",
+    }
 
 
 def test_csv_cells_that_look_like_formulas_are_escaped(client, body):
-    post(client, body, n=1, model="=HYPERLINK(\"x\")", version="-1+2")
+    post(client, body, n=1, model='=HYPERLINK("x")', version="-1+2")
     post(client, body, n=1, model="@SUM(A1)", version="+3")
     r = client.get("/v1/assessments", headers={**ADMIN, "Accept": "text/csv"})
     rows = list(csv.DictReader(io.StringIO(r.text)))
     assert rows[0]["model"] == "'@SUM(A1)" and rows[0]["version"] == "'+3"
-    assert rows[1]["model"] == "'=HYPERLINK(\"x\")" and rows[1]["version"] == "'-1+2"
+    assert rows[1]["model"] == '\'=HYPERLINK("x")' and rows[1]["version"] == "'-1+2"
 
 
 def test_csv_numbers_stay_numeric_and_text_is_escaped():
@@ -117,8 +143,12 @@ def test_csv_numbers_stay_numeric_and_text_is_escaped():
 
 def test_negative_statistics_are_written_as_numbers(client, body):
     a = post(client, body, n=3)
-    negative = [c["statistic"] for s in a["series"] for c in s["checks"]
-                if c["statistic"] is not None and c["statistic"] < 0]
+    negative = [
+        c["statistic"]
+        for s in a["series"]
+        for c in s["checks"]
+        if c["statistic"] is not None and c["statistic"] < 0
+    ]
     assert negative, "the bias t statistics of these series include negative ones"
     r = client.get(f"/v1/assessments/{a['id']}/series", headers={**ADMIN, "Accept": "text/csv"})
     cells = [row["statistic"] for row in csv.DictReader(io.StringIO(r.text))]
@@ -135,8 +165,7 @@ def test_etag_gives_304_until_something_changes(client, body):
     post(client, body, n=1)
     changed = client.get("/v1/assessments", headers={**ADMIN, "If-None-Match": tag})
     assert changed.status_code == 200 and changed.headers["etag"] != tag
-    csv_tag = client.get("/v1/assessments", headers={**ADMIN, "Accept": "text/csv"}
-                         ).headers["etag"]
+    csv_tag = client.get("/v1/assessments", headers={**ADMIN, "Accept": "text/csv"}).headers["etag"]
     assert csv_tag != changed.headers["etag"]
 
 
@@ -144,8 +173,12 @@ def test_get_one_and_its_etag(client, body):
     a = post(client, body, n=2)
     r = client.get(f"/v1/assessments/{a['id']}", headers=ADMIN)
     assert r.status_code == 200 and r.json() == a
-    assert client.get(f"/v1/assessments/{a['id']}", headers={
-        **ADMIN, "If-None-Match": r.headers["etag"]}).status_code == 304
+    assert (
+        client.get(
+            f"/v1/assessments/{a['id']}", headers={**ADMIN, "If-None-Match": r.headers["etag"]}
+        ).status_code
+        == 304
+    )
 
 
 def test_unknown_assessment_is_404(client):
@@ -164,8 +197,18 @@ def test_series_rows_one_per_series_and_check(client, body):
     assert len(items) == expected
     assert {i["check"] for i in items} == set(CHECK_NAMES)
     first = items[0]
-    assert set(first) >= {"assessment_id", "series_id", "series_verdict", "n_obs", "check",
-                          "status", "statistic", "p_value", "p_adjusted", "details"}
+    assert set(first) >= {
+        "assessment_id",
+        "series_id",
+        "series_verdict",
+        "n_obs",
+        "check",
+        "status",
+        "statistic",
+        "p_value",
+        "p_adjusted",
+        "details",
+    }
     lb = next(i for i in items if i["check"] == "ljung_box" and i["series_id"] == "s1")
     source = next(c for c in a["series"][1]["checks"] if c["name"] == "ljung_box")
     assert lb["statistic"] == source["statistic"] and lb["details"] == source["details"]
@@ -189,7 +232,11 @@ def test_latest_verdict_and_require(client, body):
     assert r.status_code == 200
     doc = r.json()
     assert {k: doc[k] for k in ("model", "version", "verdict", "assessment_id")} == {
-        "model": "rye", "version": "2", "verdict": "fail", "assessment_id": bad["id"]}
+        "model": "rye",
+        "version": "2",
+        "verdict": "fail",
+        "assessment_id": bad["id"],
+    }
     assert doc["created_at"] == bad["created_at"]
     for level in ("pass", "warn"):
         refused = client.get(f"/v1/models/rye/verdict?require={level}", headers=ADMIN)

@@ -6,8 +6,13 @@ from service.settings import Settings
 
 
 def test_defaults(monkeypatch):
-    for name in ("DATABASE_URL", "ADMIN_TOKEN", "MAX_BODY_BYTES", "CORS_ORIGINS",
-                 "LINK_TTL_SECONDS"):
+    for name in (
+        "DATABASE_URL",
+        "ADMIN_TOKEN",
+        "MAX_BODY_BYTES",
+        "CORS_ORIGINS",
+        "LINK_TTL_SECONDS",
+    ):
         monkeypatch.delenv(f"PLUMBLINE_{name}", raising=False)
     s = Settings()
     assert s.database_url == "sqlite:///plumbline.db"

@@ -89,8 +89,9 @@ def test_scopes_stay_enforced_for_a_remembered_token(make_client):
     assert client.get("/v1/assessments", headers=reader).status_code == 200
     for _ in range(2):  # remembered now: still no submitting or minting
         assert client.post("/v1/assessments", json={}, headers=reader).status_code == 403
-        assert client.post("/v1/tokens", json={"scopes": ["read"]},
-                           headers=reader).status_code == 403
+        assert (
+            client.post("/v1/tokens", json={"scopes": ["read"]}, headers=reader).status_code == 403
+        )
 
 
 def test_a_lookup_that_began_before_a_revocation_does_not_put_the_token_back():

@@ -8,8 +8,9 @@ from .helpers import ADMIN
 
 
 def test_create_returns_secret_once_and_lists_without_it(client):
-    r = client.post("/v1/tokens", json={"scopes": ["read", "submit"], "label": "pipeline"},
-                    headers=ADMIN)
+    r = client.post(
+        "/v1/tokens", json={"scopes": ["read", "submit"], "label": "pipeline"}, headers=ADMIN
+    )
     assert r.status_code == 201
     doc = r.json()
     assert set(doc) >= {"id", "token", "scopes", "label", "created_at"}
@@ -33,14 +34,17 @@ def test_delete_twice_is_404(client):
     assert listed[0]["revoked_at"] is not None
 
 
-@pytest.mark.parametrize(("doc", "loc"), [
-    ({"scopes": []}, "scopes"),
-    ({"scopes": ["root"]}, "scopes[0]"),
-    ({"scopes": "read"}, "scopes"),
-    ({}, "scopes"),
-    ({"scopes": ["read"], "label": 5}, "label"),
-    ({"scopes": ["read"], "colour": "red"}, "colour"),
-])
+@pytest.mark.parametrize(
+    ("doc", "loc"),
+    [
+        ({"scopes": []}, "scopes"),
+        ({"scopes": ["root"]}, "scopes[0]"),
+        ({"scopes": "read"}, "scopes"),
+        ({}, "scopes"),
+        ({"scopes": ["read"], "label": 5}, "label"),
+        ({"scopes": ["read"], "colour": "red"}, "colour"),
+    ],
+)
 def test_invalid_token_requests_are_422(client, doc, loc):
     r = client.post("/v1/tokens", json=doc, headers=ADMIN)
     assert r.status_code == 422
@@ -48,11 +52,15 @@ def test_invalid_token_requests_are_422(client, doc, loc):
 
 
 def test_token_request_needs_json(client):
-    r = client.post("/v1/tokens", content=b"scopes=read",
-                    headers={**ADMIN, "Content-Type": "application/x-www-form-urlencoded"})
+    r = client.post(
+        "/v1/tokens",
+        content=b"scopes=read",
+        headers={**ADMIN, "Content-Type": "application/x-www-form-urlencoded"},
+    )
     assert r.status_code == 415
-    r = client.post("/v1/tokens", content=b"{", headers={**ADMIN,
-                                                         "Content-Type": "application/json"})
+    r = client.post(
+        "/v1/tokens", content=b"{", headers={**ADMIN, "Content-Type": "application/json"}
+    )
     assert r.status_code == 400
 
 

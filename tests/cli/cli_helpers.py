@@ -14,17 +14,37 @@ import httpx
 def result_json(verdict: str, **extra: Any) -> dict[str, Any]:
     """An assessment answer in the contract's shape (for servers faked with MockTransport)."""
     status = {"pass": "pass", "warn": "warn", "fail": "fail"}[verdict]
-    reasons = [] if verdict == "pass" else [
-        {"check": "bias", "status": status, "series_id": "store-1",
-         "message": "residuals average +2.1: the forecasts run low"}
-    ]
+    reasons = (
+        []
+        if verdict == "pass"
+        else [
+            {
+                "check": "bias",
+                "status": status,
+                "series_id": "store-1",
+                "message": "residuals average +2.1: the forecasts run low",
+            }
+        ]
+    )
     data = {
-        "id": "a-1", "created_at": "2026-12-01T21:00:00Z", "model": "m", "version": "1",
-        "policy": {"name": "default", "version": 1}, "verdict": verdict, "reasons": reasons,
-        "checks": [{"name": "bias", "status": status, "series_tested": 2,
-                    "series_failed": int(verdict == "fail"),
-                    "series_warned": int(verdict == "warn"),
-                    "failed_share": 0.5 if verdict == "fail" else 0.0, "message": ""}],
+        "id": "a-1",
+        "created_at": "2026-12-01T21:00:00Z",
+        "model": "m",
+        "version": "1",
+        "policy": {"name": "default", "version": 1},
+        "verdict": verdict,
+        "reasons": reasons,
+        "checks": [
+            {
+                "name": "bias",
+                "status": status,
+                "series_tested": 2,
+                "series_failed": int(verdict == "fail"),
+                "series_warned": int(verdict == "warn"),
+                "failed_share": 0.5 if verdict == "fail" else 0.0,
+                "message": "",
+            }
+        ],
         "series": [{"id": "store-1", "verdict": verdict}, {"id": "store-2", "verdict": "pass"}],
     }
     data.update(extra)
@@ -67,7 +87,8 @@ def closed_port() -> int:
 
 
 SMALL_BODY: dict[str, Any] = {
-    "model": "m", "version": "1",
+    "model": "m",
+    "version": "1",
     "series": [{"id": "store-1", "actuals": [1.0, 2.0, 3.0], "fitted": [None, 1.5, 2.5]}],
 }
 
@@ -87,8 +108,9 @@ class AppTransport(httpx.BaseTransport):
         content = request.read()
 
         async def call() -> httpx.Response:
-            forwarded = httpx.Request(request.method, request.url, headers=request.headers,
-                                      content=content)
+            forwarded = httpx.Request(
+                request.method, request.url, headers=request.headers, content=content
+            )
             answer = await self._asgi.handle_async_request(forwarded)
             body = await answer.aread()
             return httpx.Response(answer.status_code, headers=answer.headers, content=body)

@@ -36,8 +36,12 @@ def cli(capsys: pytest.CaptureFixture[str]) -> Callable[..., Run]:
 @pytest.fixture(autouse=True)
 def _no_server_env(monkeypatch: pytest.MonkeyPatch) -> None:
     """Tests never pick up a server, token or database from the developer's environment."""
-    for name in ("PLUMBLINE_SERVER", "PLUMBLINE_TOKEN", "PLUMBLINE_DATABASE_URL",
-                 "PLUMBLINE_ADMIN_TOKEN"):
+    for name in (
+        "PLUMBLINE_SERVER",
+        "PLUMBLINE_TOKEN",
+        "PLUMBLINE_DATABASE_URL",
+        "PLUMBLINE_ADMIN_TOKEN",
+    ):
         monkeypatch.delenv(name, raising=False)
 
 

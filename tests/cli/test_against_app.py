@@ -58,8 +58,7 @@ def files(tmp_path):
 
 
 def stored(http, **filters):
-    resp = http.get("/v1/assessments", params=filters,
-                    headers={"Authorization": f"Bearer {ADMIN}"})
+    resp = http.get("/v1/assessments", params=filters, headers={"Authorization": f"Bearer {ADMIN}"})
     assert resp.status_code == 200, resp.text
     return resp.json()["items"]
 
@@ -70,8 +69,12 @@ def assess(cli, http, path, *extra, token=ADMIN):
 
 @pytest.mark.parametrize(
     ("file", "verdict", "fail_on", "code"),
-    [("weekday.json", "pass", "fail", 0), ("stale.json", "fail", "fail", 1),
-     ("shared-week.json", "warn", "fail", 0), ("shared-week.json", "warn", "warn", 1)],
+    [
+        ("weekday.json", "pass", "fail", 0),
+        ("stale.json", "fail", "fail", 1),
+        ("shared-week.json", "warn", "fail", 0),
+        ("shared-week.json", "warn", "warn", 1),
+    ],
 )
 def test_assess_exit_codes_on_the_service(cli, http, files, file, verdict, fail_on, code):
     run = assess(cli, http, files / file, "--fail-on", fail_on)
@@ -87,8 +90,9 @@ def test_json_output_is_what_the_service_stored(cli, http, files):
     run = assess(cli, http, files / "stale.json", "--json")
     assert run.code == 1
     printed = json.loads(run.out)
-    again = http.get(f"/v1/assessments/{printed['id']}",
-                     headers={"Authorization": f"Bearer {ADMIN}"}).json()
+    again = http.get(
+        f"/v1/assessments/{printed['id']}", headers={"Authorization": f"Bearer {ADMIN}"}
+    ).json()
     assert printed["verdict"] == again["verdict"] == "fail"
     assert printed["reasons"] == again["reasons"]
 
@@ -117,23 +121,50 @@ def test_same_key_with_another_body_is_refused(http, files):
 
 
 def test_csv_upload_with_options(cli, http, files):
-    run = assess(cli, http, files / "weekday.csv", "--model", "wrenfield-pickups-weekday",
-                 "--version", "csv-1", "--season-length", "7")
+    run = assess(
+        cli,
+        http,
+        files / "weekday.csv",
+        "--model",
+        "wrenfield-pickups-weekday",
+        "--version",
+        "csv-1",
+        "--season-length",
+        "7",
+    )
     assert run.code == 0, run.err
     (row,) = stored(http)
     assert (row["model"], row["version"], row["verdict"]) == (
-        "wrenfield-pickups-weekday", "csv-1", "pass")
+        "wrenfield-pickups-weekday",
+        "csv-1",
+        "pass",
+    )
 
 
 def test_csv_with_a_policy_file_and_labels_is_sent_as_json(cli, http, files, tmp_path):
     policy = tmp_path / "lenient.json"
-    policy.write_text(json.dumps({"name": "lenient-bias",
-                                  "checks": {"bias": {"warn_p": 1e-60, "fail_p": 1e-60}}}))
+    policy.write_text(
+        json.dumps({"name": "lenient-bias", "checks": {"bias": {"warn_p": 1e-60, "fail_p": 1e-60}}})
+    )
     csv_text = demo.to_csv(json.loads((files / "stale.json").read_text()))
     path = tmp_path / "stale.csv"
     path.write_text(csv_text)
-    run = assess(cli, http, path, "--model", "stale", "--version", "1", "--season-length", "7",
-                 "--policy", str(policy), "--label", "pipeline_run=8812", "--json")
+    run = assess(
+        cli,
+        http,
+        path,
+        "--model",
+        "stale",
+        "--version",
+        "1",
+        "--season-length",
+        "7",
+        "--policy",
+        str(policy),
+        "--label",
+        "pipeline_run=8812",
+        "--json",
+    )
     result = json.loads(run.out)
     assert result["policy"]["name"] == "lenient-bias"
     assert result["labels"] == {"pipeline_run": "8812"}
@@ -142,9 +173,21 @@ def test_csv_with_a_policy_file_and_labels_is_sent_as_json(cli, http, files, tmp
 
 def test_json_and_csv_of_the_same_request_agree(cli, http, files):
     a = json.loads(assess(cli, http, files / "weekday.json", "--no-store", "--json").out)
-    b = json.loads(assess(cli, http, files / "weekday.csv", "--no-store", "--json",
-                          "--model", "wrenfield-pickups-weekday", "--version", demo.VERSION,
-                          "--season-length", "7").out)
+    b = json.loads(
+        assess(
+            cli,
+            http,
+            files / "weekday.csv",
+            "--no-store",
+            "--json",
+            "--model",
+            "wrenfield-pickups-weekday",
+            "--version",
+            demo.VERSION,
+            "--season-length",
+            "7",
+        ).out
+    )
     assert a["id"] is None and b["id"] is None
     assert a["checks"] == b["checks"] and a["series"] == b["series"]
     assert stored(http) == []
@@ -152,8 +195,15 @@ def test_json_and_csv_of_the_same_request_agree(cli, http, files):
 
 def test_invalid_request_names_the_field(cli, http, tmp_path):
     path = tmp_path / "bad.json"
-    path.write_text(json.dumps({"model": "m", "version": "1", "series": [
-        {"id": "a", "actuals": [1.0, 2.0, 3.0], "fitted": [1.0, 2.0]}]}))
+    path.write_text(
+        json.dumps(
+            {
+                "model": "m",
+                "version": "1",
+                "series": [{"id": "a", "actuals": [1.0, 2.0, 3.0], "fitted": [1.0, 2.0]}],
+            }
+        )
+    )
     run = assess(cli, http, path)
     assert run.code == 2
     assert "series[0]" in run.err and "fitted" in run.err and len(run.err.splitlines()) == 1
@@ -200,7 +250,8 @@ def test_tokens_through_the_api(cli, http, files):
 
     listing = json.loads(tokens("list", "--json").out)["items"]
     assert [(t["id"], t["label"], t["revoked_at"]) for t in listing] == [
-        (created["id"], "dashboard", None)]
+        (created["id"], "dashboard", None)
+    ]
     assert "dashboard" in tokens("list").out
 
     # a read token may not submit
@@ -215,8 +266,18 @@ def test_tokens_through_the_api(cli, http, files):
 
 
 def test_tokens_straight_on_the_database_then_used_on_the_api(cli, http, db_url, files):
-    run = cli("tokens", "create", "--scope", "submit", "--scope", "read", "--label", "ci",
-              "--database", db_url)
+    run = cli(
+        "tokens",
+        "create",
+        "--scope",
+        "submit",
+        "--scope",
+        "read",
+        "--label",
+        "ci",
+        "--database",
+        db_url,
+    )
     assert run.code == 0, run.err
     secret = run.out.splitlines()[1]
     assert "shown once" in run.out
@@ -269,8 +330,10 @@ def test_serve_calls_the_server_runner(cli, monkeypatch):
     monkeypatch.setattr("service.api.server.run", lambda **kw: calls.append(kw))
     assert cli("serve", "--port", "8123", "--workers", "2").code == 0
     assert cli("serve").code == 0
-    assert calls == [{"host": "127.0.0.1", "port": 8123, "workers": 2},
-                     {"host": "127.0.0.1", "port": 8000, "workers": 1}]
+    assert calls == [
+        {"host": "127.0.0.1", "port": 8123, "workers": 2},
+        {"host": "127.0.0.1", "port": 8000, "workers": 1},
+    ]
 
 
 def test_a_rerun_with_the_same_idempotency_key_stores_once(cli, http, files):
@@ -300,8 +363,17 @@ def test_client_reads_back_what_it_stored(http, files):
 
 def test_tokens_on_each_database_backend(cli, migrated_url):
     """``migrated_url`` (tests/conftest.py): a fresh migrated SQLite file and PostgreSQL schema."""
-    run = cli("tokens", "create", "--scope", "admin", "--label", "first-admin",
-              "--database", migrated_url, "--json")
+    run = cli(
+        "tokens",
+        "create",
+        "--scope",
+        "admin",
+        "--label",
+        "first-admin",
+        "--database",
+        migrated_url,
+        "--json",
+    )
     assert run.code == 0, run.err
     created = json.loads(run.out)
     assert len(created["token"]) > 20 and created["scopes"] == ["admin"]
@@ -321,7 +393,21 @@ def test_the_printed_report_link_opens_without_a_token(cli, http, files):
 
 
 def test_a_token_without_read_scope_gets_no_link_and_no_noise(cli, http, files):
-    made = json.loads(cli("tokens", "create", "--scope", "submit", "--label", "submit-only",
-                          "--server", URL, "--token", ADMIN, "--json", http=http).out)
+    made = json.loads(
+        cli(
+            "tokens",
+            "create",
+            "--scope",
+            "submit",
+            "--label",
+            "submit-only",
+            "--server",
+            URL,
+            "--token",
+            ADMIN,
+            "--json",
+            http=http,
+        ).out
+    )
     run = assess(cli, http, files / "weekday.json", token=made["token"])
     assert run.code == 0 and "report:" not in run.out and run.err == ""

@@ -32,8 +32,9 @@ def test_directory_instead_of_file(cli, tmp_path):
 def test_unreadable_json_names_line_and_column(cli, tmp_path):
     path = tmp_path / "broken.json"
     path.write_text('{"model": "m",\n "series": [1, 2,]}')
-    one_line_error(cli("assess", str(path), "--offline"), "broken.json: not valid JSON",
-                   "line 2, column")
+    one_line_error(
+        cli("assess", str(path), "--offline"), "broken.json: not valid JSON", "line 2, column"
+    )
 
 
 def test_json_that_is_not_an_object(cli, tmp_path):
@@ -66,8 +67,10 @@ def test_csv_missing_columns(cli, tmp_path):
 def test_csv_detected_by_content_without_extension(cli, tmp_path):
     path = tmp_path / "data"
     path.write_text("id,value\na,1\n")
-    one_line_error(cli("assess", str(path), "--offline"),
-                   "missing required CSV columns series_id, actual, fitted")
+    one_line_error(
+        cli("assess", str(path), "--offline"),
+        "missing required CSV columns series_id, actual, fitted",
+    )
 
 
 def test_empty_csv(cli, tmp_path):
@@ -78,8 +81,10 @@ def test_empty_csv(cli, tmp_path):
 
 def test_nan_in_json_is_refused_before_sending(cli, tmp_path):
     path = tmp_path / "nan.json"
-    path.write_text('{"model": "m", "version": "1", "series": [{"id": "a", '
-                    '"actuals": [NaN, 1], "fitted": [1, 1]}]}')
+    path.write_text(
+        '{"model": "m", "version": "1", "series": [{"id": "a", '
+        '"actuals": [NaN, 1], "fitted": [1, 1]}]}'
+    )
     one_line_error(cli("assess", str(path), "--server", "http://127.0.0.1:9"), "NaN", "null")
 
 
@@ -107,13 +112,19 @@ def test_usage_errors_are_one_line_exit_2(cli, argv, needle):
 
 
 def test_no_server_configured(cli, body_file):
-    one_line_error(cli("assess", str(body_file)), "no server to assess against",
-                   "PLUMBLINE_SERVER", "--offline")
+    one_line_error(
+        cli("assess", str(body_file)),
+        "no server to assess against",
+        "PLUMBLINE_SERVER",
+        "--offline",
+    )
 
 
 def test_offline_and_server_exclude_each_other(cli, body_file):
-    one_line_error(cli("assess", str(body_file), "--offline", "--server", "http://127.0.0.1:9"),
-                   "--offline and --server")
+    one_line_error(
+        cli("assess", str(body_file), "--offline", "--server", "http://127.0.0.1:9"),
+        "--offline and --server",
+    )
 
 
 @pytest.mark.parametrize("url", ["localhost:8000", "ftp://host/x"])
@@ -122,39 +133,51 @@ def test_bad_server_url(cli, body_file, url):
 
 
 def test_level_with_json_input(cli, body_file):
-    one_line_error(cli("assess", str(body_file), "--offline", "--level", "0.9"),
-                   "--level applies to CSV input")
+    one_line_error(
+        cli("assess", str(body_file), "--offline", "--level", "0.9"), "--level applies to CSV input"
+    )
 
 
 def test_bad_label(cli, body_file):
-    one_line_error(cli("assess", str(body_file), "--offline", "--label", "nokey"),
-                   "--label expects KEY=VALUE")
+    one_line_error(
+        cli("assess", str(body_file), "--offline", "--label", "nokey"), "--label expects KEY=VALUE"
+    )
 
 
 def test_missing_policy_file(cli, body_file, tmp_path):
-    one_line_error(cli("assess", str(body_file), "--offline", "--policy",
-                       str(tmp_path / "strict.json")), "file not found", "strict.json")
+    one_line_error(
+        cli("assess", str(body_file), "--offline", "--policy", str(tmp_path / "strict.json")),
+        "file not found",
+        "strict.json",
+    )
 
 
 def test_policy_file_not_json(cli, body_file, tmp_path):
     path = tmp_path / "policy.json"
     path.write_text("checks: {}")
-    one_line_error(cli("assess", str(body_file), "--offline", "--policy", str(path)),
-                   "policy file", "not valid JSON")
+    one_line_error(
+        cli("assess", str(body_file), "--offline", "--policy", str(path)),
+        "policy file",
+        "not valid JSON",
+    )
 
 
 def test_policy_file_not_an_object(cli, body_file, tmp_path):
     path = tmp_path / "policy.json"
     path.write_text(json.dumps(["bias"]))
-    one_line_error(cli("assess", str(body_file), "--offline", "--policy", str(path)),
-                   "policy file", "expected a JSON object, got an array")
+    one_line_error(
+        cli("assess", str(body_file), "--offline", "--policy", str(path)),
+        "policy file",
+        "expected a JSON object, got an array",
+    )
 
 
 def test_labels_in_file_must_be_an_object(cli, tmp_path):
     path = tmp_path / "req.json"
     path.write_text(json.dumps({**SMALL_BODY, "labels": ["a"]}))
-    one_line_error(cli("assess", str(path), "--offline", "--label", "a=b"),
-                   "'labels' is not an object")
+    one_line_error(
+        cli("assess", str(path), "--offline", "--label", "a=b"), "'labels' is not an object"
+    )
 
 
 def test_help_exits_0(cli):

@@ -21,9 +21,7 @@ from service.client import (
 
 def make(server: FakeServer, **kwargs) -> tuple[PlumblineClient, list[float]]:
     slept: list[float] = []
-    client = PlumblineClient(
-        token="tok", http=server.client(), sleep=slept.append, **kwargs
-    )
+    client = PlumblineClient(token="tok", http=server.client(), sleep=slept.append, **kwargs)
     return client, slept
 
 
@@ -54,8 +52,9 @@ def test_assess_sends_json_with_token_and_key_and_parses_typed_result():
 def test_csv_goes_as_text_with_query_parameters_and_store_false():
     server = FakeServer([httpx.Response(201, json=result_json("pass", id=None))])
     client, _ = make(server)
-    client.assess(csv="series_id,actual,fitted\n", params={"model": "m", "season_length": 7},
-                  store=False)
+    client.assess(
+        csv="series_id,actual,fitted\n", params={"model": "m", "season_length": 7}, store=False
+    )
     (req,) = server.requests
     assert req.headers["Content-Type"] == "text/csv"
     assert req.content == b"series_id,actual,fitted\n"
@@ -63,11 +62,13 @@ def test_csv_goes_as_text_with_query_parameters_and_store_false():
 
 
 def test_retries_connection_errors_then_answers_with_one_idempotency_key():
-    server = FakeServer([
-        httpx.ConnectError("connection refused"),
-        httpx.ReadTimeout("timed out"),
-        httpx.Response(200, json=result_json("pass")),
-    ])
+    server = FakeServer(
+        [
+            httpx.ConnectError("connection refused"),
+            httpx.ReadTimeout("timed out"),
+            httpx.Response(200, json=result_json("pass")),
+        ]
+    )
     retries: list[tuple[int, float, str]] = []
     client, slept = make(server, backoff=0.5, on_retry=lambda *a: retries.append(a))
     result = client.assess(SMALL_BODY)
@@ -95,11 +96,13 @@ def test_given_idempotency_key_is_used():
 
 
 def test_5xx_is_retried_honouring_retry_after_capped():
-    server = FakeServer([
-        httpx.Response(503, headers={"Retry-After": "2"}),
-        httpx.Response(502, headers={"Retry-After": "60"}),
-        httpx.Response(201, json=result_json("warn")),
-    ])
+    server = FakeServer(
+        [
+            httpx.Response(503, headers={"Retry-After": "2"}),
+            httpx.Response(502, headers={"Retry-After": "60"}),
+            httpx.Response(201, json=result_json("warn")),
+        ]
+    )
     client, slept = make(server, max_backoff=8.0)
     assert client.assess(SMALL_BODY).verdict == "warn"
     assert slept == [2.0, 8.0]
@@ -161,8 +164,13 @@ def test_nan_in_body_is_refused_before_sending():
 
 
 def test_verdict_412_means_not_met_and_200_met():
-    body = {"model": "m", "version": "1", "verdict": "warn", "assessment_id": "a-1",
-            "created_at": "2026-12-01T21:00:00Z"}
+    body = {
+        "model": "m",
+        "version": "1",
+        "verdict": "warn",
+        "assessment_id": "a-1",
+        "created_at": "2026-12-01T21:00:00Z",
+    }
     server = FakeServer([httpx.Response(412, json=body), httpx.Response(200, json=body)])
     client, _ = make(server)
     first = client.verdict("m/x", require="pass")
@@ -182,13 +190,24 @@ def test_create_link_ignores_a_server_without_links():
 
 
 def test_tokens_endpoints():
-    listing = {"items": [{"id": "t1", "label": "ci", "scopes": ["submit", "read"],
-                          "created_at": "2026-12-01T20:00:00Z", "revoked_at": None}]}
-    server = FakeServer([
-        httpx.Response(201, json={"id": "t1", "token": "secret"}),
-        httpx.Response(200, json=listing),
-        httpx.Response(204),
-    ])
+    listing = {
+        "items": [
+            {
+                "id": "t1",
+                "label": "ci",
+                "scopes": ["submit", "read"],
+                "created_at": "2026-12-01T20:00:00Z",
+                "revoked_at": None,
+            }
+        ]
+    }
+    server = FakeServer(
+        [
+            httpx.Response(201, json={"id": "t1", "token": "secret"}),
+            httpx.Response(200, json=listing),
+            httpx.Response(204),
+        ]
+    )
     client, _ = make(server)
     created = client.create_token(scopes=["submit", "read"], label="ci")
     assert (created.id, created.token, created.scopes) == ("t1", "secret", ("submit", "read"))
@@ -196,7 +215,10 @@ def test_tokens_endpoints():
     assert info.active and info.scopes == ("submit", "read")
     client.revoke_token("t1")
     assert [(r.method, r.url.path) for r in server.requests] == [
-        ("POST", "/v1/tokens"), ("GET", "/v1/tokens"), ("DELETE", "/v1/tokens/t1")]
+        ("POST", "/v1/tokens"),
+        ("GET", "/v1/tokens"),
+        ("DELETE", "/v1/tokens/t1"),
+    ]
     assert json.loads(server.requests[0].content) == {"scopes": ["submit", "read"], "label": "ci"}
 
 

@@ -22,13 +22,20 @@ def test_demo_writes_files_and_prints_a_verdict_per_model(cli, tmp_path):
     assert run.code == 0, run.err
     assert run.out.startswith("INVENTED DEMO DATA: Wrenfield Cycle Share")
     written = sorted(p.name for p in directory.iterdir())
-    assert written == ["README.txt", "shared-week.json", "stale.json", "weekday.csv",
-                       "weekday.json"]
+    assert written == [
+        "README.txt",
+        "shared-week.json",
+        "stale.json",
+        "weekday.csv",
+        "weekday.json",
+    ]
     assert (directory / "README.txt").read_text().startswith("INVENTED DEMO DATA")
-    verdicts = {line.split()[1]: line.split()[0] for line in run.out.splitlines()
-                if line.startswith("  ") and line.split()[0] in ("PASS", "WARN", "FAIL")}
-    assert verdicts == {"weekday.json": "PASS", "stale.json": "FAIL",
-                        "shared-week.json": "WARN"}
+    verdicts = {
+        line.split()[1]: line.split()[0]
+        for line in run.out.splitlines()
+        if line.startswith("  ") and line.split()[0] in ("PASS", "WARN", "FAIL")
+    }
+    assert verdicts == {"weekday.json": "PASS", "stale.json": "FAIL", "shared-week.json": "WARN"}
     # each demo file gives the same verdict through assess
     for name, verdict in verdicts.items():
         out = cli("assess", str(directory / name), "--offline").out

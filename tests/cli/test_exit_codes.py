@@ -22,14 +22,21 @@ def _no_sleep(monkeypatch):
 
 
 def assess(cli, body_file, server, *extra):
-    return cli("assess", str(body_file), "--server", URL, "--token", "t", *extra,
-               http=server.client())
+    return cli(
+        "assess", str(body_file), "--server", URL, "--token", "t", *extra, http=server.client()
+    )
 
 
 @pytest.mark.parametrize(
     ("verdict", "fail_on", "code"),
-    [("pass", "fail", 0), ("warn", "fail", 0), ("fail", "fail", 1),
-     ("pass", "warn", 0), ("warn", "warn", 1), ("fail", "warn", 1)],
+    [
+        ("pass", "fail", 0),
+        ("warn", "fail", 0),
+        ("fail", "fail", 1),
+        ("pass", "warn", 0),
+        ("warn", "warn", 1),
+        ("fail", "warn", 1),
+    ],
 )
 def test_gate_exit_code_follows_verdict_and_fail_on(cli, body_file, verdict, fail_on, code):
     server = FakeServer([httpx.Response(201, json=result_json(verdict))])
@@ -62,10 +69,12 @@ def test_json_output_is_the_full_answer(cli, body_file):
 
 
 def test_report_link_from_the_links_endpoint(cli, body_file):
-    server = FakeServer([
-        httpx.Response(201, json=result_json("pass")),
-        httpx.Response(201, json={"url": "http://plumbline.test/r/abc"}),
-    ])
+    server = FakeServer(
+        [
+            httpx.Response(201, json=result_json("pass")),
+            httpx.Response(201, json={"url": "http://plumbline.test/r/abc"}),
+        ]
+    )
     run = assess(cli, body_file, server)
     assert run.code == 0
     assert "report:  http://plumbline.test/r/abc" in run.out
@@ -96,9 +105,23 @@ def test_overrides_are_sent_in_the_body(cli, body_file, tmp_path):
     policy = tmp_path / "strict.json"
     policy.write_text(json.dumps({"name": "strict", "checks": {"bias": {"fail_p": 0.05}}}))
     server = FakeServer([httpx.Response(201, json=result_json("pass"))])
-    run = assess(cli, body_file, server, "--model", "weekly", "--version", "7",
-                 "--policy", str(policy), "--season-length", "52", "--model-params", "3",
-                 "--label", "pipeline_run=8812")
+    run = assess(
+        cli,
+        body_file,
+        server,
+        "--model",
+        "weekly",
+        "--version",
+        "7",
+        "--policy",
+        str(policy),
+        "--season-length",
+        "52",
+        "--model-params",
+        "3",
+        "--label",
+        "pipeline_run=8812",
+    )
     assert run.code == 0, run.err
     sent = json.loads(server.requests[0].content)
     assert sent["model"] == "weekly" and sent["version"] == "7"
@@ -140,8 +163,13 @@ def test_server_error_exits_3_after_retries(cli, body_file):
 
 
 def test_retried_then_answered_exits_by_verdict(cli, body_file):
-    server = FakeServer([httpx.ConnectError("refused"), problem(503, "Unavailable"),
-                         httpx.Response(200, json=result_json("pass"))])
+    server = FakeServer(
+        [
+            httpx.ConnectError("refused"),
+            problem(503, "Unavailable"),
+            httpx.Response(200, json=result_json("pass")),
+        ]
+    )
     run = assess(cli, body_file, server)
     assert run.code == 0
     posts = [r for r in server.requests if r.url.path == "/v1/assessments"]
@@ -154,8 +182,10 @@ def test_invalid_request_exits_2_naming_the_field(cli, body_file):
     server = FakeServer([problem(422, "Unprocessable Content", "invalid", errors=errors)])
     run = assess(cli, body_file, server)
     assert run.code == 2
-    assert run.err.strip() == ("plumbline: error: request refused: 422 Unprocessable Content: "
-                               "series[0].fitted: has 2 values, expected 3")
+    assert run.err.strip() == (
+        "plumbline: error: request refused: 422 Unprocessable Content: "
+        "series[0].fitted: has 2 values, expected 3"
+    )
 
 
 def test_refused_token_exits_2_with_a_hint(cli, body_file):
@@ -171,14 +201,23 @@ def test_refused_token_exits_2_with_a_hint(cli, body_file):
 
 
 def verdict_body(verdict):
-    return {"model": "m", "version": "1", "verdict": verdict, "assessment_id": "a-9",
-            "created_at": "2026-12-01T21:00:00Z"}
+    return {
+        "model": "m",
+        "version": "1",
+        "verdict": verdict,
+        "assessment_id": "a-9",
+        "created_at": "2026-12-01T21:00:00Z",
+    }
 
 
 @pytest.mark.parametrize(
     ("status", "verdict", "require", "code"),
-    [(200, "pass", "pass", 0), (412, "warn", "pass", 1), (200, "warn", "warn", 0),
-     (412, "fail", "warn", 1)],
+    [
+        (200, "pass", "pass", 0),
+        (412, "warn", "pass", 1),
+        (200, "warn", "warn", 0),
+        (412, "fail", "warn", 1),
+    ],
 )
 def test_verdict_command(cli, status, verdict, require, code):
     server = FakeServer([httpx.Response(status, json=verdict_body(verdict))])
@@ -210,8 +249,12 @@ def test_verdict_unreachable_exits_3(cli):
 
 
 def test_a_failing_report_link_changes_nothing_but_a_note(cli, body_file):
-    server = FakeServer([httpx.Response(201, json=result_json("fail")),
-                         problem(503, "Unavailable", "report links are not available")])
+    server = FakeServer(
+        [
+            httpx.Response(201, json=result_json("fail")),
+            problem(503, "Unavailable", "report links are not available"),
+        ]
+    )
     run = assess(cli, body_file, server)
     assert run.code == 1
     assert "no report link" in run.err and "report links are not available" in run.err

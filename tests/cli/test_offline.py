@@ -18,8 +18,7 @@ def body(residuals: np.ndarray, *, model: str = "invented-model", level: float =
     series = []
     for i, e in enumerate(residuals):
         fitted = np.full(e.shape, level)
-        series.append({"id": f"s{i}", "actuals": (fitted + e).tolist(),
-                       "fitted": fitted.tolist()})
+        series.append({"id": f"s{i}", "actuals": (fitted + e).tolist(), "fitted": fitted.tolist()})
     return {"model": model, "version": "1", "series": series}
 
 
@@ -61,8 +60,7 @@ def test_ljung_box_statistic_matches_statsmodels(cli, tmp_path):
     shocks = rng.standard_normal((4, 150))
     for t in range(150):  # AR(1), phi 0.6: autocorrelation left in the residuals
         e[:, t] = shocks[:, t] + (0.6 * e[:, t - 1] if t else 0.0)
-    run = cli("assess", str(write(tmp_path, body(e))), "--offline", "--json",
-              "--model-params", "1")
+    run = cli("assess", str(write(tmp_path, body(e))), "--offline", "--json", "--model-params", "1")
     result = json.loads(run.out)
     assert run.code == 1
     for s, row in zip(result["series"], e, strict=True):
@@ -91,9 +89,18 @@ def files_dir(tmp_path):
 
 def test_csv_offline_matches_json_offline(cli, files_dir):
     a = json.loads(cli("assess", str(files_dir / "weekday.json"), "--offline", "--json").out)
-    run = cli("assess", str(files_dir / "weekday.csv"), "--offline", "--json",
-              "--model", "wrenfield-pickups-weekday", "--version", demo.VERSION,
-              "--season-length", "7")
+    run = cli(
+        "assess",
+        str(files_dir / "weekday.csv"),
+        "--offline",
+        "--json",
+        "--model",
+        "wrenfield-pickups-weekday",
+        "--version",
+        demo.VERSION,
+        "--season-length",
+        "7",
+    )
     b = json.loads(run.out)
     assert run.code == 0
     assert a["checks"] == b["checks"] and a["series"] == b["series"]
@@ -112,19 +119,35 @@ def test_stdin_is_read_with_dash(cli, files_dir, monkeypatch):
 
 def test_policy_file_is_used_offline(cli, tmp_path, files_dir):
     policy = tmp_path / "lenient.json"
-    policy.write_text(json.dumps({"name": "lenient", "version": 3,
-                                  "checks": {"bias": {"enabled": False},
-                                             "interval_coverage": {"enabled": False},
-                                             "benchmark_skill": {"enabled": False},
-                                             "tracking_signal": {"enabled": False},
-                                             "mase": {"enabled": False}}}))
+    policy.write_text(
+        json.dumps(
+            {
+                "name": "lenient",
+                "version": 3,
+                "checks": {
+                    "bias": {"enabled": False},
+                    "interval_coverage": {"enabled": False},
+                    "benchmark_skill": {"enabled": False},
+                    "tracking_signal": {"enabled": False},
+                    "mase": {"enabled": False},
+                },
+            }
+        )
+    )
     run = cli("assess", str(files_dir / "stale.json"), "--offline", "--policy", str(policy))
     assert "policy lenient v3" in run.out
-    result = json.loads(cli("assess", str(files_dir / "stale.json"), "--offline", "--policy",
-                            str(policy), "--json").out)
+    result = json.loads(
+        cli(
+            "assess", str(files_dir / "stale.json"), "--offline", "--policy", str(policy), "--json"
+        ).out
+    )
     assert result["policy"] == {"name": "lenient", "version": 3}
     assert [c["name"] for c in result["checks"]] == [
-        "data_sufficiency", "ljung_box", "arch_lm", "jarque_bera"]
+        "data_sufficiency",
+        "ljung_box",
+        "arch_lm",
+        "jarque_bera",
+    ]
 
 
 def test_invalid_policy_file_names_the_field(cli, tmp_path, files_dir):
@@ -142,9 +165,14 @@ def test_stored_policy_name_is_refused_offline(cli, files_dir):
 
 
 def test_invalid_request_names_the_field_offline(cli, tmp_path):
-    doc = {"model": "m", "version": "1",
-           "series": [{"id": "a", "actuals": [1.0, 2.0, 3.0], "fitted": [1.0, 2.0]},
-                      {"id": "b", "actuals": [1.0, 2.0], "fitted": [1.0]}]}
+    doc = {
+        "model": "m",
+        "version": "1",
+        "series": [
+            {"id": "a", "actuals": [1.0, 2.0, 3.0], "fitted": [1.0, 2.0]},
+            {"id": "b", "actuals": [1.0, 2.0], "fitted": [1.0]},
+        ],
+    }
     run = cli("assess", str(write(tmp_path, doc)), "--offline")
     assert run.code == 2 and len(run.err.splitlines()) == 1
     assert "invalid request" in run.err and "series[0]" in run.err and "series[1]" in run.err

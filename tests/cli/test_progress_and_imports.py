@@ -62,8 +62,9 @@ sys.exit(code)
 
 
 def probe(*argv: str) -> tuple[int, str]:
-    proc = subprocess.run([sys.executable, "-c", PROBE, *argv], capture_output=True, text=True,
-                          timeout=60, cwd=ROOT)
+    proc = subprocess.run(
+        [sys.executable, "-c", PROBE, *argv], capture_output=True, text=True, timeout=60, cwd=ROOT
+    )
     heavy = [line for line in proc.stderr.splitlines() if line.startswith("HEAVY=")]
     return proc.returncode, heavy[-1]
 
@@ -76,14 +77,20 @@ def test_server_mode_imports_no_heavy_module(tmp_path):
     path = tmp_path / "req.json"
     path.write_text(json.dumps(SMALL_BODY))
     port = closed_port()
-    code, heavy = probe("assess", str(path), "--server", f"http://127.0.0.1:{port}",
-                        "--retries", "0")
+    code, heavy = probe(
+        "assess", str(path), "--server", f"http://127.0.0.1:{port}", "--retries", "0"
+    )
     assert (code, heavy) == (3, "HEAVY=")
 
 
 def test_console_entry_point_runs_as_module():
-    proc = subprocess.run([sys.executable, "-m", "service.cli", "assess"], capture_output=True,
-                          text=True, timeout=60, cwd=ROOT)
+    proc = subprocess.run(
+        [sys.executable, "-m", "service.cli", "assess"],
+        capture_output=True,
+        text=True,
+        timeout=60,
+        cwd=ROOT,
+    )
     assert proc.returncode == 2
     assert proc.stderr.count("\n") == 1 and "required: FILE" in proc.stderr
 
@@ -96,9 +103,20 @@ def test_closed_output_pipe_keeps_the_gate_exit_code(tmp_path):
     os.close(read_end)  # the reader is gone before anything is written (like `| head -0`)
     try:
         proc = subprocess.run(
-            [sys.executable, "-m", "service.cli", "assess", str(tmp_path / "stale.json"),
-             "--offline"],
-            stdout=write_end, stderr=subprocess.PIPE, text=True, timeout=120, cwd=ROOT)
+            [
+                sys.executable,
+                "-m",
+                "service.cli",
+                "assess",
+                str(tmp_path / "stale.json"),
+                "--offline",
+            ],
+            stdout=write_end,
+            stderr=subprocess.PIPE,
+            text=True,
+            timeout=120,
+            cwd=ROOT,
+        )
     finally:
         os.close(write_end)
     assert proc.returncode == 1

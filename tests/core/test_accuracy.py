@@ -22,8 +22,13 @@ def test_naive_scale_published_and_computed():
 def test_mase_exercise(m, value, scale):
     # references.md (computed): holdout actuals [15, 19], forecasts [14, 14]: MAE 3, so
     # MASE 0.681818 (printed to 6 decimals) for m = 1 and 1.5 for m = 2.
-    batch = make_batch([TRAIN], [[None, *TRAIN[:-1]]], season_length=m,
-                       holdout_actuals=[[15.0, 19.0]], holdout_forecasts=[[14.0, 14.0]])
+    batch = make_batch(
+        [TRAIN],
+        [[None, *TRAIN[:-1]]],
+        season_length=m,
+        holdout_actuals=[[15.0, 19.0]],
+        holdout_forecasts=[[14.0, 14.0]],
+    )
     result = mase(batch)
     np.testing.assert_allclose(result.statistic[0], value, atol=5e-7)
     np.testing.assert_allclose(result.statistic[0], 3.0 / scale, rtol=RTOL)
@@ -39,9 +44,8 @@ def test_in_sample_naive_forecast_scores_exactly_one(m):
     # forecast scores MASE 1 exactly.
     rng = np.random.default_rng(m)
     y = rng.normal(50, 8, (5, 60)).round(1)
-    y[2, 40:] = np.nan                       # a shorter series (ragged)
-    batch = make_batch(y, y, season_length=m,
-                       holdout_actuals=y[:, m:], holdout_forecasts=y[:, :-m])
+    y[2, 40:] = np.nan  # a shorter series (ragged)
+    batch = make_batch(y, y, season_length=m, holdout_actuals=y[:, m:], holdout_forecasts=y[:, :-m])
     assert (mase(batch).statistic == 1.0).all()
 
 
@@ -50,8 +54,9 @@ def test_gaps_use_pairs_with_both_values():
     # computed: pairs (10,12) (11,15) (15,14) (14,13): |d| = 2, 4, 1, 1 -> scale 2.
     np.testing.assert_allclose(naive_scale(y, 1), [2.0], rtol=RTOL)
     # A missing holdout step is not scored (computed: MAE (3 + 3) / 2 = 3, MASE 1.5).
-    batch = make_batch(y, y, holdout_actuals=[[16.0, np.nan, 10.0]],
-                       holdout_forecasts=[[13.0, 13.0, 13.0]])
+    batch = make_batch(
+        y, y, holdout_actuals=[[16.0, np.nan, 10.0]], holdout_forecasts=[[13.0, 13.0, 13.0]]
+    )
     result = mase(batch)
     assert result.details["horizon"][0] == 2
     np.testing.assert_allclose(result.statistic[0], 3.0 / 2.0, rtol=RTOL)
@@ -67,7 +72,8 @@ def test_skips_with_reasons():
     )
     result = mase(batch)
     assert result.skip_reason[0] == (
-        "the in-sample naive forecast is exact (constant series), so the scale is 0")
+        "the in-sample naive forecast is exact (constant series), so the scale is 0"
+    )
     assert result.skip_reason[1] is None
     assert result.skip_reason[2] == "training series too short for a lag-2 naive forecast"
     assert result.skip_reason[3] == "no holdout"

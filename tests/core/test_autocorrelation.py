@@ -30,6 +30,7 @@ def _ar1(rng, n, phi):
 
 # --- Published values -----------------------------------------------------------------------
 
+
 @pytest.mark.parametrize(
     ("lags", "lb", "lb_p", "bp", "bp_p"),
     [
@@ -76,8 +77,14 @@ def test_nist_series_f_q_from_published_acf():
 @pytest.mark.parametrize(
     ("df", "crit05", "crit01"),
     # references.md: NIST e-Handbook table 1.3.6.7.4, chi-square upper critical values.
-    [(1, 3.8415, 6.6349), (2, 5.9915, 9.2103), (4, 9.4877, 13.2767), (8, 15.5073, 20.0902),
-     (10, 18.3070, 23.2093), (20, 31.4104, 37.5662)],
+    [
+        (1, 3.8415, 6.6349),
+        (2, 5.9915, 9.2103),
+        (4, 9.4877, 13.2767),
+        (8, 15.5073, 20.0902),
+        (10, 18.3070, 23.2093),
+        (20, 31.4104, 37.5662),
+    ],
 )
 def test_p_value_uses_chi_square_with_lags_minus_model_params(df, crit05, crit01):
     # Many invented series tested with df = lags - model_params: p < alpha exactly when Q is
@@ -100,6 +107,7 @@ def test_p_value_uses_chi_square_with_lags_minus_model_params(df, crit05, crit01
 
 # --- Lag rule -------------------------------------------------------------------------------
 
+
 def test_lag_rule_docstring_values():
     # Common practice (rule of thumb, no single source): 10 non-seasonal, 2m seasonal, <= T/5.
     assert portmanteau_lags(np.array([104]), 1)[0] == 10
@@ -120,12 +128,13 @@ def test_default_lags_and_df_reported():
 
 # --- Against statsmodels ---------------------------------------------------------------------
 
+
 @pytest.mark.parametrize("model_params", [0, 1, 3])
 def test_matches_acorr_ljungbox_on_mixed_batch(model_params):
     rng = np.random.default_rng(40 + model_params)
     lengths = [8, 21, 50, 77, 104, 156]
     rows = [_ar1(rng, n, 0.4) for n in lengths]
-    rows[1][:1] = np.nan   # leading missing fitted values (naive method)
+    rows[1][:1] = np.nan  # leading missing fitted values (naive method)
     rows[5][:2] = np.nan
     res = residuals(rows)
     result = ljung_box(res, model_params=model_params)
@@ -139,12 +148,15 @@ def test_matches_acorr_ljungbox_on_mixed_batch(model_params):
         ref = acorr_ljungbox(e, lags=[lags], model_df=model_params, boxpierce=True)
         np.testing.assert_allclose(result.statistic[i], ref["lb_stat"].iloc[0], rtol=RTOL)
         np.testing.assert_allclose(result.p_value[i], ref["lb_pvalue"].iloc[0], rtol=RTOL)
-        np.testing.assert_allclose(result.details["box_pierce"][i], ref["bp_stat"].iloc[0],
-                                   rtol=RTOL)
-        np.testing.assert_allclose(result.details["box_pierce_p_value"][i],
-                                   ref["bp_pvalue"].iloc[0], rtol=RTOL)
-        np.testing.assert_allclose(result.details["acf_lag1"][i],
-                                   acf(e, nlags=1, fft=False)[1], rtol=RTOL)
+        np.testing.assert_allclose(
+            result.details["box_pierce"][i], ref["bp_stat"].iloc[0], rtol=RTOL
+        )
+        np.testing.assert_allclose(
+            result.details["box_pierce_p_value"][i], ref["bp_pvalue"].iloc[0], rtol=RTOL
+        )
+        np.testing.assert_allclose(
+            result.details["acf_lag1"][i], acf(e, nlags=1, fft=False)[1], rtol=RTOL
+        )
 
 
 def test_acf_and_q_with_interior_gaps():
@@ -179,10 +191,17 @@ def test_acf_matches_statsmodels_without_gaps():
 
 # --- Skips and bad options --------------------------------------------------------------------
 
+
 def test_skips_with_reasons():
     rng = np.random.default_rng(6)
-    rows = [np.full(40, 2.0), np.zeros(40), rng.normal(0, 1, 4), [np.nan] * 10,
-            rng.normal(0, 1, 1), rng.normal(0, 1, 20)]
+    rows = [
+        np.full(40, 2.0),
+        np.zeros(40),
+        rng.normal(0, 1, 4),
+        [np.nan] * 10,
+        rng.normal(0, 1, 1),
+        rng.normal(0, 1, 20),
+    ]
     result = ljung_box(residuals(rows), model_params=4)
     assert result.skip_reason[0] == "residuals are constant, so autocorrelation is undefined"
     assert result.skip_reason[1] == "residuals are constant, so autocorrelation is undefined"

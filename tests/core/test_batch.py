@@ -24,6 +24,7 @@ RTOL = 1e-8
 
 # --- Validation: bad input names the argument -------------------------------------------------
 
+
 def _raises(argument, index=None, **kwargs):
     base = {"actuals": [[1.0, 2.0, 3.0]], "fitted": [[1.0, 2.0, 3.0]]}
     base.update(kwargs)
@@ -42,26 +43,43 @@ def test_shapes_that_disagree():
     _raises("actuals", actuals=np.ones((2, 2, 2)), fitted=np.ones((2, 2, 2)))
     _raises("holdout_actuals", holdout_actuals=[[1.0], [2.0]], holdout_forecasts=[[1.0]])
     _raises("holdout_forecasts", holdout_actuals=[[1.0]], holdout_forecasts=[[1.0], [1.0]])
-    _raises("holdout_lower", holdout_actuals=[[1.0]], holdout_forecasts=[[1.0]],
-            holdout_lower=[[0.0, 0.0]], holdout_upper=[[2.0, 2.0]])
+    _raises(
+        "holdout_lower",
+        holdout_actuals=[[1.0]],
+        holdout_forecasts=[[1.0]],
+        holdout_lower=[[0.0, 0.0]],
+        holdout_upper=[[2.0, 2.0]],
+    )
     _raises("ids", ids=["a", "b"])
     _raises("weights", weights=[1.0, 2.0])
-    _raises("level", holdout_actuals=[[1.0]], holdout_forecasts=[[1.0]],
-            holdout_lower=[[0.0]], holdout_upper=[[2.0]], level=[0.9, 0.9])
+    _raises(
+        "level",
+        holdout_actuals=[[1.0]],
+        holdout_forecasts=[[1.0]],
+        holdout_lower=[[0.0]],
+        holdout_upper=[[2.0]],
+        level=[0.9, 0.9],
+    )
 
 
 def test_fitted_after_the_last_actual():
     _raises("fitted", 0, actuals=[[1.0, 2.0, None]], fitted=[[1.0, 2.0, 3.0]])
 
 
-@pytest.mark.parametrize("name", ["actuals", "fitted", "holdout_actuals", "holdout_forecasts",
-                                  "holdout_lower", "holdout_upper"])
+@pytest.mark.parametrize(
+    "name",
+    ["actuals", "fitted", "holdout_actuals", "holdout_forecasts", "holdout_lower", "holdout_upper"],
+)
 @pytest.mark.parametrize("value", [np.inf, -np.inf])
 def test_infinite_values(name, value):
-    arrays = {"actuals": [[1.0, 2.0, 3.0], [1.0, 2.0, 3.0]],
-              "fitted": [[1.0, 2.0, 3.0], [1.0, 2.0, 3.0]],
-              "holdout_actuals": [[1.0], [1.0]], "holdout_forecasts": [[1.0], [1.0]],
-              "holdout_lower": [[0.0], [0.0]], "holdout_upper": [[5.0], [5.0]]}
+    arrays = {
+        "actuals": [[1.0, 2.0, 3.0], [1.0, 2.0, 3.0]],
+        "fitted": [[1.0, 2.0, 3.0], [1.0, 2.0, 3.0]],
+        "holdout_actuals": [[1.0], [1.0]],
+        "holdout_forecasts": [[1.0], [1.0]],
+        "holdout_lower": [[0.0], [0.0]],
+        "holdout_upper": [[5.0], [5.0]],
+    }
     arrays[name] = [row[:] for row in arrays[name]]
     arrays[name][1][0] = value
     _raises(name, 1, **arrays)
@@ -96,10 +114,12 @@ def test_weights():
 def test_holdout_parts_given_together():
     _raises("holdout_forecasts", holdout_actuals=[[1.0]])
     _raises("holdout_actuals", holdout_forecasts=[[1.0]])
-    _raises("holdout_upper", holdout_actuals=[[1.0]], holdout_forecasts=[[1.0]],
-            holdout_lower=[[0.0]])
-    _raises("holdout_lower", holdout_actuals=[[1.0]], holdout_forecasts=[[1.0]],
-            holdout_upper=[[0.0]])
+    _raises(
+        "holdout_upper", holdout_actuals=[[1.0]], holdout_forecasts=[[1.0]], holdout_lower=[[0.0]]
+    )
+    _raises(
+        "holdout_lower", holdout_actuals=[[1.0]], holdout_forecasts=[[1.0]], holdout_upper=[[0.0]]
+    )
     # Bounds without a holdout would otherwise be dropped without a word.
     _raises("holdout_actuals", holdout_lower=[[0.0]], holdout_upper=[[2.0]])
 
@@ -120,6 +140,7 @@ def test_run_checks_options_are_validated():
 
 
 # --- Residual rules ---------------------------------------------------------------------------
+
 
 def test_residual_bookkeeping():
     actuals = [[5.0, 6.0, 7.0, 8.0, 9.0, 10.0], [1.0, 2.0, None, 4.0], [None, None]]
@@ -142,15 +163,37 @@ def test_residual_bookkeeping():
 
 # --- Edge cases across every check: skip with a reason, never raise -------------------------
 
+
 def test_degenerate_rows_never_raise():
-    rows_a = [[3.0] * 30, [0.0] * 30, [None] * 30, [1.0], [1.0, 2.0], [1.0, 2.0, 3.0, 5.0],
-              [2.0, -2.0] * 15]
-    rows_f = [[2.5] * 30, [0.0] * 30, [None] * 30, [1.0], [None, 2.5], [1.0, 1.0, 2.0, 4.0],
-              [0.0] * 30]
+    rows_a = [
+        [3.0] * 30,
+        [0.0] * 30,
+        [None] * 30,
+        [1.0],
+        [1.0, 2.0],
+        [1.0, 2.0, 3.0, 5.0],
+        [2.0, -2.0] * 15,
+    ]
+    rows_f = [
+        [2.5] * 30,
+        [0.0] * 30,
+        [None] * 30,
+        [1.0],
+        [None, 2.5],
+        [1.0, 1.0, 2.0, 4.0],
+        [0.0] * 30,
+    ]
     horizon = [[3.0, 3.0]] * 7
-    b = make_batch(rows_a, rows_f, season_length=2, model_params=1,
-                   holdout_actuals=horizon, holdout_forecasts=horizon,
-                   holdout_lower=[[2.0, 2.0]] * 7, holdout_upper=[[4.0, 4.0]] * 7)
+    b = make_batch(
+        rows_a,
+        rows_f,
+        season_length=2,
+        model_params=1,
+        holdout_actuals=horizon,
+        holdout_forecasts=horizon,
+        holdout_lower=[[2.0, 2.0]] * 7,
+        holdout_upper=[[4.0, 4.0]] * 7,
+    )
     out = run_checks(b)
     assert tuple(out.checks) == CHECK_NAMES
     constant, zero, missing, one, two, four, plus_minus = range(7)
@@ -169,7 +212,8 @@ def test_degenerate_rows_never_raise():
     assert out["mase"].skip_reason[missing].startswith("training series too short")
     assert out["mase"].skip_reason[zero].startswith("the in-sample naive forecast is exact")
     assert out["benchmark_skill"].skip_reason[missing] == (
-        "no benchmark could be fitted to the training actuals")
+        "no benchmark could be fitted to the training actuals"
+    )
     assert (out["interval_coverage"].skip_reason == None).all()  # noqa: E711
     np.testing.assert_array_equal(out["data_sufficiency"].statistic, [30, 30, 0, 1, 1, 4, 30])
 
@@ -182,6 +226,7 @@ def test_empty_batch_and_zero_width():
 
 
 # --- Vectorised equals per-series references on a mixed batch --------------------------------
+
 
 def test_batch_equals_per_series_references():
     # Invented fleet: mixed lengths (ragged right padding), leading NaN fitted values and
@@ -202,20 +247,18 @@ def test_batch_equals_per_series_references():
         n = e.size
         lb_lags = min(10, n // 5)
         lb = acorr_ljungbox(e, lags=[lb_lags], boxpierce=True)
-        np.testing.assert_allclose(out["ljung_box"].statistic[i], lb["lb_stat"].iloc[0],
-                                   rtol=RTOL)
-        np.testing.assert_allclose(out["ljung_box"].p_value[i], lb["lb_pvalue"].iloc[0],
-                                   rtol=RTOL)
+        np.testing.assert_allclose(out["ljung_box"].statistic[i], lb["lb_stat"].iloc[0], rtol=RTOL)
+        np.testing.assert_allclose(out["ljung_box"].p_value[i], lb["lb_pvalue"].iloc[0], rtol=RTOL)
         arch = het_arch(e, nlags=min(10, n // 5), result_object=True)
         np.testing.assert_allclose(out["arch_lm"].statistic[i], arch.lm, rtol=RTOL)
         jb = stats.jarque_bera(e)
         np.testing.assert_allclose(out["jarque_bera"].statistic[i], jb.statistic, rtol=RTOL)
         np.testing.assert_allclose(out["jarque_bera"].p_value[i], jb.pvalue, rtol=RTOL)
         t = stats.ttest_1samp(e, 0.0)
-        b0 = run_checks(make_batch([actuals[i]], [fitted[i]]), {"bias": {"hac_lags": 0}},
-                        only=("bias",))["bias"]
-        np.testing.assert_allclose(b0.statistic[0], t.statistic * np.sqrt(n / (n - 1)),
-                                   rtol=RTOL)
+        b0 = run_checks(
+            make_batch([actuals[i]], [fitted[i]]), {"bias": {"hac_lags": 0}}, only=("bias",)
+        )["bias"]
+        np.testing.assert_allclose(b0.statistic[0], t.statistic * np.sqrt(n / (n - 1)), rtol=RTOL)
 
 
 # --- Hypothesis properties --------------------------------------------------------------------
@@ -247,9 +290,18 @@ def series(draw):
 def _batch(items, season_length=1, pad=0):
     def rows(key):
         return [s[key] + [None] * pad for s in items] if key in "af" else [s[key] for s in items]
-    return make_batch(rows("a"), rows("f"), season_length=season_length, model_params=1,
-                      holdout_actuals=rows("ha"), holdout_forecasts=rows("hf"),
-                      holdout_lower=rows("lo"), holdout_upper=rows("up"), level=0.9)
+
+    return make_batch(
+        rows("a"),
+        rows("f"),
+        season_length=season_length,
+        model_params=1,
+        holdout_actuals=rows("ha"),
+        holdout_forecasts=rows("hf"),
+        holdout_lower=rows("lo"),
+        holdout_upper=rows("up"),
+        level=0.9,
+    )
 
 
 def _close(a, b, msg):
@@ -272,8 +324,9 @@ def _assert_same(out_a, i, out_b, j):
             _close(a.details[key][i], b.details[key][j], f"{name}.{key}")
 
 
-@given(items=st.lists(series(), min_size=1, max_size=6), m=st.sampled_from([1, 2, 4]),
-       data=st.data())
+@given(
+    items=st.lists(series(), min_size=1, max_size=6), m=st.sampled_from([1, 2, 4]), data=st.data()
+)
 def test_shuffling_series_changes_nothing(items, m, data):
     perm = data.draw(st.permutations(range(len(items))))
     out = run_checks(_batch(items, m))
@@ -296,6 +349,7 @@ def test_trailing_padding_changes_nothing(item, pad, m):
 
 # --- Units: the statistics do not depend on the unit of measurement --------------------------
 
+
 @pytest.mark.parametrize("unit", [1e-200, 1e-60, 1e-6, 1e6, 1e60, 1e200])
 def test_scale_free_results_do_not_depend_on_the_unit(unit):
     # Invented fleet measured in another unit: every test statistic, p-value and scale-free
@@ -308,19 +362,31 @@ def test_scale_free_results_do_not_depend_on_the_unit(unit):
     hf = ha + rng.normal(0, 2, (4, 6))
 
     def run(k):
-        return run_checks(make_batch(a * k, f * k, season_length=4, holdout_actuals=ha * k,
-                                     holdout_forecasts=hf * k, holdout_lower=(hf - 3) * k,
-                                     holdout_upper=(hf + 3) * k, level=0.8))
+        return run_checks(
+            make_batch(
+                a * k,
+                f * k,
+                season_length=4,
+                holdout_actuals=ha * k,
+                holdout_forecasts=hf * k,
+                holdout_lower=(hf - 3) * k,
+                holdout_upper=(hf + 3) * k,
+                level=0.8,
+            )
+        )
 
     base, scaled = run(1.0), run(unit)
     for name in CHECK_NAMES:
         assert list(scaled[name].skip_reason) == list(base[name].skip_reason), name
-        np.testing.assert_allclose(scaled[name].statistic, base[name].statistic, rtol=1e-9,
-                                   err_msg=name)
-        np.testing.assert_allclose(scaled[name].p_value, base[name].p_value, rtol=1e-9,
-                                   err_msg=name)
-    np.testing.assert_allclose(scaled["bias"].details["std_error"],
-                               base["bias"].details["std_error"] * unit, rtol=1e-9)
+        np.testing.assert_allclose(
+            scaled[name].statistic, base[name].statistic, rtol=1e-9, err_msg=name
+        )
+        np.testing.assert_allclose(
+            scaled[name].p_value, base[name].p_value, rtol=1e-9, err_msg=name
+        )
+    np.testing.assert_allclose(
+        scaled["bias"].details["std_error"], base["bias"].details["std_error"] * unit, rtol=1e-9
+    )
 
 
 def test_constant_residuals_on_a_large_level_are_constant():
@@ -347,22 +413,37 @@ any_magnitude = st.one_of(
 )
 
 
-@given(rows=st.lists(st.lists(st.one_of(st.none(), any_magnitude), max_size=30), min_size=1,
-                     max_size=4),
-       m=st.sampled_from([1, 2, 5]), data=st.data())
+@given(
+    rows=st.lists(
+        st.lists(st.one_of(st.none(), any_magnitude), max_size=30), min_size=1, max_size=4
+    ),
+    m=st.sampled_from([1, 2, 5]),
+    data=st.data(),
+)
 def test_any_accepted_input_runs_every_check(rows, m, data):
     # Whatever finite values make_batch accepts, no check raises (the CheckResult itself
     # refuses a NaN statistic without a skip reason) and no RuntimeWarning escapes.
     fitted = [[data.draw(st.one_of(st.none(), any_magnitude)) for _ in r] for r in rows]
-    fitted = [[None if a is None else f for a, f in zip(r, fr, strict=True)]
-              for r, fr in zip(rows, fitted, strict=True)]
+    fitted = [
+        [None if a is None else f for a, f in zip(r, fr, strict=True)]
+        for r, fr in zip(rows, fitted, strict=True)
+    ]
     h = data.draw(st.integers(0, 4))
     ha = [[data.draw(any_magnitude) for _ in range(h)] for _ in rows]
     hf = [[data.draw(any_magnitude) for _ in range(h)] for _ in rows]
     lower = [[min(a, f) for a, f in zip(x, y, strict=True)] for x, y in zip(ha, hf, strict=True)]
     upper = [[max(a, f) for a, f in zip(x, y, strict=True)] for x, y in zip(ha, hf, strict=True)]
-    out = run_checks(make_batch(rows, fitted, season_length=m, holdout_actuals=ha,
-                                holdout_forecasts=hf, holdout_lower=lower, holdout_upper=upper))
+    out = run_checks(
+        make_batch(
+            rows,
+            fitted,
+            season_length=m,
+            holdout_actuals=ha,
+            holdout_forecasts=hf,
+            holdout_lower=lower,
+            holdout_upper=upper,
+        )
+    )
     for name in CHECK_NAMES:
         r = out[name]
         ran = r.skip_reason == None  # noqa: E711 (object array comparison)

@@ -59,8 +59,7 @@ def test_drift_is_the_line_through_first_and_last():
     f = benchmark_forecasts(make_batch([y], [y]), 5)["drift"][0]
     x = sm.add_constant(np.array([1.0, 30.0]))
     line = sm.OLS(np.array([y[0], y[-1]]), x).fit()
-    np.testing.assert_allclose(f, line.predict(sm.add_constant(np.arange(31.0, 36.0))),
-                               rtol=1e-10)
+    np.testing.assert_allclose(f, line.predict(sm.add_constant(np.arange(31.0, 36.0))), rtol=1e-10)
 
 
 def test_skill_against_best_benchmark():
@@ -94,10 +93,12 @@ def test_model_equal_to_best_benchmark_has_zero_skill_and_worse_is_negative():
     # The model is the naive forecast: same RMSE, so its skill is 1 - RMSE(naive) / RMSE(best).
     assert same.details["rmse_model"][0] == same.details["rmse_naive"][0]
     np.testing.assert_allclose(
-        same.statistic[0], 1 - same.details["rmse_naive"][0] / same.details["rmse_best"][0])
+        same.statistic[0], 1 - same.details["rmse_naive"][0] / same.details["rmse_best"][0]
+    )
     assert same.statistic[0] <= 0.0
     worse = benchmark_skill(
-        make_batch(y, y, holdout_actuals=holdout, holdout_forecasts=holdout + 50.0))
+        make_batch(y, y, holdout_actuals=holdout, holdout_forecasts=holdout + 50.0)
+    )
     assert worse.statistic[0] < -1.0
 
 
@@ -111,7 +112,8 @@ def test_skips_with_reasons():
     result = benchmark_skill(batch)
     assert result.skip_reason[0] == "no holdout"
     assert result.skip_reason[1] == (
-        "a benchmark forecasts the holdout exactly, so skill is undefined")
+        "a benchmark forecasts the holdout exactly, so skill is undefined"
+    )
     assert result.skip_reason[2] is None
     assert result.details["best_benchmark"][0] is None
     assert benchmark_skill(make_batch([[1.0, 2.0]], [[1.0, 2.0]])).skip_reason[0] == "no holdout"

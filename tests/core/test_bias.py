@@ -38,6 +38,7 @@ def _scale(res):
 
 # --- Newey-West lag rule -------------------------------------------------------------------
 
+
 def test_newey_west_lag_rule_docstring_values():
     # references.md: Newey-West lag rule floor(4 (T/100)^(2/9)) (statsmodels' sandwich_covariance).
     # Docstring examples: T = 100 gives 4, T = 20 gives 2.
@@ -61,6 +62,7 @@ def test_default_hac_variance_equals_statsmodels_default_lag_rule(n):
 
 # --- Published / computed values -----------------------------------------------------------
 
+
 @pytest.mark.parametrize(
     ("lags", "se"),
     # references.md: X20, SE of the mean with Bartlett weights, 0 / 2 / 4 lags (computed).
@@ -70,8 +72,9 @@ def test_x20_hac_standard_error(lags, se):
     result = bias(residuals([X20]), np.ones(1), hac_lags=lags)
     # Published to 7 significant digits.
     np.testing.assert_allclose(result.details["std_error"][0], se, rtol=5e-7)
-    np.testing.assert_allclose(result.details["std_error"][0], _ones_hac(X20, lags).bse[0],
-                               rtol=RTOL)
+    np.testing.assert_allclose(
+        result.details["std_error"][0], _ones_hac(X20, lags).bse[0], rtol=RTOL
+    )
 
 
 def test_macro_bias_matches_ols_hac():
@@ -84,6 +87,7 @@ def test_macro_bias_matches_ols_hac():
 
 
 # --- Against statsmodels on many series ----------------------------------------------------
+
 
 @pytest.mark.parametrize("hac_lags", [None, 0, 1, 3, 6])
 def test_bias_matches_statsmodels_ols_hac(hac_lags):
@@ -121,10 +125,12 @@ def test_zero_lags_is_the_one_sample_t_test_with_population_variance():
     for i, e in enumerate(rows):
         n = e.size
         ref = stats.ttest_1samp(e, 0.0)
-        np.testing.assert_allclose(result.statistic[i], ref.statistic * np.sqrt(n / (n - 1)),
-                                   rtol=RTOL)
         np.testing.assert_allclose(
-            result.p_value[i], 2 * stats.t.sf(abs(ref.statistic) * np.sqrt(n / (n - 1)), n - 1),
+            result.statistic[i], ref.statistic * np.sqrt(n / (n - 1)), rtol=RTOL
+        )
+        np.testing.assert_allclose(
+            result.p_value[i],
+            2 * stats.t.sf(abs(ref.statistic) * np.sqrt(n / (n - 1)), n - 1),
             rtol=RTOL,
         )
         # Same degrees of freedom as scipy's test.
@@ -154,8 +160,9 @@ def test_ci_level_changes_interval_not_test():
     ref = _ones_hac(e, 3)
     r90 = bias(residuals([e]), np.ones(1), hac_lags=3, ci_level=0.9)
     low, high = ref.conf_int(alpha=0.10)[0]
-    np.testing.assert_allclose([r90.details["ci_low"][0], r90.details["ci_high"][0]],
-                               [low, high], rtol=RTOL)
+    np.testing.assert_allclose(
+        [r90.details["ci_low"][0], r90.details["ci_high"][0]], [low, high], rtol=RTOL
+    )
     np.testing.assert_allclose(r90.p_value[0], ref.pvalues[0], rtol=RTOL)
 
 
@@ -170,8 +177,9 @@ def test_percent_bias_and_correction_sign():
     e = (actuals - fitted)[0, 1:]
     np.testing.assert_allclose(b.details["mean_error"][0], e.mean(), rtol=RTOL)
     # percent_bias = 100 mean(e) / mean|actual| over the periods with a residual.
-    np.testing.assert_allclose(b.details["percent_bias"][0],
-                               100 * e.mean() / np.abs(actuals[0, 1:]).mean(), rtol=RTOL)
+    np.testing.assert_allclose(
+        b.details["percent_bias"][0], 100 * e.mean() / np.abs(actuals[0, 1:]).mean(), rtol=RTOL
+    )
     # e > 0: forecasts run low; adding the correction to them removes the bias.
     assert b.details["correction"][0] > 0
     corrected = make_batch(actuals, fitted + b.details["correction"][0])
@@ -182,12 +190,13 @@ def test_percent_bias_and_correction_sign():
 
 # --- Edge cases -----------------------------------------------------------------------------
 
+
 def test_bias_edge_cases_decided():
     rows = [
-        np.full(30, 0.1),             # constant, not zero: biased for certain
-        np.zeros(30),                 # perfect fit: nothing to test
-        np.array([1.0, -1.0]),        # too short
-        np.array([np.nan] * 10),      # all missing
+        np.full(30, 0.1),  # constant, not zero: biased for certain
+        np.zeros(30),  # perfect fit: nothing to test
+        np.array([1.0, -1.0]),  # too short
+        np.array([np.nan] * 10),  # all missing
         np.full(40, 0.1) + np.random.default_rng(0).normal(0, 1e-15, 40),  # constant to rounding
     ]
     res = residuals(rows)
@@ -224,6 +233,7 @@ def test_bias_bad_options_name_the_argument():
 
 
 # --- Tracking signal ------------------------------------------------------------------------
+
 
 def test_tracking_signal_formula_and_p_value():
     rng = np.random.default_rng(8)
@@ -262,8 +272,11 @@ def test_tracking_signal_alarms_at_nominal_rate_and_trade_limit_does_not():
 
 
 def test_tracking_signal_skips_and_options():
-    rows = [np.ones(30) * 0.5, np.r_[np.random.default_rng(1).normal(0, 1, 20), np.zeros(12)],
-            np.random.default_rng(2).normal(0, 1, 20)]
+    rows = [
+        np.ones(30) * 0.5,
+        np.r_[np.random.default_rng(1).normal(0, 1, 20), np.zeros(12)],
+        np.random.default_rng(2).normal(0, 1, 20),
+    ]
     result = tracking_signal(residuals(rows), window=12)
     assert result.skip_reason[0] == "residuals are constant"
     assert result.skip_reason[1] == "the last 12 residuals are all zero"

@@ -16,29 +16,35 @@ def _coverage_batch(misses: int, steps: int, level: float):
     out of ``steps`` (alternately below and above)."""
     y = np.zeros(steps)
     y[:misses] = np.where(np.arange(misses) % 2 == 0, -2.0, 2.0)
-    return make_batch([[1.0, 2.0, 3.0]], [[1.0, 2.0, 3.0]], holdout_actuals=[y],
-                      holdout_forecasts=[np.zeros(steps)], holdout_lower=[np.full(steps, -1.0)],
-                      holdout_upper=[np.full(steps, 1.0)], level=level)
+    return make_batch(
+        [[1.0, 2.0, 3.0]],
+        [[1.0, 2.0, 3.0]],
+        holdout_actuals=[y],
+        holdout_forecasts=[np.zeros(steps)],
+        holdout_lower=[np.full(steps, -1.0)],
+        holdout_upper=[np.full(steps, 1.0)],
+        level=level,
+    )
 
 
 @pytest.mark.parametrize(
     ("x", "t", "lr", "tol"),
     [
-        (6, 252, 3.49878, 5e-6),   # references.md: a published exercise answer (5 decimals)
-        (3, 250, 0.09494, 5e-6),   # references.md: published (5 decimals)
-        (0, 250, 5.0252, 5e-5),    # references.md: computed (4 decimals)
-        (8, 250, 7.73355, 5e-6),   # references.md: computed (5 decimals)
+        (6, 252, 3.49878, 5e-6),  # references.md: a published exercise answer (5 decimals)
+        (3, 250, 0.09494, 5e-6),  # references.md: published (5 decimals)
+        (0, 250, 5.0252, 5e-5),  # references.md: computed (4 decimals)
+        (8, 250, 7.73355, 5e-6),  # references.md: computed (5 decimals)
     ],
 )
 def test_kupiec_values(x, t, lr, tol):
-    np.testing.assert_allclose(kupiec_lr(np.array([x]), np.array([t]), np.array([0.01])), [lr],
-                               atol=tol)
+    np.testing.assert_allclose(
+        kupiec_lr(np.array([x]), np.array([t]), np.array([0.01])), [lr], atol=tol
+    )
     result = interval_coverage(_coverage_batch(x, t, 0.99))
     np.testing.assert_allclose(result.statistic[0], lr, atol=tol)
     assert result.details["misses"][0] == x and result.details["n_scored"][0] == t
     np.testing.assert_allclose(result.details["coverage"][0], 1 - x / t, rtol=RTOL)
-    np.testing.assert_allclose(result.p_value[0], stats.chi2.sf(result.statistic[0], 1),
-                               rtol=RTOL)
+    np.testing.assert_allclose(result.p_value[0], stats.chi2.sf(result.statistic[0], 1), rtol=RTOL)
 
 
 def test_kupiec_published_p_value_not_rejected():
@@ -61,10 +67,10 @@ def test_kupiec_is_the_binomial_likelihood_ratio():
 @pytest.mark.parametrize(
     ("y", "lo", "hi", "alpha", "score"),
     [
-        (0.1, 0.0, 0.4, 0.5, 0.4),     # references.md: published example
+        (0.1, 0.0, 0.4, 0.5, 0.4),  # references.md: published example
         (15.0, 10.0, 20.0, 0.2, 10.0),  # references.md: computed
         (25.0, 10.0, 20.0, 0.2, 60.0),  # references.md: computed
-        (8.0, 10.0, 20.0, 0.2, 30.0),   # references.md: computed
+        (8.0, 10.0, 20.0, 0.2, 30.0),  # references.md: computed
     ],
 )
 def test_winkler_values(y, lo, hi, alpha, score):
@@ -75,9 +81,15 @@ def test_winkler_values(y, lo, hi, alpha, score):
 def test_coverage_details_and_mean_winkler_score():
     # Invented holdout of 5 steps at level 0.8 (alpha 0.2), interval [10, 20] each step.
     y = [15.0, 25.0, 8.0, 12.0, None]
-    batch = make_batch([[1.0, 2.0]], [[1.0, 2.0]], holdout_actuals=[y],
-                       holdout_forecasts=[[15.0] * 5], holdout_lower=[[10.0] * 5],
-                       holdout_upper=[[20.0] * 5], level=0.8)
+    batch = make_batch(
+        [[1.0, 2.0]],
+        [[1.0, 2.0]],
+        holdout_actuals=[y],
+        holdout_forecasts=[[15.0] * 5],
+        holdout_lower=[[10.0] * 5],
+        holdout_upper=[[20.0] * 5],
+        level=0.8,
+    )
     result = interval_coverage(batch)
     d = result.series_details(0)
     assert d["n_scored"] == 4 and d["misses"] == 2
@@ -85,48 +97,72 @@ def test_coverage_details_and_mean_winkler_score():
     assert d["coverage"] == 0.5 and d["level"] == 0.8
     # computed: scores 10, 60, 30, 10 (references.md Winkler values), mean 27.5.
     np.testing.assert_allclose(d["winkler_score"], 27.5, rtol=RTOL)
-    np.testing.assert_allclose(result.statistic[0], kupiec_lr(np.array([2]), np.array([4]),
-                                                              np.array([0.2]))[0], rtol=RTOL)
+    np.testing.assert_allclose(
+        result.statistic[0], kupiec_lr(np.array([2]), np.array([4]), np.array([0.2]))[0], rtol=RTOL
+    )
 
 
 def test_default_level_and_skips():
     batch = make_batch(
-        [[1.0, 2.0], [1.0, 2.0]], [[1.0, 2.0], [1.0, 2.0]],
-        holdout_actuals=[[1.0, 2.0], [1.0, 2.0]], holdout_forecasts=[[1.0, 2.0], [1.0, 2.0]],
-        holdout_lower=[[0.0, 0.0], [None, None]], holdout_upper=[[3.0, 3.0], [None, None]],
+        [[1.0, 2.0], [1.0, 2.0]],
+        [[1.0, 2.0], [1.0, 2.0]],
+        holdout_actuals=[[1.0, 2.0], [1.0, 2.0]],
+        holdout_forecasts=[[1.0, 2.0], [1.0, 2.0]],
+        holdout_lower=[[0.0, 0.0], [None, None]],
+        holdout_upper=[[3.0, 3.0], [None, None]],
     )
     result = interval_coverage(batch)
     assert result.details["level"][0] == 0.95
     assert result.skip_reason[0] is None
     assert result.skip_reason[1] == "no holdout intervals"
     assert np.isnan(result.details["level"][1])
-    no_bounds = make_batch([[1.0, 2.0]], [[1.0, 2.0]], holdout_actuals=[[1.0]],
-                           holdout_forecasts=[[1.0]])
+    no_bounds = make_batch(
+        [[1.0, 2.0]], [[1.0, 2.0]], holdout_actuals=[[1.0]], holdout_forecasts=[[1.0]]
+    )
     assert interval_coverage(no_bounds).skip_reason[0] == "no holdout intervals"
     assert interval_coverage(batch, min_obs=3).skip_reason[0] == (
-        "fewer than 3 holdout steps with intervals")
+        "fewer than 3 holdout steps with intervals"
+    )
 
 
 @pytest.mark.parametrize("level", [0.0, 1.0, -0.5, 95.0, float("nan")])
 def test_level_outside_unit_interval_is_rejected(level):
     with pytest.raises(InputError) as err:
-        make_batch([[1.0]], [[1.0]], holdout_actuals=[[1.0]], holdout_forecasts=[[1.0]],
-                   holdout_lower=[[0.0]], holdout_upper=[[2.0]], level=level)
+        make_batch(
+            [[1.0]],
+            [[1.0]],
+            holdout_actuals=[[1.0]],
+            holdout_forecasts=[[1.0]],
+            holdout_lower=[[0.0]],
+            holdout_upper=[[2.0]],
+            level=level,
+        )
     assert err.value.argument == "level"
 
 
 def test_level_per_series_with_one_bad_names_the_series():
     with pytest.raises(InputError) as err:
-        make_batch([[1.0], [2.0]], [[1.0], [2.0]], holdout_actuals=[[1.0], [1.0]],
-                   holdout_forecasts=[[1.0], [1.0]], holdout_lower=[[0.0], [0.0]],
-                   holdout_upper=[[2.0], [2.0]], level=[0.9, 1.2])
+        make_batch(
+            [[1.0], [2.0]],
+            [[1.0], [2.0]],
+            holdout_actuals=[[1.0], [1.0]],
+            holdout_forecasts=[[1.0], [1.0]],
+            holdout_lower=[[0.0], [0.0]],
+            holdout_upper=[[2.0], [2.0]],
+            level=[0.9, 1.2],
+        )
     assert err.value.argument == "level" and err.value.index == 1
 
 
 def test_lower_above_upper_is_rejected():
     with pytest.raises(InputError) as err:
-        make_batch([[1.0], [2.0]], [[1.0], [2.0]], holdout_actuals=[[1.0, 2.0]] * 2,
-                   holdout_forecasts=[[1.0, 2.0]] * 2, holdout_lower=[[0.0, 0.0], [0.0, 3.0]],
-                   holdout_upper=[[2.0, 2.0], [2.0, 2.5]])
+        make_batch(
+            [[1.0], [2.0]],
+            [[1.0], [2.0]],
+            holdout_actuals=[[1.0, 2.0]] * 2,
+            holdout_forecasts=[[1.0, 2.0]] * 2,
+            holdout_lower=[[0.0, 0.0], [0.0, 3.0]],
+            holdout_upper=[[2.0, 2.0], [2.0, 2.5]],
+        )
     assert err.value.argument == "holdout_lower" and err.value.index == 1
     assert "step 2" in str(err.value)

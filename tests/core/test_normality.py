@@ -35,9 +35,14 @@ def test_log_x20_squared_published():
 
 def test_matches_scipy_and_statsmodels_on_mixed_batch():
     rng = np.random.default_rng(17)
-    rows = [rng.normal(0, 1, 8), rng.standard_t(3, 40), rng.exponential(1, 100) - 1,
-            rng.normal(0, 1, 156), rng.uniform(-1, 1, 64)]
-    rows[1][:2] = np.nan          # leading missing fitted values
+    rows = [
+        rng.normal(0, 1, 8),
+        rng.standard_t(3, 40),
+        rng.exponential(1, 100) - 1,
+        rng.normal(0, 1, 156),
+        rng.uniform(-1, 1, 64),
+    ]
+    rows[1][:2] = np.nan  # leading missing fitted values
     rows[3][[20, 21, 100]] = np.nan  # interior gaps: moments over the observed residuals
     result = jarque_bera(residuals(rows))
     for i, row in enumerate(rows):
@@ -51,8 +56,9 @@ def test_matches_scipy_and_statsmodels_on_mixed_batch():
         np.testing.assert_allclose(result.details["skewness"][i], skew, rtol=RTOL)
         np.testing.assert_allclose(result.details["kurtosis"][i], kurt, rtol=RTOL)
         np.testing.assert_allclose(result.details["skewness"][i], stats.skew(e), rtol=RTOL)
-        np.testing.assert_allclose(result.details["excess_kurtosis"][i], stats.kurtosis(e),
-                                   rtol=RTOL)
+        np.testing.assert_allclose(
+            result.details["excess_kurtosis"][i], stats.kurtosis(e), rtol=RTOL
+        )
 
 
 @pytest.mark.parametrize("shift", [0.0, 1e3, -5e4])
@@ -65,8 +71,7 @@ def test_location_does_not_matter(shift):
 
 def test_skips_with_reasons():
     rng = np.random.default_rng(2)
-    rows = [np.full(30, -1.5), np.zeros(30), rng.normal(0, 1, 7), [np.nan] * 9,
-            rng.normal(0, 1, 8)]
+    rows = [np.full(30, -1.5), np.zeros(30), rng.normal(0, 1, 7), [np.nan] * 9, rng.normal(0, 1, 8)]
     result = jarque_bera(residuals(rows))
     assert result.skip_reason[0] == "residuals are constant"
     assert result.skip_reason[1] == "residuals are constant"

@@ -14,8 +14,10 @@ ROOT = Path(__file__).resolve().parents[2]
 
 def test_all_matches_the_public_names():
     public = {
-        name for name, value in vars(core).items()
-        if not name.startswith("_") and not isinstance(value, types.ModuleType)
+        name
+        for name, value in vars(core).items()
+        if not name.startswith("_")
+        and not isinstance(value, types.ModuleType)
         and name != "annotations"
     }
     assert sorted(core.__all__) == sorted(public)
@@ -38,8 +40,9 @@ def test_core_imports_no_framework_database_or_oracle():
         " 'matplotlib', 'httpx')\n"
         "print(','.join(sorted(m for m in sys.modules if m.split('.')[0] in banned)))\n"
     )
-    out = subprocess.run([sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True,
-                         check=True)
+    out = subprocess.run(
+        [sys.executable, "-c", code], cwd=ROOT, capture_output=True, text=True, check=True
+    )
     assert out.stdout.strip() == ""
 
 

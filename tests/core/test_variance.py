@@ -44,8 +44,9 @@ def test_macro_published(lags, lm, p):
 def test_lag_rule_is_het_arch_default():
     # statsmodels' acorr_lm default: min(10, nobs // 5).
     # computed from that rule:
-    np.testing.assert_array_equal(arch_lags(np.array([4, 5, 20, 49, 50, 51, 156])),
-                                  [0, 1, 4, 9, 10, 10, 10])
+    np.testing.assert_array_equal(
+        arch_lags(np.array([4, 5, 20, 49, 50, 51, 156])), [0, 1, 4, 9, 10, 10, 10]
+    )
     rng = np.random.default_rng(0)
     for n in (12, 37, 156):
         e = rng.normal(0, 1, n)
@@ -60,7 +61,7 @@ def test_matches_het_arch_on_mixed_batch(lags):
     lengths = [15, 26, 60, 104, 156, 156, 90]
     rows = [_garch_like(rng, n) for n in lengths]
     rows[6] = rng.normal(0, 1, 90)  # a homoscedastic one
-    rows[2][:1] = np.nan   # leading missing fitted values
+    rows[2][:1] = np.nan  # leading missing fitted values
     rows[4][:5] = np.nan
     result = arch_lm(residuals(rows), lags=lags)
     for i, row in enumerate(rows):
@@ -91,8 +92,9 @@ def test_interior_gaps_drop_incomplete_regression_rows():
     y = s[lags:]
     fit = sm.OLS(y, sm.add_constant(x, has_constant="add"), missing="drop").fit()
     np.testing.assert_allclose(result.statistic[0], fit.nobs * fit.rsquared, rtol=RTOL)
-    np.testing.assert_allclose(result.p_value[0], stats.chi2.sf(fit.nobs * fit.rsquared, lags),
-                               rtol=RTOL)
+    np.testing.assert_allclose(
+        result.p_value[0], stats.chi2.sf(fit.nobs * fit.rsquared, lags), rtol=RTOL
+    )
     assert result.details["n_rows"][0] == fit.nobs
 
 
@@ -102,8 +104,10 @@ def test_degenerate_series_do_not_change_other_series():
     rng = np.random.default_rng(5)
     good = [_garch_like(rng, 100), rng.normal(0, 1, 100)]
     alone = arch_lm(residuals(good), lags=3)
-    mixed = arch_lm(residuals([good[0], np.full(100, 3.0), [np.nan] * 100, good[1],
-                               np.tile([1.0, -1.0], 50)]), lags=3)
+    mixed = arch_lm(
+        residuals([good[0], np.full(100, 3.0), [np.nan] * 100, good[1], np.tile([1.0, -1.0], 50)]),
+        lags=3,
+    )
     np.testing.assert_array_equal(mixed.statistic[[0, 3]], alone.statistic)
     np.testing.assert_array_equal(mixed.p_value[[0, 3]], alone.p_value)
 
@@ -111,11 +115,11 @@ def test_degenerate_series_do_not_change_other_series():
 def test_skips_with_reasons():
     rng = np.random.default_rng(3)
     rows = [
-        np.full(50, 0.7),                       # constant
-        np.tile([0.1, -0.1], 25),               # +-c: squares constant
-        np.zeros(50),                           # all zero
-        rng.normal(0, 1, 4),                    # too short for one lag
-        [np.nan] * 20,                          # all missing
+        np.full(50, 0.7),  # constant
+        np.tile([0.1, -0.1], 25),  # +-c: squares constant
+        np.zeros(50),  # all zero
+        rng.normal(0, 1, 4),  # too short for one lag
+        [np.nan] * 20,  # all missing
         np.r_[rng.normal(0, 1, 5), [np.nan] * 3, rng.normal(0, 1, 2)],  # too few full rows
     ]
     result = arch_lm(residuals(rows))
@@ -160,4 +164,5 @@ def test_constant_dependent_variable_skips():
     # s_t constant on every regression row (only the first square differs): nothing to explain.
     result = arch_lm(residuals([np.r_[[3.0], np.full(40, 0.7)]]), lags=2)
     assert result.skip_reason[0] == (
-        "squared residuals are constant, so their variance cannot change")
+        "squared residuals are constant, so their variance cannot change"
+    )

@@ -25,8 +25,7 @@ def postgres_database() -> Iterator[str]:
     with admin.connect() as conn:
         conn.execute(text(f'CREATE DATABASE "{name}"'))
     try:
-        yield make_url(postgres_url()).set(database=name).render_as_string(
-            hide_password=False)
+        yield make_url(postgres_url()).set(database=name).render_as_string(hide_password=False)
     finally:
         with admin.connect() as conn:
             conn.execute(text(f'DROP DATABASE IF EXISTS "{name}" WITH (FORCE)'))
@@ -50,7 +49,11 @@ def series_body(model: str, n_series: int, seed: int, n: int = 104) -> dict:
     for i in range(n_series):
         fitted = 40.0 + 8.0 * np.sin(2 * np.pi * weeks / 52) + i
         actual = fitted + rng.normal(0.0, 1.5, n)
-        out.append({"id": f"dock-{i}", "actuals": [round(float(v), 3) for v in actual],
-                    "fitted": [round(float(v), 3) for v in fitted]})
-    return {"model": model, "version": "1", "labels": {"n_series": str(n_series)},
-            "series": out}
+        out.append(
+            {
+                "id": f"dock-{i}",
+                "actuals": [round(float(v), 3) for v in actual],
+                "fitted": [round(float(v), 3) for v in fitted],
+            }
+        )
+    return {"model": model, "version": "1", "labels": {"n_series": str(n_series)}, "series": out}

@@ -27,8 +27,9 @@ ROUNDS = int(os.environ.get("PLUMBLINE_KILL_ROUNDS", "4"))
 CLIENTS = 4
 
 
-def post_until_killed(url: str, round_no: int, client_no: int, acked: list, first: threading.Event,
-                      rng: random.Random) -> None:
+def post_until_killed(
+    url: str, round_no: int, client_no: int, acked: list, first: threading.Event, rng: random.Random
+) -> None:
     with httpx.Client(base_url=url, headers=ADMIN, timeout=30) as client:
         i = 0
         while True:
@@ -45,15 +46,21 @@ def post_until_killed(url: str, round_no: int, client_no: int, acked: list, firs
 
 
 def kill_round(database_url: str, log, round_no: int, rng: random.Random) -> list:
-    server = Server(database_url, log, workers=1 + round_no % 2,
-                    env={"PLUMBLINE_ADMIN_TOKEN": ADMIN_TOKEN,
-                         "PLUMBLINE_RATE_LIMIT_PER_SECOND": "0"}).start()
+    server = Server(
+        database_url,
+        log,
+        workers=1 + round_no % 2,
+        env={"PLUMBLINE_ADMIN_TOKEN": ADMIN_TOKEN, "PLUMBLINE_RATE_LIMIT_PER_SECOND": "0"},
+    ).start()
     acked: list = []
     first = threading.Event()
-    threads = [threading.Thread(target=post_until_killed,
-                                args=(server.url, round_no, k, acked, first,
-                                      random.Random(rng.random())))
-               for k in range(CLIENTS)]
+    threads = [
+        threading.Thread(
+            target=post_until_killed,
+            args=(server.url, round_no, k, acked, first, random.Random(rng.random())),
+        )
+        for k in range(CLIENTS)
+    ]
     try:
         for t in threads:
             t.start()
@@ -74,12 +81,14 @@ def check_database(database_url: str) -> None:
         with engine.connect() as conn:
             if engine.dialect.name == "sqlite":
                 assert conn.execute(text("PRAGMA integrity_check")).scalar_one() == "ok"
-            bad = conn.execute(text(
-                "SELECT a.id, a.n_series, "
-                " (SELECT count(*) FROM series_results r WHERE r.assessment_seq = a.seq), "
-                " (SELECT count(*) FROM series_inputs i WHERE i.assessment_seq = a.seq) "
-                "FROM assessments a"
-            )).all()
+            bad = conn.execute(
+                text(
+                    "SELECT a.id, a.n_series, "
+                    " (SELECT count(*) FROM series_results r WHERE r.assessment_seq = a.seq), "
+                    " (SELECT count(*) FROM series_inputs i WHERE i.assessment_seq = a.seq) "
+                    "FROM assessments a"
+                )
+            ).all()
             half = [row for row in bad if not (row[1] == row[2] == row[3])]
             assert not half, f"half-written assessments: {half[:5]}"
             assert len(bad) > 0
@@ -101,8 +110,11 @@ def test_sigkill_mid_write_loses_nothing_acknowledged(any_database, tmp_path):
         check_database(any_database)
     assert len(acked) >= ROUNDS
 
-    with Server(any_database, log, env={"PLUMBLINE_ADMIN_TOKEN": ADMIN_TOKEN,
-                                        "PLUMBLINE_RATE_LIMIT_PER_SECOND": "0"}) as server:
+    with Server(
+        any_database,
+        log,
+        env={"PLUMBLINE_ADMIN_TOKEN": ADMIN_TOKEN, "PLUMBLINE_RATE_LIMIT_PER_SECOND": "0"},
+    ) as server:
         client = httpx.Client(base_url=server.url, headers=ADMIN, timeout=30)
         for assessment_id, model, n_series in acked:
             r = client.get(f"/v1/assessments/{assessment_id}")
@@ -124,12 +136,13 @@ def test_sigkill_mid_write_loses_nothing_acknowledged(any_database, tmp_path):
         # Stored but never acknowledged (killed before the answer went out) is allowed; it must
         # still be whole: its model name says how many series it was sent with.
         for row in stored:
-            expected = int(client.get(f"/v1/assessments/{row['id']}").json()["labels"]
-                           ["n_series"])
+            expected = int(client.get(f"/v1/assessments/{row['id']}").json()["labels"]["n_series"])
             assert row["n_series"] == expected, row
         assert {a[0] for a in acked} <= {row["id"] for row in stored}
-        print(f"\nkill rounds ({make_engine_name(any_database)}): {ROUNDS}, acknowledged "
-              f"{len(acked)}, stored {len(stored)} (stored but not acknowledged: "
-              f"{len(stored) - len(acked)}), lost 0, half-written 0")
+        print(
+            f"\nkill rounds ({make_engine_name(any_database)}): {ROUNDS}, acknowledged "
+            f"{len(acked)}, stored {len(stored)} (stored but not acknowledged: "
+            f"{len(stored) - len(acked)}), lost 0, half-written 0"
+        )
     # The token was never written to the server's output.
     assert ADMIN_TOKEN not in log.read_text()

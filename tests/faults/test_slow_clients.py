@@ -27,14 +27,18 @@ def server(request, tmp_path_factory):
     if request.param == "httptools":
         pytest.importorskip("httptools")  # installed with uvicorn[standard]
     tmp = tmp_path_factory.mktemp("slow")
-    srv = Server(f"sqlite:///{tmp / 'slow.db'}", tmp / "server.log", env={
-        "PLUMBLINE_ADMIN_TOKEN": ADMIN_TOKEN,
-        "PLUMBLINE_HEADER_READ_TIMEOUT_SECONDS": str(HEAD_TIMEOUT),
-        "PLUMBLINE_KEEP_ALIVE_TIMEOUT_SECONDS": str(KEEP_ALIVE),
-        "PLUMBLINE_BODY_READ_TIMEOUT_SECONDS": str(BODY_TIMEOUT),
-        "PLUMBLINE_MAX_CONNECTIONS": str(MAX_CONNECTIONS),
-        "PLUMBLINE_HTTP_PARSER": request.param,
-    })
+    srv = Server(
+        f"sqlite:///{tmp / 'slow.db'}",
+        tmp / "server.log",
+        env={
+            "PLUMBLINE_ADMIN_TOKEN": ADMIN_TOKEN,
+            "PLUMBLINE_HEADER_READ_TIMEOUT_SECONDS": str(HEAD_TIMEOUT),
+            "PLUMBLINE_KEEP_ALIVE_TIMEOUT_SECONDS": str(KEEP_ALIVE),
+            "PLUMBLINE_BODY_READ_TIMEOUT_SECONDS": str(BODY_TIMEOUT),
+            "PLUMBLINE_MAX_CONNECTIONS": str(MAX_CONNECTIONS),
+            "PLUMBLINE_HTTP_PARSER": request.param,
+        },
+    )
     with srv:
         yield srv
 
@@ -95,9 +99,11 @@ def test_an_idle_keep_alive_connection_is_closed(server):
 def test_a_trickling_body_is_answered_408(server):
     body = json.dumps({"model": "m", "version": "1", "series": []}).encode()
     s = connect(server)
-    s.sendall(b"POST /v1/assessments HTTP/1.1\r\nHost: x\r\nContent-Type: application/json\r\n"
-              + f"Authorization: Bearer {ADMIN_TOKEN}\r\nContent-Length: {len(body)}\r\n\r\n"
-              .encode() + body[:5])
+    s.sendall(
+        b"POST /v1/assessments HTTP/1.1\r\nHost: x\r\nContent-Type: application/json\r\n"
+        + f"Authorization: Bearer {ADMIN_TOKEN}\r\nContent-Length: {len(body)}\r\n\r\n".encode()
+        + body[:5]
+    )
     start = time.monotonic()
     answer = read_all(s)
     assert answer.startswith(b"HTTP/1.1 408"), answer
@@ -128,8 +134,10 @@ def test_connections_beyond_the_cap_get_503_problem(server):
 def test_an_oversized_or_broken_head_is_400_problem(server):
     # A head that keeps growing past 16 KiB (the default) before it ends, and one that is not
     # HTTP at all.
-    for head in (b"GET /healthz HTTP/1.1\r\nHost: x\r\nX-Big: " + b"a" * 20000,
-                 b"NOT HTTP AT ALL\r\n\r\n"):
+    for head in (
+        b"GET /healthz HTTP/1.1\r\nHost: x\r\nX-Big: " + b"a" * 20000,
+        b"NOT HTTP AT ALL\r\n\r\n",
+    ):
         s = connect(server)
         s.sendall(head)
         time.sleep(0.2)

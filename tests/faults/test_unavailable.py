@@ -43,10 +43,12 @@ def wait_ready(client: TestClient, timeout: float = 15.0) -> None:
     raise AssertionError(f"not ready again: {client.get('/readyz').text}")
 
 
-def outage_and_return(client: TestClient, break_it: Callable[[], None],
-                      mend_it: Callable[[], None]) -> None:
-    before = client.post("/v1/assessments", json=series_body("quay-before", 3, seed=1),
-                         headers=ADMIN)
+def outage_and_return(
+    client: TestClient, break_it: Callable[[], None], mend_it: Callable[[], None]
+) -> None:
+    before = client.post(
+        "/v1/assessments", json=series_body("quay-before", 3, seed=1), headers=ADMIN
+    )
     assert before.status_code == 201, before.text
     key = {"Idempotency-Key": "quay-during-0001"}
     during = series_body("quay-during", 4, seed=2)
@@ -55,8 +57,9 @@ def outage_and_return(client: TestClient, break_it: Callable[[], None],
         ready = client.get("/readyz")
         assert_unavailable(ready)
         for _ in range(3):  # every try, not just the first, while it lasts
-            assert_unavailable(client.post("/v1/assessments", json=during,
-                                           headers={**ADMIN, **key}))
+            assert_unavailable(
+                client.post("/v1/assessments", json=during, headers={**ADMIN, **key})
+            )
         read = client.get(f"/v1/assessments/{before.json()['id']}", headers=ADMIN)
         assert read.status_code in (200, 503), read.text
     finally:
@@ -108,8 +111,11 @@ def relayed(postgres_database):
     url = make_url(postgres_database)
     relay = Relay((url.host or "127.0.0.1", url.port or 5432))
     relay.restore()
-    yield relay, url.set(port=relay.port, password=PASSWORD).render_as_string(
-        hide_password=False) + "?connect_timeout=3"
+    yield (
+        relay,
+        url.set(port=relay.port, password=PASSWORD).render_as_string(hide_password=False)
+        + "?connect_timeout=3",
+    )
     relay.cut()
 
 
@@ -127,8 +133,12 @@ def test_postgresql_refusing_the_database(postgres_database):
     def break_it() -> None:
         with admin.connect() as conn:
             conn.execute(text(f'ALTER DATABASE "{name}" ALLOW_CONNECTIONS false'))
-            conn.execute(text("SELECT pg_terminate_backend(pid) FROM pg_stat_activity "
-                              "WHERE datname = :name"), {"name": name})
+            conn.execute(
+                text(
+                    "SELECT pg_terminate_backend(pid) FROM pg_stat_activity WHERE datname = :name"
+                ),
+                {"name": name},
+            )
 
     def mend_it() -> None:
         with admin.connect() as conn:

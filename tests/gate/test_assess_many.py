@@ -11,8 +11,7 @@ from service.core.gate import assess_many, assess_many_dicts
 from service.core.policy import Policy
 
 
-def invented_batch(rng, n, t=104, horizon=0, intervals=False, season=1, gaps=False,
-                   prefix="s"):
+def invented_batch(rng, n, t=104, horizon=0, intervals=False, season=1, gaps=False, prefix="s"):
     """Invented weekly series (level near 100), some flawed, optionally with a holdout."""
     actuals = 100 + 5 * rng.standard_normal((n, t))
     e = rng.standard_normal((n, t))
@@ -29,8 +28,9 @@ def invented_batch(rng, n, t=104, horizon=0, intervals=False, season=1, gaps=Fal
         kwargs = {"holdout_actuals": ha, "holdout_forecasts": hf}
         if intervals:
             kwargs |= {"holdout_lower": hf - 1.6, "holdout_upper": hf + 1.6, "level": 0.9}
-    return make_batch(actuals, fitted, ids=[f"{prefix}-{i}" for i in range(n)],
-                      season_length=season, **kwargs)
+    return make_batch(
+        actuals, fitted, ids=[f"{prefix}-{i}" for i in range(n)], season_length=season, **kwargs
+    )
 
 
 def test_same_results_as_separate_calls_exactly():
@@ -55,12 +55,13 @@ def test_same_results_as_separate_calls_exactly():
 
 def test_policies_are_kept_apart():
     rng = np.random.default_rng(7)
-    strict = Policy.from_dict({"name": "strict", "checks": {"ljung_box": {"lags": 5}},
-                               "fleet": {"adjustment": "none"}})
-    items = [(invented_batch(rng, 2), strict if i % 2 else default_policy())
-             for i in range(6)]
-    for (batch, pol), got, doc in zip(items, assess_many(items), assess_many_dicts(items),
-                                      strict=True):
+    strict = Policy.from_dict(
+        {"name": "strict", "checks": {"ljung_box": {"lags": 5}}, "fleet": {"adjustment": "none"}}
+    )
+    items = [(invented_batch(rng, 2), strict if i % 2 else default_policy()) for i in range(6)]
+    for (batch, pol), got, doc in zip(
+        items, assess_many(items), assess_many_dicts(items), strict=True
+    ):
         assert got.policy is pol
         assert got.to_dict() == doc == assess(batch, pol).to_dict()
 
@@ -80,15 +81,23 @@ def test_critical_series_weights_and_adjustment_per_part():
     # across the stacked parts), given weights, no adjustment, a fleet-bias warning.
     rng = np.random.default_rng(23)
     policies = [
-        Policy.from_dict({"name": "crit", "fleet": {"critical_series": ["s-0", "s-2"],
-                                                    "weighting": "given", "bias_warn_p": 0.3}}),
-        Policy.from_dict({"name": "plain", "fleet": {"adjustment": "none",
-                                                     "weighting": "count"}}),
+        Policy.from_dict(
+            {
+                "name": "crit",
+                "fleet": {
+                    "critical_series": ["s-0", "s-2"],
+                    "weighting": "given",
+                    "bias_warn_p": 0.3,
+                },
+            }
+        ),
+        Policy.from_dict({"name": "plain", "fleet": {"adjustment": "none", "weighting": "count"}}),
     ]
     for pol in policies:
         items = [(invented_batch(rng, n), pol) for n in (1, 1, 1, 3, 3, 1, 3)]
-        for (batch, p), got, doc in zip(items, assess_many(items), assess_many_dicts(items),
-                                        strict=True):
+        for (batch, p), got, doc in zip(
+            items, assess_many(items), assess_many_dicts(items), strict=True
+        ):
             assert got.to_dict() == doc == assess(batch, p).to_dict()
 
 
@@ -123,6 +132,7 @@ def test_ragged_rows_answer_as_alone_to_the_last_bit():
         batch = make_batch(actuals, fitted, ids=[f"r{k}-{i}" for i in range(n)], model_params=1)
         items.append((batch, policy))
     assert len({stack_key(b) for b, _ in items}) == 4
-    for (batch, pol), got, doc in zip(items, assess_many(items), assess_many_dicts(items),
-                                      strict=True):
+    for (batch, pol), got, doc in zip(
+        items, assess_many(items), assess_many_dicts(items), strict=True
+    ):
         assert got.to_dict() == doc == assess(batch, pol).to_dict()

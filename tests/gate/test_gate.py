@@ -35,8 +35,14 @@ def test_sound_fleet_passes_and_result_is_json():
     assert [c["name"] for c in d["checks"]][:2] == ["data_sufficiency", "bias"]
     s = d["series"][0]
     assert set(s) >= {"id", "verdict", "n_obs", "bias", "checks"}
-    assert set(s["bias"]) == {"mean_error", "std_error", "ci_low", "ci_high", "percent_bias",
-                              "tracking_signal"}
+    assert set(s["bias"]) == {
+        "mean_error",
+        "std_error",
+        "ci_low",
+        "ci_high",
+        "percent_bias",
+        "tracking_signal",
+    }
     lb = next(c for c in s["checks"] if c["name"] == "ljung_box")
     assert set(lb) >= {"name", "status", "statistic", "p_value", "p_adjusted", "details"}
     assert lb["details"]["lags"] == 10 and lb["details"]["df"] == 10
@@ -77,8 +83,12 @@ def test_reasons_are_worst_first_and_cover_every_warn_and_fail():
     d = result.to_dict()
     sev = [SEVERITY[r["status"]] for r in d["reasons"]]
     assert sev == sorted(sev, reverse=True)
-    flagged = {(c["name"], s["id"]) for s in d["series"] for c in s["checks"]
-               if c["status"] in ("warn", "fail")}
+    flagged = {
+        (c["name"], s["id"])
+        for s in d["series"]
+        for c in s["checks"]
+        if c["status"] in ("warn", "fail")
+    }
     listed = {(r["check"], r["series_id"]) for r in d["reasons"] if r["series_id"]}
     assert flagged == listed
 
@@ -130,18 +140,35 @@ def test_too_wide_intervals_warn_but_do_not_fail():
     n, t, h = 30, 60, 40
     actuals = 50 + rng.standard_normal((n, t))
     ha = 50 + rng.standard_normal((n, h))
-    wide = assess(make_batch(actuals, actuals - rng.standard_normal((n, t)),
-                             holdout_actuals=ha, holdout_forecasts=np.full((n, h), 50.0),
-                             holdout_lower=np.full((n, h), 40.0),
-                             holdout_upper=np.full((n, h), 60.0), level=0.8), default_policy())
+    wide = assess(
+        make_batch(
+            actuals,
+            actuals - rng.standard_normal((n, t)),
+            holdout_actuals=ha,
+            holdout_forecasts=np.full((n, h), 50.0),
+            holdout_lower=np.full((n, h), 40.0),
+            holdout_upper=np.full((n, h), 60.0),
+            level=0.8,
+        ),
+        default_policy(),
+    )
     assert (wide.status_codes["interval_coverage"] <= 2).all()
-    narrow = assess(make_batch(actuals, actuals - rng.standard_normal((n, t)),
-                               holdout_actuals=ha, holdout_forecasts=np.full((n, h), 50.0),
-                               holdout_lower=np.full((n, h), 49.9),
-                               holdout_upper=np.full((n, h), 50.1), level=0.95), default_policy())
+    narrow = assess(
+        make_batch(
+            actuals,
+            actuals - rng.standard_normal((n, t)),
+            holdout_actuals=ha,
+            holdout_forecasts=np.full((n, h), 50.0),
+            holdout_lower=np.full((n, h), 49.9),
+            holdout_upper=np.full((n, h), 50.1),
+            level=0.95,
+        ),
+        default_policy(),
+    )
     assert (narrow.status_codes["interval_coverage"] == 3).all()
     assert "too narrow" in narrow.reasons[-1].message or any(
-        "too narrow" in r.message for r in narrow.reasons)
+        "too narrow" in r.message for r in narrow.reasons
+    )
 
 
 def test_fleet_bias_sees_what_no_single_series_shows():
@@ -150,8 +177,9 @@ def test_fleet_bias_sees_what_no_single_series_shows():
     result = assess(batch, default_policy())
     fb = result.fleet_bias
     assert fb.mean_error > 0 and fb.p_value < 1e-6
-    assert any(r.series_id is None and r.check == "bias" and "fleet" in r.message
-               for r in result.reasons)
+    assert any(
+        r.series_id is None and r.check == "bias" and "fleet" in r.message for r in result.reasons
+    )
 
 
 def test_series_order_does_not_change_verdicts():

@@ -95,10 +95,14 @@ def test_invalid_policies_name_the_field(doc, loc):
 
 def test_every_problem_is_reported_at_once():
     with pytest.raises(PolicyError) as info:
-        Policy.from_dict({"checks": {"bias": {"fail_p": -1}, "mase": {"lags": 2}},
-                          "fleet": {"weighting": "x"}})
+        Policy.from_dict(
+            {"checks": {"bias": {"fail_p": -1}, "mase": {"lags": 2}}, "fleet": {"weighting": "x"}}
+        )
     assert {e["loc"] for e in info.value.errors} == {
-        "checks.bias.fail_p", "checks.mase.lags", "fleet.weighting"}
+        "checks.bias.fail_p",
+        "checks.mase.lags",
+        "fleet.weighting",
+    }
 
 
 def test_unnamed_checks_keep_defaults_and_disabled_checks_are_off():

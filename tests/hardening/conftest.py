@@ -23,14 +23,21 @@ def series(sid: str, n: int = 60, seed: int = 0) -> dict[str, Any]:
     rng = np.random.default_rng(seed)
     fitted = 50.0 + 5.0 * np.sin(np.arange(n) / 4.0)
     actuals = fitted + rng.normal(0.0, 1.0, n)
-    return {"id": sid, "actuals": [round(float(v), 3) for v in actuals],
-            "fitted": [round(float(v), 3) for v in fitted]}
+    return {
+        "id": sid,
+        "actuals": [round(float(v), 3) for v in actuals],
+        "fitted": [round(float(v), 3) for v in fitted],
+    }
 
 
-def assessment(model: str = "kiln-output", n_series: int = 1, n: int = 60, seed: int = 0
-               ) -> dict[str, Any]:
-    return {"model": model, "version": "1",
-            "series": [series(f"kiln-{i}", n=n, seed=seed + i) for i in range(n_series)]}
+def assessment(
+    model: str = "kiln-output", n_series: int = 1, n: int = 60, seed: int = 0
+) -> dict[str, Any]:
+    return {
+        "model": model,
+        "version": "1",
+        "series": [series(f"kiln-{i}", n=n, seed=seed + i) for i in range(n_series)],
+    }
 
 
 @pytest.fixture
@@ -56,8 +63,9 @@ def make_client(tmp_path) -> Iterator[Callable[..., TestClient]]:
 
 def mint(client: TestClient, *scopes: str) -> str:
     """A new token with ``scopes`` (the secret)."""
-    r = client.post("/v1/tokens", json={"scopes": list(scopes), "label": "hardening"},
-                    headers=ADMIN)
+    r = client.post(
+        "/v1/tokens", json={"scopes": list(scopes), "label": "hardening"}, headers=ADMIN
+    )
     assert r.status_code == 201, r.text
     return r.json()["token"]
 

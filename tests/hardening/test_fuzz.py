@@ -76,20 +76,27 @@ def fuzz_operation(operation, mode: GenerationMode) -> int:
     sent = 0
 
     @given(case=operation.as_strategy(generation_mode=mode))
-    @settings(max_examples=EXAMPLES, deadline=None, derandomize=True, database=None,
-              suppress_health_check=list(HealthCheck))
+    @settings(
+        max_examples=EXAMPLES,
+        deadline=None,
+        derandomize=True,
+        database=None,
+        suppress_health_check=list(HealthCheck),
+    )
     def run(case) -> None:
         nonlocal sent
         sent += 1
-        case.call_and_validate(headers=ADMIN, checks=CHECKS,
-                               excluded_checks=LENIENT.get(operation.label, []))
+        case.call_and_validate(
+            headers=ADMIN, checks=CHECKS, excluded_checks=LENIENT.get(operation.label, [])
+        )
 
     run()
     return sent
 
 
-@pytest.mark.parametrize("mode", [GenerationMode.POSITIVE, GenerationMode.NEGATIVE],
-                         ids=["valid", "invalid"])
+@pytest.mark.parametrize(
+    "mode", [GenerationMode.POSITIVE, GenerationMode.NEGATIVE], ids=["valid", "invalid"]
+)
 def test_every_operation_conforms_and_never_fails(api_schema, mode):
     failures: dict[str, str] = {}
     covered = []
@@ -111,12 +118,18 @@ def test_every_operation_conforms_and_never_fails(api_schema, mode):
     assert not failures, "\n\n".join(f"{label}\n{text}" for label, text in failures.items())
     labels = {label for label, _ in covered}
     assert all(sent >= 1 for _, sent in covered), covered
-    print(f"\nfuzz {mode.value}: {sum(n for _, n in covered)} requests over {len(covered)} "
-          f"operations ({EXAMPLES} examples each at most); none for {nothing_invalid}")
+    print(
+        f"\nfuzz {mode.value}: {sum(n for _, n in covered)} requests over {len(covered)} "
+        f"operations ({EXAMPLES} examples each at most); none for {nothing_invalid}"
+    )
     if mode is GenerationMode.POSITIVE:
         # Every operation of the document was exercised.
         assert labels == {r.ok().label for r in api_schema.get_all_operations()}
     else:
         # Every operation that takes a body or a constrained parameter got invalid ones.
-        assert {"POST /v1/assessments", "GET /v1/assessments", "POST /v1/tokens",
-                "POST /v1/policies"} <= labels, (labels, nothing_invalid)
+        assert {
+            "POST /v1/assessments",
+            "GET /v1/assessments",
+            "POST /v1/tokens",
+            "POST /v1/policies",
+        } <= labels, (labels, nothing_invalid)

@@ -11,8 +11,9 @@ import pytest
 from .conftest import ADMIN, assessment, mint
 
 
-@pytest.mark.parametrize("query", ["since=5", "until=1.5", "until=7.004405792284737e-37",
-                                   "since=-3", "until=inf"])
+@pytest.mark.parametrize(
+    "query", ["since=5", "until=1.5", "until=7.004405792284737e-37", "since=-3", "until=inf"]
+)
 def test_bare_numbers_are_not_date_times(make_client, query):
     r = make_client().get(f"/v1/assessments?{query}", headers=ADMIN)
     assert r.status_code == 422, r.text
@@ -22,16 +23,20 @@ def test_bare_numbers_are_not_date_times(make_client, query):
 def test_iso_date_times_still_filter(make_client):
     client = make_client()
     assert client.get("/v1/assessments?since=2026-01-01", headers=ADMIN).status_code == 200
-    assert client.get("/v1/assessments?until=2026-01-01T00:00:00Z",
-                      headers=ADMIN).status_code == 200
+    assert (
+        client.get("/v1/assessments?until=2026-01-01T00:00:00Z", headers=ADMIN).status_code == 200
+    )
 
 
-@pytest.mark.parametrize("url, status, loc", [
-    ("/v1/assessments/ab%00cd", 404, None),
-    ("/v1/models/a%00b/verdict", 404, None),
-    ("/v1/policies/%00", 404, None),
-    ("/v1/assessments?model=a%00b", 422, "query.model"),
-])
+@pytest.mark.parametrize(
+    "url, status, loc",
+    [
+        ("/v1/assessments/ab%00cd", 404, None),
+        ("/v1/models/a%00b/verdict", 404, None),
+        ("/v1/policies/%00", 404, None),
+        ("/v1/assessments?model=a%00b", 422, "query.model"),
+    ],
+)
 def test_nul_in_urls(make_client, url, status, loc):
     r = make_client().get(url, headers=ADMIN)
     assert r.status_code == status, r.text
@@ -46,8 +51,9 @@ def test_nul_and_lone_surrogates_in_bodies(make_client):
     r = client.post("/v1/assessments", json=body, headers=ADMIN)
     assert r.status_code == 422 and r.json()["errors"][0]["loc"] == "model", r.text
     raw = json.dumps(assessment()).replace('"kiln-0"', '"kiln-\\ud800"')
-    r = client.post("/v1/assessments", content=raw,
-                    headers={**ADMIN, "Content-Type": "application/json"})
+    r = client.post(
+        "/v1/assessments", content=raw, headers={**ADMIN, "Content-Type": "application/json"}
+    )
     assert r.status_code == 400, r.text
     r = client.post("/v1/tokens", json={"scopes": ["read"], "label": "a\x00"}, headers=ADMIN)
     assert r.status_code == 422, r.text

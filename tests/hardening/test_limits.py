@@ -41,8 +41,10 @@ def test_a_token_over_its_rate_gets_429_with_retry_after(make_client):
 
 def test_failed_authentications_are_limited_per_client(make_client):
     client = make_client(rate_limit_per_second=0.1, rate_limit_burst=3)
-    codes = [client.get("/v1/checks", headers={"Authorization": f"Bearer guess-{i}"}).status_code
-             for i in range(5)]
+    codes = [
+        client.get("/v1/checks", headers={"Authorization": f"Bearer guess-{i}"}).status_code
+        for i in range(5)
+    ]
     # Three guesses use up the client's allowance of failures; new guesses are then refused
     # before they reach the token check.
     assert codes[:3] == [401, 401, 401]
@@ -75,9 +77,15 @@ def test_declared_oversize_body_is_refused_before_it_is_read(async_settings):
     async def go():
         transport = httpx.ASGITransport(app=app)
         async with httpx.AsyncClient(transport=transport, base_url="http://t") as c:
-            return await c.post("/v1/assessments", content=body(),
-                                headers={**ADMIN, "Content-Type": "application/json",
-                                         "Content-Length": str(100_000)})
+            return await c.post(
+                "/v1/assessments",
+                content=body(),
+                headers={
+                    **ADMIN,
+                    "Content-Type": "application/json",
+                    "Content-Length": str(100_000),
+                },
+            )
 
     r = asyncio.run(go())
     doc = assert_problem(r, 413)
@@ -97,8 +105,11 @@ def test_undeclared_oversize_body_is_cut_off_once_past_the_limit(async_settings)
     async def go():
         transport = httpx.ASGITransport(app=app)
         async with httpx.AsyncClient(transport=transport, base_url="http://t") as c:
-            return await c.post("/v1/assessments", content=body(),
-                                headers={**ADMIN, "Content-Type": "application/json"})
+            return await c.post(
+                "/v1/assessments",
+                content=body(),
+                headers={**ADMIN, "Content-Type": "application/json"},
+            )
 
     r = asyncio.run(go())
     assert_problem(r, 413)
@@ -118,8 +129,11 @@ def test_a_body_that_trickles_in_times_out_with_408(async_settings):
     async def go():
         transport = httpx.ASGITransport(app=app)
         async with httpx.AsyncClient(transport=transport, base_url="http://t") as c:
-            return await c.post("/v1/assessments", content=body(),
-                                headers={**ADMIN, "Content-Type": "application/json"})
+            return await c.post(
+                "/v1/assessments",
+                content=body(),
+                headers={**ADMIN, "Content-Type": "application/json"},
+            )
 
     r = asyncio.run(go())
     doc = assert_problem(r, 408)
@@ -133,13 +147,16 @@ def test_a_body_in_time_is_assessed(async_settings):
     async def body():
         for i in range(0, len(payload), 512):
             await asyncio.sleep(0.01)
-            yield payload[i:i + 512]
+            yield payload[i : i + 512]
 
     async def go():
         transport = httpx.ASGITransport(app=app)
         async with httpx.AsyncClient(transport=transport, base_url="http://t") as c:
-            return await c.post("/v1/assessments", content=body(),
-                                headers={**ADMIN, "Content-Type": "application/json"})
+            return await c.post(
+                "/v1/assessments",
+                content=body(),
+                headers={**ADMIN, "Content-Type": "application/json"},
+            )
 
     r = asyncio.run(go())
     assert r.status_code == 201, r.text
@@ -150,8 +167,10 @@ def test_too_many_series_is_422_naming_series(make_client):
     r = client.post("/v1/assessments", json=assessment(n_series=4), headers=ADMIN)
     doc = assert_problem(r, 422)
     assert any(e["loc"] == "series" and "3" in e["message"] for e in doc["errors"]), doc
-    assert client.post("/v1/assessments", json=assessment(n_series=3),
-                       headers=ADMIN).status_code == 201
+    assert (
+        client.post("/v1/assessments", json=assessment(n_series=3), headers=ADMIN).status_code
+        == 201
+    )
 
 
 def test_too_long_series_is_422_naming_the_array(make_client):
@@ -164,8 +183,11 @@ def test_too_long_series_is_422_naming_the_array(make_client):
 def test_too_long_csv_series_is_422(make_client):
     client = make_client(max_series_length=5)
     rows = "\n".join(f"a,{10 + i},{10 + i * 0.9}" for i in range(6))
-    r = client.post("/v1/assessments?model=m&version=1", content="series_id,actual,fitted\n" + rows,
-                    headers={**ADMIN, "Content-Type": "text/csv"})
+    r = client.post(
+        "/v1/assessments?model=m&version=1",
+        content="series_id,actual,fitted\n" + rows,
+        headers={**ADMIN, "Content-Type": "text/csv"},
+    )
     doc = assert_problem(r, 422)
     assert any("series" in e["loc"] or "line" in e["loc"] for e in doc["errors"]), doc
 

@@ -29,9 +29,14 @@ ROOT = Path(__file__).resolve().parents[2]
 
 def timed(*argv: str) -> tuple[float, int]:
     start = time.perf_counter()
-    proc = subprocess.run([sys.executable, "-m", "service.cli", *argv], cwd=ROOT,
-                          stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
-                          timeout=600)
+    proc = subprocess.run(
+        [sys.executable, "-m", "service.cli", *argv],
+        cwd=ROOT,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        text=True,
+        timeout=600,
+    )
     elapsed = time.perf_counter() - start
     if proc.returncode not in (0, 1):
         raise SystemExit(f"{' '.join(argv)} exited {proc.returncode}: {proc.stderr.strip()}")
@@ -42,8 +47,14 @@ def fleet(n: int, t: int, seed: int = 7) -> dict:
     rng = np.random.default_rng(seed)
     level = rng.uniform(20, 200, n)
     actuals = np.round(level[:, None] + rng.standard_normal((n, t)) * 0.1 * level[:, None], 2)
-    series = [{"id": f"invented-{i}", "actuals": actuals[i].tolist(),
-               "fitted": [round(float(level[i]), 2)] * t} for i in range(n)]
+    series = [
+        {
+            "id": f"invented-{i}",
+            "actuals": actuals[i].tolist(),
+            "fitted": [round(float(level[i]), 2)] * t,
+        }
+        for i in range(n)
+    ]
     return {"model": "bench-invented", "version": "1", "series": series}
 
 
@@ -59,12 +70,18 @@ def main() -> int:
         path.write_text(json.dumps(fleet(args.series, args.length)))
         size_mb = path.stat().st_size / 1e6
         offline_s, code = timed("assess", str(path), "--offline", "--json")
-    print(f"plumbline --help          {help_s:6.2f} s   target < 0.5 s   "
-          f"{'ok' if help_s < 0.5 else 'MISSED'}")
-    print(f"plumbline demo            {demo_s:6.2f} s   target < 5 s     "
-          f"{'ok' if demo_s < 5 else 'MISSED'}")
-    print(f"assess --offline          {offline_s:6.2f} s   {args.series} x {args.length}, "
-          f"{size_mb:.1f} MB JSON, exit {code}")
+    print(
+        f"plumbline --help          {help_s:6.2f} s   target < 0.5 s   "
+        f"{'ok' if help_s < 0.5 else 'MISSED'}"
+    )
+    print(
+        f"plumbline demo            {demo_s:6.2f} s   target < 5 s     "
+        f"{'ok' if demo_s < 5 else 'MISSED'}"
+    )
+    print(
+        f"assess --offline          {offline_s:6.2f} s   {args.series} x {args.length}, "
+        f"{size_mb:.1f} MB JSON, exit {code}"
+    )
     return 0
 
 

@@ -34,8 +34,14 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from service.core import make_batch, run_checks
 
-RESIDUAL_CHECKS = ("data_sufficiency", "bias", "tracking_signal", "ljung_box", "arch_lm",
-                   "jarque_bera")
+RESIDUAL_CHECKS = (
+    "data_sufficiency",
+    "bias",
+    "tracking_signal",
+    "ljung_box",
+    "arch_lm",
+    "jarque_bera",
+)
 
 
 def invented_fleet(n_series: int, periods: int, seed: int = 20261201):
@@ -99,8 +105,12 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--series", type=int, default=10_000)
     parser.add_argument("--periods", type=int, default=156)
     parser.add_argument("--repeats", type=int, default=7, help="core runs before and after")
-    parser.add_argument("--loop-sample", type=int, default=None,
-                        help="time the reference loop on this many series and scale up")
+    parser.add_argument(
+        "--loop-sample",
+        type=int,
+        default=None,
+        help="time the reference loop on this many series and scale up",
+    )
     args = parser.parse_args(argv)
 
     actuals, fitted = invented_fleet(args.series, args.periods)
@@ -117,27 +127,42 @@ def main(argv: list[str] | None = None) -> int:
 
     # The two sides compute the same Ljung-Box, ARCH LM and Jarque-Bera statistics; the core's
     # bias t uses a Newey-West standard error, the loop's ttest_1samp an iid one (by design).
-    core_vals = np.column_stack([out[name].statistic[:n_loop]
-                                 for name in ("ljung_box", "arch_lm", "jarque_bera")])
+    core_vals = np.column_stack(
+        [out[name].statistic[:n_loop] for name in ("ljung_box", "arch_lm", "jarque_bera")]
+    )
     max_rel = float(np.nanmax(np.abs(core_vals - ref[:, :3]) / np.abs(ref[:, :3])))
 
     ratio = loop_fleet_s / core_s
     mem_ratio = peak / input_bytes
-    print(f"machine: {platform.machine()}, {platform.python_implementation()} "
-          f"{platform.python_version()}, numpy {np.__version__}")
+    print(
+        f"machine: {platform.machine()}, {platform.python_implementation()} "
+        f"{platform.python_version()}, numpy {np.__version__}"
+    )
     print(f"fleet: {args.series} series x {args.periods} periods (invented, seeded)")
-    print(f"(a) core run_checks, residual checks {RESIDUAL_CHECKS}: {core_s:.3f} s "
-          f"(best of {2 * args.repeats}; median {core_median:.3f} s)")
-    scaled = "" if n_loop == args.series else (
-        f" (timed on {n_loop} series: {loop_s:.2f} s, scaled x{args.series / n_loop:g})")
-    print(f"(b) per-series loop (acorr_ljungbox, het_arch, jarque_bera, ttest_1samp): "
-          f"{loop_fleet_s:.2f} s{scaled}")
-    print(f"speed-up: {ratio:.0f}x (target >= 100x): {'met' if ratio >= 100 else 'NOT met'}; "
-          f"against the core's median run: {loop_fleet_s / core_median:.0f}x")
-    print(f"core peak traced memory: {peak / 1e6:.1f} MB; input arrays: {input_bytes / 1e6:.1f} MB;"
-          f" ratio {mem_ratio:.2f}x (target < 10x): {'met' if mem_ratio < 10 else 'NOT met'}")
-    print(f"agreement on the looped series (LB, ARCH LM, JB), max relative difference: "
-          f"{max_rel:.1e}")
+    print(
+        f"(a) core run_checks, residual checks {RESIDUAL_CHECKS}: {core_s:.3f} s "
+        f"(best of {2 * args.repeats}; median {core_median:.3f} s)"
+    )
+    scaled = (
+        ""
+        if n_loop == args.series
+        else (f" (timed on {n_loop} series: {loop_s:.2f} s, scaled x{args.series / n_loop:g})")
+    )
+    print(
+        f"(b) per-series loop (acorr_ljungbox, het_arch, jarque_bera, ttest_1samp): "
+        f"{loop_fleet_s:.2f} s{scaled}"
+    )
+    print(
+        f"speed-up: {ratio:.0f}x (target >= 100x): {'met' if ratio >= 100 else 'NOT met'}; "
+        f"against the core's median run: {loop_fleet_s / core_median:.0f}x"
+    )
+    print(
+        f"core peak traced memory: {peak / 1e6:.1f} MB; input arrays: {input_bytes / 1e6:.1f} MB;"
+        f" ratio {mem_ratio:.2f}x (target < 10x): {'met' if mem_ratio < 10 else 'NOT met'}"
+    )
+    print(
+        f"agreement on the looped series (LB, ARCH LM, JB), max relative difference: {max_rel:.1e}"
+    )
     return 0 if ratio >= 100 and mem_ratio < 10 else 1
 
 

@@ -73,8 +73,12 @@ def stored_ids(database_url: str) -> list[str]:
     engine = create_engine(database_url)
     try:
         with engine.connect() as conn:
-            return [r[0] for r in conn.execute(text(
-                "SELECT id FROM assessments WHERE model LIKE 'bench-feeder-%'"))]
+            return [
+                r[0]
+                for r in conn.execute(
+                    text("SELECT id FROM assessments WHERE model LIKE 'bench-feeder-%'")
+                )
+            ]
     finally:
         engine.dispose()
 
@@ -83,38 +87,70 @@ def half_written(database_url: str) -> int:
     engine = create_engine(database_url)
     try:
         with engine.connect() as conn:
-            return conn.execute(text(
-                "SELECT count(*) FROM assessments a WHERE a.n_series <> "
-                "(SELECT count(*) FROM series_results r WHERE r.assessment_seq = a.seq)"
-            )).scalar_one()
+            return conn.execute(
+                text(
+                    "SELECT count(*) FROM assessments a WHERE a.n_series <> "
+                    "(SELECT count(*) FROM series_results r WHERE r.assessment_seq = a.seq)"
+                )
+            ).scalar_one()
     finally:
         engine.dispose()
 
 
 def run_backend(backend: str, database_url: str, duration: int, workdir: Path) -> dict:
-    server = Server(database_url, workdir / f"server-{backend}.log", workers=2,
-                    env={"PLUMBLINE_ADMIN_TOKEN": ADMIN_TOKEN}).start()
+    server = Server(
+        database_url,
+        workdir / f"server-{backend}.log",
+        workers=2,
+        env={"PLUMBLINE_ADMIN_TOKEN": ADMIN_TOKEN},
+    ).start()
     try:
         tokens = mint_tokens(server.url)
         token_file = workdir / f"tokens-{backend}.txt"
         token_file.write_text("\n".join(tokens))
         acked_file = workdir / f"acked-{backend}.txt"
         prefix = workdir / f"locust-{backend}"
-        env = {**os.environ, "PLUMBLINE_BENCH_TOKENS": str(token_file),
-               "PLUMBLINE_BENCH_POSTERS": str(POSTERS), "PLUMBLINE_BENCH_ACKED": str(acked_file)}
+        env = {
+            **os.environ,
+            "PLUMBLINE_BENCH_TOKENS": str(token_file),
+            "PLUMBLINE_BENCH_POSTERS": str(POSTERS),
+            "PLUMBLINE_BENCH_ACKED": str(acked_file),
+        }
         started = time.monotonic()
         subprocess.run(
-            [sys.executable, "-m", "locust", "-f", str(Path(__file__).with_name("locust_load.py")),
-             "--headless", "-u", str(POSTERS + POLLERS), "-r", str(POSTERS + POLLERS),
-             "-t", f"{duration}s", "--stop-timeout", "30", "--host", server.url,
-             "--csv", str(prefix), "--only-summary", "--loglevel", "WARNING"],
-            env=env, timeout=duration + 180, check=False,
+            [
+                sys.executable,
+                "-m",
+                "locust",
+                "-f",
+                str(Path(__file__).with_name("locust_load.py")),
+                "--headless",
+                "-u",
+                str(POSTERS + POLLERS),
+                "-r",
+                str(POSTERS + POLLERS),
+                "-t",
+                f"{duration}s",
+                "--stop-timeout",
+                "30",
+                "--host",
+                server.url,
+                "--csv",
+                str(prefix),
+                "--only-summary",
+                "--loglevel",
+                "WARNING",
+            ],
+            env=env,
+            timeout=duration + 180,
+            check=False,
         )
         wall = time.monotonic() - started
         stats = read_stats(prefix)
         with open(f"{prefix}_failures.csv") as f:
-            failures = [f"{row['Name']}: {row['Error']} x{row['Occurrences']}"
-                        for row in csv.DictReader(f)]
+            failures = [
+                f"{row['Name']}: {row['Error']} x{row['Occurrences']}" for row in csv.DictReader(f)
+            ]
         acked = [line for line in acked_file.read_text().split("\n") if line]
     finally:
         server.kill(signal.SIGTERM)
@@ -164,8 +200,9 @@ def main() -> int:
         workdir = args.keep or Path(tmp)
         workdir.mkdir(parents=True, exist_ok=True)
         if args.backend in ("sqlite", "both"):
-            results.append(run_backend("sqlite", f"sqlite:///{workdir / 'bench.db'}",
-                                       args.duration, workdir))
+            results.append(
+                run_backend("sqlite", f"sqlite:///{workdir / 'bench.db'}", args.duration, workdir)
+            )
         if args.backend in ("postgresql", "both"):
             url, drop = postgres_database()
             try:
@@ -174,8 +211,11 @@ def main() -> int:
                 drop()
     print(json.dumps(results, indent=2))
     ok = all(
-        r["lost"] == 0 and r["half_written"] == 0 and r["tokens_in_server_log"] == 0
-        and r["acknowledged"] == r["acknowledged_distinct"] and r["stored"] == r["stored_distinct"]
+        r["lost"] == 0
+        and r["half_written"] == 0
+        and r["tokens_in_server_log"] == 0
+        and r["acknowledged"] == r["acknowledged_distinct"]
+        and r["stored"] == r["stored_distinct"]
         and all(s["failures"] == 0 for s in r["stats"].values())
         for r in results
     )

@@ -36,8 +36,9 @@ def main(n_series: int) -> None:
     entry = find_series(a, s["id"])
     for attempt in ("first (imports matplotlib)", "second"):
         t0 = time.perf_counter()
-        d = series_diagnostics(SeriesInputs.from_mapping(s), entry, season_length=52,
-                               model_params=2)
+        d = series_diagnostics(
+            SeriesInputs.from_mapping(s), entry, season_length=52, model_params=2
+        )
         page = render_series(a, entry, render_charts(d), report_href="report")
         t1 = time.perf_counter()
         print(f"series page, {attempt}: {t1 - t0:.3f} s, {len(page) / 1e3:.0f} kB")

@@ -61,17 +61,27 @@ def series(rng: np.random.Generator, sid: str) -> dict:
     level = 100.0 + 10.0 * np.sin(np.arange(N_OBS) * 2 * np.pi / 52)
     e = rng.normal(0.0, 3.0, N_OBS)
     e[1:] += 0.2 * e[:-1]
-    return {"id": sid, "actuals": np.round(level + e, 3).tolist(),
-            "fitted": [None, *np.round(level[1:], 3).tolist()]}
+    return {
+        "id": sid,
+        "actuals": np.round(level + e, 3).tolist(),
+        "fitted": [None, *np.round(level[1:], 3).tolist()],
+    }
 
 
 def body(n: int, seed: int = SEED) -> bytes:
     rng = np.random.default_rng(seed)
-    return orjson.dumps({"model": "bench", "version": "1", "model_params": 1,
-                         "series": [series(rng, f"s{i}") for i in range(n)]})
+    return orjson.dumps(
+        {
+            "model": "bench",
+            "version": "1",
+            "model_params": 1,
+            "series": [series(rng, f"s{i}") for i in range(n)],
+        }
+    )
 
 
 # ------------------------------------------------------------------------------ bare endpoint
+
 
 def bare_app() -> FastAPI:
     app = FastAPI()
@@ -80,22 +90,23 @@ def bare_app() -> FastAPI:
     async def bare(request: Request) -> Response:
         # The framework's own JSON parsing (Starlette's request.json()).
         doc = await request.json()
-        return Response(orjson.dumps({"n_series": len(doc["series"])}),
-                        media_type="application/json")
+        return Response(
+            orjson.dumps({"n_series": len(doc["series"])}), media_type="application/json"
+        )
 
     @app.post("/statsmodels")
     async def per_request_statsmodels(request: Request) -> Response:
         # The scale point: parse, then the four reference tests per series, nothing stored.
         doc = orjson.loads(await request.body())
-        return Response(orjson.dumps({"p": reference_tests(doc)}),
-                        media_type="application/json")
+        return Response(orjson.dumps({"p": reference_tests(doc)}), media_type="application/json")
 
     @app.post("/bare-orjson")
     async def bare_orjson(request: Request) -> Response:
         # The parser the service itself uses: the strictest baseline.
         doc = orjson.loads(await request.body())
-        return Response(orjson.dumps({"n_series": len(doc["series"])}),
-                        media_type="application/json")
+        return Response(
+            orjson.dumps({"n_series": len(doc["series"])}), media_type="application/json"
+        )
 
     return app
 
@@ -122,11 +133,13 @@ def serve_memoised(port: int) -> None:
 def serve_bare(port: int) -> None:
     import uvicorn
 
-    uvicorn.run(bare_app(), host="127.0.0.1", port=port, workers=1, log_level="warning",
-                access_log=False)
+    uvicorn.run(
+        bare_app(), host="127.0.0.1", port=port, workers=1, log_level="warning", access_log=False
+    )
 
 
 # ------------------------------------------------------------------------------ load
+
 
 def cpu_seconds(pid: int) -> float:
     """User + system CPU time of a process (Linux ``/proc``), robust to other load."""
@@ -134,8 +147,9 @@ def cpu_seconds(pid: int) -> float:
     return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
 
 
-def measured_rate(url: str, payload: bytes, seconds: int, connections: int, tmp: Path,
-                  pid: int) -> tuple[float, float]:
+def measured_rate(
+    url: str, payload: bytes, seconds: int, connections: int, tmp: Path, pid: int
+) -> tuple[float, float]:
     """(requests per wall-clock second, requests per server CPU second)."""
     cpu0 = cpu_seconds(pid)
     t0 = time.monotonic()
@@ -143,6 +157,7 @@ def measured_rate(url: str, payload: bytes, seconds: int, connections: int, tmp:
     elapsed = time.monotonic() - t0
     cpu = cpu_seconds(pid) - cpu0
     return per_s, per_s * elapsed / cpu if cpu > 0 else float("nan")
+
 
 def wrk_rate(url: str, body_file: Path, seconds: int, connections: int, tmp: Path) -> float:
     script = tmp / "post.lua"
@@ -158,7 +173,10 @@ def wrk_rate(url: str, body_file: Path, seconds: int, connections: int, tmp: Pat
     )
     out = subprocess.run(
         ["wrk", "-t1", f"-c{connections}", f"-d{seconds}s", "-s", str(script), url],
-        capture_output=True, text=True, timeout=seconds + 60, check=True,
+        capture_output=True,
+        text=True,
+        timeout=seconds + 60,
+        check=True,
     ).stdout
     rate = float(re.search(r"Requests/sec:\s+([\d.]+)", out).group(1))
     errors = re.search(r"ERRORS (\d+) (\d+)", out)
@@ -176,6 +194,7 @@ def python_rate(url: str, payload: bytes, seconds: int, connections: int) -> flo
         deadline = time.monotonic() + seconds
         headers = {"Content-Type": "application/json", "Authorization": f"Bearer {TOKEN}"}
         async with httpx.AsyncClient(timeout=30) as client:
+
             async def worker() -> None:
                 nonlocal done
                 while time.monotonic() < deadline and done < 10_000_000:
@@ -183,6 +202,7 @@ def python_rate(url: str, payload: bytes, seconds: int, connections: int) -> flo
                     if r.status_code >= 300:
                         raise SystemExit(f"{url}: {r.status_code} {r.text[:200]}")
                     done += 1
+
             await asyncio.gather(*(worker() for _ in range(connections)))
         return done
 
@@ -201,6 +221,7 @@ def rate(url: str, payload: bytes, seconds: int, connections: int, tmp: Path) ->
 
 # ------------------------------------------------------------------------------ baseline
 
+
 def reference_tests(doc: dict) -> list[list[float]]:
     """statsmodels/scipy one series at a time: Ljung-Box, ARCH LM, Jarque-Bera, t test
     (their p-values per series)."""
@@ -217,8 +238,14 @@ def reference_tests(doc: dict) -> list[list[float]]:
         lags = min(10, e.size // 5)
         lb = acorr_ljungbox(e, lags=[lags], model_df=k)
         arch = het_arch(e, nlags=min(10, e.size // 5))
-        out.append([float(lb["lb_pvalue"].iloc[0]), float(arch[1]),
-                    float(stats.jarque_bera(e).pvalue), float(stats.ttest_1samp(e, 0.0).pvalue)])
+        out.append(
+            [
+                float(lb["lb_pvalue"].iloc[0]),
+                float(arch[1]),
+                float(stats.jarque_bera(e).pvalue),
+                float(stats.ttest_1samp(e, 0.0).pvalue),
+            ]
+        )
     return out
 
 
@@ -240,8 +267,9 @@ def mean_stages(responses: list[Any]) -> str:
     return ", ".join(f"{k} {v / len(responses):.2f}" for k, v in totals.items())
 
 
-def timed_posts(url: str, payload: bytes, repeats: int, expect: int = 200
-                ) -> list[tuple[float, Any]]:
+def timed_posts(
+    url: str, payload: bytes, repeats: int, expect: int = 200
+) -> list[tuple[float, Any]]:
     """``repeats`` POSTs of ``payload``: (seconds end to end, response) each."""
     import httpx
 
@@ -249,8 +277,11 @@ def timed_posts(url: str, payload: bytes, repeats: int, expect: int = 200
     with httpx.Client(timeout=300) as client:
         for _ in range(repeats):
             t0 = time.perf_counter()
-            r = client.post(url, content=payload, headers={"Content-Type": "application/json",
-                                                           "Authorization": f"Bearer {TOKEN}"})
+            r = client.post(
+                url,
+                content=payload,
+                headers={"Content-Type": "application/json", "Authorization": f"Bearer {TOKEN}"},
+            )
             out.append((time.perf_counter() - t0, r))
             if r.status_code != expect:
                 raise SystemExit(f"{url}: {r.status_code} {r.text[:300]}")
@@ -262,8 +293,9 @@ def mean_per_pass(metrics_url: str) -> float:
     import httpx
 
     text = httpx.get(metrics_url, headers={"Authorization": f"Bearer {TOKEN}"}).text
-    found = dict(re.findall(r"^plumbline_submissions_per_pass_(sum|count) ([\d.e+]+)$", text,
-                            re.MULTILINE))
+    found = dict(
+        re.findall(r"^plumbline_submissions_per_pass_(sum|count) ([\d.e+]+)$", text, re.MULTILINE)
+    )
     count = float(found.get("count", 0))
     return float(found.get("sum", 0)) / count if count else float("nan")
 
@@ -293,18 +325,25 @@ def main() -> int:
     with tempfile.TemporaryDirectory() as tmp_name:
         tmp = Path(tmp_name)
         svc_port, bare_port, memo_port = free_port(), free_port(), free_port()
-        service_env = {"PLUMBLINE_ADMIN_TOKEN": TOKEN,
-                       # The per-token rate limit (50/s by default) would answer most of the
-                       # load with 429: this measures the assessment path, so it is off.
-                       "PLUMBLINE_RATE_LIMIT_PER_SECOND": "0"}
-        svc = start_python(run_args(svc_port),
-                           {"PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp / 'bench.db'}",
-                            **service_env}, tmp / "service.log")
-        bare = start_python([str(Path(__file__).resolve()), "--bare-server", str(bare_port)],
-                            {}, tmp / "bare.log")
-        memo = start_python([str(Path(__file__).resolve()), "--memoised-server", str(memo_port)],
-                            {"PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp / 'memo.db'}",
-                             **service_env}, tmp / "memo.log")
+        service_env = {
+            "PLUMBLINE_ADMIN_TOKEN": TOKEN,
+            # The per-token rate limit (50/s by default) would answer most of the
+            # load with 429: this measures the assessment path, so it is off.
+            "PLUMBLINE_RATE_LIMIT_PER_SECOND": "0",
+        }
+        svc = start_python(
+            run_args(svc_port),
+            {"PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp / 'bench.db'}", **service_env},
+            tmp / "service.log",
+        )
+        bare = start_python(
+            [str(Path(__file__).resolve()), "--bare-server", str(bare_port)], {}, tmp / "bare.log"
+        )
+        memo = start_python(
+            [str(Path(__file__).resolve()), "--memoised-server", str(memo_port)],
+            {"PLUMBLINE_DATABASE_URL": f"sqlite:///{tmp / 'memo.db'}", **service_env},
+            tmp / "memo.log",
+        )
         svc_url = f"http://127.0.0.1:{svc_port}/v1/assessments"
         memo_url = f"http://127.0.0.1:{memo_port}/v1/assessments"
         try:
@@ -312,33 +351,60 @@ def main() -> int:
             wait_until_answers(f"http://127.0.0.1:{bare_port}/docs", bare, tmp / "bare.log")
             wait_until_answers(f"http://127.0.0.1:{memo_port}/healthz", memo, tmp / "memo.log")
             # Warm every server up (imports, first connections) before measuring.
-            for url in (svc_url, memo_url, *(f"http://127.0.0.1:{bare_port}/{path}" for path
-                                             in ("bare", "bare-orjson", "statsmodels"))):
+            for url in (
+                svc_url,
+                memo_url,
+                *(
+                    f"http://127.0.0.1:{bare_port}/{path}"
+                    for path in ("bare", "bare-orjson", "statsmodels")
+                ),
+            ):
                 rate(url, single, 2, 2, tmp)
-            bare_rps, bare_cpu = measured_rate(f"http://127.0.0.1:{bare_port}/bare", single,
-                                               args.seconds, args.connections, tmp, bare.pid)
-            orj_rps, orj_cpu = measured_rate(f"http://127.0.0.1:{bare_port}/bare-orjson",
-                                             single, args.seconds, args.connections, tmp,
-                                             bare.pid)
-            sm_rps, _ = measured_rate(f"http://127.0.0.1:{bare_port}/statsmodels",
-                                           single, args.seconds, args.connections, tmp,
-                                           bare.pid)
-            svc_rps, svc_cpu = measured_rate(svc_url, single, args.seconds, args.connections,
-                                             tmp, svc.pid)
+            bare_rps, bare_cpu = measured_rate(
+                f"http://127.0.0.1:{bare_port}/bare",
+                single,
+                args.seconds,
+                args.connections,
+                tmp,
+                bare.pid,
+            )
+            orj_rps, orj_cpu = measured_rate(
+                f"http://127.0.0.1:{bare_port}/bare-orjson",
+                single,
+                args.seconds,
+                args.connections,
+                tmp,
+                bare.pid,
+            )
+            sm_rps, _ = measured_rate(
+                f"http://127.0.0.1:{bare_port}/statsmodels",
+                single,
+                args.seconds,
+                args.connections,
+                tmp,
+                bare.pid,
+            )
+            svc_rps, svc_cpu = measured_rate(
+                svc_url, single, args.seconds, args.connections, tmp, svc.pid
+            )
             per_pass = mean_per_pass(f"http://127.0.0.1:{svc_port}/metrics")
-            wide_rps, _ = measured_rate(svc_url, single, args.seconds, 4 * args.connections,
-                                        tmp, svc.pid)
-            memo_rps, memo_cpu = measured_rate(memo_url, single, args.seconds,
-                                               args.connections, tmp, memo.pid)
+            wide_rps, _ = measured_rate(
+                svc_url, single, args.seconds, 4 * args.connections, tmp, svc.pid
+            )
+            memo_rps, memo_cpu = measured_rate(
+                memo_url, single, args.seconds, args.connections, tmp, memo.pid
+            )
             stop(memo)
-            bare_fleet_s, _ = median_run(timed_posts(f"http://127.0.0.1:{bare_port}/bare",
-                                                     fleet, args.repeats))
+            bare_fleet_s, _ = median_run(
+                timed_posts(f"http://127.0.0.1:{bare_port}/bare", fleet, args.repeats)
+            )
             stop(bare)
             singles = timed_posts(svc_url, single, 200, expect=201)
             single_stages = mean_stages([r for _, r in singles])
             cpu0 = cpu_seconds(svc.pid)
-            fleet_s, response = median_run(timed_posts(f"{svc_url}?store=false", fleet,
-                                                       args.repeats))
+            fleet_s, response = median_run(
+                timed_posts(f"{svc_url}?store=false", fleet, args.repeats)
+            )
             fleet_cpu = (cpu_seconds(svc.pid) - cpu0) / args.repeats
             verdict = response.json()["verdict"]
             stages = response.headers.get("server-timing", "")
@@ -352,32 +418,34 @@ def main() -> int:
     loop_s = per_series_loop(fleet)
     loop_cpu = time.process_time() - cpu0
     tool = "wrk" if shutil.which("wrk") else "python asyncio loop"
-    print(f"| measure | value |\n|---|---|\n"
-          f"| load tool | {tool}, {args.connections} connections, {args.seconds} s |\n"
-          f"| bare FastAPI endpoint, request.json(), req/s | {bare_rps:.0f} |\n"
-          f"| bare FastAPI endpoint, orjson.loads, req/s | {orj_rps:.0f} |\n"
-          f"| POST /v1/assessments, 1 x {N_OBS} stored, req/s | {svc_rps:.0f} |\n"
-          f"| ratio (target >= 30%) | {100 * svc_rps / bare_rps:.1f}% |\n"
-          f"| submissions per pass of the core (mean, from /metrics) | {per_pass:.1f} |\n"
-          f"| same, {4 * args.connections} connections, req/s | {wide_rps:.0f} "
-          f"({100 * wide_rps / bare_rps:.1f}%) |\n"
-          f"| scale point: parse + statsmodels/scipy per request, req/s | {sm_rps:.0f} "
-          f"({100 * sm_rps / bare_rps:.1f}%) |\n"
-          f"| diagnostic: the service with its statistics memoised, req/s | {memo_rps:.0f} "
-          f"({100 * memo_rps / bare_rps:.1f}%; per CPU second {memo_cpu:.0f}) |\n"
-          f"| single-series stages (Server-Timing, mean ms) | {single_stages} |\n"
-          f"| requests per server CPU second: bare / service | {bare_cpu:.0f} / {svc_cpu:.0f} "
-          f"({100 * svc_cpu / bare_cpu:.1f}%) |\n"
-          f"| requests per server CPU second: bare orjson / service | {orj_cpu:.0f} / "
-          f"{svc_cpu:.0f} ({100 * svc_cpu / orj_cpu:.1f}%) |\n"
-          f"| {FLEET} x {N_OBS}, store=false, end to end (median of {args.repeats}) | "
-          f"{fleet_s:.2f} s (verdict {verdict}) |\n"
-          f"| of which server stages (Server-Timing, ms) | {stages} |\n"
-          f"| bare endpoint, same {FLEET}-series body (transfer + parse) | {bare_fleet_s:.2f} s |\n"
-          f"| per-series statsmodels/scipy loop, 4 tests | {loop_s:.2f} s |\n"
-          f"| speed-up (target >= 20x) | {loop_s / fleet_s:.1f}x |\n"
-          f"| CPU seconds: service (mean per request) / loop | {fleet_cpu:.2f} / {loop_cpu:.2f} "
-          f"({loop_cpu / fleet_cpu:.1f}x) |")
+    print(
+        f"| measure | value |\n|---|---|\n"
+        f"| load tool | {tool}, {args.connections} connections, {args.seconds} s |\n"
+        f"| bare FastAPI endpoint, request.json(), req/s | {bare_rps:.0f} |\n"
+        f"| bare FastAPI endpoint, orjson.loads, req/s | {orj_rps:.0f} |\n"
+        f"| POST /v1/assessments, 1 x {N_OBS} stored, req/s | {svc_rps:.0f} |\n"
+        f"| ratio (target >= 30%) | {100 * svc_rps / bare_rps:.1f}% |\n"
+        f"| submissions per pass of the core (mean, from /metrics) | {per_pass:.1f} |\n"
+        f"| same, {4 * args.connections} connections, req/s | {wide_rps:.0f} "
+        f"({100 * wide_rps / bare_rps:.1f}%) |\n"
+        f"| scale point: parse + statsmodels/scipy per request, req/s | {sm_rps:.0f} "
+        f"({100 * sm_rps / bare_rps:.1f}%) |\n"
+        f"| diagnostic: the service with its statistics memoised, req/s | {memo_rps:.0f} "
+        f"({100 * memo_rps / bare_rps:.1f}%; per CPU second {memo_cpu:.0f}) |\n"
+        f"| single-series stages (Server-Timing, mean ms) | {single_stages} |\n"
+        f"| requests per server CPU second: bare / service | {bare_cpu:.0f} / {svc_cpu:.0f} "
+        f"({100 * svc_cpu / bare_cpu:.1f}%) |\n"
+        f"| requests per server CPU second: bare orjson / service | {orj_cpu:.0f} / "
+        f"{svc_cpu:.0f} ({100 * svc_cpu / orj_cpu:.1f}%) |\n"
+        f"| {FLEET} x {N_OBS}, store=false, end to end (median of {args.repeats}) | "
+        f"{fleet_s:.2f} s (verdict {verdict}) |\n"
+        f"| of which server stages (Server-Timing, ms) | {stages} |\n"
+        f"| bare endpoint, same {FLEET}-series body (transfer + parse) | {bare_fleet_s:.2f} s |\n"
+        f"| per-series statsmodels/scipy loop, 4 tests | {loop_s:.2f} s |\n"
+        f"| speed-up (target >= 20x) | {loop_s / fleet_s:.1f}x |\n"
+        f"| CPU seconds: service (mean per request) / loop | {fleet_cpu:.2f} / {loop_cpu:.2f} "
+        f"({loop_cpu / fleet_cpu:.1f}x) |"
+    )
     return 0
 
 

@@ -82,8 +82,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--repeats", type=int, default=2000)
     parser.add_argument("--periods", type=int, default=156)
     parser.add_argument("--horizon", type=int, default=12)
-    parser.add_argument("--profile", action="store_true",
-                        help="print the top functions of case (a) by own time")
+    parser.add_argument(
+        "--profile", action="store_true", help="print the top functions of case (a) by own time"
+    )
     args = parser.parse_args(argv)
 
     policy = default_policy()
@@ -91,24 +92,46 @@ def main(argv: list[str] | None = None) -> int:
     cases = {
         "(a) 1 series, no holdout": (ya[:1], fa[:1], {}, policy),
         "(b) 1 series, holdout + 90% intervals": (
-            ya[:1], fa[:1],
-            {"holdout_actuals": hy[:1], "holdout_forecasts": hf[:1], "holdout_lower": lo[:1],
-             "holdout_upper": up[:1], "level": 0.9}, policy),
+            ya[:1],
+            fa[:1],
+            {
+                "holdout_actuals": hy[:1],
+                "holdout_forecasts": hf[:1],
+                "holdout_lower": lo[:1],
+                "holdout_upper": up[:1],
+                "level": 0.9,
+            },
+            policy,
+        ),
         "(c) 10 series, holdout + 90% intervals": (
-            ya, fa,
-            {"holdout_actuals": hy, "holdout_forecasts": hf, "holdout_lower": lo,
-             "holdout_upper": up, "level": 0.9}, policy),
+            ya,
+            fa,
+            {
+                "holdout_actuals": hy,
+                "holdout_forecasts": hf,
+                "holdout_lower": lo,
+                "holdout_upper": up,
+                "level": 0.9,
+            },
+            policy,
+        ),
     }
-    print(f"machine: {platform.machine()}, {platform.python_implementation()} "
-          f"{platform.python_version()}, numpy {np.__version__}")
-    print(f"make_batch + assess(default_policy()) + to_dict, {args.periods} periods, "
-          f"{args.repeats} calls per case")
+    print(
+        f"machine: {platform.machine()}, {platform.python_implementation()} "
+        f"{platform.python_version()}, numpy {np.__version__}"
+    )
+    print(
+        f"make_batch + assess(default_policy()) + to_dict, {args.periods} periods, "
+        f"{args.repeats} calls per case"
+    )
     first_median = None
     for label, case in cases.items():
         best, median, cpu, calls = measure(case, args.repeats)
         first_median = median if first_median is None else first_median
-        print(f"{label}: min {best * 1e3:.3f} ms, median {median * 1e3:.3f} ms "
-              f"(median thread CPU time {cpu * 1e3:.3f} ms), {calls} function calls")
+        print(
+            f"{label}: min {best * 1e3:.3f} ms, median {median * 1e3:.3f} ms "
+            f"(median thread CPU time {cpu * 1e3:.3f} ms), {calls} function calls"
+        )
     print(f"target (a) median <= 0.7 ms: {'met' if first_median <= 0.7e-3 else 'NOT met'}")
     if args.profile:
         prof = cProfile.Profile()

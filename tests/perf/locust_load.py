@@ -33,27 +33,43 @@ def one_series_body(rng: random.Random, model: str) -> bytes:
     n = 156
     fitted = [100.0 + 12.0 * math.sin(2 * math.pi * t / 52) for t in range(n)]
     actuals = [f + rng.gauss(0.0, 2.0) for f in fitted]
-    return json.dumps({
-        "model": model, "version": "1", "season_length": 52,
-        "series": [{"id": "line-1", "actuals": [round(v, 3) for v in actuals],
-                    "fitted": [round(v, 3) for v in fitted]}],
-    }).encode()
+    return json.dumps(
+        {
+            "model": model,
+            "version": "1",
+            "season_length": 52,
+            "series": [
+                {
+                    "id": "line-1",
+                    "actuals": [round(v, 3) for v in actuals],
+                    "fitted": [round(v, 3) for v in fitted],
+                }
+            ],
+        }
+    ).encode()
 
 
 class Poster(FastHttpUser):
     fixed_count = POSTERS
 
     def on_start(self) -> None:
-        self.auth = {"Authorization": f"Bearer {next(_poster_tokens)}",
-                     "Content-Type": "application/json"}
+        self.auth = {
+            "Authorization": f"Bearer {next(_poster_tokens)}",
+            "Content-Type": "application/json",
+        }
         self.rng = random.Random()
 
     @task
     def post_assessment(self) -> None:
         body = one_series_body(self.rng, self.rng.choice(MODELS))
         headers = {**self.auth, "Idempotency-Key": uuid.uuid4().hex}
-        with self.client.post("/v1/assessments", data=body, headers=headers,
-                              name="POST /v1/assessments", catch_response=True) as r:
+        with self.client.post(
+            "/v1/assessments",
+            data=body,
+            headers=headers,
+            name="POST /v1/assessments",
+            catch_response=True,
+        ) as r:
             if r.status_code != 201:
                 r.failure(f"status {r.status_code}: {r.text[:200]}")
                 return
@@ -70,16 +86,24 @@ class Poller(FastHttpUser):
 
     @task
     def list_assessments(self) -> None:
-        with self.client.get("/v1/assessments?limit=50", headers=self.auth,
-                             name="GET /v1/assessments", catch_response=True) as r:
+        with self.client.get(
+            "/v1/assessments?limit=50",
+            headers=self.auth,
+            name="GET /v1/assessments",
+            catch_response=True,
+        ) as r:
             if r.status_code != 200:
                 r.failure(f"status {r.status_code}")
 
     @task
     def model_verdict(self) -> None:
         model = self.rng.choice(MODELS)
-        with self.client.get(f"/v1/models/{model}/verdict", headers=self.auth,
-                             name="GET /v1/models/{model}/verdict", catch_response=True) as r:
+        with self.client.get(
+            f"/v1/models/{model}/verdict",
+            headers=self.auth,
+            name="GET /v1/models/{model}/verdict",
+            catch_response=True,
+        ) as r:
             if r.status_code in (200, 404):  # 404: nothing stored for this model yet
                 r.success()
             else:

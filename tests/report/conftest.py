@@ -29,5 +29,4 @@ def live_server(tmp_path_factory: pytest.TempPathFactory):
         "PLUMBLINE_LINK_SECRET": LIVE_SECRET,
     }
     with Server(work, env) as url:
-        yield {"url": url, "auth": {"Authorization": f"Bearer {LIVE_ADMIN}"},
-               "secret": LIVE_SECRET}
+        yield {"url": url, "auth": {"Authorization": f"Bearer {LIVE_ADMIN}"}, "secret": LIVE_SECRET}

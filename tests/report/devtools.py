@@ -75,9 +75,16 @@ class Browser:
 
         self._profile = tempfile.mkdtemp(prefix="plumbline-chromium-")
         self._proc = subprocess.Popen(
-            [self.binary, *CHROMIUM_FLAGS, f"--user-data-dir={self._profile}",
-             f"--window-size={self.width},{self.height}", "about:blank"],
-            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True,
+            [
+                self.binary,
+                *CHROMIUM_FLAGS,
+                f"--user-data-dir={self._profile}",
+                f"--window-size={self.width},{self.height}",
+                "about:blank",
+            ],
+            stdout=subprocess.DEVNULL,
+            stderr=subprocess.PIPE,
+            text=True,
         )
         port = self._devtools_port()
         page_ws = self._page_socket(port)
@@ -151,8 +158,9 @@ class Browser:
             self.problems.console_errors.append(f"uncaught exception: {desc}")
         elif method == "Log.entryAdded" and p.get("entry", {}).get("level") == "error":
             e = p["entry"]
-            self.problems.console_errors.append(f"log {e.get('source')}: {e.get('text')} "
-                                                f"{e.get('url', '')}".strip())
+            self.problems.console_errors.append(
+                f"log {e.get('source')}: {e.get('text')} {e.get('url', '')}".strip()
+            )
         elif method == "Network.loadingFailed":
             self.problems.failed_requests.append(
                 f"request failed: {p.get('errorText')} ({p.get('blockedReason', '')})"
@@ -202,8 +210,12 @@ class Browser:
         self.evaluate("new Promise(r => setTimeout(r, 300))", await_promise=True)
 
     def evaluate(self, expression: str, *, await_promise: bool = False) -> Any:
-        out = self.call("Runtime.evaluate", expression=expression, returnByValue=True,
-                        awaitPromise=await_promise)
+        out = self.call(
+            "Runtime.evaluate",
+            expression=expression,
+            returnByValue=True,
+            awaitPromise=await_promise,
+        )
         if "exceptionDetails" in out:
             raise RuntimeError(f"script failed: {out['exceptionDetails']}")
         return out.get("result", {}).get("value")
@@ -211,8 +223,13 @@ class Browser:
     def screenshot(self, path: str) -> None:
         """Full-page PNG."""
         height = int(self.evaluate("document.documentElement.scrollHeight") or self.height)
-        self.call("Emulation.setDeviceMetricsOverride", width=self.width,
-                  height=min(height, 16000), deviceScaleFactor=1, mobile=False)
+        self.call(
+            "Emulation.setDeviceMetricsOverride",
+            width=self.width,
+            height=min(height, 16000),
+            deviceScaleFactor=1,
+            mobile=False,
+        )
         data = self.call("Page.captureScreenshot", format="png", captureBeyondViewport=True)
         with open(path, "wb") as fh:
             fh.write(base64.b64decode(data["data"]))

@@ -63,8 +63,9 @@ def invented_body(n_series: int = 10, *, t: int = 104, h: int = 12, seed: int = 
     """A request body in the API's shape; series cycle through :data:`KINDS`."""
     rng = np.random.default_rng(seed)
     series = [
-        _series(rng, f"cafe-{i + 1:02d}/oat-milk-{KINDS[i % len(KINDS)]}", KINDS[i % len(KINDS)],
-                t, h)
+        _series(
+            rng, f"cafe-{i + 1:02d}/oat-milk-{KINDS[i % len(KINDS)]}", KINDS[i % len(KINDS)], t, h
+        )
         for i in range(n_series)
     ]
     return {

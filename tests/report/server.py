@@ -18,8 +18,12 @@ class Server:
         port = free_port()
         log = self.workdir / "server.log"
         # What `plumbline serve` runs: migrations, then uvicorn on loopback.
-        self.proc = start_python(["-m", "service.api.server", "--host", HOST, "--port", str(port)],
-                                 self.env, log, cwd=self.workdir)
+        self.proc = start_python(
+            ["-m", "service.api.server", "--host", HOST, "--port", str(port)],
+            self.env,
+            log,
+            cwd=self.workdir,
+        )
         url = f"http://{HOST}:{port}"
         try:
             wait_until_answers(f"{url}/healthz", self.proc, log)

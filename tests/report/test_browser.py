@@ -28,8 +28,10 @@ def _need_browser() -> str:
     binary = find_chromium()
     problem = None
     if binary is None:
-        problem = ("no Chromium found: install the Debian package 'chromium' "
-                   "(apt-get install -y chromium) or set PLUMBLINE_CHROMIUM")
+        problem = (
+            "no Chromium found: install the Debian package 'chromium' "
+            "(apt-get install -y chromium) or set PLUMBLINE_CHROMIUM"
+        )
     else:
         try:
             import websocket  # noqa: F401 - the DevTools connection needs websocket-client
@@ -48,8 +50,13 @@ def served(live_server: dict):
     url, auth = live_server["url"], live_server["auth"]
     r = httpx.post(f"{url}/v1/assessments", json=invented_body(10), headers=auth, timeout=60)
     assert r.status_code == 201, r.text
-    return {"url": url, "binary": binary, "assessment": r.json(), "auth": auth,
-            "secret": live_server["secret"]}
+    return {
+        "url": url,
+        "binary": binary,
+        "assessment": r.json(),
+        "auth": auth,
+        "secret": live_server["secret"],
+    }
 
 
 def _check_clean(browser: Browser, what: str) -> None:
@@ -94,14 +101,17 @@ def test_report_and_series_page_in_chromium(served: dict) -> None:
 
         # The sort script runs: sorting by series id puts the ids in order.
         b.evaluate("document.querySelector('#series-table th').click()")
-        desc = b.evaluate("Array.from(document.querySelectorAll('#series-table tbody tr'))"
-                          ".map(tr => tr.dataset.series)")
+        desc = b.evaluate(
+            "Array.from(document.querySelectorAll('#series-table tbody tr'))"
+            ".map(tr => tr.dataset.series)"
+        )
         assert desc == sorted(page["series"], key=str.lower, reverse=True)
 
         # 3. Open the worst series from the list: the link carries the signature along.
         worst = page["series"][0]
-        b.evaluate(f"document.querySelector('#series-table tbody tr[data-series=\"{worst}\"] a')"
-                   ".click()")
+        b.evaluate(
+            f"document.querySelector('#series-table tbody tr[data-series=\"{worst}\"] a').click()"
+        )
         b.wait_for("Page.loadEventFired")
         b.evaluate("new Promise(r => setTimeout(r, 300))", await_promise=True)
         _check_clean(b, "series page")
@@ -110,8 +120,7 @@ def test_report_and_series_page_in_chromium(served: dict) -> None:
             return {name: f.dataset.chart, w: s.width, h: s.height,
                     title: f.querySelector('svg').getAttribute('aria-label')};
         })""")
-        assert [c["name"] for c in charts] == ["residuals", "acf", "histogram", "fitted",
-                                               "holdout"]
+        assert [c["name"] for c in charts] == ["residuals", "acf", "histogram", "fitted", "holdout"]
         assert all(c["w"] > 300 and c["h"] > 150 for c in charts), charts
         assert b.evaluate("document.querySelector('h1').textContent") == f"Series {worst}"
         b.screenshot(str(ARTIFACTS / "series.png"))
@@ -120,8 +129,9 @@ def test_report_and_series_page_in_chromium(served: dict) -> None:
 def test_expired_and_tampered_links_answer_403(served: dict) -> None:
     a, url = served["assessment"], served["url"]
     report = f"{url}/v1/assessments/{a['id']}/report"
-    expired = sign_link(secret=served["secret"], assessment_id=a["id"], ttl_seconds=60,
-                        now=time.time() - 3600)
+    expired = sign_link(
+        secret=served["secret"], assessment_id=a["id"], ttl_seconds=60, now=time.time() - 3600
+    )
     good = sign_link(secret=served["secret"], assessment_id=a["id"], ttl_seconds=600)
     tampered = good.query.replace("signature=", "signature=x", 1)
     with Browser(served["binary"]) as b:

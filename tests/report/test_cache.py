@@ -18,6 +18,7 @@ def test_lru_keeps_the_most_recent() -> None:
         def go():
             calls.append(tag)
             return _charts(tag)
+
         return go
 
     assert cache.get_or_render("a", render("a"))[0].svg == "<svg>a</svg>"

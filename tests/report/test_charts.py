@@ -25,8 +25,12 @@ SVG = "{http://www.w3.org/2000/svg}"
 @pytest.fixture(scope="module")
 def charts(body: dict, assessment: dict) -> dict:
     s = body["series"][1]
-    d = series_diagnostics(SeriesInputs.from_mapping(s), find_series(assessment, s["id"]),
-                           season_length=52, model_params=2)
+    d = series_diagnostics(
+        SeriesInputs.from_mapping(s),
+        find_series(assessment, s["id"]),
+        season_length=52,
+        model_params=2,
+    )
     return {c.name: c for c in render_charts(d)}
 
 
@@ -44,22 +48,53 @@ def test_every_chart_is_standalone_svg(charts: dict) -> None:
         ET.fromstring(c.svg)  # well-formed XML
         # Nothing that would make the page fetch: no external hrefs, images, scripts, fonts.
         assert "<script" not in c.svg and "<image" not in c.svg and "@font-face" not in c.svg
-        assert "href=\"http" not in c.svg and "url(http" not in c.svg
+        assert 'href="http' not in c.svg and "url(http" not in c.svg
 
 
 @pytest.mark.parametrize(
     ("name", "words"),
     [
-        ("residuals", ["Residuals over time", "Residual (actual − fitted)", "[series units]",
-                       "Date", "tracking-signal window"]),
-        ("acf", ["Residual autocorrelation", "Lag [periods]", "Autocorrelation",
-                 "±1.96/√T = ±0.193 (T = 103)", "lags 1–20 used by Ljung-Box"]),
-        ("histogram", ["Residual distribution", "Residual [series units]",
-                       "Density [1 / series unit]", "normal, mean"]),
+        (
+            "residuals",
+            [
+                "Residuals over time",
+                "Residual (actual − fitted)",
+                "[series units]",
+                "Date",
+                "tracking-signal window",
+            ],
+        ),
+        (
+            "acf",
+            [
+                "Residual autocorrelation",
+                "Lag [periods]",
+                "Autocorrelation",
+                "±1.96/√T = ±0.193 (T = 103)",
+                "lags 1–20 used by Ljung-Box",
+            ],
+        ),
+        (
+            "histogram",
+            [
+                "Residual distribution",
+                "Residual [series units]",
+                "Density [1 / series unit]",
+                "normal, mean",
+            ],
+        ),
         ("fitted", ["Residuals against fitted values", "Fitted value [series units]"]),
-        ("holdout", ["Holdout: actuals against forecasts", "Value [series units]",
-                     "95% prediction interval", "best benchmark: seasonal naive",
-                     "model forecast", "holdout actuals"]),
+        (
+            "holdout",
+            [
+                "Holdout: actuals against forecasts",
+                "Value [series units]",
+                "95% prediction interval",
+                "best benchmark: seasonal naive",
+                "model forecast",
+                "holdout actuals",
+            ],
+        ),
     ],
 )
 def test_charts_are_labelled(charts: dict, name: str, words: list[str]) -> None:
@@ -91,13 +126,17 @@ def test_chart_ids_differ_between_charts(charts: dict) -> None:
 
 def test_degenerate_series_still_draw() -> None:
     # Three identical residuals: no ACF, no distribution, but a page that says so.
-    d = series_diagnostics(SeriesInputs.from_mapping(
-        {"id": "flat", "actuals": [5.0, 5.0, 5.0, 5.0], "fitted": [None, 4.0, 4.0, 4.0]}))
+    d = series_diagnostics(
+        SeriesInputs.from_mapping(
+            {"id": "flat", "actuals": [5.0, 5.0, 5.0, 5.0], "fitted": [None, 4.0, 4.0, 4.0]}
+        )
+    )
     assert "undefined" in _texts(render_chart("acf", d).svg)
     assert "undefined" in _texts(render_chart("histogram", d).svg)
     assert "no holdout" in _texts(render_chart("holdout", d).svg)
-    empty = series_diagnostics(SeriesInputs.from_mapping(
-        {"id": "none", "actuals": [1.0, 2.0], "fitted": [None, None]}))
+    empty = series_diagnostics(
+        SeriesInputs.from_mapping({"id": "none", "actuals": [1.0, 2.0], "fitted": [None, None]})
+    )
     assert "no residuals" in _texts(render_chart("residuals", empty).svg)
     assert all(c.name != "holdout" for c in render_charts(empty))
     with pytest.raises(ValueError, match="unknown chart"):
@@ -106,9 +145,16 @@ def test_degenerate_series_still_draw() -> None:
 
 def test_number_axis_without_dates() -> None:
     y = list(np.linspace(10, 20, 30))
-    d = series_diagnostics(SeriesInputs.from_mapping(
-        {"id": "n", "actuals": y, "fitted": [None, *y[:-1]], "timestamps": [f"w{i}" for i in
-                                                                           range(30)]}))
+    d = series_diagnostics(
+        SeriesInputs.from_mapping(
+            {
+                "id": "n",
+                "actuals": y,
+                "fitted": [None, *y[:-1]],
+                "timestamps": [f"w{i}" for i in range(30)],
+            }
+        )
+    )
     assert "Period" in _texts(render_chart("residuals", d).svg)
 
 
@@ -124,10 +170,16 @@ def test_report_modules_do_not_import_matplotlib() -> None:
 
 def test_holdout_without_intervals_draws_no_band() -> None:
     y = [float(v) for v in 100 + 5 * np.sin(np.arange(40))]
-    d = series_diagnostics(SeriesInputs.from_mapping({
-        "id": "h", "actuals": y, "fitted": [None, *y[:-1]],
-        "holdout": {"actuals": [101.0, 99.0, 104.0], "forecasts": [100.0, 100.0, 100.0]},
-    }))
+    d = series_diagnostics(
+        SeriesInputs.from_mapping(
+            {
+                "id": "h",
+                "actuals": y,
+                "fitted": [None, *y[:-1]],
+                "holdout": {"actuals": [101.0, 99.0, 104.0], "forecasts": [100.0, 100.0, 100.0]},
+            }
+        )
+    )
     assert d.holdout is not None and d.holdout.lower is None and d.holdout.level is None
     text = _texts(render_chart("holdout", d).svg)
     assert "model forecast" in text and "prediction interval" not in text

@@ -25,8 +25,10 @@ LOCKED = b"""<!DOCTYPE html><html><head><link rel="icon" href="data:,"></head><b
 
 class _Handler(BaseHTTPRequestHandler):
     def do_GET(self) -> None:
-        pages = {"/broken": (BROKEN, {}),
-                 "/locked": (LOCKED, {"Content-Security-Policy": CONTENT_SECURITY_POLICY})}
+        pages = {
+            "/broken": (BROKEN, {}),
+            "/locked": (LOCKED, {"Content-Security-Policy": CONTENT_SECURITY_POLICY}),
+        }
         if self.path not in pages:
             self.send_error(404)
             return
@@ -70,5 +72,6 @@ def test_report_policy_blocks_outside_fetches_and_the_driver_sees_it(site: str) 
     with Browser(_need_browser()) as b:
         b.open(f"{site}/locked")
         assert b.problems.all(), "a blocked image must show as a problem"
-        assert any("elsewhere.png" in p or "Content Security Policy" in p
-                   for p in b.problems.all()), b.problems.all()
+        assert any(
+            "elsewhere.png" in p or "Content Security Policy" in p for p in b.problems.all()
+        ), b.problems.all()

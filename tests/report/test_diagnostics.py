@@ -14,8 +14,10 @@ from service.report.diagnostics import ACF_Z, time_axis
 def _diag(body: dict, assessment: dict, i: int):
     s = body["series"][i]
     return series_diagnostics(
-        SeriesInputs.from_mapping(s), find_series(assessment, s["id"]),
-        season_length=body["season_length"], model_params=body["model_params"],
+        SeriesInputs.from_mapping(s),
+        find_series(assessment, s["id"]),
+        season_length=body["season_length"],
+        model_params=body["model_params"],
     )
 
 
@@ -107,10 +109,16 @@ def test_time_axis_dates_and_fallback() -> None:
         ({"id": "a", "actuals": [1.0, 2.0], "fitted": [1.0]}, "fitted"),
         ({"id": "a", "actuals": [1.0], "fitted": ["x"]}, "fitted"),
         ({"id": "a", "actuals": [1.0], "fitted": [1.0], "timestamps": ["a", "b"]}, "timestamps"),
-        ({"id": "a", "actuals": [1.0], "fitted": [1.0], "holdout": {"actuals": [1.0]}},
-         "holdout"),
-        ({"id": "a", "actuals": [1.0], "fitted": [1.0],
-          "holdout": {"actuals": [1.0], "forecasts": [1.0, 2.0]}}, "holdout.forecasts"),
+        ({"id": "a", "actuals": [1.0], "fitted": [1.0], "holdout": {"actuals": [1.0]}}, "holdout"),
+        (
+            {
+                "id": "a",
+                "actuals": [1.0],
+                "fitted": [1.0],
+                "holdout": {"actuals": [1.0], "forecasts": [1.0, 2.0]},
+            },
+            "holdout.forecasts",
+        ),
     ],
 )
 def test_bad_stored_inputs_name_the_field(data: dict, field: str) -> None:

@@ -49,12 +49,22 @@ def test_signature_is_hmac_sha256_of_purpose_id_and_expiry() -> None:
 
 def test_valid_link_verifies_until_expiry() -> None:
     link = sign_link(secret=SECRET, assessment_id="a1", ttl_seconds=60, now=NOW)
-    got = verify_link(secret=SECRET, assessment_id="a1", expires=str(link.expires),
-                      signature=link.signature, now=NOW + 59)
+    got = verify_link(
+        secret=SECRET,
+        assessment_id="a1",
+        expires=str(link.expires),
+        signature=link.signature,
+        now=NOW + 59,
+    )
     assert got == link
     with pytest.raises(LinkExpired, match="expired"):
-        verify_link(secret=SECRET, assessment_id="a1", expires=link.expires,
-                    signature=link.signature, now=NOW + 60)
+        verify_link(
+            secret=SECRET,
+            assessment_id="a1",
+            expires=link.expires,
+            signature=link.signature,
+            now=NOW + 60,
+        )
 
 
 @pytest.mark.parametrize(
@@ -63,8 +73,13 @@ def test_valid_link_verifies_until_expiry() -> None:
 )
 def test_tampered_link_is_invalid(change: str) -> None:
     link = sign_link(secret=SECRET, assessment_id="a1", ttl_seconds=60, now=NOW)
-    args = {"secret": SECRET, "assessment_id": "a1", "expires": link.expires,
-            "signature": link.signature, "now": NOW}
+    args = {
+        "secret": SECRET,
+        "assessment_id": "a1",
+        "expires": link.expires,
+        "signature": link.signature,
+        "now": NOW,
+    }
     if change == "other_assessment":
         args["assessment_id"] = "a2"
     elif change == "later_expiry":
@@ -84,8 +99,13 @@ def test_expired_and_tampered_reports_tampering_first() -> None:
     # A forged link must not learn whether its expiry is the problem.
     link = sign_link(secret=SECRET, assessment_id="a1", ttl_seconds=60, now=NOW)
     with pytest.raises(LinkInvalid):
-        verify_link(secret=SECRET, assessment_id="a1", expires=link.expires,
-                    signature=link.signature[:-2] + "xx", now=NOW + 3600)
+        verify_link(
+            secret=SECRET,
+            assessment_id="a1",
+            expires=link.expires,
+            signature=link.signature[:-2] + "xx",
+            now=NOW + 3600,
+        )
 
 
 def test_bad_expiry_text_and_short_secret() -> None:

@@ -69,8 +69,11 @@ def test_report_shows_verdict_reasons_checks_and_bias(assessment: dict, report: 
     for c in assessment["checks"]:
         row = re.search(rf'<tr data-check="{c["name"]}">(.*?)</tr>', report).group(1)
         cells = re.findall(r"<td[^>]*>(.*?)</td>", row)
-        assert cells[2:5] == [str(c["series_tested"]), str(c["series_failed"]),
-                              str(c["series_warned"])]
+        assert cells[2:5] == [
+            str(c["series_tested"]),
+            str(c["series_failed"]),
+            str(c["series_warned"]),
+        ]
         assert cells[6] == f"{100 * c['failed_share']:.1f}%"
     b = assessment["fleet"]["bias"]
     assert f"{b['mean_error']:.4g}" in report
@@ -90,18 +93,28 @@ def test_series_listed_worst_first_with_links(assessment: dict, report: str) -> 
 
 def test_series_order_breaks_ties_by_failed_checks_then_weight() -> None:
     def s(sid, verdict, fails, weight):
-        return {"id": sid, "verdict": verdict, "weight": weight,
-                "checks": [{"name": f"c{i}", "status": "fail"} for i in range(fails)]}
+        return {
+            "id": sid,
+            "verdict": verdict,
+            "weight": weight,
+            "checks": [{"name": f"c{i}", "status": "fail"} for i in range(fails)],
+        }
 
-    rows = [s("a", "pass", 0, 9), s("b", "fail", 1, 5), s("c", "fail", 2, 1),
-            s("d", "fail", 1, 50), s("e", "warn", 0, 1)]
+    rows = [
+        s("a", "pass", 0, 9),
+        s("b", "fail", 1, 5),
+        s("c", "fail", 2, 1),
+        s("d", "fail", 1, 50),
+        s("e", "warn", 0, 1),
+    ]
     assert [r["id"] for r in series_order(rows)] == ["c", "d", "b", "e", "a"]
 
 
 def test_report_is_self_contained(report: str) -> None:
     for tag, attrs in tags(report):
         assert tag not in ("link", "img", "iframe", "object", "embed") or (
-            tag == "link" and attrs.get("href") == "data:,"), tag
+            tag == "link" and attrs.get("href") == "data:,"
+        ), tag
         if tag == "script":
             assert "src" not in attrs
         for name in ("src", "href"):
@@ -166,7 +179,13 @@ def test_neighbours_follow_the_worst_first_order(assessment: dict) -> None:
     assert neighbours(assessment["series"], order[-1]) == (order[-2], None)
     assert neighbours(assessment["series"], "nope") == (None, None)
     entry = find_series(assessment, order[3])
-    page = render_series(assessment, entry, (), report_href="/r",
-                         previous=(order[2], "/p"), following=(order[4], "/n"))
+    page = render_series(
+        assessment,
+        entry,
+        (),
+        report_href="/r",
+        previous=(order[2], "/p"),
+        following=(order[4], "/n"),
+    )
     assert f'<a rel="prev" href="/p">worse: {order[2]}</a>' in page
     assert f'<a rel="next" href="/n">next: {order[4]} →</a>' in page

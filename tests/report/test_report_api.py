@@ -44,8 +44,9 @@ def stored(client) -> dict:
 
 
 def _token(client, *scopes: str) -> dict:
-    r = client.post("/v1/tokens", json={"scopes": list(scopes), "label": "report test"},
-                    headers=AUTH)
+    r = client.post(
+        "/v1/tokens", json={"scopes": list(scopes), "label": "report test"}, headers=AUTH
+    )
     assert r.status_code in (200, 201), r.text
     return {"Authorization": f"Bearer {r.json()['token']}"}
 
@@ -78,16 +79,18 @@ def test_report_needs_a_token_with_read(client, stored) -> None:
     _problem(client.get(path, headers={"Authorization": "Bearer nope"}), 401)
     _problem(client.get(path, headers=_token(client, "submit")), 403)
     _problem(client.post(f"/v1/assessments/{stored['id']}/links"), 401)
-    _problem(client.post(f"/v1/assessments/{stored['id']}/links",
-                         headers=_token(client, "submit")), 403)
+    _problem(
+        client.post(f"/v1/assessments/{stored['id']}/links", headers=_token(client, "submit")), 403
+    )
 
 
 def test_unknown_assessment_and_series_are_404(client, stored) -> None:
     _problem(client.get("/v1/assessments/nope/report", headers=AUTH), 404)
     _problem(client.get("/v1/assessments/nope/report/series/x", headers=AUTH), 404)
     _problem(client.post("/v1/assessments/nope/links", headers=AUTH), 404)
-    body = _problem(client.get(f"/v1/assessments/{stored['id']}/report/series/nope",
-                               headers=AUTH), 404)
+    body = _problem(
+        client.get(f"/v1/assessments/{stored['id']}/report/series/nope", headers=AUTH), 404
+    )
     assert "nope" in body["detail"]
 
 
@@ -142,8 +145,9 @@ def test_signed_link_opens_only_that_report(client, stored) -> None:
 
 def test_expired_and_tampered_links_are_403(client, stored) -> None:
     path = f"/v1/assessments/{stored['id']}/report"
-    old = sign_link(secret=SECRET, assessment_id=stored["id"], ttl_seconds=60,
-                    now=time.time() - 120)
+    old = sign_link(
+        secret=SECRET, assessment_id=stored["id"], ttl_seconds=60, now=time.time() - 120
+    )
     body = _problem(client.get(f"{path}?{old.query}"), 403)
     assert body["type"].endswith("link-expired") and "expired" in body["detail"]
     _problem(client.get(f"{path}/series/x?{old.query}"), 403)
@@ -158,8 +162,9 @@ def test_expired_and_tampered_links_are_403(client, stored) -> None:
         body = _problem(client.get(f"{path}?{query}"), 403)
         assert body["type"].endswith("link-invalid")
     # A link signed with another key (another server) does not open it either.
-    foreign = sign_link(secret="another-servers-secret-abcdef", assessment_id=stored["id"],
-                        ttl_seconds=60)
+    foreign = sign_link(
+        secret="another-servers-secret-abcdef", assessment_id=stored["id"], ttl_seconds=60
+    )
     _problem(client.get(f"{path}?{foreign.query}"), 403)
 
 
@@ -169,21 +174,35 @@ def test_link_ttl_is_configurable(database_url: str) -> None:
         r = c.post(f"/v1/assessments/{a['id']}/links", headers=AUTH)
         q = parse_qs(urlsplit(r.json()["url"]).query)
         assert abs(int(q["expires"][0]) - (time.time() + 3600)) < 5
-        short = c.post(f"/v1/assessments/{a['id']}/links", json={"ttl_seconds": 60},
-                       headers=AUTH)
-        assert abs(int(parse_qs(urlsplit(short.json()["url"]).query)["expires"][0])
-                   - (time.time() + 60)) < 5
-        body = _problem(c.post(f"/v1/assessments/{a['id']}/links",
-                               json={"ttl_seconds": 7200}, headers=AUTH), 422)
+        short = c.post(f"/v1/assessments/{a['id']}/links", json={"ttl_seconds": 60}, headers=AUTH)
+        assert (
+            abs(
+                int(parse_qs(urlsplit(short.json()["url"]).query)["expires"][0])
+                - (time.time() + 60)
+            )
+            < 5
+        )
+        body = _problem(
+            c.post(f"/v1/assessments/{a['id']}/links", json={"ttl_seconds": 7200}, headers=AUTH),
+            422,
+        )
         assert body["errors"][0]["loc"] == "ttl_seconds"
-        body = _problem(c.post(f"/v1/assessments/{a['id']}/links",
-                               json={"ttl_seconds": 0}, headers=AUTH), 422)
+        body = _problem(
+            c.post(f"/v1/assessments/{a['id']}/links", json={"ttl_seconds": 0}, headers=AUTH), 422
+        )
         assert "ttl_seconds" in body["errors"][0]["loc"]
-        body = _problem(c.post(f"/v1/assessments/{a['id']}/links",
-                               json={"ttl": 60}, headers=AUTH), 422)
+        body = _problem(
+            c.post(f"/v1/assessments/{a['id']}/links", json={"ttl": 60}, headers=AUTH), 422
+        )
         assert body["errors"][0]["loc"] == "ttl"
-        _problem(c.post(f"/v1/assessments/{a['id']}/links", content=b"{",
-                               headers={**AUTH, "Content-Type": "application/json"}), 400)
+        _problem(
+            c.post(
+                f"/v1/assessments/{a['id']}/links",
+                content=b"{",
+                headers={**AUTH, "Content-Type": "application/json"},
+            ),
+            400,
+        )
 
 
 def test_openapi_documents_the_report_endpoints(client) -> None:
@@ -201,7 +220,7 @@ def test_assessing_does_not_load_matplotlib(tmp_path) -> None:
         from service.api.app import create_app
         from service.settings import Settings
         from tests.report.fleet import invented_body
-        s = Settings(database_url="sqlite:///{tmp_path / 'lazy.db'}", admin_token="{ADMIN}",
+        s = Settings(database_url="sqlite:///{tmp_path / "lazy.db"}", admin_token="{ADMIN}",
                      link_secret="{SECRET}")
         auth = {{"Authorization": "Bearer {ADMIN}"}}
         with TestClient(create_app(s)) as c:
@@ -213,8 +232,12 @@ def test_assessing_does_not_load_matplotlib(tmp_path) -> None:
             assert r.status_code == 200
             assert "matplotlib" in sys.modules
     """)
-    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
-                          cwd=str(__import__("pathlib").Path(__file__).resolve().parents[2]))
+    done = subprocess.run(
+        [sys.executable, "-c", code],
+        capture_output=True,
+        text=True,
+        cwd=str(__import__("pathlib").Path(__file__).resolve().parents[2]),
+    )
     assert done.returncode == 0, done.stderr[-3000:]
 
 
@@ -225,8 +248,9 @@ def test_awkward_series_ids_round_trip(client) -> None:
     link = client.post(f"/v1/assessments/{a['id']}/links", headers=AUTH).json()
     page = client.get(link["url"])
     assert page.status_code == 200
-    href = re.search(r'<tr data-series="depot[^"]*"><td class="id"><a href="([^"]+)"',
-                     page.text).group(1)
+    href = re.search(
+        r'<tr data-series="depot[^"]*"><td class="id"><a href="([^"]+)"', page.text
+    ).group(1)
     r = client.get(href.replace("&amp;", "&"))
     assert r.status_code == 200, r.text
     assert "<h1>Series depot 4/sku#118?size=1l&amp;x=y</h1>" in r.text
@@ -239,8 +263,9 @@ def test_percent_in_a_series_id_over_the_real_server(live_server) -> None:
     body["series"][0]["id"] = "sku 50%/x=%2F"
     a = httpx.post(f"{url}/v1/assessments", json=body, headers=auth).json()
     page = httpx.get(f"{url}/v1/assessments/{a['id']}/report", headers=auth)
-    href = re.search(r'<tr data-series="sku[^"]*"><td class="id"><a href="([^"]+)"',
-                     page.text).group(1)
+    href = re.search(
+        r'<tr data-series="sku[^"]*"><td class="id"><a href="([^"]+)"', page.text
+    ).group(1)
     assert href.endswith("/series/sku%2050%25%2Fx%3D%252F")
     r = httpx.get(url + href, headers=auth)
     assert r.status_code == 200, r.text
@@ -278,6 +303,7 @@ def test_concurrent_secret_creation_keeps_one_value(database_url: str) -> None:
     upgrade(database_url)
     engine = make_engine(database_url)
     try:
+
         def racing() -> str:
             # Another worker stores its key between our read and our insert.
             repo.get_or_create_secret(engine, name="k", make=lambda: "stored-by-the-other")

@@ -10,8 +10,14 @@ from service.store import make_engine
 from service.store import repository as repo
 from service.store.migrate import current_revision, head_revision, upgrade
 
-TABLES = {"assessments", "series_results", "series_inputs", "policies", "tokens",
-          "idempotency_keys"}
+TABLES = {
+    "assessments",
+    "series_results",
+    "series_inputs",
+    "policies",
+    "tokens",
+    "idempotency_keys",
+}
 
 
 def test_upgrade_creates_every_table_and_is_repeatable(database_url):
@@ -90,22 +96,49 @@ def test_unsupported_url_is_refused():
 
 
 def _save(engine, aid="a1", key=None, digest=None, n=3):
-    series = [repo.SeriesResult(series_id=f"s{i}", verdict="pass", n_obs=10,
-                                json=f'{{"id":"s{i}","verdict":"pass","n_obs":10}}'.encode())
-              for i in range(n)]
-    inputs = [repo.SeriesInput(series_id=f"s{i}", weight=None,
-                               actuals=np.array([1.0, np.nan, 3.0 + i]),
-                               fitted=np.array([np.nan, 1.5, 2.5]),
-                               timestamps=["2026-01-01", "2026-01-02", "2026-01-03"],
-                               holdout_actuals=np.array([4.0]) if i == 0 else None,
-                               holdout_forecasts=np.array([3.5]) if i == 0 else None)
-              for i in range(n)]
-    (saved,) = repo.save_assessments(engine, [repo.NewAssessment(
-        assessment_id=aid, created_at=repo.utcnow(), model="m", version="1",
-        verdict="pass", n_failed=0, n_warned=0, policy_name="default", policy_version=1,
-        policy_document={"name": "default"}, head=b'{"id":"' + aid.encode() + b'","verdict":'
-        b'"pass"}', series=series, inputs=inputs, idempotency_key=key, body_hash=digest,
-    )])
+    series = [
+        repo.SeriesResult(
+            series_id=f"s{i}",
+            verdict="pass",
+            n_obs=10,
+            json=f'{{"id":"s{i}","verdict":"pass","n_obs":10}}'.encode(),
+        )
+        for i in range(n)
+    ]
+    inputs = [
+        repo.SeriesInput(
+            series_id=f"s{i}",
+            weight=None,
+            actuals=np.array([1.0, np.nan, 3.0 + i]),
+            fitted=np.array([np.nan, 1.5, 2.5]),
+            timestamps=["2026-01-01", "2026-01-02", "2026-01-03"],
+            holdout_actuals=np.array([4.0]) if i == 0 else None,
+            holdout_forecasts=np.array([3.5]) if i == 0 else None,
+        )
+        for i in range(n)
+    ]
+    (saved,) = repo.save_assessments(
+        engine,
+        [
+            repo.NewAssessment(
+                assessment_id=aid,
+                created_at=repo.utcnow(),
+                model="m",
+                version="1",
+                verdict="pass",
+                n_failed=0,
+                n_warned=0,
+                policy_name="default",
+                policy_version=1,
+                policy_document={"name": "default"},
+                head=b'{"id":"' + aid.encode() + b'","verdict":"pass"}',
+                series=series,
+                inputs=inputs,
+                idempotency_key=key,
+                body_hash=digest,
+            )
+        ],
+    )
     if isinstance(saved, Exception):
         raise saved
     return saved
@@ -147,8 +180,17 @@ def test_foreign_keys_are_enforced(engine):
     from sqlalchemy.exc import IntegrityError
 
     with pytest.raises(IntegrityError), engine.begin() as conn:
-        conn.execute(insert(repo.SR), {"assessment_seq": 999, "position": 0, "series_id": "x",
-                                       "verdict": "pass", "n_obs": 1, "result": "{}"})
+        conn.execute(
+            insert(repo.SR),
+            {
+                "assessment_seq": 999,
+                "position": 0,
+                "series_id": "x",
+                "verdict": "pass",
+                "n_obs": 1,
+                "result": "{}",
+            },
+        )
 
 
 def test_list_newest_first_and_cursor(engine):
@@ -192,21 +234,44 @@ def test_pack_round_trip_keeps_nan():
 
 
 def _record(aid, key=None, digest=None):
-    series = [repo.SeriesResult(series_id="s0", verdict="pass", n_obs=2,
-                                json=b'{"id":"s0","verdict":"pass","n_obs":2}')]
-    inputs = [repo.SeriesInput(series_id="s0", weight=None, actuals=np.array([1.0, 2.0]),
-                               fitted=np.array([np.nan, 1.5]))]
+    series = [
+        repo.SeriesResult(
+            series_id="s0", verdict="pass", n_obs=2, json=b'{"id":"s0","verdict":"pass","n_obs":2}'
+        )
+    ]
+    inputs = [
+        repo.SeriesInput(
+            series_id="s0",
+            weight=None,
+            actuals=np.array([1.0, 2.0]),
+            fitted=np.array([np.nan, 1.5]),
+        )
+    ]
     return repo.NewAssessment(
-        assessment_id=aid, created_at=repo.utcnow(), model="m", version="1", verdict="pass",
-        n_failed=0, n_warned=0, policy_name="default", policy_version=1,
-        policy_document={"name": "default"}, head=b'{"id":"' + aid.encode() + b'"}',
-        series=series, inputs=inputs, idempotency_key=key, body_hash=digest)
+        assessment_id=aid,
+        created_at=repo.utcnow(),
+        model="m",
+        version="1",
+        verdict="pass",
+        n_failed=0,
+        n_warned=0,
+        policy_name="default",
+        policy_version=1,
+        policy_document={"name": "default"},
+        head=b'{"id":"' + aid.encode() + b'"}',
+        series=series,
+        inputs=inputs,
+        idempotency_key=key,
+        body_hash=digest,
+    )
 
 
 def test_many_in_one_transaction_and_a_taken_key_keeps_the_others(engine):
     _save(engine, aid="first", key="k1", digest="d1")
-    saved = repo.save_assessments(engine, [_record("b1"), _record("b2", key="k1", digest="d2"),
-                                           _record("b3", key="k3", digest="d3")])
+    saved = repo.save_assessments(
+        engine,
+        [_record("b1"), _record("b2", key="k1", digest="d2"), _record("b3", key="k3", digest="d3")],
+    )
     assert isinstance(saved[1], repo.IdempotencyConflict)
     assert [s.id for s in (saved[0], saved[2])] == ["b1", "b3"]
     listed = {row.id for row in repo.list_assessments(engine, limit=10)}
@@ -227,8 +292,9 @@ def test_a_write_failing_after_a_conflict_is_reported_for_that_record_only(engin
         return real(eng, records)
 
     monkeypatch.setattr(repo, "_write_all", flaky)
-    saved = repo.save_assessments(engine, [_record("c1"), _record("c2", key="k1", digest="x"),
-                                           _record("c3")])
+    saved = repo.save_assessments(
+        engine, [_record("c1"), _record("c2", key="k1", digest="x"), _record("c3")]
+    )
     assert calls[0] == ["c1", "c2", "c3"] and calls[1:] == [["c1"], ["c2"], ["c3"]]
     assert saved[0].id == "c1"
     assert isinstance(saved[1], repo.IdempotencyConflict)

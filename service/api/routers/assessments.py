@@ -37,35 +37,83 @@ router = APIRouter(prefix="/v1/assessments", tags=["assessments"])
 
 _PROBLEMS = problem_docs(400, 401, 403, 409, 413, 415, 422)
 _READ_PROBLEMS = problem_docs(401, 403, 404, 422)
-SUMMARY_COLUMNS = ("id", "created_at", "model", "version", "verdict", "n_series", "n_failed",
-                   "n_warned", "policy_name", "policy_version")
-SERIES_COLUMNS = ("assessment_id", "series_id", "series_verdict", "n_obs", "check", "status",
-                  "statistic", "p_value", "p_adjusted", "message", "details")
+SUMMARY_COLUMNS = (
+    "id",
+    "created_at",
+    "model",
+    "version",
+    "verdict",
+    "n_series",
+    "n_failed",
+    "n_warned",
+    "policy_name",
+    "policy_version",
+)
+SERIES_COLUMNS = (
+    "assessment_id",
+    "series_id",
+    "series_verdict",
+    "n_obs",
+    "check",
+    "status",
+    "statistic",
+    "p_value",
+    "p_adjusted",
+    "message",
+    "details",
+)
 MAX_KEY_LENGTH = 200
 INLINE_BODY_BYTES = 64 * 1024
 
 
 def _param(name: str, where: str, description: str, schema: dict[str, Any]) -> dict[str, Any]:
-    return {"name": name, "in": where, "required": False, "description": description,
-            "schema": schema}
+    return {
+        "name": name,
+        "in": where,
+        "required": False,
+        "description": description,
+        "schema": schema,
+    }
 
 
 # Read by the endpoint itself (cheaper than the framework's per-request parameter solving).
 POST_PARAMETERS = [
-    _param("store", "query", "false: compute without storing (then id is null); default true",
-           {"type": "boolean", "default": True}),
-    _param("Idempotency-Key", "header", "a repeat with the same key and body returns the stored "
-           "result (200); with another body, 409", {"type": "string", "maxLength": 200}),
+    _param(
+        "store",
+        "query",
+        "false: compute without storing (then id is null); default true",
+        {"type": "boolean", "default": True},
+    ),
+    _param(
+        "Idempotency-Key",
+        "header",
+        "a repeat with the same key and body returns the stored "
+        "result (200); with another body, 409",
+        {"type": "string", "maxLength": 200},
+    ),
     _param("model", "query", "CSV uploads: the model name", {"type": "string"}),
     _param("version", "query", "CSV uploads: the model version", {"type": "string"}),
-    _param("policy", "query", "CSV uploads: a stored policy name (name or name@N)",
-           {"type": "string"}),
-    _param("season_length", "query", "CSV uploads: seasonal period, default 1",
-           {"type": "integer", "minimum": 1}),
-    _param("model_params", "query", "CSV uploads: parameters the model estimated, default 0",
-           {"type": "integer", "minimum": 0}),
-    _param("level", "query", "CSV uploads: nominal level of the holdout intervals",
-           {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1}),
+    _param(
+        "policy", "query", "CSV uploads: a stored policy name (name or name@N)", {"type": "string"}
+    ),
+    _param(
+        "season_length",
+        "query",
+        "CSV uploads: seasonal period, default 1",
+        {"type": "integer", "minimum": 1},
+    ),
+    _param(
+        "model_params",
+        "query",
+        "CSV uploads: parameters the model estimated, default 0",
+        {"type": "integer", "minimum": 0},
+    ),
+    _param(
+        "level",
+        "query",
+        "CSV uploads: nominal level of the holdout intervals",
+        {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
+    ),
 ]
 _TRUE = frozenset({"true", "1", "yes", "on"})
 _FALSE = frozenset({"false", "0", "no", "off"})
@@ -76,8 +124,11 @@ def _store_flag(value: str | None) -> bool:
         return True
     if value.lower() in _FALSE:
         return False
-    raise ApiError(422, "store must be true or false",
-                   errors=[{"loc": "query.store", "message": "must be true or false"}])
+    raise ApiError(
+        422,
+        "store must be true or false",
+        errors=[{"loc": "query.store", "message": "must be true or false"}],
+    )
 
 
 def _iso_only(value: Any) -> Any:
@@ -99,9 +150,16 @@ def _idempotency_key(value: str | None) -> str | None:
         return None
     key = value.strip()
     if not key or len(key) > MAX_KEY_LENGTH or not key.isprintable():
-        raise ApiError(422, "Idempotency-Key must be 1 to 200 printable characters",
-                       errors=[{"loc": "header.Idempotency-Key",
-                                "message": "must be 1 to 200 printable characters"}])
+        raise ApiError(
+            422,
+            "Idempotency-Key must be 1 to 200 printable characters",
+            errors=[
+                {
+                    "loc": "header.Idempotency-Key",
+                    "message": "must be 1 to 200 printable characters",
+                }
+            ],
+        )
     return key
 
 
@@ -110,8 +168,13 @@ def _idempotency_key(value: str | None) -> str | None:
     status_code=201,
     response_model=AssessmentResult,
     summary="Assess a model's residuals over a fleet of series",
-    responses={200: {"description": "A repeat of an Idempotency-Key with the same body (the "
-                     "stored result), or a store=false computation"}, **_PROBLEMS},
+    responses={
+        200: {
+            "description": "A repeat of an Idempotency-Key with the same body (the "
+            "stored result), or a store=false computation"
+        },
+        **_PROBLEMS,
+    },
     openapi_extra={**json_body_doc("AssessmentBody", csv=True), "parameters": POST_PARAMETERS},
 )
 async def post_assessment(request: Request) -> Response:
@@ -126,16 +189,20 @@ async def post_assessment(request: Request) -> Response:
     elif is_csv(kind_raw):
         kind = "csv"
     else:
-        raise ApiError(415, f"Content-Type must be application/json or text/csv, got "
-                       f"{kind_raw or 'none'}")
+        raise ApiError(
+            415, f"Content-Type must be application/json or text/csv, got {kind_raw or 'none'}"
+        )
     store = _store_flag(request.query_params.get("store"))
     key = _idempotency_key(request.headers.get("idempotency-key"))
     state = request.app.state
     body = await read_body(request, state.settings.max_body_bytes)
     params = {k: v for k, v in request.query_params.items() if k != "store"}
     # The fingerprint matters only to an Idempotency-Key (its replay and its stored row).
-    digest = (assessing.body_hash(kind, params if kind == "csv" else {}, body)
-              if key is not None and store else None)
+    digest = (
+        assessing.body_hash(kind, params if kind == "csv" else {}, body)
+        if key is not None and store
+        else None
+    )
 
     def replayed() -> assessing.Outcome | None:
         if digest is not None:
@@ -145,8 +212,13 @@ async def post_assessment(request: Request) -> Response:
     def job() -> assessing.Job:
         clock = time.perf_counter()
         req = assessing.parse(kind, body, params, state.settings)
-        return assessing.Job(req=req, store=store, idempotency_key=key if store else None,
-                             digest=digest, timings={"parse": time.perf_counter() - clock})
+        return assessing.Job(
+            req=req,
+            store=store,
+            idempotency_key=key if store else None,
+            digest=digest,
+            timings={"parse": time.perf_counter() - clock},
+        )
 
     # Small bodies are parsed on the event loop (a thread hop and the lock hand-over between
     # threads would cost as much) and assessed together with the other small submissions
@@ -157,6 +229,7 @@ async def post_assessment(request: Request) -> Response:
         if outcome is None:
             outcome = await state.batcher.submit(job())
     else:
+
         def large() -> assessing.Outcome:
             with paused_gc():
                 again = replayed()
@@ -176,16 +249,20 @@ async def post_assessment(request: Request) -> Response:
         return Response(outcome.body, status_code=200, media_type=JSON, headers=headers)
     state.metrics.assessments.labels(outcome.verdict, "true" if store else "false").inc()
     state.metrics.series.inc(outcome.n_series)
-    return Response(outcome.body, status_code=201 if store else 200, media_type=JSON,
-                    headers=headers)
+    return Response(
+        outcome.body, status_code=201 if store else 200, media_type=JSON, headers=headers
+    )
 
 
 @router.get(
     "",
     response_model=AssessmentPage,
     summary="List assessments, newest first",
-    responses={200: {"content": {"text/csv": {}}}, 304: {"description": "Not modified"},
-               **_READ_PROBLEMS},
+    responses={
+        200: {"content": {"text/csv": {}}},
+        304: {"description": "Not modified"},
+        **_READ_PROBLEMS,
+    },
 )
 def list_assessments(
     request: Request,
@@ -193,8 +270,9 @@ def list_assessments(
     model: str | None = None,
     version: str | None = None,
     verdict: Verdict | None = None,
-    since: Annotated[IsoDatetime | None, Query(description="created at or after (ISO 8601)")]
-    = None,
+    since: Annotated[
+        IsoDatetime | None, Query(description="created at or after (ISO 8601)")
+    ] = None,
     until: Annotated[IsoDatetime | None, Query(description="created before (ISO 8601)")] = None,
     limit: Annotated[int, Query(ge=1)] = 50,
     cursor: str | None = None,
@@ -203,13 +281,23 @@ def list_assessments(
     in ``If-None-Match`` to get 304 when nothing changed."""
     settings = request.app.state.settings
     if limit > settings.page_limit_max:
-        raise ApiError(422, f"limit: at most {settings.page_limit_max}",
-                       errors=[{"loc": "query.limit",
-                                "message": f"must be at most {settings.page_limit_max}"}])
+        raise ApiError(
+            422,
+            f"limit: at most {settings.page_limit_max}",
+            errors=[
+                {"loc": "query.limit", "message": f"must be at most {settings.page_limit_max}"}
+            ],
+        )
     before = None if cursor is None else decode_cursor(cursor)
     rows = repo.list_assessments(
-        request.app.state.engine, model=model, version=version, verdict=verdict,
-        since=as_utc(since), until=as_utc(until), before_seq=before, limit=limit + 1,
+        request.app.state.engine,
+        model=model,
+        version=version,
+        verdict=verdict,
+        since=as_utc(since),
+        until=as_utc(until),
+        before_seq=before,
+        limit=limit + 1,
     )
     more = len(rows) > limit
     rows = rows[:limit]
@@ -220,10 +308,24 @@ def list_assessments(
         query["cursor"] = next_cursor
         headers["Link"] = f'</v1/assessments?{urlencode(query)}>; rel="next"'
     if wants_csv(request.headers.get("accept")):
-        body = to_csv(SUMMARY_COLUMNS, (
-            (r.id, r.created_at.isoformat(), r.model, r.version, r.verdict, r.n_series,
-             r.n_failed, r.n_warned, r.policy_name, r.policy_version) for r in rows
-        ))
+        body = to_csv(
+            SUMMARY_COLUMNS,
+            (
+                (
+                    r.id,
+                    r.created_at.isoformat(),
+                    r.model,
+                    r.version,
+                    r.verdict,
+                    r.n_series,
+                    r.n_failed,
+                    r.n_warned,
+                    r.policy_name,
+                    r.policy_version,
+                )
+                for r in rows
+            ),
+        )
         return conditional(request, body, CSV, headers)
     body = orjson.dumps({"items": [r.to_dict() for r in rows], "next_cursor": next_cursor})
     return conditional(request, body, JSON, headers)
@@ -244,14 +346,16 @@ def stored_or_404(request: Request, assessment_id: str) -> repo.StoredAssessment
     responses={304: {"description": "Not modified"}, **_READ_PROBLEMS},
 )
 def get_assessment(
-    request: Request, assessment_id: str,
+    request: Request,
+    assessment_id: str,
     principal: Annotated[Any, Depends(require("read"))],
 ) -> Response:
     return conditional(request, stored_or_404(request, assessment_id).to_json(), JSON)
 
 
-def series_rows(assessment_id: str, series: list[dict[str, Any]], check: str | None,
-                status: str | None) -> list[dict[str, Any]]:
+def series_rows(
+    assessment_id: str, series: list[dict[str, Any]], check: str | None, status: str | None
+) -> list[dict[str, Any]]:
     rows = []
     for s in series:
         for c in s.get("checks", ()):
@@ -259,14 +363,21 @@ def series_rows(assessment_id: str, series: list[dict[str, Any]], check: str | N
                 continue
             if status is not None and c.get("status") != status:
                 continue
-            rows.append({
-                "assessment_id": assessment_id, "series_id": s["id"],
-                "series_verdict": s.get("verdict"), "n_obs": s.get("n_obs"),
-                "check": c.get("name"), "status": c.get("status"),
-                "statistic": c.get("statistic"), "p_value": c.get("p_value"),
-                "p_adjusted": c.get("p_adjusted"), "message": c.get("message"),
-                "details": c.get("details") or {},
-            })
+            rows.append(
+                {
+                    "assessment_id": assessment_id,
+                    "series_id": s["id"],
+                    "series_verdict": s.get("verdict"),
+                    "n_obs": s.get("n_obs"),
+                    "check": c.get("name"),
+                    "status": c.get("status"),
+                    "statistic": c.get("statistic"),
+                    "p_value": c.get("p_value"),
+                    "p_adjusted": c.get("p_adjusted"),
+                    "message": c.get("message"),
+                    "details": c.get("details") or {},
+                }
+            )
     return rows
 
 
@@ -274,11 +385,15 @@ def series_rows(assessment_id: str, series: list[dict[str, Any]], check: str | N
     "/{assessment_id}/series",
     response_model=SeriesRowPage,
     summary="One flat row per series and check (JSON or CSV)",
-    responses={200: {"content": {"text/csv": {}}}, 304: {"description": "Not modified"},
-               **_READ_PROBLEMS},
+    responses={
+        200: {"content": {"text/csv": {}}},
+        304: {"description": "Not modified"},
+        **_READ_PROBLEMS,
+    },
 )
 def get_series_rows(
-    request: Request, assessment_id: str,
+    request: Request,
+    assessment_id: str,
     principal: Annotated[Any, Depends(require("read"))],
     check: Annotated[str | None, Query(description="only this check")] = None,
     status: Annotated[str | None, Query(description="only rows with this status")] = None,

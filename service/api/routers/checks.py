@@ -31,11 +31,13 @@ def catalogue() -> dict[str, Any]:
     return {"checks": checks, "default_policy": policy}
 
 
-@router.get("", response_model=CheckCatalogue, summary="The catalogue of checks",
-            responses=problem_docs(401, 403))
-def list_checks(
-    request: Request, principal: Annotated[Any, Depends(require("read"))]
-) -> Response:
+@router.get(
+    "",
+    response_model=CheckCatalogue,
+    summary="The catalogue of checks",
+    responses=problem_docs(401, 403),
+)
+def list_checks(request: Request, principal: Annotated[Any, Depends(require("read"))]) -> Response:
     import orjson
 
     return conditional(request, orjson.dumps(catalogue()), "application/json")

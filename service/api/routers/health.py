@@ -22,26 +22,37 @@ async def healthz() -> Response:
     return json_response({"status": "ok"})
 
 
-@router.get("/readyz", summary="Readiness: the database answers, at the schema this build needs",
-            responses={503: {"description": "database unreachable or schema not migrated"}})
+@router.get(
+    "/readyz",
+    summary="Readiness: the database answers, at the schema this build needs",
+    responses={503: {"description": "database unreachable or schema not migrated"}},
+)
 def readyz(request: Request) -> Response:
     engine = request.app.state.engine
     try:
         probe_database(engine)
         revision = current_revision(engine)
     except SQLAlchemyError as exc:
-        return problem(503, f"database unreachable: {type(exc).__name__}",
-                       headers={"Retry-After": str(RETRY_AFTER_SECONDS)})
+        return problem(
+            503,
+            f"database unreachable: {type(exc).__name__}",
+            headers={"Retry-After": str(RETRY_AFTER_SECONDS)},
+        )
     needed = head_revision()
     if revision != needed:
-        return problem(503, f"database schema is at revision {revision or 'none'}, this build "
-                       f"needs {needed}: run 'plumbline db upgrade'")
-    return json_response({"status": "ready", "database": engine.dialect.name,
-                          "schema_revision": revision})
+        return problem(
+            503,
+            f"database schema is at revision {revision or 'none'}, this build "
+            f"needs {needed}: run 'plumbline db upgrade'",
+        )
+    return json_response(
+        {"status": "ready", "database": engine.dialect.name, "schema_revision": revision}
+    )
 
 
-@router.get("/metrics", summary="Prometheus text format",
-            responses={200: {"content": {"text/plain": {}}}})
+@router.get(
+    "/metrics", summary="Prometheus text format", responses={200: {"content": {"text/plain": {}}}}
+)
 async def metrics(request: Request) -> Response:
     m = request.app.state.metrics  # rendering is in-memory work: on the event loop too
     return Response(m.render(), media_type=m.content_type)

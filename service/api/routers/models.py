@@ -24,18 +24,28 @@ MEETS = {"pass": frozenset({"pass"}), "warn": frozenset({"pass", "warn"})}
     "/{model:path}/verdict",
     response_model=ModelVerdict,
     summary="The latest verdict of a model (optionally of one version)",
-    responses={412: {"model": ModelVerdict, "description": "require not met: the same body as "
-                     "200, as problem+json", "content": {"application/problem+json": {}}},
-               **problem_docs(401, 403, 404, 422)},
+    responses={
+        412: {
+            "model": ModelVerdict,
+            "description": "require not met: the same body as 200, as problem+json",
+            "content": {"application/problem+json": {}},
+        },
+        **problem_docs(401, 403, 404, 422),
+    },
 )
 def latest_verdict(
     request: Request,
     model: str,
     principal: Annotated[Any, Depends(require("read"))],
     version: str | None = None,
-    require_: Annotated[str | None, Query(
-        alias="require", pattern="^(pass|warn)$",
-        description="pass: 200 only on pass; warn: 200 on pass or warn; else 412")] = None,
+    require_: Annotated[
+        str | None,
+        Query(
+            alias="require",
+            pattern="^(pass|warn)$",
+            description="pass: 200 only on pass; warn: 200 on pass or warn; else 412",
+        ),
+    ] = None,
 ) -> Response:
     found = repo.latest_assessment(request.app.state.engine, model=model, version=version)
     if found is None:
@@ -57,6 +67,10 @@ def latest_verdict(
     if met:
         return json_response(body)
     allowed = " or ".join(sorted(MEETS[require_], reverse=True))
-    raise ApiError(412, f"the latest verdict of {model!r} version {found.version!r} is "
-                   f"{found.verdict!r}; require={require_} needs {allowed}",
-                   slug="require-not-met", extra=body)
+    raise ApiError(
+        412,
+        f"the latest verdict of {model!r} version {found.version!r} is "
+        f"{found.verdict!r}; require={require_} needs {allowed}",
+        slug="require-not-met",
+        extra=body,
+    )

@@ -30,8 +30,13 @@ MAX_POLICY_BYTES = 1024 * 1024
 
 def _builtin_out() -> dict[str, Any]:
     policy = builtin_default()
-    return {"name": policy.name, "version": policy.version, "created_at": None,
-            "builtin": True, "document": policy.to_dict()}
+    return {
+        "name": policy.name,
+        "version": policy.version,
+        "created_at": None,
+        "builtin": True,
+        "document": policy.to_dict(),
+    }
 
 
 def _out(stored: repo.StoredPolicy) -> dict[str, Any]:
@@ -41,9 +46,12 @@ def _out(stored: repo.StoredPolicy) -> dict[str, Any]:
 def _create(engine: Any, doc: dict[str, Any]) -> repo.StoredPolicy:
     name = doc.get("name")
     if not isinstance(name, str) or not valid_name(name):
-        raise ApiError(422, "name: a policy needs a name of letters, digits, '.', '_' or '-' "
-                       "(at most 100, starting with a letter or digit)",
-                       errors=[{"loc": "name", "message": f"must match {NAME_PATTERN}"}])
+        raise ApiError(
+            422,
+            "name: a policy needs a name of letters, digits, '.', '_' or '-' "
+            "(at most 100, starting with a letter or digit)",
+            errors=[{"loc": "name", "message": f"must match {NAME_PATTERN}"}],
+        )
     # The store assigns the version; the gate validates the rest.
     candidate = {k: v for k, v in doc.items() if k != "version"}
     policy = policy_from_document(candidate, loc="")
@@ -71,16 +79,25 @@ async def post_policy(
     raw = await read_body(request, MAX_POLICY_BYTES)
     doc = load_json(raw)
     if not isinstance(doc, dict):
-        raise ApiError(422, "body must be a policy object",
-                       errors=[{"loc": "body", "message": "must be a JSON object"}])
+        raise ApiError(
+            422,
+            "body must be a policy object",
+            errors=[{"loc": "body", "message": "must be a JSON object"}],
+        )
     stored = await run_in_threadpool(_create, request.app.state.engine, doc)
-    return json_response(_out(stored), status=201,
-                         headers={"Location": f"/v1/policies/{stored.name}?version="
-                                  f"{stored.version}"})
+    return json_response(
+        _out(stored),
+        status=201,
+        headers={"Location": f"/v1/policies/{stored.name}?version={stored.version}"},
+    )
 
 
-@router.get("", response_model=PolicyList, summary="The newest version of every policy",
-            responses=problem_docs(401, 403))
+@router.get(
+    "",
+    response_model=PolicyList,
+    summary="The newest version of every policy",
+    responses=problem_docs(401, 403),
+)
 def list_policies(
     request: Request, principal: Annotated[Any, Depends(require("read"))]
 ) -> Response:
@@ -91,9 +108,12 @@ def list_policies(
     return json_response({"items": items})
 
 
-@router.get("/{name}", response_model=StoredPolicyOut,
-            summary="A policy: its newest version, or ?version=N",
-            responses=problem_docs(401, 403, 404, 422))
+@router.get(
+    "/{name}",
+    response_model=StoredPolicyOut,
+    summary="A policy: its newest version, or ?version=N",
+    responses=problem_docs(401, 403, 404, 422),
+)
 def get_policy(
     request: Request,
     name: str,

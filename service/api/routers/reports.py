@@ -39,19 +39,24 @@ _CACHE_LOCK = threading.Lock()
 
 # Declared for the OpenAPI document; read (and checked) by _admit. Kept as text so that a
 # malformed value is a refused link (403), not a validation error.
-Expires = Annotated[str | None, Query(
-    description="Signed link: expiry in Unix seconds (with signature, instead of a token)")]
-Signature = Annotated[str | None, Query(
-    description="Signed link: HMAC-SHA256 signature from POST /v1/assessments/{id}/links")]
+Expires = Annotated[
+    str | None,
+    Query(description="Signed link: expiry in Unix seconds (with signature, instead of a token)"),
+]
+Signature = Annotated[
+    str | None,
+    Query(description="Signed link: HMAC-SHA256 signature from POST /v1/assessments/{id}/links"),
+]
 
 
 class LinkRequest(BaseModel):
     model_config = ConfigDict(extra="forbid")
 
     ttl_seconds: int | None = Field(
-        default=None, ge=1,
+        default=None,
+        ge=1,
         description="How long the link stays valid; default and maximum: the server's "
-                    "link_ttl_seconds setting (7 days unless configured).",
+        "link_ttl_seconds setting (7 days unless configured).",
     )
 
 
@@ -79,8 +84,11 @@ def link_secret(request: Request) -> str:
                     )
                     state.link_secret = secret
     if len(secret.encode()) < links.MIN_SECRET_LENGTH:
-        raise ApiError(503, f"report links are not available: the link secret must be at least "
-                       f"{links.MIN_SECRET_LENGTH} bytes (PLUMBLINE_LINK_SECRET)")
+        raise ApiError(
+            503,
+            f"report links are not available: the link secret must be at least "
+            f"{links.MIN_SECRET_LENGTH} bytes (PLUMBLINE_LINK_SECRET)",
+        )
     return secret
 
 
@@ -104,8 +112,10 @@ async def _admit(request: Request, assessment_id: str) -> str:
     if any(p in params for p in LINK_PARAMS):
         try:
             link = links.verify_link(
-                secret=link_secret(request), assessment_id=assessment_id,
-                expires=params.get("expires"), signature=params.get("signature"),
+                secret=link_secret(request),
+                assessment_id=assessment_id,
+                expires=params.get("expires"),
+                signature=params.get("signature"),
             )
         except links.LinkExpired as exc:
             raise ApiError(403, exc.reason, slug="link-expired", title="Link expired") from None
@@ -124,13 +134,17 @@ def _report_path(request: Request, assessment_id: str) -> str:
 def _html(text: str) -> Response:
     from service.report import CONTENT_SECURITY_POLICY
 
-    return Response(text, media_type=HTML, headers={
-        "Content-Security-Policy": CONTENT_SECURITY_POLICY,
-        "X-Content-Type-Options": "nosniff",
-        "Referrer-Policy": "no-referrer",
-        "X-Frame-Options": "DENY",
-        "Cache-Control": "private, no-store",
-    })
+    return Response(
+        text,
+        media_type=HTML,
+        headers={
+            "Content-Security-Policy": CONTENT_SECURITY_POLICY,
+            "X-Content-Type-Options": "nosniff",
+            "Referrer-Policy": "no-referrer",
+            "X-Frame-Options": "DENY",
+            "Cache-Control": "private, no-store",
+        },
+    )
 
 
 @router.get(
@@ -170,16 +184,21 @@ def _inputs_of(request: Request, assessment_id: str, series_id: str) -> Any:
                 actuals=np.asarray(s.actuals, dtype=float),
                 fitted=np.asarray(s.fitted, dtype=float),
                 timestamps=None if s.timestamps is None else tuple(s.timestamps),
-                holdout_actuals=None if s.holdout_actuals is None
+                holdout_actuals=None
+                if s.holdout_actuals is None
                 else np.asarray(s.holdout_actuals, dtype=float),
-                holdout_forecasts=None if s.holdout_forecasts is None
+                holdout_forecasts=None
+                if s.holdout_forecasts is None
                 else np.asarray(s.holdout_forecasts, dtype=float),
-                holdout_lower=None if s.holdout_lower is None
+                holdout_lower=None
+                if s.holdout_lower is None
                 else np.asarray(s.holdout_lower, dtype=float),
-                holdout_upper=None if s.holdout_upper is None
+                holdout_upper=None
+                if s.holdout_upper is None
                 else np.asarray(s.holdout_upper, dtype=float),
                 level=s.holdout_level,
-                holdout_timestamps=None if s.holdout_timestamps is None
+                holdout_timestamps=None
+                if s.holdout_timestamps is None
                 else tuple(s.holdout_timestamps),
             )
     return None
@@ -192,7 +211,10 @@ def _inputs_of(request: Request, assessment_id: str, series_id: str) -> Any:
     responses={200: {"content": {"text/html": {}}}, **_PROBLEMS},
 )
 async def get_series_report(
-    request: Request, assessment_id: str, series_id: str, expires: Expires = None,
+    request: Request,
+    assessment_id: str,
+    series_id: str,
+    expires: Expires = None,
     signature: Signature = None,
 ) -> Response:
     """Residuals over time, residual ACF with its bounds and the Ljung-Box lags, histogram with
@@ -227,14 +249,22 @@ async def get_series_report(
             if inputs is None:
                 raise ApiError(404, f"the inputs of series {series_id!r} were not stored")
             diag = series_diagnostics(
-                inputs, entry, season_length=int(head.get("season_length") or 1),
+                inputs,
+                entry,
+                season_length=int(head.get("season_length") or 1),
                 model_params=int(head.get("model_params") or 0),
             )
             return render_charts(diag)
 
         charts = _chart_cache(request).get_or_render((assessment_id, series_id), draw)
-        return render_series(head, entry, charts, report_href=base + suffix,
-                             previous=page_of(before), following=page_of(after))
+        return render_series(
+            head,
+            entry,
+            charts,
+            report_href=base + suffix,
+            previous=page_of(before),
+            following=page_of(after),
+        )
 
     return _html(await run_in_threadpool(work))
 
@@ -257,14 +287,21 @@ async def create_link(
     ttl = settings.link_ttl_seconds
     if body is not None and body.ttl_seconds is not None:
         if body.ttl_seconds > ttl:
-            raise ApiError(422, f"ttl_seconds: at most {ttl} (the server's link_ttl_seconds)",
-                           errors=[{"loc": "ttl_seconds", "message": f"must be at most {ttl}"}])
+            raise ApiError(
+                422,
+                f"ttl_seconds: at most {ttl} (the server's link_ttl_seconds)",
+                errors=[{"loc": "ttl_seconds", "message": f"must be at most {ttl}"}],
+            )
         ttl = body.ttl_seconds
     await run_in_threadpool(stored_or_404, request, assessment_id)
-    link = links.sign_link(secret=link_secret(request), assessment_id=assessment_id,
-                           ttl_seconds=ttl)
+    link = links.sign_link(
+        secret=link_secret(request), assessment_id=assessment_id, ttl_seconds=ttl
+    )
     # base_url already carries the app's root path.
-    url = (f"{str(request.base_url).rstrip('/')}/v1/assessments/"
-           f"{quote(assessment_id, safe='')}/report?{link.query}")
-    return json_response({"url": url, "expires_at": link.expires_at,
-                          "assessment_id": assessment_id})
+    url = (
+        f"{str(request.base_url).rstrip('/')}/v1/assessments/"
+        f"{quote(assessment_id, safe='')}/report?{link.query}"
+    )
+    return json_response(
+        {"url": url, "expires_at": link.expires_at, "assessment_id": assessment_id}
+    )

@@ -20,10 +20,14 @@ router = APIRouter(prefix="/v1/tokens", tags=["tokens"])
 MAX_TOKEN_BODY = 16 * 1024
 
 
-@router.post("", status_code=201, response_model=TokenCreated,
-             summary="Mint a token; its secret is shown in this response only",
-             responses=problem_docs(400, 401, 403, 413, 415, 422),
-             openapi_extra=json_body_doc("TokenRequest"))
+@router.post(
+    "",
+    status_code=201,
+    response_model=TokenCreated,
+    summary="Mint a token; its secret is shown in this response only",
+    responses=problem_docs(400, 401, 403, 413, 415, 422),
+    openapi_extra=json_body_doc("TokenRequest"),
+)
 async def create_token(
     request: Request, principal: Annotated[Any, Depends(require("admin"))]
 ) -> Response:
@@ -32,24 +36,36 @@ async def create_token(
     record, secret = await run_in_threadpool(
         lambda: repo.create_token(request.app.state.engine, scopes=scopes, label=wanted.label)
     )
-    return json_response({"id": record.id, "token": secret, "scopes": list(record.scopes),
-                          "label": record.label, "created_at": record.created_at.isoformat()},
-                         status=201)
+    return json_response(
+        {
+            "id": record.id,
+            "token": secret,
+            "scopes": list(record.scopes),
+            "label": record.label,
+            "created_at": record.created_at.isoformat(),
+        },
+        status=201,
+    )
 
 
-@router.get("", response_model=TokenList, summary="Tokens (never their secrets)",
-            responses=problem_docs(401, 403))
-def list_tokens(
-    request: Request, principal: Annotated[Any, Depends(require("admin"))]
-) -> Response:
-    return json_response({"items": [t.to_dict() for t in repo.list_tokens(
-        request.app.state.engine)]})
+@router.get(
+    "",
+    response_model=TokenList,
+    summary="Tokens (never their secrets)",
+    responses=problem_docs(401, 403),
+)
+def list_tokens(request: Request, principal: Annotated[Any, Depends(require("admin"))]) -> Response:
+    return json_response(
+        {"items": [t.to_dict() for t in repo.list_tokens(request.app.state.engine)]}
+    )
 
 
-@router.delete("/{token_id}", status_code=204, summary="Revoke a token",
-               responses=problem_docs(401, 403, 404))
+@router.delete(
+    "/{token_id}", status_code=204, summary="Revoke a token", responses=problem_docs(401, 403, 404)
+)
 def revoke_token(
-    request: Request, token_id: str,
+    request: Request,
+    token_id: str,
     principal: Annotated[Any, Depends(require("admin"))],
 ) -> Response:
     if not repo.revoke_token(request.app.state.engine, token_id=token_id):

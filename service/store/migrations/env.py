@@ -17,14 +17,14 @@ def run_migrations_online() -> None:
 
         engine = make_engine(config.get_main_option("sqlalchemy.url"))
         with engine.begin() as conn:
-            context.configure(connection=conn, target_metadata=target_metadata,
-                              render_as_batch=True)
+            context.configure(
+                connection=conn, target_metadata=target_metadata, render_as_batch=True
+            )
             with context.begin_transaction():
                 context.run_migrations()
         engine.dispose()
         return
-    context.configure(connection=connection, target_metadata=target_metadata,
-                      render_as_batch=True)
+    context.configure(connection=connection, target_metadata=target_metadata, render_as_batch=True)
     with context.begin_transaction():
         context.run_migrations()
 

@@ -37,8 +37,12 @@ def upgrade() -> None:
     op.create_index("ix_assessments_model_version_seq", "assessments", ["model", "version", "seq"])
     op.create_table(
         "series_results",
-        sa.Column("assessment_seq", sa.Integer(),
-                  sa.ForeignKey("assessments.seq", ondelete="CASCADE"), primary_key=True),
+        sa.Column(
+            "assessment_seq",
+            sa.Integer(),
+            sa.ForeignKey("assessments.seq", ondelete="CASCADE"),
+            primary_key=True,
+        ),
         sa.Column("position", sa.Integer(), primary_key=True),
         sa.Column("series_id", sa.String(200), nullable=False),
         sa.Column("verdict", sa.String(8), nullable=False),
@@ -47,8 +51,12 @@ def upgrade() -> None:
     )
     op.create_table(
         "series_inputs",
-        sa.Column("assessment_seq", sa.Integer(),
-                  sa.ForeignKey("assessments.seq", ondelete="CASCADE"), primary_key=True),
+        sa.Column(
+            "assessment_seq",
+            sa.Integer(),
+            sa.ForeignKey("assessments.seq", ondelete="CASCADE"),
+            primary_key=True,
+        ),
         sa.Column("position", sa.Integer(), primary_key=True),
         sa.Column("series_id", sa.String(200), nullable=False),
         sa.Column("weight", sa.Float(), nullable=True),
@@ -84,8 +92,12 @@ def upgrade() -> None:
         "idempotency_keys",
         sa.Column("key", sa.String(200), primary_key=True),
         sa.Column("body_hash", sa.String(64), nullable=False),
-        sa.Column("assessment_seq", sa.Integer(),
-                  sa.ForeignKey("assessments.seq", ondelete="CASCADE"), nullable=False),
+        sa.Column(
+            "assessment_seq",
+            sa.Integer(),
+            sa.ForeignKey("assessments.seq", ondelete="CASCADE"),
+            nullable=False,
+        ),
         sa.Column("created_at", sa.DateTime(timezone=True), nullable=False),
     )
 
