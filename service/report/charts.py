@@ -320,7 +320,8 @@ _SPECS: dict[str, tuple[str, _Draw, _Caption]] = {
         _histogram,
         lambda d: (
             "Histogram of the residuals (as a density) with the normal density of the "
-            "same mean and standard deviation. Heavy tails or skew show as departures from the curve."
+            "same mean and standard deviation. Heavy tails or skew show as departures "
+            "from the curve."
         ),
     ),
     "fitted": (
@@ -328,7 +329,8 @@ _SPECS: dict[str, tuple[str, _Draw, _Caption]] = {
         _fitted,
         lambda d: (
             "Each dot is one period. A spread that widens as the fitted level grows "
-            "suggests errors proportional to the level (a log or multiplicative model may fit better)."
+            "suggests errors proportional to the level (a log or multiplicative model "
+            "may fit better)."
         ),
     ),
     "holdout": (
