@@ -3,22 +3,22 @@
 No web framework, database or pydantic import lives here; the API, store and CLI wrap it.
 """
 
-from .accuracy import mase, naive_scale
-from .autocorrelation import autocorrelations, ljung_box, portmanteau_lags, portmanteau_q
 from .batch import Holdout, Residuals, SeriesBatch, make_batch, residuals_of
-from .benchmarks import BENCHMARKS, benchmark_forecasts, benchmark_skill
-from .bias import bias, hac_variance_of_mean, newey_west_lags, tracking_signal
 from .catalogue import CATALOGUE, CHECK_NAMES, CheckSpec
-from .checks import CHECK_OPTIONS, BatchChecks, run_checks
+from .checks.accuracy import mase, naive_scale
+from .checks.autocorrelation import autocorrelations, ljung_box, portmanteau_lags, portmanteau_q
+from .checks.benchmarks import BENCHMARKS, benchmark_forecasts, benchmark_skill
+from .checks.bias import bias, hac_variance_of_mean, newey_west_lags, tracking_signal
+from .checks.intervals import interval_coverage, kupiec_lr, winkler_scores
+from .checks.normality import jarque_bera
+from .checks.sufficiency import data_sufficiency
+from .checks.variance import arch_lags, arch_lm
 from .gate import Assessment, assess
-from .intervals import interval_coverage, kupiec_lr, winkler_scores
 from .multiple import benjamini_hochberg
-from .normality import jarque_bera
 from .policy import Policy, PolicyError, default_policy
 from .results import CheckResult, Status
-from .sufficiency import data_sufficiency
+from .runner import CHECK_OPTIONS, BatchChecks, run_checks
 from .types import InputError
-from .variance import arch_lags, arch_lm
 
 __all__ = [
     "BENCHMARKS",

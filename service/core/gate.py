@@ -11,7 +11,8 @@ Steps, all vectorised over series:
 4. Per check over the fleet: tested, failed and warned counts and the weighted shares; the check
    fails the fleet when its failed share exceeds the fail share, warns when its warned-or-failed
    share exceeds the warn share; a critical series' fail fails it, a critical warn warns it.
-5. The fleet verdict is the worst check; an aggregate bias with ``p < fleet.bias_warn_p`` warns.
+5. The fleet verdict is the worst check and of the fleet-level statistics the checks declare
+   (the fleet bias warns when ``p < fleet.bias_warn_p``).
 
 A verdict is statistical evidence under the stated assumptions, not a guarantee.
 """
@@ -25,16 +26,22 @@ from typing import Any
 import numpy as np
 
 from .batch import SeriesBatch, stack_batches, stack_key
-from .catalogue import CHECK_NAMES
-from .checks import BatchChecks, run_checks
-from .messages import fleet_message, pass_message, series_message
+from .messages import fleet_message, pass_message
 from .multiple import benjamini_hochberg_rows
 from .policy import CheckPolicy, Policy
-from .results import Status, to_python
-from .tails import norm_sf_two_sided
+from .registry import (
+    FAIL,
+    PASS,
+    SKIPPED,
+    WARN,
+    Finding,
+    FleetFinding,
+    all_checks,
+    checks_by_name,
+)
+from .results import Status
+from .runner import BatchChecks, run_checks
 
-# Integer status codes so statuses combine with ``max``.
-SKIPPED, PASS, WARN, FAIL = 0, 1, 2, 3
 _STATUS = np.array(
     [Status.SKIPPED.value, Status.PASS.value, Status.WARN.value, Status.FAIL.value], dtype=object
 )
@@ -88,38 +95,6 @@ class CheckSummary:
         }
 
 
-@dataclass(frozen=True)
-class FleetBias:
-    """Aggregate bias over the fleet.
-
-    ``mean_error`` is the weighted mean of the series' mean errors (the policy's weighting),
-    ``percent_bias`` is ``100 sum(e) / sum|y|`` pooled over every residual period (so volume
-    weighted), ``std_error`` is ``sqrt(sum w_i^2 SE_i^2) / sum w_i`` with the series' HAC
-    standard errors, which treats series as independent; ``statistic = mean_error / std_error``
-    and ``p_value`` is two-sided normal.
-    """
-
-    mean_error: float
-    percent_bias: float
-    std_error: float
-    statistic: float
-    p_value: float
-    series_used: int
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            k: to_python(getattr(self, k))
-            for k in (
-                "mean_error",
-                "percent_bias",
-                "std_error",
-                "statistic",
-                "p_value",
-                "series_used",
-            )
-        }
-
-
 @dataclass(frozen=True, eq=False)
 class Assessment:
     """The gate's full result over one batch."""
@@ -133,7 +108,8 @@ class Assessment:
     series_codes: np.ndarray
     summaries: tuple[CheckSummary, ...]
     reasons: tuple[Reason, ...]
-    fleet_bias: FleetBias
+    fleet: Mapping[str, FleetFinding]
+    """The fleet-level statistics the checks declare, by key (``fleet["bias"]``)."""
 
     @property
     def ids(self) -> tuple[str, ...]:
@@ -201,12 +177,10 @@ def _codes(
     codes = np.where(
         (v < lo_fail) | (v > hi_fail), FAIL, np.where((v < lo_warn) | (v > hi_warn), WARN, PASS)
     )
-    if "interval_coverage" in names:
-        # Intervals too wide waste width but do not mislead: at most a warning.
-        j = names.index("interval_coverage")
-        r = checks[j]
-        too_wide = r.details["coverage"] > r.details["level"]
-        codes[j] = np.where(too_wide & (codes[j] == FAIL), WARN, codes[j])
+    for j, name in enumerate(names):
+        cap = checks_by_name()[name].cap
+        if cap is not None:
+            codes[j] = cap(checks[j], codes[j])
     return np.where(skipped, SKIPPED, codes), p_adj
 
 
@@ -223,46 +197,12 @@ def _shares(weights: np.ndarray, hit: np.ndarray, tested: np.ndarray) -> np.ndar
         )
 
 
-_NO_FLEET_BIAS = FleetBias(*(float("nan"),) * 5, series_used=0)
-
-
-def _fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
-    if "bias" not in checks.checks:
-        return _NO_FLEET_BIAS
-    b = checks["bias"]
-    me, se = b.details["mean_error"], b.details["std_error"]
-    use = np.isfinite(me) & np.isfinite(se)
-    w = weights[use]
-    total = w.sum()
-    if total <= 0:
-        w, total = np.ones(int(use.sum())), float(use.sum())
-    if total == 0:
-        return _NO_FLEET_BIAS
-    res = checks.residuals
-    observed = res.observed[use]
-    pooled_e = np.where(observed, res.values[use], 0.0).sum()
-    pooled_y = np.where(observed, np.abs(checks.batch.actuals[use]), 0.0).sum()
-    # Weighted mean and its standard error sqrt(sum w^2 SE^2) / sum w, computed with the
-    # weight shares and the largest term factored out, so values near the accepted magnitude
-    # neither overflow nor underflow.
-    share = w / total
-    mean = float((share * me[use]).sum())
-    spread = np.abs(share * se[use])
-    peak = float(spread.max(initial=0.0))
-    std = peak * float(np.sqrt(np.square(spread / peak).sum())) if peak > 0 else 0.0
-    with np.errstate(invalid="ignore", divide="ignore"):
-        z = mean / std if std > 0 else (np.sign(mean) * np.inf if mean else np.nan)
-        pct = float(100.0 * pooled_e / pooled_y) if pooled_y > 0 else float("nan")
-    p = float(norm_sf_two_sided(z)) if z == z else float("nan")  # z == z: not NaN
-    return FleetBias(mean, pct, std, float(z), p, int(use.sum()))
-
-
 def _plan(
     policy: Policy,
 ) -> tuple[dict[str, CheckPolicy], tuple[str, ...], dict[str, dict[str, Any]]]:
     """The policy's settings per check, the checks it enables and their options."""
-    cps_all = {name: policy.check(name) for name in CHECK_NAMES}
-    enabled = tuple(name for name in CHECK_NAMES if cps_all[name].enabled)
+    cps_all = {c.name: policy.check(c.name) for c in all_checks()}
+    enabled = tuple(name for name, cp in cps_all.items() if cp.enabled)
     return cps_all, enabled, {n: cps_all[n].options() for n in enabled}
 
 
@@ -353,7 +293,7 @@ def _decide_parts(
         critical = np.zeros(batch.n_series, dtype=bool)
 
     fleet = policy.fleet
-    names = [name for name in CHECK_NAMES if name in stacked.checks]
+    names = [c.name for c in all_checks() if c.name in stacked.checks]
     cps = [cps_all[name] for name in names]
     if names:
         matrix, p_matrix = _codes(stacked, names, cps, adjust, size)
@@ -440,24 +380,21 @@ def _decide_parts(
                 name,
                 _STATUS_ENUM[c],
                 part.ids[i],
-                series_message(name, rows.start + i, c, stacked[name], p_matrix[j]),
+                checks_by_name()[name].reason(
+                    Finding(stacked[name], rows.start + i, c, p_matrix[j])
+                ),
             )
             series_reasons.append((c, -float(part_weights[i]), i, reason))
         codes = dict(zip(names, matrix[:, rows], strict=True))
         p_adjusted = dict(zip(names, p_matrix[:, rows], strict=True))
         # Codes order as severities: fail > warn > pass > skipped.
         fleet_code = max(int(status[:, g].max(initial=PASS)), PASS)
-        bias_summary = _fleet_bias(results, part_weights)
-        bias_p = policy.fleet.bias_warn_p
-        if (
-            bias_p is not None
-            and np.isfinite(bias_summary.p_value)
-            and bias_summary.p_value < bias_p
-        ):
-            fleet_code = max(fleet_code, WARN)
-            fleet_reasons.append(
-                (WARN, Reason("bias", Status.WARN, None, _fleet_bias_message(bias_summary)))
-            )
+        fleet = _fleet_findings(results, part_weights, policy)
+        for name, finding in fleet.values():
+            if finding.code >= WARN:
+                fleet_code = max(fleet_code, finding.code)
+                level = _STATUS_ENUM[finding.code]
+                fleet_reasons.append((finding.code, Reason(name, level, None, finding.message)))
         fleet_reasons.sort(key=lambda r: -r[0])
         series_reasons.sort(key=lambda r: (-r[0], r[1], r[2]))
         ordered: list[Reason] = []
@@ -475,7 +412,7 @@ def _decide_parts(
                 series_codes=series_codes_all[rows],
                 summaries=tuple(summaries),
                 reasons=tuple(ordered),
-                fleet_bias=bias_summary,
+                fleet={key: finding for key, (_, finding) in fleet.items()},
             )
         )
     return _Decided(
@@ -487,15 +424,21 @@ def _decide_parts(
     )
 
 
-def _fleet_bias_message(b: FleetBias) -> str:
-    direction = "low" if b.mean_error > 0 else "high"
-    return (
-        f"Across the fleet the forecasts run {direction}: the weighted mean error is "
-        f"{b.mean_error:+.3g} ({b.percent_bias:+.2f}% of volume; z = {b.statistic:.2f}, "
-        f"p = {b.p_value:.2g}, series taken as independent). No single series need be "
-        "significant for this to matter in aggregate: check for a shared level shift or a "
-        "biased transformation."
-    )
+def _fleet_findings(
+    results: BatchChecks, weights: np.ndarray, policy: Policy
+) -> dict[str, tuple[str, FleetFinding]]:
+    """Every fleet-level statistic the registered checks declare, by key, with the name of
+    the check that declares it: computed when that check ran, else its empty value."""
+    out = {}
+    for check in all_checks():
+        if check.fleet is not None:
+            test = check.fleet
+            ran = check.name in results.checks
+            out[test.key] = (
+                check.name,
+                test.compute(results, weights, policy) if ran else test.empty,
+            )
+    return out
 
 
 # ------------------------------------------------------------------------------ serialisation
@@ -597,29 +540,25 @@ def _rendered(d: _Decided) -> list[dict[str, Any]]:
             ]
         )
     n_obs = results.residuals.n_obs.tolist()
-    bias_cols = columns.get("bias")
-    ts_cols = columns.get("tracking_signal")
-    if bias_cols is not None:
-        tracking = ts_cols["statistic"] if ts_cols else [None] * n
-        bias_keys = (
-            "mean_error",
-            "std_error",
-            "ci_low",
-            "ci_high",
-            "percent_bias",
-            "tracking_signal",
-        )
-        bias_rows: list[dict[str, Any] | None] = [
-            dict(zip(bias_keys, row, strict=True))
-            for row in zip(*(bias_cols[f"d:{k}"] for k in bias_keys[:-1]), tracking, strict=True)
-        ]
-    else:
-        bias_rows = [None] * n
+    sections = {
+        check.section.key: _section_rows(check.name, check.section.fields, columns, n)
+        for check in all_checks()
+        if check.section is not None
+    }
     checks_rows = map(list, zip(*per_check, strict=True)) if per_check else ([] for _ in range(n))
+    keys = tuple(sections)
+    per_series = zip(*sections.values(), strict=True) if keys else ([()] * n)
     series = [
-        {"id": sid, "verdict": v, "n_obs": k, "weight": w, "bias": b, "checks": c}
-        for sid, v, k, w, b, c in zip(
-            results.batch.ids, verdicts, n_obs, weights, bias_rows, checks_rows, strict=True
+        {
+            "id": sid,
+            "verdict": v,
+            "n_obs": k,
+            "weight": w,
+            **dict(zip(keys, parts, strict=True)),
+            "checks": c,
+        }
+        for sid, v, k, w, parts, c in zip(
+            results.batch.ids, verdicts, n_obs, weights, per_series, checks_rows, strict=True
         )
     ]
     out = []
@@ -638,9 +577,28 @@ def _rendered(d: _Decided) -> list[dict[str, Any]]:
                     "n_failed": n_failed,
                     "n_warned": n_warned,
                     "n_passed": size - n_failed - n_warned,
-                    "bias": a.fleet_bias.to_dict(),
+                    **{key: finding.result.to_dict() for key, finding in a.fleet.items()},
                 },
                 "series": series[g * size : (g + 1) * size],
             }
         )
     return out
+
+
+def _section_rows(
+    owner: str,
+    fields: tuple[tuple[str, str, str], ...],
+    columns: Mapping[str, Mapping[str, Sequence[Any]]],
+    n: int,
+) -> list[dict[str, Any] | None]:
+    """One series-row section per series (``None`` throughout when its owner did not run)."""
+    if owner not in columns:
+        return [None] * n
+    keys = tuple(key for key, _, _ in fields)
+    values = [
+        columns[check]["statistic" if column == "statistic" else f"d:{column}"]
+        if check in columns
+        else [None] * n
+        for _, check, column in fields
+    ]
+    return [dict(zip(keys, row, strict=True)) for row in zip(*values, strict=True)]

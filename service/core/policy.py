@@ -9,9 +9,9 @@ which series are critical. It round-trips through JSON unchanged: ``Policy.from_
 Default values (``default_policy``) follow the forecaster's hierarchy: uncorrelated residuals and
 a zero mean are essential (``ljung_box`` and ``bias`` can fail a model), constant variance and
 normality are useful but not essential (``arch_lm`` and ``jarque_bera`` only warn; what they
-threaten, the intervals, ``interval_coverage`` checks directly). The thresholds are this project's
-choices, marked in ``DEFAULT_CHECKS``; the simulation study in ``tests/perf`` measures what they
-give.
+threaten, the intervals, ``interval_coverage`` checks directly). Each check's default rule is
+declared beside the check (``CheckDef.rule``), with the reason for it; the simulation study in
+``tests/perf`` measures what they give.
 """
 
 from __future__ import annotations
@@ -21,22 +21,13 @@ from collections.abc import Mapping
 from dataclasses import dataclass, field, fields, replace
 from typing import Any, Literal
 
-from .catalogue import CHECK_NAMES, SPECS
-from .checks import CHECK_OPTIONS
+from .registry import CheckPolicy, all_checks, check_names, checks_by_name
 from .types import InputError
 
 Weighting = Literal["volume", "count", "given"]
 Adjustment = Literal["bh", "none"]
 WEIGHTINGS = ("volume", "count", "given")
 ADJUSTMENTS = ("bh", "none")
-
-# Threshold fields each kind of check accepts.
-TEST_THRESHOLDS = ("warn_p", "fail_p")
-METRIC_THRESHOLDS: Mapping[str, tuple[str, ...]] = {
-    "data_sufficiency": ("warn_below", "fail_below"),
-    "mase": ("warn_above", "fail_above"),
-    "benchmark_skill": ("warn_below", "fail_below"),
-}
 
 
 class PolicyError(InputError):
@@ -48,39 +39,6 @@ class PolicyError(InputError):
         first = errors[0]
         super().__init__(first["loc"], first["message"])
         self.args = ("; ".join(f"{e['loc']}: {e['message']}" for e in errors),)
-
-
-@dataclass(frozen=True)
-class CheckPolicy:
-    """How one check is run and judged. Unused thresholds are ``None``.
-
-    For tests, a series warns when its p-value (BH-adjusted across series when ``adjust``) is
-    below ``warn_p`` and fails below ``fail_p``. For metrics, ``*_above``/``*_below`` bound the
-    statistic. ``warn_share``/``fail_share`` override the fleet's shares for this check.
-    """
-
-    enabled: bool = True
-    warn_p: float | None = None
-    fail_p: float | None = None
-    warn_above: float | None = None
-    fail_above: float | None = None
-    warn_below: float | None = None
-    fail_below: float | None = None
-    adjust: bool = True
-    warn_share: float | None = None
-    fail_share: float | None = None
-    min_obs: int | None = None
-    lags: int | None = None
-    window: int | None = None
-    hac_lags: int | None = None
-
-    def options(self) -> dict[str, Any]:
-        """Keyword options for the statistic (``service.core.run_checks``)."""
-        return {
-            k: getattr(self, k)
-            for k in ("min_obs", "lags", "window", "hac_lags")
-            if getattr(self, k) is not None
-        }
 
 
 @dataclass(frozen=True)
@@ -103,27 +61,9 @@ class FleetPolicy:
     bias_warn_p: float | None = 0.01
 
 
-# Project defaults (common practice where marked; the rest are this project's choices).
-DEFAULT_CHECKS: Mapping[str, CheckPolicy] = {
-    # Fewer than 20 residuals leaves most tests with little power (common practice).
-    "data_sufficiency": CheckPolicy(warn_below=20),
-    # Essential properties: warn at adjusted p < 0.05, fail at < 0.01.
-    "bias": CheckPolicy(warn_p=0.05, fail_p=0.01),
-    "ljung_box": CheckPolicy(warn_p=0.05, fail_p=0.01),
-    # Recent bias warns, never fails, by default.
-    "tracking_signal": CheckPolicy(warn_p=0.01),
-    # Useful but not essential: warn only.
-    "arch_lm": CheckPolicy(warn_p=0.01),
-    "jarque_bera": CheckPolicy(warn_p=0.01),
-    # MASE above 1: worse than the in-sample naive forecast (Hyndman & Koehler 2006).
-    # Holdout metrics carry no p-value to adjust, and one short holdout makes a single series'
-    # figure noisy, so the fleet judges them by larger shares than the tests.
-    "mase": CheckPolicy(warn_above=1.0, fail_above=2.0, warn_share=0.25, fail_share=0.10),
-    # Worse than the best simple benchmark fails the series; the fleet warns when more than
-    # 10% of its weight loses to a benchmark and fails beyond 25%.
-    "benchmark_skill": CheckPolicy(fail_below=0.0, warn_share=0.10, fail_share=0.25),
-    "interval_coverage": CheckPolicy(warn_p=0.05, fail_p=0.01),
-}
+# Each check's default rule, declared beside the check (common practice where marked there;
+# the rest are this project's choices).
+DEFAULT_CHECKS: Mapping[str, CheckPolicy] = {c.name: c.rule for c in all_checks()}
 
 
 @dataclass(frozen=True)
@@ -149,23 +89,22 @@ class Policy:
 
     @property
     def enabled_checks(self) -> tuple[str, ...]:
-        return tuple(n for n in CHECK_NAMES if self.check(n).enabled)
-
-    def with_version(self, version: int) -> Policy:
-        return replace(self, version=version)
+        return tuple(n for n in check_names() if self.check(n).enabled)
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-serialisable form; unused (``None``) fields are left out."""
         checks = {}
-        for name in CHECK_NAMES:
+        for name in check_names():
             if name in self.checks:
                 cp = self.checks[name]
                 allowed = allowed_fields(name)
-                checks[name] = {
+                doc = {
                     f.name: getattr(cp, f.name)
                     for f in fields(CheckPolicy)
                     if f.name in allowed and getattr(cp, f.name) is not None
                 }
+                doc.update((k, v) for k, v in cp.option_values if k in allowed and v is not None)
+                checks[name] = doc
         fleet = {f.name: getattr(self.fleet, f.name) for f in fields(FleetPolicy)}
         fleet["critical_series"] = list(self.fleet.critical_series)
         return {
@@ -193,17 +132,19 @@ def default_policy() -> Policy:
 
 # ----------------------------------------------------------------------------------- validation
 
-_CHECK_FIELDS = {f.name: f for f in fields(CheckPolicy)}
+_CHECK_FIELDS = {f.name for f in fields(CheckPolicy) if f.name != "option_values"}
 _FLEET_FIELDS = {f.name: f for f in fields(FleetPolicy)}
 
 
 def allowed_fields(name: str) -> frozenset[str]:
     """The policy fields that apply to check ``name``."""
-    allowed = {"enabled", "warn_share", "fail_share", *CHECK_OPTIONS[name]}
-    if SPECS[name].kind == "test":
-        allowed |= {*TEST_THRESHOLDS, "adjust"}
-    allowed |= set(METRIC_THRESHOLDS.get(name, ()))
-    return frozenset(allowed)
+    return checks_by_name()[name].policy_fields
+
+
+def _option_fields() -> dict[str, Any]:
+    """Every policy option of every check, by name (an option of one check is a known field
+    that does not apply to the others)."""
+    return {o.name: o for c in all_checks() for o in c.options if o.in_policy}
 
 
 def _is_number(v: Any) -> bool:
@@ -221,16 +162,24 @@ def _parse_check(name: str, raw: Any, errors: list[dict[str, str]]) -> CheckPoli
         return None
     allowed = allowed_fields(name)
     base = DEFAULT_CHECKS.get(name, CheckPolicy())
+    option_fields = _option_fields()
     values: dict[str, Any] = {}
+    options = dict(base.option_values)
     for key, value in raw.items():
         where = f"{loc}.{key}"
-        if key not in _CHECK_FIELDS:
+        if key not in _CHECK_FIELDS and key not in option_fields:
             errors.append({"loc": where, "message": "unknown field"})
             continue
         if key not in allowed:
             errors.append({"loc": where, "message": f"does not apply to the {name} check"})
             continue
-        if value is None:
+        if key in option_fields:
+            problem = None if value is None else option_fields[key].problem(value)
+            if problem:
+                errors.append({"loc": where, "message": problem})
+                continue
+            options[key] = value
+        elif value is None:
             values[key] = None
         elif key in ("enabled", "adjust"):
             if not isinstance(value, bool):
@@ -242,17 +191,14 @@ def _parse_check(name: str, raw: Any, errors: list[dict[str, str]]) -> CheckPoli
                 errors.append({"loc": where, "message": "must be a number between 0 and 1"})
                 continue
             values[key] = float(value)
-        elif key in ("warn_above", "fail_above", "warn_below", "fail_below"):
+        else:  # warn_above, fail_above, warn_below, fail_below
             if not _is_number(value):
                 errors.append({"loc": where, "message": "must be a finite number"})
                 continue
             values[key] = float(value)
-        else:  # integer options
-            low = 2 if key == "window" else (0 if key in ("hac_lags", "min_obs") else 1)
-            if not _is_int(value) or value < low:
-                errors.append({"loc": where, "message": f"must be an integer >= {low}"})
-                continue
-            values[key] = value
+    # Options in the check's declared order, so documents round-trip in one order.
+    declared = [o.name for o in checks_by_name()[name].options]
+    values["option_values"] = tuple((k, options[k]) for k in declared if k in options)
     policy = replace(base, **values)
     for lo_key, hi_key, rule in (
         ("fail_p", "warn_p", "fail_p must not exceed warn_p"),
@@ -327,11 +273,11 @@ def _parse_policy(document: Mapping[str, Any]) -> Policy:
         errors.append({"loc": "checks", "message": "must be an object keyed by check name"})
         raw_checks = {}
     for check_name, raw in raw_checks.items():
-        if check_name not in SPECS:
+        if check_name not in checks_by_name():
             errors.append(
                 {
                     "loc": f"checks.{check_name}",
-                    "message": f"unknown check; known: {', '.join(CHECK_NAMES)}",
+                    "message": f"unknown check; known: {', '.join(check_names())}",
                 }
             )
             continue

@@ -81,6 +81,7 @@ class CheckResult:
     skip_reason: ObjectVector
     null_hypothesis: str = ""
     detail_keys: tuple[str, ...] = field(default=())
+    _skipped: np.ndarray = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         # Each array is copied once (``np.array`` copies) and the copy made read-only.
@@ -144,29 +145,12 @@ class CheckResult:
             object.__setattr__(out, name, value)
         return out
 
-    def take(self, index: np.ndarray) -> CheckResult:
-        """The same result restricted (and reordered) to the rows in ``index``."""
-        return CheckResult(
-            name=self.name,
-            kind=self.kind,
-            statistic=self.statistic[index],
-            p_value=self.p_value[index],
-            details={k: v[index] for k, v in self.details.items()},
-            skip_reason=self.skip_reason[index],
-            null_hypothesis=self.null_hypothesis,
-        )
-
-
-def skip_reasons(n: int, *conditions: tuple[np.ndarray, str]) -> ObjectVector:
-    """Build a skip-reason vector: the first condition that holds for a row gives its reason."""
-    return skip_reasons_and_ran(n, *conditions)[0]
-
 
 def skip_reasons_and_ran(
     n: int, *conditions: tuple[np.ndarray, str]
 ) -> tuple[ObjectVector, np.ndarray]:
-    """:func:`skip_reasons` and, beside it, the boolean vector of the rows that ran (no
-    condition holds)."""
+    """Build a skip-reason vector (the first condition that holds for a row gives its reason)
+    and, beside it, the boolean vector of the rows that ran (no condition holds)."""
     if not conditions:
         return np.full(n, None, dtype=object), np.ones(n, dtype=bool)
     masks = np.empty((len(conditions), n), dtype=bool)

@@ -175,7 +175,7 @@ def test_fleet_bias_sees_what_no_single_series_shows():
     # 200 series each biased by 0.15 sd: few are significant alone, the fleet is.
     batch = invented_fleet(n=200, t=52, bias_rows=range(200), shift=0.15, seed=11)
     result = assess(batch, default_policy())
-    fb = result.fleet_bias
+    fb = result.fleet["bias"].result
     assert fb.mean_error > 0 and fb.p_value < 1e-6
     assert any(
         r.series_id is None and r.check == "bias" and "fleet" in r.message for r in result.reasons
@@ -215,7 +215,7 @@ def test_fleet_bias_is_the_weighted_mean_and_its_standard_error():
     w = result.weights
     mean = (w * b["mean_error"]).sum() / w.sum()
     se = np.sqrt((w**2 * b["std_error"] ** 2).sum()) / w.sum()
-    fb = result.fleet_bias
+    fb = result.fleet["bias"].result
     np.testing.assert_allclose([fb.mean_error, fb.std_error], [mean, se], rtol=1e-12)
     np.testing.assert_allclose(fb.p_value, 2 * stats.norm.sf(abs(mean / se)), rtol=1e-9)
 
@@ -225,8 +225,8 @@ def test_fleet_bias_does_not_overflow_near_the_accepted_magnitude():
     # (the weights are volumes, which scale too, and cancel in the weighted mean).
     small = invented_fleet(n=20, t=52, bias_rows=range(20), shift=0.3, seed=8)
     big = make_batch(small.actuals * 1e200, small.fitted * 1e200, ids=small.ids)
-    fs = assess(small, default_policy()).fleet_bias
-    fb = assess(big, default_policy()).fleet_bias
+    fs = assess(small, default_policy()).fleet["bias"].result
+    fb = assess(big, default_policy()).fleet["bias"].result
     assert np.isfinite([fb.mean_error, fb.std_error, fb.statistic, fb.p_value]).all()
     np.testing.assert_allclose(fb.statistic, fs.statistic, rtol=1e-9)
     np.testing.assert_allclose(fb.mean_error, fs.mean_error * 1e200, rtol=1e-9)

@@ -57,7 +57,7 @@ def test_any_valid_policy_round_trips(warn, ratio, lags, window, weighting, crit
     p = Policy.from_dict(doc)
     assert Policy.from_dict(json.loads(json.dumps(p.to_dict()))) == p
     assert p.check("tracking_signal").enabled is enabled
-    assert p.check("ljung_box").lags == lags
+    assert p.check("ljung_box").option("lags") == lags
     assert p.fleet.critical_series == tuple(critical)
 
 

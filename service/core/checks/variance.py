@@ -5,10 +5,11 @@ from __future__ import annotations
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
-from .batch import Residuals, nearly_constant
-from .results import CheckResult, skip_reasons_and_ran
-from .tails import chi2_sf
-from .types import FloatMatrix, FloatVector, InputError, IntVector
+from ..batch import Residuals, nearly_constant
+from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
+from ..results import CheckResult, skip_reasons_and_ran
+from ..tails import chi2_sf
+from ..types import FloatMatrix, FloatVector, InputError, IntVector
 
 ARCH_MAX_LAGS = 10
 _CHUNK = 2048
@@ -175,3 +176,40 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
         skip_reason=reasons,
         null_hypothesis="the residual variance is constant (no ARCH effects)",
     )
+
+
+# ------------------------------------------------------------------------------- declarations
+
+
+def _arch_found(f: Finding) -> str:
+    return (
+        f"residual variance is not constant (Engle LM = {fmt(f.statistic)} on "
+        f"{int(f.detail('lags'))} lags, {f.p_text()})"
+    )
+
+
+CHECKS = (
+    CheckDef(
+        name="arch_lm",
+        title="ARCH LM variance",
+        kind="test",
+        position=50,
+        family="variance",
+        needs_holdout=False,
+        tests="residual variance not constant: n R^2 of squared residuals on their own lags",
+        null_hypothesis="the residual variance is constant (no ARCH effects)",
+        defaults="L = min(10, T/5), statsmodels' het_arch default",
+        details=("lags", "df", "n_rows"),
+        source="Engle (1982), Econometrica 50:987-1007",
+        run=lambda inputs, **options: arch_lm(inputs.residuals, **options),
+        # Useful but not essential: warn only.
+        rule=CheckPolicy(warn_p=0.01),
+        passed="no evidence that the residual variance changes over time",
+        found=_arch_found,
+        meaning=(
+            "prediction intervals will be too narrow in volatile periods and too wide in calm "
+            "ones; model the variance or transform the series"
+        ),
+        options=(Option("min_obs"), Option("lags", minimum=1)),
+    ),
+)

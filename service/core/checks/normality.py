@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from .batch import Residuals
-from .results import CheckResult, skip_reasons_and_ran
-from .tails import chi2_sf
+from ..batch import Residuals
+from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
+from ..results import CheckResult, skip_reasons_and_ran
+from ..tails import chi2_sf
 
 JB_MIN_OBS = 8
 
@@ -52,3 +53,38 @@ def jarque_bera(res: Residuals, *, min_obs: int = JB_MIN_OBS) -> CheckResult:
         skip_reason=reasons,
         null_hypothesis="the residuals are normally distributed",
     )
+
+
+# ------------------------------------------------------------------------------- declarations
+
+
+def _jarque_bera_found(f: Finding) -> str:
+    return (
+        f"residuals are not normal (Jarque-Bera = {fmt(f.statistic)}, skewness "
+        f"{fmt(float(f.detail('skewness')), 2)}, kurtosis {fmt(float(f.detail('kurtosis')), 3)}, "
+        f"{f.p_text()})"
+    )
+
+
+CHECKS = (
+    CheckDef(
+        name="jarque_bera",
+        title="Jarque-Bera normality",
+        kind="test",
+        position=60,
+        family="normality",
+        needs_holdout=False,
+        tests="residual normality from skewness and kurtosis (population moments)",
+        null_hypothesis="the residuals are normally distributed",
+        defaults="at least 8 residuals; chi-square with 2 df",
+        details=("skewness", "kurtosis", "excess_kurtosis", "df"),
+        source="Jarque & Bera (1980), Economics Letters 6:255-259",
+        run=lambda inputs, **options: jarque_bera(inputs.residuals, **options),
+        # Useful but not essential: warn only.
+        rule=CheckPolicy(warn_p=0.01),
+        passed="no evidence against normal residuals",
+        found=_jarque_bera_found,
+        meaning=("intervals that assume normal errors may be off; prefer bootstrapped intervals"),
+        options=(Option("min_obs"),),
+    ),
+)

@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from .batch import SeriesBatch
-from .results import CheckResult, skip_reasons_and_ran
-from .types import FloatMatrix, FloatVector, InputError
+from ..batch import SeriesBatch
+from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
+from ..results import CheckResult, skip_reasons_and_ran
+from ..types import FloatMatrix, FloatVector, InputError
 
 
 def naive_scale(actuals: FloatMatrix, season_length: int = 1) -> FloatVector:
@@ -79,3 +80,42 @@ def mase(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
         },
         skip_reason=reasons,
     )
+
+
+# ------------------------------------------------------------------------------- declarations
+
+
+def _mase_found(f: Finding) -> str:
+    seasonal = "seasonal " if int(f.detail("season_length")) > 1 else ""
+    return (
+        f"holdout MASE is {fmt(f.statistic)} over {int(f.detail('horizon'))} steps: the "
+        f"holdout MAE {fmt(float(f.detail('mae')), 4)} is {fmt(f.statistic, 2)} times the "
+        f"in-sample {seasonal}naive MAE {fmt(float(f.detail('scale')), 4)}"
+    )
+
+
+CHECKS = (
+    CheckDef(
+        name="mase",
+        title="MASE",
+        kind="metric",
+        position=70,
+        family="accuracy",
+        needs_holdout=True,
+        tests="holdout MAE scaled by the in-sample (seasonal) naive MAE",
+        null_hypothesis="",
+        defaults="scale from lag-m differences of the training actuals",
+        details=("scale", "mae", "horizon", "season_length"),
+        source="Hyndman & Koehler (2006), IJF 22:679-688",
+        run=lambda inputs, **options: mase(inputs.batch, **options),
+        # MASE above 1: worse than the in-sample naive forecast (Hyndman & Koehler 2006).
+        # Holdout metrics carry no p-value to adjust, and one short holdout makes a single
+        # series' figure noisy, so the fleet judges them by larger shares than the tests.
+        rule=CheckPolicy(warn_above=1.0, fail_above=2.0, warn_share=0.25, fail_share=0.10),
+        passed="holdout accuracy within the policy's MASE bound",
+        found=_mase_found,
+        meaning="the forecasts are less accurate than the policy allows",
+        options=(Option("min_obs"),),
+        thresholds=("warn_above", "fail_above"),
+    ),
+)

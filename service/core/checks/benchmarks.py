@@ -15,10 +15,11 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..batch import SeriesBatch
+from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
+from ..results import CheckResult, skip_reasons_and_ran
+from ..types import FloatMatrix
 from .accuracy import holdout_pairs, holdout_reason
-from .batch import SeriesBatch
-from .results import CheckResult, skip_reasons_and_ran
-from .types import FloatMatrix
 
 BENCHMARKS = ("mean", "naive", "seasonal_naive", "drift")
 
@@ -154,3 +155,43 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
         },
         skip_reason=reasons,
     )
+
+
+# ------------------------------------------------------------------------------- declarations
+
+
+def _skill_found(f: Finding) -> str:
+    best = str(f.detail("best_benchmark")).replace("_", " ")
+    return (
+        f"the {best} benchmark beats the model on the holdout (skill {fmt(f.statistic, 2)}: "
+        f"RMSE {fmt(float(f.detail('rmse_model')), 4)} against "
+        f"{fmt(float(f.detail('rmse_best')), 4)})"
+    )
+
+
+CHECKS = (
+    CheckDef(
+        name="benchmark_skill",
+        title="Benchmark skill",
+        kind="metric",
+        position=80,
+        family="benchmarks",
+        needs_holdout=True,
+        tests="holdout RMSE against the best of mean, naive, seasonal naive and drift",
+        null_hypothesis="",
+        defaults="skill = 1 - RMSE(model) / RMSE(best benchmark)",
+        details=("best_benchmark", "skill", "rmse_model", "rmse_best"),
+        source="Hyndman & Athanasopoulos, Forecasting: Principles and Practice, simple methods",
+        run=lambda inputs, **options: benchmark_skill(inputs.batch, **options),
+        # Worse than the best simple benchmark fails the series; the fleet warns when more
+        # than 10% of its weight loses to a benchmark and fails beyond 25%.
+        rule=CheckPolicy(fail_below=0.0, warn_share=0.10, fail_share=0.25),
+        passed="beats the simple benchmarks on the holdout",
+        found=_skill_found,
+        meaning=(
+            "a method that needs no model does better; do not ship this version for these series"
+        ),
+        options=(Option("min_obs"),),
+        thresholds=("warn_below", "fail_below"),
+    ),
+)

@@ -4,10 +4,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from .batch import SeriesBatch
-from .results import CheckResult, skip_reasons_and_ran
-from .tails import chi2_sf
-from .types import FloatMatrix, FloatVector
+from ..batch import SeriesBatch
+from ..registry import FAIL, WARN, CheckDef, CheckPolicy, Finding, Option, fmt
+from ..results import CheckResult, skip_reasons_and_ran
+from ..tails import chi2_sf
+from ..types import FloatMatrix, FloatVector
 
 
 def _xlogy(x: np.ndarray, y: np.ndarray) -> np.ndarray:
@@ -112,3 +113,54 @@ def interval_coverage(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
         skip_reason=reasons,
         null_hypothesis="the intervals miss at their nominal rate 1 - level",
     )
+
+
+# ------------------------------------------------------------------------------- declarations
+
+
+def _coverage_found(f: Finding) -> str:
+    cov, level = float(f.detail("coverage")), float(f.detail("level"))
+    kind = "too narrow" if cov < level else "too wide"
+    return (
+        f"{level:.0%} intervals covered {cov:.0%} of {int(f.detail('n_scored'))} holdout steps "
+        f"({int(f.detail('misses_below'))} below, {int(f.detail('misses_above'))} above; "
+        f"Kupiec LR = {fmt(f.statistic)}, {f.p_text()}): they are {kind}"
+    )
+
+
+def _too_wide_only_warns(result: CheckResult, codes: np.ndarray) -> np.ndarray:
+    """Intervals too wide waste width but do not mislead: at most a warning."""
+    too_wide = result.details["coverage"] > result.details["level"]
+    return np.where(too_wide & (codes == FAIL), WARN, codes)
+
+
+CHECKS = (
+    CheckDef(
+        name="interval_coverage",
+        title="Interval coverage",
+        kind="test",
+        position=90,
+        family="intervals",
+        needs_holdout=True,
+        tests="holdout interval coverage against the nominal level (Kupiec POF test)",
+        null_hypothesis="the intervals miss at their nominal rate 1 - level",
+        defaults="level 0.95 unless given; Winkler score reported",
+        details=(
+            "coverage",
+            "level",
+            "misses",
+            "misses_below",
+            "misses_above",
+            "n_scored",
+            "winkler_score",
+        ),
+        source="Kupiec (1995), J. Derivatives 3:73-84; Winkler (1972), JASA 67:187-191",
+        run=lambda inputs, **options: interval_coverage(inputs.batch, **options),
+        rule=CheckPolicy(warn_p=0.05, fail_p=0.01),
+        passed="holdout intervals cover at a rate consistent with their level",
+        found=_coverage_found,
+        meaning="the stated interval level cannot be trusted",
+        options=(Option("min_obs"),),
+        cap=_too_wide_only_warns,
+    ),
+)

@@ -2,12 +2,15 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 
-from .batch import Residuals
-from .results import CheckResult, skip_reasons_and_ran
-from .tails import chi2_sf
-from .types import FloatMatrix, FloatVector, InputError, IntVector
+from ..batch import Residuals
+from ..registry import CheckDef, CheckInputs, CheckPolicy, Finding, Option, fmt
+from ..results import CheckResult, skip_reasons_and_ran
+from ..tails import chi2_sf
+from ..types import FloatMatrix, FloatVector, InputError, IntVector
 
 NONSEASONAL_LAGS = 10
 
@@ -113,3 +116,50 @@ def ljung_box(
         skip_reason=reasons,
         null_hypothesis="the residuals are not autocorrelated up to the tested lag",
     )
+
+
+# ------------------------------------------------------------------------------- declarations
+
+
+def _run_ljung_box(inputs: CheckInputs, **options: Any) -> CheckResult:
+    batch = inputs.batch
+    return ljung_box(
+        inputs.residuals,
+        season_length=batch.season_length,
+        model_params=batch.model_params,
+        **options,
+    )
+
+
+def _ljung_box_found(f: Finding) -> str:
+    return (
+        f"residuals are autocorrelated (Ljung-Box Q = {fmt(f.statistic)} on "
+        f"{int(f.detail('lags'))} lags, df {int(f.detail('df'))}, {f.p_text()}; lag-1 "
+        f"autocorrelation {fmt(float(f.detail('acf_lag1')), 2)})"
+    )
+
+
+CHECKS = (
+    CheckDef(
+        name="ljung_box",
+        title="Ljung-Box autocorrelation",
+        kind="test",
+        position=40,
+        family="autocorrelation",
+        needs_holdout=False,
+        tests="residual autocorrelation up to lag L, portmanteau test",
+        null_hypothesis="the residuals are not autocorrelated up to the tested lag",
+        defaults=(
+            "L = 10 non-seasonal, 2m seasonal, at most T/5 (common practice); df = L - model_params"
+        ),
+        details=("lags", "df", "box_pierce", "box_pierce_p_value", "acf_lag1"),
+        source="Ljung & Box (1978), Biometrika 65:297-303; Box & Pierce (1970), JASA 65:1509-1526",
+        run=_run_ljung_box,
+        # Essential: warn at adjusted p < 0.05, fail at < 0.01 (this project's choice).
+        rule=CheckPolicy(warn_p=0.05, fail_p=0.01),
+        passed="no evidence of autocorrelation left in the residuals",
+        found=_ljung_box_found,
+        meaning="structure is left unexplained; add the missing lags or seasonal terms",
+        options=(Option("min_obs"), Option("lags", minimum=1)),
+    ),
+)

@@ -1,0 +1,276 @@
+"""The check registry: every check is declared once, in its family's module.
+
+A family module under :mod:`service.core.checks` holds the statistics of one family and, in a
+module-level ``CHECKS`` tuple, one :class:`CheckDef` per check: its name and title, what it
+tests and its published source, the options a policy may set, the runner over a batch, its
+default policy rule, its sentences, and whatever is special about its status. The catalogue,
+the policy parser, the runner, the messages and the gate iterate over :func:`all_checks`; no
+code outside a check's own module branches on its name.
+
+Adding a check is adding a module to :mod:`service.core.checks` (found by
+:func:`all_checks`, ordered by ``position``), its tests, and its row in the README.
+"""
+
+from __future__ import annotations
+
+import importlib
+import math
+import pkgutil
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from functools import cache
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+
+from .batch import Residuals, SeriesBatch
+from .results import CheckKind, CheckResult
+
+if TYPE_CHECKING:
+    from .policy import Policy
+    from .runner import BatchChecks
+
+# Integer status codes, so that statuses combine with ``max``: fail > warn > pass > skipped.
+SKIPPED, PASS, WARN, FAIL = 0, 1, 2, 3
+
+TEST_THRESHOLDS = ("warn_p", "fail_p")
+METRIC_THRESHOLDS = ("warn_above", "fail_above", "warn_below", "fail_below")
+
+
+@dataclass(frozen=True)
+class Option:
+    """An option of a check's statistic (``lags``, ``window``...).
+
+    ``minimum`` bounds an integer option from below. Options with ``in_policy=False`` are
+    accepted by :func:`service.core.run_checks` but not by policies (``ci_level``).
+    """
+
+    name: str
+    minimum: int = 0
+    in_policy: bool = True
+
+    def problem(self, value: Any) -> str | None:
+        """Why ``value`` is not valid for this option, or ``None`` when it is."""
+        if isinstance(value, bool) or not isinstance(value, int) or value < self.minimum:
+            return f"must be an integer >= {self.minimum}"
+        return None
+
+
+@dataclass(frozen=True)
+class CheckPolicy:
+    """How one check is run and judged. Unused thresholds are ``None``.
+
+    For tests, a series warns when its p-value (BH-adjusted across series when ``adjust``) is
+    below ``warn_p`` and fails below ``fail_p``. For metrics, ``*_above``/``*_below`` bound the
+    statistic. ``warn_share``/``fail_share`` override the fleet's shares for this check.
+    ``option_values`` holds the statistic's options (``(name, value)`` pairs; ``None`` means the
+    statistic's default rule); read them with :meth:`option` or :meth:`options`.
+    """
+
+    enabled: bool = True
+    warn_p: float | None = None
+    fail_p: float | None = None
+    warn_above: float | None = None
+    fail_above: float | None = None
+    warn_below: float | None = None
+    fail_below: float | None = None
+    adjust: bool = True
+    warn_share: float | None = None
+    fail_share: float | None = None
+    option_values: tuple[tuple[str, Any], ...] = ()
+
+    def option(self, name: str) -> Any:
+        """The value of option ``name`` (``None``: the statistic's default rule)."""
+        return dict(self.option_values).get(name)
+
+    def options(self) -> dict[str, Any]:
+        """Keyword options for the statistic: the options that are set."""
+        return {k: v for k, v in self.option_values if v is not None}
+
+
+@dataclass(frozen=True, eq=False)
+class CheckInputs:
+    """What a check's runner reads: the batch and its residuals (computed once per run)."""
+
+    batch: SeriesBatch
+    residuals: Residuals
+
+
+@dataclass(frozen=True, eq=False)
+class Finding:
+    """A warn or fail of check ``result`` on series ``i``, for its reason sentence."""
+
+    result: CheckResult
+    i: int
+    code: int
+    p_adjusted: np.ndarray
+
+    @property
+    def statistic(self) -> float:
+        return float(self.result.statistic[self.i])
+
+    def detail(self, key: str) -> Any:
+        return self.result.details[key][self.i]
+
+    def p_text(self) -> str:
+        """``p = 0.0012, adjusted across series 0.024`` (the raw p-value alone when the check's
+        p-values were not adjusted)."""
+        raw = float(self.result.p_value[self.i])
+        adj = float(self.p_adjusted[self.i])
+        if math.isnan(adj):
+            return f"p = {fmt(raw, 2)}"
+        return f"p = {fmt(raw, 2)}, adjusted across series {fmt(adj, 2)}"
+
+
+def fmt(x: float | None, digits: int = 3) -> str:
+    """A number for a sentence: ``digits`` significant digits, ``n/a`` for a missing value."""
+    if x is None or (isinstance(x, float) and math.isnan(x)):
+        return "n/a"
+    if isinstance(x, float) and math.isinf(x):
+        return "inf" if x > 0 else "-inf"
+    return f"{x:.{digits}g}"
+
+
+@dataclass(frozen=True)
+class SeriesSection:
+    """A section of each series' result row built from checks' columns (the ``bias`` object).
+
+    ``fields`` are ``(key, check, column)`` with ``column`` ``"statistic"`` or a detail key;
+    the section is ``None`` for every series when its owner (the declaring check) did not run,
+    and a field is ``None`` when its check did not run.
+    """
+
+    key: str
+    fields: tuple[tuple[str, str, str], ...]
+
+
+@dataclass(frozen=True)
+class FleetFinding:
+    """A fleet-level statistic of one check: the record (with a ``to_dict()``) and, when it
+    warns or fails the fleet, the status code and the sentence."""
+
+    result: Any
+    code: int = PASS
+    message: str = ""
+
+
+@dataclass(frozen=True)
+class FleetTest:
+    """A fleet-level statistic declared by a check (the fleet bias), written to the result's
+    ``fleet[key]``. ``compute(checks, weights, policy)`` gets one part's checks and weights;
+    ``empty`` stands in when the check did not run."""
+
+    key: str
+    compute: Callable[[BatchChecks, np.ndarray, Policy], FleetFinding]
+    empty: FleetFinding
+
+
+Runner = Callable[..., CheckResult]
+SentenceFn = Callable[[Finding], str]
+CapFn = Callable[[CheckResult, np.ndarray], np.ndarray]
+
+
+@dataclass(frozen=True)
+class CheckDef:
+    """One check, declared once.
+
+    Attributes
+    ----------
+    name, title : str
+        The API name (``ljung_box``) and the name in words.
+    kind : {"test", "metric"}
+        Tests are judged by their p-value, metrics by their statistic against thresholds.
+    position : int
+        Catalogue order (results list checks in this order).
+    family, needs_holdout, tests, null_hypothesis, defaults, details, source : str
+        The catalogue's description.
+    run : callable
+        ``run(inputs, **options) -> CheckResult`` over a :class:`CheckInputs`.
+    rule : CheckPolicy
+        The default policy's rule for this check.
+    passed : str
+        The sentence for a series that passes.
+    found : callable
+        ``found(finding) -> str``: what a warn or fail found, with its numbers.
+    meaning : str
+        What a warn or fail means and what to do (ends every reason sentence of the check).
+    options : tuple of Option
+        The statistic's options (policy fields unless ``in_policy=False``).
+    thresholds : tuple of str
+        For metrics, which of ``warn_above``, ``fail_above``, ``warn_below``, ``fail_below``
+        apply (tests always take ``warn_p``, ``fail_p`` and ``adjust``).
+    cap : callable, optional
+        ``cap(result, codes) -> codes``: a rule that lowers some statuses (intervals that are
+        too wide only warn).
+    section : SeriesSection, optional
+        A section of the series rows this check owns.
+    fleet : FleetTest, optional
+        A fleet-level statistic this check owns.
+    """
+
+    name: str
+    title: str
+    kind: CheckKind
+    position: int
+    family: str
+    needs_holdout: bool
+    tests: str
+    null_hypothesis: str
+    defaults: str
+    details: tuple[str, ...]
+    source: str
+    run: Runner
+    rule: CheckPolicy
+    passed: str
+    found: SentenceFn
+    meaning: str
+    options: tuple[Option, ...] = ()
+    thresholds: tuple[str, ...] = ()
+    cap: CapFn | None = None
+    section: SeriesSection | None = None
+    fleet: FleetTest | None = None
+    option_names: frozenset[str] = field(init=False, default=frozenset())
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "option_names", frozenset(o.name for o in self.options))
+
+    @property
+    def policy_fields(self) -> frozenset[str]:
+        """The policy fields that apply to this check."""
+        allowed = {"enabled", "warn_share", "fail_share"}
+        allowed |= {o.name for o in self.options if o.in_policy}
+        if self.kind == "test":
+            allowed |= {*TEST_THRESHOLDS, "adjust"}
+        allowed |= set(self.thresholds)
+        return frozenset(allowed)
+
+    def reason(self, finding: Finding) -> str:
+        """The full reason sentence: what was found, then what it means."""
+        return f"{self.found(finding)}; {self.meaning}."
+
+
+@cache
+def all_checks() -> tuple[CheckDef, ...]:
+    """Every check declared in the modules of :mod:`service.core.checks`, by position."""
+    from . import checks as package
+
+    found: list[CheckDef] = []
+    for info in sorted(pkgutil.iter_modules(package.__path__), key=lambda m: m.name):
+        module = importlib.import_module(f"{package.__name__}.{info.name}")
+        found.extend(getattr(module, "CHECKS", ()))
+    names = [c.name for c in found]
+    duplicate = {n for n in names if names.count(n) > 1}
+    if duplicate:
+        raise RuntimeError(f"checks declared twice: {sorted(duplicate)}")
+    return tuple(sorted(found, key=lambda c: (c.position, c.name)))
+
+
+@cache
+def checks_by_name() -> Mapping[str, CheckDef]:
+    """:func:`all_checks` keyed by name."""
+    return {c.name: c for c in all_checks()}
+
+
+def check_names() -> tuple[str, ...]:
+    """The registered checks' names, in catalogue order."""
+    return tuple(c.name for c in all_checks())
