@@ -3,7 +3,12 @@
 Rules fixed here, used by every check:
 
 * Residuals are ``e = actual - fitted``; a residual is missing where either value is missing.
-* A series' training period ends at its last observed actual; anything after it is padding.
+* A series' training period ends at its given length, by default at its last observed actual or
+  fitted value; anything after it is padding. A missing actual is a gap wherever it sits, the
+  last period included.
+* ``burn_in`` periods at the start of a series (a model's start-up values, such as the first
+  ``d + mD`` fitted values of a differenced ARIMA) are dropped before any check: their fitted
+  values count as missing. Their actuals stay training data (benchmarks, the MASE scale).
 * Leading periods without a fitted value (a naive method has none at ``t = 1``) are dropped: the
   residual span starts at the first observed residual.
 * Interior gaps stay gaps, never filled: means and variances use the residuals that are there;
@@ -16,11 +21,10 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, fields
-from functools import cached_property
 
 import numpy as np
 
-from .types import BoolMatrix, FloatMatrix, FloatVector, InputError, IntVector
+from .types import BoolMatrix, BoolVector, FloatMatrix, FloatVector, InputError, IntVector
 
 DEFAULT_LEVEL = 0.95
 MAX_MAGNITUDE = 1e250
@@ -79,12 +83,30 @@ def _row_lengths(arr: FloatMatrix) -> IntVector:
     return np.where(observed.any(axis=1), last, 0).astype(np.int64)
 
 
-def _check_row_lengths(name: str, arr: FloatMatrix, lengths: IntVector, ref: str) -> None:
+def _check_row_lengths(name: str, arr: FloatMatrix, lengths: IntVector) -> None:
     longer = _row_lengths(arr) > lengths
     if longer.any():
         raise InputError(
-            name, f"has values after the last observed {ref}", index=int(np.argmax(longer))
+            name, "has values after the end of the series", index=int(np.argmax(longer))
         )
+
+
+def _per_series(name: str, value: object, n: int) -> IntVector:
+    """A non-negative integer for every series: one for all, or one each."""
+    if value is None:
+        return np.zeros(n, dtype=np.int64)
+    if np.ndim(value) == 0:
+        values = [value] * n
+    else:
+        values = list(value)  # type: ignore[call-overload]
+        if len(values) != n:
+            raise InputError(name, f"has {len(values)} entries, expected {n}")
+    for i, v in enumerate(values):
+        if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or v < 0:
+            raise InputError(
+                name, "must be an integer >= 0", index=None if np.ndim(value) == 0 else i
+            )
+    return np.asarray(values, dtype=np.int64)
 
 
 @dataclass(frozen=True, eq=False)
@@ -113,17 +135,16 @@ class SeriesBatch:
     season_length: int
     model_params: int
     holdout: Holdout | None
+    lengths: IntVector
+    """Training length per series (periods, gaps included)."""
+    burn_in: IntVector
+    """Periods dropped at the start of each series (their fitted values count as missing)."""
+    weights_given: BoolVector
+    """Where ``weights`` holds a weight the caller gave (elsewhere: the series' volume)."""
 
     @property
     def n_series(self) -> int:
         return len(self.ids)
-
-    @cached_property
-    def lengths(self) -> IntVector:
-        """Training length per series: last observed actual + 1 (computed once, read-only)."""
-        lengths = _row_lengths(self.actuals)
-        lengths.flags.writeable = False
-        return lengths
 
     def take(self, index: np.ndarray) -> SeriesBatch:
         """The batch restricted (and reordered) to the rows in ``index``."""
@@ -146,6 +167,9 @@ class SeriesBatch:
             season_length=self.season_length,
             model_params=self.model_params,
             holdout=holdout,
+            lengths=self.lengths[index],
+            burn_in=self.burn_in[index],
+            weights_given=self.weights_given[index],
         )
 
 
@@ -162,6 +186,8 @@ def make_batch(
     holdout_lower: FloatMatrix | Sequence[Sequence[float | None]] | None = None,
     holdout_upper: FloatMatrix | Sequence[Sequence[float | None]] | None = None,
     level: float | Sequence[float | None] | FloatVector | None = None,
+    lengths: Sequence[int] | IntVector | None = None,
+    burn_in: int | Sequence[int] | IntVector | None = None,
 ) -> SeriesBatch:
     """Validate and assemble a batch.
 
@@ -174,7 +200,8 @@ def make_batch(
         Series identifiers, unique. Default ``"0"``, ``"1"``, ...
     weights : sequence of float, optional
         Importance per series (``None`` or ``NaN`` entries: that series' volume). Default: the
-        volume, ``sum |actuals|`` over the training period.
+        volume, ``sum_t max(|actual_t|, |fitted_t|)`` over the training period, so a series
+        forecast at 5 that sold 0 weighs what its forecasts put at stake.
     season_length : int
         Seasonal period ``m`` (1: non-seasonal).
     model_params : int
@@ -185,6 +212,11 @@ def make_batch(
         Prediction interval bounds, given together, ``lower <= upper``.
     level : float or sequence, optional
         Nominal coverage of the intervals in (0, 1); default 0.95 where intervals are given.
+    lengths : sequence of int, optional
+        Training periods per series, gaps included. Default: up to the last observed actual or
+        fitted value.
+    burn_in : int or sequence of int, optional
+        Periods to drop at the start of every series (or of each), default 0.
 
     Raises
     ------
@@ -204,8 +236,21 @@ def make_batch(
     a = _matrix("actuals", actuals)
     n = a.shape[0]
     f = _same_shape("fitted", _matrix("fitted", fitted, n), a, "actuals")
-    lengths = _row_lengths(a)
-    _check_row_lengths("fitted", f, lengths, "actual")
+    if lengths is None:
+        span = np.maximum(_row_lengths(a), _row_lengths(f))
+    else:
+        span = _per_series("lengths", lengths, n)
+        if (span > a.shape[1]).any():
+            raise InputError(
+                "lengths", "longer than the rows given", index=int(np.argmax(span > a.shape[1]))
+            )
+        _check_row_lengths("actuals", a, span)
+        _check_row_lengths("fitted", f, span)
+    span.flags.writeable = False
+    drop = _per_series("burn_in", burn_in, n)
+    if drop.any():
+        f = np.where(np.arange(f.shape[1])[None, :] < drop[:, None], np.nan, f)
+    drop.flags.writeable = False
 
     if ids is None:
         id_tuple = tuple(str(i) for i in range(n))
@@ -220,9 +265,11 @@ def make_batch(
                     raise InputError("ids", f"duplicate series id {s!r}", index=i)
                 seen.add(s)
 
-    volume = np.where(np.isnan(a), 0.0, np.abs(a)).sum(axis=1)
+    volume = np.fmax(np.abs(a), np.abs(f))
+    volume = np.where(np.isnan(volume), 0.0, volume).sum(axis=1)
     if weights is None:
         w = volume
+        given = np.zeros(n, dtype=bool)
     else:
         w = np.array([np.nan if v is None else v for v in weights], dtype=float)
         if w.shape != (n,):
@@ -230,7 +277,9 @@ def make_batch(
         if np.isinf(w).any() or (w < 0).any():
             bad = int(np.argmax(np.isinf(w) | (w < 0)))
             raise InputError("weights", "must be finite and non-negative", index=bad)
-        w = np.where(np.isnan(w), volume, w)
+        given = ~np.isnan(w)
+        w = np.where(given, w, volume)
+    given.flags.writeable = False
 
     holdout = None
     if (holdout_actuals is None) != (holdout_forecasts is None):
@@ -298,12 +347,16 @@ def make_batch(
         season_length=int(season_length),
         model_params=int(model_params),
         holdout=holdout,
+        lengths=span,
+        burn_in=drop,
+        weights_given=given,
     )
 
 
 def stack_key(batch: SeriesBatch) -> tuple[object, ...]:
     """What batches must share to be stacked by :func:`stack_batches`: season length, model
-    parameters, the shape of every matrix and where values are missing in each.
+    parameters, the series' lengths, the shape of every matrix and where values are missing in
+    each.
 
     With the same shape and missing values, every check does the same arithmetic on a part's
     rows stacked or alone (the same lag orders, regression rows and trimmed spans), so the
@@ -326,6 +379,7 @@ def stack_key(batch: SeriesBatch) -> tuple[object, ...]:
         batch.season_length,
         batch.model_params,
         batch.actuals.shape,
+        batch.lengths.tobytes(),
         _missing(batch.actuals),
         _missing(batch.fitted),
         hold,
@@ -379,6 +433,9 @@ def stack_batches(batches: Sequence[SeriesBatch]) -> SeriesBatch:
         season_length=first.season_length,
         model_params=first.model_params,
         holdout=holdout,
+        lengths=np.concatenate([b.lengths for b in batches]),
+        burn_in=np.concatenate([b.burn_in for b in batches]),
+        weights_given=np.concatenate([b.weights_given for b in batches]),
     )
 
 

@@ -21,6 +21,9 @@ FloatVector: TypeAlias = NDArray[np.float64]
 IntVector: TypeAlias = NDArray[np.int64]
 """Shape ``(n_series,)``: one count or index per series."""
 
+BoolVector: TypeAlias = NDArray[np.bool_]
+"""Shape ``(n_series,)``: one flag per series."""
+
 BoolMatrix: TypeAlias = NDArray[np.bool_]
 """Shape ``(n_series, n_periods)``: ``True`` where a value is observed."""
 

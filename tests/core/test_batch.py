@@ -62,8 +62,27 @@ def test_shapes_that_disagree():
     )
 
 
-def test_fitted_after_the_last_actual():
-    _raises("fitted", 0, actuals=[[1.0, 2.0, None]], fitted=[[1.0, 2.0, 3.0]])
+def test_a_missing_last_actual_is_a_gap():
+    # The fitted value of a period whose actual is missing is a gap, not a rejected batch.
+    b = make_batch([[1.0, 2.5, 2.0, None]], [[1.0, 2.0, 3.0, 3.0]])
+    assert b.lengths.tolist() == [4]
+    res = residuals_of(b)
+    assert res.n_obs.tolist() == [3] and res.n_missing.tolist() == [1]
+    # With lengths given, values past them are still an error naming the array.
+    _raises("fitted", 0, actuals=[[1.0, 2.0, None]], fitted=[[1.0, 2.0, 3.0]], lengths=[2])
+    _raises("lengths", 0, lengths=[4])
+
+
+def test_burn_in_drops_the_first_fitted_values():
+    actuals = [[5.0, 1.0, 2.0, 1.5, 2.5], [5.0, 1.0, 2.0, 1.5, 2.5]]
+    fitted = [[0.0, 1.2, 1.8, 1.4, 2.4], [0.0, 1.2, 1.8, 1.4, 2.4]]
+    b = make_batch(actuals, fitted, burn_in=[1, 2])
+    res = residuals_of(b)
+    assert res.start.tolist() == [1, 2] and res.n_obs.tolist() == [4, 3]
+    assert b.burn_in.tolist() == [1, 2]
+    assert make_batch(actuals, fitted, burn_in=1).burn_in.tolist() == [1, 1]
+    _raises("burn_in", 1, actuals=actuals, fitted=fitted, burn_in=[1, -1])
+    _raises("burn_in", None, actuals=actuals, fitted=fitted, burn_in=1.5)
 
 
 @pytest.mark.parametrize(
@@ -108,7 +127,11 @@ def test_weights():
     _raises("weights", 1, actuals=[[1.0]] * 2, fitted=[[1.0]] * 2, weights=[1.0, -2.0])
     _raises("weights", 0, actuals=[[1.0]] * 2, fitted=[[1.0]] * 2, weights=[np.inf, 1.0])
     b = make_batch([[1.0, -3.0], [2.0, None]], [[1.0, 1.0], [1.0, None]], weights=[None, 7.0])
-    np.testing.assert_array_equal(b.weights, [4.0, 7.0])  # default: sum |actuals|
+    np.testing.assert_array_equal(b.weights, [4.0, 7.0])  # default: sum max(|actual|, |fitted|)
+    assert b.weights_given.tolist() == [False, True]
+    # An item forecast at 5 that sold nothing weighs what its forecasts put at stake.
+    idle = make_batch([[0.0, 0.0, 0.0]], [[5.0, 5.0, 5.0]])
+    np.testing.assert_array_equal(idle.weights, [15.0])
 
 
 def test_holdout_parts_given_together():

@@ -4,11 +4,10 @@ The four methods of the forecaster's toolbox, each forecasting ``h = 1..H`` step
 training period's last observed actual ``y_T``:
 
 * ``mean``: the mean of the observed training actuals;
-* ``naive``: ``y_T``;
+* ``naive``: ``y_T``, the last observed actual (the training period may end in a gap);
 * ``seasonal_naive``: the value one season earlier, ``y_{T - m + 1 + (h - 1) mod m}`` (only when
   ``m > 1``; where that value is missing, the same season's most recent observed value);
-* ``drift``: ``y_T + h (y_T - y_first) / (T - first)``, the line through the first and last
-  observed actuals.
+* ``drift``: the line through the first and last observed actuals, extended to each step.
 """
 
 from __future__ import annotations
@@ -37,12 +36,15 @@ def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatr
         names = [k for k in BENCHMARKS if k != "seasonal_naive" or m > 1]
         return {k: np.full((n, horizon), np.nan) for k in names}
     length = batch.lengths
-    has = length > 0
     rows = np.arange(n)
-    last_idx = np.maximum(length - 1, 0)
     observed = ~np.isnan(a)
+    has = observed.any(axis=1)
+    # The last observed actual, which may sit before the end of the training period.
+    last_idx = np.where(has, width - 1 - np.argmax(observed[:, ::-1], axis=1), 0)
     first_idx = np.argmax(observed, axis=1)
     h = np.arange(1, horizon + 1)[None, :]
+    # Steps from the last observed actual to each holdout step.
+    ahead = h + (length - 1 - last_idx)[:, None]
     count = observed.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         mean = np.where(count > 0, np.where(observed, a, 0.0).sum(axis=1) / count, np.nan)
@@ -54,7 +56,7 @@ def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatr
     out = {
         "mean": np.repeat(mean[:, None], horizon, axis=1),
         "naive": np.repeat(y_last[:, None], horizon, axis=1),
-        "drift": y_last[:, None] + h * slope[:, None],
+        "drift": y_last[:, None] + ahead * slope[:, None],
     }
     if m > 1:
         # Source index one season back, then further back by whole seasons where missing.
