@@ -224,9 +224,9 @@ def robust_portmanteau(
     reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < 2, "fewer than 2 residuals"),
+        (res.constant, "residuals are constant, so autocorrelation is undefined"),
         (k < 1, "no lag with an observed pair to test"),
         (df <= 0, f"no degrees of freedom left: lags minus {model_params} model parameters <= 0"),
-        (res.constant, "residuals are constant, so autocorrelation is undefined"),
     )
     lag_values = st["lag_values"]
     tested = st["tested"]
