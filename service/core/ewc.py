@@ -22,6 +22,9 @@ test with a 5% critical value of 12.7 and an interval without a finite expected 
 independent normal errors the test is exact for any ``B`` (see :func:`ewc_bias`), so a second
 term costs no size there, only robustness to autocorrelation the rule would have bought."""
 
+CHUNK_ELEMENTS = 1 << 18
+"""Entries per (rows, periods) temporary of :func:`cosine_projections`."""
+
 EWC_MIN_OBS = 3
 """Fewest residuals: ``B = 2`` cosine terms need ``T >= 3`` (at most ``T - 1`` of them are
 orthogonal to the mean)."""
@@ -57,18 +60,22 @@ def cosine_projections(packed: FloatMatrix, n: IntVector, bins: IntVector) -> Fl
     """
     n = np.asarray(n, dtype=np.int64)
     bins = np.asarray(bins, dtype=np.int64)
-    width = packed.shape[1]
+    rows, width = packed.shape
     max_bins = int(bins.max(initial=0))
-    out = np.zeros((packed.shape[0], max_bins))
+    out = np.zeros((rows, max_bins))
     if max_bins == 0 or width == 0:
         return out
-    safe_n = np.maximum(n, 1).astype(float)[:, None]
-    phase = np.pi * (np.arange(width) + 0.5)[None, :] / safe_n  # (rows, width)
-    inside = np.arange(width)[None, :] < n[:, None]
-    z = np.where(inside, packed, 0.0)
-    scale = np.sqrt(2.0 / safe_n[:, 0])
-    for j in range(1, max_bins + 1):
-        out[:, j - 1] = np.where(j <= bins, scale * np.vecdot(np.cos(j * phase), z), 0.0)
+    # Rows in chunks, so the (rows, periods) temporaries stay small.
+    step = max(1, CHUNK_ELEMENTS // width)
+    for lo in range(0, rows, step):
+        part = slice(lo, min(lo + step, rows))
+        safe_n = np.maximum(n[part], 1).astype(float)[:, None]
+        phase = np.pi * (np.arange(width) + 0.5)[None, :] / safe_n
+        z = np.where(np.arange(width)[None, :] < n[part, None], packed[part], 0.0)
+        scale = np.sqrt(2.0 / safe_n[:, 0])
+        b = bins[part]
+        for j in range(1, int(b.max(initial=0)) + 1):
+            out[part, j - 1] = np.where(j <= b, scale * np.vecdot(np.cos(j * phase), z), 0.0)
     return out
 
 

@@ -16,7 +16,7 @@ import numpy as np
 
 from .batch import Residuals
 from .ewc import EWC_MIN_OBS, cosine_projections, ewc_bins, ewc_variance
-from .residual_arrays import align_left, as_residuals
+from .residual_arrays import CHUNK_ELEMENTS, align_left, as_residuals
 from .results import skip_reasons_and_ran
 from .tails import norm_sf_two_sided, t_ppf, t_sf_two_sided
 from .types import FloatVector, InputError, IntVector, ObjectVector
@@ -96,7 +96,7 @@ def fleet_bias(
     if bins is not None and bins < 1:
         raise InputError("bins", f"must be at least 1, got {bins}")
     res = as_residuals(res)
-    n_series = res.values.shape[0]
+    n_series, width = res.values.shape
     w = np.asarray(weights, dtype=float).reshape(-1)
     if w.shape != (n_series,):
         raise InputError("weights", f"has {w.shape[0]} entries, expected {n_series}")
@@ -133,19 +133,27 @@ def fleet_bias(
 
     # H on the calendar, one row per fleet, in units of `scale` (largest |H| contribution).
     coef = share / safe_n  # s_i / T_i
-    rows, cols = np.nonzero(res.observed & used[:, None])
-    pos = off[rows] + cols
-    n_cal = int(pos.max(initial=-1)) + 1
-    contrib = coef[rows] * res.centred[rows, cols]
-    scale = np.abs(contrib).max(initial=0.0)
+    n_cal = int((off + res.lengths).max(initial=0))
+    # Largest |H| contribution, to work in its units (no overflow in the squares).
+    with np.errstate(invalid="ignore", over="ignore"):
+        scale = float(
+            np.max(np.abs(coef) * np.abs(res.centred).max(axis=1, initial=0.0), initial=0.0)
+        )
     scale = scale if scale > 0 else 1.0
-    h = np.bincount(
-        g[rows] * n_cal + pos, weights=contrib / scale, minlength=n_fleets * n_cal
-    ).reshape(n_fleets, n_cal)
+    h = np.zeros(n_fleets * n_cal)
     first = np.full(n_fleets, n_cal, dtype=np.int64)
     last = np.full(n_fleets, -1, dtype=np.int64)
-    np.minimum.at(first, g[rows], pos)
-    np.maximum.at(last, g[rows], pos)
+    step = max(1, CHUNK_ELEMENTS // max(width, 1))
+    for lo in range(0, n_series, step):  # blocks of rows: bounded temporaries
+        part = slice(lo, min(lo + step, n_series))
+        rows, cols = np.nonzero(res.observed[part] & used[part, None])
+        rows += lo
+        pos = off[rows] + cols
+        contrib = (coef[rows] / scale) * res.centred[rows, cols]
+        h += np.bincount(g[rows] * n_cal + pos, weights=contrib, minlength=n_fleets * n_cal)
+        np.minimum.at(first, g[rows], pos)
+        np.maximum.at(last, g[rows], pos)
+    h = h.reshape(n_fleets, n_cal)
     n_periods = np.maximum(last - first + 1, 0)
     b = ewc_bins(n_periods)
     if bins is not None:

@@ -10,6 +10,9 @@ import numpy as np
 from .batch import Residuals, make_batch, residuals_of
 from .types import BoolMatrix, FloatMatrix, IntVector
 
+CHUNK_ELEMENTS = 1 << 18
+"""Entries per block of rows in the row rearrangements (bounded temporaries)."""
+
 
 def as_residuals(x: Residuals | FloatMatrix) -> Residuals:
     """``x`` itself if it is :class:`Residuals`, else the residuals of the 2-D matrix ``x``
@@ -32,10 +35,15 @@ def pack_observed(values: FloatMatrix, observed: BoolMatrix) -> FloatMatrix:
     in their order.
     """
     out = np.zeros(values.shape)
-    rows, cols = np.nonzero(observed)
-    # Rank of each observed value within its row: its column in the packed matrix.
-    rank = np.cumsum(observed, axis=1)[rows, cols] - 1
-    out[rows, rank] = values[rows, cols]
+    n_rows, width = values.shape
+    step = max(1, CHUNK_ELEMENTS // max(width, 1))
+    for lo in range(0, n_rows, step):  # blocks of rows: bounded temporaries
+        hi = min(lo + step, n_rows)
+        obs = observed[lo:hi]
+        rows, cols = np.nonzero(obs)
+        # Rank of each observed value within its row: its column in the packed matrix.
+        rank = np.cumsum(obs, axis=1)[rows, cols] - 1
+        out[lo + rows, rank] = values[lo + rows, cols]
     return out
 
 
