@@ -1,9 +1,9 @@
 """Bias with a small-sample correction: the equal-weighted cosine (EWC) long-run variance.
 
 Source: Lazarus, Lewis, Stock & Watson (2018), "HAR Inference: Recommendations for Practice",
-Journal of Business & Economic Statistics 36(4), 541-559, section 2 (the EWC estimator) and
-their recommended rule ``nu = 0.4 T^(2/3)`` cosine terms with Student t critical values
-(their eq. 4; rounded down, as in the authors' code).
+Journal of Business & Economic Statistics 36(4), 541-559: the EWC estimator (p. 545) and their
+recommended rule of ``nu = 0.4 T^(2/3)`` cosine terms with Student t_nu critical values (eq. 4,
+rounded down as in footnote 3).
 """
 
 from __future__ import annotations
@@ -55,7 +55,7 @@ def cosine_projections(packed: FloatMatrix, n: IntVector, bins: IntVector) -> Fl
     entries of row ``i`` of ``packed``.
 
     The type-II cosine transform with orthonormal scaling: ``scipy.fft.dct(z, type=2,
-    norm="ortho")[j]`` (Lazarus, Lewis, Stock & Watson 2018, section 2). The basis vectors are
+    norm="ortho")[j]`` (Lazarus, Lewis, Stock & Watson 2018, p. 545). The basis vectors are
     orthonormal and orthogonal to a constant, so adding a constant to ``z`` changes nothing.
     """
     n = np.asarray(n, dtype=np.int64)
@@ -93,7 +93,7 @@ def ewc_long_run_variance(
 
     ``Omega = (1/B) sum_{j=1..B} Lambda_j^2``, ``Lambda_j = sqrt(2/T) sum_{t=1..T}
     cos(pi j (t - 1/2) / T) (e_t - mean)`` over the ``T = n_obs`` observed residuals with the
-    gaps closed up (Lazarus, Lewis, Stock & Watson 2018, section 2); ``B`` from
+    gaps closed up (Lazarus, Lewis, Stock & Watson 2018, p. 545); ``B`` from
     :func:`ewc_bins` unless given (capped at ``T - 1``).
     """
     res = as_residuals(res)
@@ -120,7 +120,7 @@ def ewc_bias(
     min_obs: int = EWC_MIN_OBS,
 ) -> CheckResult:
     """t test of a zero mean residual with the EWC long-run variance and Student t critical
-    values (Lazarus, Lewis, Stock & Watson 2018, section 2 and eq. 4).
+    values (Lazarus, Lewis, Stock & Watson 2018, p. 545 and eq. 4).
 
     ``t = sqrt(T) mean(e) / sqrt(Omega)`` with ``Omega`` from :func:`ewc_long_run_variance`
     (``T = n_obs``; gaps are closed up: the cosines run over the observed residuals in their

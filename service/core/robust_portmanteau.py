@@ -2,7 +2,7 @@
 volatility) and other dependence that leaves the residuals uncorrelated.
 
 Source: Dalla, Giraitis & Phillips (2022), "Robust tests for white noise and
-cross-correlation", Econometric Theory 38(5), 913-941 (Cowles Foundation discussion paper 2194);
+cross-correlation", Econometric Theory 38(5) (Cowles Foundation discussion paper 2194);
 the formulas as the authors implement them in their R package ``testcorr`` (``ac.test``).
 """
 
@@ -93,12 +93,12 @@ def robust_lag_statistics(
     * ``R*`` has unit diagonal and ``r*_jk = r_jk 1(|tau_jk| > lambda)`` off it;
     * ``Q~ = t~' R*^{-1} t~`` over the tested lags.
 
-    Dalla, Giraitis & Phillips (2022), the ``t~_k`` and ``Q~_m`` statistics of their section 2,
-    with the sums' ranges of ``testcorr::ac.test``. Lags not tested for a series (outside its
-    mask, beyond its span, or without an observed pair) get ``t~ = 0`` and an identity row and
-    column in ``R*``, so they add nothing. Where ``R*`` is not positive definite (smallest
-    eigenvalue at most :data:`PD_TOLERANCE`; the authors note ``Q~`` can then come out negative
-    and ``testcorr`` reports it missing) ``Q~`` falls back to the diagonal form
+    Dalla, Giraitis & Phillips (2022), their robust ``t~_k`` and cumulative ``Q~_m``
+    statistics, with the sums' ranges of ``testcorr::ac.test``. Lags not tested for a series
+    (outside its mask, beyond its span, or without an observed pair) get ``t~ = 0`` and an
+    identity row and column in ``R*``, so they add nothing. Where ``R*`` is not positive
+    definite (smallest eigenvalue at most :data:`PD_TOLERANCE`; the authors note ``Q~`` can then
+    come out negative and ``testcorr`` reports it missing) ``Q~`` falls back to the diagonal form
     ``sum_k t~_k^2`` and ``diagonal_fallback`` is set.
 
     Returns a dict of arrays: ``lag_values`` (the tested lags, shape ``(K,)``), ``t`` (shape
