@@ -193,3 +193,11 @@ def test_bad_options_name_the_argument():
         with pytest.raises(InputError) as err:
             ewc_bias(x, **kwargs)
         assert err.value.argument == name
+
+
+def test_one_cosine_term_would_make_a_useless_test():
+    # EWC_MIN_BINS docstring: with B = 1 (Cauchy) the two-sided 5% critical value is 12.7
+    # (stats.t.ppf(0.975, 1) = 12.706); with the floor of B = 2 it is 4.30.
+    assert round(float(stats.t.ppf(0.975, 1)), 1) == 12.7
+    assert round(float(stats.t.ppf(0.975, 2)), 2) == 4.30
+    assert ewc_bins(11) == 2 and np.floor(0.4 * 11 ** (2 / 3)) == 1
