@@ -1,0 +1,206 @@
+"""Fleet bias: is the weighted mean of the series' mean errors zero, allowing for errors that
+move together across series (a common shock)?
+
+Source: Driscoll & Kraay (1998), "Consistent covariance matrix estimation with spatially
+dependent panel data", Review of Economics and Statistics 80(4), 549-560: the variance of a
+cross-sectional average from the time series of cross-sectional sums of the moment conditions;
+its long-run variance here by the equal-weighted cosine estimator with t critical values of
+Lazarus, Lewis, Stock & Watson (2018) (:mod:`service.core.ewc`).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .batch import Residuals
+from .ewc import EWC_MIN_OBS, cosine_projections, ewc_bins, ewc_variance
+from .residual_arrays import CHUNK_ELEMENTS, align_left, as_residuals
+from .results import skip_reasons_and_ran
+from .tails import norm_sf_two_sided, t_ppf, t_sf_two_sided
+from .types import FloatVector, InputError, IntVector, ObjectVector
+
+
+@dataclass(frozen=True, eq=False)
+class FleetBias:
+    """One entry per fleet (``NaN`` where ``skip_reason`` is set).
+
+    ``theta`` the weighted mean error, ``std_error`` its Driscoll-Kraay standard error, ``t``
+    and ``p_value`` (two-sided, Student t with ``df = bins``), ``ci_low``/``ci_high`` at
+    ``ci_level``; ``n_periods`` the calendar periods spanned, ``n_series`` the series used;
+    ``naive_std_error``, ``naive_z`` and ``naive_p_value`` the test that treats the series as
+    independent (for comparison).
+    """
+
+    theta: FloatVector
+    std_error: FloatVector
+    t: FloatVector
+    df: IntVector
+    p_value: FloatVector
+    ci_low: FloatVector
+    ci_high: FloatVector
+    ci_level: float
+    bins: IntVector
+    n_periods: IntVector
+    n_series: IntVector
+    naive_std_error: FloatVector
+    naive_z: FloatVector
+    naive_p_value: FloatVector
+    skip_reason: ObjectVector
+
+
+def end_aligned_offsets(res: Residuals) -> IntVector:
+    """Calendar position of column 0 of each row when the series' last training periods
+    coincide (counted by position from the end): ``max(lengths) - lengths``."""
+    lengths = res.lengths
+    return (lengths.max(initial=0) - lengths).astype(np.int64)
+
+
+def fleet_bias(
+    res: Residuals | np.ndarray,
+    weights: FloatVector,
+    *,
+    offsets: IntVector | None = None,
+    fleet: IntVector | None = None,
+    bins: int | None = None,
+    ci_level: float = 0.95,
+    min_obs: int = EWC_MIN_OBS,
+) -> FleetBias:
+    """Driscoll-Kraay test that the fleet's weighted mean error is zero.
+
+    With shares ``s_i = w_i / sum w`` over the series used (those with at least ``min_obs``
+    residuals), ``theta = sum_i s_i mean_i`` and, on a common calendar of periods ``t``,
+    ``H_t = sum_i s_i (e_it - mean_i) / T_i`` over the series observed at ``t``
+    (``T_i = n_obs``). ``theta = sum_t G_t`` with ``G_t = sum_i s_i e_it / T_i``, so its
+    variance is ``N`` times the long-run variance of the ``N``-period series ``H_t``
+    (Driscoll & Kraay 1998, with the EWC estimator for that long-run variance):
+    ``SE^2 = N Omega_H``, ``Omega_H = (1/B) sum_{j=1..B} Lambda_j(H)^2``, ``t = theta / SE``
+    referred to Student's t with ``B = ewc_bins(N)`` degrees of freedom (or ``bins``);
+    ``N`` counts the periods from the fleet's first to its last observed period (a period
+    inside with no observation has ``H_t = 0``).
+
+    ``offsets[i]`` is the calendar position of column 0 of row ``i`` (a caller with timestamps
+    passes them); default :func:`end_aligned_offsets`. ``fleet[i]`` (integers ``0..G-1``)
+    assigns series to fleets, each tested separately (default: one fleet).
+
+    The naive comparison treats the series as independent and each as white noise:
+    ``SE_naive^2 = sum_i s_i^2 v_i / T_i`` with ``v_i`` the sample variance (``ddof = 1``),
+    ``z = theta / SE_naive`` referred to the normal.
+
+    With all series identical copies, ``SE`` equals the single-series EWC standard error of
+    :func:`service.core.ewc.ewc_bias`; with one series, the test is that one.
+    """
+    if not 0 < ci_level < 1:
+        raise InputError("ci_level", f"must lie strictly between 0 and 1, got {ci_level}")
+    if bins is not None and bins < 1:
+        raise InputError("bins", f"must be at least 1, got {bins}")
+    res = as_residuals(res)
+    n_series, width = res.values.shape
+    w = np.asarray(weights, dtype=float).reshape(-1)
+    if w.shape != (n_series,):
+        raise InputError("weights", f"has {w.shape[0]} entries, expected {n_series}")
+    if not np.isfinite(w).all() or (w < 0).any():
+        bad = int(np.argmax(~np.isfinite(w) | (w < 0)))
+        raise InputError("weights", "must be finite and non-negative", index=bad)
+    if offsets is None:
+        off = end_aligned_offsets(res)
+    else:
+        off = np.asarray(offsets).reshape(-1)
+        if off.shape != (n_series,) or not np.issubdtype(off.dtype, np.integer):
+            raise InputError("offsets", f"expected {n_series} integer calendar positions")
+        if (off < 0).any():
+            raise InputError("offsets", "must be 0 or more", index=int(np.argmax(off < 0)))
+        off = off.astype(np.int64)
+    if fleet is None:
+        g = np.zeros(n_series, dtype=np.int64)
+    else:
+        g = np.asarray(fleet).reshape(-1)
+        if g.shape != (n_series,) or not np.issubdtype(g.dtype, np.integer) or (g < 0).any():
+            raise InputError("fleet", f"expected {n_series} non-negative integer fleet labels")
+        g = g.astype(np.int64)
+    n_fleets = int(g.max(initial=-1)) + 1
+
+    n = res.n_obs
+    used = (n >= max(min_obs, 2)) & (w > 0)
+    w_used = np.where(used, w, 0.0)
+    total = np.bincount(g, weights=w_used, minlength=n_fleets)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(used, w_used / total[g], 0.0)
+    safe_n = np.maximum(n, 1).astype(float)
+    mean = np.where(used, res.mean, 0.0)
+    theta = np.bincount(g, weights=share * mean, minlength=n_fleets)
+
+    # H on the calendar, one row per fleet, in units of `scale` (largest |H| contribution).
+    coef = share / safe_n  # s_i / T_i
+    n_cal = int((off + res.lengths).max(initial=0))
+    # Largest |H| contribution, to work in its units (no overflow in the squares).
+    with np.errstate(invalid="ignore", over="ignore"):
+        scale = float(
+            np.max(np.abs(coef) * np.abs(res.centred).max(axis=1, initial=0.0), initial=0.0)
+        )
+    scale = scale if scale > 0 else 1.0
+    h = np.zeros(n_fleets * n_cal)
+    first = np.full(n_fleets, n_cal, dtype=np.int64)
+    last = np.full(n_fleets, -1, dtype=np.int64)
+    step = max(1, CHUNK_ELEMENTS // max(width, 1))
+    for lo in range(0, n_series, step):  # blocks of rows: bounded temporaries
+        part = slice(lo, min(lo + step, n_series))
+        rows, cols = np.nonzero(res.observed[part] & used[part, None])
+        rows += lo
+        pos = off[rows] + cols
+        contrib = (coef[rows] / scale) * res.centred[rows, cols]
+        h += np.bincount(g[rows] * n_cal + pos, weights=contrib, minlength=n_fleets * n_cal)
+        np.minimum.at(first, g[rows], pos)
+        np.maximum.at(last, g[rows], pos)
+    h = h.reshape(n_fleets, n_cal)
+    n_periods = np.maximum(last - first + 1, 0)
+    b = ewc_bins(n_periods)
+    if bins is not None:
+        b = np.minimum(int(bins), np.maximum(n_periods - 1, 0)).astype(np.int64)
+    lam = cosine_projections(align_left(h, np.minimum(first, max(n_cal - 1, 0))), n_periods, b)
+    omega = ewc_variance(lam, b)
+    n_used = np.bincount(g, weights=used.astype(float), minlength=n_fleets).astype(np.int64)
+
+    var_i = np.vecdot(res.standard, res.standard) * res.unit**2 / np.maximum(n - 1, 1)
+    with np.errstate(invalid="ignore", over="ignore"):
+        naive_var = np.bincount(
+            g, weights=np.where(used, share * share * var_i / safe_n, 0.0), minlength=n_fleets
+        )
+    with np.errstate(invalid="ignore", over="ignore"):
+        se = scale * np.sqrt(np.maximum(omega, 0.0) * n_periods)
+    reasons, ran = skip_reasons_and_ran(
+        n_fleets,
+        (n_used == 0, f"no series with {max(min_obs, 2)} residuals and a positive weight"),
+        (n_periods < EWC_MIN_OBS, f"fewer than {EWC_MIN_OBS} periods"),
+        (~(se > 0) & (theta == 0), "residuals are all zero"),
+    )
+    df = np.maximum(b, 1).astype(float)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        t = np.where(se > 0, theta / se, np.sign(theta) * np.inf)
+        p = t_sf_two_sided(t, df)
+        q = t_ppf(0.5 + ci_level / 2.0, df)
+        naive_se = np.sqrt(naive_var)
+        z = np.where(naive_se > 0, theta / naive_se, np.sign(theta) * np.inf)
+    nan = np.full(n_fleets, np.nan)
+
+    def keep(x: np.ndarray) -> np.ndarray:
+        return np.where(ran, x, nan)
+
+    return FleetBias(
+        theta=keep(theta),
+        std_error=keep(se),
+        t=keep(t),
+        df=np.where(ran, b, 0),
+        p_value=keep(p),
+        ci_low=keep(theta - q * se),
+        ci_high=keep(theta + q * se),
+        ci_level=ci_level,
+        bins=np.where(ran, b, 0),
+        n_periods=n_periods,
+        n_series=n_used,
+        naive_std_error=keep(naive_se),
+        naive_z=keep(z),
+        naive_p_value=keep(norm_sf_two_sided(z)),
+        skip_reason=reasons,
+    )
