@@ -8,7 +8,13 @@ from .catalogue import CATALOGUE, CHECK_NAMES, CheckSpec
 from .checks.accuracy import mase, naive_scale
 from .checks.autocorrelation import autocorrelations, ljung_box, portmanteau_lags, portmanteau_q
 from .checks.benchmarks import BENCHMARKS, benchmark_forecasts, benchmark_skill
-from .checks.bias import bias, hac_variance_of_mean, newey_west_lags, tracking_signal
+from .checks.bias import (
+    bias,
+    hac_variance_of_mean,
+    newey_west_bias,
+    newey_west_lags,
+    tracking_signal,
+)
 from .checks.intervals import interval_coverage, kupiec_lr, winkler_scores
 from .checks.normality import jarque_bera
 from .checks.sufficiency import data_sufficiency
@@ -54,6 +60,7 @@ __all__ = [
     "make_batch",
     "mase",
     "naive_scale",
+    "newey_west_bias",
     "newey_west_lags",
     "portmanteau_lags",
     "portmanteau_q",

@@ -162,8 +162,11 @@ def fleet_bias(
     omega = ewc_variance(lam, b)
     n_used = np.bincount(g, weights=used.astype(float), minlength=n_fleets).astype(np.int64)
 
-    var_i = np.vecdot(res.standard, res.standard) * res.unit**2 / np.maximum(n - 1, 1)
+    # In units of ``scale`` (as H above), so squares of values near the accepted magnitude
+    # neither overflow nor underflow.
     with np.errstate(invalid="ignore", over="ignore"):
+        var_i = np.vecdot(res.standard, res.standard) * (res.unit / scale) ** 2
+        var_i = var_i / np.maximum(n - 1, 1)
         naive_var = np.bincount(
             g, weights=np.where(used, share * share * var_i / safe_n, 0.0), minlength=n_fleets
         )
@@ -180,7 +183,7 @@ def fleet_bias(
         t = np.where(se > 0, theta / se, np.sign(theta) * np.inf)
         p = t_sf_two_sided(t, df)
         q = t_ppf(0.5 + ci_level / 2.0, df)
-        naive_se = np.sqrt(naive_var)
+        naive_se = scale * np.sqrt(naive_var)
         z = np.where(naive_se > 0, theta / naive_se, np.sign(theta) * np.inf)
     nan = np.full(n_fleets, np.nan)
 

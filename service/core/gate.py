@@ -5,14 +5,21 @@ Steps, all vectorised over series:
 1. Run the checks the policy enables (``run_checks``).
 2. Per check, adjust the p-values across the series it tested with Benjamini-Hochberg (when the
    policy's ``fleet.adjustment`` is ``"bh"``), reported as ``p_adjusted``.
-3. Per series and check, a status from the (adjusted) p-value or the metric's thresholds; a
-   series' verdict is its worst check (a series whose checks all skipped passes, but its
-   ``data_sufficiency`` check says why).
+3. Per series and check, a status from the (adjusted) p-value or the metric's thresholds. With
+   the policy's ``fleet.family`` at ``"bonferroni"`` (the default) the tests that can fail the
+   fleet are one family: each is judged at ``fail_p / K`` with ``K`` the number of such tests
+   (series checks and fleet-level tests) that ran; the warn thresholds likewise, in a family of
+   their own. A check's ``material`` rule turns a significant but negligible effect into a
+   pass. A series' verdict is its worst check; a series on which an essential check (bias,
+   autocorrelation) could not run is at best ``warn``.
 4. Per check over the fleet: tested, failed and warned counts and the weighted shares; the check
    fails the fleet when its failed share exceeds the fail share, warns when its warned-or-failed
-   share exceeds the warn share; a critical series' fail fails it, a critical warn warns it.
-5. The fleet verdict is the worst check and of the fleet-level statistics the checks declare
-   (the fleet bias warns when ``p < fleet.bias_warn_p``).
+   share exceeds the warn share; a critical series' fail fails it, a critical warn warns it. An
+   essential check that tested no series fails the fleet, and warns it when the weight it could
+   not test exceeds the warn share.
+5. The fleet-level tests the checks declare (the fleet bias) are judged at their owner's
+   ``fleet_warn_p`` and ``fleet_fail_p`` within the same families; the fleet verdict is the
+   worst of the checks and those tests.
 
 A verdict is statistical evidence under the stated assumptions, not a guarantee.
 """
@@ -20,13 +27,13 @@ A verdict is statistical evidence under the stated assumptions, not a guarantee.
 from __future__ import annotations
 
 from collections.abc import Iterator, Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
 
 from .batch import SeriesBatch, stack_batches, stack_key
-from .messages import fleet_message, pass_message
+from .messages import fleet_message, not_tested_message, pass_message, untested_message
 from .multiple import benjamini_hochberg_rows
 from .policy import CheckPolicy, Policy
 from .registry import (
@@ -34,6 +41,7 @@ from .registry import (
     PASS,
     SKIPPED,
     WARN,
+    CheckDef,
     Finding,
     FleetFinding,
     all_checks,
@@ -41,6 +49,7 @@ from .registry import (
 )
 from .results import Status
 from .runner import BatchChecks, run_checks
+from .types import InputError
 
 _STATUS = np.array(
     [Status.SKIPPED.value, Status.PASS.value, Status.WARN.value, Status.FAIL.value], dtype=object
@@ -80,6 +89,11 @@ class CheckSummary:
     failed_share: float
     warned_share: float
     message: str
+    fail_p_used: float | None = None
+    """The p-value below which a series failed this test: ``fail_p`` divided by the fleet's
+    fail family size (``None`` for metrics and tests that do not fail)."""
+    warn_p_used: float | None = None
+    """Likewise for warn."""
 
     def to_dict(self) -> dict[str, Any]:
         return {
@@ -92,6 +106,8 @@ class CheckSummary:
             "failed_share": self.failed_share,
             "warned_share": self.warned_share,
             "message": self.message,
+            "fail_p_used": self.fail_p_used,
+            "warn_p_used": self.warn_p_used,
         }
 
 
@@ -110,6 +126,8 @@ class Assessment:
     reasons: tuple[Reason, ...]
     fleet: Mapping[str, FleetFinding]
     """The fleet-level statistics the checks declare, by key (``fleet["bias"]``)."""
+    notes: Mapping[tuple[str, int], str]
+    """The pass sentences of some passing series, by (check, series)."""
 
     @property
     def ids(self) -> tuple[str, ...]:
@@ -124,64 +142,134 @@ class Assessment:
 
 
 def _weights(batch: SeriesBatch, policy: Policy) -> np.ndarray:
+    """The series' weights under the policy's weighting (the batch holds the given weights,
+    and the volume where none was given)."""
     weighting = policy.fleet.weighting
+    if weighting in ("volume", "count") and batch.weights_given.any():
+        raise WeightsNotUsed(weighting, int(np.argmax(batch.weights_given)))
     if weighting == "count":
         return np.ones(batch.n_series)
-    if weighting == "given":
-        return np.asarray(batch.weights, dtype=float)
-    a = batch.actuals
-    return np.where(np.isnan(a), 0.0, np.abs(a)).sum(axis=1)
+    return np.asarray(batch.weights, dtype=float)
+
+
+class WeightsNotUsed(InputError):
+    """Weights were given to a policy whose weighting ignores them: refused rather than
+    silently dropped. ``index`` is the first series with a given weight."""
+
+    def __init__(self, weighting: str, index: int) -> None:
+        self.weighting = weighting
+        super().__init__(
+            "weights",
+            f"the policy weighs series by {weighting!r} (fleet.weighting), which ignores given "
+            "weights: leave the weights out, or use a policy with weighting 'auto' or 'given'",
+            index=index,
+        )
 
 
 def _codes(
-    results: BatchChecks, names: list[str], cps: list[CheckPolicy], adjust: bool, part_size: int
-) -> tuple[np.ndarray, np.ndarray]:
-    """Status codes and BH-adjusted p-values, one row per check in ``names`` (in that order),
-    the adjustment made within each run of ``part_size`` series (one part's).
+    results: BatchChecks,
+    names: list[str],
+    cps: list[CheckPolicy],
+    policy: Policy,
+    part_size: int,
+) -> tuple[np.ndarray, np.ndarray, tuple[np.ndarray, np.ndarray], np.ndarray, np.ndarray]:
+    """Status codes, BH-adjusted p-values, the fail and warn family sizes per part, which
+    significant effects were immaterial, and the bounds used per (check, part), one row
+    per check in ``names`` (in that order), the adjustment made within each run of
+    ``part_size`` series (one part's).
 
-    Tests: the (adjusted, where the policy says so) p-value against ``warn_p``/``fail_p``;
+    Tests: the (adjusted, where the policy says so) p-value against ``fail_p / K_fail`` and
+    ``warn_p / K_warn`` (module docstring, step 3), a significant but immaterial effect passing;
     metrics: the statistic against their bounds. Skipped series get ``SKIPPED``; the adjusted
     p-values of metrics are ``NaN``."""
     checks = [results[name] for name in names]
-    shape = (len(checks), results.batch.n_series)
-    is_test = [r.kind == "test" for r in checks]
+    n = results.batch.n_series
+    shape = (len(checks), n)
+    n_parts = n // part_size if part_size else 0
+    is_test = np.array([r.kind == "test" for r in checks], dtype=bool)
     skipped = np.array([r.skipped for r in checks]).reshape(shape)
     values = np.array(
         [r.p_value if t else r.statistic for r, t in zip(checks, is_test, strict=True)]
     ).reshape(shape)
-    # Per row: fail below, fail above, warn below, warn above (a test's p-value has only the
-    # "below" bounds); a bound that does not apply is NaN, which no comparison passes.
-    bounds = np.array(
-        [
-            (cp.fail_p, None, cp.warn_p, None)
-            if t
-            else (cp.fail_below, cp.fail_above, cp.warn_below, cp.warn_above)
-            for cp, t in zip(cps, is_test, strict=True)
-        ],
-        dtype=float,
-    ).reshape(-1, 4)
     # Metric rows enter the adjustment as all missing, so their adjusted p-values are NaN.
-    not_test = ~np.array(is_test, dtype=bool)[:, None]
-    p_in = np.where(skipped | not_test, np.nan, values)
+    p_in = np.where(skipped | ~is_test[:, None], np.nan, values)
     if part_size == shape[1]:
         p_adj = benjamini_hochberg_rows(p_in)
     elif part_size == 1:
         p_adj = p_in  # one p-value adjusted on its own is itself
     else:
         p_adj = benjamini_hochberg_rows(p_in.reshape(-1, part_size)).reshape(shape)
+    adjust = policy.fleet.adjustment == "bh"
     use_adj = np.array(
         [adjust and t and cp.adjust for cp, t in zip(cps, is_test, strict=True)], dtype=bool
     )[:, None]
     v = np.where(use_adj, p_adj, values)
-    lo_fail, hi_fail, lo_warn, hi_warn = (bounds[:, j : j + 1] for j in range(4))
+    k_fail, k_warn = _family_sizes(names, cps, is_test, skipped, policy, part_size)
+    # Per (check, part): fail below, fail above, warn below, warn above (a test's p-value has
+    # only the "below" bounds, divided by its family's size); a bound that does not apply is
+    # NaN, which no comparison passes.
+    bounds = np.empty((len(checks), n_parts, 4))
+    for j, (cp, t) in enumerate(zip(cps, is_test, strict=True)):
+        if t:
+            fail_p = np.nan if cp.fail_p is None else cp.fail_p
+            warn_p = np.nan if cp.warn_p is None else cp.warn_p
+            bounds[j] = np.stack(
+                [
+                    fail_p / k_fail,
+                    np.full(n_parts, np.nan),
+                    warn_p / k_warn,
+                    np.full(n_parts, np.nan),
+                ],
+                axis=-1,
+            )
+        else:
+            bounds[j] = np.array(
+                [cp.fail_below, cp.fail_above, cp.warn_below, cp.warn_above], dtype=float
+            )
+    per_series = np.repeat(bounds, part_size, axis=1) if n_parts else np.zeros((len(checks), 0, 4))
+    lo_fail, hi_fail, lo_warn, hi_warn = (per_series[..., j] for j in range(4))
     codes = np.where(
         (v < lo_fail) | (v > hi_fail), FAIL, np.where((v < lo_warn) | (v > hi_warn), WARN, PASS)
     )
-    for j, name in enumerate(names):
-        cap = checks_by_name()[name].cap
-        if cap is not None:
-            codes[j] = cap(checks[j], codes[j])
-    return np.where(skipped, SKIPPED, codes), p_adj
+    immaterial = np.zeros(shape, dtype=bool)
+    for j, (name, cp) in enumerate(zip(names, cps, strict=True)):
+        check = checks_by_name()[name]
+        if check.material is not None:
+            small = ~check.material(checks[j], cp) & (codes[j] >= WARN)
+            immaterial[j] = small
+            codes[j] = np.where(small, PASS, codes[j])
+        if check.cap is not None:
+            codes[j] = check.cap(checks[j], codes[j])
+    return np.where(skipped, SKIPPED, codes), p_adj, (k_fail, k_warn), immaterial, bounds
+
+
+def _family_sizes(
+    names: list[str],
+    cps: list[CheckPolicy],
+    is_test: np.ndarray,
+    skipped: np.ndarray,
+    policy: Policy,
+    part_size: int,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Per part: how many tests can fail the fleet (``K_fail``) and how many can warn it
+    (``K_warn``): the series tests with the threshold set that tested at least one of the
+    part's series, and the fleet-level tests with theirs set whose owner did. Both are 1 with
+    ``fleet.family = "none"`` (and at least 1)."""
+    n_parts = skipped.shape[1] // part_size if part_size else 0
+    if policy.fleet.family == "none" or not n_parts:
+        return np.ones(n_parts), np.ones(n_parts)
+    ran = (~skipped).reshape(len(names), n_parts, part_size).any(axis=-1)
+    k_fail = np.zeros(n_parts)
+    k_warn = np.zeros(n_parts)
+    for j, (name, cp, t) in enumerate(zip(names, cps, is_test, strict=True)):
+        if t and cp.fail_p is not None:
+            k_fail += ran[j]
+        if t and (cp.warn_p is not None or cp.fail_p is not None):
+            k_warn += ran[j]
+        if checks_by_name()[name].fleet is not None:
+            k_fail += ran[j] * (cp.fleet_fail_p is not None)
+            k_warn += ran[j] * (cp.fleet_warn_p is not None or cp.fleet_fail_p is not None)
+    return np.maximum(k_fail, 1), np.maximum(k_warn, 1)
 
 
 def _shares(weights: np.ndarray, hit: np.ndarray, tested: np.ndarray) -> np.ndarray:
@@ -203,7 +291,11 @@ def _plan(
     """The policy's settings per check, the checks it enables and their options."""
     cps_all = {c.name: policy.check(c.name) for c in all_checks()}
     enabled = tuple(name for name, cp in cps_all.items() if cp.enabled)
-    return cps_all, enabled, {n: cps_all[n].options() for n in enabled}
+    options = {}
+    for name in enabled:
+        accepted = checks_by_name()[name].runner_options
+        options[name] = {k: v for k, v in cps_all[name].options().items() if k in accepted}
+    return cps_all, enabled, options
 
 
 def assess(batch: SeriesBatch, policy: Policy) -> Assessment:
@@ -268,6 +360,8 @@ class _Decided:
     status_codes: Mapping[str, np.ndarray]
     p_adjusted: Mapping[str, np.ndarray]
     weights: np.ndarray
+    notes: Mapping[tuple[str, int], str]
+    """The pass sentences of some passing series, by (check, stacked row)."""
 
 
 def _decide_parts(
@@ -286,20 +380,25 @@ def _decide_parts(
     if any(part.n_series != size for part in parts) or n_parts * size != batch.n_series:
         raise ValueError("_decide_parts: the parts must be of one size and make up the batch")
     weights = _weights(batch, policy)
-    adjust = policy.fleet.adjustment == "bh"
     if policy.fleet.critical_series:
         critical = np.isin(np.array(batch.ids, dtype=object), list(policy.fleet.critical_series))
     else:
         critical = np.zeros(batch.n_series, dtype=bool)
 
-    fleet = policy.fleet
-    names = [c.name for c in all_checks() if c.name in stacked.checks]
+    fleet_policy = policy.fleet
+    defs = [c for c in all_checks() if c.name in stacked.checks]
+    names = [c.name for c in defs]
     cps = [cps_all[name] for name in names]
     if names:
-        matrix, p_matrix = _codes(stacked, names, cps, adjust, size)
+        matrix, p_matrix, (k_fail, k_warn), immaterial, bounds = _codes(
+            stacked, names, cps, policy, size
+        )
     else:
         matrix = np.zeros((0, batch.n_series), dtype=int)
         p_matrix = np.zeros((0, batch.n_series))
+        immaterial = np.zeros((0, batch.n_series), dtype=bool)
+        bounds = np.zeros((0, n_parts, 4))
+        k_fail = k_warn = np.ones(n_parts)
     # (check, part, series within the part): reductions over the last axis are per part.
     cube = matrix.reshape(len(names), n_parts, size)
     w_parts = weights.reshape(n_parts, size)
@@ -307,18 +406,28 @@ def _decide_parts(
     failed, warned = cube == FAIL, cube == WARN
     failed_share = _shares(w_parts, failed, tested)
     warned_share = _shares(w_parts, warned, tested)
+    everyone = np.ones_like(tested)
+    untested_share = _shares(w_parts, ~tested, everyone)
     fail_share = np.array(
-        [fleet.fail_share if cp.fail_share is None else cp.fail_share for cp in cps], dtype=float
+        [fleet_policy.fail_share if cp.fail_share is None else cp.fail_share for cp in cps],
+        dtype=float,
     )[:, None]
     warn_share = np.array(
-        [fleet.warn_share if cp.warn_share is None else cp.warn_share for cp in cps], dtype=float
+        [fleet_policy.warn_share if cp.warn_share is None else cp.warn_share for cp in cps],
+        dtype=float,
     )[:, None]
+    essential = np.array([c.essential for c in defs], dtype=bool)[:, None]
     crit_parts = critical.reshape(n_parts, size)
     crit_warned = (crit_parts & warned).any(axis=-1)
     crit_failed = (crit_parts & failed).any(axis=-1)
     status = np.where(tested.any(axis=-1), PASS, SKIPPED)
     status = np.where((failed_share + warned_share > warn_share) | crit_warned, WARN, status)
     status = np.where((failed_share > fail_share) | crit_failed, FAIL, status)
+    # Fail closed: an essential check that could not test enough of the fleet.
+    closed_warn = essential & (untested_share > warn_share)
+    closed_fail = essential & ~tested.any(axis=-1) & (size > 0)
+    status = np.where(closed_warn & (status < WARN), WARN, status)
+    status = np.where(closed_fail, FAIL, status)
     # Per part (columns), per check (rows): plain Python values, converted once.
     columns = [
         a.T.tolist()
@@ -332,13 +441,26 @@ def _decide_parts(
             np.broadcast_to(fail_share, status.shape),
             np.broadcast_to(warn_share, status.shape),
             crit_warned | crit_failed,
+            untested_share,
+            np.broadcast_to(closed_warn | closed_fail, status.shape),
         )
     ]
-    # Series reasons of every part at once: (check, part, series) of each warn or fail.
+    # Series reasons of every part at once: (check, part, series) of each warn or fail, and of
+    # each essential check that could not run.
     hits: list[list[tuple[int, int, int]]] = [[] for _ in range(n_parts)]
     for j, g, i in zip(*(ix.tolist() for ix in np.nonzero(cube >= WARN)), strict=True):
         hits[g].append((j, i, int(cube[j, g, i])))
+    unchecked: list[list[tuple[int, int]]] = [[] for _ in range(n_parts)]
+    for j, g, i in zip(
+        *(ix.tolist() for ix in np.nonzero(essential[:, :, None] & ~tested)), strict=True
+    ):
+        unchecked[g].append((j, i))
     series_codes_all = matrix.max(axis=0) if names else np.zeros(batch.n_series, dtype=int)
+    if names:
+        not_run = (essential & (matrix == SKIPPED)).any(axis=0)
+        series_codes_all = np.where(not_run, np.maximum(series_codes_all, WARN), series_codes_all)
+    hints = _hints(defs, stacked)
+    notes = _pass_notes(defs, stacked, matrix, p_matrix, immaterial)
     split = stacked.split(parts) if n_parts > 1 else [stacked]
     out = []
     for g, (part, results) in enumerate(zip(parts, split, strict=True)):
@@ -357,7 +479,17 @@ def _decide_parts(
             f_limit,
             w_limit,
             crit,
-        ) in zip(names, zip(*(col[g] for col in columns), strict=True), strict=True):
+            u_share,
+            closed,
+        ), used in zip(
+            names, zip(*(col[g] for col in columns), strict=True), bounds[:, g], strict=True
+        ):
+            if closed:
+                message = untested_message(name, st, size - n_tested, size, u_share)
+            else:
+                message = fleet_message(
+                    name, st, n_failed, n_warned, n_tested, f_share, w_share, f_limit, w_limit, crit
+                )
             summary = CheckSummary(
                 name=name,
                 status=_STATUS_ENUM[st],
@@ -367,30 +499,31 @@ def _decide_parts(
                 series_skipped=size - n_tested,
                 failed_share=f_share,
                 warned_share=w_share,
-                message=fleet_message(
-                    name, st, n_failed, n_warned, n_tested, f_share, w_share, f_limit, w_limit, crit
-                ),
+                message=message,
+                **_used(checks_by_name()[name].kind, used),
             )
             summaries.append(summary)
             if st >= WARN:
                 fleet_reasons.append((st, Reason(name, summary.status, None, summary.message)))
         for j, i, c in hits[g]:
-            name = names[j]
-            reason = Reason(
-                name,
-                _STATUS_ENUM[c],
-                part.ids[i],
-                checks_by_name()[name].reason(
-                    Finding(stacked[name], rows.start + i, c, p_matrix[j])
-                ),
-            )
+            check = defs[j]
+            text = check.reason(Finding(stacked[check.name], rows.start + i, c, p_matrix[j]))
+            note = None if check.needs_holdout else hints.get(rows.start + i)
+            if note:
+                text = f"{text[:-1]}; {note}."
+            reason = Reason(check.name, _STATUS_ENUM[c], part.ids[i], text)
             series_reasons.append((c, -float(part_weights[i]), i, reason))
+        for j, i in unchecked[g]:
+            check = defs[j]
+            why = stacked[check.name].skip_reason[rows.start + i]
+            reason = Reason(check.name, Status.WARN, part.ids[i], not_tested_message(check, why))
+            series_reasons.append((WARN, -float(part_weights[i]), i, reason))
         codes = dict(zip(names, matrix[:, rows], strict=True))
         p_adjusted = dict(zip(names, p_matrix[:, rows], strict=True))
         # Codes order as severities: fail > warn > pass > skipped.
         fleet_code = max(int(status[:, g].max(initial=PASS)), PASS)
-        fleet = _fleet_findings(results, part_weights, policy)
-        for name, finding in fleet.values():
+        findings = _fleet_findings(results, part_weights, policy, k_fail[g], k_warn[g])
+        for name, finding in findings.values():
             if finding.code >= WARN:
                 fleet_code = max(fleet_code, finding.code)
                 level = _STATUS_ENUM[finding.code]
@@ -412,7 +545,12 @@ def _decide_parts(
                 series_codes=series_codes_all[rows],
                 summaries=tuple(summaries),
                 reasons=tuple(ordered),
-                fleet={key: finding for key, (_, finding) in fleet.items()},
+                fleet={key: finding for key, (_, finding) in findings.items()},
+                notes={
+                    (name, i - rows.start): text
+                    for (name, i), text in notes.items()
+                    if rows.start <= i < rows.stop
+                },
             )
         )
     return _Decided(
@@ -421,23 +559,72 @@ def _decide_parts(
         dict(zip(names, matrix, strict=True)),
         dict(zip(names, p_matrix, strict=True)),
         weights,
+        notes,
     )
 
 
+def _used(kind: str, bounds: np.ndarray) -> dict[str, float | None]:
+    """The p-value thresholds a test's series were judged by (``None`` when not set)."""
+    if kind != "test":
+        return {"fail_p_used": None, "warn_p_used": None}
+    fail, warn = float(bounds[0]), float(bounds[2])
+    return {
+        "fail_p_used": fail if np.isfinite(fail) else None,
+        "warn_p_used": warn if np.isfinite(warn) else None,
+    }
+
+
+def _hints(defs: Sequence[CheckDef], checks: BatchChecks) -> dict[int, str]:
+    """Per stacked row: the notes checks add to the reasons of that series' residual checks."""
+    out: dict[int, str] = {}
+    for check in defs:
+        if check.hint is not None:
+            for i, text in check.hint(checks[check.name]).items():
+                out[i] = f"{out[i]}; {text}" if i in out else text
+    return out
+
+
+def _pass_notes(
+    defs: Sequence[CheckDef],
+    checks: BatchChecks,
+    matrix: np.ndarray,
+    p_matrix: np.ndarray,
+    immaterial: np.ndarray,
+) -> dict[tuple[str, int], str]:
+    """``(check, stacked row) -> sentence`` for passing series whose pass sentence is the
+    check's own (``pass_notes``), not the default."""
+    out: dict[tuple[str, int], str] = {}
+    for j, check in enumerate(defs):
+        if check.pass_notes is not None:
+            found = check.pass_notes(checks[check.name], p_matrix[j], matrix[j], immaterial[j])
+            out.update(((check.name, i), text) for i, text in found.items())
+    return out
+
+
 def _fleet_findings(
-    results: BatchChecks, weights: np.ndarray, policy: Policy
+    results: BatchChecks, weights: np.ndarray, policy: Policy, k_fail: float, k_warn: float
 ) -> dict[str, tuple[str, FleetFinding]]:
-    """Every fleet-level statistic the registered checks declare, by key, with the name of
-    the check that declares it: computed when that check ran, else its empty value."""
+    """Every fleet-level test the registered checks declare, by key, with the name of the
+    check that declares it: computed when that check ran (else its empty value) and judged at
+    the owner's ``fleet_fail_p / K_fail`` and ``fleet_warn_p / K_warn``, when material."""
     out = {}
     for check in all_checks():
-        if check.fleet is not None:
-            test = check.fleet
-            ran = check.name in results.checks
-            out[test.key] = (
-                check.name,
-                test.compute(results, weights, policy) if ran else test.empty,
-            )
+        if check.fleet is None:
+            continue
+        test = check.fleet
+        if check.name not in results.checks:
+            out[test.key] = (check.name, test.empty)
+            continue
+        finding = test.compute(results, weights, policy)
+        cp = policy.check(check.name)
+        p = finding.p_value
+        code = PASS
+        if finding.material and np.isfinite(p):
+            if cp.fleet_fail_p is not None and p < cp.fleet_fail_p / k_fail:
+                code = FAIL
+            elif finding.warn_p is not None and p < finding.warn_p / k_warn:
+                code = WARN
+        out[test.key] = (check.name, replace(finding, code=code))
     return out
 
 
@@ -453,7 +640,7 @@ def _columns(arrays: list[np.ndarray]) -> list[list[Any]]:
 
 
 def _to_dict(a: Assessment) -> dict[str, Any]:
-    return _rendered(_Decided([a], a.results, a.status_codes, a.p_adjusted, a.weights))[0]
+    return _rendered(_Decided([a], a.results, a.status_codes, a.p_adjusted, a.weights, a.notes))[0]
 
 
 def _rendered(d: _Decided) -> list[dict[str, Any]]:
@@ -489,7 +676,7 @@ def _rendered(d: _Decided) -> list[dict[str, Any]]:
     weights = converted.pop()
     for (name, key), values in zip(float_keys, converted, strict=True):
         columns[name][key] = values
-    messages: dict[tuple[str, int], str] = {}
+    messages: dict[tuple[str, int], str] = dict(d.notes)
     verdicts: list[str] = []
     for g, a in enumerate(d.assessments):
         index_of = {sid: g * size + i for i, sid in enumerate(a.ids)}
@@ -504,9 +691,7 @@ def _rendered(d: _Decided) -> list[dict[str, Any]]:
         text = [
             skip
             if status == "skipped"
-            else passed
-            if status == "pass"
-            else messages.get((name, i), "")
+            else messages.get((name, i), passed if status == "pass" else "")
             for i, (status, skip) in enumerate(zip(col["status"], col["skip"], strict=True))
         ]
         keys = tuple(res.details)

@@ -3,7 +3,7 @@
 
 from __future__ import annotations
 
-from .registry import FAIL, WARN, checks_by_name
+from .registry import FAIL, WARN, CheckDef, checks_by_name
 
 
 def pass_message(name: str) -> str:
@@ -47,3 +47,25 @@ def fleet_message(
         )
         return f"{head}{why}; {check.meaning}."
     return f"{head}; within the policy's shares."
+
+
+def untested_message(name: str, code: int, untested: int, size: int, share: float) -> str:
+    """The fleet-level sentence for an essential check that could not test enough series."""
+    check = checks_by_name()[name]
+    if untested >= size:
+        return (
+            f"{check.title}: could not be tested on any of the {size} series; a gate that "
+            "cannot test an essential property does not pass: see each series' reason."
+        )
+    return (
+        f"{check.title}: could not be tested on {untested} of {size} series ({share:.1%} of "
+        "the weight); those series cannot pass: see each series' reason."
+    )
+
+
+def not_tested_message(check: CheckDef, why: object) -> str:
+    """The series-level sentence for an essential check that could not run on the series."""
+    return (
+        f"{check.title.lower()} could not be tested ({why}): without it the series cannot "
+        "pass; supply more usable residuals or check why they are missing."
+    )

@@ -24,10 +24,12 @@ from typing import Any, Literal
 from .registry import CheckPolicy, all_checks, check_names, checks_by_name
 from .types import InputError
 
-Weighting = Literal["volume", "count", "given"]
+Weighting = Literal["auto", "volume", "count", "given"]
 Adjustment = Literal["bh", "none"]
-WEIGHTINGS = ("volume", "count", "given")
+Family = Literal["bonferroni", "none"]
+WEIGHTINGS = ("auto", "volume", "count", "given")
 ADJUSTMENTS = ("bh", "none")
+FAMILIES = ("bonferroni", "none")
 
 
 class PolicyError(InputError):
@@ -47,18 +49,32 @@ class FleetPolicy:
 
     ``adjustment``: ``"bh"`` adjusts each check's p-values across series with Benjamini-Hochberg,
     so a test threshold is a false discovery rate; ``"none"`` judges raw p-values.
+
+    ``family``: ``"bonferroni"`` makes the fleet's fail decision one family of tests: each
+    test that can fail the fleet (a check with ``fail_p``, a fleet-level test with
+    ``fleet_fail_p``) is judged at its threshold divided by the number of such tests that ran,
+    so a sound model fails at most at the largest ``fail_p`` whatever the fleet's size, a
+    single series included; the warn decision (warn or worse) is a family of its own in the
+    same way, at the warn thresholds. ``"none"`` judges each test at its own threshold.
+
     A check fails the fleet when the weighted share of tested series that fail exceeds
     ``fail_share``, and warns when the share that warn or fail exceeds ``warn_share``. Any fail
-    on a ``critical_series`` fails the fleet; any warn there warns it. ``bias_warn_p``: the fleet
-    warns when the aggregate bias test (series taken as independent) has p below it.
+    on a ``critical_series`` fails the fleet; any warn there warns it.
+
+    ``weighting``: ``"auto"`` uses a series' given weight and its volume where none is given;
+    ``"given"`` the given weights (volume where missing); ``"volume"`` and ``"count"`` ignore
+    weights, so a request that gives weights to a policy with either is refused.
+
+    ``bias_warn_p``: the earlier name of ``checks.bias.fleet_warn_p``; when set it overrides it.
     """
 
     adjustment: Adjustment = "bh"
     warn_share: float = 0.02
     fail_share: float = 0.05
-    weighting: Weighting = "volume"
+    weighting: Weighting = "auto"
     critical_series: tuple[str, ...] = ()
-    bias_warn_p: float | None = 0.01
+    bias_warn_p: float | None = None
+    family: Family = "bonferroni"
 
 
 # Each check's default rule, declared beside the check (common practice where marked there;
@@ -133,6 +149,7 @@ def default_policy() -> Policy:
 # ----------------------------------------------------------------------------------- validation
 
 _CHECK_FIELDS = {f.name for f in fields(CheckPolicy) if f.name != "option_values"}
+_PROBABILITIES = ("warn_p", "fail_p", "warn_share", "fail_share", "fleet_warn_p", "fleet_fail_p")
 _FLEET_FIELDS = {f.name: f for f in fields(FleetPolicy)}
 
 
@@ -178,7 +195,7 @@ def _parse_check(name: str, raw: Any, errors: list[dict[str, str]]) -> CheckPoli
             if problem:
                 errors.append({"loc": where, "message": problem})
                 continue
-            options[key] = value
+            options[key] = None if value is None else option_fields[key].value(value)
         elif value is None:
             values[key] = None
         elif key in ("enabled", "adjust"):
@@ -186,7 +203,14 @@ def _parse_check(name: str, raw: Any, errors: list[dict[str, str]]) -> CheckPoli
                 errors.append({"loc": where, "message": "must be true or false"})
                 continue
             values[key] = value
-        elif key in ("warn_p", "fail_p", "warn_share", "fail_share"):
+        elif key in (
+            "warn_p",
+            "fail_p",
+            "warn_share",
+            "fail_share",
+            "fleet_warn_p",
+            "fleet_fail_p",
+        ):
             if not _is_number(value) or not 0 <= value <= 1:
                 errors.append({"loc": where, "message": "must be a number between 0 and 1"})
                 continue
@@ -202,6 +226,7 @@ def _parse_check(name: str, raw: Any, errors: list[dict[str, str]]) -> CheckPoli
     policy = replace(base, **values)
     for lo_key, hi_key, rule in (
         ("fail_p", "warn_p", "fail_p must not exceed warn_p"),
+        ("fleet_fail_p", "fleet_warn_p", "fleet_fail_p must not exceed fleet_warn_p"),
         ("fail_share", "warn_share", None),
         ("warn_above", "fail_above", "warn_above must not exceed fail_above"),
         ("fail_below", "warn_below", "fail_below must not exceed warn_below"),
@@ -226,9 +251,10 @@ def _parse_fleet(raw: Any, errors: list[dict[str, str]]) -> FleetPolicy:
                 errors.append({"loc": where, "message": f"must be one of {', '.join(ADJUSTMENTS)}"})
             else:
                 values[key] = value
-        elif key == "weighting":
-            if value not in WEIGHTINGS:
-                errors.append({"loc": where, "message": f"must be one of {', '.join(WEIGHTINGS)}"})
+        elif key in ("weighting", "family"):
+            allowed = WEIGHTINGS if key == "weighting" else FAMILIES
+            if value not in allowed:
+                errors.append({"loc": where, "message": f"must be one of {', '.join(allowed)}"})
             else:
                 values[key] = value
         elif key == "critical_series":

@@ -19,7 +19,7 @@ import pkgutil
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from functools import cache
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
 
@@ -39,21 +39,57 @@ METRIC_THRESHOLDS = ("warn_above", "fail_above", "warn_below", "fail_below")
 
 @dataclass(frozen=True)
 class Option:
-    """An option of a check's statistic (``lags``, ``window``...).
+    """An option of a check's statistic (``lags``, ``window``...) or of its decision
+    (``min_sd``...).
 
-    ``minimum`` bounds an integer option from below. Options with ``in_policy=False`` are
-    accepted by :func:`service.core.run_checks` but not by policies (``ci_level``).
+    ``kind`` is ``"int"`` (bounded below by ``minimum``), ``"float"`` (a finite number from
+    ``minimum`` to ``maximum``) or ``"choices"`` (a list of names from ``choices``, at least
+    one). Options with ``in_policy=False`` are accepted by :func:`service.core.run_checks` but
+    not by policies (``ci_level``); options with ``for_runner=False`` are read by the check's
+    decision (its ``material`` rule) and not passed to the statistic.
     """
 
     name: str
-    minimum: int = 0
+    minimum: float = 0
     in_policy: bool = True
+    kind: Literal["int", "float", "choices"] = "int"
+    maximum: float | None = None
+    choices: tuple[str, ...] = ()
+    for_runner: bool = True
 
     def problem(self, value: Any) -> str | None:
         """Why ``value`` is not valid for this option, or ``None`` when it is."""
+        if self.kind == "choices":
+            if (
+                not isinstance(value, list)
+                or not value
+                or not all(isinstance(v, str) and v in self.choices for v in value)
+                or len(set(value)) != len(value)
+            ):
+                return f"must be a list of distinct names from {', '.join(self.choices)}"
+            return None
+        if self.kind == "float":
+            number = isinstance(value, (int, float)) and not isinstance(value, bool)
+            if (
+                not number
+                or not math.isfinite(value)
+                or value < self.minimum
+                or (self.maximum is not None and value > self.maximum)
+            ):
+                top = "" if self.maximum is None else f" and at most {self.maximum:g}"
+                return f"must be a number of at least {self.minimum:g}{top}"
+            return None
         if isinstance(value, bool) or not isinstance(value, int) or value < self.minimum:
-            return f"must be an integer >= {self.minimum}"
+            return f"must be an integer >= {self.minimum:g}"
         return None
+
+    def value(self, raw: Any) -> Any:
+        """The parsed value of a valid ``raw`` (floats as float, choices as a tuple)."""
+        if self.kind == "float":
+            return float(raw)
+        if self.kind == "choices":
+            return tuple(raw)
+        return raw
 
 
 @dataclass(frozen=True)
@@ -77,6 +113,8 @@ class CheckPolicy:
     adjust: bool = True
     warn_share: float | None = None
     fail_share: float | None = None
+    fleet_warn_p: float | None = None
+    fleet_fail_p: float | None = None
     option_values: tuple[tuple[str, Any], ...] = ()
 
     def option(self, name: str) -> Any:
@@ -84,7 +122,7 @@ class CheckPolicy:
         return dict(self.option_values).get(name)
 
     def options(self) -> dict[str, Any]:
-        """Keyword options for the statistic: the options that are set."""
+        """The options that are set."""
         return {k: v for k, v in self.option_values if v is not None}
 
 
@@ -146,17 +184,25 @@ class SeriesSection:
 
 @dataclass(frozen=True)
 class FleetFinding:
-    """A fleet-level statistic of one check: the record (with a ``to_dict()``) and, when it
-    warns or fails the fleet, the status code and the sentence."""
+    """A fleet-level test of one check: the record written to the result (with a
+    ``to_dict()``), its p-value, whether the effect is large enough to matter (the check's
+    ``material`` rule at the fleet level), the sentence for a warn or fail, and the status
+    the gate gave it (``code``, set by the gate from the owner's ``fleet_warn_p`` and
+    ``fleet_fail_p``, within the fleet's family of tests)."""
 
     result: Any
-    code: int = PASS
+    p_value: float = float("nan")
+    material: bool = True
     message: str = ""
+    warn_p: float | None = None
+    """The warn threshold (before the family's division): the owner's ``fleet_warn_p``, or
+    what ``compute`` found in the policy instead."""
+    code: int = PASS
 
 
 @dataclass(frozen=True)
 class FleetTest:
-    """A fleet-level statistic declared by a check (the fleet bias), written to the result's
+    """A fleet-level test declared by a check (the fleet bias), written to the result's
     ``fleet[key]``. ``compute(checks, weights, policy)`` gets one part's checks and weights;
     ``empty`` stands in when the check did not run."""
 
@@ -168,6 +214,8 @@ class FleetTest:
 Runner = Callable[..., CheckResult]
 SentenceFn = Callable[[Finding], str]
 CapFn = Callable[[CheckResult, np.ndarray], np.ndarray]
+MaterialFn = Callable[[CheckResult, "CheckPolicy"], np.ndarray]
+NotesFn = Callable[[CheckResult, np.ndarray, np.ndarray, np.ndarray], Mapping[int, str]]
 
 
 @dataclass(frozen=True)
@@ -205,7 +253,21 @@ class CheckDef:
     section : SeriesSection, optional
         A section of the series rows this check owns.
     fleet : FleetTest, optional
-        A fleet-level statistic this check owns.
+        A fleet-level test this check owns.
+    essential : bool
+        The property the check tests is essential (a zero mean, no autocorrelation): a series
+        it could not test is at best ``warn``, and a fleet it tested none of fails.
+    material : callable, optional
+        ``material(result, check_policy) -> bool per series``: whether an effect is large
+        enough to matter (bias of at least ``min_sd`` residual standard deviations or
+        ``min_percent`` of the level). A significant but immaterial effect passes.
+    pass_notes : callable, optional
+        ``pass_notes(result, p_adjusted, codes, immaterial) -> {series: sentence}``: the pass
+        sentence of some passing series, where the default would not say what their numbers
+        show (``immaterial``: significant effects that the ``material`` rule let pass).
+    hint : callable, optional
+        ``hint(result) -> {series: sentence}``: a note added to the reasons of every residual
+        check of those series (the first residuals look like a model's burn-in).
     """
 
     name: str
@@ -229,10 +291,17 @@ class CheckDef:
     cap: CapFn | None = None
     section: SeriesSection | None = None
     fleet: FleetTest | None = None
+    essential: bool = False
+    material: MaterialFn | None = None
+    pass_notes: NotesFn | None = None
+    hint: Callable[[CheckResult], Mapping[int, str]] | None = None
     option_names: frozenset[str] = field(init=False, default=frozenset())
+    runner_options: frozenset[str] = field(init=False, default=frozenset())
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "option_names", frozenset(o.name for o in self.options))
+        runner = frozenset(o.name for o in self.options if o.for_runner)
+        object.__setattr__(self, "runner_options", runner)
 
     @property
     def policy_fields(self) -> frozenset[str]:
@@ -241,6 +310,8 @@ class CheckDef:
         allowed |= {o.name for o in self.options if o.in_policy}
         if self.kind == "test":
             allowed |= {*TEST_THRESHOLDS, "adjust"}
+        if self.fleet is not None:
+            allowed |= {"fleet_warn_p", "fleet_fail_p"}
         allowed |= set(self.thresholds)
         return frozenset(allowed)
 

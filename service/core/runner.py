@@ -12,7 +12,7 @@ from .results import CheckResult
 from .types import InputError
 
 # Options each check accepts (besides the batch-wide season length and model parameters).
-CHECK_OPTIONS: Mapping[str, frozenset[str]] = {c.name: c.option_names for c in all_checks()}
+CHECK_OPTIONS: Mapping[str, frozenset[str]] = {c.name: c.runner_options for c in all_checks()}
 
 
 @dataclass(frozen=True, eq=False)

@@ -15,6 +15,7 @@ from service.core import (
     bias,
     hac_variance_of_mean,
     make_batch,
+    newey_west_bias,
     newey_west_lags,
     run_checks,
     tracking_signal,
@@ -69,7 +70,7 @@ def test_default_hac_variance_equals_statsmodels_default_lag_rule(n):
     [(0, 0.2221968), (2, 0.2216810), (4, 0.2060640)],
 )
 def test_x20_hac_standard_error(lags, se):
-    result = bias(residuals([X20]), np.ones(1), hac_lags=lags)
+    result = newey_west_bias(residuals([X20]), np.ones(1), hac_lags=lags)
     # Published to 7 significant digits.
     np.testing.assert_allclose(result.details["std_error"][0], se, rtol=5e-7)
     np.testing.assert_allclose(
@@ -80,7 +81,7 @@ def test_x20_hac_standard_error(lags, se):
 def test_macro_bias_matches_ols_hac():
     # MACRO residuals have mean zero by construction (OLS with a constant): t ~ 0.
     e = macro_residuals()
-    result = bias(residuals([e]), np.ones(1), hac_lags=4)
+    result = newey_west_bias(residuals([e]), np.ones(1), hac_lags=4)
     ref = _ones_hac(e, 4)
     np.testing.assert_allclose(result.details["std_error"][0], ref.bse[0], rtol=RTOL)
     assert abs(result.statistic[0]) < 1e-10
@@ -98,7 +99,7 @@ def test_bias_matches_statsmodels_ols_hac(hac_lags):
     rows[2][:1] = np.nan
     rows[4][:3] = np.nan
     res = residuals(rows)
-    result = bias(res, _scale(res), hac_lags=hac_lags)
+    result = newey_west_bias(res, _scale(res), hac_lags=hac_lags)
     for i, row in enumerate(rows):
         e = observed(row)
         lags = newey_west_lags(e.size) if hac_lags is None else min(hac_lags, e.size - 1)
@@ -121,7 +122,7 @@ def test_zero_lags_is_the_one_sample_t_test_with_population_variance():
     rows = invented_rows(rng, [4, 9, 25, 80])
     rows = [r + 0.4 for r in rows]
     res = residuals(rows)
-    result = bias(res, _scale(res), hac_lags=0)
+    result = newey_west_bias(res, _scale(res), hac_lags=0)
     for i, e in enumerate(rows):
         n = e.size
         ref = stats.ttest_1samp(e, 0.0)
@@ -149,7 +150,7 @@ def test_hac_with_interior_gaps_uses_observed_pairs():
     w = 1 - np.arange(1, lags + 1) / (lags + 1)
     ref = (gamma[0] + 2 * (w * gamma[1:]).sum()) / observed(e).size
     np.testing.assert_allclose(hac_variance_of_mean(res, np.array([lags]))[0], ref, rtol=RTOL)
-    result = bias(res, np.ones(1), hac_lags=lags)
+    result = newey_west_bias(res, np.ones(1), hac_lags=lags)
     np.testing.assert_allclose(result.statistic[0], np.nanmean(e) / np.sqrt(ref), rtol=RTOL)
     assert result.details["df"][0] == 55
 
@@ -158,7 +159,7 @@ def test_ci_level_changes_interval_not_test():
     rng = np.random.default_rng(5)
     e = rng.normal(0.5, 1.0, 40)
     ref = _ones_hac(e, 3)
-    r90 = bias(residuals([e]), np.ones(1), hac_lags=3, ci_level=0.9)
+    r90 = newey_west_bias(residuals([e]), np.ones(1), hac_lags=3, ci_level=0.9)
     low, high = ref.conf_int(alpha=0.10)[0]
     np.testing.assert_allclose(
         [r90.details["ci_low"][0], r90.details["ci_high"][0]], [low, high], rtol=RTOL
@@ -288,3 +289,29 @@ def test_tracking_signal_skips_and_options():
     assert tracking_signal(residuals(rows), window=12, min_obs=5).skip_reason[2] is None
     short = tracking_signal(residuals([np.arange(12.0)]), window=12, min_obs=5)
     assert short.skip_reason[0] == "fewer than 13 residuals for a window of 12"
+
+
+def test_the_bias_check_tests_with_ewc_and_reports_newey_west_beside_it():
+    # The check's statistic is the EWC t test; the Newey-West figures sit in its details.
+    from service.core.ewc import ewc_bias
+
+    rng = np.random.default_rng(12)
+    rows = invented_rows(rng, [80, 52, 104, 20, 60, 33])
+    res = residuals(rows)
+    scale = _scale(res)
+    check = bias(res, scale, hac_lags=3)
+    ewc = ewc_bias(res, scale)
+    nw = newey_west_bias(res, scale, hac_lags=3)
+    np.testing.assert_array_equal(check.statistic, ewc.statistic)
+    np.testing.assert_array_equal(check.p_value, ewc.p_value)
+    for key in ("mean_error", "std_error", "ci_low", "ci_high", "df"):
+        np.testing.assert_array_equal(check.details[key], ewc.details[key])
+    np.testing.assert_array_equal(check.details["nw_t"], nw.statistic)
+    np.testing.assert_array_equal(check.details["nw_p_value"], nw.p_value)
+    np.testing.assert_array_equal(check.details["nw_std_error"], nw.details["std_error"])
+    assert (check.details["hac_lags"] == 3).all() and (check.details["method"] == "ewc").all()
+    # The residual standard deviation (ddof 1) backs the materiality rule.
+    for i, row in enumerate(rows):
+        np.testing.assert_allclose(
+            check.details["residual_sd"][i], np.std(observed(row), ddof=1), rtol=RTOL
+        )

@@ -8,6 +8,7 @@ import numpy as np
 import pytest
 
 from service.core import assess, benjamini_hochberg, default_policy, make_batch, run_checks
+from service.core.gate import WeightsNotUsed
 from service.core.policy import Policy
 
 SEVERITY = {"fail": 3, "warn": 2, "pass": 1, "skipped": 0}
@@ -54,11 +55,21 @@ def test_statuses_use_bh_adjusted_p_values():
     raw = run_checks(batch)["bias"].p_value
     np.testing.assert_allclose(result.p_adjusted["bias"], benjamini_hochberg(raw))
     d = result.to_dict()
+    # The thresholds are the policy's divided by the size of each family (module docstring of
+    # service.core.gate): fail tests bias, tracking signal, autocorrelation and the fleet bias;
+    # warn tests those and the two warn-only tests.
+    summary = next(c for c in d["checks"] if c["name"] == "bias")
+    assert summary["fail_p_used"] == pytest.approx(0.01 / 4)
+    assert summary["warn_p_used"] == pytest.approx(0.05 / 6)
+    material = (
+        np.abs(result.results["bias"].details["mean_error"])
+        >= 0.1 * (result.results["bias"].details["residual_sd"])
+    )
     for i, s in enumerate(d["series"]):
         check = next(c for c in s["checks"] if c["name"] == "bias")
         adj = result.p_adjusted["bias"][i]
-        expect = "fail" if adj < 0.01 else "warn" if adj < 0.05 else "pass"
-        assert check["status"] == expect
+        expect = "fail" if adj < 0.01 / 4 else "warn" if adj < 0.05 / 6 else "pass"
+        assert check["status"] == (expect if material[i] else "pass")
     # With adjustment off, raw p-values decide: never fewer warnings.
     raw_policy = Policy.from_dict({"fleet": {"adjustment": "none"}})
     loose = assess(batch, raw_policy)
@@ -127,8 +138,13 @@ def test_weighting_changes_the_failed_share():
     heavy = np.ones(40)
     heavy[:2] = 100.0
     weighted = make_batch(batch.actuals, batch.fitted, ids=batch.ids, weights=heavy)
-    by_count = assess(weighted, Policy.from_dict({"fleet": {"weighting": "count"}}))
+    by_count = assess(batch, Policy.from_dict({"fleet": {"weighting": "count"}}))
     by_given = assess(weighted, Policy.from_dict({"fleet": {"weighting": "given"}}))
+    # The default weighting uses given weights too; one that ignores them refuses them.
+    assert assess(weighted, default_policy()).weights.tolist() == heavy.tolist()
+    with pytest.raises(WeightsNotUsed) as info:
+        assess(weighted, Policy.from_dict({"fleet": {"weighting": "count"}}))
+    assert info.value.argument == "weights" and info.value.index == 0
     share = {s.name: s.failed_share for s in by_count.summaries}["bias"]
     assert share == pytest.approx(2 / 40)
     share_given = {s.name: s.failed_share for s in by_given.summaries}["bias"]
@@ -176,7 +192,8 @@ def test_fleet_bias_sees_what_no_single_series_shows():
     batch = invented_fleet(n=200, t=52, bias_rows=range(200), shift=0.15, seed=11)
     result = assess(batch, default_policy())
     fb = result.fleet["bias"].result
-    assert fb.mean_error > 0 and fb.p_value < 1e-6
+    assert fb.mean_error > 0 and fb.p_value < 1e-4 and fb.material
+    assert result.fleet["bias"].code >= 2
     assert any(
         r.series_id is None and r.check == "bias" and "fleet" in r.message for r in result.reasons
     )
@@ -204,20 +221,31 @@ def test_short_series_warn_through_data_sufficiency_and_skip_the_rest():
     assert msg
 
 
-def test_fleet_bias_is_the_weighted_mean_and_its_standard_error():
-    # Definition (docs: fleet bias): mean = sum w_i me_i / sum w_i,
-    # SE = sqrt(sum w_i^2 SE_i^2) / sum w_i, z = mean / SE, two-sided normal p (scipy).
-    from scipy import stats
+def test_fleet_bias_is_the_weighted_mean_and_its_driscoll_kraay_standard_error():
+    # Definition (docs: fleet bias): mean = sum w_i me_i / sum w_i; its variance is N times the
+    # EWC long-run variance of H_t = sum_i s_i (e_it - mean_i) / T_i over the N periods, the
+    # series aligned at their last period (Driscoll & Kraay 1998); t on B = ewc_bins(N) df.
+    # Computed here directly, the cosine sums by scipy's orthonormal DCT-II.
+    from scipy import fft, stats
+
+    from service.core.ewc import ewc_bins
 
     batch = invented_fleet(n=30, t=52, bias_rows=range(10), shift=0.3, seed=5)
     result = assess(batch, default_policy())
     b = result.results["bias"].details
     w = result.weights
-    mean = (w * b["mean_error"]).sum() / w.sum()
-    se = np.sqrt((w**2 * b["std_error"] ** 2).sum()) / w.sum()
+    share = w / w.sum()
+    mean = (share * b["mean_error"]).sum()
+    e = batch.actuals - batch.fitted
+    h = (share[:, None] * (e - e.mean(axis=1, keepdims=True)) / e.shape[1]).sum(axis=0)
+    n = h.size
+    bins = int(ewc_bins(n))
+    omega = np.mean(fft.dct(h, type=2, norm="ortho")[1 : bins + 1] ** 2)
+    se = np.sqrt(n * omega)
     fb = result.fleet["bias"].result
     np.testing.assert_allclose([fb.mean_error, fb.std_error], [mean, se], rtol=1e-12)
-    np.testing.assert_allclose(fb.p_value, 2 * stats.norm.sf(abs(mean / se)), rtol=1e-9)
+    np.testing.assert_allclose(fb.p_value, 2 * stats.t.sf(abs(mean / se), bins), rtol=1e-9)
+    assert fb.df == bins
 
 
 def test_fleet_bias_does_not_overflow_near_the_accepted_magnitude():

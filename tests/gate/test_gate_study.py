@@ -1,7 +1,8 @@
-"""Fast version of the gate simulation study: guards the direction of each figure.
+"""The gate study's scenarios, one fixed-seed fleet each: the verdict and the checks behind it.
 
-The full study (tests/perf/gate_study.py, 1,000 fleets a cell) is summarised in the README;
-these few replications only check that sound fleets rarely fail and flawed ones are caught.
+The study itself (tests/perf/gate_study.py, 1,000 fleets a cell, run by hand) measures the rates
+in the README; these fleets only pin down that its generators and the default policy still give
+the verdicts each scenario is about, exactly, for one seed.
 """
 
 from __future__ import annotations
@@ -9,28 +10,39 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
+import numpy as np
 import pytest
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "perf"))
 
-from gate_study import rates
+from gate_study import DETECT, SIZE, fleet
 
-REPS = 20
+from service.core import assess, default_policy
 
-
-@pytest.mark.parametrize("t", [52, 104])
-def test_sound_fleets_rarely_fail(t):
-    fail, _ = rates("white", 0.0, t, REPS, seed=t)
-    assert fail <= 1 / REPS
+SCENARIOS = {s.label: s for s in (*SIZE, *DETECT)}
 
 
-@pytest.mark.parametrize(("kind", "param"), [("bias", 0.5), ("ar1", 0.5)])
-def test_flawed_fleets_fail_at_t104(kind, param):
-    fail, _ = rates(kind, param, 104, REPS, seed=5)
-    assert fail >= 0.95
+def _verdict(label: str, n: int, t: int, seed: int):
+    batch = fleet(SCENARIOS[label], n, t, np.random.default_rng(seed))
+    result = assess(batch, default_policy())
+    return result.verdict.value, {r.check for r in result.reasons if r.status.value == "fail"}
+
+
+@pytest.mark.parametrize("n", [1, 5, 200])
+def test_a_sound_fleet_passes(n):
+    verdict, failed = _verdict("sound: white noise", n, 104, seed=11)
+    assert verdict == "pass" and not failed
+
+
+@pytest.mark.parametrize(
+    ("label", "checks"),
+    [("bias 0.5 sd", {"bias"}), ("AR(1) phi 0.5", {"ljung_box"})],
+)
+def test_a_flawed_fleet_fails_on_its_flaw(label, checks):
+    verdict, failed = _verdict(label, 200, 104, seed=5)
+    assert verdict == "fail" and checks <= failed
 
 
 def test_arch_residuals_warn_without_failing():
-    fail, warn = rates("arch1", 0.5, 104, REPS, seed=9)
-    assert warn >= 0.9
-    assert fail <= 1 / REPS
+    verdict, failed = _verdict("ARCH(1) alpha 0.5", 200, 104, seed=9)
+    assert verdict == "warn" and not failed

@@ -15,12 +15,22 @@ from service.core.policy import DEFAULT_CHECKS, Policy, PolicyError, default_pol
 def test_default_policy_follows_the_hierarchy():
     p = default_policy()
     assert p.name == "default" and p.version == 1
-    # Essential properties can fail a model: warn at adjusted p < 0.05, fail at < 0.01.
-    for name in ("bias", "ljung_box"):
+    # Essential properties and a recent shift can fail a model: warn at adjusted p < 0.05,
+    # fail at < 0.01 (each divided by its family's size), when material.
+    for name in ("bias", "ljung_box", "tracking_signal"):
         assert (p.check(name).warn_p, p.check(name).fail_p) == (0.05, 0.01)
-    # Useful but not essential, and recent bias: warn only.
-    for name in ("arch_lm", "jarque_bera", "tracking_signal"):
+    for name in ("bias", "tracking_signal"):
+        assert (p.check(name).option("min_sd"), p.check(name).option("min_percent")) == (0.1, 1)
+    assert (p.check("bias").fleet_warn_p, p.check("bias").fleet_fail_p) == (0.05, 0.01)
+    # Useful but not essential: warn only.
+    for name in ("arch_lm", "jarque_bera"):
         assert p.check(name).fail_p is None and p.check(name).warn_p is not None
+    # A series with no usable residual fails; fewer than 20 warns.
+    assert (p.check("data_sufficiency").fail_below, p.check("data_sufficiency").warn_below) == (
+        1,
+        20,
+    )
+    assert p.fleet.family == "bonferroni" and p.fleet.weighting == "auto"
     assert p.check("mase").warn_above == 1.0
     assert p.check("mase").fail_above > 1.0
     assert p.check("benchmark_skill").fail_below == 0.0

@@ -1,14 +1,20 @@
 """Simulation study of the gate under the default policy (run by hand, not collected by pytest).
 
-Fleets of 200 series with invented, simulated residuals: sound (white noise) and flawed (a bias
-of 0.3 or 0.5 residual standard deviations, AR(1) residuals with phi 0.3 or 0.5, ARCH(1)
-residuals). For each scenario and length T it reports how often the fleet verdict is ``fail`` and
-how often it is ``warn`` or worse.
+Invented fleets with simulated residuals, sound and flawed, through ``service.core.assess``:
 
-    python tests/perf/gate_study.py --reps 1000
+* size rows: sound models under the conditions practitioners meet (white noise, GARCH(1,1),
+  heavy tails, skew, a common shock across series, missing values, a correct seasonal model,
+  a tiny but significant aggregate bias, short series), for fleets of 1, 5 and 200 series:
+  how often the fleet verdict is ``fail`` and how often ``warn`` or worse;
+* detection rows: a bias, AR(1) residuals, an ignored seasonal AR term, a recent level shift in
+  part of the fleet, ARCH effects: how often the fleet fails;
+* the per-series tests' rejection rates at 1% and 5% (raw p-values) under sound residuals.
 
-Each figure is a proportion over ``reps`` independent fleets; its standard error is at most
-``0.5 / sqrt(reps)`` (1.6 points at 1000 reps, 0.3 points for rates near 1% or 99%).
+    python tests/perf/gate_study.py --reps 1000 --small-reps 5000
+    python tests/perf/gate_study.py --only size --reps 200     # a quicker look
+
+Each figure is a proportion over independent fleets; its standard error is at most
+``0.5 / sqrt(reps)`` (1.6 points at 1,000 fleets, 0.3 near 1% or 99%; 0.14 near 1% at 5,000).
 """
 
 from __future__ import annotations
@@ -16,83 +22,353 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from service.core import assess, default_policy, make_batch
+from service.core import default_policy, make_batch, run_checks  # noqa: E402
+from service.core.gate import assess_many  # noqa: E402
 
-SCENARIOS: tuple[tuple[str, str, float], ...] = (
-    ("sound", "white", 0.0),
-    ("bias 0.3 sd", "bias", 0.3),
-    ("bias 0.5 sd", "bias", 0.5),
-    ("AR(1) phi 0.3", "ar1", 0.3),
-    ("AR(1) phi 0.5", "ar1", 0.5),
-    ("ARCH(1) alpha 0.5", "arch1", 0.5),
+BURN = 60  # periods simulated and dropped before each series, so processes start stationary
+
+
+# ------------------------------------------------------------------------------- residuals
+
+
+def white(n: int, t: int, rng: np.random.Generator, **_: float) -> np.ndarray:
+    return rng.standard_normal((n, t))
+
+
+def shifted(n: int, t: int, rng: np.random.Generator, *, shift: float, **_: float) -> np.ndarray:
+    return rng.standard_normal((n, t)) + shift
+
+
+def ar1(n: int, t: int, rng: np.random.Generator, *, phi: float, **_: float) -> np.ndarray:
+    z = rng.standard_normal((n, t + BURN))
+    e = np.empty_like(z)
+    e[:, 0] = z[:, 0] / np.sqrt(1 - phi**2)
+    for k in range(1, z.shape[1]):
+        e[:, k] = phi * e[:, k - 1] + z[:, k]
+    return e[:, BURN:]
+
+
+def seasonal_ar(
+    n: int, t: int, rng: np.random.Generator, *, phi: float, lag: float, **_: float
+) -> np.ndarray:
+    """``e_t = phi e_{t-m} + z_t``: a seasonal AR term the model left out."""
+    m = int(lag)
+    burn = max(BURN, 4 * m)
+    z = rng.standard_normal((n, t + burn))
+    e = z.copy()
+    for k in range(m, z.shape[1]):
+        e[:, k] = phi * e[:, k - m] + z[:, k]
+    return e[:, burn:] * np.sqrt(1 - phi**2)
+
+
+def garch(
+    n: int,
+    t: int,
+    rng: np.random.Generator,
+    *,
+    omega: float,
+    alpha: float,
+    beta: float,
+    **_: float,
+) -> np.ndarray:
+    """GARCH(1,1) with normal innovations, scaled to unit unconditional variance
+    (``alpha + beta < 1``; finite fourth moment when ``3 alpha^2 + 2 alpha beta + beta^2 < 1``)."""
+    z = rng.standard_normal((n, t + BURN))
+    e = np.empty_like(z)
+    var = np.full(n, omega / (1 - alpha - beta))
+    for k in range(z.shape[1]):
+        e[:, k] = np.sqrt(var) * z[:, k]
+        var = omega + alpha * e[:, k] ** 2 + beta * var
+    return e[:, BURN:] / np.sqrt(omega / (1 - alpha - beta))
+
+
+def arch1(n: int, t: int, rng: np.random.Generator, *, alpha: float, **_: float) -> np.ndarray:
+    return garch(n, t, rng, omega=1 - alpha, alpha=alpha, beta=0.0)
+
+
+def student3(n: int, t: int, rng: np.random.Generator, **_: float) -> np.ndarray:
+    return rng.standard_t(3, (n, t)) / np.sqrt(3.0)
+
+
+def lognormal(n: int, t: int, rng: np.random.Generator, **_: float) -> np.ndarray:
+    """Centred lognormal (sigma 0.5), unit variance: right-skewed errors with mean zero."""
+    s = 0.5
+    x = rng.lognormal(0.0, s, (n, t))
+    mean, var = np.exp(s * s / 2), (np.exp(s * s) - 1) * np.exp(s * s)
+    return (x - mean) / np.sqrt(var)
+
+
+def common_shock(n: int, t: int, rng: np.random.Generator, *, rho: float, **_: float) -> np.ndarray:
+    """Cross-series correlation ``rho`` from a shock every series shares each period."""
+    shared = rng.standard_normal((1, t))
+    return np.sqrt(rho) * shared + np.sqrt(1 - rho) * rng.standard_normal((n, t))
+
+
+def recent_shift(
+    n: int,
+    t: int,
+    rng: np.random.Generator,
+    *,
+    shift: float,
+    share: float,
+    window: float,
+    **_: float,
+) -> np.ndarray:
+    """A level shift of ``shift`` sd in the last ``window`` periods of a ``share`` of series."""
+    e = rng.standard_normal((n, t))
+    hit = rng.random(n) < share if n > 5 else np.ones(n, dtype=bool)
+    e[hit, t - int(window) :] += shift
+    return e
+
+
+GENERATORS: dict[str, Callable[..., np.ndarray]] = {
+    "white": white,
+    "bias": shifted,
+    "ar1": ar1,
+    "sar": seasonal_ar,
+    "garch": garch,
+    "arch1": arch1,
+    "t3": student3,
+    "lognormal": lognormal,
+    "shock": common_shock,
+    "recent": recent_shift,
+}
+
+
+# ------------------------------------------------------------------------------- scenarios
+
+
+@dataclass(frozen=True)
+class Scenario:
+    label: str
+    kind: str
+    lengths: tuple[int, ...]
+    params: dict[str, float] = field(default_factory=dict)
+    season_length: int = 1
+    missing: float = 0.0
+    level_sd: float = 0.0
+    sizes: tuple[int, ...] = (1, 5, 200)
+    target: str = ""
+    """What the default policy should give (the README's target)."""
+
+
+SIZE = (
+    Scenario("sound: white noise", "white", (20, 52, 104, 156), target="fail <= 1%"),
+    Scenario(
+        "sound: GARCH(1,1) 0.1/0.1/0.8",
+        "garch",
+        (104, 156, 260),
+        {"omega": 0.1, "alpha": 0.1, "beta": 0.8},
+        target="fail <= 1%; warns via arch_lm only",
+    ),
+    Scenario(
+        "sound: GARCH(1,1) 0.05/0.15/0.8",
+        "garch",
+        (104, 260),
+        {"omega": 0.05, "alpha": 0.15, "beta": 0.8},
+        target="fail <= 1%; warns via arch_lm only",
+    ),
+    Scenario("sound: t(3) errors", "t3", (52, 104), target="fail <= 1%; warns via normality"),
+    Scenario("sound: centred lognormal", "lognormal", (52, 104), target="fail <= 1%"),
+    Scenario(
+        "sound: common shock, corr 0.2",
+        "shock",
+        (52, 104),
+        {"rho": 0.2},
+        target="fail <= 1%",
+    ),
+    Scenario("sound: 10% missing at random", "white", (104,), missing=0.1, target="fail <= 1%"),
+    Scenario(
+        "sound: seasonal model, m = 12",
+        "white",
+        (52, 104),
+        season_length=12,
+        target="fail <= 1%",
+    ),
+    Scenario(
+        "sound: seasonal model, m = 52",
+        "white",
+        (156,),
+        season_length=52,
+        target="fail <= 1%",
+    ),
+    Scenario(
+        "tiny bias: 0.03% of the level (noise 5% of it), 10,000 series",
+        "bias",
+        (104,),
+        {"shift": 0.006},
+        level_sd=0.05,
+        sizes=(10000,),
+        target="no warn: significant but immaterial",
+    ),
 )
-LENGTHS = (52, 104, 156)
-N_SERIES = 200
+
+DETECT = (
+    Scenario("bias 0.3 sd", "bias", (52, 104), {"shift": 0.3}, sizes=(200,)),
+    Scenario("bias 0.5 sd", "bias", (52, 104, 156), {"shift": 0.5}, sizes=(1, 200),
+             target="fail >= 95% at T = 104"),
+    Scenario("AR(1) phi 0.3", "ar1", (52, 104), {"phi": 0.3}, sizes=(200,)),
+    Scenario("AR(1) phi 0.5", "ar1", (52, 104, 156), {"phi": 0.5}, sizes=(1, 200),
+             target="fail >= 95% at T = 104"),
+    Scenario(
+        "m = 12 ignored: seasonal AR 0.5 at lag 12",
+        "sar",
+        (52,),
+        {"phi": 0.5, "lag": 12},
+        season_length=12,
+        sizes=(200,),
+        target="fail >= 90%",
+    ),
+    Scenario(
+        "m = 52 ignored: seasonal AR 0.5 at lag 52",
+        "sar",
+        (156,),
+        {"phi": 0.5, "lag": 52},
+        season_length=52,
+        sizes=(200,),
+        target="fail >= 90%",
+    ),
+    Scenario(
+        "recent +1 sd shift, last 12 periods, 20% of series",
+        "recent",
+        (104,),
+        {"shift": 1.0, "share": 0.2, "window": 12},
+        sizes=(200,),
+        target="fail >= 90%",
+    ),
+    Scenario(
+        "ARCH(1) alpha 0.5",
+        "arch1",
+        (104,),
+        {"alpha": 0.5},
+        sizes=(200,),
+        target="warn, never fail",
+    ),
+)
 
 
-def residuals(kind: str, param: float, n: int, t: int, rng: np.random.Generator) -> np.ndarray:
-    """Simulated residuals, shape ``(n, t)``, unit innovation variance."""
-    z = rng.standard_normal((n, t + 50))
-    if kind == "white":
-        e = z
-    elif kind == "bias":
-        e = z + param
-    elif kind == "ar1":
-        e = np.empty_like(z)
-        e[:, 0] = z[:, 0] / np.sqrt(1 - param**2)
-        for k in range(1, z.shape[1]):
-            e[:, k] = param * e[:, k - 1] + z[:, k]
-    elif kind == "arch1":
-        # sigma_t^2 = (1 - alpha) + alpha e_{t-1}^2: unconditional variance 1.
-        e = np.empty_like(z)
-        e[:, 0] = z[:, 0]
-        for k in range(1, z.shape[1]):
-            e[:, k] = np.sqrt((1 - param) + param * e[:, k - 1] ** 2) * z[:, k]
-    else:
-        raise ValueError(kind)
-    return e[:, 50:]
+def fleet(s: Scenario, n: int, t: int, rng: np.random.Generator):
+    """A batch of ``n`` invented series: level around 100, the scenario's residuals."""
+    e = GENERATORS[s.kind](n, t, rng, **s.params)
+    noise = 5.0 if not s.level_sd else 100.0 * s.level_sd
+    level = rng.uniform(50, 150, size=(n, 1)) if not s.level_sd else np.full((n, 1), 100.0)
+    actuals = level + noise * rng.standard_normal((n, t))
+    scale = 1.0 if not s.level_sd else noise
+    fitted = actuals - scale * e
+    if s.missing:
+        fitted = np.where(rng.random((n, t)) < s.missing, np.nan, fitted)
+    return make_batch(
+        actuals, fitted, ids=[f"series-{i}" for i in range(n)], season_length=s.season_length
+    )
 
 
-def fleet(kind: str, param: float, t: int, rng: np.random.Generator, n: int = N_SERIES):
-    """A batch of ``n`` invented series: level around 100 per series, given residuals."""
-    level = rng.uniform(50, 150, size=(n, 1))
-    actuals = level + 5.0 * rng.standard_normal((n, t))
-    e = residuals(kind, param, n, t, rng)
-    return make_batch(actuals, actuals - e, ids=[f"series-{i}" for i in range(n)])
-
-
-def rates(kind: str, param: float, t: int, reps: int, seed: int) -> tuple[float, float]:
-    """(fail rate, warn-or-worse rate) of the fleet verdict over ``reps`` fleets."""
+def rates(s: Scenario, n: int, t: int, reps: int, seed: int) -> tuple[float, float, dict]:
+    """(fail rate, warn-or-worse rate, checks behind the warns) over ``reps`` fleets."""
     rng = np.random.default_rng(seed)
     policy = default_policy()
     fails = warns = 0
-    for _ in range(reps):
-        verdict = assess(fleet(kind, param, t, rng), policy).verdict.value
-        fails += verdict == "fail"
-        warns += verdict in ("fail", "warn")
-    return fails / reps, warns / reps
+    culprits: dict[str, int] = {}
+    # Small fleets are assessed many at a time (assess_many stacks same-shape batches).
+    step = max(1, min(reps, 4000 // max(n, 1)))
+    done = 0
+    while done < reps:
+        batch = [(fleet(s, n, t, rng), policy) for _ in range(min(step, reps - done))]
+        for a in assess_many(batch):
+            verdict = a.verdict.value
+            fails += verdict == "fail"
+            warns += verdict in ("fail", "warn")
+            if verdict != "pass":
+                for r in {r.check for r in a.reasons}:
+                    culprits[r] = culprits.get(r, 0) + 1
+        done += len(batch)
+    return fails / reps, warns / reps, culprits
+
+
+def _culprits(c: dict[str, int], reps: int) -> str:
+    top = sorted(c.items(), key=lambda kv: -kv[1])[:3]
+    return ", ".join(f"{k} {v / reps:.1%}" for k, v in top) or "-"
+
+
+def size_table(reps: int, small_reps: int, seed: int) -> None:
+    print("\n## Sound models (size)\n")
+    print("| condition | T | series | fleets | fail | warn or fail | warns from | target |")
+    print("|---|---|---|---|---|---|---|---|")
+    for s_i, s in enumerate(SIZE):
+        for t in s.lengths:
+            for n in s.sizes:
+                r = (reps if n >= 200 else small_reps) if n <= 1000 else max(reps // 10, 20)
+                fail, warn, why = rates(s, n, t, r, seed + 1000 * s_i + 10 * t + n)
+                print(
+                    f"| {s.label} | {t} | {n} | {r} | {fail:.1%} | {warn:.1%} | "
+                    f"{_culprits(why, r)} | {s.target} |",
+                    flush=True,
+                )
+
+
+def detect_table(reps: int, small_reps: int, seed: int) -> None:
+    print("\n## Flawed models (detection)\n")
+    print("| condition | T | series | fleets | fail | warn or fail | from | target |")
+    print("|---|---|---|---|---|---|---|---|")
+    for s_i, s in enumerate(DETECT):
+        for t in s.lengths:
+            for n in s.sizes:
+                r = (reps if n >= 200 else small_reps) if n <= 1000 else max(reps // 10, 20)
+                fail, warn, why = rates(s, n, t, r, seed + 5000 + 1000 * s_i + 10 * t + n)
+                print(
+                    f"| {s.label} | {t} | {n} | {r} | {fail:.1%} | {warn:.1%} | "
+                    f"{_culprits(why, r)} | {s.target} |",
+                    flush=True,
+                )
+
+
+def per_series_table(series: int, seed: int) -> None:
+    """Raw per-series rejection rates of the bias and autocorrelation tests (one big batch)."""
+    print("\n## Per-series tests under sound residuals (raw p-values)\n")
+    print("| residuals | T | series | bias 1% | bias 5% | autocorr. 1% | autocorr. 5% |")
+    print("|---|---|---|---|---|---|---|")
+    rng = np.random.default_rng(seed)
+    for label, kind, params in (
+        ("white noise", "white", {}),
+        ("GARCH(1,1) 0.1/0.1/0.8", "garch", {"omega": 0.1, "alpha": 0.1, "beta": 0.8}),
+        ("t(3)", "t3", {}),
+        ("centred lognormal", "lognormal", {}),
+    ):
+        for t in (20, 30, 52, 104, 156):
+            s = Scenario(label, kind, (t,), params)
+            checks = run_checks(fleet(s, series, t, rng), only=("bias", "ljung_box"))
+            cells = []
+            for name in ("bias", "ljung_box"):
+                p = checks[name].p_value
+                p = p[~np.isnan(p)]
+                cells += [f"{(p < 0.01).mean():.2%}", f"{(p < 0.05).mean():.2%}"]
+            print(f"| {label} | {t} | {series} | " + " | ".join(cells) + " |", flush=True)
 
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    parser.add_argument("--reps", type=int, default=1000)
-    parser.add_argument("--seed", type=int, default=20261201)
+    parser.add_argument("--reps", type=int, default=1000, help="fleets of 200 per cell")
+    parser.add_argument("--small-reps", type=int, default=5000, help="fleets of 1 or 5 per cell")
+    parser.add_argument("--series", type=int, default=20000, help="series per per-series cell")
+    parser.add_argument("--seed", type=int, default=20261203)
+    parser.add_argument("--only", choices=("size", "detect", "series"), default=None)
     args = parser.parse_args()
     start = time.perf_counter()
-    print(f"{N_SERIES} series per fleet, {args.reps} fleets per cell, default policy")
-    print("| scenario | T | fleet fails | fleet warns or fails |")
-    print("|---|---|---|---|")
-    for s, (label, kind, param) in enumerate(SCENARIOS):
-        for t in LENGTHS:
-            fail, warn = rates(kind, param, t, args.reps, args.seed + 1000 * s + t)
-            print(f"| {label} | {t} | {fail:.1%} | {warn:.1%} |", flush=True)
-    print(f"elapsed {time.perf_counter() - start:.0f} s")
+    print(f"default policy; {args.reps} fleets of 200, {args.small_reps} fleets of 1 or 5")
+    if args.only in (None, "size"):
+        size_table(args.reps, args.small_reps, args.seed)
+    if args.only in (None, "detect"):
+        detect_table(args.reps, args.small_reps, args.seed)
+    if args.only in (None, "series"):
+        per_series_table(args.series, args.seed)
+    print(f"\nelapsed {time.perf_counter() - start:.0f} s")
 
 
 if __name__ == "__main__":

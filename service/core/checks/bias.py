@@ -1,4 +1,11 @@
-"""Bias: is the mean residual zero, over the whole span and recently?"""
+"""Bias: is the mean residual zero, over the whole span, recently, and across the fleet?
+
+The per-series test is the EWC t test of :mod:`service.core.ewc` (exact under independent normal
+errors, fixed-b under autocorrelation); the Newey-West t test below is reported beside it. The
+fleet's test is Driscoll-Kraay (:mod:`service.core.fleet_bias`). A significant bias warns or
+fails only when it is also material: at least ``min_sd`` residual standard deviations or
+``min_percent`` of the level.
+"""
 
 from __future__ import annotations
 
@@ -9,8 +16,10 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ..batch import Residuals, SeriesBatch
+from ..ewc import ewc_bias
+from ..fleet_bias import fleet_bias
 from ..registry import (
-    WARN,
+    PASS,
     CheckDef,
     CheckInputs,
     CheckPolicy,
@@ -70,7 +79,7 @@ def _standard_hac_variance(res: Residuals, lags: IntVector) -> FloatVector:
         return long_run / res.n_obs
 
 
-def bias(
+def newey_west_bias(
     res: Residuals,
     actuals_scale: FloatVector,
     *,
@@ -124,7 +133,7 @@ def bias(
     mean_r = np.where(ran, mean, np.nan)
     se_r = np.where(ran, se, np.nan)
     return CheckResult(
-        name="bias",
+        name="newey_west_bias",
         kind="test",
         statistic=t,
         p_value=p,
@@ -146,7 +155,11 @@ def bias(
 
 
 def tracking_signal(
-    res: Residuals, *, window: int = TRACKING_DEFAULT_WINDOW, min_obs: int | None = None
+    res: Residuals,
+    *,
+    window: int = TRACKING_DEFAULT_WINDOW,
+    min_obs: int | None = None,
+    actuals_scale: FloatVector | None = None,
 ) -> CheckResult:
     """Recent bias: the sum of the last ``window`` residuals over their mean absolute error.
 
@@ -157,6 +170,10 @@ def tracking_signal(
     (sample variance of all its residuals, ``ddof = 1``), ``sum(e_last) ~ N(0, w s^2)``, so
     ``z = sum(e_last) / (s sqrt(w))`` and ``p = 2 sf(|z|)`` (normal approximation). Whether
     ``|TS| > 4`` is reported in ``details`` as ``beyond_trade_limit`` for reference.
+
+    ``details`` also hold the window's mean error ``mean_recent``, as a percent of the level
+    (``percent_recent``, with ``actuals_scale`` the mean ``|actual|``) and the residual
+    standard deviation ``residual_sd`` (``s``), for the materiality rule.
 
     Skipped when fewer than ``min_obs`` residuals are observed (default ``2 * window``, so the
     variance rests on more than the window itself; never below ``window + 1``), when the
@@ -178,6 +195,11 @@ def tracking_signal(
         var = np.vecdot(res.standard, res.standard) / (n - 1)
         ts = window * total / abs_total
         z = (total / res.unit) / np.sqrt(window * var)
+        pct = (
+            np.full(n.shape, np.nan)
+            if actuals_scale is None
+            else 100.0 * (total / window) / np.asarray(actuals_scale, dtype=float)
+        )
     p = norm_sf_two_sided(z)
     reasons, ran = skip_reasons_and_ran(
         n.shape[0],
@@ -193,6 +215,9 @@ def tracking_signal(
         details={
             "window": np.full(n.shape, window),
             "sum_error": np.where(ran, total, np.nan),
+            "mean_recent": np.where(ran, total / window, np.nan),
+            "percent_recent": np.where(ran & np.isfinite(pct), pct, np.nan),
+            "residual_sd": np.where(ran, res.unit * np.sqrt(var), np.nan),
             "mean_absolute_error": np.where(ran, abs_total / window, np.nan),
             "z": np.where(ran, z, np.nan),
             "trade_limit": np.full(n.shape, TRACKING_TRADE_LIMIT),
@@ -200,6 +225,74 @@ def tracking_signal(
         },
         skip_reason=reasons,
         null_hypothesis="the last errors have mean zero",
+    )
+
+
+MIN_SD = 0.1
+"""Default smallest bias that matters, in residual standard deviations: a bias of ``d`` sd adds
+``d^2`` to the mean squared error relative to the variance, so 0.1 sd adds 1%."""
+MIN_PERCENT = 1.0
+"""Default smallest bias that matters as a share of the level (percent): planners size stock
+and staff on the level, and a 1% aggregate bias is where they start to notice."""
+
+
+def bias(
+    res: Residuals,
+    actuals_scale: FloatVector,
+    *,
+    bins: int | None = None,
+    hac_lags: int | None = None,
+    ci_level: float = 0.95,
+    min_obs: int = BIAS_MIN_OBS,
+) -> CheckResult:
+    """t test of a zero mean residual with a small-sample correction, Newey-West beside it.
+
+    The test is the EWC t test of :func:`service.core.ewc.ewc_bias` (Lazarus, Lewis, Stock &
+    Watson 2018): ``t = mean / SE`` with the equal-weighted cosine long-run variance on
+    ``B = max(floor(0.4 T^(2/3)), 2)`` cosine terms (or ``bins``) and Student t with ``B``
+    degrees of freedom; the interval ``mean +- t_{B,(1+level)/2} SE`` comes from it.
+    ``details`` keep the Newey-West figures of :func:`newey_west_bias` (``hac_lags``,
+    ``nw_std_error``, ``nw_t``, ``nw_p_value``), the residual standard deviation
+    (``residual_sd``, ddof 1) and ``method = "ewc"``.
+
+    ``percent_bias = 100 mean(e) / mean|actual|`` over the periods with a residual
+    (``actuals_scale`` is that mean). ``e > 0`` means the forecasts run low: adding
+    ``correction = mean(e)`` to them removes the bias. Residuals all equal but not zero are
+    biased for certain (``t = +-inf``, ``p = 0``); all-zero residuals and series with fewer
+    than ``min_obs`` (at least 3) residuals skip.
+    """
+    ewc = ewc_bias(res, actuals_scale, bins=bins, ci_level=ci_level, min_obs=min_obs)
+    nw = newey_west_bias(res, actuals_scale, hac_lags=hac_lags, ci_level=ci_level, min_obs=min_obs)
+    ran = ~ewc.skipped
+    n = res.n_obs
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        sd = res.unit * np.sqrt(np.vecdot(res.standard, res.standard) / (n - 1))
+    d = ewc.details
+    return CheckResult(
+        name="bias",
+        kind="test",
+        statistic=ewc.statistic,
+        p_value=ewc.p_value,
+        details={
+            "mean_error": d["mean_error"],
+            "std_error": d["std_error"],
+            "ci_low": d["ci_low"],
+            "ci_high": d["ci_high"],
+            "ci_level": d["ci_level"],
+            "percent_bias": d["percent_bias"],
+            "correction": d["mean_error"],
+            "residual_sd": np.where(ran & np.isfinite(sd), sd, np.nan),
+            "df": d["df"],
+            "bins": d["bins"],
+            "method": np.full(n.shape, "ewc", dtype=object),
+            "hac_lags": nw.details["hac_lags"],
+            "nw_std_error": nw.details["std_error"],
+            "nw_t": nw.statistic,
+            "nw_p_value": nw.p_value,
+            "n_obs": n,
+        },
+        skip_reason=ewc.skip_reason,
+        null_hypothesis="the residuals have mean zero",
     )
 
 
@@ -217,6 +310,49 @@ def _run_bias(inputs: CheckInputs, **options: Any) -> CheckResult:
     return bias(res, _mean_abs_actual(inputs.batch, res), **options)
 
 
+def _run_tracking(inputs: CheckInputs, **options: Any) -> CheckResult:
+    res = inputs.residuals
+    return tracking_signal(res, actuals_scale=_mean_abs_actual(inputs.batch, res), **options)
+
+
+def _bounds(cp: CheckPolicy) -> tuple[float, float]:
+    """The policy's materiality bounds: (residual sd multiple, percent of the level)."""
+    min_sd = cp.option("min_sd")
+    min_percent = cp.option("min_percent")
+    return (
+        np.inf if min_sd is None else float(min_sd),
+        np.inf if min_percent is None else float(min_percent),
+    )
+
+
+def _material(size: np.ndarray, sd: np.ndarray, percent: np.ndarray, cp: CheckPolicy) -> np.ndarray:
+    """``|size| >= min_sd * sd`` or ``|percent| >= min_percent`` (either bound suffices; a
+    bound left out of the policy never does; with both left out every effect matters)."""
+    min_sd, min_percent = _bounds(cp)
+    if np.isinf(min_sd) and np.isinf(min_percent):
+        return np.ones(size.shape, dtype=bool)
+    with np.errstate(invalid="ignore"):
+        by_sd = np.abs(size) >= min_sd * sd
+        by_level = np.abs(percent) >= min_percent
+    # Constant residuals (sd 0) with a non-zero mean are material by the sd rule.
+    return by_sd | by_level
+
+
+def _bias_material(result: CheckResult, cp: CheckPolicy) -> np.ndarray:
+    d = result.details
+    return _material(d["mean_error"], d["residual_sd"], d["percent_bias"], cp)
+
+
+def _bounds_text(cp: CheckPolicy) -> str:
+    min_sd, min_percent = _bounds(cp)
+    parts = []
+    if np.isfinite(min_sd):
+        parts.append(f"{min_sd:g} residual sd")
+    if np.isfinite(min_percent):
+        parts.append(f"{min_percent:g}% of the level")
+    return " or ".join(parts)
+
+
 def _bias_found(f: Finding) -> str:
     me = float(f.detail("mean_error"))
     side = "low" if me > 0 else "high"
@@ -224,30 +360,80 @@ def _bias_found(f: Finding) -> str:
     pct_txt = "" if math.isnan(pct) else f", {pct:+.2f}% of the level"
     return (
         f"residuals average {me:+.4g} (95% CI {fmt(float(f.detail('ci_low')), 4)} to "
-        f"{fmt(float(f.detail('ci_high')), 4)}{pct_txt}; t = {fmt(f.statistic)}, "
-        f"{f.p_text()}, {int(f.detail('hac_lags'))} Newey-West lags): the forecasts run "
+        f"{fmt(float(f.detail('ci_high')), 4)}{pct_txt}; t = {fmt(f.statistic)} on "
+        f"{int(f.detail('df'))} df, {f.p_text()}): the forecasts run "
         f"{side}; adding {me:+.4g} to them would remove the bias"
     )
+
+
+def _immaterial_notes(
+    result: CheckResult, immaterial: np.ndarray, what: str, size_key: str
+) -> dict[int, str]:
+    """Pass sentences for significant effects below the policy's materiality bounds."""
+    out = {}
+    for i in np.flatnonzero(immaterial).tolist():
+        size = float(result.details[size_key][i])
+        pct = float(result.details["percent_bias"][i]) if "percent_bias" in result.details else 0
+        pct_txt = "" if math.isnan(pct) else f", {pct:+.2f}% of the level"
+        out[i] = (
+            f"{what} {size:+.4g}{pct_txt} is statistically significant but smaller than the "
+            "policy's bound for a bias that matters, so it passes"
+        )
+    return out
+
+
+def _bias_notes(
+    result: CheckResult, p_adj: np.ndarray, codes: np.ndarray, immaterial: np.ndarray
+) -> dict[int, str]:
+    return _immaterial_notes(result, immaterial, "the mean residual", "mean_error")
 
 
 def _tracking_found(f: Finding) -> str:
     total = float(f.detail("sum_error"))
     side = "low" if total > 0 else "high"
     return (
-        f"the last {int(f.detail('window'))} errors sum to {total:+.4g} (tracking signal "
-        f"{fmt(f.statistic)}, {f.p_text()}): recently the forecasts run {side}"
+        f"the last {int(f.detail('window'))} errors sum to {total:+.4g}, a mean of "
+        f"{float(f.detail('mean_recent')):+.4g} (tracking signal {fmt(f.statistic)}, "
+        f"{f.p_text()}): recently the forecasts run {side}"
     )
 
 
+def _tracking_material(result: CheckResult, cp: CheckPolicy) -> np.ndarray:
+    d = result.details
+    return _material(d["mean_recent"], d["residual_sd"], d["percent_recent"], cp)
+
+
+def _tracking_notes(
+    result: CheckResult, p_adj: np.ndarray, codes: np.ndarray, immaterial: np.ndarray
+) -> dict[int, str]:
+    """A tracking signal beyond the trade's limit of 4 that the test does not find significant
+    says so, and so does a significant but immaterial recent bias: the sentence never
+    contradicts the number beside it."""
+    out = _immaterial_notes(result, immaterial, "the mean of the recent errors", "mean_recent")
+    beyond = result.details["beyond_trade_limit"] & (codes == PASS) & ~immaterial
+    for i in np.flatnonzero(beyond).tolist():
+        ts = float(result.statistic[i])
+        p = float(p_adj[i]) if np.isfinite(p_adj[i]) else float(result.p_value[i])
+        out[i] = (
+            f"the tracking signal {ts:+.3g} is beyond the trade's limit of 4, but with these "
+            f"errors' spread the recent bias is not significant (p = {fmt(p, 2)} adjusted "
+            "across series): watch the next periods"
+        )
+    return out
+
+
 @dataclass(frozen=True)
-class FleetBias:
-    """Aggregate bias over the fleet.
+class FleetBiasSummary:
+    """Aggregate bias over one fleet (the result's ``fleet.bias``).
 
     ``mean_error`` is the weighted mean of the series' mean errors (the policy's weighting),
-    ``percent_bias`` is ``100 sum(e) / sum|y|`` pooled over every residual period (so volume
-    weighted), ``std_error`` is ``sqrt(sum w_i^2 SE_i^2) / sum w_i`` with the series' HAC
-    standard errors, which treats series as independent; ``statistic = mean_error / std_error``
-    and ``p_value`` is two-sided normal.
+    ``percent_bias`` ``100 sum(e) / sum|y|`` pooled over every residual period, ``std_error``
+    its Driscoll-Kraay standard error (errors shared across series allowed for), ``statistic``
+    and ``p_value`` the t test on ``df`` degrees of freedom, ``ci_low``/``ci_high`` its 95%
+    interval, ``residual_sd`` the pooled residual standard deviation, ``series_used`` the
+    series in it; ``independent_std_error`` and ``independent_p_value`` are what a test that
+    treats the series as independent would say (for comparison), and ``material`` whether the
+    bias is large enough to matter under the policy.
     """
 
     mean_error: float
@@ -256,72 +442,98 @@ class FleetBias:
     statistic: float
     p_value: float
     series_used: int
+    df: float
+    ci_low: float
+    ci_high: float
+    residual_sd: float
+    independent_std_error: float
+    independent_p_value: float
+    material: bool | None
+    method: str = "driscoll-kraay"
 
     def to_dict(self) -> dict[str, Any]:
-        return {
-            k: to_python(getattr(self, k))
-            for k in (
-                "mean_error",
-                "percent_bias",
-                "std_error",
-                "statistic",
-                "p_value",
-                "series_used",
-            )
-        }
+        return {k: to_python(v) for k, v in vars(self).items()}
 
 
-_NO_FLEET_BIAS = FleetBias(*(float("nan"),) * 5, series_used=0)
+_NO_FLEET_BIAS = FleetBiasSummary(*(float("nan"),) * 5, 0, *(float("nan"),) * 6, None)
 
 
-def fleet_bias(checks: BatchChecks, weights: np.ndarray) -> FleetBias:
-    """The :class:`FleetBias` of one batch's checks, with the fleet's series weights."""
+def fleet_bias_summary(
+    checks: BatchChecks, weights: np.ndarray, cp: CheckPolicy
+) -> FleetBiasSummary:
+    """The :class:`FleetBiasSummary` of one batch's checks, with the fleet's series weights."""
     b = checks["bias"]
-    me, se = b.details["mean_error"], b.details["std_error"]
-    use = np.isfinite(me) & np.isfinite(se)
-    w = weights[use]
-    total = w.sum()
-    if total <= 0:
-        w, total = np.ones(int(use.sum())), float(use.sum())
-    if total == 0:
+    use = ~b.skipped
+    if not use.any():
         return _NO_FLEET_BIAS
     res = checks.residuals
+    w = np.where(use, weights, 0.0)
+    if not w.sum() > 0:
+        w = use.astype(float)
+    # Rows the per-series test skipped take no part (weight 0 drops them).
+    found = fleet_bias(res, w, min_obs=BIAS_MIN_OBS)
+    if found.skip_reason[0] is not None:
+        return _NO_FLEET_BIAS
     observed = res.observed[use]
     pooled_e = np.where(observed, res.values[use], 0.0).sum()
     pooled_y = np.where(observed, np.abs(checks.batch.actuals[use]), 0.0).sum()
-    # Weighted mean and its standard error sqrt(sum w^2 SE^2) / sum w, computed with the
-    # weight shares and the largest term factored out, so values near the accepted magnitude
-    # neither overflow nor underflow.
-    share = w / total
-    mean = float((share * me[use]).sum())
-    spread = np.abs(share * se[use])
-    peak = float(spread.max(initial=0.0))
-    std = peak * float(np.sqrt(np.square(spread / peak).sum())) if peak > 0 else 0.0
+    share = w[use] / w[use].sum()
+    # Pooled residual sd sqrt(sum s_i sd_i^2), with the largest sd factored out (no overflow).
+    sds = np.where(np.isfinite(b.details["residual_sd"][use]), b.details["residual_sd"][use], 0.0)
+    peak = float(sds.max(initial=0.0))
+    sd = peak * float(np.sqrt((share * np.square(sds / peak)).sum())) if peak > 0 else 0.0
     with np.errstate(invalid="ignore", divide="ignore"):
-        z = mean / std if std > 0 else (np.sign(mean) * np.inf if mean else np.nan)
         pct = float(100.0 * pooled_e / pooled_y) if pooled_y > 0 else float("nan")
-    p = float(norm_sf_two_sided(z)) if z == z else float("nan")  # z == z: not NaN
-    return FleetBias(mean, pct, std, float(z), p, int(use.sum()))
+    theta = float(found.theta[0])
+    material = bool(_material(np.array([theta]), np.array([sd]), np.array([pct]), cp)[0])
+    return FleetBiasSummary(
+        mean_error=theta,
+        percent_bias=pct,
+        std_error=float(found.std_error[0]),
+        statistic=float(found.t[0]),
+        p_value=float(found.p_value[0]),
+        series_used=int(found.n_series[0]),
+        df=float(found.df[0]),
+        ci_low=float(found.ci_low[0]),
+        ci_high=float(found.ci_high[0]),
+        residual_sd=sd,
+        independent_std_error=float(found.naive_std_error[0]),
+        independent_p_value=float(found.naive_p_value[0]),
+        material=material,
+    )
 
 
-def _fleet_bias_message(b: FleetBias) -> str:
+def _fleet_bias_message(b: FleetBiasSummary) -> str:
     direction = "low" if b.mean_error > 0 else "high"
     return (
         f"Across the fleet the forecasts run {direction}: the weighted mean error is "
-        f"{b.mean_error:+.3g} ({b.percent_bias:+.2f}% of volume; z = {b.statistic:.2f}, "
-        f"p = {b.p_value:.2g}, series taken as independent). No single series need be "
-        "significant for this to matter in aggregate: check for a shared level shift or a "
-        "biased transformation."
+        f"{b.mean_error:+.3g} ({b.percent_bias:+.2f}% of volume; 95% CI {b.ci_low:+.3g} to "
+        f"{b.ci_high:+.3g}, t = {b.statistic:.2f} on {b.df:g} df, p = {b.p_value:.2g}, "
+        f"Driscoll-Kraay, so errors shared across series are allowed for). No single series "
+        "need be significant for this to matter in aggregate: check for a shared level shift "
+        "or a biased transformation."
     )
 
 
 def _judge_fleet_bias(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFinding:
-    """The fleet bias warns the fleet when its p-value is below ``fleet.bias_warn_p``."""
-    found = fleet_bias(checks, weights)
-    limit = policy.fleet.bias_warn_p
-    if limit is not None and np.isfinite(found.p_value) and found.p_value < limit:
-        return FleetFinding(found, WARN, _fleet_bias_message(found))
-    return FleetFinding(found)
+    """The fleet bias: judged by the gate at the bias check's ``fleet_warn_p`` (or the
+    fleet's ``bias_warn_p``, its earlier name) and ``fleet_fail_p``, when material."""
+    cp = policy.check("bias")
+    found = fleet_bias_summary(checks, weights, cp)
+    warn_p = policy.fleet.bias_warn_p if policy.fleet.bias_warn_p is not None else cp.fleet_warn_p
+    return FleetFinding(
+        found,
+        p_value=found.p_value,
+        material=bool(found.material),
+        message=_fleet_bias_message(found),
+        warn_p=warn_p,
+    )
+
+
+_MATERIALITY = (
+    Option("min_sd", kind="float", for_runner=False),
+    Option("min_percent", kind="float", for_runner=False),
+)
 
 
 CHECKS = (
@@ -332,9 +544,16 @@ CHECKS = (
         position=20,
         family="bias",
         needs_holdout=False,
-        tests="mean residual is zero: t test with a Newey-West (HAC, Bartlett) standard error",
+        tests=(
+            "mean residual is zero: t test with the equal-weighted cosine (EWC) long-run "
+            "variance, Newey-West beside it; the fleet's weighted mean error by Driscoll-Kraay"
+        ),
         null_hypothesis="the residuals have mean zero",
-        defaults="hac_lags = floor(4 (T/100)^(2/9)); Student t with T-1 df; 95% interval",
+        defaults=(
+            "B = max(floor(0.4 T^(2/3)), 2) cosine terms, Student t with B df; 95% interval; "
+            "material at 0.1 residual sd or 1% of the level; Newey-West lags "
+            "floor(4 (T/100)^(2/9)) in details"
+        ),
         details=(
             "mean_error",
             "std_error",
@@ -342,17 +561,39 @@ CHECKS = (
             "ci_high",
             "percent_bias",
             "correction",
-            "hac_lags",
+            "residual_sd",
             "df",
+            "bins",
+            "method",
+            "hac_lags",
+            "nw_std_error",
+            "nw_t",
+            "nw_p_value",
         ),
-        source="Newey & West (1987), Econometrica 55:703-708; lag rule Newey & West (1994)",
+        source=(
+            "Lazarus, Lewis, Stock & Watson (2018), JBES 36:541-559 (EWC); Newey & West (1987), "
+            "Econometrica 55:703-708; Driscoll & Kraay (1998), REStat 80:549-560"
+        ),
         run=_run_bias,
-        # Essential: warn at adjusted p < 0.05, fail at < 0.01 (this project's choice).
-        rule=CheckPolicy(warn_p=0.05, fail_p=0.01),
+        # Essential: warn at adjusted p < 0.05, fail at < 0.01, within the fleet's families;
+        # the fleet bias likewise; materiality bounds as documented at MIN_SD, MIN_PERCENT.
+        rule=CheckPolicy(
+            warn_p=0.05,
+            fail_p=0.01,
+            fleet_warn_p=0.05,
+            fleet_fail_p=0.01,
+            option_values=(("min_sd", MIN_SD), ("min_percent", MIN_PERCENT)),
+        ),
         passed="no evidence that the mean residual differs from zero",
         found=_bias_found,
         meaning="look for a missing level, trend or calendar term before shipping",
-        options=(Option("min_obs"), Option("hac_lags"), Option("ci_level", in_policy=False)),
+        options=(
+            Option("min_obs"),
+            Option("bins", minimum=1),
+            Option("hac_lags"),
+            Option("ci_level", in_policy=False),
+            *_MATERIALITY,
+        ),
         section=SeriesSection(
             key="bias",
             fields=(
@@ -365,6 +606,9 @@ CHECKS = (
             ),
         ),
         fleet=FleetTest(key="bias", compute=_judge_fleet_bias, empty=FleetFinding(_NO_FLEET_BIAS)),
+        essential=True,
+        material=_bias_material,
+        pass_notes=_bias_notes,
     ),
     CheckDef(
         name="tracking_signal",
@@ -375,25 +619,38 @@ CHECKS = (
         needs_holdout=False,
         tests="recent bias: sum of the last errors over their mean absolute error",
         null_hypothesis="the last errors have mean zero",
-        defaults="window 12 (common practice); p-value from N(0, w s^2) for the sum",
+        defaults=(
+            "window 12 (common practice); p-value from N(0, w s^2) for the sum; material at "
+            "0.1 residual sd or 1% of the level"
+        ),
         details=(
             "window",
             "sum_error",
+            "mean_recent",
+            "percent_recent",
+            "residual_sd",
             "mean_absolute_error",
             "z",
             "trade_limit",
             "beyond_trade_limit",
         ),
         source="Brown (1959), Statistical Forecasting for Inventory Control; trade practice",
-        run=lambda inputs, **options: tracking_signal(inputs.residuals, **options),
-        # Recent bias warns, never fails, by default.
-        rule=CheckPolicy(warn_p=0.01),
+        run=_run_tracking,
+        # A recent shift that is significant and material fails the series; the fleet fails
+        # when more than the fail share of its weight does.
+        rule=CheckPolicy(
+            warn_p=0.05,
+            fail_p=0.01,
+            option_values=(("min_sd", MIN_SD), ("min_percent", MIN_PERCENT)),
+        ),
         passed="no evidence of bias in the most recent errors",
         found=_tracking_found,
         meaning=(
             "the forecasts have drifted recently; look for a level shift or a change the "
             "model has not caught up with"
         ),
-        options=(Option("min_obs"), Option("window", minimum=2)),
+        options=(Option("min_obs"), Option("window", minimum=2), *_MATERIALITY),
+        material=_tracking_material,
+        pass_notes=_tracking_notes,
     ),
 )
