@@ -29,7 +29,7 @@ DM_MIN_OBS = 3
 def hln_factor(n_obs: IntVector | int, h: IntVector | int) -> FloatVector:
     """Harvey, Leybourne & Newbold's (1997, eq. 9) correction
     ``sqrt((n + 1 - 2h + h (h - 1) / n) / n)``. ``h = 1`` gives ``sqrt((n - 1) / n)``;
-    ``n = 12, h = 2`` gives ``sqrt(121 / 144) = 11 / 12``."""
+    ``n = 12, h = 2`` gives ``sqrt(55 / 72)``."""
     n = np.asarray(n_obs, dtype=float)
     h = np.asarray(h, dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -308,16 +308,19 @@ def compare_with_benchmarks(
     batch: SeriesBatch,
     *,
     loss: str = "squared",
+    variance: str = "ewc",
     h: int | IntVector | None = None,
+    b: int | IntVector | None = None,
     benchmarks: Sequence[str] | None = None,
     min_obs: int = DM_MIN_OBS,
 ) -> BenchmarkComparison:
     """:func:`dm_test` of the holdout forecasts against each benchmark of
     :func:`~service.core.benchmarks.benchmark_forecasts` (fitted to the training actuals),
-    vectorised over series and benchmarks, then :func:`holm` across the benchmarks of each
-    series. ``benchmarks`` picks some (default: all four, ``seasonal_naive`` only when the
-    season length exceeds 1). A benchmark compares on the steps where it and the model both
-    have a forecast and the actual is observed.
+    vectorised over series and benchmarks (``loss``, ``variance``, ``h``, ``b`` and
+    ``min_obs`` as there; ``h`` and ``b`` one value or one per series), then :func:`holm`
+    across the benchmarks of each series. ``benchmarks`` picks some (default: all four,
+    ``seasonal_naive`` only when the season length exceeds 1). A benchmark compares on the
+    steps where it and the model both have a forecast and the actual is observed.
 
     Without a holdout every series is skipped ("no holdout").
     """
@@ -339,7 +342,9 @@ def compare_with_benchmarks(
             p_worse=nan,
             p_two_sided=nan,
             mean_differential=nan,
-            h=np.ones((k, n), dtype=np.int64),
+            variance=variance,
+            h=np.zeros((k, n), dtype=np.int64),
+            b=np.zeros((k, n), dtype=np.int64),
             fallback=np.zeros((k, n), dtype=bool),
             n_obs=np.zeros((k, n), dtype=np.int64),
             skip_reason=reason,
@@ -355,8 +360,7 @@ def compare_with_benchmarks(
     forecasts = benchmark_forecasts(batch, width)
     model = hold.actuals - hold.forecasts
     bench = np.stack([hold.actuals - forecasts[k] for k in names])
-    h_arg = None if h is None else np.broadcast_to(np.asarray(h), (len(names), n))
-    tests = dm_test(model, bench, loss=loss, h=h_arg, min_obs=min_obs)
+    tests = dm_test(model, bench, loss=loss, variance=variance, h=h, b=b, min_obs=min_obs)
     p_holm = holm(tests.p_worse, axis=0)
     any_ran = ~np.isnan(p_holm).all(axis=0)
     best = np.argmin(np.where(np.isnan(p_holm), np.inf, p_holm), axis=0)
