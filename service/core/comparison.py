@@ -1,10 +1,12 @@
-"""Is the model's holdout accuracy worse than a benchmark's? The Diebold-Mariano test with the
-Harvey, Leybourne & Newbold (1997) small-sample correction, applied against several benchmarks
-at once, with Holm's step-down adjustment across the benchmarks of each series.
+"""Is the model's holdout accuracy worse than a benchmark's? The Diebold-Mariano test, with an
+equal-weighted cosine (EWC) variance by default or the Harvey, Leybourne & Newbold (1997)
+modification, applied against several benchmarks at once, with Holm's step-down adjustment
+across the benchmarks of each series.
 
 A "skill < 0" read off the best benchmark on the holdout itself is no evidence: over a short
 path, some benchmark beats a correct model by chance. The test here asks whether the model's
-expected loss exceeds the benchmark's, given the correlation of the losses along one path.
+expected loss exceeds the benchmark's, allowing for the correlation of the losses along one
+path; ``tests/perf/RESULTS_holdout_tests.md`` measures how often it calls a correct model worse.
 """
 
 from __future__ import annotations

@@ -10,9 +10,10 @@ conditional mean (and, for coverage, its true predictive intervals):
 * ``seasonal``: level 50 plus a fixed seasonal pattern (m = 12, amplitude 3) plus N(0, 1)
   noise, forecast the true seasonal mean;
 
-and, for power, a clearly worse model: a random walk forecast by its training mean. The coverage
-study adds a fourth correct model, ``rw``: a random walk forecast by its last value with its
-true intervals (sd ``sqrt(h)``), whose errors along the path are the most correlated.
+and, for power, a clearly worse model: a random walk forecast by its training mean. The bias
+and coverage studies add a fourth correct model, ``rw``: a random walk forecast by its last
+value with its true intervals (sd ``sqrt(h)``), whose errors along the path are the most
+correlated.
 
     python tests/perf/study_holdout_tests.py dm --series 4000
     python tests/perf/study_holdout_tests.py bias --series 4000
@@ -115,7 +116,7 @@ def errors_and_benchmarks(kind: str, n: int, horizon: int, rng: np.random.Genera
     return hold, f, sd, bench
 
 
-# --- Diebold-Mariano-HLN: the dependence horizon ----------------------------------------------
+# --- Diebold-Mariano: the dependence horizon and the variance ---------------------------------
 
 
 def dm_rules(horizon: int) -> dict[str, dict]:
@@ -139,7 +140,7 @@ def p_worse(model_e, bench_e, rule, loss):
 
 def study_dm(n: int, seed: int, losses: list[str]) -> None:
     rng = np.random.default_rng(seed)
-    print("## Diebold-Mariano-HLN: one-sided rejection of 'model worse'\n")
+    print("## Diebold-Mariano: one-sided rejection of 'model worse'\n")
     print(
         f"{n} series per cell; correct models against every benchmark (Holm across them: the "
         "rate a series is flagged worse than some benchmark), and the worse model (training "
