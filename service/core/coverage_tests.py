@@ -197,7 +197,8 @@ def fleet_coverage(
     evidence; ``t = excess / SE`` is referred to Student's t with ``G - 1`` degrees of
     freedom, as Cameron & Miller recommend with CR1. Series are taken as independent.
     Series without intervals or with a weight of 0 are left out; with fewer than 2 series the
-    statistic is ``NaN``.
+    statistic is ``NaN``. ``level`` is the confidence level of the interval for ``excess``
+    (the intervals' own levels come from the batch).
     """
     if not 0 < level < 1:
         raise InputError("level", f"must lie strictly between 0 and 1, got {level}")
