@@ -30,8 +30,8 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from service.core import default_policy, make_batch, run_checks  # noqa: E402
-from service.core.gate import assess_many  # noqa: E402
+from service.core import default_policy, make_batch, run_checks
+from service.core.gate import assess_many
 
 BURN = 60  # periods simulated and dropped before each series, so processes start stationary
 
@@ -213,11 +213,23 @@ SIZE = (
 
 DETECT = (
     Scenario("bias 0.3 sd", "bias", (52, 104), {"shift": 0.3}, sizes=(200,)),
-    Scenario("bias 0.5 sd", "bias", (52, 104, 156), {"shift": 0.5}, sizes=(1, 200),
-             target="fail >= 95% at T = 104"),
+    Scenario(
+        "bias 0.5 sd",
+        "bias",
+        (52, 104, 156),
+        {"shift": 0.5},
+        sizes=(1, 200),
+        target="fail >= 95% at T = 104",
+    ),
     Scenario("AR(1) phi 0.3", "ar1", (52, 104), {"phi": 0.3}, sizes=(200,)),
-    Scenario("AR(1) phi 0.5", "ar1", (52, 104, 156), {"phi": 0.5}, sizes=(1, 200),
-             target="fail >= 95% at T = 104"),
+    Scenario(
+        "AR(1) phi 0.5",
+        "ar1",
+        (52, 104, 156),
+        {"phi": 0.5},
+        sizes=(1, 200),
+        target="fail >= 95% at T = 104",
+    ),
     Scenario(
         "m = 12 ignored: seasonal AR 0.5 at lag 12",
         "sar",
