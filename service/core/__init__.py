@@ -7,7 +7,7 @@ from .batch import Holdout, Residuals, SeriesBatch, make_batch, residuals_of
 from .catalogue import CATALOGUE, CHECK_NAMES, CheckSpec
 from .checks.accuracy import mase, naive_scale
 from .checks.autocorrelation import autocorrelations, ljung_box, portmanteau_lags, portmanteau_q
-from .checks.benchmarks import BENCHMARKS, benchmark_forecasts, benchmark_skill
+from .checks.benchmarks import benchmark_skill
 from .checks.bias import (
     bias,
     hac_variance_of_mean,
@@ -20,6 +20,7 @@ from .checks.normality import jarque_bera
 from .checks.sufficiency import data_sufficiency
 from .checks.variance import arch_lags, arch_lm
 from .gate import Assessment, assess
+from .holdout import BENCHMARKS, benchmark_forecasts
 from .multiple import benjamini_hochberg
 from .policy import Policy, PolicyError, default_policy
 from .results import CheckResult, Status

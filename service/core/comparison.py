@@ -18,7 +18,7 @@ import numpy as np
 from scipy.special import stdtr
 
 from .batch import SeriesBatch, nearly_constant
-from .benchmarks import BENCHMARKS, benchmark_forecasts
+from .holdout import BENCHMARKS, benchmark_forecasts
 from .path_variance import autocovariances, centred, ewc_long_run, truncated_long_run
 from .results import skip_reasons_and_ran
 from .types import FloatMatrix, FloatVector, InputError, IntVector, ObjectVector
@@ -317,7 +317,7 @@ def compare_with_benchmarks(
     min_obs: int = DM_MIN_OBS,
 ) -> BenchmarkComparison:
     """:func:`dm_test` of the holdout forecasts against each benchmark of
-    :func:`~service.core.benchmarks.benchmark_forecasts` (fitted to the training actuals),
+    :func:`~service.core.holdout.benchmark_forecasts` (fitted to the training actuals),
     vectorised over series and benchmarks (``loss``, ``variance``, ``h``, ``b`` and
     ``min_obs`` as there; ``h`` and ``b`` one value or one per series), then :func:`holm`
     across the benchmarks of each series. ``benchmarks`` picks some (default: all four,

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .batch import SeriesBatch
-from .intervals import kupiec_lr
+from .checks.intervals import kupiec_lr
 from .results import skip_reasons_and_ran
 from .tails import chi2_sf, t_ppf, t_sf_two_sided
 from .types import BoolMatrix, FloatVector, InputError, IntVector, ObjectVector
@@ -103,7 +103,7 @@ def miss_dependence(batch: SeriesBatch, *, min_obs: int = COVERAGE_MIN_OBS) -> M
 
     Transitions (:func:`transition_counts`) are counted over consecutive scored steps; a gap
     breaks the chain. ``LR_ind`` is :func:`independence_lr`; ``LR_cc = LR_POF + LR_ind`` with
-    ``LR_POF`` Kupiec's statistic (:func:`~service.core.intervals.kupiec_lr`) on all scored
+    ``LR_POF`` Kupiec's statistic (:func:`~service.core.checks.intervals.kupiec_lr`) on all scored
     steps against ``1 - level``, chi-square with 2 degrees of freedom. Christoffersen's
     identity ``LR_cc = LR_uc + LR_ind`` holds exactly when ``LR_uc`` is computed on the steps
     after the first; on all steps, as here, it holds up to the first observation's term,

@@ -133,7 +133,7 @@ def ewc_bias(
     orthogonal to the constant), so ``Omega / sigma^2 ~ chi2_B / B`` and ``t ~ t_B``. Under
     autocorrelation the t_B reference is the fixed-b approximation of the paper.
 
-    As in :func:`service.core.bias.bias`: residuals all equal but not zero are biased for
+    As in :func:`service.core.checks.bias.bias`: residuals all equal but not zero are biased for
     certain (``t = +-inf``, ``p = 0``); all-zero residuals and series with fewer than
     ``min_obs`` (at least 3) residuals skip. ``percent_bias = 100 mean / actuals_scale`` where
     ``actuals_scale`` (the mean ``|actual|``) is given.

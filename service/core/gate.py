@@ -258,7 +258,8 @@ def _family_sizes(
     n_parts = skipped.shape[1] // part_size if part_size else 0
     if policy.fleet.family == "none" or not n_parts:
         return np.ones(n_parts), np.ones(n_parts)
-    ran = (~skipped).reshape(len(names), n_parts, part_size).any(axis=-1)
+    tested_n = (~skipped).reshape(len(names), n_parts, part_size).sum(axis=-1)
+    ran = tested_n > 0
     k_fail = np.zeros(n_parts)
     k_warn = np.zeros(n_parts)
     for j, (name, cp, t) in enumerate(zip(names, cps, is_test, strict=True)):
@@ -266,9 +267,11 @@ def _family_sizes(
             k_fail += ran[j]
         if t and (cp.warn_p is not None or cp.fail_p is not None):
             k_warn += ran[j]
-        if checks_by_name()[name].fleet is not None:
-            k_fail += ran[j] * (cp.fleet_fail_p is not None)
-            k_warn += ran[j] * (cp.fleet_warn_p is not None or cp.fleet_fail_p is not None)
+        fleet_test = checks_by_name()[name].fleet
+        if fleet_test is not None:
+            enough = tested_n[j] >= fleet_test.min_series
+            k_fail += enough * (cp.fleet_fail_p is not None)
+            k_warn += enough * (cp.fleet_warn_p is not None or cp.fleet_fail_p is not None)
     return np.maximum(k_fail, 1), np.maximum(k_warn, 1)
 
 
@@ -613,6 +616,9 @@ def _fleet_findings(
             continue
         test = check.fleet
         if check.name not in results.checks:
+            out[test.key] = (check.name, test.empty)
+            continue
+        if int((~results[check.name].skipped).sum()) < test.min_series:
             out[test.key] = (check.name, test.empty)
             continue
         finding = test.compute(results, weights, policy)

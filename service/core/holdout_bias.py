@@ -28,9 +28,9 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import stdtr
 
-from .accuracy import holdout_pairs
 from .batch import SeriesBatch, nearly_constant
 from .fleet_pooling import PooledMean, pooled_mean
+from .holdout import holdout_pairs
 from .path_variance import autocovariances, bartlett_long_run, centred, ewc_degrees, ewc_long_run
 from .results import skip_reasons_and_ran
 from .types import FloatMatrix, FloatVector, InputError, IntVector, ObjectVector
@@ -100,7 +100,7 @@ def path_bias(
     ``percent_bias = 100 ebar / mean |actual|`` over the scored steps needs ``actuals`` (else
     ``NaN``). Errors are divided by the row's largest ``|error|`` first (no overflow).
     Constant non-zero errors are biased for certain (``t = +-inf``, ``p = 0``), the rule of
-    :func:`~service.core.bias.bias`; skipped: fewer than ``min_obs`` (at least 2) steps, or
+    :func:`~service.core.checks.bias.bias`; skipped: fewer than ``min_obs`` (at least 2) steps, or
     all-zero errors.
 
     Errors 1, -1, 2, 0, 3, 1 (mean 1), ``"newey_west"`` with ``L = 1``: ``gamma_0 = 5/3``,

@@ -209,6 +209,9 @@ class FleetTest:
     key: str
     compute: Callable[[BatchChecks, np.ndarray, Policy], FleetFinding]
     empty: FleetFinding
+    min_series: int = 10
+    """Fewest series the owner must have tested for the fleet-level test to run (and to count
+    in the fleet's families): below it the series' own tests are all the evidence there is."""
 
 
 Runner = Callable[..., CheckResult]

@@ -6,10 +6,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .accuracy import holdout_pairs, holdout_reason
 from .batch import SeriesBatch
-from .benchmarks import BENCHMARKS, benchmark_forecasts
 from .fleet_pooling import PooledMean, pooled_mean
+from .holdout import BENCHMARKS, benchmark_forecasts, holdout_pairs, holdout_reason
 from .results import skip_reasons_and_ran
 from .types import FloatMatrix, FloatVector, InputError, IntVector, ObjectVector
 
@@ -170,7 +169,7 @@ def fleet_avg_rel_mae(
     batch: SeriesBatch, *, benchmark: str = "naive", level: float = 0.95
 ) -> RelativeAccuracy:
     """:func:`avg_rel_mae` of the holdout forecasts against one benchmark of
-    :func:`~service.core.benchmarks.benchmark_forecasts` (default the naive forecast) fitted
+    :func:`~service.core.holdout.benchmark_forecasts` (default the naive forecast) fitted
     to the training actuals."""
     names = [k for k in BENCHMARKS if k != "seasonal_naive" or batch.season_length > 1]
     if benchmark not in names:

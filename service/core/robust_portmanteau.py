@@ -38,7 +38,7 @@ def robust_lag_mask(
     """Default lags per series as a mask: column ``k - 1`` is ``True`` where lag ``k`` is tested.
 
     Lags ``1..L`` with ``L = min(max_lag, floor(T / 5))`` (the lag cap of
-    :func:`service.core.autocorrelation.portmanteau_lags`), plus the seasonal lags ``m`` and
+    :func:`service.core.checks.autocorrelation.portmanteau_lags`), plus the seasonal lags ``m`` and
     ``2 m`` wherever ``k <= T / 2`` (at least as many pairs as the lag itself). A rule of thumb
     (common practice), not from the paper. ``T = 104, m = 52`` tests lags 1..10 and 52.
     """

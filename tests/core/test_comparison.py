@@ -11,7 +11,6 @@ from statsmodels.stats.multitest import multipletests
 from statsmodels.tsa.stattools import acovf
 
 from service.core import InputError, make_batch
-from service.core.benchmarks import benchmark_forecasts
 from service.core.comparison import (
     compare_with_benchmarks,
     dm_test,
@@ -19,6 +18,7 @@ from service.core.comparison import (
     hln_factor,
     holm,
 )
+from service.core.holdout import benchmark_forecasts
 
 RTOL = 1e-8
 MODEL = np.array([[1.0, -2.0, 1.0, 3.0, -1.0, 2.0]])

@@ -9,8 +9,8 @@ import statsmodels.api as sm
 from scipy import stats
 
 from service.core import InputError, make_batch
-from service.core.benchmarks import benchmark_forecasts
 from service.core.fleet_pooling import pooled_mean
+from service.core.holdout import benchmark_forecasts
 from service.core.relative_accuracy import avg_rel_mae, fleet_avg_rel_mae, rmsse, rmsse_scale
 
 RTOL = 1e-8

@@ -46,7 +46,9 @@ def test_sound_fleet_passes_and_result_is_json():
     }
     lb = next(c for c in s["checks"] if c["name"] == "ljung_box")
     assert set(lb) >= {"name", "status", "statistic", "p_value", "p_adjusted", "details"}
-    assert lb["details"]["lags"] == 10 and lb["details"]["df"] == 10
+    # ceil(ln 104) = 5 lags (service.core.checks.autocorrelation.autocorrelation_lags).
+    assert lb["details"]["lags"] == 5 and lb["details"]["df"] == 5
+    assert lb["details"]["classical_lags"] == 10
 
 
 def test_statuses_use_bh_adjusted_p_values():

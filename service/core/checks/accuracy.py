@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..batch import SeriesBatch
+from ..holdout import holdout_pairs, holdout_reason
 from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
 from ..results import CheckResult, skip_reasons_and_ran
 from ..types import FloatMatrix, FloatVector, InputError
@@ -26,22 +27,6 @@ def naive_scale(actuals: FloatMatrix, season_length: int = 1) -> FloatVector:
     count = (~np.isnan(diff)).sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         return np.where(count > 0, np.where(np.isnan(diff), 0.0, diff).sum(axis=1) / count, np.nan)
-
-
-def holdout_pairs(batch: SeriesBatch) -> tuple[FloatMatrix, np.ndarray, np.ndarray]:
-    """Holdout errors ``actual - forecast`` (NaN where either is missing), their mask and
-    count per series. Empty (zero-width) when the batch has no holdout."""
-    if batch.holdout is None:
-        empty = np.zeros((batch.n_series, 0))
-        return empty, empty.astype(bool), np.zeros(batch.n_series, dtype=np.int64)
-    err = batch.holdout.actuals - batch.holdout.forecasts
-    ok = ~np.isnan(err)
-    return err, ok, ok.sum(axis=1)
-
-
-def holdout_reason(min_obs: int) -> str:
-    """Skip reason for a series with fewer scored holdout steps than ``min_obs``."""
-    return "no holdout" if min_obs <= 1 else f"fewer than {min_obs} holdout steps"
 
 
 def mase(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:

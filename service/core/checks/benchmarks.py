@@ -1,77 +1,14 @@
-"""Simple benchmark forecasts fitted to the training actuals, and the model's skill over them.
-
-The four methods of the forecaster's toolbox, each forecasting ``h = 1..H`` steps past the
-training period's last observed actual ``y_T``:
-
-* ``mean``: the mean of the observed training actuals;
-* ``naive``: ``y_T``, the last observed actual (the training period may end in a gap);
-* ``seasonal_naive``: the value one season earlier, ``y_{T - m + 1 + (h - 1) mod m}`` (only when
-  ``m > 1``; where that value is missing, the same season's most recent observed value);
-* ``drift``: the line through the first and last observed actuals, extended to each step.
-"""
+"""Holdout skill over the simple benchmarks of :mod:`service.core.holdout`."""
 
 from __future__ import annotations
 
 import numpy as np
 
 from ..batch import SeriesBatch
+from ..holdout import BENCHMARKS, benchmark_forecasts, holdout_pairs, holdout_reason
 from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
 from ..results import CheckResult, skip_reasons_and_ran
 from ..types import FloatMatrix
-from .accuracy import holdout_pairs, holdout_reason
-
-BENCHMARKS = ("mean", "naive", "seasonal_naive", "drift")
-
-
-def benchmark_forecasts(batch: SeriesBatch, horizon: int) -> dict[str, FloatMatrix]:
-    """Forecasts of each benchmark, shape ``(n_series, horizon)``; ``NaN`` where undefined.
-
-    ``seasonal_naive`` is left out when the season length is 1 (it equals ``naive``).
-    """
-    a = batch.actuals
-    n, width = a.shape
-    m = batch.season_length
-    if width == 0:
-        # No training period at all: every benchmark is undefined.
-        names = [k for k in BENCHMARKS if k != "seasonal_naive" or m > 1]
-        return {k: np.full((n, horizon), np.nan) for k in names}
-    length = batch.lengths
-    rows = np.arange(n)
-    observed = ~np.isnan(a)
-    has = observed.any(axis=1)
-    # The last observed actual, which may sit before the end of the training period.
-    last_idx = np.where(has, width - 1 - np.argmax(observed[:, ::-1], axis=1), 0)
-    first_idx = np.argmax(observed, axis=1)
-    h = np.arange(1, horizon + 1)[None, :]
-    # Steps from the last observed actual to each holdout step.
-    ahead = h + (length - 1 - last_idx)[:, None]
-    count = observed.sum(axis=1)
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        mean = np.where(count > 0, np.where(observed, a, 0.0).sum(axis=1) / count, np.nan)
-    y_last = np.where(has, a[rows, last_idx], np.nan)
-    y_first = np.where(has, a[rows, first_idx], np.nan)
-    span = (last_idx - first_idx).astype(float)
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        slope = np.where(span > 0, (y_last - y_first) / span, np.nan)
-    out = {
-        "mean": np.repeat(mean[:, None], horizon, axis=1),
-        "naive": np.repeat(y_last[:, None], horizon, axis=1),
-        "drift": y_last[:, None] + ahead * slope[:, None],
-    }
-    if m > 1:
-        # Source index one season back, then further back by whole seasons where missing.
-        src = (length[:, None] - m + (h - 1) % m).astype(np.int64)
-        values = np.full((n, horizon), np.nan)
-        # Enough steps back to reach index 0 from the furthest source: (width - 1) // m + 1.
-        for _ in range((width - 1) // m + 1):
-            inside = src >= 0
-            got = np.where(inside, a[rows[:, None], np.clip(src, 0, max(width - 1, 0))], np.nan)
-            values = np.where(np.isnan(values), got, values)
-            src = src - m
-            if not np.isnan(values).any() or not inside.any():
-                break
-        out["seasonal_naive"] = values
-    return {k: out[k] for k in BENCHMARKS if k in out}
 
 
 def _rmse(err: FloatMatrix, ok: np.ndarray, count: np.ndarray) -> np.ndarray:
