@@ -58,11 +58,11 @@ def test_statuses_use_bh_adjusted_p_values():
     np.testing.assert_allclose(result.p_adjusted["bias"], benjamini_hochberg(raw))
     d = result.to_dict()
     # The thresholds are the policy's divided by the size of each family (module docstring of
-    # service.core.gate): fail tests bias, tracking signal, autocorrelation and the fleet bias;
-    # warn tests those and the two warn-only tests.
+    # service.core.gate): fail tests bias, tracking signal, autocorrelation and the fleet bias
+    # and autocorrelation tests; warn tests those and the two warn-only tests.
     summary = next(c for c in d["checks"] if c["name"] == "bias")
-    assert summary["fail_p_used"] == pytest.approx(0.01 / 4)
-    assert summary["warn_p_used"] == pytest.approx(0.05 / 6)
+    assert summary["fail_p_used"] == pytest.approx(0.01 / 5)
+    assert summary["warn_p_used"] == pytest.approx(0.05 / 7)
     material = (
         np.abs(result.results["bias"].details["mean_error"])
         >= 0.1 * (result.results["bias"].details["residual_sd"])
@@ -70,7 +70,7 @@ def test_statuses_use_bh_adjusted_p_values():
     for i, s in enumerate(d["series"]):
         check = next(c for c in s["checks"] if c["name"] == "bias")
         adj = result.p_adjusted["bias"][i]
-        expect = "fail" if adj < 0.01 / 4 else "warn" if adj < 0.05 / 6 else "pass"
+        expect = "fail" if adj < 0.01 / 5 else "warn" if adj < 0.05 / 7 else "pass"
         assert check["status"] == (expect if material[i] else "pass")
     # With adjustment off, raw p-values decide: never fewer warnings.
     raw_policy = Policy.from_dict({"fleet": {"adjustment": "none"}})
