@@ -15,10 +15,11 @@ from .checks.bias import (
     newey_west_lags,
     tracking_signal,
 )
-from .checks.intervals import interval_coverage, kupiec_lr, winkler_scores
+from .checks.intervals import interval_coverage, winkler_scores
 from .checks.normality import jarque_bera
 from .checks.sufficiency import data_sufficiency
 from .checks.variance import arch_lags, arch_lm
+from .coverage_tests import kupiec_lr
 from .gate import Assessment, assess
 from .holdout import BENCHMARKS, benchmark_forecasts
 from .multiple import benjamini_hochberg

@@ -14,7 +14,6 @@ from dataclasses import dataclass
 import numpy as np
 
 from .batch import SeriesBatch
-from .checks.intervals import kupiec_lr
 from .results import skip_reasons_and_ran
 from .tails import chi2_sf, t_ppf, t_sf_two_sided
 from .types import BoolMatrix, FloatVector, InputError, IntVector, ObjectVector
@@ -26,6 +25,22 @@ def _xlogy(x: np.ndarray, y: np.ndarray) -> np.ndarray:
     """``x log y`` with ``0 log 0 = 0``."""
     with np.errstate(invalid="ignore", divide="ignore"):
         return np.where(x == 0, 0.0, x * np.log(np.where(x == 0, 1.0, y)))
+
+
+def kupiec_lr(misses: np.ndarray, n: np.ndarray, miss_rate: np.ndarray) -> FloatVector:
+    """Kupiec's (1995) proportion-of-failures likelihood ratio.
+
+    ``LR = -2 ln[(1-p)^(T-x) p^x] + 2 ln[(1-x/T)^(T-x) (x/T)^x]`` with ``0 ln 0 = 0``,
+    chi-square with 1 degree of freedom. ``x = 6, T = 252, p = 0.01`` gives 3.49878.
+    """
+    x = np.asarray(misses, dtype=float)
+    t = np.asarray(n, dtype=float)
+    p = np.asarray(miss_rate, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        phat = x / t
+    null = _xlogy(t - x, 1.0 - p) + _xlogy(x, p)
+    alt = _xlogy(t - x, 1.0 - phat) + _xlogy(x, phat)
+    return np.maximum(2.0 * (alt - null), 0.0)
 
 
 def transition_counts(misses: BoolMatrix, scored: BoolMatrix) -> tuple[IntVector, ...]:
@@ -103,7 +118,7 @@ def miss_dependence(batch: SeriesBatch, *, min_obs: int = COVERAGE_MIN_OBS) -> M
 
     Transitions (:func:`transition_counts`) are counted over consecutive scored steps; a gap
     breaks the chain. ``LR_ind`` is :func:`independence_lr`; ``LR_cc = LR_POF + LR_ind`` with
-    ``LR_POF`` Kupiec's statistic (:func:`~service.core.checks.intervals.kupiec_lr`) on all scored
+    ``LR_POF`` Kupiec's statistic (:func:`~kupiec_lr`) on all scored
     steps against ``1 - level``, chi-square with 2 degrees of freedom. Christoffersen's
     identity ``LR_cc = LR_uc + LR_ind`` holds exactly when ``LR_uc`` is computed on the steps
     after the first; on all steps, as here, it holds up to the first observation's term,

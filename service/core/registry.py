@@ -43,22 +43,27 @@ class Option:
     (``min_sd``...).
 
     ``kind`` is ``"int"`` (bounded below by ``minimum``), ``"float"`` (a finite number from
-    ``minimum`` to ``maximum``) or ``"choices"`` (a list of names from ``choices``, at least
-    one). Options with ``in_policy=False`` are accepted by :func:`service.core.run_checks` but
-    not by policies (``ci_level``); options with ``for_runner=False`` are read by the check's
-    decision (its ``material`` rule) and not passed to the statistic.
+    ``minimum`` to ``maximum``), ``"choice"`` (one name from ``choices``) or ``"choices"`` (a
+    list of distinct names from ``choices``, at least one). Options with ``in_policy=False``
+    are accepted by :func:`service.core.run_checks` but not by policies (``ci_level``);
+    options with ``for_runner=False`` are read by the check's decision (its ``material``
+    rule) and not passed to the statistic.
     """
 
     name: str
     minimum: float = 0
     in_policy: bool = True
-    kind: Literal["int", "float", "choices"] = "int"
+    kind: Literal["int", "float", "choice", "choices"] = "int"
     maximum: float | None = None
     choices: tuple[str, ...] = ()
     for_runner: bool = True
 
     def problem(self, value: Any) -> str | None:
         """Why ``value`` is not valid for this option, or ``None`` when it is."""
+        if self.kind == "choice":
+            if not isinstance(value, str) or value not in self.choices:
+                return f"must be one of {', '.join(self.choices)}"
+            return None
         if self.kind == "choices":
             if (
                 not isinstance(value, list)

@@ -24,6 +24,11 @@ def t_sf_two_sided(t: np.ndarray, df: np.ndarray | float) -> np.ndarray:
     return 2.0 * stdtr(df, -np.abs(t))
 
 
+def t_sf(t: np.ndarray, df: np.ndarray | float) -> np.ndarray:
+    """``P(T > t)`` for Student's t with ``df`` degrees of freedom (``stats.t.sf(t, df)``)."""
+    return stdtr(df, -np.asarray(t, dtype=float))
+
+
 def t_ppf(q: float | np.ndarray, df: np.ndarray | float) -> np.ndarray:
     """Quantile ``q`` of Student's t with ``df`` degrees of freedom (``stats.t.ppf(q, df)``)."""
     return stdtrit(df, q)

@@ -10,6 +10,8 @@ from __future__ import annotations
 import numpy as np
 
 from service.core import BENCHMARKS, benchmark_forecasts, benchmark_skill, make_batch
+from service.core.checks.benchmarks import skill_over_benchmarks
+from service.core.comparison import compare_with_benchmarks
 
 RTOL = 1e-8
 Y = [3.0, 5.0, 4.0, 8.0, 6.0, 9.0, 7.0, 11.0]  # invented quarterly-like series
@@ -68,7 +70,7 @@ def test_skill_against_best_benchmark():
     holdout = np.arange(21.0, 25.0) + np.array([0.5, -0.5, 0.5, -0.5])
     model = np.arange(21.0, 25.0) + 0.25
     batch = make_batch([y], [y], holdout_actuals=[holdout], holdout_forecasts=[model])
-    result = benchmark_skill(batch)
+    result = skill_over_benchmarks(batch)
     drift = 20 + np.arange(1, 5)
     rmse = {
         "mean": np.sqrt(np.mean((holdout - 10.5) ** 2)),
@@ -89,14 +91,14 @@ def test_model_equal_to_best_benchmark_has_zero_skill_and_worse_is_negative():
     y = rng.normal(100, 5, (1, 40))
     holdout = rng.normal(100, 5, (1, 6))
     naive = np.full((1, 6), y[0, -1])
-    same = benchmark_skill(make_batch(y, y, holdout_actuals=holdout, holdout_forecasts=naive))
+    same = skill_over_benchmarks(make_batch(y, y, holdout_actuals=holdout, holdout_forecasts=naive))
     # The model is the naive forecast: same RMSE, so its skill is 1 - RMSE(naive) / RMSE(best).
     assert same.details["rmse_model"][0] == same.details["rmse_naive"][0]
     np.testing.assert_allclose(
         same.statistic[0], 1 - same.details["rmse_naive"][0] / same.details["rmse_best"][0]
     )
     assert same.statistic[0] <= 0.0
-    worse = benchmark_skill(
+    worse = skill_over_benchmarks(
         make_batch(y, y, holdout_actuals=holdout, holdout_forecasts=holdout + 50.0)
     )
     assert worse.statistic[0] < -1.0
@@ -109,14 +111,16 @@ def test_skips_with_reasons():
         holdout_actuals=[[None, None], [4.0, 4.0], [5.0, 5.5]],
         holdout_forecasts=[[1.0, 1.0], [4.5, 4.5], [5.0, 5.0]],
     )
-    result = benchmark_skill(batch)
+    result = skill_over_benchmarks(batch)
     assert result.skip_reason[0] == "no holdout"
     assert result.skip_reason[1] == (
         "a benchmark forecasts the holdout exactly, so skill is undefined"
     )
     assert result.skip_reason[2] is None
     assert result.details["best_benchmark"][0] is None
-    assert benchmark_skill(make_batch([[1.0, 2.0]], [[1.0, 2.0]])).skip_reason[0] == "no holdout"
+    assert (
+        skill_over_benchmarks(make_batch([[1.0, 2.0]], [[1.0, 2.0]])).skip_reason[0] == "no holdout"
+    )
 
 
 def test_seasonal_naive_reaches_back_to_the_first_season_whatever_the_batch():
@@ -128,3 +132,33 @@ def test_seasonal_naive_reaches_back_to_the_first_season_whatever_the_batch():
     other = list(np.arange(20.0))
     wide = make_batch([y, other], [y, other], season_length=3)
     np.testing.assert_array_equal(benchmark_forecasts(wide, 3)["seasonal_naive"][0], alone[0])
+
+
+def test_the_check_tests_by_diebold_mariano_with_holm_across_benchmarks():
+    # The check's p-value is the smallest Holm-adjusted one-sided DM p-value over the
+    # benchmarks (service.core.comparison), its statistic that comparison's DM statistic,
+    # and relative_error the model's RMSE over that benchmark's on the same steps.
+    rng = np.random.default_rng(21)
+    y = 100 + rng.normal(0, 1, (6, 60))
+    holdout = 100 + rng.normal(0, 1, (6, 12))
+    forecasts = np.full((6, 12), 100.0)
+    forecasts[:3] += np.linspace(0, 3, 12)  # three series drift away: worse than the mean
+    batch = make_batch(
+        y, y - rng.normal(0, 1, (6, 60)), holdout_actuals=holdout, holdout_forecasts=forecasts
+    )
+    result = benchmark_skill(batch)
+    cmp = compare_with_benchmarks(batch)
+    np.testing.assert_array_equal(result.p_value, cmp.p_worse_any)
+    best = np.argmin(cmp.p_holm, axis=0)
+    for i in range(6):
+        name = cmp.benchmarks[best[i]]
+        assert result.details["compared_with"][i] == name
+        np.testing.assert_array_equal(result.statistic[i], cmp.tests.statistic[best[i], i])
+        bench = benchmark_forecasts(batch, 12)[name][i]
+        rel = np.sqrt(np.mean((holdout[i] - forecasts[i]) ** 2)) / np.sqrt(
+            np.mean((holdout[i] - bench) ** 2)
+        )
+        np.testing.assert_allclose(result.details["relative_error"][i], rel, rtol=RTOL)
+    # The descriptive skill figures ride along.
+    skill = skill_over_benchmarks(batch)
+    np.testing.assert_array_equal(result.details["skill"], skill.details["skill"])

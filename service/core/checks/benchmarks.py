@@ -2,13 +2,24 @@
 
 from __future__ import annotations
 
+from collections.abc import Sequence
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
 import numpy as np
 
 from ..batch import SeriesBatch
+from ..comparison import DM_MIN_OBS, compare_with_benchmarks, holm
 from ..holdout import BENCHMARKS, benchmark_forecasts, holdout_pairs, holdout_reason
-from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
-from ..results import CheckResult, skip_reasons_and_ran
-from ..types import FloatMatrix
+from ..registry import CheckDef, CheckPolicy, Finding, FleetFinding, FleetTest, Option, fmt
+from ..relative_accuracy import fleet_avg_rel_mae
+from ..results import CheckResult, skip_reasons_and_ran, to_python
+from ..tails import t_sf
+from ..types import FloatMatrix, InputError
+
+if TYPE_CHECKING:
+    from ..policy import Policy
+    from ..runner import BatchChecks
 
 
 def _rmse(err: FloatMatrix, ok: np.ndarray, count: np.ndarray) -> np.ndarray:
@@ -21,8 +32,8 @@ def _rmse(err: FloatMatrix, ok: np.ndarray, count: np.ndarray) -> np.ndarray:
         return peak * np.sqrt((scaled * scaled).sum(axis=1) / count)
 
 
-def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
-    """Skill over the best simple benchmark on the holdout.
+def skill_over_benchmarks(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
+    """Skill over the best simple benchmark on the holdout (a descriptive figure).
 
     ``skill = 1 - RMSE(model) / RMSE(best)``, where ``best`` is the benchmark of
     :func:`benchmark_forecasts` with the lowest RMSE on the holdout steps the model is scored on
@@ -40,7 +51,7 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
         # No holdout step in the whole batch: every series skips, with the same keys.
         nan = np.full(n, np.nan)
         return CheckResult(
-            name="benchmark_skill",
+            name="skill_over_benchmarks",
             kind="metric",
             statistic=nan,
             p_value=nan,
@@ -80,7 +91,7 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     )
     best_name = np.array(names, dtype=object)[best_j]
     return CheckResult(
-        name="benchmark_skill",
+        name="skill_over_benchmarks",
         kind="metric",
         statistic=np.where(ran, skill, np.nan),
         p_value=np.full(n, np.nan),
@@ -96,15 +107,198 @@ def benchmark_skill(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     )
 
 
+LOSSES = ("squared", "absolute")
+MARGIN = 0.05
+"""Default margin: a model whose errors are more than 5% larger than a no-model benchmark's
+costs more than it gives; within it, a short holdout cannot tell the two apart reliably."""
+
+
+def benchmark_skill(
+    batch: SeriesBatch,
+    *,
+    loss: str = "squared",
+    benchmarks: Sequence[str] | None = None,
+    min_obs: int = DM_MIN_OBS,
+) -> CheckResult:
+    """Is the model significantly worse than a simple benchmark on the holdout?
+
+    Per series and benchmark (mean, naive, seasonal naive, drift, fitted to the training
+    actuals; ``benchmarks`` picks some), the Diebold-Mariano test of equal expected loss
+    (``loss`` squared or absolute error) with the long-run variance of the loss differential
+    along the path by the equal-weighted cosine estimator and Student t critical values (the
+    fixed-smoothing form of Coroneo & Iacone 2020; the Harvey, Leybourne & Newbold 1997
+    variance over ``h - 1`` autocovariances, the classical small-sample form, over-rejects on a
+    one-origin path: see :mod:`service.core.comparison`), one-sided for "the model is worse",
+    then Holm (1979) across the benchmarks. ``p_value`` is the smallest Holm-adjusted p-value
+    and ``statistic`` that comparison's DM statistic; ``details`` name the benchmark
+    (``compared_with``), the model's error relative to it (``relative_error``: RMSE ratio for
+    squared loss, MAE ratio for absolute), each benchmark's adjusted p-value, and the
+    descriptive skill over the best benchmark on the holdout (``skill``, ``best_benchmark``,
+    RMSEs). Skipped without a holdout or with fewer than ``min_obs`` steps to compare.
+    """
+    if loss not in LOSSES:
+        raise InputError("loss", f"must be one of {', '.join(LOSSES)}, got {loss!r}")
+    skill = skill_over_benchmarks(batch)
+    cmp = compare_with_benchmarks(batch, loss=loss, benchmarks=benchmarks, min_obs=min_obs)
+    n = batch.n_series
+    names = cmp.benchmarks
+    ran = np.equal(cmp.skip_reason, None) & ~np.isnan(cmp.p_worse_any)
+    p_holm = np.where(np.isnan(cmp.p_holm), np.inf, cmp.p_holm)
+    best = np.argmin(p_holm, axis=0) if names else np.zeros(n, dtype=np.int64)
+    cols = np.arange(n)
+    stat = cmp.tests.statistic[best, cols] if names else np.full(n, np.nan)
+    # The model's error relative to the benchmark it is compared with, on the same steps.
+    err, ok, _ = holdout_pairs(batch)
+    relative = np.full(n, np.nan)
+    if names and err.shape[1]:
+        forecasts = benchmark_forecasts(batch, err.shape[1])
+        for j, name in enumerate(names):
+            b_err = batch.holdout.actuals - forecasts[name]  # type: ignore[union-attr]
+            both = ok & ~np.isnan(b_err)
+            with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+                if loss == "squared":
+                    m_size = _rmse(err, both, both.sum(axis=1))
+                    b_size = _rmse(np.where(both, b_err, 0.0), both, both.sum(axis=1))
+                else:
+                    count = np.maximum(both.sum(axis=1), 1)
+                    m_size = np.where(both, np.abs(err), 0.0).sum(axis=1) / count
+                    b_size = np.where(both, np.abs(b_err), 0.0).sum(axis=1) / count
+                ratio = m_size / b_size
+            relative = np.where(best == j, ratio, relative)
+    # The reason a series could not be compared: no holdout, no benchmark, or the DM test's.
+    no_run = np.where(np.equal(cmp.skip_reason, None), "no comparison could run", cmp.skip_reason)
+    first = np.isin(
+        skill.skip_reason,
+        [holdout_reason(1), "no benchmark could be fitted to the training actuals"],
+    )
+    reasons = np.where(ran, None, np.where(first, skill.skip_reason, no_run))
+    chosen = np.array(names, dtype=object)[best] if names else np.full(n, None, dtype=object)
+    details = {
+        "compared_with": np.where(ran, chosen, None),
+        "relative_error": np.where(ran & np.isfinite(relative), relative, np.nan),
+        "loss": np.full(n, loss, dtype=object),
+        **{f"p_{name}": np.where(ran, cmp.p_holm[j], np.nan) for j, name in enumerate(names)},
+        **dict(skill.details),
+    }
+    return CheckResult(
+        name="benchmark_skill",
+        kind="test",
+        statistic=np.where(ran, stat, np.nan),
+        p_value=np.where(ran, cmp.p_worse_any, np.nan),
+        details=details,
+        skip_reason=reasons,
+        null_hypothesis="the model's expected holdout loss is no larger than every benchmark's",
+    )
+
+
 # ------------------------------------------------------------------------------- declarations
 
 
 def _skill_found(f: Finding) -> str:
-    best = str(f.detail("best_benchmark")).replace("_", " ")
+    bench = str(f.detail("compared_with")).replace("_", " ")
+    rel = float(f.detail("relative_error"))
+    kind = "RMSE" if f.detail("loss") == "squared" else "MAE"
     return (
-        f"the {best} benchmark beats the model on the holdout (skill {fmt(f.statistic, 2)}: "
-        f"RMSE {fmt(float(f.detail('rmse_model')), 4)} against "
-        f"{fmt(float(f.detail('rmse_best')), 4)})"
+        f"the model is worse than the {bench} benchmark on the holdout: its {kind} is "
+        f"{fmt(rel, 3)} times the benchmark's (Diebold-Mariano t = {fmt(f.statistic)}, "
+        f"{f.p_text()}, Holm across the benchmarks; skill over the best benchmark "
+        f"{fmt(float(f.detail('skill')), 2)})"
+    )
+
+
+def _skill_material(result: CheckResult, cp: CheckPolicy) -> np.ndarray:
+    margin = cp.option("margin")
+    rel = result.details["relative_error"]
+    with np.errstate(invalid="ignore"):
+        return rel > 1.0 + (0.0 if margin is None else float(margin))
+
+
+def _skill_notes(
+    result: CheckResult, p_adj: np.ndarray, codes: np.ndarray, immaterial: np.ndarray
+) -> dict[int, str]:
+    out = {}
+    for i in np.flatnonzero(immaterial).tolist():
+        bench = str(result.details["compared_with"][i]).replace("_", " ")
+        rel = float(result.details["relative_error"][i])
+        out[i] = (
+            f"significantly worse than the {bench} benchmark, but by less than the policy's "
+            f"margin (error {fmt(rel, 3)} times the benchmark's), so it passes"
+        )
+    return out
+
+
+@dataclass(frozen=True)
+class FleetAccuracy:
+    """The fleet's accuracy against the benchmark it does worst against (the result's
+    ``fleet.accuracy``): the average relative MAE (Davydenko & Fildes 2013) with its 95%
+    interval over series, the one-sided p-value that it exceeds ``1 + margin`` (Holm across the
+    benchmarks), the series used, and whether it is beyond the margin (``material``)."""
+
+    benchmark: str | None
+    relative_mae: float
+    ci_low: float
+    ci_high: float
+    p_value: float
+    series_used: int
+    margin: float
+    material: bool | None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {k: to_python(v) for k, v in vars(self).items()}
+
+
+_NO_FLEET_ACCURACY = FleetAccuracy(None, *(float("nan"),) * 4, 0, float("nan"), None)
+
+
+def _fleet_accuracy(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFinding:
+    batch = checks.batch
+    cp = policy.check("benchmark_skill")
+    margin = MARGIN if cp.option("margin") is None else float(cp.option("margin"))
+    chosen = cp.option("benchmarks")
+    names = [k for k in BENCHMARKS if k != "seasonal_naive" or batch.season_length > 1]
+    names = [k for k in names if chosen is None or k in chosen]
+    use = ~checks["benchmark_skill"].skipped
+    if not names or not use.any():
+        return FleetFinding(_NO_FLEET_ACCURACY)
+    part = batch.take(np.flatnonzero(use))
+    found = []
+    for name in names:
+        r = fleet_avg_rel_mae(part, benchmark=name)
+        pooled = r.log_ratio
+        if pooled.n_series < 2 or not np.isfinite(pooled.std_error) or not pooled.std_error > 0:
+            continue
+        t = (pooled.estimate - np.log1p(margin)) / pooled.std_error
+        found.append((float(t_sf(np.array(t), float(pooled.df))), name, r))
+    if not found:
+        return FleetFinding(_NO_FLEET_ACCURACY)
+    p_adj = holm(np.array([f[0] for f in found]))
+    j = int(np.argmin(p_adj))
+    _, name, r = found[j]
+    summary = FleetAccuracy(
+        benchmark=name,
+        relative_mae=r.estimate,
+        ci_low=r.ci_low,
+        ci_high=r.ci_high,
+        p_value=float(p_adj[j]),
+        series_used=r.n_series,
+        margin=margin,
+        material=bool(r.estimate > 1.0 + margin),
+    )
+    bench = name.replace("_", " ")
+    more = 100.0 * (r.estimate - 1.0)
+    message = (
+        f"Across the fleet the model's errors are {abs(more):.1f}% "
+        f"{'larger' if more >= 0 else 'smaller'} than the {bench} benchmark's (relative MAE "
+        f"{r.estimate:.3f}, 95% CI {r.ci_low:.3f}-{r.ci_high:.3f}, {r.n_series:,} series; "
+        f"p = {summary.p_value:.2g} that it exceeds 1 + {margin:g}): a method that needs no "
+        "model does better; do not ship this version."
+    )
+    return FleetFinding(
+        summary,
+        p_value=summary.p_value,
+        material=bool(summary.material),
+        message=message,
+        warn_p=cp.fleet_warn_p,
     )
 
 
@@ -112,25 +306,49 @@ CHECKS = (
     CheckDef(
         name="benchmark_skill",
         title="Benchmark skill",
-        kind="metric",
+        kind="test",
         position=80,
         family="benchmarks",
         needs_holdout=True,
-        tests="holdout RMSE against the best of mean, naive, seasonal naive and drift",
-        null_hypothesis="",
-        defaults="skill = 1 - RMSE(model) / RMSE(best benchmark)",
-        details=("best_benchmark", "skill", "rmse_model", "rmse_best"),
-        source="Hyndman & Athanasopoulos, Forecasting: Principles and Practice, simple methods",
+        tests=(
+            "holdout accuracy against the mean, naive, seasonal naive and drift benchmarks: "
+            "Diebold-Mariano test per benchmark, Holm across them; the fleet's average "
+            "relative MAE"
+        ),
+        null_hypothesis="the model's expected holdout loss is no larger than every benchmark's",
+        defaults=(
+            "squared loss; EWC variance with t critical values; fails only beyond a 5% margin; "
+            "skill = 1 - RMSE(model) / RMSE(best benchmark) reported"
+        ),
+        details=("compared_with", "relative_error", "loss", "skill", "best_benchmark"),
+        source=(
+            "Diebold & Mariano (1995), JBES 13:253-263; Harvey, Leybourne & Newbold (1997), "
+            "IJF 13:281-291; Coroneo & Iacone (2020), J. Applied Econometrics 35:21-40; "
+            "Holm (1979); Davydenko & Fildes (2013), IJF 29:510-522"
+        ),
         run=lambda inputs, **options: benchmark_skill(inputs.batch, **options),
-        # Worse than the best simple benchmark fails the series; the fleet warns when more
-        # than 10% of its weight loses to a benchmark and fails beyond 25%.
-        rule=CheckPolicy(fail_below=0.0, warn_share=0.10, fail_share=0.25),
-        passed="beats the simple benchmarks on the holdout",
+        rule=CheckPolicy(
+            warn_p=0.05,
+            fail_p=0.01,
+            fleet_warn_p=0.05,
+            fleet_fail_p=0.01,
+            option_values=(("margin", MARGIN),),
+        ),
+        passed="not worse than the simple benchmarks on the holdout",
         found=_skill_found,
         meaning=(
             "a method that needs no model does better; do not ship this version for these series"
         ),
-        options=(Option("min_obs"),),
-        thresholds=("warn_below", "fail_below"),
+        options=(
+            Option("min_obs"),
+            Option("loss", kind="choice", choices=LOSSES),
+            Option("benchmarks", kind="choices", choices=BENCHMARKS),
+            Option("margin", kind="float", for_runner=False),
+        ),
+        material=_skill_material,
+        pass_notes=_skill_notes,
+        fleet=FleetTest(
+            key="accuracy", compute=_fleet_accuracy, empty=FleetFinding(_NO_FLEET_ACCURACY)
+        ),
     ),
 )

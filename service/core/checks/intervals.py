@@ -2,35 +2,32 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
 import numpy as np
 
 from ..batch import SeriesBatch
-from ..registry import FAIL, WARN, CheckDef, CheckPolicy, Finding, Option, fmt
-from ..results import CheckResult, skip_reasons_and_ran
-from ..tails import chi2_sf
+from ..coverage_tests import fleet_coverage, kupiec_lr, miss_dependence
+from ..registry import (
+    FAIL,
+    WARN,
+    CheckDef,
+    CheckInputs,
+    CheckPolicy,
+    Finding,
+    FleetFinding,
+    FleetTest,
+    Option,
+    fmt,
+)
+from ..results import CheckResult, skip_reasons_and_ran, to_python
+from ..tails import chi2_sf, t_sf
 from ..types import FloatMatrix, FloatVector
 
-
-def _xlogy(x: np.ndarray, y: np.ndarray) -> np.ndarray:
-    """``x log y`` with ``0 log 0 = 0``."""
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        return np.where(x == 0, 0.0, x * np.log(np.where(x == 0, 1.0, y)))
-
-
-def kupiec_lr(misses: np.ndarray, n: np.ndarray, miss_rate: np.ndarray) -> FloatVector:
-    """Kupiec's (1995) proportion-of-failures likelihood ratio.
-
-    ``LR = -2 ln[(1-p)^(T-x) p^x] + 2 ln[(1-x/T)^(T-x) (x/T)^x]`` with ``0 ln 0 = 0``,
-    chi-square with 1 degree of freedom. ``x = 6, T = 252, p = 0.01`` gives 3.49878.
-    """
-    x = np.asarray(misses, dtype=float)
-    t = np.asarray(n, dtype=float)
-    p = np.asarray(miss_rate, dtype=float)
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        phat = x / t
-    null = _xlogy(t - x, 1.0 - p) + _xlogy(x, p)
-    alt = _xlogy(t - x, 1.0 - phat) + _xlogy(x, phat)
-    return np.maximum(2.0 * (alt - null), 0.0)
+if TYPE_CHECKING:
+    from ..policy import Policy
+    from ..runner import BatchChecks
 
 
 def winkler_scores(
@@ -118,6 +115,28 @@ def interval_coverage(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
 # ------------------------------------------------------------------------------- declarations
 
 
+def _run(inputs: CheckInputs, **options: Any) -> CheckResult:
+    """Kupiec's test with Christoffersen's (1998) independence test of the misses beside it
+    (``independence_lr``, ``independence_p_value``; information only on a one-origin path,
+    where a correct model's misses are dependent whenever its errors are)."""
+    batch = inputs.batch
+    result = interval_coverage(batch, **options)
+    dep = miss_dependence(batch)
+    ok = np.equal(dep.skip_reason, None) & ~result.skipped
+    details = dict(result.details)
+    details["independence_lr"] = np.where(ok, dep.lr_ind, np.nan)
+    details["independence_p_value"] = np.where(ok, dep.p_ind, np.nan)
+    return CheckResult(
+        name=result.name,
+        kind=result.kind,
+        statistic=result.statistic,
+        p_value=result.p_value,
+        details=details,
+        skip_reason=result.skip_reason,
+        null_hypothesis=result.null_hypothesis,
+    )
+
+
 def _coverage_found(f: Finding) -> str:
     cov, level = float(f.detail("coverage")), float(f.detail("level"))
     kind = "too narrow" if cov < level else "too wide"
@@ -134,6 +153,65 @@ def _too_wide_only_warns(result: CheckResult, codes: np.ndarray) -> np.ndarray:
     return np.where(too_wide & (codes == FAIL), WARN, codes)
 
 
+MIN_SHORTFALL = 0.02
+"""Default smallest coverage shortfall that matters: intervals that miss 2 points more often
+than they claim (93% coverage for 95% intervals) start to mislead the plans built on them."""
+
+
+@dataclass(frozen=True)
+class FleetCoverageSummary:
+    """The fleet's pooled coverage (the result's ``fleet.coverage``): the weighted miss rate
+    over every scored step, the nominal rate, their difference with its 95% interval
+    (cluster-robust over series), the one-sided p-value that the intervals miss more often
+    than they claim, the series and steps used, and ``material``."""
+
+    miss_rate: float
+    nominal: float
+    excess: float
+    ci_low: float
+    ci_high: float
+    p_value: float
+    series_used: int
+    steps: int
+    material: bool | None
+
+    def to_dict(self) -> dict[str, Any]:
+        return {k: to_python(v) for k, v in vars(self).items()}
+
+
+_NO_FLEET = FleetCoverageSummary(*(float("nan"),) * 6, 0, 0, None)
+
+
+def _fleet(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFinding:
+    cp = policy.check("interval_coverage")
+    found = fleet_coverage(checks.batch)
+    if found.n_series < 2 or not np.isfinite(found.statistic):
+        return FleetFinding(_NO_FLEET)
+    p = float(t_sf(np.array(found.statistic), float(found.df)))
+    shortfall = cp.option("min_shortfall")
+    material = bool(found.excess >= (0.0 if shortfall is None else float(shortfall)))
+    summary = FleetCoverageSummary(
+        miss_rate=found.miss_rate,
+        nominal=found.nominal,
+        excess=found.excess,
+        ci_low=found.ci_low,
+        ci_high=found.ci_high,
+        p_value=p,
+        series_used=found.n_series,
+        steps=found.n_steps,
+        material=material,
+    )
+    message = (
+        f"Across the fleet the intervals miss {found.miss_rate:.1%} of {found.n_steps:,} "
+        f"holdout steps against the {found.nominal:.1%} they claim ({found.n_series:,} series; "
+        f"excess 95% CI {found.ci_low:+.1%} to {found.ci_high:+.1%}, p = {p:.2g}, misses along "
+        "one path allowed to cluster): they are too narrow; widen them or model the variance."
+    )
+    return FleetFinding(
+        summary, p_value=p, material=material, message=message, warn_p=cp.fleet_warn_p
+    )
+
+
 CHECKS = (
     CheckDef(
         name="interval_coverage",
@@ -142,9 +220,16 @@ CHECKS = (
         position=90,
         family="intervals",
         needs_holdout=True,
-        tests="holdout interval coverage against the nominal level (Kupiec POF test)",
+        tests=(
+            "holdout interval coverage against the nominal level (Kupiec POF test); the "
+            "fleet's pooled miss rate"
+        ),
         null_hypothesis="the intervals miss at their nominal rate 1 - level",
-        defaults="level 0.95 unless given; Winkler score reported",
+        defaults=(
+            "level 0.95 unless given; series warn only (misses along one path cluster); the "
+            "fleet's pooled test fails beyond a 2-point shortfall; Winkler score and "
+            "Christoffersen's independence test reported"
+        ),
         details=(
             "coverage",
             "level",
@@ -153,14 +238,28 @@ CHECKS = (
             "misses_above",
             "n_scored",
             "winkler_score",
+            "independence_lr",
+            "independence_p_value",
         ),
-        source="Kupiec (1995), J. Derivatives 3:73-84; Winkler (1972), JASA 67:187-191",
-        run=lambda inputs, **options: interval_coverage(inputs.batch, **options),
-        rule=CheckPolicy(warn_p=0.05, fail_p=0.01),
+        source=(
+            "Kupiec (1995), J. Derivatives 3:73-84; Christoffersen (1998), IER 39:841-862; "
+            "Winkler (1972), JASA 67:187-191; cluster-robust pooling (Cameron & Miller 2015)"
+        ),
+        run=_run,
+        rule=CheckPolicy(
+            warn_p=0.05,
+            fleet_warn_p=0.05,
+            fleet_fail_p=0.01,
+            option_values=(("min_shortfall", MIN_SHORTFALL),),
+        ),
         passed="holdout intervals cover at a rate consistent with their level",
         found=_coverage_found,
         meaning="the stated interval level cannot be trusted",
-        options=(Option("min_obs"),),
+        options=(
+            Option("min_obs"),
+            Option("min_shortfall", kind="float", maximum=1, for_runner=False),
+        ),
         cap=_too_wide_only_warns,
+        fleet=FleetTest(key="coverage", compute=_fleet, empty=FleetFinding(_NO_FLEET)),
     ),
 )
