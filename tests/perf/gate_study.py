@@ -8,6 +8,9 @@ Invented fleets with simulated residuals, sound and flawed, through ``service.co
   how often the fleet verdict is ``fail`` and how often ``warn`` or worse;
 * detection rows: a bias, AR(1) residuals, an ignored seasonal AR term, a recent level shift in
   part of the fleet, ARCH effects: how often the fleet fails;
+* holdout rows: correct models with their own path forecasts and 95% intervals (a level, an
+  AR(1) 0.5, a seasonal m = 12 profile) over 6, 12 and 24 steps, and flawed ones (forecasts
+  shifted by 1 sd, a random walk forecast by its training mean, 80% intervals claimed as 95%);
 * the per-series tests' rejection rates at 1% and 5% (raw p-values) under sound residuals.
 
     python tests/perf/gate_study.py --reps 1000 --small-reps 5000
@@ -267,6 +270,115 @@ DETECT = (
 )
 
 
+@dataclass(frozen=True)
+class HoldoutScenario:
+    label: str
+    process: str
+    """``level``: constant level plus noise; ``ar1``: AR(1) 0.5 around the level;
+    ``seasonal``: a fixed m = 12 profile plus noise; ``walk``: a random walk."""
+    horizons: tuple[int, ...] = (6, 12, 24)
+    model: str = "true"
+    """``true``: the process's own forecasts and 95% intervals; ``shifted``: those shifted by
+    1 sd; ``mean``: the training mean with +-1.96 sd; ``narrow``: true 80% intervals
+    labelled 95%."""
+    target: str = ""
+
+
+HOLDOUT = (
+    HoldoutScenario("correct: level + noise", "level", target="fail <= 1%, warn <= 5%"),
+    HoldoutScenario("correct: AR(1) 0.5", "ar1", target="fail <= 1%, warn <= 5%"),
+    HoldoutScenario("correct: seasonal m = 12", "seasonal", target="fail <= 1%, warn <= 5%"),
+    HoldoutScenario(
+        "forecasts shifted by 1 sd", "level", (12,), "shifted", "fail >= 95%, holdout bias"
+    ),
+    HoldoutScenario("random walk, training mean forecast", "walk", (12,), "mean", "fail >= 95%"),
+    HoldoutScenario("80% intervals claimed as 95%", "level", (12,), "narrow", "fail >= 95%"),
+)
+
+TRAIN = 104
+Z95, Z80 = 1.959963984540054, 1.2815515655446004  # normal quantiles (scipy.stats.norm.ppf)
+
+
+def holdout_fleet(s: HoldoutScenario, n: int, h: int, rng: np.random.Generator):
+    """A batch of ``n`` invented series with a ``TRAIN``-period fit and an ``h``-step holdout
+    from one origin: one-step fitted values and path forecasts from the process itself."""
+    t = TRAIN + h
+    level = rng.uniform(50, 150, size=(n, 1))
+    sd = 5.0
+    z = sd * rng.standard_normal((n, t))
+    steps = np.arange(1, h + 1)[None, :]
+    m = 12
+    if s.process in ("level", "seasonal"):
+        profile = (
+            10.0 * np.sin(2 * np.pi * np.arange(t) / m)[None, :] if s.process == "seasonal" else 0.0
+        )
+        mean = level + profile
+        y = mean + z
+        fitted = mean[:, :TRAIN] if s.process == "seasonal" else np.repeat(level, TRAIN, axis=1)
+        path = mean[:, TRAIN:] if s.process == "seasonal" else np.repeat(level, h, axis=1)
+        half = np.full((n, h), Z95 * sd)
+    elif s.process == "ar1":
+        phi = 0.5
+        d = np.empty((n, t))
+        d[:, 0] = z[:, 0] / np.sqrt(1 - phi**2)
+        for k in range(1, t):
+            d[:, k] = phi * d[:, k - 1] + z[:, k]
+        y = level + d
+        fitted = np.concatenate([np.full((n, 1), np.nan), level + phi * d[:, : TRAIN - 1]], axis=1)
+        path = level + d[:, TRAIN - 1 : TRAIN] * phi**steps
+        half = Z95 * sd * np.sqrt((1 - phi ** (2 * steps)) / (1 - phi**2))
+    else:  # walk
+        y = level + np.cumsum(z, axis=1)
+        fitted = np.concatenate([np.full((n, 1), np.nan), y[:, : TRAIN - 1]], axis=1)
+        path = np.repeat(y[:, TRAIN - 1 : TRAIN], h, axis=1)
+        half = Z95 * sd * np.sqrt(steps) * np.ones((n, 1))
+    if s.model == "shifted":
+        path = path + sd
+    elif s.model == "mean":
+        path = np.repeat(y[:, :TRAIN].mean(axis=1, keepdims=True), h, axis=1)
+        fitted = np.repeat(y[:, :TRAIN].mean(axis=1, keepdims=True), TRAIN, axis=1)
+        half = np.full((n, h), Z95 * y[:, :TRAIN].std(axis=1, keepdims=True))
+    elif s.model == "narrow":
+        half = half * Z80 / Z95
+    return make_batch(
+        y[:, :TRAIN],
+        fitted,
+        ids=[f"series-{i}" for i in range(n)],
+        season_length=m if s.process == "seasonal" else 1,
+        holdout_actuals=y[:, TRAIN:],
+        holdout_forecasts=path,
+        holdout_lower=path - half,
+        holdout_upper=path + half,
+        level=0.95,
+    )
+
+
+def holdout_table(reps: int, seed: int) -> None:
+    print("\n## Holdouts (fleets of 200)\n")
+    print("| condition | H | fleets | fail | warn or fail | from | target |")
+    print("|---|---|---|---|---|---|---|")
+    policy = default_policy()
+    for s_i, s in enumerate(HOLDOUT):
+        for h in s.horizons:
+            rng = np.random.default_rng(seed + 9000 + 100 * s_i + h)
+            fails = warns = 0
+            culprits: dict[str, int] = {}
+            for _ in range(reps):
+                a = assess_many([(holdout_fleet(s, 200, h, rng), policy)])[0]
+                v = a.verdict.value
+                fails += v == "fail"
+                warns += v != "pass"
+                if v != "pass":
+                    bad = "fail" if v == "fail" else "warn"
+                    for c in {r.check for r in a.reasons if r.status.value == bad}:
+                        culprits[c] = culprits.get(c, 0) + 1
+            print(
+                f"| {s.label} | {h} | {reps} | {fails / reps:.1%} | {warns / reps:.1%} | "
+                f"{_culprits(culprits, reps)} | {s.target} |",
+                flush=True,
+            )
+
+
 def fleet(s: Scenario, n: int, t: int, rng: np.random.Generator):
     """A batch of ``n`` invented series: level around 100, the scenario's residuals."""
     e = GENERATORS[s.kind](n, t, rng, **s.params)
@@ -370,7 +482,7 @@ def main() -> None:
     parser.add_argument("--small-reps", type=int, default=5000, help="fleets of 1 or 5 per cell")
     parser.add_argument("--series", type=int, default=20000, help="series per per-series cell")
     parser.add_argument("--seed", type=int, default=20261203)
-    parser.add_argument("--only", choices=("size", "detect", "series"), default=None)
+    parser.add_argument("--only", choices=("size", "detect", "holdout", "series"), default=None)
     args = parser.parse_args()
     start = time.perf_counter()
     print(f"default policy; {args.reps} fleets of 200, {args.small_reps} fleets of 1 or 5")
@@ -378,6 +490,8 @@ def main() -> None:
         size_table(args.reps, args.small_reps, args.seed)
     if args.only in (None, "detect"):
         detect_table(args.reps, args.small_reps, args.seed)
+    if args.only in (None, "holdout"):
+        holdout_table(args.reps, args.seed)
     if args.only in (None, "series"):
         per_series_table(args.series, args.seed)
     print(f"\nelapsed {time.perf_counter() - start:.0f} s")
