@@ -31,7 +31,7 @@ __all__ = ["Services", "get_services", "get_settings", "get_store", "register"]
 
 @dataclass
 class Services:
-    """The app's in-process helpers beside the store: metrics, the batcher of small
+    """The app's in-process services beside the store: metrics, the batcher of small
     submissions, the memory of verified tokens, and what the report pages keep once made (their
     chart cache and the link-signing key read from the store)."""
 

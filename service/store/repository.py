@@ -47,7 +47,7 @@ from .records import (
 )
 from .writelock import write_lock
 
-# The records and helpers are defined in records.py (and the conflict in port.py); they are
+# The records and small functions are defined in records.py (and the conflict in port.py); they are
 # named here too, for callers that reach the store through these functions.
 __all__ = [
     "SCOPES",
