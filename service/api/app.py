@@ -8,11 +8,11 @@ from typing import Any
 from fastapi import FastAPI
 
 from service.settings import Settings
-from service.store import make_engine
-from service.store.migrate import upgrade_engine
+from service.store import make_store
 
 from .auth import TokenCache, announce_first_token, ensure_first_token
 from .batching import SubmissionBatcher
+from .deps import Services, register
 from .errors import install_error_handlers
 from .metrics import Metrics, MetricsMiddleware
 from .openapi import examples_dir, install_openapi, load_examples
@@ -30,29 +30,32 @@ admin). Errors are `application/problem+json` (RFC 9457) naming the field at fau
 def create_app(settings: Settings | None = None) -> FastAPI:
     """Build the service for ``settings`` (default: read from the environment).
 
-    Makes the engine, applies the migrations and mints the first admin token when no token
-    exists anywhere (unless ``migrate_on_start`` is off), and wires the routers, error mapping,
-    metrics and OpenAPI examples.
+    Makes the store, applies the migrations and mints the first admin token when no token
+    exists anywhere (unless ``migrate_on_start`` is off), registers the store, the settings and
+    the in-process services for the routers' dependencies (:mod:`service.api.deps`), and wires
+    the routers, error mapping, metrics and OpenAPI examples.
     """
     settings = settings if settings is not None else Settings()
-    engine = make_engine(settings.database_url)
+    store = make_store(settings.database_url)
     if settings.migrate_on_start:
         # This process owns start-up (``plumbline serve`` does both itself before its workers
         # start and turns this off for them).
-        upgrade_engine(engine)
-        announce_first_token(ensure_first_token(engine, settings))
+        store.migrate()
+        announce_first_token(ensure_first_token(store, settings))
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> Any:
         yield
-        engine.dispose()
+        store.close()
 
     app = FastAPI(title="Plumbline", version="1", description=DESCRIPTION, lifespan=lifespan)
-    app.state.settings = settings
-    app.state.engine = engine
-    app.state.metrics = Metrics()
-    app.state.batcher = SubmissionBatcher(engine, app.state.metrics)
-    app.state.token_cache = TokenCache(settings.token_cache_seconds)
+    metrics = Metrics()
+    services = Services(
+        metrics=metrics,
+        batcher=SubmissionBatcher(store, metrics),
+        token_cache=TokenCache(settings.token_cache_seconds),
+    )
+    register(app, store=store, settings=settings, services=services)
     install_error_handlers(app)
     for module in (assessments, reports, models, checks, policies, tokens, health):
         app.include_router(module.router)
@@ -68,5 +71,5 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             allow_headers=["Authorization", "Content-Type", "Idempotency-Key", "If-None-Match"],
             expose_headers=["ETag", "Location", "Link"],
         )
-    app.add_middleware(MetricsMiddleware, metrics=app.state.metrics)
+    app.add_middleware(MetricsMiddleware, metrics=metrics)
     return app

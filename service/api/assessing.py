@@ -15,14 +15,20 @@ from typing import Any
 
 import numpy as np
 import orjson
-from sqlalchemy import Engine
-from sqlalchemy.exc import SQLAlchemyError
 
 from service.core.gate import assess_many_dicts
 from service.core.policy import Policy
 from service.ingest import AssessmentRequest, parse_csv_request, parse_json_request
 from service.settings import Settings
-from service.store import repository as repo
+from service.store.port import Store, StoreConflict, StoreError
+from service.store.records import (
+    AssessmentSummary,
+    NewAssessment,
+    SeriesInput,
+    SeriesResult,
+    new_id,
+    utcnow,
+)
 
 from . import policy_lookup
 from .errors import ApiError
@@ -61,9 +67,9 @@ def body_hash(kind: str, params: Mapping[str, str], body: bytes) -> str:
     return h.hexdigest()
 
 
-def replay(engine: Engine, key: str, digest: str) -> Outcome | None:
+def replay(store: Store, key: str, digest: str) -> Outcome | None:
     """The stored outcome for a repeated ``Idempotency-Key`` (409 when the body differs)."""
-    record = repo.find_idempotency_key(engine, key=key)
+    record = store.find_idempotency_key(key=key)
     if record is None:
         return None
     if record.body_hash != digest:
@@ -73,7 +79,7 @@ def replay(engine: Engine, key: str, digest: str) -> Outcome | None:
             "body; use a new key for a new assessment",
             slug="idempotency-key-reused",
         )
-    stored = repo.get_assessment_by_seq(engine, seq=record.assessment_seq)
+    stored = store.get_assessment_by_seq(seq=record.assessment_seq)
     if stored is None:  # removed meanwhile: treat the key as free
         return None
     return Outcome(
@@ -94,7 +100,7 @@ def parse(
     return parse_json_request(body, **limits)
 
 
-def _inputs(req: AssessmentRequest) -> list[repo.SeriesInput]:
+def _inputs(req: AssessmentRequest) -> list[SeriesInput]:
     b = req.batch
     h = b.holdout
     out = []
@@ -113,7 +119,7 @@ def _inputs(req: AssessmentRequest) -> list[repo.SeriesInput]:
                 hold["holdout_upper"] = h.upper[i, :nh]
                 hold["holdout_level"] = level
         out.append(
-            repo.SeriesInput(
+            SeriesInput(
                 series_id=sid,
                 weight=req.weights_given[i],
                 actuals=b.actuals[i, :n],
@@ -138,7 +144,7 @@ class Job:
     document: dict[str, Any] | None = None
 
 
-def resolve_policies(engine: Engine, jobs: list[Job]) -> list[Exception | None]:
+def resolve_policies(store: Store, jobs: list[Job]) -> list[Exception | None]:
     """Resolve the policy of each job that has none yet; a name (``"default"``,
     ``"name@3"``) is looked up once for all the jobs that give it. Per job: the error when its
     policy is unknown or invalid, or the database error that kept its name from being looked
@@ -153,12 +159,12 @@ def resolve_policies(engine: Engine, jobs: list[Job]) -> list[Exception | None]:
             continue
         try:
             if not isinstance(spec, str):
-                hit: tuple[Policy, dict[str, Any]] | Exception = policy_lookup.resolve(engine, spec)
+                hit: tuple[Policy, dict[str, Any]] | Exception = policy_lookup.resolve(store, spec)
             elif spec in found:
                 hit = found[spec]
             else:
-                hit = found[spec] = policy_lookup.resolve(engine, spec)
-        except (ApiError, SQLAlchemyError) as exc:
+                hit = found[spec] = policy_lookup.resolve(store, spec)
+        except (ApiError, StoreError) as exc:
             hit = exc
             if isinstance(spec, str):
                 found[spec] = exc
@@ -171,7 +177,7 @@ def resolve_policies(engine: Engine, jobs: list[Job]) -> list[Exception | None]:
     return errors
 
 
-def run_many(engine: Engine, jobs: list[Job]) -> list[Outcome | BaseException]:
+def run_many(store: Store, jobs: list[Job]) -> list[Outcome | BaseException]:
     """Assess ``jobs`` together and save the stored ones in one transaction.
 
     Policies not yet resolved are resolved first (:func:`resolve_policies`). The checks of
@@ -181,12 +187,12 @@ def run_many(engine: Engine, jobs: list[Job]) -> list[Outcome | BaseException]:
     idempotency race it lost to a different body, a database error looking its policy up or
     on its write (then it was not written; jobs with ``store`` false keep their answers).
     """
-    outcomes: list[Outcome | BaseException | None] = list(resolve_policies(engine, jobs))
+    outcomes: list[Outcome | BaseException | None] = list(resolve_policies(store, jobs))
     ready = [i for i, o in enumerate(outcomes) if o is None]
     clock = time.perf_counter()
     results = assess_many_dicts([(jobs[i].req.batch, jobs[i].policy) for i in ready])  # type: ignore[misc]
     shared = time.perf_counter() - clock
-    records: list[tuple[int, repo.NewAssessment]] = []
+    records: list[tuple[int, NewAssessment]] = []
     for i, result in zip(ready, results, strict=True):
         job = jobs[i]
         job.timings["assess"] = shared
@@ -198,16 +204,16 @@ def run_many(engine: Engine, jobs: list[Job]) -> list[Outcome | BaseException]:
     if records:
         clock = time.perf_counter()
         try:
-            saved: list[repo.AssessmentSummary | Exception] = repo.save_assessments(
-                engine, [r for _, r in records]
+            saved: list[AssessmentSummary | Exception] = store.save_assessments(
+                [r for _, r in records]
             )
         except Exception as exc:  # nothing was written: each stored job answers the error
             saved = [exc] * len(records)
         took = time.perf_counter() - clock
         for (i, _), result in zip(records, saved, strict=True):
             jobs[i].timings["store"] = took
-            if isinstance(result, repo.IdempotencyConflict):
-                outcomes[i] = _lost_race(engine, jobs[i])
+            if isinstance(result, StoreConflict):
+                outcomes[i] = _lost_race(store, jobs[i])
             elif isinstance(result, Exception):
                 outcomes[i] = result
     if len(jobs) > 1:
@@ -216,11 +222,13 @@ def run_many(engine: Engine, jobs: list[Job]) -> list[Outcome | BaseException]:
     return outcomes  # type: ignore[return-value]
 
 
-def _lost_race(engine: Engine, job: Job) -> Outcome | ApiError:
+def _lost_race(store: Store, job: Job) -> Outcome | ApiError:
     """Another request with the same key was stored first: answer as its repeat would."""
     try:
-        again = replay(engine, job.idempotency_key, job.digest)  # type: ignore[arg-type]
+        again = replay(store, job.idempotency_key, job.digest)  # type: ignore[arg-type]
     except ApiError as exc:  # the other request had another body: 409
+        return exc
+    except StoreError as exc:  # the store failed on the look-up: this job's answer alone
         return exc
     if again is not None:
         return again
@@ -232,12 +240,12 @@ def _lost_race(engine: Engine, job: Job) -> Outcome | ApiError:
     )
 
 
-def _answer(job: Job, result: dict[str, Any]) -> tuple[Outcome, repo.NewAssessment | None]:
+def _answer(job: Job, result: dict[str, Any]) -> tuple[Outcome, NewAssessment | None]:
     """The response body of one job and, when it is stored, the record to write."""
     req, store, policy = job.req, job.store, job.policy
     series = result.pop("series")
-    created = repo.utcnow()
-    assessment_id = repo.new_id() if store else None
+    created = utcnow()
+    assessment_id = new_id() if store else None
     head: dict[str, Any] = {
         "id": assessment_id,
         "created_at": created.isoformat(),
@@ -266,7 +274,7 @@ def _answer(job: Job, result: dict[str, Any]) -> tuple[Outcome, repo.NewAssessme
     fleet = result.get("fleet") or {}
     verdicts = [s.get("verdict") for s in series]
     pol = result.get("policy") or {}
-    record = repo.NewAssessment(
+    record = NewAssessment(
         assessment_id=assessment_id,  # type: ignore[arg-type]
         created_at=created,
         model=req.model,
@@ -279,9 +287,7 @@ def _answer(job: Job, result: dict[str, Any]) -> tuple[Outcome, repo.NewAssessme
         policy_document=job.document,  # type: ignore[arg-type]
         head=head_json,
         series=[
-            repo.SeriesResult(
-                series_id=s["id"], verdict=s["verdict"], n_obs=int(s["n_obs"]), json=e
-            )
+            SeriesResult(series_id=s["id"], verdict=s["verdict"], n_obs=int(s["n_obs"]), json=e)
             for s, e in zip(series, encoded, strict=True)
         ],
         inputs=_inputs(req),

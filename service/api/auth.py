@@ -18,15 +18,18 @@ import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Annotated
 
-from fastapi import Request
+from fastapi import Depends, Request
 from starlette.concurrency import run_in_threadpool
 
-from service.store import repository as repo
+from service.settings import Settings
+from service.store.port import Store
+from service.store.records import SCOPES, hash_token
 
+from .deps import Services, get_services, get_settings, get_store
 from .errors import ApiError
 
-SCOPES = repo.SCOPES
 _CHALLENGE = {"WWW-Authenticate": 'Bearer realm="plumbline"'}
 
 
@@ -61,7 +64,7 @@ class TokenCache:
     def get(self, token: str) -> Principal | None:
         if self.seconds <= 0:
             return None
-        key = repo.hash_token(token)
+        key = hash_token(token)
         found = self._entries.get(key)
         if found is None:
             return None
@@ -74,7 +77,7 @@ class TokenCache:
     def put(self, token: str, principal: Principal) -> None:
         if self.seconds <= 0:
             return
-        key = repo.hash_token(token)
+        key = hash_token(token)
         now = self._clock()
         with self._lock:
             if self._revoked.get(principal.token_id, now) > now:
@@ -108,8 +111,7 @@ def _bearer(request: Request) -> str:
     return token
 
 
-def _env_admin(request: Request, token: str) -> Principal | None:
-    settings = request.app.state.settings
+def _env_admin(settings: Settings, token: str) -> Principal | None:
     if settings.admin_token is not None:
         expected = settings.admin_token.get_secret_value().encode("utf-8")
         if hmac.compare_digest(token.encode("utf-8"), expected):
@@ -117,22 +119,23 @@ def _env_admin(request: Request, token: str) -> Principal | None:
     return None
 
 
-def _stored(request: Request, token: str) -> Principal:
-    found = repo.find_token(request.app.state.engine, secret=token)
+def _stored(store: Store, token: str) -> Principal:
+    found = store.find_token(secret=token)
     if found is None:
         raise ApiError(401, "unknown or revoked token", headers=_CHALLENGE)
     return Principal(token_id=found.id, scopes=frozenset(found.scopes))
 
 
-async def authorize(request: Request, scope: str) -> Principal:
+async def authorize(
+    request: Request, scope: str, *, settings: Settings, store: Store, cache: TokenCache
+) -> Principal:
     """The request's principal if its token holds ``scope`` (401/403 otherwise)."""
     token = _bearer(request)
-    principal = _env_admin(request, token)
+    principal = _env_admin(settings, token)
     if principal is None:
-        cache: TokenCache = request.app.state.token_cache
         principal = cache.get(token)
         if principal is None:
-            principal = await run_in_threadpool(_stored, request, token)
+            principal = await run_in_threadpool(_stored, store, token)
             cache.put(token, principal)
     if not principal.allows(scope):
         raise ApiError(
@@ -144,24 +147,31 @@ async def authorize(request: Request, scope: str) -> Principal:
     return principal
 
 
-def require(scope: str) -> Callable[[Request], object]:
+def require(scope: str) -> Callable[..., object]:
     """A dependency that admits a request whose token holds ``scope`` (or ``admin``)."""
     if scope not in SCOPES:
         raise ValueError(f"unknown scope {scope!r}")
 
-    async def dependency(request: Request) -> Principal:
-        return await authorize(request, scope)
+    async def dependency(
+        request: Request,
+        settings: Annotated[Settings, Depends(get_settings)],
+        store: Annotated[Store, Depends(get_store)],
+        services: Annotated[Services, Depends(get_services)],
+    ) -> Principal:
+        return await authorize(
+            request, scope, settings=settings, store=store, cache=services.token_cache
+        )
 
     dependency.__name__ = f"require_{scope}"
     return dependency
 
 
-def ensure_first_token(engine, settings) -> str | None:
+def ensure_first_token(store: Store, settings: Settings) -> str | None:
     """On a first start with no token anywhere (none stored, no ``PLUMBLINE_ADMIN_TOKEN``),
     create an admin token and return its secret, to be printed once; else ``None``."""
-    if settings.admin_token is not None or repo.count_tokens(engine) > 0:
+    if settings.admin_token is not None or store.count_tokens() > 0:
         return None
-    _record, secret = repo.create_token(engine, scopes=["admin"], label="first start")
+    _record, secret = store.create_token(scopes=["admin"], label="first start")
     return secret
 
 

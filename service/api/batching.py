@@ -15,29 +15,38 @@ requests that arrived while the previous pass ran make up the next one.
 from __future__ import annotations
 
 import asyncio
+from typing import Any
 
-from sqlalchemy import Engine
+from service.store.port import Store
 
 from . import assessing
 from .metrics import Metrics
 
+_Waiting = tuple[Any, assessing.Job, "asyncio.Future[assessing.Outcome]"]
+
 
 class SubmissionBatcher:
-    """Collects :class:`~service.api.assessing.Job` s on the event loop and runs them together."""
+    """Collects :class:`~service.api.assessing.Job` s on the event loop and runs them together.
 
-    def __init__(self, engine: Engine, metrics: Metrics | None = None, max_jobs: int = 256) -> None:
-        self._engine = engine
+    Each job is stored in the store it was submitted with (``store``, else the batcher's own);
+    a pass runs the jobs of one store.
+    """
+
+    def __init__(
+        self, store: Store | None = None, metrics: Metrics | None = None, max_jobs: int = 256
+    ) -> None:
+        self._store = store
         self._metrics = metrics
         self._max_jobs = max_jobs
-        self._waiting: list[tuple[assessing.Job, asyncio.Future[assessing.Outcome]]] = []
+        self._waiting: list[_Waiting] = []
         self._scheduled = False
         self._seen = 0  # submissions waiting when the pass last looked
 
-    async def submit(self, job: assessing.Job) -> assessing.Outcome:
+    async def submit(self, job: assessing.Job, store: Store | None = None) -> assessing.Outcome:
         """Assess (and store) ``job`` in the next pass; its outcome, or its error raised."""
         loop = asyncio.get_running_loop()
         future: asyncio.Future[assessing.Outcome] = loop.create_future()
-        self._waiting.append((job, future))
+        self._waiting.append((self._store if store is None else store, job, future))
         if not self._scheduled:
             self._scheduled = True
             # After the callbacks already due: the requests ready now submit first.
@@ -60,14 +69,21 @@ class SubmissionBatcher:
             loop.call_soon(self._run)
         # A request whose client went away before its pass is dropped: it was never answered
         # (nor stored), so a retry starts afresh.
-        live = [(job, future) for job, future in waiting if not future.done()]
-        if not live:
-            return
+        live = [entry for entry in waiting if not entry[2].done()]
+        while live:
+            store = live[0][0]  # one store in practice; more only when one was swapped in
+            same = [(job, future) for s, job, future in live if s is store]
+            live = [entry for entry in live if entry[0] is not store]
+            self._pass(store, same)
+
+    def _pass(
+        self, store: Any, live: list[tuple[assessing.Job, asyncio.Future[assessing.Outcome]]]
+    ) -> None:
         if self._metrics is not None:
             self._metrics.batch_size.observe(len(live))
         try:
-            outcomes = assessing.run_many(self._engine, [job for job, _ in live])
-        except Exception as exc:  # the batch as a whole failed (the database): every job
+            outcomes = assessing.run_many(store, [job for job, _ in live])
+        except Exception as exc:  # the pass as a whole failed (the database): every job
             for _, future in live:
                 future.set_exception(exc)
             return

@@ -3,6 +3,11 @@
 Members: ``type``, ``title``, ``status``, ``detail``; validation problems add
 ``errors: [{"loc": "series[3].fitted", "message": "..."}]``. Anything unexpected becomes a 500
 whose body names no internals (and is logged): a 5xx on any input is a bug to fix.
+
+The store's exceptions (:mod:`service.store.port`) are mapped here too: an unavailable database
+is ``503`` with ``Retry-After`` (nothing was stored: the client may retry, with the same
+``Idempotency-Key``), a conflict with what is stored ``409``, any other failure of the database
+a logged ``500``.
 """
 
 from __future__ import annotations
@@ -20,9 +25,13 @@ from starlette.responses import Response
 
 from service.core import InputError
 from service.ingest import RequestInvalid, RequestUnparseable
+from service.store.port import StoreConflict, StoreError, StoreUnavailable
 
 PROBLEM_JSON = "application/problem+json"
 TYPE_PREFIX = "urn:plumbline:problem:"
+RETRY_AFTER_SECONDS = 5
+"""What ``Retry-After`` says while the database is unavailable."""
+INTERNAL_ERROR = "internal error: the service failed on this request; it has been logged"
 
 log = logging.getLogger("plumbline.api")
 
@@ -165,6 +174,26 @@ def install_error_handlers(app: FastAPI) -> None:
         errors = validation_errors(raw)
         return problem(422, f"{errors[0]['loc']}: {errors[0]['message']}", errors=errors)
 
+    @app.exception_handler(StoreUnavailable)
+    async def _store_unavailable(request: Request, exc: StoreUnavailable) -> Response:
+        log.warning("database unavailable on %s %s: %s", request.method, request.url.path, exc)
+        return problem(
+            503,
+            "The database is unavailable; nothing was stored. Retry after the number of "
+            "seconds in the Retry-After header (with the same Idempotency-Key).",
+            slug="database-unavailable",
+            headers={"Retry-After": str(RETRY_AFTER_SECONDS)},
+        )
+
+    @app.exception_handler(StoreConflict)
+    async def _store_conflict(_request: Request, exc: StoreConflict) -> Response:
+        return problem(409, f"the request conflicts with what is stored: {exc}")
+
+    @app.exception_handler(StoreError)
+    async def _store_error(request: Request, exc: StoreError) -> Response:
+        log.error("database error on %s %s", request.method, request.url.path, exc_info=exc)
+        return problem(500, INTERNAL_ERROR)
+
     @app.exception_handler(StarletteHTTPException)
     async def _http(_request: Request, exc: StarletteHTTPException) -> Response:
         detail = exc.detail if isinstance(exc.detail, str) else HTTPStatus(exc.status_code).phrase
@@ -175,6 +204,4 @@ def install_error_handlers(app: FastAPI) -> None:
     @app.exception_handler(Exception)
     async def _unexpected(request: Request, exc: Exception) -> Response:
         log.exception("unhandled error on %s %s", request.method, request.url.path)
-        return problem(
-            500, "internal error: the service failed on this request; it has been logged"
-        )
+        return problem(500, INTERNAL_ERROR)

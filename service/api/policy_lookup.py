@@ -6,10 +6,8 @@ from __future__ import annotations
 import re
 from typing import Any
 
-from sqlalchemy import Engine
-
 from service.core.policy import Policy, PolicyError, default_policy
-from service.store import repository as repo
+from service.store.port import Store
 
 from .errors import ApiError, policy_errors
 from .httputil import MAX_INT
@@ -67,18 +65,18 @@ def policy_from_document(document: dict[str, Any], *, loc: str = "policy") -> Po
 
 
 def stored_or_builtin(
-    engine: Engine, name: str, version: int | None = None
+    store: Store, name: str, version: int | None = None
 ) -> tuple[Policy, dict[str, Any]] | None:
     """The policy called ``name`` (newest, or ``version``) with its document, or ``None``.
 
     The built-in default is version 1 of ``default``; stored versions of ``default`` follow it.
     """
     if version is None:
-        latest = repo.latest_policy_document(engine, name=name)
+        latest = store.latest_policy_document(name=name)
         if latest is not None:
             return _parsed(name, latest[0], latest[1]), latest[1]
     else:
-        stored = repo.get_policy(engine, name=name, version=version)
+        stored = store.get_policy(name=name, version=version)
         if stored is not None:
             return _parsed(name, stored.version, stored.document), stored.document
     if name == BUILTIN_DEFAULT and version in (None, 1):
@@ -86,7 +84,7 @@ def stored_or_builtin(
     return None
 
 
-def resolve(engine: Engine, spec: str | dict[str, Any]) -> tuple[Policy, dict[str, Any]]:
+def resolve(store: Store, spec: str | dict[str, Any]) -> tuple[Policy, dict[str, Any]]:
     """The policy an assessment request names (``"name"``, ``"name@version"`` or a document)."""
     if isinstance(spec, dict):
         policy = policy_from_document(spec)
@@ -107,7 +105,7 @@ def resolve(engine: Engine, spec: str | dict[str, Any]) -> tuple[Policy, dict[st
                 errors=[{"loc": "policy", "message": f"bad version in {spec!r}"}],
             )
         version = int(pinned)
-    found = stored_or_builtin(engine, name, version) if valid_name(name) else None
+    found = stored_or_builtin(store, name, version) if valid_name(name) else None
     if found is None:
         what = f"policy {name!r}" + (f" version {version}" if version else "")
         raise ApiError(

@@ -7,8 +7,8 @@ origins: CORS is off by default, so a page on another origin cannot read any res
 1. :class:`~service.api.limits.LimitsMiddleware` (rate limits, body size, body read time),
 2. :class:`SecurityHeadersMiddleware` around it, so even a ``429`` or ``413`` answered by the
    limits carries the headers,
-3. the database outage mapping of :mod:`service.api.availability` (``503`` with ``Retry-After``),
-4. those answers (``408``, ``413``, ``429``, ``503``) in the OpenAPI document.
+3. those answers (``408``, ``413``, ``429``, and the ``503`` with ``Retry-After`` of an
+   unavailable database, mapped in :mod:`service.api.errors`) in the OpenAPI document.
 
 The headers follow the OWASP Secure Headers Project's recommendations for an API: no MIME
 sniffing, no framing, no referrer, a Content-Security-Policy that loads nothing, responses kept
@@ -165,9 +165,7 @@ def document_limits(doc: dict[str, Any]) -> dict[str, Any]:
 
 
 def install_hardening(app: Any, settings: Any) -> None:
-    """Add the limits, the security headers, the outage mapping and their documentation."""
-    from .availability import install_availability
-
+    """Add the limits, the security headers and their documentation."""
     app.add_middleware(
         LimitsMiddleware,
         rate_limit_per_second=settings.rate_limit_per_second,
@@ -181,7 +179,6 @@ def install_hardening(app: Any, settings: Any) -> None:
         getattr(app, "swagger_ui_oauth2_redirect_url", None),
     ]
     app.add_middleware(SecurityHeadersMiddleware, docs_paths=[p for p in docs_paths if p])
-    install_availability(app)
 
     build = app.openapi
 

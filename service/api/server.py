@@ -16,15 +16,14 @@ def prepare(settings: Settings) -> str | None:
     ``PLUMBLINE_ADMIN_TOKEN`` is set).
     """
     from service.api.auth import ensure_first_token
-    from service.store import make_engine
-    from service.store.migrate import upgrade_engine
+    from service.store import make_store
 
-    engine = make_engine(settings.database_url)
+    store = make_store(settings.database_url)
     try:
-        upgrade_engine(engine)
-        return ensure_first_token(engine, settings)
+        store.migrate()
+        return ensure_first_token(store, settings)
     finally:
-        engine.dispose()
+        store.close()
 
 
 def run(host: str, port: int, workers: int) -> None:

@@ -1,4 +1,5 @@
-"""Repository functions: every read and write the service makes, keyword arguments only.
+"""Repository functions over an engine: every read and write of the SQL store, keyword arguments
+only (:class:`service.store.sql.SqlStore` calls them and translates their errors).
 
 An assessment, all its per-series result rows, its per-series inputs and its idempotency key are
 written by :func:`save_assessments` in one transaction: after a crash either all of it is there or
@@ -7,12 +8,9 @@ none of it.
 
 from __future__ import annotations
 
-import hashlib
 import hmac
 import secrets
-import uuid
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
 from datetime import UTC, datetime
 from typing import Any
 
@@ -31,7 +29,61 @@ from .models import (
     ServerSecretRow,
     TokenRow,
 )
+from .port import IdempotencyConflict
+from .records import (
+    SCOPES,
+    TOKEN_PREFIX,
+    AssessmentSummary,
+    IdempotencyRecord,
+    NewAssessment,
+    SeriesInput,
+    SeriesResult,
+    StoredAssessment,
+    StoredPolicy,
+    StoredToken,
+    hash_token,
+    new_id,
+    utcnow,
+)
 from .writelock import write_lock
+
+# The records and small functions are defined in records.py (and the conflict in port.py); they are
+# named here too, for callers that reach the store through these functions.
+__all__ = [
+    "SCOPES",
+    "TOKEN_PREFIX",
+    "AssessmentSummary",
+    "IdempotencyConflict",
+    "IdempotencyRecord",
+    "NewAssessment",
+    "SeriesInput",
+    "SeriesResult",
+    "StoredAssessment",
+    "StoredPolicy",
+    "StoredToken",
+    "count_tokens",
+    "create_token",
+    "find_idempotency_key",
+    "find_token",
+    "get_assessment",
+    "get_assessment_by_seq",
+    "get_or_create_secret",
+    "get_policy",
+    "hash_token",
+    "latest_assessment",
+    "latest_policy_document",
+    "list_assessments",
+    "list_policies",
+    "list_tokens",
+    "new_id",
+    "pack",
+    "revoke_token",
+    "save_assessments",
+    "save_policy",
+    "series_inputs",
+    "unpack",
+    "utcnow",
+]
 
 A = AssessmentRow.__table__
 SR = SeriesResultRow.__table__
@@ -41,21 +93,10 @@ T = TokenRow.__table__
 K = IdempotencyKeyRow.__table__
 S = ServerSecretRow.__table__
 
-TOKEN_PREFIX = "plb_"
-SCOPES = ("submit", "read", "admin")
-
-
-def utcnow() -> datetime:
-    return datetime.now(UTC)
-
 
 def _aware(value: datetime) -> datetime:
     """SQLite hands datetimes back without their zone; they were written in UTC."""
     return value if value.tzinfo is not None else value.replace(tzinfo=UTC)
-
-
-def new_id() -> str:
-    return uuid.uuid4().hex
 
 
 def pack(values: np.ndarray | None) -> bytes | None:
@@ -69,70 +110,6 @@ def unpack(blob: bytes | None) -> np.ndarray | None:
 
 # ---------------------------------------------------------------------------------------------
 # Assessments
-
-
-@dataclass(frozen=True)
-class SeriesInput:
-    """The numbers one series was assessed on (training arrays as sent, holdout if any)."""
-
-    series_id: str
-    weight: float | None
-    actuals: np.ndarray
-    fitted: np.ndarray
-    timestamps: list[str] | None = None
-    holdout_actuals: np.ndarray | None = None
-    holdout_forecasts: np.ndarray | None = None
-    holdout_lower: np.ndarray | None = None
-    holdout_upper: np.ndarray | None = None
-    holdout_level: float | None = None
-    holdout_timestamps: list[str] | None = None
-
-
-@dataclass(frozen=True)
-class AssessmentSummary:
-    """A row of the assessments list."""
-
-    seq: int
-    id: str
-    created_at: datetime
-    model: str
-    version: str
-    verdict: str
-    n_series: int
-    n_failed: int
-    n_warned: int
-    policy_name: str
-    policy_version: int
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "id": self.id,
-            "created_at": self.created_at.isoformat(),
-            "model": self.model,
-            "version": self.version,
-            "verdict": self.verdict,
-            "n_series": self.n_series,
-            "n_failed": self.n_failed,
-            "n_warned": self.n_warned,
-            "policy": {"name": self.policy_name, "version": self.policy_version},
-        }
-
-
-@dataclass(frozen=True)
-class StoredAssessment:
-    """A stored assessment: ``head`` is the result without its series (JSON bytes), ``series``
-    the JSON bytes of each series' result in input order."""
-
-    summary: AssessmentSummary
-    head: bytes
-    series: list[bytes]
-
-    def to_json(self) -> bytes:
-        """The full result as the POST returned it, without re-encoding the stored JSON."""
-        head = self.head
-        assert head.endswith(b"}")
-        glue = b"," if len(head) > 2 else b""
-        return head[:-1] + glue + b'"series":[' + b",".join(self.series) + b"]}"
 
 
 _SUMMARY_COLUMNS = (
@@ -164,60 +141,6 @@ def _summary(row: Any) -> AssessmentSummary:
         policy_name=row.policy_name,
         policy_version=row.policy_version,
     )
-
-
-class IdempotencyConflict(Exception):
-    """The idempotency key was already used with another body."""
-
-
-@dataclass(frozen=True)
-class SeriesResult:
-    """One series' result, already encoded as the JSON the API returns."""
-
-    series_id: str
-    verdict: str
-    n_obs: int
-    json: bytes
-
-
-@dataclass(frozen=True)
-class NewAssessment:
-    """Everything :func:`save_assessments` writes for one assessment.
-
-    ``head`` is the JSON of the result without ``series``; ``series`` the per-series results in
-    input order, ``inputs`` the numbers they were computed from.
-    """
-
-    assessment_id: str
-    created_at: datetime
-    model: str
-    version: str
-    verdict: str
-    n_failed: int
-    n_warned: int
-    policy_name: str
-    policy_version: int
-    policy_document: dict[str, Any]
-    head: bytes
-    series: Sequence[SeriesResult]
-    inputs: Sequence[SeriesInput]
-    idempotency_key: str | None = None
-    body_hash: str | None = None
-
-    def summary(self, seq: int) -> AssessmentSummary:
-        return AssessmentSummary(
-            seq=seq,
-            id=self.assessment_id,
-            created_at=self.created_at,
-            model=self.model,
-            version=self.version,
-            verdict=self.verdict,
-            n_series=len(self.series),
-            n_failed=self.n_failed,
-            n_warned=self.n_warned,
-            policy_name=self.policy_name,
-            policy_version=self.policy_version,
-        )
 
 
 def _input_row(i: int, s: SeriesInput) -> dict[str, Any]:
@@ -404,14 +327,6 @@ def latest_assessment(
     return found[0] if found else None
 
 
-def series_results(engine: Engine, *, assessment_id: str) -> list[dict[str, Any]] | None:
-    """The per-series result dicts of an assessment (``None`` when it does not exist)."""
-    stored = get_assessment(engine, assessment_id=assessment_id)
-    if stored is None:
-        return None
-    return [orjson.loads(s) for s in stored.series]
-
-
 def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | None:
     """The stored input arrays of every series, in input order (``None``: no such id)."""
     with engine.connect() as conn:
@@ -441,22 +356,8 @@ def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | 
     ]
 
 
-def change_marker(engine: Engine) -> tuple[int, int]:
-    """``(newest seq, count)`` of assessments: changes whenever one is added or removed."""
-    with engine.connect() as conn:
-        row = conn.execute(select(func.coalesce(func.max(A.c.seq), 0), func.count())).one()
-    return int(row[0]), int(row[1])
-
-
 # ---------------------------------------------------------------------------------------------
 # Idempotency keys
-
-
-@dataclass(frozen=True)
-class IdempotencyRecord:
-    key: str
-    body_hash: str
-    assessment_seq: int
 
 
 def find_idempotency_key(engine: Engine, *, key: str) -> IdempotencyRecord | None:
@@ -471,22 +372,6 @@ def find_idempotency_key(engine: Engine, *, key: str) -> IdempotencyRecord | Non
 
 # ---------------------------------------------------------------------------------------------
 # Policies
-
-
-@dataclass(frozen=True)
-class StoredPolicy:
-    name: str
-    version: int
-    document: dict[str, Any]
-    created_at: datetime
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "name": self.name,
-            "version": self.version,
-            "created_at": self.created_at.isoformat(),
-            "document": self.document,
-        }
 
 
 def save_policy(
@@ -579,28 +464,6 @@ def list_policies(engine: Engine) -> list[StoredPolicy]:
 
 # ---------------------------------------------------------------------------------------------
 # Tokens
-
-
-def hash_token(token: str) -> str:
-    return hashlib.sha256(token.encode("utf-8")).hexdigest()
-
-
-@dataclass(frozen=True)
-class StoredToken:
-    id: str
-    scopes: tuple[str, ...]
-    label: str
-    created_at: datetime
-    revoked_at: datetime | None
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "id": self.id,
-            "scopes": list(self.scopes),
-            "label": self.label,
-            "created_at": self.created_at.isoformat(),
-            "revoked_at": None if self.revoked_at is None else self.revoked_at.isoformat(),
-        }
 
 
 def _token(row: Any) -> StoredToken:

@@ -6,7 +6,7 @@ import hashlib
 
 from sqlalchemy import select
 
-from service.store import make_engine
+from service.store import make_engine, make_store
 from service.store.models import TokenRow
 
 from .helpers import ADMIN
@@ -112,36 +112,36 @@ def test_first_start_mints_one_admin_token_once(migrated_url):
     from service.settings import Settings
 
     settings = Settings(database_url=migrated_url, admin_token=None)
-    engine = make_engine(migrated_url)
+    store = make_store(migrated_url)
     try:
-        secret = ensure_first_token(engine, settings)
+        secret = ensure_first_token(store, settings)
         assert secret is not None and secret.startswith("plb_")
-        assert ensure_first_token(engine, settings) is None
+        assert ensure_first_token(store, settings) is None
         with_env = Settings(database_url=migrated_url, admin_token="set")
-        assert ensure_first_token(engine, with_env) is None
+        assert ensure_first_token(store, with_env) is None
     finally:
-        engine.dispose()
+        store.close()
 
 
 def test_env_admin_token_suppresses_first_token(migrated_url):
     from service.api.auth import ensure_first_token
     from service.settings import Settings
 
-    engine = make_engine(migrated_url)
+    store = make_store(migrated_url)
     try:
         assert (
-            ensure_first_token(engine, Settings(database_url=migrated_url, admin_token="t")) is None
+            ensure_first_token(store, Settings(database_url=migrated_url, admin_token="t")) is None
         )
     finally:
-        engine.dispose()
+        store.close()
 
 
 def test_an_app_on_a_fresh_database_without_tokens_prints_one(database_url, capsys):
     from service.api.app import create_app
     from service.settings import Settings
 
-    create_app(Settings(database_url=database_url, admin_token=None)).state.engine.dispose()
+    create_app(Settings(database_url=database_url, admin_token=None)).state.store.close()
     printed = capsys.readouterr().out
     assert "plb_" in printed
-    create_app(Settings(database_url=database_url, admin_token=None)).state.engine.dispose()
+    create_app(Settings(database_url=database_url, admin_token=None)).state.store.close()
     assert "plb_" not in capsys.readouterr().out

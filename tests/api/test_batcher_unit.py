@@ -41,7 +41,7 @@ async def submit_after(batcher: SubmissionBatcher, job: str, turns: int) -> Any:
 
 def test_submissions_ready_together_share_one_pass(recorder: Recorder):
     async def scenario() -> list[Any]:
-        batcher = SubmissionBatcher(engine=None, metrics=Metrics())  # type: ignore[arg-type]
+        batcher = SubmissionBatcher(store=None, metrics=Metrics())  # type: ignore[arg-type]
         # Arriving over a few turns of the loop, as requests that pass a few awaits do.
         return await asyncio.gather(*(submit_after(batcher, f"j{i}", i % 3) for i in range(6)))
 
@@ -52,7 +52,7 @@ def test_submissions_ready_together_share_one_pass(recorder: Recorder):
 
 def test_a_lone_submission_is_not_held_back(recorder: Recorder):
     async def scenario() -> Any:
-        batcher = SubmissionBatcher(engine=None)  # type: ignore[arg-type]
+        batcher = SubmissionBatcher(store=None)  # type: ignore[arg-type]
         return await asyncio.wait_for(batcher.submit("alone"), 5)  # type: ignore[arg-type]
 
     assert asyncio.run(scenario()) == "answer:alone"
@@ -61,7 +61,7 @@ def test_a_lone_submission_is_not_held_back(recorder: Recorder):
 
 def test_passes_are_capped(recorder: Recorder):
     async def scenario() -> list[Any]:
-        batcher = SubmissionBatcher(engine=None, max_jobs=3)  # type: ignore[arg-type]
+        batcher = SubmissionBatcher(store=None, max_jobs=3)  # type: ignore[arg-type]
         return await asyncio.gather(*(batcher.submit(f"j{i}") for i in range(7)))  # type: ignore[arg-type]
 
     answers = asyncio.run(scenario())
@@ -72,7 +72,7 @@ def test_passes_are_capped(recorder: Recorder):
 
 def test_a_submission_whose_client_went_away_is_dropped(recorder: Recorder):
     async def scenario() -> list[Any]:
-        batcher = SubmissionBatcher(engine=None, metrics=Metrics())  # type: ignore[arg-type]
+        batcher = SubmissionBatcher(store=None, metrics=Metrics())  # type: ignore[arg-type]
         gone = asyncio.ensure_future(batcher.submit("gone"))  # type: ignore[arg-type]
         kept = asyncio.ensure_future(batcher.submit("kept"))  # type: ignore[arg-type]
         await asyncio.sleep(0)  # both are waiting now
@@ -90,7 +90,7 @@ def test_a_failing_pass_fails_each_of_its_submissions(monkeypatch: pytest.Monkey
     monkeypatch.setattr(assessing, "run_many", broken)
 
     async def scenario() -> list[Any]:
-        batcher = SubmissionBatcher(engine=None)  # type: ignore[arg-type]
+        batcher = SubmissionBatcher(store=None)  # type: ignore[arg-type]
         return await asyncio.gather(
             *(batcher.submit(f"j{i}") for i in range(3)),  # type: ignore[arg-type]
             return_exceptions=True,

@@ -189,7 +189,7 @@ def passes(monkeypatch: pytest.MonkeyPatch) -> list[tuple[Any, list[tuple[str, .
 def passes_of(
     seen: list[tuple[Any, list[tuple[str, ...]]]], app: Any
 ) -> list[list[tuple[str, ...]]]:
-    return [jobs for engine, jobs in seen if engine is app.state.engine]
+    return [jobs for engine, jobs in seen if engine is app.state.store]
 
 
 def pass_holding(

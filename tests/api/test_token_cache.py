@@ -36,7 +36,7 @@ def counting_lookups(monkeypatch) -> list[str]:
 def test_a_verified_token_is_looked_up_once_within_the_time(make_client, monkeypatch):
     client = make_client()
     clock = Clock()
-    client.app.state.token_cache = TokenCache(2.0, clock=clock)
+    client.app.state.services.token_cache = TokenCache(2.0, clock=clock)
     _, reader = mint(client, "read")
     calls = counting_lookups(monkeypatch)
     for _ in range(5):
@@ -62,10 +62,10 @@ def test_a_revocation_elsewhere_takes_effect_within_the_time(make_client):
     # its remembered verification runs out.
     client = make_client()
     clock = Clock()
-    client.app.state.token_cache = TokenCache(2.0, clock=clock)
+    client.app.state.services.token_cache = TokenCache(2.0, clock=clock)
     token_id, reader = mint(client, "read")
     assert client.get("/v1/assessments", headers=reader).status_code == 200
-    assert repo.revoke_token(client.app.state.engine, token_id=token_id)
+    assert repo.revoke_token(client.app.state.store.engine, token_id=token_id)
     clock.now += 1.9
     assert client.get("/v1/assessments", headers=reader).status_code == 200
     clock.now += 0.1
@@ -79,7 +79,7 @@ def test_zero_looks_up_every_request(make_client, monkeypatch):
     for _ in range(3):
         assert client.get("/v1/assessments", headers=reader).status_code == 200
     assert len(calls) == 3
-    assert repo.revoke_token(client.app.state.engine, token_id=token_id)
+    assert repo.revoke_token(client.app.state.store.engine, token_id=token_id)
     assert client.get("/v1/assessments", headers=reader).status_code == 401
 
 

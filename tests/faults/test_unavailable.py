@@ -94,7 +94,7 @@ def test_sqlite_file_read_only(tmp_path):
             chattr("+i", *files)
             # Connections opened from now on (a new worker, a recycled pool) open read-only,
             # and SQLite keeps them so: the service must drop them once it meets the outage.
-            app.state.engine.dispose()
+            app.state.store.engine.dispose()
 
         def mend_it() -> None:
             chattr("-i", *files)

@@ -103,7 +103,7 @@ def test_series_page_draws_every_chart_and_caches_them(client, stored) -> None:
         assert f'data-chart="{name}"' in r.text
     assert f"<h1>Series {sid}</h1>" in r.text
     assert f'href="/v1/assessments/{stored["id"]}/report"' in r.text
-    cache = client.app.state.report_chart_cache
+    cache = client.app.state.services.chart_cache
     assert (cache.hits, cache.misses) == (0, 1)
     again = client.get(path, headers=AUTH)
     assert again.text == r.text and (cache.hits, cache.misses) == (1, 1)

@@ -13,12 +13,15 @@ from pydantic import BeforeValidator
 from starlette.concurrency import run_in_threadpool
 from starlette.responses import Response
 
-from service.store import repository as repo
+from service.settings import Settings
+from service.store.port import Store
+from service.store.records import StoredAssessment
 
 from .. import assessing
 from ..auth import authorize, require
 from ..body import is_csv, is_json, media_type, read_body
 from ..csvout import to_csv, wants_csv
+from ..deps import Services, get_services, get_settings, get_store
 from ..errors import ApiError
 from ..gcpause import paused_gc
 from ..httputil import (
@@ -177,12 +180,18 @@ def _idempotency_key(value: str | None) -> str | None:
     },
     openapi_extra={**json_body_doc("AssessmentBody", csv=True), "parameters": POST_PARAMETERS},
 )
-async def post_assessment(request: Request) -> Response:
+async def post_assessment(
+    request: Request,
+    store: Annotated[Store, Depends(get_store)],
+    settings: Annotated[Settings, Depends(get_settings)],
+    services: Annotated[Services, Depends(get_services)],
+) -> Response:
     """Body: JSON (the shape in the contract) or ``text/csv`` long format with the model,
     version, policy, season_length, model_params and level as query parameters."""
-    # The hottest endpoint checks its token directly: the framework's dependency solving cost
-    # more than the check itself (the other endpoints use the same check as a dependency).
-    await authorize(request, "submit")
+    # The hottest endpoint checks its token directly, with the store, settings and services it
+    # is given: a dependency of its own costs more than the check itself (the other endpoints
+    # use the same check as the ``require`` dependency).
+    await authorize(request, "submit", settings=settings, store=store, cache=services.token_cache)
     kind_raw = media_type(request)
     if is_json(kind_raw):
         kind = "json"
@@ -192,30 +201,29 @@ async def post_assessment(request: Request) -> Response:
         raise ApiError(
             415, f"Content-Type must be application/json or text/csv, got {kind_raw or 'none'}"
         )
-    store = _store_flag(request.query_params.get("store"))
+    keep = _store_flag(request.query_params.get("store"))
     key = _idempotency_key(request.headers.get("idempotency-key"))
-    state = request.app.state
-    body = await read_body(request, state.settings.max_body_bytes)
+    body = await read_body(request, settings.max_body_bytes)
     params = {k: v for k, v in request.query_params.items() if k != "store"}
     # The fingerprint matters only to an Idempotency-Key (its replay and its stored row).
     digest = (
         assessing.body_hash(kind, params if kind == "csv" else {}, body)
-        if key is not None and store
+        if key is not None and keep
         else None
     )
 
     def replayed() -> assessing.Outcome | None:
         if digest is not None:
-            return assessing.replay(state.engine, key, digest)  # type: ignore[arg-type]
+            return assessing.replay(store, key, digest)  # type: ignore[arg-type]
         return None
 
     def job() -> assessing.Job:
         clock = time.perf_counter()
-        req = assessing.parse(kind, body, params, state.settings)
+        req = assessing.parse(kind, body, params, settings)
         return assessing.Job(
             req=req,
-            store=store,
-            idempotency_key=key if store else None,
+            store=keep,
+            idempotency_key=key if keep else None,
             digest=digest,
             timings={"parse": time.perf_counter() - clock},
         )
@@ -227,7 +235,7 @@ async def post_assessment(request: Request) -> Response:
     if len(body) <= INLINE_BODY_BYTES:
         outcome = replayed()
         if outcome is None:
-            outcome = await state.batcher.submit(job())
+            outcome = await services.batcher.submit(job(), store)
     else:
 
         def large() -> assessing.Outcome:
@@ -235,7 +243,7 @@ async def post_assessment(request: Request) -> Response:
                 again = replayed()
                 if again is not None:
                     return again
-                (done,) = assessing.run_many(state.engine, [job()])
+                (done,) = assessing.run_many(store, [job()])
                 if isinstance(done, BaseException):
                     raise done
                 return done
@@ -247,10 +255,10 @@ async def post_assessment(request: Request) -> Response:
     if outcome.replayed:
         headers["Idempotent-Replayed"] = "true"
         return Response(outcome.body, status_code=200, media_type=JSON, headers=headers)
-    state.metrics.assessments.labels(outcome.verdict, "true" if store else "false").inc()
-    state.metrics.series.inc(outcome.n_series)
+    services.metrics.assessments.labels(outcome.verdict, "true" if keep else "false").inc()
+    services.metrics.series.inc(outcome.n_series)
     return Response(
-        outcome.body, status_code=201 if store else 200, media_type=JSON, headers=headers
+        outcome.body, status_code=201 if keep else 200, media_type=JSON, headers=headers
     )
 
 
@@ -267,6 +275,8 @@ async def post_assessment(request: Request) -> Response:
 def list_assessments(
     request: Request,
     principal: Annotated[Any, Depends(require("read"))],
+    store: Annotated[Store, Depends(get_store)],
+    settings: Annotated[Settings, Depends(get_settings)],
     model: str | None = None,
     version: str | None = None,
     verdict: Verdict | None = None,
@@ -279,7 +289,6 @@ def list_assessments(
 ) -> Response:
     """Summary rows (``Accept: text/csv`` for CSV). Responses carry an ``ETag``; send it back
     in ``If-None-Match`` to get 304 when nothing changed."""
-    settings = request.app.state.settings
     if limit > settings.page_limit_max:
         raise ApiError(
             422,
@@ -289,8 +298,7 @@ def list_assessments(
             ],
         )
     before = None if cursor is None else decode_cursor(cursor)
-    rows = repo.list_assessments(
-        request.app.state.engine,
+    rows = store.list_assessments(
         model=model,
         version=version,
         verdict=verdict,
@@ -331,9 +339,9 @@ def list_assessments(
     return conditional(request, body, JSON, headers)
 
 
-def stored_or_404(request: Request, assessment_id: str) -> repo.StoredAssessment:
+def stored_or_404(store: Store, assessment_id: str) -> StoredAssessment:
     """The stored assessment, or a 404 problem naming the id."""
-    found = repo.get_assessment(request.app.state.engine, assessment_id=assessment_id)
+    found = store.get_assessment(assessment_id=assessment_id)
     if found is None:
         raise ApiError(404, f"no assessment with id {assessment_id!r}")
     return found
@@ -349,8 +357,9 @@ def get_assessment(
     request: Request,
     assessment_id: str,
     principal: Annotated[Any, Depends(require("read"))],
+    store: Annotated[Store, Depends(get_store)],
 ) -> Response:
-    return conditional(request, stored_or_404(request, assessment_id).to_json(), JSON)
+    return conditional(request, stored_or_404(store, assessment_id).to_json(), JSON)
 
 
 def series_rows(
@@ -395,10 +404,11 @@ def get_series_rows(
     request: Request,
     assessment_id: str,
     principal: Annotated[Any, Depends(require("read"))],
+    store: Annotated[Store, Depends(get_store)],
     check: Annotated[str | None, Query(description="only this check")] = None,
     status: Annotated[str | None, Query(description="only rows with this status")] = None,
 ) -> Response:
-    stored = stored_or_404(request, assessment_id)
+    stored = stored_or_404(store, assessment_id)
     series = [orjson.loads(s) for s in stored.series]
     rows = series_rows(assessment_id, series, check, status)
     if wants_csv(request.headers.get("accept")):

@@ -2,14 +2,15 @@
 
 from __future__ import annotations
 
-from fastapi import APIRouter, Request
-from sqlalchemy.exc import SQLAlchemyError
+from typing import Annotated
+
+from fastapi import APIRouter, Depends
 from starlette.responses import Response
 
-from service.store.migrate import current_revision, head_revision
+from service.store.port import Store, StoreUnavailable
 
-from ..availability import RETRY_AFTER_SECONDS, probe_database
-from ..errors import problem
+from ..deps import Services, get_services, get_store
+from ..errors import RETRY_AFTER_SECONDS, problem
 from ..httputil import json_response
 
 router = APIRouter(tags=["health"])
@@ -27,32 +28,29 @@ async def healthz() -> Response:
     summary="Readiness: the database answers, at the schema this build needs",
     responses={503: {"description": "database unreachable or schema not migrated"}},
 )
-def readyz(request: Request) -> Response:
-    engine = request.app.state.engine
+def readyz(store: Annotated[Store, Depends(get_store)]) -> Response:
     try:
-        probe_database(engine)
-        revision = current_revision(engine)
-    except SQLAlchemyError as exc:
+        ready = store.readiness()
+    except StoreUnavailable as exc:
         return problem(
             503,
-            f"database unreachable: {type(exc).__name__}",
+            f"database unreachable: {exc.kind}",
             headers={"Retry-After": str(RETRY_AFTER_SECONDS)},
         )
-    needed = head_revision()
-    if revision != needed:
+    if not ready.migrated:
         return problem(
             503,
-            f"database schema is at revision {revision or 'none'}, this build "
-            f"needs {needed}: run 'plumbline db upgrade'",
+            f"database schema is at revision {ready.schema_revision or 'none'}, this build "
+            f"needs {ready.head_revision}: run 'plumbline db upgrade'",
         )
     return json_response(
-        {"status": "ready", "database": engine.dialect.name, "schema_revision": revision}
+        {"status": "ready", "database": ready.backend, "schema_revision": ready.schema_revision}
     )
 
 
 @router.get(
     "/metrics", summary="Prometheus text format", responses={200: {"content": {"text/plain": {}}}}
 )
-async def metrics(request: Request) -> Response:
-    m = request.app.state.metrics  # rendering is in-memory work: on the event loop too
+async def metrics(services: Annotated[Services, Depends(get_services)]) -> Response:
+    m = services.metrics  # rendering is in-memory work: on the event loop too
     return Response(m.render(), media_type=m.content_type)

@@ -4,12 +4,13 @@ from __future__ import annotations
 
 from typing import Annotated, Any
 
-from fastapi import APIRouter, Depends, Query, Request
+from fastapi import APIRouter, Depends, Query
 from starlette.responses import Response
 
-from service.store import repository as repo
+from service.store.port import Store
 
 from ..auth import require
+from ..deps import get_store
 from ..errors import ApiError
 from ..httputil import json_response, problem_docs
 from ..schemas import ModelVerdict
@@ -34,9 +35,9 @@ MEETS = {"pass": frozenset({"pass"}), "warn": frozenset({"pass", "warn"})}
     },
 )
 def latest_verdict(
-    request: Request,
     model: str,
     principal: Annotated[Any, Depends(require("read"))],
+    store: Annotated[Store, Depends(get_store)],
     version: str | None = None,
     require_: Annotated[
         str | None,
@@ -47,7 +48,7 @@ def latest_verdict(
         ),
     ] = None,
 ) -> Response:
-    found = repo.latest_assessment(request.app.state.engine, model=model, version=version)
+    found = store.latest_assessment(model=model, version=version)
     if found is None:
         what = f"model {model!r}" + (f" version {version!r}" if version is not None else "")
         raise ApiError(404, f"no assessment of {what}")

@@ -9,10 +9,12 @@ from starlette.concurrency import run_in_threadpool
 from starlette.responses import Response
 
 from service.ingest import load_json
-from service.store import repository as repo
+from service.store.port import Store
+from service.store.records import StoredPolicy
 
 from ..auth import require
 from ..body import read_body, require_json
+from ..deps import get_store
 from ..errors import ApiError
 from ..httputil import MAX_INT, json_body_doc, json_response, problem_docs
 from ..policy_lookup import (
@@ -39,11 +41,11 @@ def _builtin_out() -> dict[str, Any]:
     }
 
 
-def _out(stored: repo.StoredPolicy) -> dict[str, Any]:
+def _out(stored: StoredPolicy) -> dict[str, Any]:
     return {**stored.to_dict(), "builtin": False}
 
 
-def _create(engine: Any, doc: dict[str, Any]) -> repo.StoredPolicy:
+def _create(store: Store, doc: dict[str, Any]) -> StoredPolicy:
     name = doc.get("name")
     if not isinstance(name, str) or not valid_name(name):
         raise ApiError(
@@ -59,7 +61,7 @@ def _create(engine: Any, doc: dict[str, Any]) -> repo.StoredPolicy:
     document.pop("version", None)
     document["name"] = name
     first = 2 if name == BUILTIN_DEFAULT else 1  # the built-in default is version 1
-    stored = repo.save_policy(engine, name=name, document=document, first_version=first)
+    stored = store.save_policy(name=name, document=document, first_version=first)
     policy_from_document(stored.document, loc="")  # what is stored must load back
     return stored
 
@@ -73,7 +75,9 @@ def _create(engine: Any, doc: dict[str, Any]) -> repo.StoredPolicy:
     openapi_extra=json_body_doc("PolicyDocument"),
 )
 async def post_policy(
-    request: Request, principal: Annotated[Any, Depends(require("admin"))]
+    request: Request,
+    principal: Annotated[Any, Depends(require("admin"))],
+    store: Annotated[Store, Depends(get_store)],
 ) -> Response:
     require_json(request)
     raw = await read_body(request, MAX_POLICY_BYTES)
@@ -84,7 +88,7 @@ async def post_policy(
             "body must be a policy object",
             errors=[{"loc": "body", "message": "must be a JSON object"}],
         )
-    stored = await run_in_threadpool(_create, request.app.state.engine, doc)
+    stored = await run_in_threadpool(_create, store, doc)
     return json_response(
         _out(stored),
         status=201,
@@ -99,9 +103,10 @@ async def post_policy(
     responses=problem_docs(401, 403),
 )
 def list_policies(
-    request: Request, principal: Annotated[Any, Depends(require("read"))]
+    principal: Annotated[Any, Depends(require("read"))],
+    store: Annotated[Store, Depends(get_store)],
 ) -> Response:
-    stored = repo.list_policies(request.app.state.engine)
+    stored = store.list_policies()
     items = [_out(p) for p in stored]
     if not any(p.name == BUILTIN_DEFAULT for p in stored):
         items.insert(0, _builtin_out())
@@ -115,12 +120,12 @@ def list_policies(
     responses=problem_docs(401, 403, 404, 422),
 )
 def get_policy(
-    request: Request,
     name: str,
     principal: Annotated[Any, Depends(require("read"))],
+    store: Annotated[Store, Depends(get_store)],
     version: Annotated[int | None, Query(ge=1, le=MAX_INT)] = None,
 ) -> Response:
-    stored = repo.get_policy(request.app.state.engine, name=name, version=version)
+    stored = store.get_policy(name=name, version=version)
     if stored is not None:
         return json_response(_out(stored))
     if name == BUILTIN_DEFAULT and version in (None, 1):

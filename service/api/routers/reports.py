@@ -9,21 +9,23 @@ assessment is submitted.
 
 from __future__ import annotations
 
-import threading
+from dataclasses import dataclass
 from typing import Annotated, Any
 from urllib.parse import quote
 
 import numpy as np
 import orjson
-from fastapi import APIRouter, Body, Query, Request
+from fastapi import APIRouter, Body, Depends, Query, Request
 from pydantic import BaseModel, ConfigDict, Field
 from starlette.concurrency import run_in_threadpool
 from starlette.responses import Response
 
 from service import links
-from service.store import repository as repo
+from service.settings import Settings
+from service.store.port import Store
 
-from ..auth import require
+from ..auth import authorize
+from ..deps import Services, get_services, get_settings, get_store
 from ..errors import ApiError
 from ..httputil import json_response, problem_docs
 from .assessments import stored_or_404
@@ -34,8 +36,6 @@ HTML = "text/html; charset=utf-8"
 LINK_PARAMS = ("expires", "signature")
 LINK_SECRET_NAME = "report_links"
 _PROBLEMS = problem_docs(401, 403, 404)
-_SECRET_LOCK = threading.Lock()
-_CACHE_LOCK = threading.Lock()
 
 # Declared for the OpenAPI document; read (and checked) by _admit. Kept as text so that a
 # malformed value is a refused link (403), not a validation error.
@@ -66,23 +66,40 @@ class LinkCreated(BaseModel):
     assessment_id: str
 
 
-def link_secret(request: Request) -> str:
+@dataclass(frozen=True, slots=True)
+class Context:
+    """What a report request works with: its settings, store and the app's services."""
+
+    settings: Settings
+    store: Store
+    services: Services
+
+
+async def report_context(
+    settings: Annotated[Settings, Depends(get_settings)],
+    store: Annotated[Store, Depends(get_store)],
+    services: Annotated[Services, Depends(get_services)],
+) -> Context:
+    return Context(settings=settings, store=store, services=services)
+
+
+def link_secret(ctx: Context) -> str:
     """The key that signs links: ``PLUMBLINE_LINK_SECRET`` when set, else a random key the
     server made on first use and keeps in its database, shared by every worker and restart."""
-    state = request.app.state
-    configured = state.settings.link_secret
+    configured = ctx.settings.link_secret
     if configured is not None:
         secret = configured.get_secret_value()
     else:
-        secret = getattr(state, "link_secret", None)
+        services = ctx.services
+        secret = services.link_secret
         if not secret:
-            with _SECRET_LOCK:
-                secret = getattr(state, "link_secret", None)
+            with services.lock:
+                secret = services.link_secret
                 if not secret:
-                    secret = repo.get_or_create_secret(
-                        state.engine, name=LINK_SECRET_NAME, make=links.new_secret
+                    secret = ctx.store.get_or_create_secret(
+                        name=LINK_SECRET_NAME, make=links.new_secret
                     )
-                    state.link_secret = secret
+                    services.link_secret = secret
     if len(secret.encode()) < links.MIN_SECRET_LENGTH:
         raise ApiError(
             503,
@@ -92,27 +109,26 @@ def link_secret(request: Request) -> str:
     return secret
 
 
-def _chart_cache(request: Request) -> Any:
+def _chart_cache(services: Services) -> Any:
     from service.report.cache import ChartCache
 
-    state = request.app.state
-    cache = getattr(state, "report_chart_cache", None)
+    cache = services.chart_cache
     if cache is None:
-        with _CACHE_LOCK:
-            cache = getattr(state, "report_chart_cache", None)
+        with services.lock:
+            cache = services.chart_cache
             if cache is None:
-                cache = state.report_chart_cache = ChartCache()
+                cache = services.chart_cache = ChartCache()
     return cache
 
 
-async def _admit(request: Request, assessment_id: str) -> str:
+async def _admit(request: Request, ctx: Context, assessment_id: str) -> str:
     """Let the request in; return the query string its in-page links must carry ('' with a
     bearer token, the link's ``expires`` and ``signature`` with a signed link)."""
     params = request.query_params
     if any(p in params for p in LINK_PARAMS):
         try:
             link = links.verify_link(
-                secret=link_secret(request),
+                secret=link_secret(ctx),
                 assessment_id=assessment_id,
                 expires=params.get("expires"),
                 signature=params.get("signature"),
@@ -122,8 +138,18 @@ async def _admit(request: Request, assessment_id: str) -> str:
         except links.LinkInvalid as exc:
             raise ApiError(403, exc.reason, slug="link-invalid", title="Invalid link") from None
         return link.query
-    await require("read")(request)
+    await _require_read(request, ctx)
     return ""
+
+
+async def _require_read(request: Request, ctx: Context) -> None:
+    await authorize(
+        request,
+        "read",
+        settings=ctx.settings,
+        store=ctx.store,
+        cache=ctx.services.token_cache,
+    )
 
 
 def _report_path(request: Request, assessment_id: str) -> str:
@@ -154,18 +180,22 @@ def _html(text: str) -> Response:
     responses={200: {"content": {"text/html": {}}}, **_PROBLEMS},
 )
 async def get_report(
-    request: Request, assessment_id: str, expires: Expires = None, signature: Signature = None
+    request: Request,
+    assessment_id: str,
+    ctx: Annotated[Context, Depends(report_context)],
+    expires: Expires = None,
+    signature: Signature = None,
 ) -> Response:
     """Fleet verdict and reasons, the per-check table, the fleet bias and every series (worst
     first), each linking to its page. Bearer token with ``read``, or a signed link."""
-    query = await _admit(request, assessment_id)
+    query = await _admit(request, ctx, assessment_id)
     base = _report_path(request, assessment_id)
     suffix = f"?{query}" if query else ""
 
     def work() -> str:
         from service.report import render_report
 
-        assessment = orjson.loads(stored_or_404(request, assessment_id).to_json())
+        assessment = orjson.loads(stored_or_404(ctx.store, assessment_id).to_json())
         return render_report(
             assessment, series_href=lambda sid: f"{base}/series/{quote(sid, safe='')}{suffix}"
         )
@@ -173,10 +203,10 @@ async def get_report(
     return _html(await run_in_threadpool(work))
 
 
-def _inputs_of(request: Request, assessment_id: str, series_id: str) -> Any:
+def _inputs_of(store: Store, assessment_id: str, series_id: str) -> Any:
     from service.report import SeriesInputs
 
-    found = repo.series_inputs(request.app.state.engine, assessment_id=assessment_id) or []
+    found = store.series_inputs(assessment_id=assessment_id) or []
     for s in found:
         if s.series_id == series_id:
             return SeriesInputs(
@@ -214,13 +244,14 @@ async def get_series_report(
     request: Request,
     assessment_id: str,
     series_id: str,
+    ctx: Annotated[Context, Depends(report_context)],
     expires: Expires = None,
     signature: Signature = None,
 ) -> Response:
     """Residuals over time, residual ACF with its bounds and the Ljung-Box lags, histogram with
     the fitted normal, residuals against fitted values and, with a holdout, actuals against
     forecasts with the interval and the best benchmark. Drawn on request (and cached)."""
-    query = await _admit(request, assessment_id)
+    query = await _admit(request, ctx, assessment_id)
     base = _report_path(request, assessment_id)
     suffix = f"?{query}" if query else ""
 
@@ -233,7 +264,7 @@ async def get_series_report(
             series_diagnostics,
         )
 
-        stored = stored_or_404(request, assessment_id)
+        stored = stored_or_404(ctx.store, assessment_id)
         fleet = [orjson.loads(blob) for blob in stored.series]
         entry = find_series({"series": fleet}, series_id)
         if entry is None:
@@ -245,7 +276,7 @@ async def get_series_report(
             return None if sid is None else (sid, f"{base}/series/{quote(sid, safe='')}{suffix}")
 
         def draw() -> tuple:
-            inputs = _inputs_of(request, assessment_id, series_id)
+            inputs = _inputs_of(ctx.store, assessment_id, series_id)
             if inputs is None:
                 raise ApiError(404, f"the inputs of series {series_id!r} were not stored")
             diag = series_diagnostics(
@@ -256,7 +287,7 @@ async def get_series_report(
             )
             return render_charts(diag)
 
-        charts = _chart_cache(request).get_or_render((assessment_id, series_id), draw)
+        charts = _chart_cache(ctx.services).get_or_render((assessment_id, series_id), draw)
         return render_series(
             head,
             entry,
@@ -278,13 +309,13 @@ async def get_series_report(
 async def create_link(
     request: Request,
     assessment_id: str,
+    ctx: Annotated[Context, Depends(report_context)],
     body: Annotated[LinkRequest | None, Body()] = None,
 ) -> Response:
     """``{"url", "expires_at"}``: the link opens this report and its series pages, and nothing
     else, until ``expires_at``. Needs the ``read`` scope."""
-    await require("read")(request)
-    settings = request.app.state.settings
-    ttl = settings.link_ttl_seconds
+    await _require_read(request, ctx)
+    ttl = ctx.settings.link_ttl_seconds
     if body is not None and body.ttl_seconds is not None:
         if body.ttl_seconds > ttl:
             raise ApiError(
@@ -293,10 +324,8 @@ async def create_link(
                 errors=[{"loc": "ttl_seconds", "message": f"must be at most {ttl}"}],
             )
         ttl = body.ttl_seconds
-    await run_in_threadpool(stored_or_404, request, assessment_id)
-    link = links.sign_link(
-        secret=link_secret(request), assessment_id=assessment_id, ttl_seconds=ttl
-    )
+    await run_in_threadpool(stored_or_404, ctx.store, assessment_id)
+    link = links.sign_link(secret=link_secret(ctx), assessment_id=assessment_id, ttl_seconds=ttl)
     # base_url already carries the app's root path.
     url = (
         f"{str(request.base_url).rstrip('/')}/v1/assessments/"

@@ -8,10 +8,12 @@ from fastapi import APIRouter, Depends, Request
 from starlette.concurrency import run_in_threadpool
 from starlette.responses import Response
 
-from service.store import repository as repo
+from service.store.port import Store
+from service.store.records import SCOPES
 
 from ..auth import require
 from ..body import read_model
+from ..deps import Services, get_services, get_store
 from ..errors import ApiError
 from ..httputil import json_body_doc, json_response, problem_docs
 from ..schemas import TokenCreated, TokenList, TokenRequest
@@ -29,12 +31,14 @@ MAX_TOKEN_BODY = 16 * 1024
     openapi_extra=json_body_doc("TokenRequest"),
 )
 async def create_token(
-    request: Request, principal: Annotated[Any, Depends(require("admin"))]
+    request: Request,
+    principal: Annotated[Any, Depends(require("admin"))],
+    store: Annotated[Store, Depends(get_store)],
 ) -> Response:
     wanted = await read_model(request, TokenRequest, MAX_TOKEN_BODY)
-    scopes = sorted(set(wanted.scopes), key=repo.SCOPES.index)
+    scopes = sorted(set(wanted.scopes), key=SCOPES.index)
     record, secret = await run_in_threadpool(
-        lambda: repo.create_token(request.app.state.engine, scopes=scopes, label=wanted.label)
+        lambda: store.create_token(scopes=scopes, label=wanted.label)
     )
     return json_response(
         {
@@ -54,21 +58,23 @@ async def create_token(
     summary="Tokens (never their secrets)",
     responses=problem_docs(401, 403),
 )
-def list_tokens(request: Request, principal: Annotated[Any, Depends(require("admin"))]) -> Response:
-    return json_response(
-        {"items": [t.to_dict() for t in repo.list_tokens(request.app.state.engine)]}
-    )
+def list_tokens(
+    principal: Annotated[Any, Depends(require("admin"))],
+    store: Annotated[Store, Depends(get_store)],
+) -> Response:
+    return json_response({"items": [t.to_dict() for t in store.list_tokens()]})
 
 
 @router.delete(
     "/{token_id}", status_code=204, summary="Revoke a token", responses=problem_docs(401, 403, 404)
 )
 def revoke_token(
-    request: Request,
     token_id: str,
     principal: Annotated[Any, Depends(require("admin"))],
+    store: Annotated[Store, Depends(get_store)],
+    services: Annotated[Services, Depends(get_services)],
 ) -> Response:
-    if not repo.revoke_token(request.app.state.engine, token_id=token_id):
+    if not store.revoke_token(token_id=token_id):
         raise ApiError(404, f"no live token with id {token_id!r}")
-    request.app.state.token_cache.forget(token_id)
+    services.token_cache.forget(token_id)
     return Response(status_code=204)
