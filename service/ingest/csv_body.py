@@ -1,11 +1,10 @@
 """The CSV long-format upload: one row per series and period, parsed into a request.
 
-The standard ``csv`` reader hands over text a cell at a time, so the rows are checked and
-grouped by series as they are read (errors name ``line[N].column``). :func:`parse_csv_request`
-goes in steps: the query parameters (:func:`check_params`, :func:`read_level`,
-:func:`read_csv_envelope`), the header (:func:`read_header`), the rows (:func:`read_rows`),
-the series they make (:func:`check_groups`), then the numbers of every series at once
-(:func:`csv_columns`) and the last steps shared with the JSON body
+:func:`parse_csv_request` goes in steps: the query parameters (:func:`check_params`,
+:func:`read_level`, :func:`read_csv_envelope`), the header (:func:`read_header`), the rows
+grouped by series (:func:`~service.ingest.csv_rows.read_rows`, errors naming
+``line[N].column``), the series as wholes (:func:`check_series`), then the numbers of every
+series at once (:func:`csv_columns`) and the last steps shared with the JSON body
 (:func:`~service.ingest.assemble.build_request`), so bounds, order and the core's rules are
 the same.
 """
@@ -14,18 +13,15 @@ from __future__ import annotations
 
 import csv
 import io
-import math
 from collections.abc import Iterator, Mapping
-from dataclasses import dataclass
-from itertools import chain
 
 import numpy as np
 
 from .arrays import check_magnitude, check_timestamps
 from .assemble import build_request
+from .csv_rows import Columns, ReadSeries, read_rows
 from .fields import read_int, read_name, read_policy
 from .request import (
-    MAX_NAME_LENGTH,
     AssessmentRequest,
     Envelope,
     Errors,
@@ -67,16 +63,16 @@ def parse_csv_request(
     reader = csv.reader(io.StringIO(_decode(text)), strict=True)
     cols = read_header(reader, errs)
     level = read_level(params, errs)
-    groups = read_rows(reader, cols, errs)
+    series = read_rows(reader, cols, errs)
     envelope = read_csv_envelope(params, errs)
-    if not groups and not errs.items:
+    if not series.ids and not errs.items:
         errs.add("body", "no data rows after the header")
-    if max_series is not None and len(groups) > max_series:
-        errs.add("series", f"holds {len(groups)} series; the limit is {max_series}")
+    if max_series is not None and len(series.ids) > max_series:
+        errs.add("series", f"holds {len(series.ids)} series; the limit is {max_series}")
     errs.check()
-    check_groups(groups, cols.timestamp is not None, errs, max_series_length)
+    check_series(series, errs, max_series_length)
     errs.check()
-    return build_request(envelope, csv_columns(groups, cols.timestamp is not None, level, errs))
+    return build_request(envelope, csv_columns(series, level, errs))
 
 
 def check_params(params: Mapping[str, str], errs: Errors) -> None:
@@ -95,20 +91,6 @@ def _decode(text: str | bytes) -> str:
                 [{"loc": "body", "message": f"not UTF-8 text: {exc.reason} at byte {exc.start}"}]
             ) from None
     return text[1:] if text.startswith("\ufeff") else text
-
-
-@dataclass(frozen=True)
-class Columns:
-    """Where each column of the upload is (``None``: an optional column left out)."""
-
-    width: int
-    series_id: int
-    actual: int
-    fitted: int
-    timestamp: int | None
-    part: int | None
-    lower: int | None
-    upper: int | None
 
 
 def read_header(reader: Iterator[list[str]], errs: Errors) -> Columns:
@@ -192,178 +174,44 @@ def _param_int(
     return read_int(value, key, errs, default=default, minimum=minimum)
 
 
-class Group:
-    """The rows of one series as read: train values and stamps, holdout values and stamps
-    (NaN where a cell is empty)."""
-
-    __slots__ = (
-        "actuals",
-        "fitted",
-        "h_actuals",
-        "h_forecasts",
-        "h_stamps",
-        "lower",
-        "stamps",
-        "upper",
-    )
-
-    def __init__(self) -> None:
-        self.actuals: list[float] = []
-        self.fitted: list[float] = []
-        self.stamps: list[str] = []
-        self.h_actuals: list[float] = []
-        self.h_forecasts: list[float] = []
-        self.lower: list[float] = []
-        self.upper: list[float] = []
-        self.h_stamps: list[str] = []
-
-    def add(self, numbers: tuple[float, float, float, float], stamp: str, *, holdout: bool) -> None:
-        """One row's actual, fitted (the forecast on a holdout row), lower, upper, stamp."""
-        actual, fitted, lower, upper = numbers
-        if holdout:
-            self.h_actuals.append(actual)
-            self.h_forecasts.append(fitted)
-            self.lower.append(lower)
-            self.upper.append(upper)
-            self.h_stamps.append(stamp)
-        else:
-            self.actuals.append(actual)
-            self.fitted.append(fitted)
-            self.stamps.append(stamp)
-
-    @property
-    def has_interval(self) -> bool:
-        """A bound is given on some holdout row."""
-        return any(v == v for v in chain(self.lower, self.upper))
-
-
-def read_rows(reader: Iterator[list[str]], cols: Columns, errs: Errors) -> dict[str, Group]:
-    """Every data row, grouped by series in the order of their first rows."""
-    groups: dict[str, Group] = {}
-    line = 1
-    try:
-        for row in reader:
-            line += 1
-            if _read_row(row, line, cols, groups, errs) and errs.full:
-                break
-    except csv.Error as exc:
-        raise RequestUnparseable(
-            [{"loc": f"line[{line + 1}]", "message": f"malformed CSV: {exc}"}]
-        ) from None
-    return groups
-
-
-def _read_row(
-    row: list[str], line: int, cols: Columns, groups: dict[str, Group], errs: Errors
-) -> bool:
-    """Add one row to its series. ``True`` when the row was taken or refused for its width:
-    the reading stops there once the error list is full."""
-    if not row or (len(row) == 1 and not row[0].strip()):
-        return False
-    if len(row) != cols.width:
-        errs.add(f"line[{line}]", f"has {len(row)} cells, the header has {cols.width}")
-        return True
-    sid = row[cols.series_id].strip()
-    if not sid:
-        errs.add(f"line[{line}].series_id", "must not be empty")
-        return False
-    part = row[cols.part].strip() if cols.part is not None else ""
-    if part not in ("", "train", "holdout"):
-        errs.add(f"line[{line}].part", f"must be train or holdout, got {part[:40]!r}")
-        return False
-    g = groups.get(sid)
-    if g is None:
-        if len(sid) > MAX_NAME_LENGTH or "\x00" in sid:
-            errs.add(
-                f"line[{line}].series_id",
-                f"must be at most {MAX_NAME_LENGTH} characters, without NUL",
-            )
-            return False
-        g = groups[sid] = Group()
-    numbers = _row_numbers(row, line, cols, errs)
-    stamp = row[cols.timestamp].strip() if cols.timestamp is not None else ""
-    holdout = part == "holdout"
-    if not holdout and (
-        (cols.lower is not None and row[cols.lower].strip())
-        or (cols.upper is not None and row[cols.upper].strip())
-    ):
-        errs.add(f"line[{line}].lower", "lower and upper belong on holdout rows only")
-    g.add(numbers, stamp, holdout=holdout)
-    return True
-
-
-def _row_numbers(
-    row: list[str], line: int, cols: Columns, errs: Errors
-) -> tuple[float, float, float, float]:
-    """The row's actual, fitted, lower and upper (NaN where empty or refused)."""
-    out = []
-    for key, k in (
-        ("actual", cols.actual),
-        ("fitted", cols.fitted),
-        ("lower", cols.lower),
-        ("upper", cols.upper),
-    ):
-        cell = row[k].strip() if k is not None else ""
-        try:
-            out.append(_csv_float(cell))
-        except ValueError:
-            errs.add(f"line[{line}].{key}", f"must be a finite number or empty, got {cell[:40]!r}")
-            out.append(math.nan)
-    return out[0], out[1], out[2], out[3]
-
-
-def _csv_float(text: str) -> float:
-    """A CSV cell as a number: empty is missing (NaN); NaN/inf text is refused."""
-    if not text:
-        return math.nan
-    value = float(text)
-    if not math.isfinite(value):
-        raise ValueError("not finite")
-    return value
-
-
-def check_groups(
-    groups: Mapping[str, Group], with_stamps: bool, errs: Errors, max_length: int | None
-) -> None:
+def check_series(rs: ReadSeries, errs: Errors, max_length: int | None) -> None:
     """What a series needs as a whole: train rows, the length limit, a timestamp on every
     train row (when the column is there), bounds on the same holdout rows."""
-    for i, (sid, g) in enumerate(groups.items()):
-        if not g.actuals:
+    too_long = np.zeros(len(rs.ids), dtype=bool)
+    if max_length is not None:
+        too_long = np.maximum(rs.t_lengths, rs.h_lengths) > max_length
+    for i, sid in enumerate(rs.ids):
+        if not rs.t_lengths[i]:
             errs.add(f"series[{i}].actuals", f"series {sid!r} has holdout rows but no train rows")
             continue
-        if max_length is not None and max(len(g.actuals), len(g.h_actuals)) > max_length:
+        if too_long[i]:
             errs.add(f"series[{i}].actuals", f"series {sid!r} has more than {max_length} rows")
             continue
-        if with_stamps and not all(g.stamps):
+        if rs.t_stamps is not None and not all(rs.t_stamps[i]):
             errs.add(
                 f"series[{i}].timestamps",
                 f"series {sid!r}: every row needs a timestamp when the column is present",
             )
-        if g.has_interval and [v == v for v in g.lower] != [v == v for v in g.upper]:
+        if rs.interval[i] and rs.uneven_bounds[i]:
             errs.add(
                 f"series[{i}].holdout.lower",
                 f"series {sid!r}: lower and upper must be given on the same holdout rows",
             )
 
 
-def csv_columns(
-    groups: Mapping[str, Group], with_stamps: bool, level: float | None, errs: Errors
-) -> SeriesColumns:
+def csv_columns(rs: ReadSeries, level: float | None, errs: Errors) -> SeriesColumns:
     """Every series' numbers as flat arrays, checked at once; raises with every problem."""
-    gs = list(groups.values())
-    n = len(gs)
-    actuals = _flat(gs, "actuals")
-    fitted = _flat(gs, "fitted", actuals.lengths)
+    n = len(rs.ids)
+    actuals = FlatRows(rs.actual, rs.t_lengths)
+    fitted = FlatRows(rs.fitted, rs.t_lengths)
     check_magnitude(actuals, _locs(n, "actuals"), errs)
     check_magnitude(fitted, _locs(n, "fitted"), errs)
-    stamps: list[list[str] | None] = [g.stamps if with_stamps else None for g in gs]
+    stamps: list[list[str] | None] = [None] * n if rs.t_stamps is None else list(rs.t_stamps)
     check_timestamps(stamps, _locs(n, "timestamps"), errs)
-    holdout = None
-    if any(g.h_actuals for g in gs):
-        holdout = _holdout_columns(gs, with_stamps, level, errs)
+    holdout = _holdout_columns(rs, level, errs) if rs.h_lengths.any() else None
     errs.check()
     return SeriesColumns(
-        ids=list(groups),
+        ids=rs.ids,
         actuals=actuals,
         fitted=fitted,
         timestamps=stamps,
@@ -372,43 +220,33 @@ def csv_columns(
     )
 
 
-def _holdout_columns(
-    gs: list[Group], with_stamps: bool, level: float | None, errs: Errors
-) -> HoldoutColumns:
-    n = len(gs)
-    actuals = _flat(gs, "h_actuals")
-    forecasts = _flat(gs, "h_forecasts", actuals.lengths)
+def _holdout_columns(rs: ReadSeries, level: float | None, errs: Errors) -> HoldoutColumns:
+    n = len(rs.ids)
+    actuals = FlatRows(rs.h_actual, rs.h_lengths)
+    forecasts = FlatRows(rs.h_forecast, rs.h_lengths)
     check_magnitude(actuals, _locs(n, "holdout.actuals"), errs)
     check_magnitude(forecasts, _locs(n, "holdout.forecasts"), errs)
-    interval = [g.has_interval for g in gs]
+    interval = rs.interval
     lower = upper = None
-    if any(interval):
-        chosen = [g if has else None for g, has in zip(gs, interval, strict=True)]
-        lower = _flat(chosen, "lower")
-        upper = _flat(chosen, "upper", lower.lengths)
+    if interval.any():
+        rows = interval[rs.h_series]
+        lengths = np.where(interval, rs.h_lengths, 0)
+        lower = FlatRows(rs.lower[rows], lengths)
+        upper = FlatRows(rs.upper[rows], lengths)
         check_magnitude(lower, _locs(n, "holdout.lower"), errs)
         check_magnitude(upper, _locs(n, "holdout.upper"), errs)
-    stamps: list[list[str] | None] = [
-        g.h_stamps if with_stamps and g.h_actuals and all(g.h_stamps) else None for g in gs
-    ]
+    stamps: list[list[str] | None] = [None] * n
+    if rs.h_stamps is not None:
+        stamps = [s if s and all(s) else None for s in rs.h_stamps]
     check_timestamps(stamps, _locs(n, "holdout.timestamps"), errs)
     return HoldoutColumns(
         actuals=actuals,
         forecasts=forecasts,
         lower=lower,
         upper=upper,
-        levels=[level if has else None for has in interval],
+        levels=[level if has else None for has in interval.tolist()],
         timestamps=stamps,
     )
-
-
-def _flat(gs: list[Group | None], name: str, lengths: np.ndarray | None = None) -> FlatRows:
-    """The attribute ``name`` of every group joined into one array (nothing for ``None``)."""
-    rows = [[] if g is None else getattr(g, name) for g in gs]
-    if lengths is None:
-        lengths = np.fromiter(map(len, rows), dtype=np.int64, count=len(rows))
-    values = np.fromiter(chain.from_iterable(rows), dtype=float, count=int(lengths.sum()))
-    return FlatRows(values, lengths)
 
 
 def _locs(n: int, key: str) -> list[str]:
