@@ -18,7 +18,8 @@ Modules:
 - :mod:`~service.ingest.fields`: readers for scalar fields (names, integers, policy, labels);
 - :mod:`~service.ingest.arrays`: the vectorised number and timestamp array checks;
 - :mod:`~service.ingest.json_body`: :func:`load_json`, :func:`parse_json_request`;
-- :mod:`~service.ingest.csv_body`: :func:`parse_csv_request`;
+- :mod:`~service.ingest.csv_body`: :func:`parse_csv_request`, with
+  :mod:`~service.ingest.csv_rows` reading its rows;
 - :mod:`~service.ingest.assemble`: the shared last steps (interval bounds, the core's batch)
   and :func:`core_error_loc`.
 
