@@ -1,6 +1,6 @@
 """The service's settings: one class, read from ``PLUMBLINE_*`` environment variables.
 
-Nothing is read at import time: call :func:`Settings` (or :func:`load_settings`) where needed.
+Nothing is read at import time: call :func:`Settings` where needed.
 """
 
 from __future__ import annotations
@@ -76,8 +76,3 @@ class Settings(BaseSettings):
     http_parser: Literal["auto", "h11", "httptools"] = Field(
         default="auto", description="HTTP/1.1 parser; auto: httptools when installed, else h11."
     )
-
-
-def load_settings() -> Settings:
-    """Settings from the current environment."""
-    return Settings()

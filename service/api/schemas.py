@@ -1,15 +1,20 @@
 """Request and response shapes, for validation of small bodies and for the OpenAPI document.
 
 Assessment bodies are parsed by :mod:`service.ingest` (fast, vectorised); the models here only
-describe them in the OpenAPI document. Small bodies (tokens) are validated with these models.
+describe them in the OpenAPI document, built from the request's field tables
+(:mod:`service.ingest.shape`). Small bodies (tokens) are validated with these models.
 """
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from datetime import datetime
 from typing import Any, Literal
 
-from pydantic import BaseModel, ConfigDict, Field
+from pydantic import BaseModel, ConfigDict, Field, create_model
+
+from service.ingest import shape
+from service.ingest.shape import FieldSpec
 
 Verdict = Literal["pass", "warn", "fail"]
 CheckStatus = Literal["pass", "warn", "fail", "skipped"]
@@ -32,48 +37,68 @@ class FieldError(BaseModel):
 
 
 # --- assessment request (documentation) -------------------------------------------------------
+# Built from the field tables of service.ingest.shape, which the parser reads from too.
+
+_KINDS: dict[str, Any] = {
+    "text": str,
+    "integer": int,
+    "number": float,
+    "numbers": list[float | None],
+    "strings": list[str],
+    "policy": str | dict[str, Any],
+    "labels": dict[str, str],
+}
 
 
-class HoldoutBody(BaseModel):
-    model_config = ConfigDict(extra="forbid")
+def _field(spec: FieldSpec, nested: Mapping[str, type[BaseModel]]) -> tuple[Any, Any]:
+    """(annotation, FieldInfo) of one request field."""
+    annotation = nested[spec.name] if spec.kind in ("series", "holdout") else _KINDS[spec.kind]
+    if spec.kind == "series":
+        annotation = list[annotation]  # type: ignore[valid-type]
+    options: dict[str, Any] = {
+        key: value
+        for key, value in (
+            ("description", spec.description),
+            ("ge", spec.minimum),
+            ("gt", spec.above),
+            ("lt", spec.below),
+        )
+        if value is not None
+    }
+    if spec.example is not None:
+        options["examples"] = [spec.example]
+    if spec.required:
+        return annotation, Field(**options)
+    if spec.kind == "labels":
+        return annotation, Field(default_factory=dict, **options)
+    if spec.default is None:
+        annotation = annotation | None
+    return annotation, Field(spec.default, **options)
 
-    actuals: list[float | None] = Field(description="Out-of-sample observations.")
-    forecasts: list[float | None] = Field(description="Forecasts for them, same length.")
-    lower: list[float | None] | None = Field(None, description="Interval lower bounds.")
-    upper: list[float | None] | None = Field(None, description="Interval upper bounds.")
-    level: float | None = Field(None, gt=0, lt=1, description="Nominal coverage, default 0.95.")
-    timestamps: list[str] | None = Field(None, description="ISO 8601, strictly increasing.")
 
-
-class SeriesBody(BaseModel):
-    model_config = ConfigDict(extra="forbid")
-
-    id: str = Field(description="Unique within the request.", examples=["depot-4/sku-118"])
-    actuals: list[float | None] = Field(description="Training-period observations.")
-    fitted: list[float | None] = Field(
-        description="One-step in-sample fitted values, same length; null where none."
+def _body_model(
+    name: str,
+    fields: tuple[FieldSpec, ...],
+    doc: str | None = None,
+    nested: Mapping[str, type[BaseModel]] | None = None,
+) -> type[BaseModel]:
+    return create_model(  # type: ignore[call-overload, no-any-return]
+        name,
+        __config__=ConfigDict(extra="forbid"),
+        __doc__=doc,
+        __module__=__name__,
+        **{f.name: _field(f, nested or {}) for f in fields},
     )
-    timestamps: list[str] | None = Field(None, description="ISO 8601, strictly increasing.")
-    weight: float | None = Field(None, ge=0, description="Default: sum of |actuals|.")
-    holdout: HoldoutBody | None = None
 
 
-class AssessmentBody(BaseModel):
-    """Body of ``POST /v1/assessments`` as JSON."""
-
-    model_config = ConfigDict(extra="forbid")
-
-    model: str = Field(examples=["weekly-demand"])
-    version: str = Field(examples=["2026.11.30"])
-    policy: str | dict[str, Any] = Field(
-        "default",
-        description="A stored policy's name (optionally name@version) or an inline "
-        "policy document.",
-    )
-    season_length: int = Field(1, ge=1, description="Seasonal period; 1 is non-seasonal.")
-    model_params: int = Field(0, ge=0, description="Parameters the model estimated.")
-    labels: dict[str, str] = Field(default_factory=dict)
-    series: list[SeriesBody]
+HoldoutBody = _body_model("HoldoutBody", shape.HOLDOUT)
+SeriesBody = _body_model("SeriesBody", shape.SERIES, nested={"holdout": HoldoutBody})
+AssessmentBody = _body_model(
+    "AssessmentBody",
+    shape.ENVELOPE,
+    "Body of ``POST /v1/assessments`` as JSON.",
+    nested={"series": SeriesBody},
+)
 
 
 # --- assessment responses ---------------------------------------------------------------------

@@ -3,10 +3,13 @@
 from __future__ import annotations
 
 import argparse
-import os
 import sys
+from typing import TYPE_CHECKING
 
 from service.settings import Settings
+
+if TYPE_CHECKING:
+    from fastapi import FastAPI
 
 
 def prepare(settings: Settings) -> str | None:
@@ -27,21 +30,19 @@ def prepare(settings: Settings) -> str | None:
 
 
 def run(host: str, port: int, workers: int) -> None:
-    """Serve the app built by ``create_app()`` from the environment's settings.
+    """Serve the app of :func:`worker_app` under uvicorn, from the environment's settings.
 
     Migrations run once here, before the workers start (they then skip them).
     """
     import uvicorn
 
+    from service.api.auth import announce_first_token
     from service.api.slowclients import uvicorn_options
 
     settings = Settings()
-    from service.api.auth import announce_first_token
-
     announce_first_token(prepare(settings))
-    os.environ["PLUMBLINE_MIGRATE_ON_START"] = "false"
     uvicorn.run(
-        "service.api.app:create_app",
+        "service.api.server:worker_app",
         factory=True,
         host=host,
         port=port,
@@ -51,6 +52,18 @@ def run(host: str, port: int, workers: int) -> None:
         proxy_headers=False,
         **uvicorn_options(settings),
     )
+
+
+def worker_app() -> FastAPI:
+    """The app of one worker started by :func:`run` (uvicorn calls it in each worker process).
+
+    Its settings are the environment's, which every worker inherits unchanged from the process
+    that called :func:`run` and read its own from, with the migrations and the first token
+    left out: :func:`run` has done both before starting the workers.
+    """
+    from service.api.app import create_app
+
+    return create_app(Settings(migrate_on_start=False))
 
 
 def main(argv: list[str] | None = None) -> int:

@@ -1,7 +1,13 @@
 """The ``plumbline`` command: assess files, gate deployments, manage tokens, run the service.
 
+Two sides. The client side, this package, talks to a server over HTTP (``assess``,
+``verdict``, ``tokens``) or computes in-process with ``service.core`` and ``service.ingest``
+(``assess --offline``, ``demo``); it imports neither the store nor the API. The server side,
+:mod:`service.cli.server`, works on the server's own database (``serve``, ``db upgrade``,
+``tokens`` on the database) and is imported only to run one of those commands.
+
 Kept light to import: the statistics core is imported only by ``--offline`` and ``demo``, the
-web stack only by ``serve``.
+web stack and the database only by the server side.
 """
 
 from __future__ import annotations
@@ -66,7 +72,15 @@ def _hint(exc: Any, args: Any) -> str:
     return text
 
 
+SERVER_COMMANDS = frozenset({"serve", "db"})
+"""Commands that always work on the server's own database."""
+
+
 def _dispatch(args: Any, out: IO[str]) -> Exit:
+    if args.command in SERVER_COMMANDS or (args.command == "tokens" and _tokens_on_database(args)):
+        from .server import run as run_on_server
+
+        return run_on_server(args, out)
     if args.command == "assess":
         from .assess import run
 
@@ -79,16 +93,14 @@ def _dispatch(args: Any, out: IO[str]) -> Exit:
         from .tokens import run
 
         return run(args, out)
-    if args.command == "serve":
-        from .admin import serve
-
-        return serve(args, out)
-    if args.command == "db":
-        from .admin import db_upgrade
-
-        return db_upgrade(args, out)
     if args.command == "demo":
         from ..demo import run_demo
 
         return run_demo(args.directory, out)
     raise CliError(f"unknown command {args.command!r}")  # argparse rejects it first
+
+
+def _tokens_on_database(args: Any) -> bool:
+    from .tokens import on_database
+
+    return on_database(args)

@@ -75,13 +75,8 @@ def send(client: Any, inp: AssessInput, *, store: bool, key: str | None = None) 
 
 
 def report_link(client: Any, result: AssessmentResult) -> str | None:
-    """The result's report link, if the answer has one, else one made by the server when it
-    offers ``POST /v1/assessments/{id}/links``; ``None`` when it does not."""
-    links = result.data.get("links")
-    if hasattr(links, "get") and links.get("report"):
-        return str(links.get("report"))
-    if result.data.get("report_url"):
-        return str(result.data["report_url"])
+    """A shareable link to the result's report, made by the server
+    (``POST /v1/assessments/{id}/links``); ``None`` when it offers none or refuses."""
     try:
         return client.create_link(result.id)
     except ClientError as exc:

@@ -1,8 +1,9 @@
-"""``plumbline tokens create|list|revoke``: through the API, or straight on the database.
+"""``plumbline tokens create|list|revoke`` through the API, and what both ways print.
 
-With ``--database URL`` (or, when no server is given, ``PLUMBLINE_DATABASE_URL`` or the
-embedded default) the command works on the database itself, for a first set-up before any
-admin token exists; otherwise it calls ``/v1/tokens`` on ``--server`` with an admin token.
+The command calls ``/v1/tokens`` on ``--server`` with an admin token. With ``--database URL``
+(or when no server is given) it works on the database itself, for a first set-up before any
+admin token exists: :func:`on_database` tells which, and the server side of the command
+(:mod:`service.cli.server.tokens`) does that work with the same output.
 """
 
 from __future__ import annotations
@@ -14,12 +15,12 @@ from typing import IO, Any
 
 from ..client import TokenCreated, TokenInfo
 from . import render
-from .admin import database_url
 from .connect import SERVER_ENV, client_from_args
 from .errors import CliError, Exit
 
 
-def _use_database(args: argparse.Namespace) -> bool:
+def on_database(args: argparse.Namespace) -> bool:
+    """Whether the command works on the database (``--database``, or no server given)."""
     if args.database:
         if args.server:
             raise CliError("--database and --server exclude each other")
@@ -28,11 +29,13 @@ def _use_database(args: argparse.Namespace) -> bool:
 
 
 def run(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
+    """Through the API on ``--server`` (or ``PLUMBLINE_SERVER``)."""
+    return run_with(ApiTokens(args), args, out)
+
+
+def run_with(backend: Any, args: argparse.Namespace, out: IO[str]) -> Exit:
+    """The action of ``args`` on ``backend`` (tokens through the API or on the database)."""
     action = args.tokens_command
-    if _use_database(args):
-        backend: Any = DatabaseTokens(database_url(args))
-    else:
-        backend = ApiTokens(args)
     with backend:
         if action == "create":
             created = backend.create(scopes=_unique(args.scopes), label=args.label)
@@ -123,85 +126,3 @@ class ApiTokens:
 
     def revoke(self, token_id: str) -> None:
         self._client.revoke_token(token_id)
-
-
-class DatabaseTokens:
-    """Tokens straight on the database, with the store's repository functions."""
-
-    def __init__(self, url: str) -> None:
-        from sqlalchemy.engine import make_url
-        from sqlalchemy.exc import ArgumentError, NoSuchModuleError
-
-        from ..store.engine import make_engine
-
-        self._url = url
-        try:
-            parsed = make_url(url)
-        except (ArgumentError, ValueError) as exc:
-            raise CliError(f"--database: cannot use {url!r}: {exc}") from None
-        path = parsed.database
-        if parsed.get_backend_name() == "sqlite" and path and path != ":memory:":
-            if not os.path.exists(path):
-                # Opening would leave an empty file behind.
-                raise CliError(
-                    f"no database at {path}: run 'plumbline db upgrade' first "
-                    "(or give --database / PLUMBLINE_DATABASE_URL)"
-                )
-        try:
-            self._engine = make_engine(url)
-        except (ArgumentError, NoSuchModuleError, ValueError) as exc:
-            raise CliError(f"--database: cannot use {url!r}: {exc}") from None
-
-    def __enter__(self) -> DatabaseTokens:
-        from sqlalchemy import inspect
-        from sqlalchemy.exc import SQLAlchemyError
-
-        try:
-            has_table = inspect(self._engine).has_table("tokens")
-        except SQLAlchemyError as exc:
-            self._engine.dispose()
-            raise CliError(
-                f"cannot reach the database: {_first_line(exc)}", Exit.UNREACHABLE
-            ) from None
-        if not has_table:
-            self._engine.dispose()
-            raise CliError(
-                "the database has no Plumbline tables yet: run 'plumbline db upgrade' first"
-            )
-        return self
-
-    def __exit__(self, *exc: object) -> None:
-        self._engine.dispose()
-
-    def create(self, *, scopes: list[str], label: str) -> TokenCreated:
-        from ..store import repository
-
-        stored, secret = repository.create_token(self._engine, scopes=scopes, label=label)
-        return TokenCreated(
-            id=stored.id, token=secret, label=stored.label, scopes=tuple(stored.scopes)
-        )
-
-    def list(self) -> list[TokenInfo]:
-        from ..store import repository
-
-        return [
-            TokenInfo(
-                id=t.id,
-                label=t.label,
-                scopes=tuple(t.scopes),
-                created_at=t.created_at.isoformat(),
-                revoked_at=None if t.revoked_at is None else t.revoked_at.isoformat(),
-            )
-            for t in repository.list_tokens(self._engine)
-        ]
-
-    def revoke(self, token_id: str) -> None:
-        from ..store import repository
-
-        if not repository.revoke_token(self._engine, token_id=token_id):
-            raise CliError(f"no live token with id {token_id!r}")
-
-
-def _first_line(exc: Exception) -> str:
-    text = str(getattr(exc, "orig", None) or exc).strip()
-    return text.splitlines()[0] if text else type(exc).__name__

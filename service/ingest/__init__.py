@@ -11,28 +11,26 @@ checked (non-finite values, lengths, interval bounds, timestamp order) with arra
 
 Modules:
 
-- :mod:`~service.ingest.request`: limits, the error types, :class:`AssessmentRequest`, the error
-  collector;
+- :mod:`~service.ingest.shape`: the request's fields (names, kinds, bounds, descriptions),
+  defined once for the parser, the OpenAPI document and the report;
+- :mod:`~service.ingest.request`: limits, the error types, the error collector, the envelope
+  and series columns both parsers read into, :class:`AssessmentRequest`;
 - :mod:`~service.ingest.fields`: readers for scalar fields (names, integers, policy, labels);
 - :mod:`~service.ingest.arrays`: the vectorised number and timestamp array checks;
-- :mod:`~service.ingest.json_body`: :func:`load_json`, :func:`parse_json_request`,
-  :func:`core_error_loc`;
-- :mod:`~service.ingest.csv_body`: :func:`parse_csv_request`.
+- :mod:`~service.ingest.json_body`: :func:`load_json`, :func:`parse_json_request`;
+- :mod:`~service.ingest.csv_body`: :func:`parse_csv_request`, with
+  :mod:`~service.ingest.csv_rows` reading its rows;
+- :mod:`~service.ingest.assemble`: the shared last steps (interval bounds, the core's batch)
+  and :func:`core_error_loc`.
 
 Everything other code uses is importable from ``service.ingest`` itself.
 """
 
 from __future__ import annotations
 
+from .assemble import core_error_loc
 from .csv_body import CSV_OPTIONAL, CSV_PARAMS, CSV_REQUIRED, parse_csv_request
-from .json_body import (
-    HOLDOUT_FIELDS,
-    SERIES_FIELDS,
-    TOP_LEVEL_FIELDS,
-    core_error_loc,
-    load_json,
-    parse_json_request,
-)
+from .json_body import load_json, parse_json_request
 from .request import (
     MAX_ABS_VALUE,
     MAX_ERRORS,
@@ -42,6 +40,7 @@ from .request import (
     RequestInvalid,
     RequestUnparseable,
 )
+from .shape import HOLDOUT_FIELDS, SERIES_FIELDS, TOP_LEVEL_FIELDS
 
 __all__ = [
     "CSV_OPTIONAL",

@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-from .request import MAX_ABS_VALUE, MAX_ERRORS, Errors, NonFinite, describe
+from .request import MAX_ABS_VALUE, MAX_ERRORS, Errors, FlatRows, NonFinite, describe
 
 _NUMBER_TYPES = frozenset({float, int, type(None)})
 
@@ -31,57 +31,79 @@ def _locate_bad(row: Sequence[Any]) -> tuple[int, Any] | None:
 
 def flat_numbers(
     rows: Sequence[Sequence[Any]], locs: Sequence[str], errs: Errors
-) -> tuple[np.ndarray, np.ndarray] | None:
-    """Join ``rows`` into one float array (``None`` -> NaN); return it and the row lengths.
+) -> FlatRows | None:
+    """Join ``rows`` into one float array (``None`` -> NaN) with the row lengths.
 
-    Reports a non-number (string, boolean, object, NaN literal, overflow) with its location.
+    Reports a non-number (string, boolean, object, NaN literal, overflow) or a magnitude beyond
+    :data:`MAX_ABS_VALUE` with its location, and then returns ``None``.
     """
     lengths = np.fromiter(map(len, rows), dtype=np.int64, count=len(rows))
-    types = set(map(type, chain.from_iterable(rows)))
-    ok = types <= _NUMBER_TYPES
-    arr = None
-    if ok:
-        try:
-            if type(None) in types:  # None becomes NaN on the way through a list
-                arr = np.array(list(chain.from_iterable(rows)), dtype=float)
-            else:
-                arr = np.fromiter(chain.from_iterable(rows), dtype=float, count=int(lengths.sum()))
-        except OverflowError:
-            ok = False
-    if not ok:
-        for row, loc in zip(rows, locs, strict=True):
-            bad = _locate_bad(row)
-            if bad is not None:
-                j, v = bad
-                if isinstance(v, NonFinite):
-                    errs.add(loc, f"value at index {j}: {v.describe()}")
-                else:
-                    errs.add(loc, f"value at index {j} must be a number or null, got {describe(v)}")
-                if errs.full:
-                    break
+    arr = _as_floats(rows, lengths)
+    if arr is None:
+        _report_non_numbers(rows, locs, errs)
         return None
-    assert arr is not None
     if arr.size and not np.isfinite(arr[~np.isnan(arr)]).all():
-        ends = np.cumsum(lengths)
-        for pos in np.flatnonzero(np.isinf(arr))[:MAX_ERRORS]:
-            i = int(np.searchsorted(ends, pos, side="right"))
-            j = int(pos - (ends[i] - lengths[i]))
+        for i, j in _positions(np.isinf(arr), lengths):
             errs.add(locs[i], f"value at index {j} overflows a 64-bit float")
         return None
-    with np.errstate(invalid="ignore"):
-        huge = np.abs(arr) > MAX_ABS_VALUE
-    if huge.any():
-        ends = np.cumsum(lengths)
-        for pos in np.flatnonzero(huge)[:MAX_ERRORS]:
-            i = int(np.searchsorted(ends, pos, side="right"))
-            j = int(pos - (ends[i] - lengths[i]))
-            errs.add(
-                locs[i],
-                f"value at index {j} ({arr[pos]:g}) is beyond the accepted "
-                f"magnitude of {MAX_ABS_VALUE:g}; rescale the series",
-            )
+    flat = FlatRows(arr, lengths)
+    return flat if check_magnitude(flat, locs, errs) else None
+
+
+def _as_floats(rows: Sequence[Sequence[Any]], lengths: np.ndarray) -> np.ndarray | None:
+    """The rows as one float array, or ``None`` when a value is not a number or null."""
+    types = set(map(type, chain.from_iterable(rows)))
+    if not types <= _NUMBER_TYPES:
         return None
-    return arr, lengths
+    try:
+        if type(None) in types:  # None becomes NaN on the way through a list
+            return np.array(list(chain.from_iterable(rows)), dtype=float)
+        return np.fromiter(chain.from_iterable(rows), dtype=float, count=int(lengths.sum()))
+    except OverflowError:
+        return None
+
+
+def _report_non_numbers(rows: Sequence[Sequence[Any]], locs: Sequence[str], errs: Errors) -> None:
+    """Name the first value of each row that is not a number or null."""
+    for row, loc in zip(rows, locs, strict=True):
+        bad = _locate_bad(row)
+        if bad is not None:
+            j, v = bad
+            if isinstance(v, NonFinite):
+                errs.add(loc, f"value at index {j}: {v.describe()}")
+            else:
+                errs.add(loc, f"value at index {j} must be a number or null, got {describe(v)}")
+            if errs.full:
+                break
+
+
+def check_magnitude(flat: FlatRows, locs: Sequence[str], errs: Errors) -> bool:
+    """Report the values beyond :data:`MAX_ABS_VALUE` (at most :data:`MAX_ERRORS`); ``True``
+    when there is none."""
+    with np.errstate(invalid="ignore"):
+        huge = np.abs(flat.values) > MAX_ABS_VALUE
+    if not huge.any():
+        return True
+    arr = flat.values
+    for (i, j), pos in zip(
+        _positions(huge, flat.lengths), np.flatnonzero(huge)[:MAX_ERRORS], strict=True
+    ):
+        errs.add(
+            locs[i],
+            f"value at index {j} ({arr[pos]:g}) is beyond the accepted "
+            f"magnitude of {MAX_ABS_VALUE:g}; rescale the series",
+        )
+    return False
+
+
+def _positions(mask: np.ndarray, lengths: np.ndarray) -> list[tuple[int, int]]:
+    """(row, index in the row) of the first :data:`MAX_ERRORS` true values of ``mask``."""
+    ends = np.cumsum(lengths)
+    out = []
+    for pos in np.flatnonzero(mask)[:MAX_ERRORS]:
+        i = int(np.searchsorted(ends, pos, side="right"))
+        out.append((i, int(pos - (ends[i] - lengths[i]))))
+    return out
 
 
 def padded_matrix(flat: np.ndarray, lengths: np.ndarray, width: int | None = None) -> np.ndarray:
@@ -101,34 +123,56 @@ def check_timestamps(
         return
     flat = list(chain.from_iterable(r for _, r in present))
     if set(map(type, flat)) - {str}:
-        for i, r in present:
-            for j, v in enumerate(r):
-                if not isinstance(v, str):
-                    errs.add(
-                        locs[i], f"value at index {j} must be an ISO 8601 string, got {describe(v)}"
-                    )
-                    break
+        _report_non_strings(present, locs, errs)
         return
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             stamps = np.array(flat, dtype="datetime64[us]").astype(np.int64)
     except (ValueError, OverflowError):
-        for i, r in present:
-            for j, v in enumerate(r):
-                try:
-                    datetime.fromisoformat(v)
-                except ValueError:
-                    errs.add(
-                        locs[i],
-                        f"value at index {j} ({v[:40]!r}) is not an ISO 8601 date or date-time",
-                    )
-                    break
-            if errs.full:
-                break
-        if not errs.items:  # numpy refused what Python accepts: say so plainly.
-            errs.add(locs[present[0][0]], "timestamps must be ISO 8601 dates or date-times")
+        _report_unparseable(present, locs, errs)
         return
+    _check_increasing(stamps, present, locs, errs)
+
+
+def _report_non_strings(
+    present: list[tuple[int, Sequence[Any]]], locs: Sequence[str], errs: Errors
+) -> None:
+    for i, r in present:
+        for j, v in enumerate(r):
+            if not isinstance(v, str):
+                errs.add(
+                    locs[i], f"value at index {j} must be an ISO 8601 string, got {describe(v)}"
+                )
+                break
+
+
+def _report_unparseable(
+    present: list[tuple[int, Sequence[Any]]], locs: Sequence[str], errs: Errors
+) -> None:
+    for i, r in present:
+        for j, v in enumerate(r):
+            try:
+                datetime.fromisoformat(v)
+            except ValueError:
+                errs.add(
+                    locs[i],
+                    f"value at index {j} ({v[:40]!r}) is not an ISO 8601 date or date-time",
+                )
+                break
+        if errs.full:
+            break
+    if not errs.items:  # numpy refused what Python accepts: say so plainly.
+        errs.add(locs[present[0][0]], "timestamps must be ISO 8601 dates or date-times")
+
+
+def _check_increasing(
+    stamps: np.ndarray,
+    present: list[tuple[int, Sequence[Any]]],
+    locs: Sequence[str],
+    errs: Errors,
+) -> None:
+    """Report the first step of each row that does not move forward in time."""
     lengths = np.array([len(r) for _, r in present], dtype=np.int64)
     if stamps.size < 2:
         return
@@ -138,20 +182,20 @@ def check_timestamps(
     inner = starts[1:] - 1
     boundary[inner[(inner >= 0) & (inner < boundary.size)]] = True
     bad = ~step_ok & ~boundary
-    if bad.any():
-        ends = np.cumsum(lengths)
-        reported: set[int] = set()
-        for pos in np.flatnonzero(bad):
-            k = int(np.searchsorted(ends, pos + 1, side="right"))
-            if k in reported:
-                continue
-            reported.add(k)
-            j = int(pos + 1 - starts[k])
-            i = present[k][0]
-            errs.add(
-                locs[i],
-                f"must be strictly increasing: index {j} "
-                f"({present[k][1][j][:40]!r}) is not after index {j - 1}",
-            )
-            if errs.full:
-                break
+    if not bad.any():
+        return
+    ends = np.cumsum(lengths)
+    reported: set[int] = set()
+    for pos in np.flatnonzero(bad):
+        k = int(np.searchsorted(ends, pos + 1, side="right"))
+        if k in reported:
+            continue
+        reported.add(k)
+        j = int(pos + 1 - starts[k])
+        errs.add(
+            locs[present[k][0]],
+            f"must be strictly increasing: index {j} "
+            f"({present[k][1][j][:40]!r}) is not after index {j - 1}",
+        )
+        if errs.full:
+            break

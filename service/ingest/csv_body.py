@@ -1,49 +1,44 @@
 """The CSV long-format upload: one row per series and period, parsed into a request.
 
-The standard ``csv`` reader hands over text a cell at a time, so the rows are checked and
-grouped by series as they are read (errors name ``line[N].column``); the grouped series then go
-through the JSON body's validation, so lengths, order, bounds and limits follow the same rules.
+:func:`parse_csv_request` goes in steps: the query parameters (:func:`check_params`,
+:func:`read_level`, :func:`read_csv_envelope`), the header (:func:`read_header`), the rows
+grouped by series (:func:`~service.ingest.csv_rows.read_rows`, errors naming
+``line[N].column``), the series as wholes (:func:`check_series`), then the numbers of every
+series at once (:func:`csv_columns`) and the last steps shared with the JSON body
+(:func:`~service.ingest.assemble.build_request`), so bounds, order and the core's rules are
+the same.
 """
 
 from __future__ import annotations
 
 import csv
 import io
-import math
-from collections.abc import Mapping
-from typing import Any
+from collections.abc import Iterator, Mapping
 
+import numpy as np
+
+from .arrays import check_magnitude, check_timestamps
+from .assemble import build_request
+from .csv_rows import Columns, ReadSeries, read_rows
 from .fields import read_int, read_name, read_policy
-from .json_body import parse_json_request
-from .request import MAX_NAME_LENGTH, AssessmentRequest, Errors, RequestUnparseable
+from .request import (
+    AssessmentRequest,
+    Envelope,
+    Errors,
+    FlatRows,
+    HoldoutColumns,
+    RequestUnparseable,
+    SeriesColumns,
+)
+from .shape import ENVELOPE, HOLDOUT, spec
 
 CSV_REQUIRED = ("series_id", "actual", "fitted")
 CSV_OPTIONAL = ("timestamp", "part", "lower", "upper")
 CSV_PARAMS = frozenset({"model", "version", "policy", "season_length", "model_params", "level"})
 
-
-def _csv_float(text: str) -> float:
-    """A CSV cell as a number: empty is missing (NaN); NaN/inf text is refused."""
-    if not text:
-        return math.nan
-    value = float(text)
-    if not math.isfinite(value):
-        raise ValueError("not finite")
-    return value
-
-
-def _param_int(
-    params: Mapping[str, str], key: str, errs: Errors, default: int, minimum: int
-) -> int:
-    raw = params.get(key)
-    if raw is None or raw == "":
-        return default
-    try:
-        value = int(raw)
-    except ValueError:
-        errs.add(key, f"must be an integer, got {raw[:40]!r}")
-        return default
-    return read_int(value, key, errs, default=default, minimum=minimum)
+_SEASON_LENGTH = spec(ENVELOPE, "season_length")
+_MODEL_PARAMS = spec(ENVELOPE, "model_params")
+_LEVEL = spec(HOLDOUT, "level")
 
 
 def parse_csv_request(
@@ -64,19 +59,43 @@ def parse_csv_request(
     """
     params = dict(params or {})
     errs = Errors()
+    check_params(params, errs)
+    reader = csv.reader(io.StringIO(_decode(text)), strict=True)
+    cols = read_header(reader, errs)
+    level = read_level(params, errs)
+    series = read_rows(reader, cols, errs)
+    envelope = read_csv_envelope(params, errs)
+    if not series.ids and not errs.items:
+        errs.add("body", "no data rows after the header")
+    if max_series is not None and len(series.ids) > max_series:
+        errs.add("series", f"holds {len(series.ids)} series; the limit is {max_series}")
+    errs.check()
+    check_series(series, errs, max_series_length)
+    errs.check()
+    return build_request(envelope, csv_columns(series, level, errs))
+
+
+def check_params(params: Mapping[str, str], errs: Errors) -> None:
+    """Report query parameters the CSV upload does not read (``store`` belongs to the API)."""
     for key in params:
         if key not in CSV_PARAMS and key not in ("store",):
             errs.add(key, f"unknown query parameter; expected one of {sorted(CSV_PARAMS)}")
+
+
+def _decode(text: str | bytes) -> str:
     if isinstance(text, (bytes, bytearray)):
         try:
-            text = text.decode("utf-8-sig")
+            return text.decode("utf-8-sig")
         except UnicodeDecodeError as exc:
             raise RequestUnparseable(
                 [{"loc": "body", "message": f"not UTF-8 text: {exc.reason} at byte {exc.start}"}]
             ) from None
-    elif text.startswith("\ufeff"):
-        text = text[1:]
-    reader = csv.reader(io.StringIO(text), strict=True)
+    return text[1:] if text.startswith("\ufeff") else text
+
+
+def read_header(reader: Iterator[list[str]], errs: Errors) -> Columns:
+    """The header row; raises with every problem found so far when a column is missing,
+    unknown or repeated."""
     try:
         header = next(reader)
     except StopIteration:
@@ -100,163 +119,135 @@ def parse_csv_request(
     if len(col) != len(header):
         errs.add("header", "a column name appears twice")
     errs.check()
+    return Columns(
+        width=len(header),
+        series_id=col["series_id"],
+        actual=col["actual"],
+        fitted=col["fitted"],
+        timestamp=col.get("timestamp"),
+        part=col.get("part"),
+        lower=col.get("lower"),
+        upper=col.get("upper"),
+    )
 
-    level_raw = params.get("level")
-    level: float | None = None
-    if level_raw not in (None, ""):
-        try:
-            level = float(level_raw)  # type: ignore[arg-type]
-        except ValueError:
-            errs.add("level", f"must be a number, got {level_raw[:40]!r}")  # type: ignore[index]
-        else:
-            if not 0.0 < level < 1.0:
-                errs.add("level", f"must lie strictly between 0 and 1, got {level_raw}")
-                level = None
 
-    width = len(header)
-    k_id, k_a, k_f = col["series_id"], col["actual"], col["fitted"]
-    k_ts, k_part = col.get("timestamp"), col.get("part")
-    k_lo, k_up = col.get("lower"), col.get("upper")
-    groups: dict[str, dict[str, list[Any]]] = {}
-    line = 1
+def read_level(params: Mapping[str, str], errs: Errors) -> float | None:
+    """The ``level`` parameter: the nominal level of every series' interval."""
+    raw = params.get("level")
+    if raw is None or raw == "":
+        return None
     try:
-        for row in reader:
-            line += 1
-            if not row or (len(row) == 1 and not row[0].strip()):
-                continue
-            if len(row) != width:
-                errs.add(f"line[{line}]", f"has {len(row)} cells, the header has {width}")
-                if errs.full:
-                    break
-                continue
-            sid = row[k_id].strip()
-            if not sid:
-                errs.add(f"line[{line}].series_id", "must not be empty")
-                continue
-            part = row[k_part].strip() if k_part is not None else ""
-            if part not in ("", "train", "holdout"):
-                errs.add(f"line[{line}].part", f"must be train or holdout, got {part[:40]!r}")
-                continue
-            g = groups.get(sid)
-            if g is None:
-                if len(sid) > MAX_NAME_LENGTH or "\x00" in sid:
-                    errs.add(
-                        f"line[{line}].series_id",
-                        f"must be at most {MAX_NAME_LENGTH} characters, without NUL",
-                    )
-                    continue
-                g = groups[sid] = {
-                    "a": [],
-                    "f": [],
-                    "ts": [],
-                    "ha": [],
-                    "hf": [],
-                    "lo": [],
-                    "up": [],
-                    "hts": [],
-                    "line": [line],
-                }
-            values = []
-            for key, k in (("actual", k_a), ("fitted", k_f), ("lower", k_lo), ("upper", k_up)):
-                cell = row[k].strip() if k is not None else ""
-                try:
-                    values.append(_csv_float(cell))
-                except ValueError:
-                    errs.add(
-                        f"line[{line}].{key}",
-                        f"must be a finite number or empty, got {cell[:40]!r}",
-                    )
-                    values.append(math.nan)
-            ts = row[k_ts].strip() if k_ts is not None else ""
-            if part == "holdout":
-                g["ha"].append(values[0])
-                g["hf"].append(values[1])
-                g["lo"].append(values[2])
-                g["up"].append(values[3])
-                g["hts"].append(ts)
-            else:
-                if (k_lo is not None and row[k_lo].strip()) or (
-                    k_up is not None and row[k_up].strip()
-                ):
-                    errs.add(f"line[{line}].lower", "lower and upper belong on holdout rows only")
-                g["a"].append(values[0])
-                g["f"].append(values[1])
-                g["ts"].append(ts)
-            if errs.full:
-                break
-    except csv.Error as exc:
-        raise RequestUnparseable(
-            [{"loc": f"line[{line + 1}]", "message": f"malformed CSV: {exc}"}]
-        ) from None
-    model = read_name(params, "model", errs, required=True)
-    version = read_name(params, "version", errs, required=True)
-    policy = read_policy(params.get("policy") or None, errs)
-    season_length = _param_int(params, "season_length", errs, 1, 1)
-    model_params = _param_int(params, "model_params", errs, 0, 0)
-    if not groups and not errs.items:
-        errs.add("body", "no data rows after the header")
-    if max_series is not None and len(groups) > max_series:
-        errs.add("series", f"holds {len(groups)} series; the limit is {max_series}")
-    errs.check()
+        level = float(raw)
+    except ValueError:
+        errs.add("level", f"must be a number, got {raw[:40]!r}")
+        return None
+    low, high = _LEVEL.above, _LEVEL.below
+    if not low < level < high:  # type: ignore[operator]
+        errs.add("level", f"must lie strictly between {low:g} and {high:g}, got {raw}")
+        return None
+    return level
 
-    ids = list(groups)
-    series: list[dict[str, Any]] = []
-    for i, sid in enumerate(ids):
-        g = groups[sid]
-        if not g["a"]:
+
+def read_csv_envelope(params: Mapping[str, str], errs: Errors) -> Envelope:
+    """The request's own fields, from the query parameters (a CSV upload has no labels)."""
+    return Envelope(
+        model=read_name(params, "model", errs, required=True),
+        version=read_name(params, "version", errs, required=True),
+        policy=read_policy(params.get("policy") or None, errs),
+        season_length=_param_int(params, "season_length", errs, _SEASON_LENGTH.default, 1),
+        model_params=_param_int(params, "model_params", errs, _MODEL_PARAMS.default, 0),
+        labels={},
+    )
+
+
+def _param_int(
+    params: Mapping[str, str], key: str, errs: Errors, default: int, minimum: int
+) -> int:
+    raw = params.get(key)
+    if raw is None or raw == "":
+        return default
+    try:
+        value = int(raw)
+    except ValueError:
+        errs.add(key, f"must be an integer, got {raw[:40]!r}")
+        return default
+    return read_int(value, key, errs, default=default, minimum=minimum)
+
+
+def check_series(rs: ReadSeries, errs: Errors, max_length: int | None) -> None:
+    """What a series needs as a whole: train rows, the length limit, a timestamp on every
+    train row (when the column is there), bounds on the same holdout rows."""
+    too_long = np.zeros(len(rs.ids), dtype=bool)
+    if max_length is not None:
+        too_long = np.maximum(rs.t_lengths, rs.h_lengths) > max_length
+    for i, sid in enumerate(rs.ids):
+        if not rs.t_lengths[i]:
             errs.add(f"series[{i}].actuals", f"series {sid!r} has holdout rows but no train rows")
             continue
-        if max_series_length is not None and max(len(g["a"]), len(g["ha"])) > max_series_length:
-            errs.add(
-                f"series[{i}].actuals", f"series {sid!r} has more than {max_series_length} rows"
-            )
+        if too_long[i]:
+            errs.add(f"series[{i}].actuals", f"series {sid!r} has more than {max_length} rows")
             continue
-        s: dict[str, Any] = {"id": sid, "actuals": g["a"], "fitted": g["f"]}
-        if k_ts is not None:
-            if any(not t for t in g["ts"]):
-                errs.add(
-                    f"series[{i}].timestamps",
-                    f"series {sid!r}: every row needs a timestamp when the column is present",
-                )
-            else:
-                s["timestamps"] = g["ts"]
-        if g["ha"]:
-            h: dict[str, Any] = {"actuals": g["ha"], "forecasts": g["hf"]}
-            lo_given = [not math.isnan(v) for v in g["lo"]]
-            up_given = [not math.isnan(v) for v in g["up"]]
-            if any(lo_given) or any(up_given):
-                h["lower"], h["upper"] = g["lo"], g["up"]
-                if lo_given != up_given:
-                    errs.add(
-                        f"series[{i}].holdout.lower",
-                        f"series {sid!r}: lower and upper must be given on the same holdout rows",
-                    )
-                if level is not None:
-                    h["level"] = level
-            if k_ts is not None and all(g["hts"]):
-                h["timestamps"] = g["hts"]
-            s["holdout"] = h
-        series.append(s)
+        if rs.t_stamps is not None and not all(rs.t_stamps[i]):
+            errs.add(
+                f"series[{i}].timestamps",
+                f"series {sid!r}: every row needs a timestamp when the column is present",
+            )
+        if rs.interval[i] and rs.uneven_bounds[i]:
+            errs.add(
+                f"series[{i}].holdout.lower",
+                f"series {sid!r}: lower and upper must be given on the same holdout rows",
+            )
+
+
+def csv_columns(rs: ReadSeries, level: float | None, errs: Errors) -> SeriesColumns:
+    """Every series' numbers as flat arrays, checked at once; raises with every problem."""
+    n = len(rs.ids)
+    actuals = FlatRows(rs.actual, rs.t_lengths)
+    fitted = FlatRows(rs.fitted, rs.t_lengths)
+    check_magnitude(actuals, _locs(n, "actuals"), errs)
+    check_magnitude(fitted, _locs(n, "fitted"), errs)
+    stamps: list[list[str] | None] = [None] * n if rs.t_stamps is None else list(rs.t_stamps)
+    check_timestamps(stamps, _locs(n, "timestamps"), errs)
+    holdout = _holdout_columns(rs, level, errs) if rs.h_lengths.any() else None
     errs.check()
-    # The rest of the checks (lengths, order, bounds, limits) are the JSON body's.
-    doc = {
-        "model": model,
-        "version": version,
-        "policy": policy,
-        "season_length": season_length,
-        "model_params": model_params,
-        "series": series,
-    }
-    return _with_nan_as_null(doc, max_series=max_series, max_series_length=max_series_length)
+    return SeriesColumns(
+        ids=rs.ids,
+        actuals=actuals,
+        fitted=fitted,
+        timestamps=stamps,
+        weights=[None] * n,
+        holdout=holdout,
+    )
 
 
-def _with_nan_as_null(doc: dict[str, Any], **limits: Any) -> AssessmentRequest:
-    for s in doc["series"]:
-        for key in ("actuals", "fitted"):
-            s[key] = [None if v != v else v for v in s[key]]
-        h = s.get("holdout")
-        if h:
-            for key in ("actuals", "forecasts", "lower", "upper"):
-                if key in h:
-                    h[key] = [None if v != v else v for v in h[key]]
-    return parse_json_request(doc, **limits)
+def _holdout_columns(rs: ReadSeries, level: float | None, errs: Errors) -> HoldoutColumns:
+    n = len(rs.ids)
+    actuals = FlatRows(rs.h_actual, rs.h_lengths)
+    forecasts = FlatRows(rs.h_forecast, rs.h_lengths)
+    check_magnitude(actuals, _locs(n, "holdout.actuals"), errs)
+    check_magnitude(forecasts, _locs(n, "holdout.forecasts"), errs)
+    interval = rs.interval
+    lower = upper = None
+    if interval.any():
+        rows = interval[rs.h_series]
+        lengths = np.where(interval, rs.h_lengths, 0)
+        lower = FlatRows(rs.lower[rows], lengths)
+        upper = FlatRows(rs.upper[rows], lengths)
+        check_magnitude(lower, _locs(n, "holdout.lower"), errs)
+        check_magnitude(upper, _locs(n, "holdout.upper"), errs)
+    stamps: list[list[str] | None] = [None] * n
+    if rs.h_stamps is not None:
+        stamps = [s if s and all(s) else None for s in rs.h_stamps]
+    check_timestamps(stamps, _locs(n, "holdout.timestamps"), errs)
+    return HoldoutColumns(
+        actuals=actuals,
+        forecasts=forecasts,
+        lower=lower,
+        upper=upper,
+        levels=[level if has else None for has in interval.tolist()],
+        timestamps=stamps,
+    )
+
+
+def _locs(n: int, key: str) -> list[str]:
+    return [f"series[{i}].{key}" for i in range(n)]

@@ -1,9 +1,12 @@
 """The JSON body of ``POST /v1/assessments``: decoding and validation into a request.
 
 :func:`load_json` decodes (``NaN``/``Infinity`` literals and overflowing numbers become
-:class:`~service.ingest.request.NonFinite` markers, reported with their field);
-:func:`parse_json_request` checks every field and builds the core's batch;
-:func:`core_error_loc` maps an error of the core back to the request field it concerns.
+:class:`~service.ingest.request.NonFinite` markers, reported with their field).
+:func:`parse_json_request` reads the body in steps: the envelope (:func:`read_envelope`), the
+series list (:func:`read_series_list`), each series (:func:`read_series`, its holdout with
+:func:`read_holdout`), all of it gathered as sent; then the numbers and timestamps of every
+series at once (:func:`json_columns`), and the shared last steps
+(:func:`~service.ingest.assemble.build_request`).
 """
 
 from __future__ import annotations
@@ -16,39 +19,29 @@ from typing import Any
 import numpy as np
 import orjson
 
-from service.core import InputError, SeriesBatch, make_batch
-
-from .arrays import check_timestamps, flat_numbers, padded_matrix
+from .arrays import check_timestamps, flat_numbers
+from .assemble import build_request
 from .fields import read_int, read_labels, read_name, read_policy
 from .request import (
     MAX_ABS_VALUE,
     MAX_NAME_LENGTH,
     AssessmentRequest,
+    Envelope,
     Errors,
+    HoldoutColumns,
     NonFinite,
     RequestInvalid,
     RequestUnparseable,
+    SeriesColumns,
     describe,
 )
+from .shape import ENVELOPE, HOLDOUT, HOLDOUT_FIELDS, SERIES_FIELDS, TOP_LEVEL_FIELDS, spec
 
-TOP_LEVEL_FIELDS = frozenset(
-    {"model", "version", "policy", "season_length", "model_params", "labels", "series"}
-)
-SERIES_FIELDS = frozenset({"id", "actuals", "fitted", "timestamps", "weight", "holdout"})
-HOLDOUT_FIELDS = frozenset({"actuals", "forecasts", "lower", "upper", "level", "timestamps"})
-
-# Where each make_batch argument lives in the request body.
-_CORE_LOCS = {
-    "actuals": "actuals",
-    "fitted": "fitted",
-    "ids": "id",
-    "weights": "weight",
-    "holdout_actuals": "holdout.actuals",
-    "holdout_forecasts": "holdout.forecasts",
-    "holdout_lower": "holdout.lower",
-    "holdout_upper": "holdout.upper",
-    "level": "holdout.level",
-}
+_SEASON_LENGTH = spec(ENVELOPE, "season_length")
+_MODEL_PARAMS = spec(ENVELOPE, "model_params")
+_LEVEL = spec(HOLDOUT, "level")
+_HOLDOUT_ARRAYS = tuple(f.name for f in HOLDOUT if f.kind == "numbers")
+_EMPTY: list[Any] = []
 
 
 def _strict_float(text: str) -> float | NonFinite:
@@ -152,16 +145,46 @@ def parse_json_request(
             [{"loc": "body", "message": f"must be a JSON object, got {describe(doc)}"}]
         )
     errs = Errors()
-    for key in doc:
-        if key not in TOP_LEVEL_FIELDS:
-            errs.add(str(key), f"unknown field; expected one of {sorted(TOP_LEVEL_FIELDS)}")
-    model = read_name(doc, "model", errs, required=True)
-    version = read_name(doc, "version", errs, required=True)
-    policy = read_policy(doc.get("policy"), errs)
-    season_length = read_int(doc.get("season_length"), "season_length", errs, default=1, minimum=1)
-    model_params = read_int(doc.get("model_params"), "model_params", errs, default=0, minimum=0)
-    labels = read_labels(doc.get("labels"), errs)
-    series = doc.get("series")
+    envelope = read_envelope(doc, errs)
+    series = read_series_list(doc.get("series"), errs, max_series)
+    rows = SeriesRows(len(series))
+    seen: dict[str, int] = {}
+    for i, s in enumerate(series):
+        read_series(i, s, errs, seen, max_series_length, rows)
+        if errs.full:
+            break
+    errs.check()
+    return build_request(envelope, json_columns(rows, errs))
+
+
+def read_envelope(doc: Mapping[str, Any], errs: Errors) -> Envelope:
+    """The request's own fields (everything but ``series``), unknown fields reported."""
+    _unknown_fields("", doc, TOP_LEVEL_FIELDS, errs)
+    return Envelope(
+        model=read_name(doc, "model", errs, required=True),
+        version=read_name(doc, "version", errs, required=True),
+        policy=read_policy(doc.get("policy"), errs),
+        season_length=read_int(
+            doc.get("season_length"),
+            "season_length",
+            errs,
+            default=_SEASON_LENGTH.default,
+            minimum=int(_SEASON_LENGTH.minimum or 0),
+        ),
+        model_params=read_int(
+            doc.get("model_params"),
+            "model_params",
+            errs,
+            default=_MODEL_PARAMS.default,
+            minimum=int(_MODEL_PARAMS.minimum or 0),
+        ),
+        labels=read_labels(doc.get("labels"), errs),
+    )
+
+
+def read_series_list(series: Any, errs: Errors, max_series: int | None) -> list[Any]:
+    """``series`` when it is a non-empty array within the limit; else raises with every
+    problem found so far."""
     if series is None:
         errs.add("series", "is required")
         errs.check()
@@ -174,252 +197,250 @@ def parse_json_request(
     if max_series is not None and len(series) > max_series:
         errs.add("series", f"holds {len(series)} series; the limit is {max_series}")
         errs.check()
+    return series
 
-    n = len(series)
-    ids: list[str] = []
-    actual_rows: list[Any] = []
-    fitted_rows: list[Any] = []
-    ts_rows: list[Any] = []
-    weights: list[float | None] = []
-    h_rows: dict[str, list[Any]] = {k: [] for k in ("actuals", "forecasts", "lower", "upper")}
-    h_ts: list[Any] = []
-    levels: list[float | None] = []
-    has_holdout = np.zeros(n, dtype=bool)
-    has_interval = np.zeros(n, dtype=bool)
-    seen: dict[str, int] = {}
-    empty: list[Any] = []
-    for i, s in enumerate(series):
-        at = f"series[{i}]"
-        if not isinstance(s, dict):
-            errs.add(at, f"must be an object, got {describe(s)}")
-            s = {}
-        elif not SERIES_FIELDS.issuperset(s):
-            for key in s:
-                if key not in SERIES_FIELDS:
-                    errs.add(
-                        f"{at}.{key}", f"unknown field; expected one of {sorted(SERIES_FIELDS)}"
-                    )
-        sid = s.get("id")
-        if not isinstance(sid, str) or not sid:
-            errs.add(f"{at}.id", f"must be a non-empty string, got {describe(sid)}")
-            sid = f"#{i}"
-        elif len(sid) > MAX_NAME_LENGTH:
-            errs.add(f"{at}.id", f"must be at most {MAX_NAME_LENGTH} characters")
-        elif "\x00" in sid:
-            errs.add(f"{at}.id", "must not contain NUL characters")
-        elif sid in seen:
-            errs.add(f"{at}.id", f"duplicate series id {sid!r} (first at series[{seen[sid]}])")
-        seen.setdefault(sid, i)
-        ids.append(sid)
-        a, f = s.get("actuals"), s.get("fitted")
-        for key, v in (("actuals", a), ("fitted", f)):
-            if not isinstance(v, list):
-                errs.add(
-                    f"{at}.{key}",
-                    "is required"
-                    if v is None
-                    else f"must be an array of numbers, got {describe(v)}",
-                )
-        a = a if isinstance(a, list) else empty
-        f = f if isinstance(f, list) else empty
-        if isinstance(s.get("actuals"), list) and not a:
-            errs.add(f"{at}.actuals", "must hold at least one value")
-        if len(f) != len(a) and isinstance(s.get("fitted"), list):
+
+def _unknown_fields(at: str, doc: Mapping[Any, Any], known: frozenset[str], errs: Errors) -> None:
+    expected = sorted(known)
+    for key in doc:
+        if key not in known:
             errs.add(
-                f"{at}.fitted",
-                f"has {len(f)} values, actuals has {len(a)}: give one fitted"
-                " value (or null) per actual",
+                f"{at}.{key}" if at else str(key), f"unknown field; expected one of {expected}"
             )
-        if max_series_length is not None and len(a) > max_series_length:
-            errs.add(f"{at}.actuals", f"has {len(a)} values; the limit is {max_series_length}")
-        actual_rows.append(a)
-        fitted_rows.append(f)
-        ts = s.get("timestamps")
-        if ts is not None and not isinstance(ts, list):
-            errs.add(f"{at}.timestamps", f"must be an array of strings, got {describe(ts)}")
-            ts = None
-        if ts is not None and len(ts) != len(a):
-            errs.add(f"{at}.timestamps", f"has {len(ts)} values, actuals has {len(a)}")
-            ts = None
-        ts_rows.append(ts)
-        w = s.get("weight")
-        if w is not None and (isinstance(w, bool) or not isinstance(w, (int, float))):
-            errs.add(f"{at}.weight", f"must be a number, got {describe(w)}")
-            w = None
-        elif w is not None and (not math.isfinite(float(w)) or not 0 <= w <= MAX_ABS_VALUE):
-            errs.add(f"{at}.weight", f"must be a non-negative number up to {MAX_ABS_VALUE:g}")
-            w = None
-        weights.append(None if w is None else float(w))
-        h = s.get("holdout")
-        hrow: dict[str, Any] = {}
-        hts = None
-        level = None
-        if h is not None:
-            if not isinstance(h, dict):
-                errs.add(f"{at}.holdout", f"must be an object, got {describe(h)}")
-            else:
-                for key in h:
-                    if key not in HOLDOUT_FIELDS:
-                        errs.add(
-                            f"{at}.holdout.{key}",
-                            f"unknown field; expected one of {sorted(HOLDOUT_FIELDS)}",
-                        )
-                for key in ("actuals", "forecasts", "lower", "upper"):
-                    v = h.get(key)
-                    if v is not None and not isinstance(v, list):
-                        errs.add(
-                            f"{at}.holdout.{key}", f"must be an array of numbers, got {describe(v)}"
-                        )
-                    elif v is not None:
-                        hrow[key] = v
-                if ("actuals" in hrow) != ("forecasts" in hrow):
-                    missing = "forecasts" if "actuals" in hrow else "actuals"
-                    errs.add(
-                        f"{at}.holdout.{missing}",
-                        "is required with holdout "
-                        + ("actuals" if missing == "forecasts" else "forecasts"),
-                    )
-                if ("lower" in hrow) != ("upper" in hrow):
-                    missing = "upper" if "lower" in hrow else "lower"
-                    errs.add(f"{at}.holdout.{missing}", "lower and upper must be given together")
-                if "lower" in hrow and "actuals" not in hrow:
-                    errs.add(f"{at}.holdout.actuals", "is required with interval bounds")
-                ha = hrow.get("actuals")
-                if ha is not None:
-                    if not ha:
-                        errs.add(f"{at}.holdout.actuals", "must hold at least one value")
-                    if max_series_length is not None and len(ha) > max_series_length:
-                        errs.add(
-                            f"{at}.holdout.actuals",
-                            f"has {len(ha)} values; the limit is {max_series_length}",
-                        )
-                    for key in ("forecasts", "lower", "upper"):
-                        if key in hrow and len(hrow[key]) != len(ha):
-                            errs.add(
-                                f"{at}.holdout.{key}",
-                                f"has {len(hrow[key])} values, holdout actuals has {len(ha)}",
-                            )
-                level = h.get("level")
-                if level is not None:
-                    if isinstance(level, bool) or not isinstance(level, (int, float)):
-                        errs.add(f"{at}.holdout.level", f"must be a number, got {describe(level)}")
-                        level = None
-                    elif not 0.0 < float(level) < 1.0:
-                        errs.add(
-                            f"{at}.holdout.level", f"must lie strictly between 0 and 1, got {level}"
-                        )
-                        level = None
-                hts = h.get("timestamps")
-                if hts is not None and (
-                    not isinstance(hts, list) or ha is None or len(hts) != len(ha)
-                ):
-                    errs.add(
-                        f"{at}.holdout.timestamps",
-                        "must be an array of strings, one per holdout actual",
-                    )
-                    hts = None
-        has_holdout[i] = "actuals" in hrow and "forecasts" in hrow
-        has_interval[i] = has_holdout[i] and "lower" in hrow and "upper" in hrow
-        for key in h_rows:
-            h_rows[key].append(hrow.get(key, empty) if has_holdout[i] else empty)
-        h_ts.append(hts)
-        levels.append(None if level is None else float(level))
-        if errs.full:
-            break
+
+
+class SeriesRows:
+    """Every series' fields as sent (arrays still lists), gathered for the checks that run
+    over all series at once."""
+
+    def __init__(self, n: int) -> None:
+        self.ids: list[str] = []
+        self.actuals: list[list[Any]] = []
+        self.fitted: list[list[Any]] = []
+        self.timestamps: list[Any] = []
+        self.weights: list[float | None] = []
+        self.holdout: dict[str, list[list[Any]]] = {k: [] for k in _HOLDOUT_ARRAYS}
+        self.holdout_timestamps: list[Any] = []
+        self.levels: list[float | None] = []
+        self.has_holdout = np.zeros(n, dtype=bool)
+        self.has_interval = np.zeros(n, dtype=bool)
+
+    def add_holdout(
+        self, i: int, arrays: Mapping[str, list[Any]], stamps: Any, level: float | None
+    ) -> None:
+        """Series ``i``'s holdout arrays (empty unless both actuals and forecasts are given)."""
+        has = "actuals" in arrays and "forecasts" in arrays
+        self.has_holdout[i] = has
+        self.has_interval[i] = has and "lower" in arrays and "upper" in arrays
+        for key, rows in self.holdout.items():
+            rows.append(arrays.get(key, _EMPTY) if has else _EMPTY)
+        self.holdout_timestamps.append(stamps)
+        self.levels.append(level)
+
+
+def read_series(
+    i: int,
+    s: Any,
+    errs: Errors,
+    seen: dict[str, int],
+    max_length: int | None,
+    rows: SeriesRows,
+) -> None:
+    """Check ``series[i]`` field by field and add it to ``rows``."""
+    at = f"series[{i}]"
+    if not isinstance(s, dict):
+        errs.add(at, f"must be an object, got {describe(s)}")
+        s = {}
+    elif not SERIES_FIELDS.issuperset(s):
+        _unknown_fields(at, s, SERIES_FIELDS, errs)
+    rows.ids.append(_series_id(at, i, s.get("id"), errs, seen))
+    a, f = _train_values(at, s, errs, max_length)
+    rows.actuals.append(a)
+    rows.fitted.append(f)
+    ts = s.get("timestamps")
+    rows.timestamps.append(None if ts is None else _train_timestamps(at, ts, len(a), errs))
+    w = s.get("weight")
+    rows.weights.append(None if w is None else _weight(at, w, errs))
+    h = s.get("holdout")
+    if h is None:
+        rows.add_holdout(i, {}, None, None)
+    else:
+        rows.add_holdout(i, *read_holdout(f"{at}.holdout", h, errs, max_length))
+
+
+def _series_id(at: str, i: int, sid: Any, errs: Errors, seen: dict[str, int]) -> str:
+    """The series' id (``#i`` in its place when it is not a string)."""
+    if not isinstance(sid, str) or not sid:
+        errs.add(f"{at}.id", f"must be a non-empty string, got {describe(sid)}")
+        sid = f"#{i}"
+    elif len(sid) > MAX_NAME_LENGTH:
+        errs.add(f"{at}.id", f"must be at most {MAX_NAME_LENGTH} characters")
+    elif "\x00" in sid:
+        errs.add(f"{at}.id", "must not contain NUL characters")
+    elif sid in seen:
+        errs.add(f"{at}.id", f"duplicate series id {sid!r} (first at series[{seen[sid]}])")
+    seen.setdefault(sid, i)
+    return sid
+
+
+def _train_values(
+    at: str, s: Mapping[str, Any], errs: Errors, max_length: int | None
+) -> tuple[list[Any], list[Any]]:
+    """``actuals`` and ``fitted`` (empty where not an array): present, of one length."""
+    a, f = s.get("actuals"), s.get("fitted")
+    a_given, f_given = isinstance(a, list), isinstance(f, list)
+    if not a_given:
+        errs.add(f"{at}.actuals", _not_an_array(a))
+    if not f_given:
+        errs.add(f"{at}.fitted", _not_an_array(f))
+    a = a if a_given else _EMPTY
+    f = f if f_given else _EMPTY
+    if a_given and not a:
+        errs.add(f"{at}.actuals", "must hold at least one value")
+    if f_given and len(f) != len(a):
+        errs.add(
+            f"{at}.fitted",
+            f"has {len(f)} values, actuals has {len(a)}: give one fitted value (or null) "
+            "per actual",
+        )
+    if max_length is not None and len(a) > max_length:
+        errs.add(f"{at}.actuals", f"has {len(a)} values; the limit is {max_length}")
+    return a, f
+
+
+def _not_an_array(value: Any) -> str:
+    if value is None:
+        return "is required"
+    return f"must be an array of numbers, got {describe(value)}"
+
+
+def _train_timestamps(at: str, ts: Any, n: int, errs: Errors) -> list[Any] | None:
+    if not isinstance(ts, list):
+        errs.add(f"{at}.timestamps", f"must be an array of strings, got {describe(ts)}")
+        return None
+    if len(ts) != n:
+        errs.add(f"{at}.timestamps", f"has {len(ts)} values, actuals has {n}")
+        return None
+    return ts
+
+
+def _weight(at: str, w: Any, errs: Errors) -> float | None:
+    if isinstance(w, bool) or not isinstance(w, (int, float)):
+        errs.add(f"{at}.weight", f"must be a number, got {describe(w)}")
+        return None
+    if not 0 <= w <= MAX_ABS_VALUE:  # NaN fails too; an integer is compared without rounding
+        errs.add(f"{at}.weight", f"must be a non-negative number up to {MAX_ABS_VALUE:g}")
+        return None
+    return float(w)
+
+
+def read_holdout(
+    at: str, h: Any, errs: Errors, max_length: int | None
+) -> tuple[dict[str, list[Any]], list[Any] | None, float | None]:
+    """One series' holdout (``at`` is its location): its arrays as sent, timestamps, level."""
+    if not isinstance(h, dict):
+        errs.add(at, f"must be an object, got {describe(h)}")
+        return {}, None, None
+    _unknown_fields(at, h, HOLDOUT_FIELDS, errs)
+    arrays: dict[str, list[Any]] = {}
+    for key in _HOLDOUT_ARRAYS:
+        v = h.get(key)
+        if v is not None and not isinstance(v, list):
+            errs.add(f"{at}.{key}", f"must be an array of numbers, got {describe(v)}")
+        elif v is not None:
+            arrays[key] = v
+    _holdout_pairs(at, arrays, errs)
+    ha = arrays.get("actuals")
+    if ha is not None:
+        _holdout_lengths(at, arrays, ha, errs, max_length)
+    level = h.get("level")
+    level = None if level is None else _holdout_level(at, level, errs)
+    stamps = h.get("timestamps")
+    if stamps is not None and (
+        not isinstance(stamps, list) or ha is None or len(stamps) != len(ha)
+    ):
+        errs.add(f"{at}.timestamps", "must be an array of strings, one per holdout actual")
+        stamps = None
+    return arrays, stamps, level
+
+
+def _holdout_pairs(at: str, arrays: Mapping[str, list[Any]], errs: Errors) -> None:
+    """Actuals come with forecasts, lower with upper, and bounds with actuals."""
+    if ("actuals" in arrays) != ("forecasts" in arrays):
+        missing, given = (
+            ("forecasts", "actuals") if "actuals" in arrays else ("actuals", "forecasts")
+        )
+        errs.add(f"{at}.{missing}", f"is required with holdout {given}")
+    if ("lower" in arrays) != ("upper" in arrays):
+        missing = "upper" if "lower" in arrays else "lower"
+        errs.add(f"{at}.{missing}", "lower and upper must be given together")
+    if "lower" in arrays and "actuals" not in arrays:
+        errs.add(f"{at}.actuals", "is required with interval bounds")
+
+
+def _holdout_lengths(
+    at: str, arrays: Mapping[str, list[Any]], ha: list[Any], errs: Errors, max_length: int | None
+) -> None:
+    if not ha:
+        errs.add(f"{at}.actuals", "must hold at least one value")
+    if max_length is not None and len(ha) > max_length:
+        errs.add(f"{at}.actuals", f"has {len(ha)} values; the limit is {max_length}")
+    for key in ("forecasts", "lower", "upper"):
+        if key in arrays and len(arrays[key]) != len(ha):
+            errs.add(f"{at}.{key}", f"has {len(arrays[key])} values, holdout actuals has {len(ha)}")
+
+
+def _holdout_level(at: str, level: Any, errs: Errors) -> float | None:
+    if isinstance(level, bool) or not isinstance(level, (int, float)):
+        errs.add(f"{at}.level", f"must be a number, got {describe(level)}")
+        return None
+    low, high = _LEVEL.above, _LEVEL.below
+    if not low < level < high:  # type: ignore[operator]
+        errs.add(f"{at}.level", f"must lie strictly between {low:g} and {high:g}, got {level}")
+        return None
+    return float(level)
+
+
+def json_columns(rows: SeriesRows, errs: Errors) -> SeriesColumns:
+    """The numbers and timestamps of every series, checked at once; raises with every problem."""
+    n = len(rows.ids)
+    actuals = flat_numbers(rows.actuals, _locs(n, "actuals"), errs)
+    fitted = flat_numbers(rows.fitted, _locs(n, "fitted"), errs)
+    check_timestamps(rows.timestamps, _locs(n, "timestamps"), errs)
+    holdout = _holdout_columns(rows, errs) if rows.has_holdout.any() else None
     errs.check()
-
-    locs = {k: [f"series[{i}].{k}" for i in range(n)] for k in ("actuals", "fitted")}
-    got_a = flat_numbers(actual_rows, locs["actuals"], errs)
-    got_f = flat_numbers(fitted_rows, locs["fitted"], errs)
-    check_timestamps(ts_rows, [f"series[{i}].timestamps" for i in range(n)], errs)
-    holdout_flat: dict[str, tuple[np.ndarray, np.ndarray] | None] = {}
-    if has_holdout.any():
-        for key, rows in h_rows.items():
-            if key in ("lower", "upper") and not has_interval.any():
-                continue
-            holdout_flat[key] = flat_numbers(
-                rows, [f"series[{i}].holdout.{key}" for i in range(n)], errs
-            )
-        check_timestamps(h_ts, [f"series[{i}].holdout.timestamps" for i in range(n)], errs)
-    errs.check()
-    assert got_a is not None and got_f is not None
-    a_flat, a_len = got_a
-    f_flat, _ = got_f
-    width = int(a_len.max(initial=0))
-    actuals = padded_matrix(a_flat, a_len, width)
-    fitted = padded_matrix(f_flat, a_len, width)
-
-    kwargs: dict[str, Any] = {}
-    h_len = np.zeros(n, dtype=np.int64)
-    if has_holdout.any():
-        ha_flat, h_len = holdout_flat["actuals"]  # type: ignore[misc]
-        hwidth = int(h_len.max(initial=0))
-        kwargs["holdout_actuals"] = padded_matrix(ha_flat, h_len, hwidth)
-        kwargs["holdout_forecasts"] = padded_matrix(holdout_flat["forecasts"][0], h_len, hwidth)  # type: ignore[index]
-        if has_interval.any():
-            lo_flat, lo_len = holdout_flat["lower"]  # type: ignore[misc]
-            up_flat, _ = holdout_flat["upper"]  # type: ignore[misc]
-            crossed = lo_flat > up_flat
-            if crossed.any():
-                ends = np.cumsum(lo_len)
-                done: set[int] = set()
-                for pos in np.flatnonzero(crossed):
-                    i = int(np.searchsorted(ends, pos, side="right"))
-                    if i in done:
-                        continue
-                    done.add(i)
-                    j = int(pos - (ends[i] - lo_len[i]))
-                    errs.add(
-                        f"series[{i}].holdout.lower",
-                        f"lower bound {lo_flat[pos]:g} is "
-                        f"above upper bound {up_flat[pos]:g} at index {j}",
-                    )
-                    if errs.full:
-                        break
-                errs.check()
-            kwargs["holdout_lower"] = padded_matrix(lo_flat, lo_len, hwidth)
-            kwargs["holdout_upper"] = padded_matrix(up_flat, lo_len, hwidth)
-            kwargs["level"] = [
-                lv if iv else None for lv, iv in zip(levels, has_interval, strict=True)
-            ]
-    batch = _make_batch(
-        actuals,
-        fitted,
-        ids=ids,
-        weights=weights,
-        season_length=season_length,
-        model_params=model_params,
-        **kwargs,
-    )
-    return AssessmentRequest(
-        model=model,
-        version=version,
-        policy=policy,
-        season_length=season_length,
-        model_params=model_params,
-        labels=labels,
-        ids=tuple(ids),
-        batch=batch,
-        timestamps=tuple(ts_rows),
-        holdout_timestamps=tuple(h_ts),
-        train_lengths=a_len,
-        holdout_lengths=h_len,
-        weights_given=tuple(weights),
+    assert actuals is not None and fitted is not None
+    return SeriesColumns(
+        ids=rows.ids,
+        actuals=actuals,
+        fitted=fitted,
+        timestamps=rows.timestamps,
+        weights=rows.weights,
+        holdout=holdout,
     )
 
 
-def core_error_loc(exc: InputError) -> str:
-    """The request field a core :class:`InputError` concerns, e.g. ``series[3].holdout.level``."""
-    field_loc = _CORE_LOCS.get(exc.argument)
-    if field_loc is None:
-        return exc.argument
-    if exc.index is None:
-        return f"series[*].{field_loc}"
-    return f"series[{exc.index}].{field_loc}"
+def _holdout_columns(rows: SeriesRows, errs: Errors) -> HoldoutColumns | None:
+    """The holdout arrays of every series; ``None`` after reporting a problem."""
+    n = len(rows.ids)
+    with_interval = bool(rows.has_interval.any())
+    flat = {
+        key: flat_numbers(rows.holdout[key], _locs(n, f"holdout.{key}"), errs)
+        for key in _HOLDOUT_ARRAYS
+        if with_interval or key not in ("lower", "upper")
+    }
+    check_timestamps(rows.holdout_timestamps, _locs(n, "holdout.timestamps"), errs)
+    if any(v is None for v in flat.values()):
+        return None
+    return HoldoutColumns(
+        actuals=flat["actuals"],  # type: ignore[arg-type]
+        forecasts=flat["forecasts"],  # type: ignore[arg-type]
+        lower=flat.get("lower"),
+        upper=flat.get("upper"),
+        levels=[lv if iv else None for lv, iv in zip(rows.levels, rows.has_interval, strict=True)],
+        timestamps=rows.holdout_timestamps,
+    )
 
 
-def _make_batch(*args: Any, **kwargs: Any) -> SeriesBatch:
-    try:
-        return make_batch(*args, **kwargs)
-    except InputError as exc:
-        raise RequestInvalid([{"loc": core_error_loc(exc), "message": exc.message}]) from None
+def _locs(n: int, key: str) -> list[str]:
+    return [f"series[{i}].{key}" for i in range(n)]

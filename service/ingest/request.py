@@ -2,7 +2,10 @@
 
 :class:`RequestInvalid` (and its subclass :class:`RequestUnparseable`) carry every problem found
 with the field it concerns; :class:`Errors` collects them, as many as :data:`MAX_ERRORS` at a
-time, and raises once at a checkpoint. :class:`AssessmentRequest` is what both parsers return.
+time, and raises once at a checkpoint. Both parsers read a body into one :class:`Envelope` (the
+request's own fields) and one :class:`SeriesColumns` (every series, field by field, as flat
+arrays), from which :func:`service.ingest.assemble.build_request` makes the
+:class:`AssessmentRequest` they return.
 :class:`NonFinite` marks a ``NaN``/``Infinity`` literal or an overflowing number in a decoded
 body, and :func:`describe` names a value's kind in an error message.
 """
@@ -78,6 +81,54 @@ class AssessmentRequest:
     @property
     def n_series(self) -> int:
         return len(self.ids)
+
+
+@dataclass(frozen=True)
+class Envelope:
+    """The request's own fields, checked (``policy`` a name or an inline document)."""
+
+    model: str
+    version: str
+    policy: str | dict[str, Any]
+    season_length: int
+    model_params: int
+    labels: dict[str, str]
+
+
+@dataclass(frozen=True, eq=False)
+class FlatRows:
+    """One numeric field of every series: the values joined into one float array (NaN where
+    missing) and each series' length."""
+
+    values: np.ndarray
+    lengths: np.ndarray
+
+
+@dataclass(frozen=True, eq=False)
+class HoldoutColumns:
+    """The holdouts of a request. ``lower``/``upper`` are ``None`` when no series has an
+    interval, and then hold a zero length for a series without one; ``levels`` holds a series'
+    level only where it has an interval."""
+
+    actuals: FlatRows
+    forecasts: FlatRows
+    lower: FlatRows | None
+    upper: FlatRows | None
+    levels: list[float | None]
+    timestamps: list[list[str] | None]
+
+
+@dataclass(frozen=True, eq=False)
+class SeriesColumns:
+    """Every series of a request, field by field, checked value by value but not yet against
+    each other (interval bounds) or by the core."""
+
+    ids: list[str]
+    actuals: FlatRows
+    fitted: FlatRows
+    timestamps: list[list[str] | None]
+    weights: list[float | None]
+    holdout: HoldoutColumns | None
 
 
 class Errors:

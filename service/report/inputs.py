@@ -69,7 +69,8 @@ class SeriesInputs:
     @classmethod
     def from_mapping(cls, data: Mapping[str, Any]) -> SeriesInputs:
         """Build from the request body's shape of one series (``id``, ``actuals``, ``fitted``,
-        ``timestamps``, ``holdout: {actuals, forecasts, lower, upper, level, timestamps}``)."""
+        ``timestamps``, ``holdout: {actuals, forecasts, lower, upper, level, timestamps}``), as
+        ``service.ingest.shape`` defines it (a test checks the two agree)."""
         if not isinstance(data, Mapping):
             raise ReportInputError("series", "must be an object")
         if "id" not in data:

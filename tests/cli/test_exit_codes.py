@@ -87,13 +87,6 @@ def test_server_without_links_prints_none(cli, body_file):
     assert run.code == 0 and "report:" not in run.out and run.err == ""
 
 
-def test_report_link_in_the_answer_is_used_as_is(cli, body_file):
-    answer = result_json("pass", links={"report": "http://plumbline.test/r/x"})
-    server = FakeServer([httpx.Response(201, json=answer)])
-    run = assess(cli, body_file, server)
-    assert "report:  http://plumbline.test/r/x" in run.out and len(server.requests) == 1
-
-
 def test_no_store_sends_store_false_and_asks_no_link(cli, body_file):
     server = FakeServer([httpx.Response(201, json=result_json("pass", id=None))])
     run = assess(cli, body_file, server, "--no-store")
