@@ -15,8 +15,21 @@ from service.core import (
     portmanteau_lags,
     portmanteau_q,
 )
+from tests.reference_values import (
+    CHI2_TABLE_ATOL,
+    CHI2_UPPER_CRITICAL,
+    MACRO_FIRST_30_LAGS,
+    MACRO_FIRST_30_LJUNG_BOX,
+    MACRO_FIRST_30_LJUNG_BOX_P,
+    MACRO_PORTMANTEAU,
+    NIST_SERIES_F_ACF,
+    NIST_SERIES_F_N,
+    NIST_SERIES_F_Q1,
+    NIST_SERIES_F_Q1_RTOL,
+    macro_residuals,
+)
 
-from .reference_data import invented_rows, macro_residuals, observed, residuals
+from .reference_data import invented_rows, observed, residuals
 
 RTOL = 1e-8
 
@@ -33,13 +46,9 @@ def _ar1(rng, n, phi):
 
 @pytest.mark.parametrize(
     ("lags", "lb", "lb_p", "bp", "bp_p"),
-    [
-        # references.md: statsmodels test_diagnostic.py (R values), MACRO res, 4 lags.
-        (4, 5.23587172795227, 0.263940335284713, 5.12462932741681, 0.2747471266820692),
-        # references.md: statsmodels test_diagnostic.py (R values), MACRO res, 40 lags
-        # (the Box-Pierce p-value is not published there).
-        (40, 51.03724531797195, 0.11334744923390, 45.12238537034000, None),
-    ],
+    # tests/reference_values.py MACRO_PORTMANTEAU: statsmodels test_diagnostic.py (R values),
+    # MACRO residuals, 4 and 40 lags (the Box-Pierce p-value at 40 lags is not published there).
+    MACRO_PORTMANTEAU,
 )
 def test_macro_published(lags, lb, lb_p, bp, bp_p):
     result = ljung_box(residuals([macro_residuals()]), lags=lags)
@@ -52,39 +61,34 @@ def test_macro_published(lags, lb, lb_p, bp, bp_p):
 
 
 def test_macro_first_30_published():
-    # references.md: statsmodels test_diagnostic.py (R values): res[:30], 13 lags.
-    result = ljung_box(residuals([macro_residuals()[:30]]), lags=13)
-    np.testing.assert_allclose(result.statistic[0], 9.61503968281915, rtol=RTOL)
-    np.testing.assert_allclose(result.p_value[0], 0.72507000996945, rtol=RTOL)
+    # tests/reference_values.py MACRO_FIRST_30_*: statsmodels test_diagnostic.py (R values),
+    # res[:30], 13 lags.
+    result = ljung_box(residuals([macro_residuals()[:30]]), lags=MACRO_FIRST_30_LAGS)
+    np.testing.assert_allclose(result.statistic[0], MACRO_FIRST_30_LJUNG_BOX, rtol=RTOL)
+    np.testing.assert_allclose(result.p_value[0], MACRO_FIRST_30_LJUNG_BOX_P, rtol=RTOL)
 
 
 def test_nist_series_f_q_from_published_acf():
-    # references.md: NIST/SEMATECH e-Handbook 6.4.4.9, Series F (n = 70) sample ACF
-    # r1 = -0.389878319, r2 = 0.304394082; Q(1) = 11.103 computed from r1 (published to 5
-    # significant digits, hence rtol 5e-5).
-    r = np.array([[-0.389878319, 0.304394082]])
-    q1, bp1 = portmanteau_q(r, np.array([70]), np.array([1]))
-    np.testing.assert_allclose(q1[0], 11.103, rtol=5e-5)
+    # tests/reference_values.py NIST_SERIES_F_*: NIST/SEMATECH e-Handbook 6.4.4.9, Series F
+    # (n = 70) sample ACF r1 = -0.389878319, r2 = 0.304394082 as published; Q(1) = 11.103
+    # computed from r1, given to 5 significant digits (NIST_SERIES_F_Q1_RTOL = 5e-5).
+    n = NIST_SERIES_F_N
+    r1, r2 = NIST_SERIES_F_ACF
+    r = np.array([[r1, r2]])
+    q1, bp1 = portmanteau_q(r, np.array([n]), np.array([1]))
+    np.testing.assert_allclose(q1[0], NIST_SERIES_F_Q1, rtol=NIST_SERIES_F_Q1_RTOL)
     # Box-Pierce from the same r1 (computed): 70 r1^2.
-    np.testing.assert_allclose(bp1[0], 70 * 0.389878319**2, rtol=RTOL)
+    np.testing.assert_allclose(bp1[0], n * r1**2, rtol=RTOL)
     # Q(2) (computed from the published r1, r2 with the Ljung-Box formula):
-    q2, _ = portmanteau_q(r, np.array([70]), np.array([2]))
-    np.testing.assert_allclose(
-        q2[0], 70 * 72 * (0.389878319**2 / 69 + 0.304394082**2 / 68), rtol=RTOL
-    )
+    q2, _ = portmanteau_q(r, np.array([n]), np.array([2]))
+    np.testing.assert_allclose(q2[0], n * (n + 2) * (r1**2 / (n - 1) + r2**2 / (n - 2)), rtol=RTOL)
 
 
 @pytest.mark.parametrize(
     ("df", "crit05", "crit01"),
-    # references.md: NIST e-Handbook table 1.3.6.7.4, chi-square upper critical values.
-    [
-        (1, 3.8415, 6.6349),
-        (2, 5.9915, 9.2103),
-        (4, 9.4877, 13.2767),
-        (8, 15.5073, 20.0902),
-        (10, 18.3070, 23.2093),
-        (20, 31.4104, 37.5662),
-    ],
+    # tests/reference_values.py CHI2_UPPER_CRITICAL: NIST e-Handbook table 1.3.6.7.4,
+    # chi-square upper critical values.
+    CHI2_UPPER_CRITICAL,
 )
 def test_p_value_uses_chi_square_with_lags_minus_model_params(df, crit05, crit01):
     # Many invented series tested with df = lags - model_params: p < alpha exactly when Q is
@@ -100,7 +104,7 @@ def test_p_value_uses_chi_square_with_lags_minus_model_params(df, crit05, crit01
         clear = np.abs(q - crit) > 1e-3
         assert clear.sum() > 50
         np.testing.assert_array_equal((p < alpha)[clear], (q > crit)[clear])
-        np.testing.assert_allclose(stats.chi2.sf(crit, df), alpha, atol=5e-6)
+        np.testing.assert_allclose(stats.chi2.sf(crit, df), alpha, atol=CHI2_TABLE_ATOL)
     # Both sides of the critical value occur, so the comparison above is not vacuous.
     assert (q > crit05).any() and (q < crit05).any()
 

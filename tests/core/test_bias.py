@@ -20,8 +20,16 @@ from service.core import (
     run_checks,
     tracking_signal,
 )
+from tests.reference_values import (
+    MACRO_N,
+    NEWEY_WEST_LAGS,
+    X20,
+    X20_HAC_STD_ERROR,
+    X20_HAC_STD_ERROR_RTOL,
+    macro_residuals,
+)
 
-from .reference_data import X20, invented_rows, macro_residuals, observed, residuals
+from .reference_data import invented_rows, observed, residuals
 
 RTOL = 1e-8
 
@@ -41,12 +49,13 @@ def _scale(res):
 
 
 def test_newey_west_lag_rule_docstring_values():
-    # references.md: Newey-West lag rule floor(4 (T/100)^(2/9)) (statsmodels' sandwich_covariance).
+    # tests/reference_values.py NEWEY_WEST_LAGS: computed from the Newey-West lag rule
+    # floor(4 (T/100)^(2/9)) (statsmodels' sandwich_covariance).
     # Docstring examples: T = 100 gives 4, T = 20 gives 2.
-    assert newey_west_lags(100) == 4
-    assert newey_west_lags(20) == 2
+    assert newey_west_lags(100) == NEWEY_WEST_LAGS[100]
+    assert newey_west_lags(20) == NEWEY_WEST_LAGS[20]
     # MACRO (T = 202) gets 4 lags, the lag count the R sandwich::NeweyWest values use.
-    assert newey_west_lags(202) == 4
+    assert newey_west_lags(MACRO_N) == NEWEY_WEST_LAGS[MACRO_N]
 
 
 @pytest.mark.parametrize("n", [3, 10, 20, 35, 50, 99, 100, 101, 156, 300, 999])
@@ -66,13 +75,14 @@ def test_default_hac_variance_equals_statsmodels_default_lag_rule(n):
 
 @pytest.mark.parametrize(
     ("lags", "se"),
-    # references.md: X20, SE of the mean with Bartlett weights, 0 / 2 / 4 lags (computed).
-    [(0, 0.2221968), (2, 0.2216810), (4, 0.2060640)],
+    # tests/reference_values.py X20_HAC_STD_ERROR (computed): X20, SE of the mean with Bartlett
+    # weights, 0 / 2 / 4 lags.
+    X20_HAC_STD_ERROR,
 )
 def test_x20_hac_standard_error(lags, se):
     result = newey_west_bias(residuals([X20]), np.ones(1), hac_lags=lags)
-    # Published to 7 significant digits.
-    np.testing.assert_allclose(result.details["std_error"][0], se, rtol=5e-7)
+    # Given to 7 significant digits (X20_HAC_STD_ERROR_RTOL = 5e-7).
+    np.testing.assert_allclose(result.details["std_error"][0], se, rtol=X20_HAC_STD_ERROR_RTOL)
     np.testing.assert_allclose(
         result.details["std_error"][0], _ones_hac(X20, lags).bse[0], rtol=RTOL
     )

@@ -7,6 +7,13 @@ import pytest
 from scipy import stats
 
 from service.core import InputError, interval_coverage, kupiec_lr, make_batch, winkler_scores
+from tests.reference_values import (
+    KUPIEC_EXERCISE_P_VALUE,
+    KUPIEC_EXERCISE_P_VALUE_ATOL,
+    KUPIEC_LR,
+    KUPIEC_P,
+    WINKLER_SCORES,
+)
 
 RTOL = 1e-8
 
@@ -29,18 +36,16 @@ def _coverage_batch(misses: int, steps: int, level: float):
 
 @pytest.mark.parametrize(
     ("x", "t", "lr", "tol"),
-    [
-        (6, 252, 3.49878, 5e-6),  # references.md: a published exercise answer (5 decimals)
-        (3, 250, 0.09494, 5e-6),  # references.md: published (5 decimals)
-        (0, 250, 5.0252, 5e-5),  # references.md: computed (4 decimals)
-        (8, 250, 7.73355, 5e-6),  # references.md: computed (5 decimals)
-    ],
+    # tests/reference_values.py KUPIEC_LR: Kupiec (1995) LR at p = 0.01; two published values
+    # (an exercise answer and one more, 5 decimals) and two computed from the formula, each
+    # with the tolerance its printed decimals allow.
+    KUPIEC_LR,
 )
 def test_kupiec_values(x, t, lr, tol):
     np.testing.assert_allclose(
-        kupiec_lr(np.array([x]), np.array([t]), np.array([0.01])), [lr], atol=tol
+        kupiec_lr(np.array([x]), np.array([t]), np.array([KUPIEC_P])), [lr], atol=tol
     )
-    result = interval_coverage(_coverage_batch(x, t, 0.99))
+    result = interval_coverage(_coverage_batch(x, t, 1 - KUPIEC_P))
     np.testing.assert_allclose(result.statistic[0], lr, atol=tol)
     assert result.details["misses"][0] == x and result.details["n_scored"][0] == t
     np.testing.assert_allclose(result.details["coverage"][0], 1 - x / t, rtol=RTOL)
@@ -48,9 +53,12 @@ def test_kupiec_values(x, t, lr, tol):
 
 
 def test_kupiec_published_p_value_not_rejected():
-    # references.md: x = 6, T = 252, p = 0.01: p 0.0614, not rejected at 5%.
-    result = interval_coverage(_coverage_batch(6, 252, 0.99))
-    np.testing.assert_allclose(result.p_value[0], 0.0614, atol=5e-5)
+    # tests/reference_values.py KUPIEC_EXERCISE_P_VALUE: the published exercise, x = 6,
+    # T = 252, p = 0.01: p 0.0614 (4 decimals), not rejected at 5%.
+    result = interval_coverage(_coverage_batch(6, 252, 1 - KUPIEC_P))
+    np.testing.assert_allclose(
+        result.p_value[0], KUPIEC_EXERCISE_P_VALUE, atol=KUPIEC_EXERCISE_P_VALUE_ATOL
+    )
     assert result.p_value[0] > 0.05
 
 
@@ -66,12 +74,9 @@ def test_kupiec_is_the_binomial_likelihood_ratio():
 
 @pytest.mark.parametrize(
     ("y", "lo", "hi", "alpha", "score"),
-    [
-        (0.1, 0.0, 0.4, 0.5, 0.4),  # references.md: published example
-        (15.0, 10.0, 20.0, 0.2, 10.0),  # references.md: computed
-        (25.0, 10.0, 20.0, 0.2, 60.0),  # references.md: computed
-        (8.0, 10.0, 20.0, 0.2, 30.0),  # references.md: computed
-    ],
+    # tests/reference_values.py WINKLER_SCORES: Winkler (1972) interval score, one published
+    # example and three computed from the formula.
+    WINKLER_SCORES,
 )
 def test_winkler_values(y, lo, hi, alpha, score):
     got = winkler_scores(np.array([[y]]), np.array([[lo]]), np.array([[hi]]), alpha)
@@ -95,7 +100,8 @@ def test_coverage_details_and_mean_winkler_score():
     assert d["n_scored"] == 4 and d["misses"] == 2
     assert d["misses_below"] == 1 and d["misses_above"] == 1
     assert d["coverage"] == 0.5 and d["level"] == 0.8
-    # computed: scores 10, 60, 30, 10 (references.md Winkler values), mean 27.5.
+    # computed: scores 10, 60, 30, 10 (the tests/reference_values.py WINKLER_SCORES values for
+    # [10, 20] at alpha 0.2), mean 27.5.
     np.testing.assert_allclose(d["winkler_score"], 27.5, rtol=RTOL)
     np.testing.assert_allclose(
         result.statistic[0], kupiec_lr(np.array([2]), np.array([4]), np.array([0.2]))[0], rtol=RTOL

@@ -9,57 +9,29 @@ from scipy import stats
 from statsmodels.stats.multitest import multipletests
 
 from service.core import InputError, benjamini_hochberg
+from tests.reference_values import (
+    BH_EXAMPLE_ADJUSTED,
+    BH_EXAMPLE_P,
+    BH_EXAMPLE_REJECTED_AT_005,
+    BONFERRONI_EXAMPLE_REJECTED_AT_005,
+)
 
 RTOL = 1e-8
 
-# references.md: Benjamini & Hochberg (1995) worked example, 15 p-values.
-BH_P = np.array(
-    [
-        0.0001,
-        0.0004,
-        0.0019,
-        0.0095,
-        0.0201,
-        0.0278,
-        0.0298,
-        0.0344,
-        0.0459,
-        0.3240,
-        0.4262,
-        0.5719,
-        0.6528,
-        0.7590,
-        1.000,
-    ]
-)
-# references.md: adjusted p-values for the example (printed to 8 significant digits).
-BH_ADJ = np.array(
-    [
-        0.0015,
-        0.003,
-        0.0095,
-        0.035625,
-        0.0603,
-        0.06385714,
-        0.06385714,
-        0.0645,
-        0.0765,
-        0.486,
-        0.58118182,
-        0.714875,
-        0.75323077,
-        0.81321429,
-        1.0,
-    ]
-)
+# tests/reference_values.py BH_EXAMPLE_P: Benjamini & Hochberg (1995), the paper's worked
+# example (15 p-values); BH_EXAMPLE_ADJUSTED: its adjusted p-values (computed, 8 significant
+# digits).
+BH_P = BH_EXAMPLE_P
+BH_ADJ = BH_EXAMPLE_ADJUSTED
 
 
 def test_worked_example():
     adj = benjamini_hochberg(BH_P)
     np.testing.assert_allclose(adj, BH_ADJ, rtol=1e-7)
-    # references.md: at FDR 0.05 BH rejects 4, Bonferroni 3.
-    assert (adj <= 0.05).sum() == 4
-    assert (BH_P * BH_P.size <= 0.05).sum() == 3
+    # tests/reference_values.py BH_EXAMPLE_REJECTED_AT_005, BONFERRONI_EXAMPLE_REJECTED_AT_005:
+    # Benjamini & Hochberg (1995), at FDR 0.05 BH rejects 4 and Bonferroni 3.
+    assert (adj <= 0.05).sum() == BH_EXAMPLE_REJECTED_AT_005
+    assert (BH_P * BH_P.size <= 0.05).sum() == BONFERRONI_EXAMPLE_REJECTED_AT_005
 
 
 def test_order_does_not_matter():

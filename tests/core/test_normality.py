@@ -8,29 +8,44 @@ from scipy import stats
 from statsmodels.stats.stattools import jarque_bera as sm_jarque_bera
 
 from service.core import jarque_bera
+from tests.reference_values import (
+    LOG_X20_SQUARED_JARQUE_BERA,
+    LOG_X20_SQUARED_JARQUE_BERA_P,
+    X20,
+    X20_EXCESS_KURTOSIS,
+    X20_JARQUE_BERA,
+    X20_JARQUE_BERA_P,
+    X20_KURTOSIS,
+    X20_MOMENTS_ATOL,
+    X20_SKEWNESS,
+)
 
-from .reference_data import X20, observed, residuals
+from .reference_data import observed, residuals
 
 RTOL = 1e-8
 
 
 def test_x20_published():
-    # references.md: statsmodels test_statstools.py (R fBasics): X20.
+    # tests/reference_values.py X20_JARQUE_BERA(_P): statsmodels test_statstools.py (R fBasics).
     result = jarque_bera(residuals([X20]))
-    np.testing.assert_allclose(result.statistic[0], 1.9662677226861689, rtol=RTOL)
-    np.testing.assert_allclose(result.p_value[0], 0.3741367669648314, rtol=RTOL)
-    # Skewness -0.51526 and kurtosis 4.13910, published to 5 decimals.
-    np.testing.assert_allclose(result.details["skewness"][0], -0.51526, atol=5e-6)
-    np.testing.assert_allclose(result.details["kurtosis"][0], 4.13910, atol=5e-6)
-    np.testing.assert_allclose(result.details["excess_kurtosis"][0], 1.13910, atol=5e-6)
+    np.testing.assert_allclose(result.statistic[0], X20_JARQUE_BERA, rtol=RTOL)
+    np.testing.assert_allclose(result.p_value[0], X20_JARQUE_BERA_P, rtol=RTOL)
+    # tests/reference_values.py X20_SKEWNESS, X20_KURTOSIS: same source, published to 5
+    # decimals (X20_MOMENTS_ATOL = 5e-6); the excess kurtosis is the kurtosis minus 3.
+    np.testing.assert_allclose(result.details["skewness"][0], X20_SKEWNESS, atol=X20_MOMENTS_ATOL)
+    np.testing.assert_allclose(result.details["kurtosis"][0], X20_KURTOSIS, atol=X20_MOMENTS_ATOL)
+    np.testing.assert_allclose(
+        result.details["excess_kurtosis"][0], X20_EXCESS_KURTOSIS, atol=X20_MOMENTS_ATOL
+    )
     assert result.details["df"][0] == 2
 
 
 def test_log_x20_squared_published():
-    # references.md: statsmodels test_statstools.py (R fBasics): log(X20^2).
+    # tests/reference_values.py LOG_X20_SQUARED_JARQUE_BERA(_P): statsmodels
+    # test_statstools.py (R fBasics), log(X20^2).
     result = jarque_bera(residuals([np.log(X20**2)]))
-    np.testing.assert_allclose(result.statistic[0], 5.7135750796706670, rtol=RTOL)
-    np.testing.assert_allclose(result.p_value[0], 0.0574530296971343, rtol=RTOL)
+    np.testing.assert_allclose(result.statistic[0], LOG_X20_SQUARED_JARQUE_BERA, rtol=RTOL)
+    np.testing.assert_allclose(result.p_value[0], LOG_X20_SQUARED_JARQUE_BERA_P, rtol=RTOL)
 
 
 def test_matches_scipy_and_statsmodels_on_mixed_batch():

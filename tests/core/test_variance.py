@@ -12,8 +12,9 @@ from statsmodels.stats.diagnostic import het_arch
 from statsmodels.tsa.tsatools import lagmat
 
 from service.core import InputError, arch_lags, arch_lm
+from tests.reference_values import MACRO_ARCH_LM, MACRO_N, macro_residuals
 
-from .reference_data import invented_rows, macro_residuals, observed, residuals
+from .reference_data import invented_rows, observed, residuals
 
 RTOL = 1e-8
 
@@ -30,15 +31,16 @@ def _garch_like(rng, n, a=0.5):
 
 @pytest.mark.parametrize(
     ("lags", "lm", "p"),
-    # references.md: statsmodels test_diagnostic.py (R FinTS::ArchTest), MACRO res.
-    [(4, 3.43473400836259, 0.487871315392619), (12, 8.648320999014171, 0.732638635007718)],
+    # tests/reference_values.py MACRO_ARCH_LM: statsmodels test_diagnostic.py
+    # (R FinTS::ArchTest), MACRO residuals.
+    MACRO_ARCH_LM,
 )
 def test_macro_published(lags, lm, p):
     result = arch_lm(residuals([macro_residuals()]), lags=lags)
     np.testing.assert_allclose(result.statistic[0], lm, rtol=RTOL)
     np.testing.assert_allclose(result.p_value[0], p, rtol=RTOL)
     assert result.details["lags"][0] == lags and result.details["df"][0] == lags
-    assert result.details["n_rows"][0] == 202 - lags
+    assert result.details["n_rows"][0] == MACRO_N - lags
 
 
 def test_lag_rule_is_het_arch_default():
