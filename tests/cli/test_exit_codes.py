@@ -268,6 +268,7 @@ def test_tokens_database_and_server_exclude_each_other(cli):
     assert run.code == 2 and "--database and --server" in run.err
 
 
+@pytest.mark.slow  # a slow server, twice
 def test_a_slow_answer_shows_a_spinner_on_a_terminal_only(cli, body_file, monkeypatch):
     import threading
 

@@ -16,6 +16,9 @@ from tests.serverproc import Server
 
 from .conftest import ADMIN_TOKEN
 
+# Real server processes and clients that trickle or wait out timeouts: seconds per test.
+pytestmark = pytest.mark.slow
+
 HEAD_TIMEOUT = 1.0
 KEEP_ALIVE = 1
 BODY_TIMEOUT = 1.0

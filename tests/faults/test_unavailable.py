@@ -119,6 +119,7 @@ def relayed(postgres_database):
     relay.cut()
 
 
+@pytest.mark.slow  # dropping the database after the cut-off connection takes seconds
 def test_postgresql_cut_off(relayed):
     relay, url = relayed
     app = create_app(Settings(database_url=url, admin_token=ADMIN_TOKEN))

@@ -33,6 +33,9 @@ from service.settings import Settings
 
 from .conftest import ADMIN, ADMIN_TOKEN, assessment
 
+# Schemathesis over every operation: several seconds per database.
+pytestmark = pytest.mark.slow
+
 EXAMPLES = int(os.environ.get("PLUMBLINE_FUZZ_EXAMPLES", "20"))
 
 # Schemathesis' ``positive_data_acceptance`` is left out: a body can be valid JSON Schema and

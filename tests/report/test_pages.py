@@ -146,6 +146,7 @@ def test_untrusted_text_is_escaped() -> None:
     assert '<script>alert("x")</script>' not in page
 
 
+@pytest.mark.slow  # a 10,000-series report
 def test_large_fleet_report_draws_no_chart() -> None:
     # 10,000 series: one light page of rows and links; charts wait for the series page.
     a = assessment_of(invented_body(10_000, t=30, h=4))

@@ -109,6 +109,7 @@ def test_series_page_draws_every_chart_and_caches_them(client, stored) -> None:
     assert again.text == r.text and (cache.hits, cache.misses) == (1, 1)
 
 
+@pytest.mark.slow  # draws every chart
 def test_signed_link_opens_only_that_report(client, stored) -> None:
     other = client.post("/v1/assessments", json=invented_body(2, seed=11), headers=AUTH).json()
     before = time.time()
@@ -213,6 +214,7 @@ def test_openapi_documents_the_report_endpoints(client) -> None:
     assert "/v1/assessments/{assessment_id}/links" in doc["paths"]
 
 
+@pytest.mark.slow  # a fresh interpreter
 def test_assessing_does_not_load_matplotlib(tmp_path) -> None:
     code = textwrap.dedent(f"""
         import sys
@@ -241,6 +243,7 @@ def test_assessing_does_not_load_matplotlib(tmp_path) -> None:
     assert done.returncode == 0, done.stderr[-3000:]
 
 
+@pytest.mark.slow  # draws every chart
 def test_awkward_series_ids_round_trip(client) -> None:
     body = invented_body(2)
     body["series"][0]["id"] = "depot 4/sku#118?size=1l&x=y"
@@ -256,6 +259,7 @@ def test_awkward_series_ids_round_trip(client) -> None:
     assert "<h1>Series depot 4/sku#118?size=1l&amp;x=y</h1>" in r.text
 
 
+@pytest.mark.slow  # a real server process
 def test_percent_in_a_series_id_over_the_real_server(live_server) -> None:
     # The in-process client decodes a path twice, so ids with "%" are checked over HTTP.
     url, auth = live_server["url"], live_server["auth"]

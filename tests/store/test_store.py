@@ -48,6 +48,7 @@ def test_plain_postgresql_url_gets_psycopg3():
     engine.dispose()
 
 
+@pytest.mark.slow  # waits out the connect timeout
 def test_postgresql_connections_give_up_on_a_silent_server(monkeypatch):
     # A server that accepts the TCP connection and never answers (as one behind a network
     # that drops its replies would): the attempt ends after the connect timeout instead of
