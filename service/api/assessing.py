@@ -210,12 +210,12 @@ def run_many(store: Store, jobs: list[Job]) -> list[Outcome | BaseException]:
         except Exception as exc:  # nothing was written: each stored job answers the error
             saved = [exc] * len(records)
         took = time.perf_counter() - clock
-        for (i, _), result in zip(records, saved, strict=True):
+        for (i, _), stored in zip(records, saved, strict=True):
             jobs[i].timings["store"] = took
-            if isinstance(result, StoreConflict):
+            if isinstance(stored, StoreConflict):
                 outcomes[i] = _lost_race(store, jobs[i])
-            elif isinstance(result, Exception):
-                outcomes[i] = result
+            elif isinstance(stored, Exception):
+                outcomes[i] = stored
     if len(jobs) > 1:
         for i in ready:
             jobs[i].timings["batch"] = len(jobs)

@@ -86,14 +86,14 @@ class MetricsMiddleware:
         self.app = app
         self.metrics = metrics
 
-    async def __call__(self, scope: dict, receive: Any, send: Any) -> None:
+    async def __call__(self, scope: dict[str, Any], receive: Any, send: Any) -> None:
         if scope["type"] != "http":
             await self.app(scope, receive, send)
             return
         start = time.perf_counter()
         status = [500]
 
-        async def send_wrapper(message: dict) -> None:
+        async def send_wrapper(message: dict[str, Any]) -> None:
             if message["type"] == "http.response.start":
                 status[0] = message["status"]
             await send(message)

@@ -131,7 +131,9 @@ def _problem_422(responses: dict[str, Any]) -> None:
     """The framework documents its own 422 as ``application/json`` (HTTPValidationError); the
     service answers every 422 as problem+json, so say so."""
     entry = responses.get("422")
-    content = entry.get("content", {}) if isinstance(entry, dict) else {}
+    if not isinstance(entry, dict):
+        return
+    content = entry.get("content", {})
     schema = content.get("application/json", {}).get("schema", {})
     if set(content) == {"application/json"} and schema.get("$ref", "").endswith(
         "/HTTPValidationError"

@@ -115,6 +115,11 @@ class _Guards:
 
     header_read_timeout: float = 10.0
     _head_timer: asyncio.TimerHandle | None = None
+    # Set by uvicorn's protocol class that each variant below combines with this one.
+    app: Any
+    limit_concurrency: int | None
+    loop: asyncio.AbstractEventLoop
+    transport: asyncio.Transport
 
     def _install_guard(self, server_state: Any) -> None:
         if self.limit_concurrency is not None:

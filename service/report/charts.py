@@ -50,7 +50,8 @@ def _figure(salt: str, size: tuple[float, float]) -> Iterator[Any]:
     from matplotlib.backends.backend_svg import FigureCanvasSVG
     from matplotlib.figure import Figure
 
-    with _RENDER_LOCK, matplotlib.rc_context({**CHART_RC, "svg.hashsalt": salt}):
+    rc: dict[Any, Any] = {**CHART_RC, "svg.hashsalt": salt}
+    with _RENDER_LOCK, matplotlib.rc_context(rc):
         fig = Figure(figsize=size, layout="constrained")
         FigureCanvasSVG(fig)
         yield fig
@@ -274,7 +275,7 @@ def _holdout(ax: Any, d: SeriesDiagnostics) -> None:
         markersize=3.0,
         label="model forecast",
     )
-    if h.benchmark_forecasts is not None:
+    if h.benchmark is not None and h.benchmark_forecasts is not None:
         ax.plot(
             x_hold,
             h.benchmark_forecasts,
@@ -282,7 +283,7 @@ def _holdout(ax: Any, d: SeriesDiagnostics) -> None:
             linestyle="--",
             linewidth=1.6,
             label=f"best benchmark: {h.benchmark.replace('_', ' ')}",
-        )  # type: ignore[union-attr]
+        )
     if x_train.size:
         ax.axvline(x_train[-1], color=ROLE_COLOURS["reference"], linestyle=":", linewidth=1.0)
     ax.set_xlabel(d.axis.label)

@@ -22,7 +22,7 @@ from service.core import (
     portmanteau_lags,
     residuals_of,
 )
-from service.core.types import FloatVector
+from service.core.types import FloatMatrix, FloatVector
 
 from .inputs import ReportInputError, SeriesInputs
 
@@ -144,6 +144,11 @@ def _checks_by_name(series_result: Mapping[str, Any] | None) -> dict[str, Mappin
     return {c["name"]: c for c in (series_result or {}).get("checks") or [] if "name" in c}
 
 
+def _one_row(values: FloatVector | None) -> FloatMatrix | None:
+    """One series as a batch of one row (the layout :func:`make_batch` takes)."""
+    return None if values is None else values[np.newaxis, :]
+
+
 def series_diagnostics(
     inputs: SeriesInputs,
     series_result: Mapping[str, Any] | None = None,
@@ -160,15 +165,15 @@ def series_diagnostics(
     hold = inputs.has_holdout
     try:
         batch = make_batch(
-            [inputs.actuals],
-            [inputs.fitted],
+            inputs.actuals[np.newaxis, :],
+            inputs.fitted[np.newaxis, :],
             ids=[inputs.series_id],
             season_length=int(season_length),
             model_params=int(model_params),
-            holdout_actuals=[inputs.holdout_actuals] if hold else None,
-            holdout_forecasts=[inputs.holdout_forecasts] if hold else None,
-            holdout_lower=[inputs.holdout_lower] if inputs.has_interval else None,
-            holdout_upper=[inputs.holdout_upper] if inputs.has_interval else None,
+            holdout_actuals=_one_row(inputs.holdout_actuals) if hold else None,
+            holdout_forecasts=_one_row(inputs.holdout_forecasts) if hold else None,
+            holdout_lower=_one_row(inputs.holdout_lower) if inputs.has_interval else None,
+            holdout_upper=_one_row(inputs.holdout_upper) if inputs.has_interval else None,
             level=inputs.level if inputs.has_interval else None,
         )
     except InputError as exc:

@@ -191,7 +191,7 @@ def series_order(series: Sequence[Mapping[str, Any]]) -> list[Mapping[str, Any]]
         n_fail, n_warn = counts(s)
         weight = s.get("weight")
         w = float(weight) if isinstance(weight, (int, float)) and math.isfinite(weight) else 0.0
-        return (-SEVERITY.get(s.get("verdict"), 0), -n_fail, -n_warn, -w, str(s.get("id")))
+        return (-SEVERITY.get(str(s.get("verdict")), 0), -n_fail, -n_warn, -w, str(s.get("id")))
 
     return sorted(series, key=key)
 
@@ -318,10 +318,11 @@ def _series_table(series: Sequence[Mapping[str, Any]], series_href: SeriesHref) 
         warned = [c["name"] for c in checks if c.get("status") == "warn"]
         bias = s.get("bias") or {}
         sid = str(s.get("id"))
+        verdict = s.get("verdict")
         rows.append(
             f'<tr data-series="{_e(sid)}">'
             f'<td class="id"><a href="{_e(series_href(sid))}">{_e(sid)}</a></td>'
-            f'<td data-v="{SEVERITY.get(s.get("verdict"), 0)}">{_status(s.get("verdict"))}</td>'
+            f'<td data-v="{SEVERITY.get(str(verdict), 0)}">{_status(verdict)}</td>'
             f'<td data-v="{len(failed)}">{_e(", ".join(failed)) or "—"}</td>'
             f'<td data-v="{len(warned)}">{_e(", ".join(warned)) or "—"}</td>'
             f'<td class="num" data-v="{_sort_value(s.get("n_obs"))}">{_num(s.get("n_obs"))}</td>'
