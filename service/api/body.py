@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from typing import Any, TypeVar
 
-import orjson
 from fastapi import Request
 from pydantic import BaseModel, ValidationError
 
@@ -79,7 +78,3 @@ async def read_model(request: Request, model: type[M], limit: int) -> M:
     except ValidationError as exc:
         errors = validation_errors(exc.errors(), drop_body=False)
         raise ApiError(422, f"{errors[0]['loc']}: {errors[0]['message']}", errors=errors) from None
-
-
-def json_response_bytes(value: Any) -> bytes:
-    return orjson.dumps(value, option=orjson.OPT_SERIALIZE_NUMPY)

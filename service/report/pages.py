@@ -21,7 +21,6 @@ from service.core import CATALOGUE
 from .charts import Chart
 from .style import PAGE_CSS
 
-STATUSES = ("fail", "warn", "pass", "skipped")
 SEVERITY = {"fail": 3, "warn": 2, "pass": 1, "skipped": 0}
 REASONS_SHOWN = 20
 """Reasons listed in full on the report; the rest sit behind a "show more" toggle..."""
