@@ -83,6 +83,20 @@ def macro_residuals() -> np.ndarray:
     return out
 
 
+def nile() -> np.ndarray:
+    """NILE: statsmodels.datasets.nile, annual flow of the Nile at Aswan, 1871-1970 (T = 100)."""
+    from statsmodels.datasets import nile as dataset
+
+    return dataset.load_pandas().data["volume"].to_numpy(dtype=float)
+
+
+def sunspots() -> np.ndarray:
+    """SUNSPOTS: statsmodels.datasets.sunspots, yearly sunspot activity, 1700-2008 (T = 309)."""
+    from statsmodels.datasets import sunspots as dataset
+
+    return dataset.load_pandas().data["SUNACTIVITY"].to_numpy(dtype=float)
+
+
 # --- Ljung-Box / Box-Pierce (Ljung & Box 1978; Box & Pierce 1970) -------------------------------
 
 
@@ -256,3 +270,110 @@ WINKLER_SCORES = (
     (25.0, 10.0, 20.0, 0.2, 60.0),
     (8.0, 10.0, 20.0, 0.2, 30.0),
 )
+
+# --- Robust portmanteau test (Dalla, Giraitis & Phillips 2022) -----------------------------------
+
+# The computational lines of ac.test in the authors' R package testcorr (R/testcorr.R, version
+# 0.2.0; unchanged in 0.3.0), run in R 4.2.2 on the data named, printed to 15 significant digits
+# (hence TESTCORR_RTOL = 1e-12 where they are compared).
+TESTCORR_RTOL = 1e-12
+# NILE, lags 1..5: the robust t~_k, and Q~_m for m = 1..5 at thresholds 1.96 and 2.576.
+TESTCORR_NILE_T = (
+    4.17765096445521,
+    3.52374534507442,
+    3.10591242352145,
+    2.1760212394027,
+    2.36908679765807,
+)
+TESTCORR_NILE_Q_196 = (
+    17.4527675808135,
+    20.1696939629973,
+    20.4399035412683,
+    20.7423090501215,
+    28.659849737779,
+)
+TESTCORR_NILE_Q_2576 = (
+    17.4527675808135,
+    20.1696939629973,
+    27.1136981034787,
+    27.1703046586428,
+    314.392986165501,
+)
+# MACRO residuals, lags 1..10 at threshold 1.96: t~_k and Q~_10.
+TESTCORR_MACRO_T = (
+    -1.2729610193148,
+    -0.064912517113423,
+    1.47240445140198,
+    -1.1101815466463,
+    0.195983920542423,
+    2.51025167939589,
+    -0.403766907412931,
+    -0.407035534220459,
+    1.79510768946796,
+    0.197889119165109,
+)
+TESTCORR_MACRO_Q10 = 14.9551718795272
+# SUNSPOTS at threshold 1.96: t~_k for lags 1..3 and Q~_2 (testcorr's Q~_3, 60.930248871316,
+# solves with an indefinite R*, which the core replaces by the diagonal form).
+TESTCORR_SUNSPOTS_T = (8.90520714619839, 6.25932086850901, 0.718110642206145)
+TESTCORR_SUNSPOTS_Q2 = 80.6978875554087
+
+# --- Diebold-Mariano test, HLN variance (Harvey, Leybourne & Newbold 1997) ---------------------
+
+# The dieboldmariano package's tests (tests/dieboldmarianotest.py), given to 4 decimals (so
+# compared with atol 5e-5; the one-sided p-value to 3, atol 5e-4): a third-party implementation
+# of the same HLN formula, not a publication. Forecasts are passed as errors with actuals 0.
+DM_PACKAGE_ATOL = 5e-5
+# Squared loss, h = 1: forecasts 0..5 against 0, 2, 3, 3, 5, 6.
+DM_PACKAGE_SQUARED = {
+    "forecast_1": (0.0, 1.0, 2.0, 3.0, 4.0, 5.0),
+    "forecast_2": (0.0, 2.0, 3.0, 3.0, 5.0, 6.0),
+    "statistic": -2.4905,
+    "p_two_sided": 0.05513,
+}
+# Absolute loss, h = 3, 15 forecasts each; their one-sided p-value is P(T <= statistic).
+DM_PACKAGE_ABSOLUTE_H3 = {
+    "forecast_1": (
+        0.3675225224615024,
+        0.5450608127223211,
+        0.22044990720021074,
+        0.8688743471040006,
+        0.6072512228948467,
+        0.8582283746501538,
+        0.41662295816718187,
+        0.3812100211114714,
+        0.7185133356116706,
+        0.30827323290318875,
+        0.4297093624074402,
+        0.8615974488577858,
+        0.7240514514808826,
+        0.3450839595261038,
+        0.19675301374013598,
+    ),
+    "forecast_2": (
+        0.12794132529988733,
+        0.3679643204341153,
+        0.768715420996091,
+        0.09972248964114683,
+        0.27197653636654284,
+        0.28797629010039505,
+        0.9160213458582482,
+        0.6112628048698798,
+        0.5452873235576241,
+        0.06785907231746158,
+        0.6072666485541124,
+        0.6241575753989782,
+        0.39998026828867217,
+        0.19895665605941748,
+        0.8094941215215619,
+    ),
+    "statistic": 1.2109,
+    "p_less": 0.877,
+    "p_less_atol": 5e-4,
+}
+
+# --- Robust scale -----------------------------------------------------------------------------
+
+# Rousseeuw & Croux (1993): 1.4826 MAD estimates the standard deviation of a normal sample
+# (1 / Phi^-1(3/4), to 4 decimals; the core uses the same constant).
+MAD_TO_SD = 1.4826

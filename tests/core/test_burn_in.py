@@ -7,6 +7,7 @@ import pytest
 
 from service.core import InputError
 from service.core.burn_in import burn_in_head, burn_in_hint
+from tests.reference_values import MAD_TO_SD
 
 from .reference_data import observed, residuals
 
@@ -46,9 +47,10 @@ def test_robust_z_uses_median_and_mad_after_the_head():
     ref = x[10:]
     med = np.median(ref)
     mad = np.median(np.abs(ref - med))
-    # Robust z = |e - median| / (1.4826 MAD) (Rousseeuw & Croux 1993).
+    # Robust z = |e - median| / (1.4826 MAD) (tests/reference_values.py MAD_TO_SD:
+    # Rousseeuw & Croux 1993).
     np.testing.assert_allclose(
-        result.details["first_robust_z"][0], abs(x[0] - med) / (1.4826 * mad), rtol=1e-12
+        result.details["first_robust_z"][0], abs(x[0] - med) / (MAD_TO_SD * mad), rtol=1e-12
     )
 
 

@@ -19,6 +19,7 @@ from service.core.comparison import (
     holm,
 )
 from service.core.holdout import benchmark_forecasts
+from tests.reference_values import DM_PACKAGE_ABSOLUTE_H3, DM_PACKAGE_ATOL, DM_PACKAGE_SQUARED
 
 RTOL = 1e-8
 MODEL = np.array([[1.0, -2.0, 1.0, 3.0, -1.0, 2.0]])
@@ -108,25 +109,22 @@ def test_ewc_variance_equals_a_direct_per_series_implementation(loss):
 
 
 def test_third_party_implementation_values():
-    # The dieboldmariano package's tests (tests/dieboldmarianotest.py, 4 decimals): a
-    # third-party implementation of the same HLN formula, not a publication.
-    p1 = np.arange(6.0)
-    p2 = np.array([0.0, 2.0, 3.0, 3.0, 5.0, 6.0])
+    # tests/reference_values.py DM_PACKAGE_*: the dieboldmariano package's tests
+    # (tests/dieboldmarianotest.py, 4 decimals): a third-party implementation of the same HLN
+    # formula, not a publication.
+    ref = DM_PACKAGE_SQUARED
+    p1 = np.array(ref["forecast_1"])
+    p2 = np.array(ref["forecast_2"])
     result = dm_test(-p1[None, :], -p2[None, :], variance="acf", h=1)
-    np.testing.assert_allclose(result.statistic[0], -2.4905, atol=5e-5)
-    np.testing.assert_allclose(result.p_two_sided[0], 0.05513, atol=5e-5)
-    f1 = [0.3675225224615024, 0.5450608127223211, 0.22044990720021074, 0.8688743471040006]
-    f1 += [0.6072512228948467, 0.8582283746501538, 0.41662295816718187, 0.3812100211114714]
-    f1 += [0.7185133356116706, 0.30827323290318875, 0.4297093624074402, 0.8615974488577858]
-    f1 += [0.7240514514808826, 0.3450839595261038, 0.19675301374013598]
-    f2 = [0.12794132529988733, 0.3679643204341153, 0.768715420996091, 0.09972248964114683]
-    f2 += [0.27197653636654284, 0.28797629010039505, 0.9160213458582482, 0.6112628048698798]
-    f2 += [0.5452873235576241, 0.06785907231746158, 0.6072666485541124, 0.6241575753989782]
-    f2 += [0.39998026828867217, 0.19895665605941748, 0.8094941215215619]
+    np.testing.assert_allclose(result.statistic[0], ref["statistic"], atol=DM_PACKAGE_ATOL)
+    np.testing.assert_allclose(result.p_two_sided[0], ref["p_two_sided"], atol=DM_PACKAGE_ATOL)
+    ref = DM_PACKAGE_ABSOLUTE_H3
+    f1 = list(ref["forecast_1"])
+    f2 = list(ref["forecast_2"])
     result = dm_test(-np.array([f1]), -np.array([f2]), loss="absolute", variance="acf", h=3)
-    np.testing.assert_allclose(result.statistic[0], 1.2109, atol=5e-5)
+    np.testing.assert_allclose(result.statistic[0], ref["statistic"], atol=DM_PACKAGE_ATOL)
     # Their one-sided p-value for a positive statistic is P(T <= stat) = 1 - p_worse.
-    np.testing.assert_allclose(1 - result.p_worse[0], 0.877, atol=5e-4)
+    np.testing.assert_allclose(1 - result.p_worse[0], ref["p_less"], atol=ref["p_less_atol"])
 
 
 @pytest.mark.parametrize("n", [2, 3, 6, 12, 24, 100])

@@ -14,8 +14,9 @@ from service.core.ewc import (
     ewc_bins,
     ewc_long_run_variance,
 )
+from tests.reference_values import X20
 
-from .reference_data import X20, observed, residuals
+from .reference_data import observed, residuals
 
 RTOL = 1e-8
 
@@ -154,7 +155,7 @@ def test_batch_matches_direct_per_series_computation(bins):
 
 
 def test_x20_value():
-    # X20 (statsmodels' test_statstools.py): T = 20, B = 2.
+    # tests/reference_values.py X20 (statsmodels' test_statstools.py): T = 20, B = 2.
     ref = direct_ewc(X20, 2, level=0.9)
     result = ewc_bias(residuals([X20]), ci_level=0.9)
     np.testing.assert_allclose(result.statistic[0], ref["t"], rtol=RTOL)

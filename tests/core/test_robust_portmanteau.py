@@ -6,7 +6,6 @@ from __future__ import annotations
 import numpy as np
 import pytest
 from scipy import stats
-from statsmodels.datasets import nile, sunspots
 
 from service.core import InputError
 from service.core import robust_portmanteau as rp_module
@@ -15,54 +14,43 @@ from service.core.robust_portmanteau import (
     robust_lag_statistics,
     robust_portmanteau,
 )
+from tests.reference_values import (
+    TESTCORR_MACRO_Q10,
+    TESTCORR_MACRO_T,
+    TESTCORR_NILE_Q_196,
+    TESTCORR_NILE_Q_2576,
+    TESTCORR_NILE_T,
+    TESTCORR_RTOL,
+    TESTCORR_SUNSPOTS_Q2,
+    TESTCORR_SUNSPOTS_T,
+    macro_residuals,
+    nile,
+    sunspots,
+)
 
-from .reference_data import macro_residuals, residuals
+from .reference_data import residuals
 
 RTOL = 1e-8
 
-# Reference values: the computational lines of ac.test in the authors' R package testcorr
-# (R/testcorr.R, version 0.2.0; unchanged in 0.3.0), run in R 4.2.2 on the data named, printed
-# to 15 significant digits (hence rtol 1e-12 where they are compared).
-NILE_T = [4.17765096445521, 3.52374534507442, 3.10591242352145, 2.1760212394027, 2.36908679765807]
-NILE_Q_196 = [
-    17.4527675808135,
-    20.1696939629973,
-    20.4399035412683,
-    20.7423090501215,
-    28.659849737779,
-]
-NILE_Q_2576 = [
-    17.4527675808135,
-    20.1696939629973,
-    27.1136981034787,
-    27.1703046586428,
-    314.392986165501,
-]
-MACRO_T = [
-    -1.2729610193148,
-    -0.064912517113423,
-    1.47240445140198,
-    -1.1101815466463,
-    0.195983920542423,
-    2.51025167939589,
-    -0.403766907412931,
-    -0.407035534220459,
-    1.79510768946796,
-    0.197889119165109,
-]
-MACRO_Q10 = 14.9551718795272
-SUN_T = [8.90520714619839, 6.25932086850901, 0.718110642206145]
-REF_RTOL = 1e-12
+# tests/reference_values.py TESTCORR_*: the authors' R package testcorr (ac.test, version
+# 0.2.0, run in R 4.2.2), printed to 15 significant digits (TESTCORR_RTOL = 1e-12).
+NILE_T = TESTCORR_NILE_T
+NILE_Q_196 = TESTCORR_NILE_Q_196
+NILE_Q_2576 = TESTCORR_NILE_Q_2576
+MACRO_T = TESTCORR_MACRO_T
+MACRO_Q10 = TESTCORR_MACRO_Q10
+SUN_T = TESTCORR_SUNSPOTS_T
+REF_RTOL = TESTCORR_RTOL
 
 
 def _nile() -> np.ndarray:
-    # statsmodels' datasets.nile: annual Nile flow at Aswan, 1871-1970 (T = 100).
-    return nile.load_pandas().data["volume"].to_numpy(dtype=float)
+    # tests/reference_values.py nile: statsmodels' datasets.nile (T = 100).
+    return nile()
 
 
 def _sunspots() -> np.ndarray:
-    # statsmodels' datasets.sunspots: yearly sunspot activity, 1700-2008 (T = 309).
-    return sunspots.load_pandas().data["SUNACTIVITY"].to_numpy(dtype=float)
+    # tests/reference_values.py sunspots: statsmodels' datasets.sunspots (T = 309).
+    return sunspots()
 
 
 def direct_robust_q(
@@ -142,10 +130,11 @@ def test_indefinite_r_star_falls_back_to_the_diagonal_form():
     assert result.details["diagonal_fallback"][0]
     assert result.details["min_eigenvalue"][0] < 0
     np.testing.assert_allclose(result.statistic[0], np.sum(np.square(SUN_T)), rtol=REF_RTOL)
-    # With two lags R* is still positive definite and the value is testcorr's Q~_2.
+    # With two lags R* is still positive definite and the value is testcorr's Q~_2
+    # (tests/reference_values.py TESTCORR_SUNSPOTS_Q2).
     two = robust_portmanteau(x[None, :], lags=2)
     assert not two.details["diagonal_fallback"][0]
-    np.testing.assert_allclose(two.statistic[0], 80.6978875554087, rtol=REF_RTOL)
+    np.testing.assert_allclose(two.statistic[0], TESTCORR_SUNSPOTS_Q2, rtol=REF_RTOL)
 
 
 # --- Direct computation -----------------------------------------------------------------------
