@@ -222,8 +222,9 @@ def run_many(store: Store, jobs: list[Job]) -> list[Outcome | BaseException]:
     return outcomes  # type: ignore[return-value]
 
 
-def _lost_race(store: Store, job: Job) -> Outcome | ApiError:
-    """Another request with the same key was stored first: answer as its repeat would."""
+def _lost_race(store: Store, job: Job) -> Outcome | ApiError | StoreError:
+    """Another request with the same key was stored first: answer as its repeat would (or
+    with the store's error when the look-up fails)."""
     try:
         again = replay(store, job.idempotency_key, job.digest)  # type: ignore[arg-type]
     except ApiError as exc:  # the other request had another body: 409

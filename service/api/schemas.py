@@ -82,7 +82,7 @@ def _body_model(
     doc: str | None = None,
     nested: Mapping[str, type[BaseModel]] | None = None,
 ) -> type[BaseModel]:
-    return create_model(  # type: ignore[call-overload, no-any-return]
+    return create_model(  # type: ignore[call-overload]
         name,
         __config__=ConfigDict(extra="forbid"),
         __doc__=doc,
