@@ -94,3 +94,26 @@ def test_skips_with_reasons():
     assert result.skip_reason[3] == "fewer than 8 residuals"
     assert result.skip_reason[4] is None
     assert jarque_bera(residuals(rows), min_obs=5).skip_reason[2] is None
+
+
+def test_the_check_tests_with_shapiro_wilk_as_scipy_computes_it():
+    # scipy.stats.shapiro (algorithm AS R94, Royston 1995) on each row, ragged, with gaps; its
+    # Fortran code carries single-precision constants, hence rtol 1e-7.
+    from scipy import stats
+
+    from service.core import make_batch, residuals_of
+    from service.core.checks.normality import normality
+
+    rng = np.random.default_rng(31)
+    rows = [rng.standard_normal(n) for n in (8, 9, 11, 12, 20, 52, 104, 400)]
+    rows += [rng.standard_t(3, 60), rng.lognormal(0.0, 1.0, 80) - 1.6]
+    rows[5][[3, 17]] = np.nan  # gaps: the test runs on the observed residuals
+    batch = make_batch(rows, [np.zeros(len(r)) for r in rows])
+    result = normality(residuals_of(batch))
+    for i, row in enumerate(rows):
+        ref = stats.shapiro(row[~np.isnan(row)])
+        np.testing.assert_allclose(result.statistic[i], ref.statistic, rtol=1e-7)
+        np.testing.assert_allclose(result.p_value[i], ref.pvalue, rtol=1e-7)
+        assert result.details["method"][i] == "shapiro-wilk"
+    jb = jarque_bera(residuals_of(batch))
+    np.testing.assert_array_equal(result.details["jarque_bera"], jb.statistic)

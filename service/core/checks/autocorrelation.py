@@ -267,7 +267,8 @@ def autocorrelation_test(
     r = _lag_autocorrelations(res, used_lags)
     tested = mask[:, used_lags - 1] & np.isfinite(r)
     size = np.where(tested, np.abs(r), -1.0)
-    order = np.argsort(-size, axis=1, kind="stable")[:, :PEAKS]
+    # Ties (equal up to rounding) go to the shorter lag, whatever the summation order gave.
+    order = np.argsort(-np.round(size, 12), axis=1, kind="stable")[:, :PEAKS]
     rows = np.arange(n.shape[0])[:, None]
     peak_lags = np.where(size[rows, order] >= 0, used_lags[order], 0)
     peak_acf = np.where(size[rows, order] >= 0, r[rows, order], np.nan)
