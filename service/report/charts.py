@@ -140,7 +140,7 @@ def _acf(ax: Any, d: SeriesDiagnostics) -> None:
             color=ROLE_COLOURS["highlight"],
             alpha=0.10,
             linewidth=0,
-            label=f"lags 1–{d.ljung_box_lags} used by Ljung-Box",
+            label=f"lags 1–{d.ljung_box_lags} tested for autocorrelation",
         )
     b = d.acf_bound
     ax.axhspan(-b, b, color=GRID, alpha=0.6, linewidth=0)
@@ -310,7 +310,8 @@ _SPECS: dict[str, tuple[str, _Draw, _Caption]] = {
             "Sample autocorrelation of the residuals by lag, with the approximate 95% "
             f"bounds ±1.96/√T for white noise (T = {d.n_obs} residuals)"
             + (
-                f"; shaded: lags 1–{d.ljung_box_lags}, the ones the Ljung-Box test summed."
+                f"; shaded: lags 1–{d.ljung_box_lags}, the short lags the autocorrelation test "
+                "sums (the seasonal lags are tested apart)."
                 if d.ljung_box_lags
                 else "."
             )

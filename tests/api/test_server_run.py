@@ -39,4 +39,4 @@ def test_a_worker_app_has_the_environment_settings_without_start_up(monkeypatch,
         )
         assert settings.max_series == 12 and settings.database_url == url
     finally:
-        app.state.engine.dispose()
+        app.state.store.close()

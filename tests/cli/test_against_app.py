@@ -144,7 +144,19 @@ def test_csv_upload_with_options(cli, http, files):
 def test_csv_with_a_policy_file_and_labels_is_sent_as_json(cli, http, files, tmp_path):
     policy = tmp_path / "lenient.json"
     policy.write_text(
-        json.dumps({"name": "lenient-bias", "checks": {"bias": {"warn_p": 1e-60, "fail_p": 1e-60}}})
+        json.dumps(
+            {
+                "name": "lenient-bias",
+                "checks": {
+                    "bias": {
+                        "warn_p": 1e-60,
+                        "fail_p": 1e-60,
+                        "fleet_warn_p": 1e-60,
+                        "fleet_fail_p": 1e-60,
+                    }
+                },
+            }
+        )
     )
     csv_text = demo.to_csv(json.loads((files / "stale.json").read_text()))
     path = tmp_path / "stale.csv"

@@ -71,7 +71,7 @@ def test_every_chart_is_standalone_svg(charts: dict) -> None:
                 "Lag [periods]",
                 "Autocorrelation",
                 "±1.96/√T = ±0.193 (T = 103)",
-                "lags 1–20 used by Ljung-Box",
+                "lags 1–5 tested for autocorrelation",
             ],
         ),
         (
