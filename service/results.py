@@ -22,11 +22,12 @@ from __future__ import annotations
 import dataclasses
 import types
 import typing
-from collections.abc import Callable, Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from enum import StrEnum
-from functools import lru_cache
+from functools import cache, lru_cache
 from itertools import repeat
+from operator import itemgetter
 from types import MappingProxyType
 from typing import Any, overload
 
@@ -64,6 +65,7 @@ class Status(StrEnum):
 
 
 _SEVERITY = {Status.SKIPPED: 0, Status.PASS: 1, Status.WARN: 2, Status.FAIL: 3}
+_STATUS_OF = {s.value: s for s in Status}
 
 VERDICTS = ("pass", "warn", "fail")
 """Verdicts from best to worst (a series or a fleet is never ``skipped``)."""
@@ -224,13 +226,14 @@ class CheckColumns:
 
     def entry(self, i: int) -> SeriesCheck:
         """The typed entry of series ``i``."""
-        return SeriesCheck(
+        # From columns already checked (JSON scalars): made without checking them again.
+        return _maker(SeriesCheck)(
             name=self.name,
-            status=Status(self.status[i]),
+            status=_STATUS_OF[self.status[i]],
             statistic=self.statistic[i],
             p_value=self.p_value[i],
             p_adjusted=self.p_adjusted[i],
-            details={k: v[i] for k, v in self.details.items()},
+            details=MappingProxyType({k: v[i] for k, v in self.details.items()}),
             message=self.message[i],
         )
 
@@ -300,15 +303,20 @@ class SeriesColumns:
 
     def record(self, i: int) -> SeriesResult:
         """The typed record of series ``i``."""
-        return SeriesResult(
+        # From columns already checked (JSON scalars): made without checking them again.
+        return _maker(SeriesResult)(
             id=self.id[i],
-            verdict=Status(self.verdict[i]),
+            verdict=_STATUS_OF[self.verdict[i]],
             n_obs=self.n_obs[i],
             weight=self.weight[i],
-            sections={
-                key: None if cols is None else {k: v[i] for k, v in cols.items()}
-                for key, cols in self.sections.items()
-            },
+            sections=MappingProxyType(
+                {
+                    key: None
+                    if cols is None
+                    else MappingProxyType({k: v[i] for k, v in cols.items()})
+                    for key, cols in self.sections.items()
+                }
+            ),
             checks=tuple(c.entry(i) for c in self.checks),
         )
 
@@ -378,6 +386,11 @@ class SeriesTable(Sequence[SeriesResult]):
         object.__setattr__(self, "stop", stop)
 
     @classmethod
+    def of(cls, series: Iterable[SeriesResult]) -> SeriesTable:
+        """A table of typed records (every one with the same sections and checks)."""
+        return _read_table([s.to_dict() for s in series], "series")
+
+    @classmethod
     def empty(cls) -> SeriesTable:
         """A table of no series."""
         return cls(SeriesColumns(id=(), verdict=(), n_obs=(), weight=(), sections={}, checks=()))
@@ -436,6 +449,32 @@ class SeriesTable(Sequence[SeriesResult]):
         """Every series' id, in order."""
         return self.column("id")
 
+    @property
+    def check_names(self) -> tuple[str, ...]:
+        """The checks every series lists, in order."""
+        return tuple(c.name for c in self.columns.checks)
+
+    def check_column(self, check: str, name: str) -> tuple[Any, ...]:
+        """One field of :class:`SeriesCheck` (``"status"``, ``"statistic"``, ``"p_value"``,
+        ``"p_adjusted"``, ``"message"``) of check ``check`` for every series, as its JSON
+        values; ``KeyError`` when the check did not run."""
+        if name not in _CHECK_COLUMNS:
+            raise KeyError(f"{name!r} is not a column; the columns: {', '.join(_CHECK_COLUMNS)}")
+        for c in self.columns.checks:
+            if c.name == check:
+                values = getattr(c, name)
+                return values if self.whole else values[self.start : self.stop]
+        raise KeyError(f"no check {check!r} in these series")
+
+    def section_column(self, key: str, name: str) -> tuple[Any, ...] | None:
+        """Field ``name`` of section ``key`` for every series; ``None`` when the section is
+        ``None`` throughout (its check did not run)."""
+        cols = self.columns.sections.get(key)
+        if cols is None:
+            return None
+        values = cols[name]
+        return values if self.whole else values[self.start : self.stop]
+
     def find(self, series_id: str) -> SeriesResult | None:
         """The series with this id, or ``None``."""
         try:
@@ -458,7 +497,8 @@ class SeriesTable(Sequence[SeriesResult]):
 # ------------------------------------------------------------------------------ the result
 
 
-@dataclass(frozen=True, slots=True)
+# Not slotted: one per assessment, and assigning to any attribute raises FrozenInstanceError.
+@dataclass(frozen=True)
 class AssessmentResult(_Record):
     """The gate's result over one fleet: the verdict, the policy it was judged by, the
     reasons (worst first), one summary per check, the fleet's counts and statistics, and
@@ -506,7 +546,8 @@ class AssessmentResult(_Record):
         return _read_record(cls, data, "")
 
 
-@dataclass(frozen=True, slots=True)
+# Not slotted: one per assessment, and assigning to any attribute raises FrozenInstanceError.
+@dataclass(frozen=True)
 class AssessmentDocument(_Record):
     """An assessment as the API answers it: the envelope (``id`` is ``None`` when it was not
     stored), any further top-level fields a server added (``extra``, kept in order after the
@@ -831,12 +872,20 @@ def _rows(keys: tuple[str, ...], n: int, columns: Any) -> list[dict[str, Any]]:
     return _row_maker(keys)(*columns)
 
 
+@cache
+def _maker(cls: type) -> Callable[..., Any]:
+    """``make(**fields)``: an instance of the frozen ``cls`` from values already in their final
+    form (slices and entries of checked columns), set without checking them again."""
+    names = [f.name for f in dataclasses.fields(cls)]
+    body = "".join(f"    _set(obj, {n!r}, {n})\n" for n in names)
+    source = f"def make({', '.join(names)}):\n    obj = _new(_cls)\n{body}    return obj\n"
+    namespace = {"_new": object.__new__, "_set": object.__setattr__, "_cls": cls}
+    exec(source, namespace)  # the source is made of field names only
+    return namespace["make"]
+
+
 def _made(cls: type, **values: Any) -> Any:
-    """An instance of the frozen ``cls`` from values already in their final form."""
-    obj = object.__new__(cls)
-    for name, value in values.items():
-        object.__setattr__(obj, name, value)
-    return obj
+    return _maker(cls)(**values)
 
 
 def _frozen_columns(columns: Mapping[str, Any]) -> Mapping[str, tuple[Any, ...]]:
@@ -952,6 +1001,8 @@ def _read_value(hint: Any, value: Any, path: str, values: tuple[str, ...] | None
     base, optional = _optional(hint)
     if value is None and optional:
         return None
+    if base is Any:  # any JSON value, as it is
+        return value
     if base is SeriesTable:
         return _read_table(value, path)
     if _is_record(base):
@@ -961,6 +1012,8 @@ def _read_value(hint: Any, value: Any, path: str, values: tuple[str, ...] | None
         if not isinstance(value, list):
             raise _off(path, value, "a list")
         item = typing.get_args(base)[0]
+        if item in _FLAT:
+            return _read_flat_records(item, value, path)
         return tuple(_read_value(item, v, f"{path}[{i}]") for i, v in enumerate(value))
     if origin is Mapping:
         if not isinstance(value, Mapping):
@@ -991,12 +1044,16 @@ def _read_fields(cls: type, data: Mapping[str, Any], path: str) -> tuple[dict[st
     kwargs: dict[str, Any] = {}
     taken: set[str] = set()
     spread = None
+    # Inline records first: a document's result (its verdict first) before its envelope.
     for s in _SPECS[cls]:
         if s.inline and _is_record(s.hint):
             inner, _ = _read_fields(s.hint, data, path)
             kwargs[s.name] = s.hint(**inner)
             taken |= _KEYS[s.hint]
-        elif s.inline:
+    for s in _SPECS[cls]:
+        if s.inline and _is_record(s.hint):
+            continue
+        if s.inline:
             spread = s
         elif s.name not in data:
             raise ValueError(f"{_where(_join(path, s.name))} is missing")
@@ -1023,6 +1080,14 @@ def _keys(cls: type) -> frozenset[str]:
 
 
 _KEYS = {cls: _keys(cls) for cls in _RECORDS}
+# Records whose fields are all scalars (read column by column in a list).
+_FLAT = frozenset(
+    cls
+    for cls in _RECORDS
+    if all(
+        not s.inline and (s.hint is Status or _optional(s.hint)[0] in _SCALARS) for s in _SPECS[cls]
+    )
+)
 _NOUN = {
     PolicyRef: "a policy reference",
     Reason: "a reason",
@@ -1042,6 +1107,8 @@ _FAST: dict[Any, frozenset[type]] = {
     int: frozenset({int}),
     float: frozenset({float, int}),
     float | None: frozenset({float, int, _NONE}),
+    str | None: frozenset({str, _NONE}),
+    int | None: frozenset({int, _NONE}),
     Status: frozenset({str}),
     Any: frozenset({str, int, float, bool, _NONE}),
 }
@@ -1066,6 +1133,8 @@ def _objects(value: Any, path: Callable[[int], str] | str) -> list[Mapping[str, 
     """``value`` as a list of objects (``path`` names the list, or each item by position)."""
     if not isinstance(value, list):
         raise _off(str(path), value, "a list")
+    if all(type(v) is dict for v in value):  # as JSON decoders give them: the quick test
+        return value
     for i, v in enumerate(value):
         if not isinstance(v, Mapping):
             raise _off(path(i) if callable(path) else f"{path}[{i}]", v, "an object")
@@ -1076,8 +1145,10 @@ def _same_keys(
     rows: list[Mapping[str, Any]], keys: frozenset[str], path: Callable[[int], str]
 ) -> None:
     """Every row has exactly ``keys``; else the first key missing or extra is named."""
+    order = tuple(rows[0]) if rows else ()
     for i, row in enumerate(rows):
-        if row.keys() != keys:
+        # Rows usually list their keys in one order: comparing tuples is the quick test.
+        if tuple(row) != order and row.keys() != keys:
             missing = sorted(k for k in keys if k not in row)
             if missing:
                 raise ValueError(f"{_where(_join(path(i), missing[0]))} is missing")
@@ -1086,6 +1157,34 @@ def _same_keys(
                 f"{_where(_join(path(i), extra))} is not in {_where(path(0))} (every row "
                 "has the same fields)"
             )
+
+
+def _read_flat_records(cls: type, items: list[Any], path: str) -> tuple[Any, ...]:
+    """A list of records whose fields are all scalars, read column by column."""
+    _objects(items, path)
+    if not items:
+        return ()
+
+    def at(i: int) -> str:
+        return f"{path}[{i}]"
+
+    _same_keys(items, _KEYS[cls], at)
+    columns = []
+    for s in _SPECS[cls]:
+        column = _read_column(
+            s.hint,
+            list(map(itemgetter(s.name), items)),
+            lambda i, f=s.name: _join(at(i), f),
+            s.values,
+        )
+        columns.append([_STATUS_OF[v] for v in column] if s.hint is Status else column)
+    return tuple(_made_many(cls, columns))
+
+
+def _made_many(cls: type, columns: list[Any]) -> Iterator[Any]:
+    make = _maker(cls)
+    for row in zip(*columns, strict=True):
+        yield make(*row)
 
 
 def _read_table(value: Any, path: str) -> SeriesTable:
@@ -1106,7 +1205,7 @@ def _read_table(value: Any, path: str) -> SeriesTable:
     columns = {
         f: _read_column(
             _SERIES_SPECS[f].hint,
-            [r[f] for r in rows],
+            list(map(itemgetter(f), rows)),
             lambda i, f=f: _join(at(i), f),
             _SERIES_SPECS[f].values,
         )
@@ -1128,7 +1227,9 @@ def _read_object_columns(
     _objects(objects, at)
     _same_keys(objects, frozenset(objects[0]), at)
     return {
-        k: _read_column(Any, [o[k] for o in objects], lambda i, k=k: _join(at(i), k), None)
+        k: _read_column(
+            Any, list(map(itemgetter(k), objects)), lambda i, k=k: _join(at(i), k), None
+        )
         for k in objects[0]
     }
 
@@ -1169,7 +1270,10 @@ def _read_checks(lists: list[Any], at: Callable[[int], str]) -> tuple[CheckColum
         _same_keys(entries, keys, where)
         columns = {
             f: _read_column(
-                _CHECK_HINTS[f], [e[f] for e in entries], lambda i, f=f: _join(where(i), f), None
+                _CHECK_HINTS[f],
+                list(map(itemgetter(f), entries)),
+                lambda i, f=f: _join(where(i), f),
+                None,
             )
             for f in _CHECK_COLUMNS
         }
