@@ -38,6 +38,7 @@ __all__ = [
     "CheckColumns",
     "CheckSummary",
     "FleetSummary",
+    "JsonField",
     "PolicyRef",
     "Reason",
     "SeriesCheck",
@@ -45,6 +46,8 @@ __all__ = [
     "SeriesResult",
     "SeriesTable",
     "Status",
+    "json_fields",
+    "optional",
     "to_dicts",
     "verdict_blocks",
 ]
@@ -730,20 +733,35 @@ def _summary(
 
 
 @dataclass(frozen=True)
-class _Spec:
+class JsonField:
+    """One field of a record as its JSON sees it: the key (``name``), the resolved type
+    (``hint``), whether its entries are written into the parent object (``inline``) and, for a
+    status, the values it may take (``values``; ``None``: every status)."""
+
     name: str
     hint: Any
     inline: bool
     values: tuple[str, ...] | None
 
 
-def _specs(cls: type) -> tuple[_Spec, ...]:
+def _specs(cls: type) -> tuple[JsonField, ...]:
     hints = typing.get_type_hints(cls)
     return tuple(
-        _Spec(f.name, hints[f.name], bool(f.metadata.get("inline")), f.metadata.get("values"))
+        JsonField(f.name, hints[f.name], bool(f.metadata.get("inline")), f.metadata.get("values"))
         for f in dataclasses.fields(cls)
         if f.metadata.get("json", True)
     )
+
+
+def json_fields(cls: type) -> tuple[JsonField, ...]:
+    """The JSON fields of a record class, in order (what its ``to_dict`` writes and its
+    ``from_dict`` reads; an inline record's fields are its own)."""
+    return _SPECS[cls]
+
+
+def optional(hint: Any) -> tuple[Any, bool]:
+    """``(X, True)`` for a type ``X | None``, else ``(hint, False)``."""
+    return _optional(hint)
 
 
 def _is_record(hint: Any) -> bool:
@@ -1142,21 +1160,30 @@ def _objects(value: Any, path: Callable[[int], str] | str) -> list[Mapping[str, 
 
 
 def _same_keys(
-    rows: list[Mapping[str, Any]], keys: frozenset[str], path: Callable[[int], str]
+    rows: list[Mapping[str, Any]],
+    keys: frozenset[str],
+    path: Callable[[int], str],
+    noun: str | None = None,
 ) -> None:
-    """Every row has exactly ``keys``; else the first key missing or extra is named."""
-    order = tuple(rows[0]) if rows else ()
+    """Every row has exactly ``keys`` (the fields of ``noun``, else those of the first row);
+    else the first key missing or extra is named."""
+    order: tuple[str, ...] | None = None  # the keys of a row found right, in its order
     for i, row in enumerate(rows):
         # Rows usually list their keys in one order: comparing tuples is the quick test.
-        if tuple(row) != order and row.keys() != keys:
+        listed = tuple(row)
+        if listed == order:
+            continue
+        if row.keys() == keys:
+            order = listed
+        else:
             missing = sorted(k for k in keys if k not in row)
             if missing:
                 raise ValueError(f"{_where(_join(path(i), missing[0]))} is missing")
             extra = next(k for k in row if k not in keys)
-            raise ValueError(
-                f"{_where(_join(path(i), extra))} is not in {_where(path(0))} (every row "
-                "has the same fields)"
-            )
+            where = _where(_join(path(i), extra))
+            if noun is not None:
+                raise ValueError(f"{where} is not a field of {noun}")
+            raise ValueError(f"{where} is not in {_where(path(0))} (every row has the same fields)")
 
 
 def _read_flat_records(cls: type, items: list[Any], path: str) -> tuple[Any, ...]:
@@ -1168,7 +1195,7 @@ def _read_flat_records(cls: type, items: list[Any], path: str) -> tuple[Any, ...
     def at(i: int) -> str:
         return f"{path}[{i}]"
 
-    _same_keys(items, _KEYS[cls], at)
+    _same_keys(items, _KEYS[cls], at, _NOUN[cls])
     columns = []
     for s in _SPECS[cls]:
         column = _read_column(
@@ -1267,7 +1294,7 @@ def _read_checks(lists: list[Any], at: Callable[[int], str]) -> tuple[CheckColum
         def where(i: int, j: int = j) -> str:
             return f"{at(i)}[{j}]"
 
-        _same_keys(entries, keys, where)
+        _same_keys(entries, keys, where, _NOUN[SeriesCheck])
         columns = {
             f: _read_column(
                 _CHECK_HINTS[f],

@@ -32,7 +32,7 @@ from ..httputil import (
     json_body_doc,
     problem_docs,
 )
-from ..schemas import AssessmentPage, AssessmentResult, SeriesRowPage, Verdict
+from ..schemas import AssessmentDocument, AssessmentPage, SeriesRowPage, Verdict
 
 router = APIRouter(prefix="/v1/assessments", tags=["assessments"])
 
@@ -167,7 +167,7 @@ def _idempotency_key(value: str | None) -> str | None:
 @router.post(
     "",
     status_code=201,
-    response_model=AssessmentResult,
+    response_model=AssessmentDocument,
     summary="Assess a model's residuals over a fleet of series",
     responses={
         200: {
@@ -342,7 +342,7 @@ def stored_or_404(request: Request, assessment_id: str) -> repo.StoredAssessment
 
 @router.get(
     "/{assessment_id}",
-    response_model=AssessmentResult,
+    response_model=AssessmentDocument,
     summary="One assessment's full result, as the POST returned it",
     responses={304: {"description": "Not modified"}, **_READ_PROBLEMS},
 )
