@@ -9,7 +9,7 @@ Example::
     from service.client import PlumblineClient
 
     with PlumblineClient("http://127.0.0.1:8000", token="...") as client:
-        result = client.assess(body)  # an AssessmentDocument (service/results.py)
+        result = client.assess(body)  # an AssessmentDocument (service/results/)
         if result.blocks("fail"):
             raise SystemExit(1)
 

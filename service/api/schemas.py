@@ -84,7 +84,7 @@ class AssessmentBody(BaseModel):
 
 # --- assessment responses ---------------------------------------------------------------------
 #
-# Derived from the typed result (service/results.py), which owns the shape: one model per record,
+# Derived from the typed result (service/results/), which owns the shape: one model per record,
 # its fields in the record's order, an inline record's fields in its place, the series sections
 # and fleet statistics the registered checks declare in theirs. tests/api/test_result_models.py
 # validates every example answer and the demo's against them.

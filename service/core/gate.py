@@ -25,7 +25,7 @@ from typing import Any
 
 import numpy as np
 
-# The result records hold the assessment's JSON shape, owned by service/results.py (no numpy).
+# The result records hold the assessment's JSON shape, owned by service/results/ (no numpy).
 from service.results import (
     AssessmentResult,
     CheckColumns,

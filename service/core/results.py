@@ -13,7 +13,7 @@ from typing import Any, Literal
 
 import numpy as np
 
-# The statuses of the assessment result (service/results.py, free of numpy), used here too.
+# The statuses of the assessment result (service/results/, free of numpy), used here too.
 from service.results import Status as Status
 
 from .types import FloatVector, ObjectVector

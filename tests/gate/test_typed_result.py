@@ -1,4 +1,4 @@
-"""The typed result (service/results.py): the gate's records, their one serializer, reading a
+"""The typed result (service/results/): the gate's records, their one serializer, reading a
 document back, the series table and the plain-text summary."""
 
 from __future__ import annotations
@@ -191,6 +191,8 @@ def _broken(change) -> dict:
             "'series[1].checks[3].p_value' is '0.1', expected a number or null",
         ),
         (lambda d: d["series"][2].pop("n_obs"), "'series[2].n_obs' is missing"),
+        (lambda d: d["series"][1].update(n_obs=None), "'series[1].n_obs' is None, expected an in"),
+        (lambda d: d["series"][0]["checks"][0].update(message=None), "checks[0].message' is None"),
         (lambda d: d["series"][2]["checks"].reverse(), "'series[2].checks' lists other checks"),
         (lambda d: d["series"][1].update(bias=None), "'series[1].bias' is None, expected an ob"),
         (lambda d: d.update(labels={"a": 1}), "'labels.a' is 1, expected a string"),
@@ -200,6 +202,11 @@ def _broken(change) -> dict:
 def test_from_dict_names_the_first_field_that_is_off(change, message):
     with pytest.raises(ValueError, match=message.replace("[", r"\[").replace("]", r"\]")):
         AssessmentDocument.from_dict(_broken(change))
+
+
+def test_null_where_the_type_allows_it():
+    d = _broken(lambda d: d["series"][1].update(weight=None))
+    assert AssessmentDocument.from_dict(d).series[1].weight is None
 
 
 def test_further_top_level_fields_are_kept():
