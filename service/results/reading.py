@@ -226,7 +226,7 @@ def _read_column(
 ) -> tuple[Any, ...]:
     """A column of JSON values of type ``hint``, kept as they are (statuses as strings)."""
     fast = _FAST.get(hint)
-    if fast is not None and {type(v) for v in column} <= fast:
+    if fast is not None and set(map(type, column)) <= fast:
         if hint is not Status or set(column) <= set(values or _STATUS_VALUES):
             return tuple(column)
     base, nullable = optional(hint)
