@@ -75,7 +75,7 @@ def _freeze(obj: Any, name: str) -> None:
     object.__setattr__(obj, name, _frozen(getattr(obj, name)))
 
 
-# The generated functions' globals: the helpers and, by class, each serializer made so far.
+# The generated functions' globals: _plain and, by class, each serializer made so far.
 NAMESPACE: dict[str, Any] = {"_plain": _plain}
 
 
