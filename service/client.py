@@ -9,7 +9,7 @@ Example::
     from service.client import PlumblineClient
 
     with PlumblineClient("http://127.0.0.1:8000", token="...") as client:
-        result = client.assess(body)
+        result = client.assess(body)  # an AssessmentDocument (service/results/)
         if result.blocks("fail"):
             raise SystemExit(1)
 
@@ -24,13 +24,26 @@ import time
 import uuid
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
-from types import MappingProxyType
 from typing import Any
 
 import httpx
 
+# The result records and their reader: standard library only, no numpy, no core.
+from .results import (
+    VERDICTS,
+    AssessmentDocument,
+    AssessmentResult,
+    CheckSummary,
+    PolicyRef,
+    Reason,
+    SeriesCheck,
+    SeriesResult,
+    verdict_blocks,
+)
+
 __all__ = [
     "VERDICTS",
+    "AssessmentDocument",
     "AssessmentPage",
     "AssessmentResult",
     "AssessmentSummary",
@@ -40,6 +53,8 @@ __all__ = [
     "PolicyRef",
     "Reason",
     "RequestRejected",
+    "SeriesCheck",
+    "SeriesResult",
     "ServerError",
     "ServerUnreachable",
     "TokenCreated",
@@ -47,21 +62,6 @@ __all__ = [
     "VerdictResult",
     "verdict_blocks",
 ]
-
-VERDICTS = ("pass", "warn", "fail")
-"""Verdicts from best to worst."""
-
-_RANK = {v: i for i, v in enumerate(VERDICTS)}
-
-
-def verdict_blocks(verdict: str, fail_on: str = "fail") -> bool:
-    """True when ``verdict`` is at or worse than ``fail_on`` (both one of :data:`VERDICTS`)."""
-    if fail_on not in _RANK:
-        raise ValueError(f"fail_on must be one of {', '.join(VERDICTS)}, got {fail_on!r}")
-    if verdict not in _RANK:
-        raise ValueError(f"verdict must be one of {', '.join(VERDICTS)}, got {verdict!r}")
-    return _RANK[verdict] >= _RANK[fail_on]
-
 
 # --------------------------------------------------------------------------- errors
 
@@ -137,132 +137,6 @@ def _describe(exc: Exception) -> str:
 
 
 @dataclass(frozen=True)
-class PolicyRef:
-    """The policy an assessment was judged by."""
-
-    name: str
-    version: int | None
-
-
-@dataclass(frozen=True)
-class Reason:
-    """One warn or fail, as a sentence a person can act on."""
-
-    check: str
-    status: str
-    series_id: str | None
-    message: str
-
-
-@dataclass(frozen=True)
-class CheckSummary:
-    """One check across the fleet."""
-
-    name: str
-    status: str
-    series_tested: int
-    series_failed: int
-    series_warned: int
-    failed_share: float | None
-    message: str
-
-
-@dataclass(frozen=True)
-class AssessmentResult:
-    """An assessment as the API returns it (or as ``--offline`` computes it).
-
-    ``data`` holds the whole JSON answer (a read-only view of its top level; treat the nested
-    values as read-only too), the typed fields the parts a caller usually needs. ``id`` is
-    ``None`` when the result was not stored; ``replayed`` is true when the server answered a
-    repeated ``Idempotency-Key`` with the result it had stored before.
-    """
-
-    id: str | None
-    created_at: str | None
-    model: str | None
-    version: str | None
-    verdict: str
-    policy: PolicyRef
-    reasons: tuple[Reason, ...]
-    checks: tuple[CheckSummary, ...]
-    series_verdicts: tuple[tuple[str, str], ...]
-    data: Mapping[str, Any]
-    replayed: bool = False
-
-    @property
-    def n_series(self) -> int:
-        return len(self.series_verdicts)
-
-    def count(self, verdict: str) -> int:
-        """How many series got ``verdict``."""
-        return sum(1 for _, v in self.series_verdicts if v == verdict)
-
-    def blocks(self, fail_on: str = "fail") -> bool:
-        """True when the verdict is at or worse than ``fail_on``."""
-        return verdict_blocks(self.verdict, fail_on)
-
-    def to_dict(self) -> dict[str, Any]:
-        """A copy of the full JSON answer as a plain dict."""
-        import orjson
-
-        return orjson.loads(orjson.dumps(dict(self.data)))
-
-    @classmethod
-    def from_json(cls, data: Mapping[str, Any], *, replayed: bool = False) -> AssessmentResult:
-        """Build from the API's JSON; raises ``ValueError`` naming the first field that is off."""
-        if not isinstance(data, Mapping):
-            raise ValueError("expected a JSON object")
-        verdict = data.get("verdict")
-        if verdict not in _RANK:
-            raise ValueError(f"'verdict' is {verdict!r}, expected one of {', '.join(VERDICTS)}")
-        policy = data.get("policy") or {}
-        if not isinstance(policy, Mapping):
-            raise ValueError("'policy' is not an object")
-        reasons = tuple(
-            Reason(
-                check=str(r["check"]),
-                status=str(r["status"]),
-                series_id=None if r.get("series_id") is None else str(r["series_id"]),
-                message=str(r.get("message", "")),
-            )
-            for r in _items(data, "reasons")
-        )
-        checks = tuple(
-            CheckSummary(
-                name=str(c["name"]),
-                status=str(c["status"]),
-                series_tested=int(c.get("series_tested") or 0),
-                series_failed=int(c.get("series_failed") or 0),
-                series_warned=int(c.get("series_warned") or 0),
-                failed_share=None if c.get("failed_share") is None else float(c["failed_share"]),
-                message=str(c.get("message", "")),
-            )
-            for c in _items(data, "checks")
-        )
-        series = tuple((str(s["id"]), str(s["verdict"])) for s in _items(data, "series"))
-        return cls(
-            id=None if data.get("id") is None else str(data["id"]),
-            created_at=data.get("created_at"),
-            model=data.get("model"),
-            version=None if data.get("version") is None else str(data["version"]),
-            verdict=str(verdict),
-            policy=PolicyRef(name=str(policy.get("name", "")), version=policy.get("version")),
-            reasons=reasons,
-            checks=checks,
-            series_verdicts=series,
-            data=MappingProxyType(dict(data)),
-            replayed=replayed,
-        )
-
-
-def _items(data: Mapping[str, Any], key: str) -> list[Mapping[str, Any]]:
-    items = data.get(key) or []
-    if not isinstance(items, list) or not all(isinstance(i, Mapping) for i in items):
-        raise ValueError(f"'{key}' is not a list of objects")
-    return items
-
-
-@dataclass(frozen=True)
 class AssessmentSummary:
     """One row of ``GET /v1/assessments``."""
 
@@ -329,7 +203,7 @@ class VerdictResult:
         if not isinstance(data, Mapping):
             raise ValueError("expected a JSON object")
         verdict = data.get("verdict")
-        if verdict not in _RANK:
+        if verdict not in VERDICTS:
             raise ValueError(f"'verdict' is {verdict!r}, expected one of {', '.join(VERDICTS)}")
         return cls(
             model=str(data.get("model", "")),
@@ -456,7 +330,7 @@ class PlumblineClient:
         params: Mapping[str, Any] | None = None,
         store: bool = True,
         idempotency_key: str | None = None,
-    ) -> AssessmentResult:
+    ) -> AssessmentDocument:
         """``POST /v1/assessments`` with a JSON ``body`` or ``csv`` text (long format).
 
         ``params`` become query parameters (for CSV: model, version, policy, season_length,
@@ -486,12 +360,12 @@ class PlumblineClient:
         resp = self._send("POST", "/v1/assessments", content=content, headers=headers, params=query)
         data = self._json(resp)
         replayed = resp.status_code == 200 or resp.headers.get("Idempotent-Replayed") == "true"
-        return self._parse(AssessmentResult.from_json, data, replayed=replayed)
+        return self._parse(AssessmentDocument.from_dict, data, replayed=replayed)
 
-    def assessment(self, assessment_id: str) -> AssessmentResult:
+    def assessment(self, assessment_id: str) -> AssessmentDocument:
         """``GET /v1/assessments/{id}``: a stored result."""
         resp = self._send("GET", f"/v1/assessments/{_segment(assessment_id)}")
-        return self._parse(AssessmentResult.from_json, self._json(resp))
+        return self._parse(AssessmentDocument.from_dict, self._json(resp))
 
     def list_assessments(
         self,

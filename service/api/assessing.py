@@ -11,14 +11,16 @@ import hashlib
 import time
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from datetime import datetime
 from typing import Any
 
 import numpy as np
 import orjson
 
-from service.core.gate import assess_many_dicts
+from service.core.gate import assess_many_results
 from service.core.policy import Policy
 from service.ingest import AssessmentRequest, parse_csv_request, parse_json_request
+from service.results import AssessmentDocument, AssessmentResult, to_dicts
 from service.settings import Settings
 from service.store.port import Store, StoreConflict, StoreError
 from service.store.records import (
@@ -155,7 +157,7 @@ def resolve_policies(store: Store, jobs: list[Job]) -> list[Exception | None]:
         spec = job.req.policy
         clock = time.perf_counter()
         if job.policy is not None:
-            errors.append(None)
+            errors.append(_weights_unused(job))
             continue
         try:
             if not isinstance(spec, str):
@@ -173,8 +175,32 @@ def resolve_policies(store: Store, jobs: list[Job]) -> list[Exception | None]:
             continue
         job.policy, job.document = hit
         job.timings["policy"] = time.perf_counter() - clock
-        errors.append(None)
+        errors.append(_weights_unused(job))
     return errors
+
+
+def _weights_unused(job: Job) -> ApiError | None:
+    """Weights given to a policy whose weighting ignores them: a 422 naming both, rather than
+    weights silently dropped (the core refuses the same, ``WeightsNotUsed``)."""
+    policy = job.policy
+    given = job.req.batch.weights_given
+    if policy is None or policy.fleet.weighting not in ("volume", "count") or not given.any():
+        return None
+    first = int(np.argmax(given))
+    weighting = policy.fleet.weighting
+    return ApiError(
+        422,
+        f"series[{first}].weight is given, but the policy weighs series by {weighting!r}, "
+        "which ignores given weights: leave the weights out, or use a policy whose "
+        "fleet.weighting is 'auto' or 'given'",
+        errors=[
+            {"loc": f"series[{first}].weight", "message": "given, but the policy ignores it"},
+            {
+                "loc": "policy.fleet.weighting",
+                "message": f"is {weighting!r}, which ignores given weights",
+            },
+        ],
+    )
 
 
 def run_many(store: Store, jobs: list[Job]) -> list[Outcome | BaseException]:
@@ -182,22 +208,25 @@ def run_many(store: Store, jobs: list[Job]) -> list[Outcome | BaseException]:
 
     Policies not yet resolved are resolved first (:func:`resolve_policies`). The checks of
     jobs that share a policy and shape run in one vectorised pass
-    (:func:`service.core.gate.assess_many_dicts`); each job is still decided and answered on its own
-    series alone. A job's own failure is returned in its place: an unknown policy, an
+    (:func:`service.core.gate.assess_many_results`); each job is still decided and answered on
+    its own series alone. A job's own failure is returned in its place: an unknown policy, an
     idempotency race it lost to a different body, a database error looking its policy up or
     on its write (then it was not written; jobs with ``store`` false keep their answers).
     """
     outcomes: list[Outcome | BaseException | None] = list(resolve_policies(store, jobs))
     ready = [i for i, o in enumerate(outcomes) if o is None]
     clock = time.perf_counter()
-    results = assess_many_dicts([(jobs[i].req.batch, jobs[i].policy) for i in ready])  # type: ignore[misc]
+    results = assess_many_results([(jobs[i].req.batch, jobs[i].policy) for i in ready])  # type: ignore[misc]
+    documents = [_document(jobs[i], result) for i, result in zip(ready, results, strict=True)]
+    # One serializer for the whole pass: the stacked submissions' rows are built at once.
+    encoded = to_dicts(documents)
     shared = time.perf_counter() - clock
     records: list[tuple[int, NewAssessment]] = []
-    for i, result in zip(ready, results, strict=True):
+    for i, doc, data in zip(ready, documents, encoded, strict=True):
         job = jobs[i]
         job.timings["assess"] = shared
         clock = time.perf_counter()
-        outcomes[i], record = _answer(job, result)
+        outcomes[i], record = _answer(job, doc, data)
         job.timings["encode"] = time.perf_counter() - clock
         if record is not None:
             records.append((i, record))
@@ -241,55 +270,67 @@ def _lost_race(store: Store, job: Job) -> Outcome | ApiError | StoreError:
     )
 
 
-def _answer(job: Job, result: dict[str, Any]) -> tuple[Outcome, NewAssessment | None]:
-    """The response body of one job and, when it is stored, the record to write."""
-    req, store, policy = job.req, job.store, job.policy
-    series = result.pop("series")
-    created = utcnow()
-    assessment_id = new_id() if store else None
-    head: dict[str, Any] = {
-        "id": assessment_id,
-        "created_at": created.isoformat(),
-        "model": req.model,
-        "version": req.version,
-        "stored": store,
-        "labels": req.labels,
-        "season_length": req.season_length,
-        "model_params": req.model_params,
-        **result,
-    }
-    verdict = str(result["verdict"])
+def _document(job: Job, result: AssessmentResult) -> AssessmentDocument:
+    """The answer of one job: its result in the envelope (a new id when it is stored)."""
+    req = job.req
+    return AssessmentDocument(
+        id=new_id() if job.store else None,
+        created_at=utcnow().isoformat(),
+        model=req.model,
+        version=req.version,
+        stored=job.store,
+        labels=req.labels,
+        season_length=req.season_length,
+        model_params=req.model_params,
+        extra={},
+        result=result,
+    )
+
+
+def _answer(
+    job: Job, doc: AssessmentDocument, data: dict[str, Any]
+) -> tuple[Outcome, NewAssessment | None]:
+    """The response body of one job (``data`` is ``doc.to_dict()``) and, when it is stored,
+    the record to write."""
+    req, store = job.req, job.store
+    result = doc.result
+    verdict = str(result.verdict)
+    n_series = result.n_series
     if not store:
-        head["series"] = series
         return Outcome(
-            body=orjson.dumps(head, option=_DUMP),
+            body=orjson.dumps(data, option=_DUMP),
             assessment_id=None,
             verdict=verdict,
             replayed=False,
-            n_series=len(series),
+            n_series=n_series,
             timings=job.timings,
         ), None
-    head_json = orjson.dumps(head, option=_DUMP)
+    series = data.pop("series")  # the last key: stored row by row, the rest as the head
+    head_json = orjson.dumps(data, option=_DUMP)
     encoded = [orjson.dumps(s, option=_DUMP) for s in series]
     body = head_json[:-1] + b',"series":[' + b",".join(encoded) + b"]}"
-    fleet = result.get("fleet") or {}
-    verdicts = [s.get("verdict") for s in series]
-    pol = result.get("policy") or {}
+    table = result.series
     record = NewAssessment(
-        assessment_id=assessment_id,  # type: ignore[arg-type]
-        created_at=created,
+        assessment_id=doc.id,  # type: ignore[arg-type]
+        created_at=datetime.fromisoformat(doc.created_at),  # type: ignore[arg-type]
         model=req.model,
         version=req.version,
         verdict=verdict,
-        n_failed=int(fleet.get("n_failed", verdicts.count("fail"))),
-        n_warned=int(fleet.get("n_warned", verdicts.count("warn"))),
-        policy_name=str(pol.get("name", policy.name)),  # type: ignore[union-attr]
-        policy_version=int(pol.get("version", policy.version)),  # type: ignore[union-attr]
+        n_failed=result.fleet.n_failed,
+        n_warned=result.fleet.n_warned,
+        policy_name=result.policy.name,
+        policy_version=result.policy.version,
         policy_document=job.document,  # type: ignore[arg-type]
         head=head_json,
         series=[
-            SeriesResult(series_id=s["id"], verdict=s["verdict"], n_obs=int(s["n_obs"]), json=e)
-            for s, e in zip(series, encoded, strict=True)
+            SeriesResult(series_id=sid, verdict=v, n_obs=n, json=e)
+            for sid, v, n, e in zip(
+                table.ids,
+                table.column("verdict"),
+                table.column("n_obs"),
+                encoded,
+                strict=True,
+            )
         ],
         inputs=_inputs(req),
         idempotency_key=job.idempotency_key if store else None,
@@ -297,9 +338,9 @@ def _answer(job: Job, result: dict[str, Any]) -> tuple[Outcome, NewAssessment | 
     )
     return Outcome(
         body=body,
-        assessment_id=assessment_id,
+        assessment_id=doc.id,
         verdict=verdict,
         replayed=False,
-        n_series=len(series),
+        n_series=n_series,
         timings=job.timings,
     ), record

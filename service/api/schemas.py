@@ -7,12 +7,16 @@ describe them in the OpenAPI document, built from the request's field tables
 
 from __future__ import annotations
 
+import dataclasses
+import typing
 from collections.abc import Mapping
 from datetime import datetime
 from typing import Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, create_model
 
+from service import results
+from service.core.registry import all_checks
 from service.ingest import shape
 from service.ingest.shape import FieldSpec
 
@@ -102,74 +106,123 @@ AssessmentBody = _body_model(
 
 
 # --- assessment responses ---------------------------------------------------------------------
+#
+# Derived from the typed result (service/results/), which owns the shape: one model per record,
+# its fields in the record's order, an inline record's fields in its place, the series sections
+# and fleet statistics the registered checks declare in theirs. tests/api/test_result_models.py
+# validates every example answer and the demo's against them.
 
 
-class PolicyRef(BaseModel):
-    name: str
-    version: int
+# Where the API says more than the record's type: the server always dates its answers.
+_API_TYPES: dict[tuple[type, str], Any] = {(results.AssessmentDocument, "created_at"): datetime}
+_MODELS: dict[type, type[BaseModel]] = {}
+_DESCRIPTIONS = {
+    results.AssessmentDocument: "The full result of an assessment (``id`` is null when computed "
+    "with ``store=false``).",
+}
 
 
-class Reason(BaseModel):
-    check: str
-    status: CheckStatus
-    series_id: str | None
-    message: str
+def _annotation(hint: Any, values: tuple[str, ...] | None = None) -> Any:
+    """The pydantic type of a record field's type."""
+    base, nullable = results.optional(hint)
+    if base is results.Status:
+        out: Any = Literal[tuple(values or [s.value for s in results.Status])]  # type: ignore[valid-type]
+    elif base is results.SeriesTable:
+        out = list[_record_model(results.SeriesResult)]  # type: ignore[valid-type]
+    elif isinstance(base, type) and base in _RECORDS:
+        out = _record_model(base)
+    elif typing.get_origin(base) is tuple:
+        out = list[_annotation(typing.get_args(base)[0])]  # type: ignore[misc]
+    elif typing.get_origin(base) is Mapping:
+        out = dict[str, _annotation(typing.get_args(base)[1])]  # type: ignore[misc]
+    else:
+        out = base  # str, int, float, bool, Any
+    return out | None if nullable else out
 
 
-class FleetCheck(BaseModel):
-    name: str
-    status: CheckStatus
-    series_tested: int
-    series_failed: int
-    series_warned: int
-    failed_share: float | None
-    message: str
+def _flat_model(name: str, fields: dict[str, Any]) -> type[BaseModel]:
+    """A model of number fields (a section or a fleet statistic), each required."""
+    return create_model(  # type: ignore[call-overload, no-any-return]
+        name, __config__=ConfigDict(extra="forbid"), **{k: (t, ...) for k, t in fields.items()}
+    )
 
 
-class SeriesCheck(BaseModel):
-    name: str
-    status: CheckStatus
-    statistic: float | None
-    p_value: float | None
-    p_adjusted: float | None
-    details: dict[str, Any]
-    message: str | None = None
+def _sections() -> dict[str, Any]:
+    """The series sections the checks declare: ``bias`` and the like, null when their check
+    did not run."""
+    out: dict[str, Any] = {}
+    for check in all_checks():
+        if check.section is not None:
+            key = check.section.key
+            fields = {field: float | None for field, _, _ in check.section.fields}
+            out[key] = (_flat_model(f"Series{key.title()}", fields) | None, ...)
+    return out
 
 
-class SeriesBias(BaseModel):
-    mean_error: float | None
-    std_error: float | None
-    ci_low: float | None
-    ci_high: float | None
-    percent_bias: float | None
-    tracking_signal: float | None
+def _fleet_statistics() -> dict[str, Any]:
+    """The fleet-level statistics the checks declare (``bias``): their record's fields, numbers
+    or null (non-finite values are written as null)."""
+    out: dict[str, Any] = {}
+    for check in all_checks():
+        if check.fleet is not None:
+            record = type(check.fleet.empty.result)
+            hints = typing.get_type_hints(record)
+            fields = {
+                f.name: (hints[f.name] if hints[f.name] is int else float | None)
+                for f in dataclasses.fields(record)
+            }
+            out[check.fleet.key] = (_flat_model(f"Fleet{check.fleet.key.title()}", fields), ...)
+    return out
 
 
-class SeriesResult(BaseModel):
-    id: str
-    verdict: Verdict | Literal["skipped"]
-    n_obs: int
-    bias: SeriesBias | dict[str, Any]
-    checks: list[SeriesCheck]
+def _record_model(cls: type) -> type[BaseModel]:
+    if cls in _MODELS:
+        return _MODELS[cls]
+    fields: dict[str, Any] = {}
+    extra = "forbid"
+    for f in _inlined(cls):
+        if not f.inline:
+            hint = _API_TYPES.get((cls, f.name))
+            fields[f.name] = (_annotation(f.hint, f.values) if hint is None else hint, ...)
+        elif cls is results.SeriesResult:
+            fields.update(_sections())
+        elif cls is results.FleetSummary:
+            fields.update(_fleet_statistics())
+        else:  # the document's further top-level fields
+            extra = "allow"
+    _MODELS[cls] = model = create_model(  # type: ignore[call-overload]
+        cls.__name__,
+        __config__=ConfigDict(extra=extra),
+        __doc__=_DESCRIPTIONS.get(cls),
+        **fields,
+    )
+    return model  # type: ignore[no-any-return]
 
 
-class AssessmentResult(BaseModel):
-    """The full result of an assessment (``id`` is null when computed with ``store=false``)."""
+def _inlined(cls: type) -> list[results.JsonField]:
+    """The record's JSON fields with each inline record's own fields in its place."""
+    out: list[results.JsonField] = []
+    for f in results.json_fields(cls):
+        if f.inline and f.hint in _RECORDS:
+            out += _inlined(f.hint)
+        else:
+            out.append(f)
+    return out
 
-    id: str | None
-    created_at: datetime
-    model: str
-    version: str
-    stored: bool
-    labels: dict[str, str]
-    season_length: int
-    model_params: int
-    policy: PolicyRef
-    verdict: Verdict
-    reasons: list[Reason]
-    checks: list[FleetCheck]
-    fleet: dict[str, Any]
-    series: list[SeriesResult]
+
+_RECORDS = (
+    results.PolicyRef,
+    results.Reason,
+    results.CheckSummary,
+    results.SeriesCheck,
+    results.SeriesResult,
+    results.FleetSummary,
+    results.AssessmentResult,
+    results.AssessmentDocument,
+)
+
+PolicyRef = _record_model(results.PolicyRef)
+AssessmentDocument = _record_model(results.AssessmentDocument)
 
 
 class AssessmentSummary(BaseModel):

@@ -6,7 +6,7 @@ import argparse
 import sys
 from typing import IO, Any
 
-from ..client import AssessmentResult, ClientError
+from ..client import AssessmentDocument, ClientError
 from . import render
 from .connect import client_from_args, note, retry_notice, server_from_args
 from .csvbody import csv_as_body, errors_line, parse_csv
@@ -50,7 +50,7 @@ def run(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
     code = Exit.BLOCKS if result.blocks(args.fail_on) else Exit.PASSES
     args.exit_code = code  # what main answers if the output pipe closes early
     if args.json:
-        render.dump_json(result.data, out)
+        render.dump_json(result.to_dict(), out)
     else:
         render.assessment(result, out, fail_on=args.fail_on, where=where, link=link)
     return code
@@ -61,7 +61,9 @@ def _what(verb: str, inp: AssessInput) -> str:
     return f"{verb} {inp.name}" + ("" if n is None else f" ({n:,} series)")
 
 
-def send(client: Any, inp: AssessInput, *, store: bool, key: str | None = None) -> AssessmentResult:
+def send(
+    client: Any, inp: AssessInput, *, store: bool, key: str | None = None
+) -> AssessmentDocument:
     """One assessment on the server (retried with one Idempotency-Key by the client)."""
     body = inp.body
     if inp.kind == "csv":
@@ -74,7 +76,7 @@ def send(client: Any, inp: AssessInput, *, store: bool, key: str | None = None) 
         raise CliError(f"{inp.name}: {exc}") from None
 
 
-def report_link(client: Any, result: AssessmentResult) -> str | None:
+def report_link(client: Any, result: AssessmentDocument) -> str | None:
     """A shareable link to the result's report, made by the server
     (``POST /v1/assessments/{id}/links``); ``None`` when it offers none or refuses."""
     try:
@@ -84,7 +86,7 @@ def report_link(client: Any, result: AssessmentResult) -> str | None:
         return None
 
 
-def assess_offline(inp: AssessInput) -> AssessmentResult:
+def assess_offline(inp: AssessInput) -> AssessmentDocument:
     """Validate with ``service.ingest`` and judge with the core gate, all in this process."""
     from .. import ingest
     from ..core import InputError
@@ -118,15 +120,15 @@ def assess_offline(inp: AssessInput) -> AssessmentResult:
             errors = [{"loc": f"policy.{e['loc']}", "message": e["message"]} for e in exc.errors]
             raise CliError(f"{inp.name}: invalid policy: {errors_line(errors)}") from None
 
-    data: dict[str, Any] = {
-        "id": None,
-        "created_at": None,
-        "model": request.model,
-        "version": request.version,
-        "stored": False,
-        "labels": labels,
-        "season_length": request.season_length,
-        "model_params": request.model_params,
-    }
-    data.update(assess(request.batch, policy).to_dict())
-    return AssessmentResult.from_json(data)
+    return AssessmentDocument(
+        id=None,
+        created_at=None,
+        model=request.model,
+        version=request.version,
+        stored=False,
+        labels=labels,
+        season_length=request.season_length,
+        model_params=request.model_params,
+        extra={},
+        result=assess(request.batch, policy).result(),
+    )

@@ -32,6 +32,19 @@ from typing import Any
 
 import numpy as np
 
+# The result records hold the assessment's JSON shape, owned by service/results/ (no numpy).
+from service.results import (
+    AssessmentResult,
+    CheckColumns,
+    CheckSummary,
+    FleetSummary,
+    PolicyRef,
+    Reason,
+    SeriesColumns,
+    SeriesTable,
+    to_dicts,
+)
+
 from .batch import SeriesBatch, stack_batches, stack_key
 from .messages import fleet_message, not_tested_message, pass_message, untested_message
 from .multiple import benjamini_hochberg_rows
@@ -57,63 +70,10 @@ _STATUS = np.array(
 _STATUS_ENUM = (Status.SKIPPED, Status.PASS, Status.WARN, Status.FAIL)
 
 
-@dataclass(frozen=True)
-class Reason:
-    """One warn or fail, as a sentence a person can act on; ``series_id`` is ``None`` for a
-    fleet-level reason."""
-
-    check: str
-    status: Status
-    series_id: str | None
-    message: str
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "check": self.check,
-            "status": self.status.value,
-            "series_id": self.series_id,
-            "message": self.message,
-        }
-
-
-@dataclass(frozen=True)
-class CheckSummary:
-    """One check over the fleet."""
-
-    name: str
-    status: Status
-    series_tested: int
-    series_failed: int
-    series_warned: int
-    series_skipped: int
-    failed_share: float
-    warned_share: float
-    message: str
-    fail_p_used: float | None = None
-    """The p-value below which a series failed this test: ``fail_p`` divided by the fleet's
-    fail family size (``None`` for metrics and tests that do not fail)."""
-    warn_p_used: float | None = None
-    """Likewise for warn."""
-
-    def to_dict(self) -> dict[str, Any]:
-        return {
-            "name": self.name,
-            "status": self.status.value,
-            "series_tested": self.series_tested,
-            "series_failed": self.series_failed,
-            "series_warned": self.series_warned,
-            "series_skipped": self.series_skipped,
-            "failed_share": self.failed_share,
-            "warned_share": self.warned_share,
-            "message": self.message,
-            "fail_p_used": self.fail_p_used,
-            "warn_p_used": self.warn_p_used,
-        }
-
-
 @dataclass(frozen=True, eq=False)
 class Assessment:
-    """The gate's full result over one batch."""
+    """The gate's full result over one batch: the decision with the arrays it was made from;
+    :meth:`result` is its typed, JSON-shaped result."""
 
     verdict: Status
     policy: Policy
@@ -136,9 +96,19 @@ class Assessment:
     def series_verdicts(self) -> list[str]:
         return _STATUS[np.maximum(self.series_codes, PASS)].tolist()
 
+    def result(self) -> AssessmentResult:
+        """The typed result (:class:`service.results.AssessmentResult`): verdict, policy,
+        reasons, per-check summaries, fleet counts and statistics, and the series table."""
+        return _results(
+            _Decided(
+                [self], self.results, self.status_codes, self.p_adjusted, self.weights, self.notes
+            )
+        )[0]
+
     def to_dict(self) -> dict[str, Any]:
-        """JSON-ready result (plain Python values; NaN and infinities become ``None``)."""
-        return _to_dict(self)
+        """JSON-ready result (plain Python values; NaN and infinities become ``None``):
+        ``self.result().to_dict()``."""
+        return self.result().to_dict()
 
 
 def _weights(batch: SeriesBatch, policy: Policy) -> np.ndarray:
@@ -323,14 +293,20 @@ def assess_many(items: Sequence[tuple[SeriesBatch, Policy]]) -> list[Assessment]
     return out  # type: ignore[return-value]
 
 
+def assess_many_results(items: Sequence[tuple[SeriesBatch, Policy]]) -> list[AssessmentResult]:
+    """``[assess(batch, policy).result() for batch, policy in items]``, as
+    :func:`assess_many` groups them, with each group's series columns built at once."""
+    out: list[AssessmentResult | None] = [None] * len(items)
+    for members, decided in _decided_groups(items):
+        for i, result in zip(members, _results(decided), strict=True):
+            out[i] = result
+    return out  # type: ignore[return-value]
+
+
 def assess_many_dicts(items: Sequence[tuple[SeriesBatch, Policy]]) -> list[dict[str, Any]]:
     """``[assess(batch, policy).to_dict() for batch, policy in items]``, as
-    :func:`assess_many` groups them, with each group's series rows built at once."""
-    out: list[dict[str, Any] | None] = [None] * len(items)
-    for members, decided in _decided_groups(items):
-        for i, doc in zip(members, _rendered(decided), strict=True):
-            out[i] = doc
-    return out  # type: ignore[return-value]
+    :func:`assess_many` groups them, with each group's series columns built at once."""
+    return to_dicts(assess_many_results(items))
 
 
 def _decided_groups(
@@ -645,23 +621,19 @@ def _columns(arrays: list[np.ndarray]) -> list[list[Any]]:
     return out.tolist()
 
 
-def _to_dict(a: Assessment) -> dict[str, Any]:
-    return _rendered(_Decided([a], a.results, a.status_codes, a.p_adjusted, a.weights, a.notes))[0]
-
-
-def _rendered(d: _Decided) -> list[dict[str, Any]]:
-    """The JSON-ready result of each assessment in ``d``, their series rows built at once over
-    the stacked tables (column by column: per check, the list of its per-series entries; a
-    series' entries are the i-th of each list)."""
+def _results(d: _Decided) -> list[AssessmentResult]:
+    """The typed result of each assessment in ``d``, their series columns built at once over
+    the stacked tables (per check, the list of its per-series entries; a part's series are a
+    run of rows) and handed to each part's :class:`SeriesTable`."""
     results = d.checks
     n = results.batch.n_series
     size = n // len(d.assessments) if d.assessments else 0
     # Every float column of every check converted in one go, the others one by one.
     float_keys: list[tuple[str, str]] = []
     float_arrays: list[np.ndarray] = []
-    columns: dict[str, dict[str, Sequence[Any]]] = {}
+    columns: dict[str, dict[str, list[Any]]] = {}
     for name, res in results.checks.items():
-        col: dict[str, Sequence[Any]] = {
+        col: dict[str, list[Any]] = {
             "status": _STATUS[d.status_codes[name]].tolist(),
             "skip": res.skip_reason.tolist(),
         }
@@ -690,106 +662,78 @@ def _rendered(d: _Decided) -> list[dict[str, Any]]:
             if r.series_id is not None:
                 messages[(r.check, index_of[r.series_id])] = r.message
         verdicts += a.series_verdicts()
-    per_check = []
-    for name, res in results.checks.items():
+    for name in results.checks:
         col = columns[name]
         passed = pass_message(name)
-        text = [
+        col["message"] = [
             skip
             if status == "skipped"
             else messages.get((name, i), passed if status == "pass" else "")
             for i, (status, skip) in enumerate(zip(col["status"], col["skip"], strict=True))
         ]
-        keys = tuple(res.details)
-        if keys:
-            details = [
-                dict(zip(keys, row, strict=True))
-                for row in zip(*(col[f"d:{k}"] for k in keys), strict=True)
-            ]
-        else:
-            details = [{} for _ in range(n)]
-        per_check.append(
-            [
-                {
-                    "name": name,
-                    "status": st,
-                    "statistic": stat,
-                    "p_value": p,
-                    "p_adjusted": p_adj,
-                    "details": det,
-                    "message": msg,
-                }
-                for st, stat, p, p_adj, det, msg in zip(
-                    col["status"],
-                    col["statistic"],
-                    col["p_value"],
-                    col["p_adjusted"],
-                    details,
-                    text,
-                    strict=True,
-                )
-            ]
-        )
-    n_obs = results.residuals.n_obs.tolist()
     sections = {
-        check.section.key: _section_rows(check.name, check.section.fields, columns, n)
+        check.section.key: _section_columns(check.name, check.section.fields, columns, n)
         for check in all_checks()
         if check.section is not None
     }
-    checks_rows = map(list, zip(*per_check, strict=True)) if per_check else ([] for _ in range(n))
-    keys = tuple(sections)
-    per_series = zip(*sections.values(), strict=True) if keys else ([()] * n)
-    series = [
-        {
-            "id": sid,
-            "verdict": v,
-            "n_obs": k,
-            "weight": w,
-            **dict(zip(keys, parts, strict=True)),
-            "checks": c,
-        }
-        for sid, v, k, w, parts, c in zip(
-            results.batch.ids, verdicts, n_obs, weights, per_series, checks_rows, strict=True
-        )
-    ]
+    # One set of columns over the stacked rows; each part's table is a run of its rows.
+    columns_all = SeriesColumns(
+        id=results.batch.ids,
+        verdict=verdicts,
+        n_obs=results.residuals.n_obs.tolist(),
+        weight=weights,
+        sections=sections,
+        checks=tuple(
+            CheckColumns(
+                name=name,
+                status=col["status"],
+                statistic=col["statistic"],
+                p_value=col["p_value"],
+                p_adjusted=col["p_adjusted"],
+                details={k: col[f"d:{k}"] for k in results[name].details},
+                message=col["message"],
+            )
+            for name, col in columns.items()
+        ),
+    )
     out = []
     for g, a in enumerate(d.assessments):
-        part = verdicts[g * size : (g + 1) * size]
-        n_failed = sum(v == "fail" for v in part)
-        n_warned = sum(v == "warn" for v in part)
+        part = SeriesTable(columns_all, g * size, (g + 1) * size)
+        part_verdicts = part.column("verdict")
+        n_failed = part_verdicts.count("fail")
+        n_warned = part_verdicts.count("warn")
         out.append(
-            {
-                "verdict": a.verdict.value,
-                "policy": {"name": a.policy.name, "version": a.policy.version},
-                "reasons": [r.to_dict() for r in a.reasons],
-                "checks": [s.to_dict() for s in a.summaries],
-                "fleet": {
-                    "n_series": size,
-                    "n_failed": n_failed,
-                    "n_warned": n_warned,
-                    "n_passed": size - n_failed - n_warned,
-                    **{key: finding.result.to_dict() for key, finding in a.fleet.items()},
-                },
-                "series": series[g * size : (g + 1) * size],
-            }
+            AssessmentResult(
+                verdict=a.verdict,
+                policy=PolicyRef(name=a.policy.name, version=a.policy.version),
+                reasons=a.reasons,
+                checks=a.summaries,
+                fleet=FleetSummary(
+                    n_series=size,
+                    n_failed=n_failed,
+                    n_warned=n_warned,
+                    n_passed=size - n_failed - n_warned,
+                    statistics={key: f.result.to_dict() for key, f in a.fleet.items()},
+                ),
+                series=part,
+            )
         )
     return out
 
 
-def _section_rows(
+def _section_columns(
     owner: str,
     fields: tuple[tuple[str, str, str], ...],
-    columns: Mapping[str, Mapping[str, Sequence[Any]]],
+    columns: Mapping[str, Mapping[str, list[Any]]],
     n: int,
-) -> list[dict[str, Any] | None]:
-    """One series-row section per series (``None`` throughout when its owner did not run)."""
+) -> dict[str, list[Any]] | None:
+    """One series section's columns (``None`` when its owner did not run; a field is ``None``
+    throughout when its check did not run)."""
     if owner not in columns:
-        return [None] * n
-    keys = tuple(key for key, _, _ in fields)
-    values = [
-        columns[check]["statistic" if column == "statistic" else f"d:{column}"]
+        return None
+    return {
+        key: columns[check]["statistic" if column == "statistic" else f"d:{column}"]
         if check in columns
         else [None] * n
-        for _, check, column in fields
-    ]
-    return [dict(zip(keys, row, strict=True)) for row in zip(*values, strict=True)]
+        for key, check, column in fields
+    }

@@ -9,29 +9,14 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field
-from enum import StrEnum
 from typing import Any, Literal
 
 import numpy as np
 
+# The statuses of the assessment result (service/results/, free of numpy), used here too.
+from service.results import Status as Status
+
 from .types import FloatVector, ObjectVector
-
-
-class Status(StrEnum):
-    """Outcome of one check on one series, or of the whole fleet."""
-
-    PASS = "pass"
-    WARN = "warn"
-    FAIL = "fail"
-    SKIPPED = "skipped"
-
-    @property
-    def severity(self) -> int:
-        """Ordering used for "worst first": fail > warn > pass > skipped."""
-        return _SEVERITY[self]
-
-
-_SEVERITY = {Status.SKIPPED: 0, Status.PASS: 1, Status.WARN: 2, Status.FAIL: 3}
 
 CheckKind = Literal["test", "metric"]
 """``test``: judged by its p-value. ``metric``: judged by its statistic against thresholds."""

@@ -6,7 +6,6 @@ chart never disagrees with the check it illustrates.
 
 from __future__ import annotations
 
-from collections.abc import Mapping
 from dataclasses import dataclass
 from datetime import date, datetime
 from typing import Any
@@ -23,6 +22,7 @@ from service.core import (
     residuals_of,
 )
 from service.core.types import FloatMatrix, FloatVector
+from service.results import SeriesResult
 
 from .inputs import ReportInputError, SeriesInputs
 
@@ -134,14 +134,10 @@ def time_axis(
     return TimeAxis(train=train, holdout=holdout, is_date=True, label="Date")
 
 
-def _detail(check: Mapping[str, Any] | None, key: str) -> Any:
-    if not check:
-        return None
-    return (check.get("details") or {}).get(key)
-
-
-def _checks_by_name(series_result: Mapping[str, Any] | None) -> dict[str, Mapping[str, Any]]:
-    return {c["name"]: c for c in (series_result or {}).get("checks") or [] if "name" in c}
+def _detail(series_result: SeriesResult | None, check: str, key: str) -> Any:
+    """Detail ``key`` of check ``check`` in the stored series result, if it reports it."""
+    entry = None if series_result is None else series_result.check(check)
+    return None if entry is None else entry.details.get(key)
 
 
 def _one_row(values: FloatVector | None) -> FloatMatrix | None:
@@ -151,7 +147,7 @@ def _one_row(values: FloatVector | None) -> FloatMatrix | None:
 
 def series_diagnostics(
     inputs: SeriesInputs,
-    series_result: Mapping[str, Any] | None = None,
+    series_result: SeriesResult | None = None,
     *,
     season_length: int = 1,
     model_params: int = 0,
@@ -185,12 +181,11 @@ def series_diagnostics(
     mean = float(observed.mean()) if n_obs else float("nan")
     std = float(observed.std()) if n_obs else float("nan")
 
-    checks = _checks_by_name(series_result)
-    lb_lags = _detail(checks.get("ljung_box"), "lags")
+    lb_lags = _detail(series_result, "ljung_box", "lags")
     if lb_lags is None:
         lb_lags = int(portmanteau_lags(res.n_obs, batch.season_length)[0])
     lb_lags = int(lb_lags) if lb_lags and lb_lags > 0 else None
-    window = _detail(checks.get("tracking_signal"), "window")
+    window = _detail(series_result, "tracking_signal", "window")
     window = int(window) if window else None
 
     max_lag = min(max(n_obs - 1, 0), max(ACF_MIN_LAGS, (lb_lags or 0) + 4))
@@ -204,7 +199,7 @@ def series_diagnostics(
     axis = time_axis(inputs.timestamps, inputs.actuals.size, horizon, inputs.holdout_timestamps)
     view = None
     if hold:
-        best = _detail(checks.get("benchmark_skill"), "best_benchmark")
+        best = _detail(series_result, "benchmark_skill", "best_benchmark")
         if best is None:
             best = benchmark_skill(batch).details["best_benchmark"][0]
         bench = None

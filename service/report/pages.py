@@ -1,6 +1,7 @@
 """Self-contained HTML pages: the fleet report and one page per series.
 
-Pure functions from the stored assessment (the dict the API returns) to an HTML string. Nothing
+Pure functions from the stored assessment (an :class:`service.results.AssessmentDocument`, as
+the API returns it) to an HTML string. Nothing
 is fetched by the page: styles and the small sorting script are inline, charts are inline SVG,
 and :data:`CONTENT_SECURITY_POLICY` (sent with every page) forbids any other source.
 """
@@ -17,6 +18,15 @@ from typing import Any
 
 from service import __version__
 from service.core import CATALOGUE
+from service.results import (
+    AssessmentDocument,
+    CheckSummary,
+    FleetSummary,
+    Reason,
+    SeriesCheck,
+    SeriesResult,
+    SeriesTable,
+)
 
 from .charts import Chart
 from .style import PAGE_CSS
@@ -175,24 +185,35 @@ def _facts(rows: Sequence[tuple[str, str]]) -> str:
     return f'<dl class="facts">{items}</dl>'
 
 
-def series_order(series: Sequence[Mapping[str, Any]]) -> list[Mapping[str, Any]]:
+def _order(series: SeriesTable) -> list[int]:
+    """The positions of ``series`` worst first (see :func:`series_order`), read column by
+    column."""
+    n = len(series)
+    n_fail = [0] * n
+    n_warn = [0] * n
+    for name in series.check_names:
+        for i, status in enumerate(series.check_column(name, "status")):
+            if status == "fail":
+                n_fail[i] += 1
+            elif status == "warn":
+                n_warn[i] += 1
+    weights = [
+        float(w) if isinstance(w, (int, float)) and math.isfinite(w) else 0.0
+        for w in series.column("weight")
+    ]
+    keys = [
+        (-SEVERITY.get(v, 0), -f, -w_, -wt, str(sid))
+        for v, f, w_, wt, sid in zip(
+            series.column("verdict"), n_fail, n_warn, weights, series.ids, strict=True
+        )
+    ]
+    return sorted(range(n), key=keys.__getitem__)
+
+
+def series_order(series: SeriesTable) -> list[SeriesResult]:
     """Worst first: verdict (fail, warn, pass), then more failed checks, more warned checks,
     larger weight, and finally the id, so the order is stable."""
-
-    def counts(s: Mapping[str, Any]) -> tuple[int, int]:
-        checks = s.get("checks") or []
-        return (
-            sum(1 for c in checks if c.get("status") == "fail"),
-            sum(1 for c in checks if c.get("status") == "warn"),
-        )
-
-    def key(s: Mapping[str, Any]) -> tuple[Any, ...]:
-        n_fail, n_warn = counts(s)
-        weight = s.get("weight")
-        w = float(weight) if isinstance(weight, (int, float)) and math.isfinite(weight) else 0.0
-        return (-SEVERITY.get(str(s.get("verdict")), 0), -n_fail, -n_warn, -w, str(s.get("id")))
-
-    return sorted(series, key=key)
+    return [series[i] for i in _order(series)]
 
 
 def _when(value: Any) -> str:
@@ -206,42 +227,44 @@ def _when(value: Any) -> str:
     return moment.astimezone(UTC).strftime("%Y-%m-%d %H:%M UTC")
 
 
-def _header(assessment: Mapping[str, Any], title: str, back: str = "") -> str:
-    policy = assessment.get("policy") or {}
+def _header(assessment: AssessmentDocument, title: str, back: str = "", verdict: Any = None) -> str:
+    """The page's header; ``verdict`` in place of the fleet's (a series page's own)."""
+    policy = assessment.policy
     bits = [
-        f"model <strong>{_e(assessment.get('model'))}</strong>"
-        f" version <strong>{_e(assessment.get('version'))}</strong>",
-        f"policy {_e(policy.get('name'))} v{_e(policy.get('version'))}",
+        f"model <strong>{_e(assessment.model)}</strong>"
+        f" version <strong>{_e(assessment.version)}</strong>",
+        f"policy {_e(policy.name)} v{_e(policy.version)}",
     ]
-    if assessment.get("created_at"):
-        bits.append(f"assessed {_e(_when(assessment.get('created_at')))}")
-    if assessment.get("id"):
-        bits.append(f"assessment <code>{_e(assessment.get('id'))}</code>")
-    labels = assessment.get("labels") or {}
+    if assessment.created_at:
+        bits.append(f"assessed {_e(_when(assessment.created_at))}")
+    if assessment.id:
+        bits.append(f"assessment <code>{_e(assessment.id)}</code>")
+    labels = assessment.labels
     if labels:
         bits.append("labels " + ", ".join(f"{_e(k)}={_e(v)}" for k, v in sorted(labels.items())))
+    shown = assessment.verdict if verdict is None else verdict
     return (
         f'<header class="top"><div>{back}<h1>{_e(title)}</h1>'
         f'<div class="meta">{" · ".join(bits)}</div></div>'
-        f"{_verdict(assessment.get('verdict'))}</header>"
+        f"{_verdict(shown)}</header>"
     )
 
 
-def _reasons(reasons: Sequence[Mapping[str, Any]], series_href: SeriesHref) -> str:
+def _reasons(reasons: Sequence[Reason], series_href: SeriesHref) -> str:
     if not reasons:
         return '<p class="note">No check warned or failed.</p>'
 
-    def item(r: Mapping[str, Any]) -> str:
-        sid = r.get("series_id")
+    def item(r: Reason) -> str:
+        sid = r.series_id
         where = (
             f'<a href="{_e(series_href(str(sid)))}">{_e(sid)}</a>'
             if sid is not None
             else "across the fleet"
         )
         return (
-            f'<li data-status="{_e(r.get("status"))}" data-check="{_e(r.get("check"))}">'
-            f"{_status(r.get('status'))} <strong>{_e(_title(r.get('check')))}</strong>, "
-            f"{where}: {_message(r.get('check'), r.get('message'))}</li>"
+            f'<li data-status="{_e(r.status)}" data-check="{_e(r.check)}">'
+            f"{_status(r.status)} <strong>{_e(_title(r.check))}</strong>, "
+            f"{where}: {_message(r.check, r.message)}</li>"
         )
 
     shown = "".join(item(r) for r in reasons[:REASONS_SHOWN])
@@ -258,18 +281,18 @@ def _reasons(reasons: Sequence[Mapping[str, Any]], series_href: SeriesHref) -> s
     return out
 
 
-def _checks_table(checks: Sequence[Mapping[str, Any]]) -> str:
+def _checks_table(checks: Sequence[CheckSummary]) -> str:
     if not checks:
         return '<p class="note">The policy enabled no check.</p>'
     rows = "".join(
-        f'<tr data-check="{_e(c.get("name"))}"><td>{_check_cell(c.get("name"))}</td>'
-        f"<td>{_status(c.get('status'))}</td>"
-        f'<td class="num">{_num(c.get("series_tested"))}</td>'
-        f'<td class="num">{_num(c.get("series_failed"))}</td>'
-        f'<td class="num">{_num(c.get("series_warned"))}</td>'
-        f'<td class="num">{_num(c.get("series_skipped"))}</td>'
-        f'<td class="num">{_share(c.get("failed_share"))}</td>'
-        f"<td>{_message(c.get('name'), c.get('message'))}</td></tr>"
+        f'<tr data-check="{_e(c.name)}"><td>{_check_cell(c.name)}</td>'
+        f"<td>{_status(c.status)}</td>"
+        f'<td class="num">{_num(c.series_tested)}</td>'
+        f'<td class="num">{_num(c.series_failed)}</td>'
+        f'<td class="num">{_num(c.series_warned)}</td>'
+        f'<td class="num">{_num(c.series_skipped)}</td>'
+        f'<td class="num">{_share(c.failed_share)}</td>'
+        f"<td>{_message(c.name, c.message)}</td></tr>"
         for c in checks
     )
     return (
@@ -280,8 +303,8 @@ def _checks_table(checks: Sequence[Mapping[str, Any]]) -> str:
     )
 
 
-def _fleet_bias(fleet: Mapping[str, Any]) -> str:
-    b = fleet.get("bias") or {}
+def _fleet_bias(fleet: FleetSummary) -> str:
+    b = fleet.statistics.get("bias") or {}
     if not b:
         return '<p class="note">No fleet bias estimate in this assessment.</p>'
     return _facts(
@@ -298,40 +321,49 @@ def _fleet_bias(fleet: Mapping[str, Any]) -> str:
     )
 
 
-def _series_counts(assessment: Mapping[str, Any]) -> str:
-    fleet = assessment.get("fleet") or {}
-    series = assessment.get("series") or []
-    n = fleet.get("n_series", len(series))
-    parts = [f"{_num(n)} series"]
-    for key, word in (("n_failed", "failed"), ("n_warned", "warned"), ("n_passed", "passed")):
-        if key in fleet:
-            parts.append(f"{_num(fleet[key])} {word}")
+def _series_counts(assessment: AssessmentDocument) -> str:
+    fleet = assessment.fleet
+    parts = [f"{_num(fleet.n_series)} series"]
+    for value, word in (
+        (fleet.n_failed, "failed"),
+        (fleet.n_warned, "warned"),
+        (fleet.n_passed, "passed"),
+    ):
+        parts.append(f"{_num(value)} {word}")
     return " · ".join(parts)
 
 
-def _series_table(series: Sequence[Mapping[str, Any]], series_href: SeriesHref) -> str:
+def _series_table(series: SeriesTable, series_href: SeriesHref) -> str:
+    # Read column by column: a fleet of thousands of series makes no record per series.
+    n = len(series)
+    names = series.check_names
+    statuses = [series.check_column(name, "status") for name in names]
+    bias = {
+        key: series.section_column("bias", key) or (None,) * n
+        for key in ("mean_error", "percent_bias", "tracking_signal")
+    }
+    ids, verdicts = series.ids, series.column("verdict")
+    n_obs, weights = series.column("n_obs"), series.column("weight")
     rows = []
-    for s in series_order(series):
-        checks = s.get("checks") or []
-        failed = [c["name"] for c in checks if c.get("status") == "fail"]
-        warned = [c["name"] for c in checks if c.get("status") == "warn"]
-        bias = s.get("bias") or {}
-        sid = str(s.get("id"))
-        verdict = s.get("verdict")
+    for i in _order(series):
+        failed = [name for name, st in zip(names, statuses, strict=True) if st[i] == "fail"]
+        warned = [name for name, st in zip(names, statuses, strict=True) if st[i] == "warn"]
+        sid = str(ids[i])
+        mean_error, percent_bias, tracking = (bias[k][i] for k in bias)
         rows.append(
             f'<tr data-series="{_e(sid)}">'
             f'<td class="id"><a href="{_e(series_href(sid))}">{_e(sid)}</a></td>'
-            f'<td data-v="{SEVERITY.get(str(verdict), 0)}">{_status(verdict)}</td>'
+            f'<td data-v="{SEVERITY.get(verdicts[i], 0)}">{_status(verdicts[i])}</td>'
             f'<td data-v="{len(failed)}">{_e(", ".join(failed)) or "—"}</td>'
             f'<td data-v="{len(warned)}">{_e(", ".join(warned)) or "—"}</td>'
-            f'<td class="num" data-v="{_sort_value(s.get("n_obs"))}">{_num(s.get("n_obs"))}</td>'
-            f'<td class="num" data-v="{_sort_value(s.get("weight"))}">{_num(s.get("weight"))}</td>'
-            f'<td class="num" data-v="{_sort_value(bias.get("mean_error"))}">'
-            f"{_num(bias.get('mean_error'))}</td>"
-            f'<td class="num" data-v="{_sort_value(bias.get("percent_bias"))}">'
-            f"{_num(bias.get('percent_bias'))}</td>"
-            f'<td class="num" data-v="{_sort_value(bias.get("tracking_signal"))}">'
-            f"{_num(bias.get('tracking_signal'))}</td></tr>"
+            f'<td class="num" data-v="{_sort_value(n_obs[i])}">{_num(n_obs[i])}</td>'
+            f'<td class="num" data-v="{_sort_value(weights[i])}">{_num(weights[i])}</td>'
+            f'<td class="num" data-v="{_sort_value(mean_error)}">'
+            f"{_num(mean_error)}</td>"
+            f'<td class="num" data-v="{_sort_value(percent_bias)}">'
+            f"{_num(percent_bias)}</td>"
+            f'<td class="num" data-v="{_sort_value(tracking)}">'
+            f"{_num(tracking)}</td></tr>"
         )
     return (
         '<div class="filter"><label>Find a series: <input id="series-filter" type="search" '
@@ -348,39 +380,35 @@ def _series_table(series: Sequence[Mapping[str, Any]], series_href: SeriesHref) 
     )
 
 
-def render_report(assessment: Mapping[str, Any], *, series_href: SeriesHref) -> str:
+def render_report(assessment: AssessmentDocument, *, series_href: SeriesHref) -> str:
     """The fleet report: verdict, reasons, per-check table, fleet bias and the series list
     (worst first, sortable, each linking to ``series_href(series_id)``). No charts: those are
     drawn per series, on the series page, so a fleet of any size stays one light page."""
-    series = assessment.get("series") or []
-    title = f"Gate report: {assessment.get('model') or 'assessment'}"
+    title = f"Gate report: {assessment.model or 'assessment'}"
     body = (
         _header(assessment, title)
         + f'<p class="note">{_series_counts(assessment)}. {DISCLAIMER}</p>'
         + '<section class="card" id="reasons-section"><h2>Why: warnings and failures, '
         "worst first</h2>"
-        + _reasons(assessment.get("reasons") or [], series_href)
+        + _reasons(assessment.reasons, series_href)
         + "</section>"
         + '<section class="card" id="checks-section"><h2>Checks across the fleet</h2>'
-        + _checks_table(assessment.get("checks") or [])
+        + _checks_table(assessment.checks)
         + "</section>"
         + '<section class="card" id="bias-section"><h2>Fleet bias</h2>'
-        + _fleet_bias(assessment.get("fleet") or {})
+        + _fleet_bias(assessment.fleet)
         + "</section>"
         + '<section class="card" id="series-section"><h2>Series, worst first</h2>'
         + '<p class="note">Click a column to sort; open a series for its diagnostic charts.</p>'
-        + _series_table(series, series_href)
+        + _series_table(assessment.series, series_href)
         + "</section>"
     )
     return _page(title, body, script=True)
 
 
-def find_series(assessment: Mapping[str, Any], series_id: str) -> Mapping[str, Any] | None:
-    """The series entry with this id, or ``None``."""
-    for s in assessment.get("series") or []:
-        if str(s.get("id")) == series_id:
-            return s
-    return None
+def find_series(assessment: AssessmentDocument, series_id: str) -> SeriesResult | None:
+    """The series with this id, or ``None``."""
+    return assessment.series.find(series_id)
 
 
 def _details_text(details: Mapping[str, Any] | None) -> str:
@@ -389,15 +417,15 @@ def _details_text(details: Mapping[str, Any] | None) -> str:
     return ", ".join(f"{_e(k)} {_num(v, 4)}" for k, v in details.items() if v is not None)
 
 
-def _series_checks(checks: Sequence[Mapping[str, Any]]) -> str:
+def _series_checks(checks: Sequence[SeriesCheck]) -> str:
     rows = "".join(
-        f'<tr data-check="{_e(c.get("name"))}"><td>{_check_cell(c.get("name"))}</td>'
-        f"<td>{_status(c.get('status'))}</td>"
-        f'<td class="num">{_num(c.get("statistic"), 4)}</td>'
-        f'<td class="num">{_p(c.get("p_value"))}</td>'
-        f'<td class="num">{_p(c.get("p_adjusted"))}</td>'
-        f"<td>{_details_text(c.get('details'))}</td>"
-        f"<td>{_message(c.get('name'), c.get('message'))}</td></tr>"
+        f'<tr data-check="{_e(c.name)}"><td>{_check_cell(c.name)}</td>'
+        f"<td>{_status(c.status)}</td>"
+        f'<td class="num">{_num(c.statistic, 4)}</td>'
+        f'<td class="num">{_p(c.p_value)}</td>'
+        f'<td class="num">{_p(c.p_adjusted)}</td>'
+        f"<td>{_details_text(c.details)}</td>"
+        f"<td>{_message(c.name, c.message)}</td></tr>"
         for c in checks
     )
     return (
@@ -408,11 +436,10 @@ def _series_checks(checks: Sequence[Mapping[str, Any]]) -> str:
     )
 
 
-def neighbours(
-    series: Sequence[Mapping[str, Any]], series_id: str
-) -> tuple[str | None, str | None]:
+def neighbours(series: SeriesTable, series_id: str) -> tuple[str | None, str | None]:
     """The ids before and after ``series_id`` in the worst-first order of the fleet page."""
-    ids = [str(s.get("id")) for s in series_order(series)]
+    all_ids = series.ids
+    ids = [str(all_ids[i]) for i in _order(series)]
     try:
         i = ids.index(series_id)
     except ValueError:
@@ -421,8 +448,8 @@ def neighbours(
 
 
 def render_series(
-    assessment: Mapping[str, Any],
-    series: Mapping[str, Any],
+    assessment: AssessmentDocument,
+    series: SeriesResult,
     charts: Sequence[Chart],
     *,
     report_href: str,
@@ -434,20 +461,20 @@ def render_series(
     ``previous`` and ``following`` are ``(series_id, href)`` of its neighbours in the fleet
     page's worst-first order, for stepping through the failures one by one.
     """
-    sid = str(series.get("id"))
-    bias = series.get("bias") or {}
+    sid = str(series.id)
+    bias = series.sections.get("bias") or {}
     steps = [f'<a href="{_e(report_href)}">← back to the fleet report</a>']
     if previous is not None:
         steps.append(f'<a rel="prev" href="{_e(previous[1])}">worse: {_e(previous[0])}</a>')
     if following is not None:
         steps.append(f'<a rel="next" href="{_e(following[1])}">next: {_e(following[0])} →</a>')
     back = f'<p class="meta">{" · ".join(steps)}</p>'
-    header = _header({**assessment, "verdict": series.get("verdict")}, f"Series {sid}", back)
+    header = _header(assessment, f"Series {sid}", back, verdict=series.verdict)
     facts = _facts(
         [
-            ("Fleet verdict", _status(assessment.get("verdict"))),
-            ("Residuals", _num(series.get("n_obs"))),
-            ("Weight", _num(series.get("weight"))),
+            ("Fleet verdict", _status(assessment.verdict)),
+            ("Residuals", _num(series.n_obs)),
+            ("Weight", _num(series.weight)),
             ("Mean error", _num(bias.get("mean_error"), 4)),
             (
                 "95% interval of the mean",
@@ -470,9 +497,9 @@ def render_series(
         header
         + f'<section class="card" id="summary-section"><h2>Summary</h2>{facts}</section>'
         + '<section class="card" id="checks-section"><h2>Checks</h2>'
-        + _series_checks(series.get("checks") or [])
+        + _series_checks(series.checks)
         + "</section>"
         + '<section class="card" id="charts-section"><h2>Diagnostics</h2>'
         + f'<div class="charts">{figures}</div></section>'
     )
-    return _page(f"{sid}: {assessment.get('model') or 'assessment'}", body)
+    return _page(f"{sid}: {assessment.model or 'assessment'}", body)

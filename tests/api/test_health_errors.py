@@ -106,7 +106,7 @@ def test_unexpected_error_is_a_problem_500_without_internals(make_client, body, 
         raise RuntimeError("secret internals")
 
     client = make_client()
-    monkeypatch.setattr(assessing, "assess_many_dicts", explode)
+    monkeypatch.setattr(assessing, "assess_many_results", explode)
     r = client.post("/v1/assessments", json=body(n=1), headers=ADMIN)
     assert r.status_code == 500
     assert r.headers["content-type"] == "application/problem+json"

@@ -26,13 +26,38 @@ def result_json(verdict: str, **extra: Any) -> dict[str, Any]:
             }
         ]
     )
+
+    def series(sid: str, verdict: str) -> dict[str, Any]:
+        return {
+            "id": sid,
+            "verdict": verdict,
+            "n_obs": 52,
+            "weight": 100.0,
+            "bias": None,
+            "checks": [
+                {
+                    "name": "bias",
+                    "status": verdict,
+                    "statistic": 2.1,
+                    "p_value": 0.01,
+                    "p_adjusted": 0.02,
+                    "details": {},
+                    "message": "",
+                }
+            ],
+        }
+
     data = {
         "id": "a-1",
         "created_at": "2026-12-01T21:00:00Z",
         "model": "m",
         "version": "1",
-        "policy": {"name": "default", "version": 1},
+        "stored": True,
+        "labels": {},
+        "season_length": 1,
+        "model_params": 0,
         "verdict": verdict,
+        "policy": {"name": "default", "version": 1},
         "reasons": reasons,
         "checks": [
             {
@@ -41,11 +66,19 @@ def result_json(verdict: str, **extra: Any) -> dict[str, Any]:
                 "series_tested": 2,
                 "series_failed": int(verdict == "fail"),
                 "series_warned": int(verdict == "warn"),
+                "series_skipped": 0,
                 "failed_share": 0.5 if verdict == "fail" else 0.0,
+                "warned_share": 0.5 if verdict == "warn" else 0.0,
                 "message": "",
             }
         ],
-        "series": [{"id": "store-1", "verdict": verdict}, {"id": "store-2", "verdict": "pass"}],
+        "fleet": {
+            "n_series": 2,
+            "n_failed": int(verdict == "fail"),
+            "n_warned": int(verdict == "warn"),
+            "n_passed": 2 - int(verdict != "pass"),
+        },
+        "series": [series("store-1", verdict), series("store-2", "pass")],
     }
     data.update(extra)
     return data

@@ -10,7 +10,7 @@ import pytest
 from cli_helpers import SMALL_BODY, FakeServer, problem, result_json
 
 from service.client import (
-    AssessmentResult,
+    AssessmentDocument,
     PlumblineClient,
     RequestRejected,
     ServerError,
@@ -35,7 +35,7 @@ def test_assess_sends_json_with_token_and_key_and_parses_typed_result():
     assert req.headers["Content-Type"] == "application/json"
     assert len(req.headers["Idempotency-Key"]) == 36  # a UUID
     assert json.loads(req.content) == SMALL_BODY
-    assert isinstance(result, AssessmentResult)
+    assert isinstance(result, AssessmentDocument)
     assert (result.id, result.verdict, result.replayed) == ("a-1", "fail", False)
     assert result.policy.name == "default" and result.policy.version == 1
     assert result.reasons[0].check == "bias" and result.reasons[0].series_id == "store-1"
@@ -45,7 +45,7 @@ def test_assess_sends_json_with_token_and_key_and_parses_typed_result():
     with pytest.raises(dataclasses.FrozenInstanceError):
         result.verdict = "pass"  # type: ignore[misc]
     with pytest.raises(TypeError):
-        result.data["verdict"] = "pass"  # type: ignore[index]
+        result.labels["verdict"] = "pass"  # type: ignore[index]
     assert result.to_dict()["series"][0]["id"] == "store-1"
 
 

@@ -22,16 +22,22 @@ from service.report import (
     render_series,
     series_diagnostics,
 )
+from service.results import AssessmentDocument
 from tests.report.fleet import assessment_of, invented_body
 
 
 def main(n_series: int) -> None:
     body = invented_body(n_series, t=104, h=12)
-    a = assessment_of(body)
+    stored = assessment_of(body)
     t0 = time.perf_counter()
-    html = render_report(a, series_href=lambda sid: f"series/{sid}")
+    a = AssessmentDocument.from_dict(stored)  # as the report endpoint reads the stored JSON
     t1 = time.perf_counter()
-    print(f"fleet page, {n_series} series: {t1 - t0:.3f} s, {len(html) / 1e6:.1f} MB")
+    html = render_report(a, series_href=lambda sid: f"series/{sid}")
+    t2 = time.perf_counter()
+    print(
+        f"fleet page, {n_series} series: {t2 - t1:.3f} s, {len(html) / 1e6:.1f} MB "
+        f"(reading the stored document before it: {t1 - t0:.3f} s)"
+    )
     s = body["series"][1]
     entry = find_series(a, s["id"])
     for attempt in ("first (imports matplotlib)", "second"):

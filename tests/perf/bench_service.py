@@ -113,20 +113,20 @@ def bare_app() -> FastAPI:
 
 def serve_memoised(port: int) -> None:
     """The real service with the statistics memoised (a diagnostic, never a product mode): the
-    first pass's result dict is reused for every later submission, so what remains is the
+    first pass's result is reused for every later submission, so what remains is the
     service's own path (HTTP, middleware, token, parsing, policy, encoding, storing)."""
     from service.api import assessing
     from service.api.server import run
 
-    real = assessing.assess_many_dicts
-    memo: list[dict] = []
+    real = assessing.assess_many_results
+    memo: list = []
 
     def memoised(items):
         if not memo:
             memo.append(real(items[:1])[0])
-        return [dict(memo[0]) for _ in items]  # the service only pops "series" from it
+        return [memo[0] for _ in items]  # a typed result is immutable: shared as it is
 
-    assessing.assess_many_dicts = memoised
+    assessing.assess_many_results = memoised
     run(host="127.0.0.1", port=port, workers=1)
 
 

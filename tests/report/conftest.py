@@ -2,6 +2,8 @@ from __future__ import annotations
 
 import pytest
 
+from service.results import AssessmentDocument
+
 from .fleet import assessment_of, invented_body
 from .server import Server
 
@@ -17,6 +19,11 @@ def body() -> dict:
 @pytest.fixture(scope="session")
 def assessment(body: dict) -> dict:
     return assessment_of(body)
+
+
+@pytest.fixture(scope="session")
+def document(assessment: dict) -> AssessmentDocument:
+    return AssessmentDocument.from_dict(assessment)
 
 
 @pytest.fixture(scope="session")

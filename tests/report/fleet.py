@@ -17,6 +17,7 @@ import numpy as np
 from service.core import make_batch
 from service.core.gate import assess
 from service.core.policy import default_policy
+from service.results import AssessmentDocument
 
 KINDS = ("clean", "autocorrelated", "biased", "funnel", "drifting")
 
@@ -100,8 +101,14 @@ def assessment_of(body: dict) -> dict:
         "created_at": "2026-12-01T22:00:00Z",
         "model": body["model"],
         "version": body["version"],
+        "stored": True,
         "labels": body.get("labels", {}),
         "season_length": body.get("season_length", 1),
         "model_params": body.get("model_params", 0),
         **result,
     }
+
+
+def document_of(body: dict) -> AssessmentDocument:
+    """:func:`assessment_of` read back as the typed document the report renders."""
+    return AssessmentDocument.from_dict(assessment_of(body))

@@ -23,11 +23,11 @@ SVG = "{http://www.w3.org/2000/svg}"
 
 
 @pytest.fixture(scope="module")
-def charts(body: dict, assessment: dict) -> dict:
+def charts(body: dict, document) -> dict:
     s = body["series"][1]
     d = series_diagnostics(
         SeriesInputs.from_mapping(s),
-        find_series(assessment, s["id"]),
+        find_series(document, s["id"]),
         season_length=52,
         model_params=2,
     )

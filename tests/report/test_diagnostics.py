@@ -11,11 +11,11 @@ from service.report import ReportInputError, SeriesInputs, find_series, series_d
 from service.report.diagnostics import ACF_Z, time_axis
 
 
-def _diag(body: dict, assessment: dict, i: int):
+def _diag(body: dict, document, i: int):
     s = body["series"][i]
     return series_diagnostics(
         SeriesInputs.from_mapping(s),
-        find_series(assessment, s["id"]),
+        find_series(document, s["id"]),
         season_length=body["season_length"],
         model_params=body["model_params"],
     )
@@ -40,22 +40,22 @@ def test_acf_matches_statsmodels_with_gaps() -> None:
     assert d.acf_bound == pytest.approx(1.96 / np.sqrt(76))
 
 
-def test_normal_fit_is_scipy_mle(body: dict, assessment: dict) -> None:
-    d = _diag(body, assessment, 2)
+def test_normal_fit_is_scipy_mle(body: dict, document) -> None:
+    d = _diag(body, document, 2)
     e = d.residuals[~np.isnan(d.residuals)]
     loc, scale = stats.norm.fit(e)  # maximum likelihood: mean and population sd
     assert d.mean == pytest.approx(loc, rel=1e-12)
     assert d.std == pytest.approx(scale, rel=1e-12)
 
 
-def test_ljung_box_lags_and_window_come_from_the_stored_result(body, assessment) -> None:
-    d = _diag(body, assessment, 1)
-    stored = find_series(assessment, body["series"][1]["id"])
-    lb = next(c for c in stored["checks"] if c["name"] == "ljung_box")
-    ts = next(c for c in stored["checks"] if c["name"] == "tracking_signal")
+def test_ljung_box_lags_and_window_come_from_the_stored_result(body, document) -> None:
+    d = _diag(body, document, 1)
+    stored = find_series(document, body["series"][1]["id"])
+    lb = next(c for c in stored.checks if c.name == "ljung_box")
+    ts = next(c for c in stored.checks if c.name == "tracking_signal")
     # ceil(ln 103) = 5 short lags (service.core.checks.autocorrelation.autocorrelation_lags).
-    assert d.ljung_box_lags == lb["details"]["lags"] == 5
-    assert d.tracking_window == ts["details"]["window"]
+    assert d.ljung_box_lags == lb.details["lags"] == 5
+    assert d.tracking_window == ts.details["window"]
     assert d.acf.size == 20  # the tested lags + 4, at least 20
 
 
@@ -68,12 +68,12 @@ def test_ljung_box_lags_default_without_stored_result() -> None:
 
 
 @pytest.mark.parametrize(("i", "name"), [(1, "seasonal_naive"), (4, "drift")])
-def test_holdout_view_uses_the_best_benchmark(body: dict, assessment: dict, i: int, name: str):
-    d = _diag(body, assessment, i)
-    stored = find_series(assessment, body["series"][i]["id"])
-    best = next(c for c in stored["checks"] if c["name"] == "benchmark_skill")
+def test_holdout_view_uses_the_best_benchmark(body: dict, document, i: int, name: str):
+    d = _diag(body, document, i)
+    stored = find_series(document, body["series"][i]["id"])
+    best = next(c for c in stored.checks if c.name == "benchmark_skill")
     assert d.holdout is not None
-    assert d.holdout.benchmark == best["details"]["best_benchmark"] == name
+    assert d.holdout.benchmark == best.details["best_benchmark"] == name
     y = np.array(body["series"][i]["actuals"])
     h = np.arange(1, 13)
     if name == "seasonal_naive":

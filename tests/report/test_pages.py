@@ -23,8 +23,9 @@ from service.report import (
     series_diagnostics,
     series_order,
 )
+from service.results import SeriesCheck, SeriesResult, SeriesTable, Status
 
-from .fleet import assessment_of, invented_body
+from .fleet import document_of, invented_body
 
 
 def href(sid: str) -> str:
@@ -49,8 +50,8 @@ def tags(html: str) -> list[tuple[str, dict]]:
 
 
 @pytest.fixture(scope="module")
-def report(assessment: dict) -> str:
-    return render_report(assessment, series_href=href)
+def report(document) -> str:
+    return render_report(document, series_href=href)
 
 
 def test_report_shows_verdict_reasons_checks_and_bias(assessment: dict, report: str) -> None:
@@ -81,10 +82,10 @@ def test_report_shows_verdict_reasons_checks_and_bias(assessment: dict, report: 
     assert "assessed 2026-12-01 22:00 UTC" in report  # created_at 2026-12-01T22:00:00Z
 
 
-def test_series_listed_worst_first_with_links(assessment: dict, report: str) -> None:
+def test_series_listed_worst_first_with_links(assessment: dict, document, report: str) -> None:
     listed = re.findall(r'<tr data-series="([^"]+)">', report)
     assert sorted(listed) == sorted(s["id"] for s in assessment["series"])
-    verdicts = [find_series(assessment, sid)["verdict"] for sid in listed]
+    verdicts = [find_series(document, sid).verdict for sid in listed]
     rank = {"fail": 0, "warn": 1, "pass": 2}
     assert [rank[v] for v in verdicts] == sorted(rank[v] for v in verdicts)
     assert f'href="{href(listed[0])}"' in report
@@ -93,21 +94,31 @@ def test_series_listed_worst_first_with_links(assessment: dict, report: str) -> 
 
 def test_series_order_breaks_ties_by_failed_checks_then_weight() -> None:
     def s(sid, verdict, fails, weight):
-        return {
-            "id": sid,
-            "verdict": verdict,
-            "weight": weight,
-            "checks": [{"name": f"c{i}", "status": "fail"} for i in range(fails)],
-        }
+        # Two checks, the first ``fails`` of them failed, the others passed.
+        return SeriesResult(
+            id=sid,
+            verdict=Status(verdict),
+            n_obs=52,
+            weight=weight,
+            sections={},
+            checks=tuple(
+                SeriesCheck(
+                    f"c{i}", Status.FAIL if i < fails else Status.PASS, None, None, None, {}, ""
+                )
+                for i in range(2)
+            ),
+        )
 
-    rows = [
-        s("a", "pass", 0, 9),
-        s("b", "fail", 1, 5),
-        s("c", "fail", 2, 1),
-        s("d", "fail", 1, 50),
-        s("e", "warn", 0, 1),
-    ]
-    assert [r["id"] for r in series_order(rows)] == ["c", "d", "b", "e", "a"]
+    rows = SeriesTable.of(
+        [
+            s("a", "pass", 0, 9),
+            s("b", "fail", 1, 5),
+            s("c", "fail", 2, 1),
+            s("d", "fail", 1, 50),
+            s("e", "warn", 0, 1),
+        ]
+    )
+    assert [r.id for r in series_order(rows)] == ["c", "d", "b", "e", "a"]
 
 
 def test_report_is_self_contained(report: str) -> None:
@@ -136,7 +147,7 @@ def test_untrusted_text_is_escaped() -> None:
     body = invented_body(2)
     body["series"][0]["id"] = '<script>alert("x")</script>'
     body["labels"] = {"run": "<b>9</b>"}
-    a = assessment_of(body)
+    a = document_of(body)
     html = render_report(a, series_href=href)
     assert '<script>alert("x")</script>' not in html
     assert "&lt;script&gt;alert(&quot;x&quot;)&lt;/script&gt;" in html
@@ -149,7 +160,7 @@ def test_untrusted_text_is_escaped() -> None:
 @pytest.mark.slow  # a 10,000-series report
 def test_large_fleet_report_draws_no_chart() -> None:
     # 10,000 series: one light page of rows and links; charts wait for the series page.
-    a = assessment_of(invented_body(10_000, t=30, h=4))
+    a = document_of(invented_body(10_000, t=30, h=4))
     html = render_report(a, series_href=href)
     assert "<svg" not in html
     assert html.count('<tr data-series="') == 10_000
@@ -157,31 +168,31 @@ def test_large_fleet_report_draws_no_chart() -> None:
     assert "more reasons: see the series table" in html
 
 
-def test_series_page(body: dict, assessment: dict) -> None:
+def test_series_page(body: dict, document) -> None:
     s = body["series"][1]
-    entry = find_series(assessment, s["id"])
+    entry = find_series(document, s["id"])
     d = series_diagnostics(SeriesInputs.from_mapping(s), entry, season_length=52, model_params=2)
-    page = render_series(assessment, entry, render_charts(d), report_href="/r?x=1&y=2")
+    page = render_series(document, entry, render_charts(d), report_href="/r?x=1&y=2")
     assert 'href="/r?x=1&amp;y=2"' in page
-    assert f'data-verdict="{entry["verdict"]}"' in page
+    assert f'data-verdict="{entry.verdict}"' in page
     for name in ("residuals", "acf", "histogram", "fitted", "holdout"):
         assert f'data-chart="{name}"' in page
-    for c in entry["checks"]:
-        assert f'<tr data-check="{c["name"]}">' in page
+    for c in entry.checks:
+        assert f'<tr data-check="{c.name}">' in page
     assert "<script" not in page  # the series page needs no script at all
-    assert find_series(assessment, "no-such-series") is None
+    assert find_series(document, "no-such-series") is None
     assert 'rel="prev"' not in page and 'rel="next"' not in page
 
 
-def test_neighbours_follow_the_worst_first_order(assessment: dict) -> None:
-    order = [s["id"] for s in series_order(assessment["series"])]
-    assert neighbours(assessment["series"], order[0]) == (None, order[1])
-    assert neighbours(assessment["series"], order[3]) == (order[2], order[4])
-    assert neighbours(assessment["series"], order[-1]) == (order[-2], None)
-    assert neighbours(assessment["series"], "nope") == (None, None)
-    entry = find_series(assessment, order[3])
+def test_neighbours_follow_the_worst_first_order(document) -> None:
+    order = [s.id for s in series_order(document.series)]
+    assert neighbours(document.series, order[0]) == (None, order[1])
+    assert neighbours(document.series, order[3]) == (order[2], order[4])
+    assert neighbours(document.series, order[-1]) == (order[-2], None)
+    assert neighbours(document.series, "nope") == (None, None)
+    entry = find_series(document, order[3])
     page = render_series(
-        assessment,
+        document,
         entry,
         (),
         report_href="/r",

@@ -13,6 +13,7 @@ from pydantic import BeforeValidator
 from starlette.concurrency import run_in_threadpool
 from starlette.responses import Response
 
+from service.results import SeriesTable
 from service.settings import Settings
 from service.store.port import Store
 from service.store.records import StoredAssessment
@@ -34,7 +35,7 @@ from ..httputil import (
     json_body_doc,
     problem_docs,
 )
-from ..schemas import AssessmentPage, AssessmentResult, SeriesRowPage, Verdict
+from ..schemas import AssessmentDocument, AssessmentPage, SeriesRowPage, Verdict
 
 router = APIRouter(prefix="/v1/assessments", tags=["assessments"])
 
@@ -169,7 +170,7 @@ def _idempotency_key(value: str | None) -> str | None:
 @router.post(
     "",
     status_code=201,
-    response_model=AssessmentResult,
+    response_model=AssessmentDocument,
     summary="Assess a model's residuals over a fleet of series",
     responses={
         200: {
@@ -349,7 +350,7 @@ def stored_or_404(store: Store, assessment_id: str) -> StoredAssessment:
 
 @router.get(
     "/{assessment_id}",
-    response_model=AssessmentResult,
+    response_model=AssessmentDocument,
     summary="One assessment's full result, as the POST returned it",
     responses={304: {"description": "Not modified"}, **_READ_PROBLEMS},
 )
@@ -363,28 +364,28 @@ def get_assessment(
 
 
 def series_rows(
-    assessment_id: str, series: list[dict[str, Any]], check: str | None, status: str | None
+    assessment_id: str, series: SeriesTable, check: str | None, status: str | None
 ) -> list[dict[str, Any]]:
     rows = []
     for s in series:
-        for c in s.get("checks", ()):
-            if check is not None and c.get("name") != check:
+        for c in s.checks:
+            if check is not None and c.name != check:
                 continue
-            if status is not None and c.get("status") != status:
+            if status is not None and c.status != status:
                 continue
             rows.append(
                 {
                     "assessment_id": assessment_id,
-                    "series_id": s["id"],
-                    "series_verdict": s.get("verdict"),
-                    "n_obs": s.get("n_obs"),
-                    "check": c.get("name"),
-                    "status": c.get("status"),
-                    "statistic": c.get("statistic"),
-                    "p_value": c.get("p_value"),
-                    "p_adjusted": c.get("p_adjusted"),
-                    "message": c.get("message"),
-                    "details": c.get("details") or {},
+                    "series_id": s.id,
+                    "series_verdict": str(s.verdict),
+                    "n_obs": s.n_obs,
+                    "check": c.name,
+                    "status": str(c.status),
+                    "statistic": c.statistic,
+                    "p_value": c.p_value,
+                    "p_adjusted": c.p_adjusted,
+                    "message": c.message,
+                    "details": dict(c.details),
                 }
             )
     return rows
@@ -409,7 +410,7 @@ def get_series_rows(
     status: Annotated[str | None, Query(description="only rows with this status")] = None,
 ) -> Response:
     stored = stored_or_404(store, assessment_id)
-    series = [orjson.loads(s) for s in stored.series]
+    series = SeriesTable.from_dicts([orjson.loads(s) for s in stored.series])
     rows = series_rows(assessment_id, series, check, status)
     if wants_csv(request.headers.get("accept")):
         body = to_csv(SERIES_COLUMNS, ([r[c] for c in SERIES_COLUMNS] for r in rows))

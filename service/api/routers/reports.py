@@ -21,6 +21,7 @@ from starlette.concurrency import run_in_threadpool
 from starlette.responses import Response
 
 from service import links
+from service.results import AssessmentDocument
 from service.settings import Settings
 from service.store.port import Store
 
@@ -195,7 +196,8 @@ async def get_report(
     def work() -> str:
         from service.report import render_report
 
-        assessment = orjson.loads(stored_or_404(ctx.store, assessment_id).to_json())
+        stored = stored_or_404(ctx.store, assessment_id)
+        assessment = AssessmentDocument.from_dict(orjson.loads(stored.to_json()))
         return render_report(
             assessment, series_href=lambda sid: f"{base}/series/{quote(sid, safe='')}{suffix}"
         )
@@ -265,12 +267,13 @@ async def get_series_report(
         )
 
         stored = stored_or_404(ctx.store, assessment_id)
-        fleet = [orjson.loads(blob) for blob in stored.series]
-        entry = find_series({"series": fleet}, series_id)
+        head = orjson.loads(stored.head)
+        head["series"] = [orjson.loads(blob) for blob in stored.series]
+        assessment = AssessmentDocument.from_dict(head)
+        entry = find_series(assessment, series_id)
         if entry is None:
             raise ApiError(404, f"assessment {assessment_id!r} has no series {series_id!r}")
-        head = orjson.loads(stored.head)
-        before, after = neighbours(fleet, series_id)
+        before, after = neighbours(assessment.series, series_id)
 
         def page_of(sid: str | None) -> tuple[str, str] | None:
             return None if sid is None else (sid, f"{base}/series/{quote(sid, safe='')}{suffix}")
@@ -282,14 +285,14 @@ async def get_series_report(
             diag = series_diagnostics(
                 inputs,
                 entry,
-                season_length=int(head.get("season_length") or 1),
-                model_params=int(head.get("model_params") or 0),
+                season_length=assessment.season_length,
+                model_params=assessment.model_params,
             )
             return render_charts(diag)
 
         charts = _chart_cache(ctx.services).get_or_render((assessment_id, series_id), draw)
         return render_series(
-            head,
+            assessment,
             entry,
             charts,
             report_href=base + suffix,
