@@ -37,13 +37,12 @@ def test_each_row_is_computed_alone():
     # Stacking a batch on itself (as the service stacks submissions) changes no row's result.
     from service.core.burn_in import burn_in_hint
     from service.core.ewc import ewc_bias
-    from service.core.level_shift import level_shift
 
     rng = np.random.default_rng(21)
     x = rng.normal(size=(5, 60))
     x[1, 50:] = np.nan
     x[2, [4, 30]] = np.nan
-    for fn in (ewc_bias, level_shift, burn_in_hint):
+    for fn in (ewc_bias, burn_in_hint):
         alone = fn(x)
         stacked = fn(np.vstack([x, x]))
         np.testing.assert_array_equal(stacked.statistic[:5], alone.statistic)
