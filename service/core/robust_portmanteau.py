@@ -11,9 +11,10 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
 
 from .batch import Residuals
-from .residual_arrays import align_left, as_residuals
+from .residual_arrays import as_residuals
 from .results import CheckResult, skip_reasons_and_ran
 from .tails import chi2_sf
 from .types import BoolMatrix, FloatMatrix, InputError, IntVector
@@ -24,10 +25,13 @@ authors name 1.96 and 2.576 as good choices (``testcorr`` defaults to 2.576, whi
 better at relatively large lags)."""
 
 ROBUST_NONSEASONAL_LAGS = 10
-CHUNK_ELEMENTS = 1 << 20
-"""Entries per (series, lag, period) temporary: rows are processed in chunks of at most this many
-``lags x periods`` cells (and at most :data:`MAX_CHUNK_ROWS` rows), so memory stays bounded."""
+CHUNK_ELEMENTS = 1 << 18
+"""Entries per (series, lag, period) block of lagged products: rows are processed in blocks of
+at most this many ``lags x periods`` cells (and at most :data:`MAX_CHUNK_ROWS` rows), small
+enough to stay in cache."""
 MAX_CHUNK_ROWS = 2048
+FORM_ELEMENTS = 1 << 20
+"""Entries per (series, lag, lag) block of ``R*`` held for the quadratic forms."""
 PD_TOLERANCE = 1e-8
 """Smallest eigenvalue of ``R*`` (a unit-diagonal matrix) accepted as positive definite."""
 
@@ -127,14 +131,24 @@ def robust_lag_statistics(
     fallback = np.zeros(n_series, dtype=bool)
     width = res.standard.shape[1]
     if n_k and width:
-        rows = int(min(MAX_CHUNK_ROWS, max(1, CHUNK_ELEMENTS // (n_k * (width + 1)))))
-        for lo in range(0, n_series, rows):
-            part = slice(lo, min(lo + rows, n_series))
-            z = align_left(res.standard[part], res.start[part])
-            t, tst, qq, kp, me, fb = _chunk(z, lag_values, tested[part], threshold)
-            out_t[part] = np.where(tst, t, np.nan)
-            tested[part] = tst
-            q[part], kept[part], min_eig[part], fallback[part] = qq, kp, me, fb
+        span = np.maximum(res.lengths - res.start, 0)
+        form_rows = max(1, FORM_ELEMENTS // (n_k * n_k))
+        for lo in range(0, n_series, form_rows):
+            hi = min(lo + form_rows, n_series)
+            r_star = np.zeros((hi - lo, n_k, n_k))  # kept r_jk above the diagonal, else 0
+            t = np.zeros((hi - lo, n_k))
+            rows = int(min(MAX_CHUNK_ROWS, max(1, CHUNK_ELEMENTS // (n_k * width))))
+            for c_lo in range(lo, hi, rows):
+                part = slice(c_lo, min(c_lo + rows, hi))
+                local = slice(part.start - lo, part.stop - lo)
+                z = _aligned(res, part, int(span[part].max(initial=0)))
+                t[local], tested[part], kept[part] = _products(
+                    z, lag_values, tested[part], threshold, r_star[local]
+                )
+            block = slice(lo, hi)
+            q[block], min_eig[block], ok = _forms(t, r_star, kept[block])
+            fallback[block] = ~ok
+            out_t[block] = np.where(tested[block], t, np.nan)
     return {
         "lag_values": lag_values,
         "t": out_t,
@@ -147,48 +161,121 @@ def robust_lag_statistics(
     }
 
 
-def _chunk(
-    z: FloatMatrix, lag_values: IntVector, tested: BoolMatrix, threshold: float
-) -> tuple[np.ndarray, ...]:
-    """The statistics of :func:`robust_lag_statistics` for left-aligned rows ``z``."""
+def _aligned(res: Residuals, part: slice, span: int) -> FloatMatrix:
+    """Rows ``part`` of ``res.standard`` shifted left to their first observed residual (zeros
+    after a row's span), ``span`` columns wide: a view where the rows start alike."""
+    start = res.start[part]
+    values = res.standard
+    width = values.shape[1]
+    span = max(span, 1)
+    if (start == start[0]).all():
+        s0 = int(start[0])
+        return values[part, s0 : s0 + span]
+    rows = np.arange(part.start, part.stop)
+    cols = np.arange(span)[None, :]
+    z = values.reshape(-1).take((rows * width + start)[:, None] + cols, mode="clip")
+    z[cols >= (width - start)[:, None]] = 0.0
+    return z
+
+
+def _products(
+    z: FloatMatrix, lag_values: IntVector, tested: BoolMatrix, threshold: float, r_out: FloatMatrix
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Robust ``t~`` (zero where not tested), the tested lags and the kept pairs per row of
+    the left-aligned rows ``z``; the kept ``r*_jk`` (``j < k``) go to ``r_out`` above the
+    diagonal.
+
+    ``P_k(t) = e_t e_{t-k}`` for the lags (one row of the block per lag), their sums, the Gram
+    sums ``sum_t P_j P_k`` and ``sum_t P_j^2 P_k^2`` by a matrix product per series, and the
+    tail sums ``S_j(m) = sum_{t >= m} P_j(t)^2`` at the tested lags from segment sums between
+    consecutive lags.
+    """
     c, width = z.shape
     n_k = lag_values.size
-    prod = np.zeros((c, n_k, width))
-    for a, k in enumerate(lag_values):
-        if k < width:
-            prod[:, a, k:] = z[:, k:] * z[:, :-k]
-    prod *= tested[:, :, None]
+    t_out = np.zeros((c, n_k))
+    kept = np.zeros(c, dtype=np.int64)
+    fits = lag_values < width  # lags without a pair inside these rows stay untested
+    tested = tested & fits[None, :]
+    use = np.flatnonzero(fits)
+    if use.size == 0:
+        return t_out, tested, kept
+    lags = lag_values[use]
+    top = int(lags[-1])
+    # P[:, a, t] = z_t z_{t - lag_a} (0 for t < lag_a): lagged copies from a zero-padded view.
+    padded = np.zeros((c, top + width))
+    padded[:, top:] = z
+    prod = sliding_window_view(padded, width, axis=1)[:, top - lags, :]
+    prod *= z[:, None, :]
+    tst = tested[:, use]
+    if not tst.all():
+        prod *= tst[:, :, None]
     sq = prod * prod
-    # S[:, a, s] = sum_{t >= s} sq[:, a, t] (0-based positions), with a zero column at `width`.
-    suffix = np.zeros((c, n_k, width + 1))
-    suffix[:, :, :width] = np.cumsum(sq[:, :, ::-1], axis=2)[:, :, ::-1]
-    total = suffix[:, :, 0]
-    tested = tested & (total > 0)  # a lag without an observed pair tests nothing
+    cross = np.matmul(prod, prod.transpose(0, 2, 1))  # sum_t P_j P_k
+    quad = np.matmul(sq, sq.transpose(0, 2, 1))  # sum_t P_j^2 P_k^2
+    total = np.diagonal(cross, axis1=1, axis2=2)  # S_k(0) = sum_t P_k^2
+    tst &= total > 0  # a lag without an observed pair tests nothing
     with np.errstate(invalid="ignore", divide="ignore"):
-        t = np.where(tested, prod.sum(axis=2) / np.sqrt(total), 0.0)
-    cross = np.matmul(prod, prod.swapaxes(1, 2))  # sum_t e_tj e_tk
-    quad = np.matmul(sq, sq.swapaxes(1, 2))  # sum_t e_tj^2 e_tk^2
-    del prod, sq
-    start = np.minimum(np.maximum.outer(lag_values, lag_values), width)  # m = max(j, k)
-    idx = np.arange(n_k)
-    s_j = suffix[:, idx[:, None], start]  # S_j(m), shape (c, K, K)
-    s_k = suffix[:, idx[None, :], start]  # S_k(m)
+        t = np.where(tst, prod.sum(axis=2) / np.sqrt(total), 0.0)
+    # S[:, a, b] = S_a(lag_b) = sum_{t >= lag_b} P_a(t)^2 for b >= a: the tail from the top
+    # lag plus the segments between consecutive lags, summed from the right.
+    n_use = lags.size
+    tail = sq[:, :, top:].sum(axis=2)
+    suffix = np.empty((c, n_use, n_use))
+    suffix[:, :, -1] = tail
+    if n_use > 1:
+        seg = np.add.reduceat(sq[:, :, :top], lags[:-1], axis=2)
+        suffix[:, :, :-1] = np.cumsum(seg[:, :, ::-1], axis=2)[:, :, ::-1] + tail[:, :, None]
+    # Pairs j < k (a < b): m = max(j, k) = lag_b, S_j(m) = S[a, b] and S_k(m) = S_k(0).
+    upper = np.triu(np.ones((n_use, n_use), dtype=bool), 1)[None, :, :]
     with np.errstate(invalid="ignore", divide="ignore"):
-        r = cross / np.sqrt(s_j * s_k)
+        r = cross / np.sqrt(suffix * total[:, None, :])
         tau = cross / np.sqrt(quad)
-    pair = tested[:, :, None] & tested[:, None, :]
-    keep = pair & (np.abs(tau) > threshold) & np.isfinite(r)
-    eye = np.eye(n_k, dtype=bool)[None, :, :]
-    keep &= ~eye
-    r_star = np.where(keep, r, 0.0)
-    r_star[:, idx, idx] = 1.0
-    eig = np.linalg.eigvalsh(r_star)[:, 0]
-    ok = eig > PD_TOLERANCE
-    safe = np.where(ok[:, None, None], r_star, np.eye(n_k)[None, :, :])
-    solved = np.linalg.solve(safe, t[:, :, None])[:, :, 0]
-    q = np.where(ok, np.vecdot(t, solved), np.vecdot(t, t))
-    kept = keep.sum(axis=(1, 2)) // 2
-    return t, tested, q, kept.astype(np.int64), eig, ~ok
+    keep = upper & tst[:, :, None] & tst[:, None, :] & (np.abs(tau) > threshold) & np.isfinite(r)
+    r_out[:, use[:, None], use[None, :]] = np.where(keep, r, 0.0)
+    t_out[:, use] = t
+    tested[:, use] = tst
+    kept[:] = keep.sum(axis=(1, 2))
+    return t_out, tested, kept
+
+
+def _forms(t: FloatMatrix, r_upper: np.ndarray, kept: IntVector) -> tuple[np.ndarray, ...]:
+    """``Q~ = t~' R*^{-1} t~`` (``sum t~^2`` where ``R*`` is not positive definite), the
+    smallest eigenvalue of ``R*`` and whether it is positive definite, per row.
+
+    ``R*`` has unit diagonal and the kept ``r*_jk`` of ``r_upper`` (above the diagonal, mirrored)
+    off it. A lag in no kept pair has a unit row and column: it adds ``t~_k^2`` and an
+    eigenvalue 1, so the eigenvalues and the solve run on the block of the lags in kept pairs
+    only (rows grouped by its size; ``R* = I`` needs neither).
+    """
+    n = t.shape[0]
+    q = np.vecdot(t, t)
+    eig = np.ones(n)
+    ok = np.ones(n, dtype=bool)
+    rows = np.flatnonzero(kept > 0)
+    if rows.size == 0:
+        return q, eig, ok
+    r_full = r_upper[rows] + r_upper[rows].transpose(0, 2, 1)
+    active = (r_full != 0).any(axis=2)  # a kept r*_jk is never 0 (|tau_jk| > lambda >= 0)
+    size = active.sum(axis=1)
+    order = np.argsort(~active, axis=1, kind="stable")  # the lags in kept pairs first
+    t_rows = t[rows]
+    rest = np.vecdot(np.where(active, 0.0, t_rows), np.where(active, 0.0, t_rows))
+    for s in np.unique(size):
+        grp = np.flatnonzero(size == s)
+        idx = order[grp, :s]
+        block = r_full[grp[:, None, None], idx[:, :, None], idx[:, None, :]]
+        diag = np.arange(s)
+        block[:, diag, diag] = 1.0
+        ev = np.linalg.eigvalsh(block)[:, 0]
+        good = ev > PD_TOLERANCE
+        tt = np.take_along_axis(t_rows[grp], idx, axis=1)
+        safe = np.where(good[:, None, None], block, np.eye(s)[None, :, :])
+        solved = np.linalg.solve(safe, tt[:, :, None])[:, :, 0]
+        target = rows[grp]
+        eig[target] = ev
+        ok[target] = good
+        q[target] = np.where(good, rest[grp] + np.vecdot(tt, solved), q[target])
+    return q, eig, ok
 
 
 def robust_portmanteau(
