@@ -11,7 +11,6 @@ from __future__ import annotations
 from collections.abc import Sequence
 
 import numpy as np
-from numpy.lib.stride_tricks import sliding_window_view
 
 from .batch import Residuals
 from .residual_arrays import as_residuals
@@ -131,19 +130,19 @@ def robust_lag_statistics(
     fallback = np.zeros(n_series, dtype=bool)
     width = res.standard.shape[1]
     if n_k and width:
-        span = np.maximum(res.lengths - res.start, 0)
         form_rows = max(1, FORM_ELEMENTS // (n_k * n_k))
+        rows = int(min(MAX_CHUNK_ROWS, max(1, CHUNK_ELEMENTS // (n_k * width))))
+        buf = _Buffers(min(rows, n_series), n_k, width)
         for lo in range(0, n_series, form_rows):
             hi = min(lo + form_rows, n_series)
             r_star = np.zeros((hi - lo, n_k, n_k))  # kept r_jk above the diagonal, else 0
             t = np.zeros((hi - lo, n_k))
-            rows = int(min(MAX_CHUNK_ROWS, max(1, CHUNK_ELEMENTS // (n_k * width))))
             for c_lo in range(lo, hi, rows):
                 part = slice(c_lo, min(c_lo + rows, hi))
                 local = slice(part.start - lo, part.stop - lo)
-                z = _aligned(res, part, int(span[part].max(initial=0)))
+                z = _aligned(res, part, buf.z)
                 t[local], tested[part], kept[part] = _products(
-                    z, lag_values, tested[part], threshold, r_star[local]
+                    z, lag_values, tested[part], threshold, r_star[local], buf
                 )
             block = slice(lo, hi)
             q[block], min_eig[block], ok = _forms(t, r_star, kept[block])
@@ -161,34 +160,53 @@ def robust_lag_statistics(
     }
 
 
-def _aligned(res: Residuals, part: slice, span: int) -> FloatMatrix:
-    """Rows ``part`` of ``res.standard`` shifted left to their first observed residual (zeros
-    after a row's span), ``span`` columns wide: a view where the rows start alike."""
+def _aligned(res: Residuals, part: slice, out: np.ndarray) -> FloatMatrix:
+    """Rows ``part`` of ``res.standard`` shifted left to their first observed residual, zeros
+    in the columns freed on the right, in the C-ordered buffer ``out``."""
     start = res.start[part]
     values = res.standard
     width = values.shape[1]
-    span = max(span, 1)
+    n_rows = part.stop - part.start
+    z = out[: n_rows * width].reshape(n_rows, width)
     if (start == start[0]).all():
-        s0 = int(start[0])
-        return values[part, s0 : s0 + span]
+        s0 = min(int(start[0]), width)
+        z[:, : width - s0] = values[part, s0:]
+        z[:, width - s0 :] = 0.0
+        return z
     rows = np.arange(part.start, part.stop)
-    cols = np.arange(span)[None, :]
-    z = values.reshape(-1).take((rows * width + start)[:, None] + cols, mode="clip")
+    cols = np.arange(width)[None, :]
+    values.reshape(-1).take((rows * width + start)[:, None] + cols, mode="clip", out=z)
     z[cols >= (width - start)[:, None]] = 0.0
     return z
 
 
+class _Buffers:
+    """Work arrays reused by every block of rows (no fresh large allocation per block)."""
+
+    def __init__(self, rows: int, n_k: int, width: int) -> None:
+        self.z = np.empty(rows * width)
+        self.prod = np.empty(n_k * rows * width)
+        self.sq = np.empty(n_k * rows * width)
+        self.cross = np.empty(rows * n_k * n_k)
+        self.quad = np.empty(rows * n_k * n_k)
+
+
 def _products(
-    z: FloatMatrix, lag_values: IntVector, tested: BoolMatrix, threshold: float, r_out: FloatMatrix
+    z: FloatMatrix,
+    lag_values: IntVector,
+    tested: BoolMatrix,
+    threshold: float,
+    r_out: FloatMatrix,
+    buf: _Buffers,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Robust ``t~`` (zero where not tested), the tested lags and the kept pairs per row of
-    the left-aligned rows ``z``; the kept ``r*_jk`` (``j < k``) go to ``r_out`` above the
-    diagonal.
+    the left-aligned C-ordered rows ``z``; the kept ``r*_jk`` (``j < k``) go to ``r_out``
+    above the diagonal.
 
-    ``P_k(t) = e_t e_{t-k}`` for the lags (one row of the block per lag), their sums, the Gram
+    ``P_k(t) = e_t e_{t-k}`` for the lags (one slab of rows per lag), their sums, the Gram
     sums ``sum_t P_j P_k`` and ``sum_t P_j^2 P_k^2`` by a matrix product per series, and the
-    tail sums ``S_j(m) = sum_{t >= m} P_j(t)^2`` at the tested lags from segment sums between
-    consecutive lags.
+    tail sums ``S_j(m) = sum_{t >= m} P_j(t)^2`` at the tested lags: the sum from the top lag
+    on plus the cumulative sums of the columns before it.
     """
     c, width = z.shape
     n_k = lag_values.size
@@ -200,41 +218,58 @@ def _products(
     if use.size == 0:
         return t_out, tested, kept
     lags = lag_values[use]
-    top = int(lags[-1])
-    # P[:, a, t] = z_t z_{t - lag_a} (0 for t < lag_a): lagged copies from a zero-padded view.
-    padded = np.zeros((c, top + width))
-    padded[:, top:] = z
-    prod = sliding_window_view(padded, width, axis=1)[:, top - lags, :]
-    prod *= z[:, None, :]
-    tst = tested[:, use]
-    if not tst.all():
-        prod *= tst[:, :, None]
-    sq = prod * prod
-    cross = np.matmul(prod, prod.transpose(0, 2, 1))  # sum_t P_j P_k
-    quad = np.matmul(sq, sq.transpose(0, 2, 1))  # sum_t P_j^2 P_k^2
-    total = np.diagonal(cross, axis1=1, axis2=2)  # S_k(0) = sum_t P_k^2
-    tst &= total > 0  # a lag without an observed pair tests nothing
-    with np.errstate(invalid="ignore", divide="ignore"):
-        t = np.where(tst, prod.sum(axis=2) / np.sqrt(total), 0.0)
-    # S[:, a, b] = S_a(lag_b) = sum_{t >= lag_b} P_a(t)^2 for b >= a: the tail from the top
-    # lag plus the segments between consecutive lags, summed from the right.
     n_use = lags.size
-    tail = sq[:, :, top:].sum(axis=2)
-    suffix = np.empty((c, n_use, n_use))
-    suffix[:, :, -1] = tail
-    if n_use > 1:
-        seg = np.add.reduceat(sq[:, :, :top], lags[:-1], axis=2)
-        suffix[:, :, :-1] = np.cumsum(seg[:, :, ::-1], axis=2)[:, :, ::-1] + tail[:, :, None]
-    # Pairs j < k (a < b): m = max(j, k) = lag_b, S_j(m) = S[a, b] and S_k(m) = S_k(0).
-    upper = np.triu(np.ones((n_use, n_use), dtype=bool), 1)[None, :, :]
+    top = int(lags[-1])
+    # prod[a, i, t] = z_it z_i(t - lag_a), 0 for t < lag_a: each lag's slab is one product of
+    # the flattened rows with themselves shifted, its first columns (which would pair a row
+    # with the end of the previous one) then zeroed.
+    flat = z.reshape(-1)
+    prod = buf.prod[: n_use * c * width].reshape(n_use, c, width)
+    tst = tested[:, use]
+    for a, k in enumerate(lags):
+        np.multiply(flat[k:], flat[:-k], out=prod[a].reshape(-1)[k:])
+        prod[a, :, :k] = 0.0
+        if not tst[:, a].all():
+            prod[a] *= tst[:, a][:, None]
+    sq = buf.sq[: n_use * c * width].reshape(n_use, c, width)
+    np.multiply(prod, prod, out=sq)
+    # S_a(m) = sum_{t >= m} P_a(t)^2 at m = top (the largest lag) and the columns before it
+    # summed from the right: head[a, i, s] = sum_{s <= t < top} P_a(t)^2.
+    tail = np.vecdot(prod[:, :, top:], prod[:, :, top:])  # (K, c)
+    head = np.cumsum(sq[:, :, top - 1 :: -1], axis=2)[:, :, ::-1]
+
+    def suffix(a: IntVector, m: IntVector) -> FloatMatrix:  # S_a(m) for lags m <= top
+        inside = (m < top)[:, None]
+        return tail[a] + np.where(inside, head[a, :, np.minimum(m, top - 1)], 0.0)
+
+    total = suffix(np.arange(n_use), lags)  # S_a(lag_a) = S_a(0) = sum_t P_a(t)^2
+    tst &= (total > 0).T  # a lag without an observed pair tests nothing
+    sums = prod.sum(axis=2)  # sum_t P_a(t), (K, c)
     with np.errstate(invalid="ignore", divide="ignore"):
-        r = cross / np.sqrt(suffix * total[:, None, :])
-        tau = cross / np.sqrt(quad)
-    keep = upper & tst[:, :, None] & tst[:, None, :] & (np.abs(tau) > threshold) & np.isfinite(r)
-    r_out[:, use[:, None], use[None, :]] = np.where(keep, r, 0.0)
+        t = np.where(tst, (sums / np.sqrt(total)).T, 0.0)
     t_out[:, use] = t
     tested[:, use] = tst
-    kept[:] = keep.sum(axis=(1, 2))
+    if n_use < 2:
+        return t_out, tested, kept
+    # The pairs a < b (lags j < k): sum_t P_j P_k and sum_t P_j^2 P_k^2 per series (a dot
+    # product per series and pair, stacked over the later lags of each a), and
+    # S_j(m) = S_a(lag_b), S_k(m) = S_b(0) at m = max(j, k) = lag_b.
+    ia, ib = np.triu_indices(n_use, 1)
+    cross = buf.cross[: ia.size * c].reshape(ia.size, c)
+    quad = buf.quad[: ia.size * c].reshape(ia.size, c)
+    at = 0
+    for a in range(n_use - 1):
+        k = n_use - a - 1
+        np.vecdot(prod[a][None], prod[a + 1 :], out=cross[at : at + k])
+        np.vecdot(sq[a][None], sq[a + 1 :], out=quad[at : at + k])
+        at += k
+    s_j = suffix(ia, lags[ib])
+    with np.errstate(invalid="ignore", divide="ignore"):
+        r = cross / np.sqrt(s_j * total[ib])
+        tau = cross / np.sqrt(quad)
+    keep = (tst[:, ia] & tst[:, ib]).T & (np.abs(tau) > threshold) & np.isfinite(r)
+    r_out[:, use[ia], use[ib]] = np.where(keep, r, 0.0).T
+    kept[:] = keep.sum(axis=0)
     return t_out, tested, kept
 
 
