@@ -181,14 +181,14 @@ def _aligned(res: Residuals, part: slice, out: np.ndarray) -> FloatMatrix:
 
 
 class _Buffers:
-    """Work arrays reused by every block of rows (no fresh large allocation per block)."""
+    """Work arrays reused by every block of rows (no fresh large allocation per block):
+    ``prod[0]`` holds ``P_a(t)`` and ``prod[1]`` its square, one slab of rows per lag."""
 
     def __init__(self, rows: int, n_k: int, width: int) -> None:
         self.z = np.empty(rows * width)
-        self.prod = np.empty(n_k * rows * width)
-        self.sq = np.empty(n_k * rows * width)
-        self.cross = np.empty(rows * n_k * n_k)
-        self.quad = np.empty(rows * n_k * n_k)
+        self.prod = np.empty(2 * n_k * rows * width)
+        self.pairs = np.empty(2 * rows * n_k * (n_k - 1) // 2)
+        self.upper = np.triu_indices(n_k, 1)
 
 
 def _products(
@@ -203,74 +203,59 @@ def _products(
     the left-aligned C-ordered rows ``z``; the kept ``r*_jk`` (``j < k``) go to ``r_out``
     above the diagonal.
 
-    ``P_k(t) = e_t e_{t-k}`` for the lags (one slab of rows per lag), their sums, the Gram
-    sums ``sum_t P_j P_k`` and ``sum_t P_j^2 P_k^2`` by a matrix product per series, and the
-    tail sums ``S_j(m) = sum_{t >= m} P_j(t)^2`` at the tested lags: the sum from the top lag
-    on plus the cumulative sums of the columns before it.
+    ``P_a(t) = e_t e_{t-k}`` (``k`` the ``a``-th lag; 0 for ``t < k`` and where lag ``k`` is
+    not tested), its sums, the tail sums ``S_a(m) = sum_{t >= m} P_a(t)^2`` at the lags, and
+    for the pairs ``a < b`` the Gram sums ``sum_t P_a P_b`` and ``sum_t P_a^2 P_b^2`` (a dot
+    product per series and pair, stacked over the later lags of each ``a``).
     """
     c, width = z.shape
     n_k = lag_values.size
-    t_out = np.zeros((c, n_k))
-    kept = np.zeros(c, dtype=np.int64)
-    fits = lag_values < width  # lags without a pair inside these rows stay untested
-    tested = tested & fits[None, :]
-    use = np.flatnonzero(fits)
-    if use.size == 0:
-        return t_out, tested, kept
-    lags = lag_values[use]
-    n_use = lags.size
-    top = int(lags[-1])
-    # prod[a, i, t] = z_it z_i(t - lag_a), 0 for t < lag_a: each lag's slab is one product of
-    # the flattened rows with themselves shifted, its first columns (which would pair a row
-    # with the end of the previous one) then zeroed.
+    top = int(lag_values[-1])
+    # prod[0, a, i, t] = z_it z_i(t - k): each lag's slab is one product of the flattened rows
+    # with themselves shifted by k, its first k columns (which would pair a row with the end
+    # of the previous one) then zeroed.
+    both = buf.prod[: 2 * n_k * c * width].reshape(2, n_k, c, width)
+    prod, sq = both[0], both[1]
     flat = z.reshape(-1)
-    prod = buf.prod[: n_use * c * width].reshape(n_use, c, width)
-    tst = tested[:, use]
-    for a, k in enumerate(lags):
+    for a, k in enumerate(lag_values):
         np.multiply(flat[k:], flat[:-k], out=prod[a].reshape(-1)[k:])
         prod[a, :, :k] = 0.0
-        if not tst[:, a].all():
-            prod[a] *= tst[:, a][:, None]
-    sq = buf.sq[: n_use * c * width].reshape(n_use, c, width)
+        if not tested[:, a].all():
+            prod[a] *= tested[:, a][:, None]
     np.multiply(prod, prod, out=sq)
-    # S_a(m) = sum_{t >= m} P_a(t)^2 at m = top (the largest lag) and the columns before it
-    # summed from the right: head[a, i, s] = sum_{s <= t < top} P_a(t)^2.
-    tail = np.vecdot(prod[:, :, top:], prod[:, :, top:])  # (K, c)
-    head = np.cumsum(sq[:, :, top - 1 :: -1], axis=2)[:, :, ::-1]
-
-    def suffix(a: IntVector, m: IntVector) -> FloatMatrix:  # S_a(m) for lags m <= top
-        inside = (m < top)[:, None]
-        return tail[a] + np.where(inside, head[a, :, np.minimum(m, top - 1)], 0.0)
-
-    total = suffix(np.arange(n_use), lags)  # S_a(lag_a) = S_a(0) = sum_t P_a(t)^2
-    tst &= (total > 0).T  # a lag without an observed pair tests nothing
-    sums = prod.sum(axis=2)  # sum_t P_a(t), (K, c)
+    # suffix[b, a] = S_a(lag_b) = sum_{t >= lag_b} P_a(t)^2: the tail from the top lag, then
+    # the columns between consecutive lags added from the right.
+    suffix = np.empty((n_k, n_k, c))
+    acc = sq[:, :, top:].sum(axis=2)
+    suffix[-1] = acc
+    for b in range(n_k - 2, -1, -1):
+        lo, hi = int(lag_values[b]), int(lag_values[b + 1])
+        acc = acc + (sq[:, :, lo] if hi - lo == 1 else sq[:, :, lo:hi].sum(axis=2))
+        suffix[b] = acc
+    lag_index = np.arange(n_k)
+    total = suffix[lag_index, lag_index]  # S_a(lag_a) = S_a(0) = sum_t P_a(t)^2, (K, c)
+    tested = tested & (total > 0).T  # a lag without an observed pair tests nothing
     with np.errstate(invalid="ignore", divide="ignore"):
-        t = np.where(tst, (sums / np.sqrt(total)).T, 0.0)
-    t_out[:, use] = t
-    tested[:, use] = tst
-    if n_use < 2:
-        return t_out, tested, kept
-    # The pairs a < b (lags j < k): sum_t P_j P_k and sum_t P_j^2 P_k^2 per series (a dot
-    # product per series and pair, stacked over the later lags of each a), and
-    # S_j(m) = S_a(lag_b), S_k(m) = S_b(0) at m = max(j, k) = lag_b.
-    ia, ib = np.triu_indices(n_use, 1)
-    cross = buf.cross[: ia.size * c].reshape(ia.size, c)
-    quad = buf.quad[: ia.size * c].reshape(ia.size, c)
+        t = np.where(tested, (prod.sum(axis=2) / np.sqrt(total)).T, 0.0)
+    kept = np.zeros(c, dtype=np.int64)
+    if n_k < 2:
+        return t, tested, kept
+    # Pairs a < b (lags j < k): m = max(j, k) = lag_b, S_j(m) = S_a(lag_b), S_k(m) = S_b(0).
+    ia, ib = buf.upper
+    gram = buf.pairs[: 2 * ia.size * c].reshape(2, ia.size, c)  # sum P_a P_b, sum P_a^2 P_b^2
     at = 0
-    for a in range(n_use - 1):
-        k = n_use - a - 1
-        np.vecdot(prod[a][None], prod[a + 1 :], out=cross[at : at + k])
-        np.vecdot(sq[a][None], sq[a + 1 :], out=quad[at : at + k])
+    for a in range(n_k - 1):
+        k = n_k - a - 1
+        np.vecdot(both[:, a : a + 1], both[:, a + 1 :], out=gram[:, at : at + k])
         at += k
-    s_j = suffix(ia, lags[ib])
+    cross, quad = gram[0], gram[1]
     with np.errstate(invalid="ignore", divide="ignore"):
-        r = cross / np.sqrt(s_j * total[ib])
+        r = cross / np.sqrt(suffix[ib, ia] * total[ib])
         tau = cross / np.sqrt(quad)
-    keep = (tst[:, ia] & tst[:, ib]).T & (np.abs(tau) > threshold) & np.isfinite(r)
-    r_out[:, use[ia], use[ib]] = np.where(keep, r, 0.0).T
+    keep = (tested[:, ia] & tested[:, ib]).T & (np.abs(tau) > threshold) & np.isfinite(r)
+    r_out[:, ia, ib] = np.where(keep, r, 0.0).T
     kept[:] = keep.sum(axis=0)
-    return t_out, tested, kept
+    return t, tested, kept
 
 
 def _forms(t: FloatMatrix, r_upper: np.ndarray, kept: IntVector) -> tuple[np.ndarray, ...]:
@@ -289,23 +274,26 @@ def _forms(t: FloatMatrix, r_upper: np.ndarray, kept: IntVector) -> tuple[np.nda
     rows = np.flatnonzero(kept > 0)
     if rows.size == 0:
         return q, eig, ok
-    r_full = r_upper[rows] + r_upper[rows].transpose(0, 2, 1)
-    active = (r_full != 0).any(axis=2)  # a kept r*_jk is never 0 (|tau_jk| > lambda >= 0)
+    upper = r_upper[rows]
+    nonzero = upper != 0  # a kept r*_jk is never 0 (|tau_jk| > lambda >= 0)
+    active = nonzero.any(axis=2) | nonzero.any(axis=1)
     size = active.sum(axis=1)
-    order = np.argsort(~active, axis=1, kind="stable")  # the lags in kept pairs first
+    order = np.argsort(~active, axis=1, kind="stable")  # the lags in kept pairs first, in order
     t_rows = t[rows]
-    rest = np.vecdot(np.where(active, 0.0, t_rows), np.where(active, 0.0, t_rows))
+    rest = np.where(active, 0.0, t_rows)
+    rest = np.vecdot(rest, rest)
     for s in np.unique(size):
         grp = np.flatnonzero(size == s)
-        idx = order[grp, :s]
-        block = r_full[grp[:, None, None], idx[:, :, None], idx[:, None, :]]
+        idx = order[grp, :s]  # ascending, so block[p, q] for p < q is above the diagonal
+        block = upper[grp[:, None, None], idx[:, :, None], idx[:, None, :]]
+        block += block.transpose(0, 2, 1)
         diag = np.arange(s)
         block[:, diag, diag] = 1.0
         ev = np.linalg.eigvalsh(block)[:, 0]
         good = ev > PD_TOLERANCE
         tt = np.take_along_axis(t_rows[grp], idx, axis=1)
-        safe = np.where(good[:, None, None], block, np.eye(s)[None, :, :])
-        solved = np.linalg.solve(safe, tt[:, :, None])[:, :, 0]
+        block[~good] = np.eye(s)
+        solved = np.linalg.solve(block, tt[:, :, None])[:, :, 0]
         target = rows[grp]
         eig[target] = ev
         ok[target] = good
