@@ -18,6 +18,8 @@ t(3) series did (tails far heavier than most forecast residuals') and at most 0.
 GARCH(0.1, 0.15, 0.8) series; at 6 the t(3) rate was 0.5-0.8%, at 4 about 2%."""
 BURN_IN_MIN_REFERENCE = 10
 """Fewest residuals after the head: the median and MAD rest on them."""
+BURN_IN_BLOCK = 1 << 20
+"""Entries per block of series sorted at once (the median search then takes few steps)."""
 MAD_NORMAL = 1.4826
 """``1 / Phi^{-1}(3/4)`` to four digits: the MAD of a normal sample times this estimates its
 standard deviation (Hampel 1974; Rousseeuw & Croux 1993)."""
@@ -118,7 +120,9 @@ def burn_in_hint(
     # Only the series with enough residuals after the head, in blocks of equal length: the
     # observed residuals in their order (centred, in units of res.unit: ratios only).
     need = np.where(n_ref >= BURN_IN_MIN_REFERENCE, n, 0)
-    chunks = packed_chunks(res.standard, need, res.start, res.n_missing == 0, res.observed)
+    chunks = packed_chunks(
+        res.standard, need, res.start, res.n_missing == 0, res.observed, BURN_IN_BLOCK
+    )
     for rows, block, nr in chunks:
         # The median and the MAD of the residuals after the head (+inf past a row's own).
         m = nr - head

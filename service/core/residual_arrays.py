@@ -9,6 +9,7 @@ from collections.abc import Iterator
 from itertools import pairwise
 
 import numpy as np
+from numpy.lib.stride_tricks import sliding_window_view
 
 from .batch import Residuals, make_batch, residuals_of
 from .types import BoolMatrix, FloatMatrix, IntVector
@@ -65,21 +66,30 @@ def packed_chunks(
     order = np.argsort(n_obs, kind="stable")
     order = order[n_obs[order] > 0]
     step = max(1, max_elements // width)
-    for lo in range(0, order.size, step):
-        rows = order[lo : lo + step]
-        n = n_obs[rows]
-        # Flat positions of each row's observed values: from its start where it has no gap,
-        # from the observed mask (row-major, so in order) where it has.
-        index = (rows * width + start[rows])[:, None] + np.arange(int(n[-1]))[None, :]
-        gaps = np.flatnonzero(~contiguous[rows])
-        if gaps.size:
+    alike = contiguous[order]
+    for part, gap_free in ((order[alike], True), (order[~alike], False)):
+        for lo in range(0, part.size, step):
+            rows = part[lo : lo + step]
+            n = n_obs[rows]
+            top = int(n[-1])  # ascending n: the longest row of the block
+            if gap_free:
+                # Each row's values are the `top` entries from its start (a row with fewer is
+                # followed by padding or the next row: unused).
+                begin = rows * width + start[rows]
+                if (begin + top <= flat.size).all():
+                    yield rows, sliding_window_view(flat, top)[begin], n
+                else:  # a window would run past the end of the matrix
+                    cols = begin[:, None] + np.arange(top)[None, :]
+                    yield rows, flat.take(cols, mode="clip"), n
+                continue
             if observed is None:
                 raise ValueError("rows with gaps need the observed mask")
-            r, c = np.nonzero(observed[rows[gaps]])
-            first = np.cumsum(n[gaps]) - n[gaps]  # where each row's entries begin in r
-            index[gaps[r], np.arange(r.size) - first[r]] = rows[gaps][r] * width + c
-        # Past a row's own n the positions run on into the next row: unused, kept in range.
-        yield rows, flat.take(index, mode="clip"), n
+            # Row-major order of np.nonzero: each row's observed columns, in order.
+            r, c = np.nonzero(observed[rows])
+            first = np.cumsum(n) - n  # where each row's entries begin in r
+            block = np.zeros((rows.size, top))
+            block.reshape(-1)[r * top + (np.arange(r.size) - first[r])] = flat[rows[r] * width + c]
+            yield rows, block, n
 
 
 def packed_blocks(

@@ -226,7 +226,7 @@ def _products(
     # suffix[b, a] = S_a(lag_b) = sum_{t >= lag_b} P_a(t)^2: the tail from the top lag, then
     # the columns between consecutive lags added from the right.
     suffix = np.empty((n_k, n_k, c))
-    acc = sq[:, :, top:].sum(axis=2)
+    acc = np.vecdot(prod[:, :, top:], prod[:, :, top:])
     suffix[-1] = acc
     for b in range(n_k - 2, -1, -1):
         lo, hi = int(lag_values[b]), int(lag_values[b + 1])
