@@ -44,10 +44,11 @@ def packed_chunks(
     ``n[k] = n_obs[rows[k]]`` columns, anything after them.
 
     ``contiguous[i]`` says the observed values of row ``i`` are the ``n_obs[i]`` columns from
-    ``start[i]`` on (no gap): those rows are read from their start, and when every row is
-    alike (the usual fleet) ``block`` is a view; ``observed`` locates the values of the other
-    rows. ``rows`` is a slice or an index array (the rows in ascending ``n_obs``); blocks have
-    at most ``max_elements`` entries (one row at least), so temporaries stay bounded.
+    ``start[i]`` on (no gap): those rows are copied whole from their start (a view when every
+    row is alike, the usual fleet), in chunks of their own; ``observed`` locates the values
+    of the other rows. ``rows`` is a slice or an index array, in ascending ``n_obs`` within a
+    chunk; blocks have at most ``max_elements`` entries (one row at least), so temporaries
+    stay bounded. No loop over rows: a chunk is a few whole-array operations.
     """
     n_obs = np.asarray(n_obs, dtype=np.int64)
     start = np.asarray(start, dtype=np.int64)
