@@ -117,8 +117,8 @@ def burn_in_hint(
     extremes = np.zeros(n_rows, dtype=np.int64)
     first_z = np.full(n_rows, np.nan)
     scale = np.full(n_rows, np.nan)
-    # Only the series with enough residuals after the head, in blocks of equal length: the
-    # observed residuals in their order (centred, in units of res.unit: ratios only).
+    # Only the series with enough residuals after the head, in blocks of rows: the observed
+    # residuals in their order (centred, in units of res.unit: ratios only).
     need = np.where(n_ref >= BURN_IN_MIN_REFERENCE, n, 0)
     chunks = packed_chunks(
         res.standard, need, res.start, res.n_missing == 0, res.observed, BURN_IN_BLOCK

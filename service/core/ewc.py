@@ -84,7 +84,7 @@ def _project(
 def cosine_projections(packed: FloatMatrix, n: IntVector, bins: IntVector) -> FloatMatrix:
     """``Lambda[:, j - 1] = sqrt(2 / T) sum_{t=1..T} cos(pi j (t - 1/2) / T) z_t`` for
     ``j = 1..max(bins)`` (0 past a row's own ``bins``), with ``z`` the first ``T = n[i]``
-    entries of row ``i`` of ``packed``.
+    entries of row ``i`` of ``packed`` (``n`` at most its width).
 
     The type-II cosine transform with orthonormal scaling: ``scipy.fft.dct(z, type=2,
     norm="ortho")[j]`` (Lazarus, Lewis, Stock & Watson 2018, p. 545). The basis vectors are
