@@ -8,10 +8,12 @@ rounded down as in footnote 3).
 
 from __future__ import annotations
 
+from collections.abc import Iterator
+
 import numpy as np
 
 from .batch import Residuals
-from .residual_arrays import as_residuals, pack_observed
+from .residual_arrays import as_residuals, packed_blocks, residual_blocks
 from .results import CheckResult, skip_reasons_and_ran
 from .tails import t_ppf, t_sf_two_sided
 from .types import FloatMatrix, FloatVector, InputError, IntVector
@@ -21,9 +23,6 @@ EWC_MIN_BINS = 2
 test with a 5% critical value of 12.7 and an interval without a finite expected width. Under
 independent normal errors the test is exact for any ``B`` (see :func:`ewc_bias`), so a second
 term costs no size there, only robustness to autocorrelation the rule would have bought."""
-
-CHUNK_ELEMENTS = 1 << 18
-"""Entries per (rows, periods) temporary of :func:`cosine_projections`."""
 
 EWC_MIN_OBS = 3
 """Fewest residuals: ``B = 2`` cosine terms need ``T >= 3`` (at most ``T - 1`` of them are
@@ -49,34 +48,62 @@ def ewc_bins(n_obs: IntVector | int) -> IntVector:
     return b.astype(np.int64)
 
 
+def cosine_basis(n: int, bins: int) -> FloatMatrix:
+    """``C[j - 1, t - 1] = cos(pi j (t - 1/2) / T)`` for ``j = 1..bins``, ``t = 1..T``
+    (``T = n``): the cosines of the type-II transform, without the ``sqrt(2 / T)``."""
+    phase = np.pi * (np.arange(n) + 0.5) / float(max(n, 1))
+    return np.cos(np.arange(1, bins + 1)[:, None] * phase[None, :])
+
+
+def _project(
+    blocks: Iterator[tuple[slice | IntVector, FloatMatrix]], bins: IntVector, n_rows: int
+) -> FloatMatrix:
+    """``Lambda`` of :func:`cosine_projections` from blocks of rows sharing ``T``: each block's
+    rows against one basis (per-row dot products, so a row's value does not depend on the
+    other rows of its block)."""
+    max_bins = int(bins.max(initial=0))
+    out = np.zeros((n_rows, max_bins))
+    basis: dict[int, FloatMatrix] = {}
+    for rows, block in blocks:
+        n = block.shape[1]
+        b = bins[rows]
+        top = int(b.max(initial=0))
+        if top == 0:
+            continue
+        cos = basis.get(n)
+        if cos is None or cos.shape[0] < top:  # one basis per distinct T
+            cos = basis[n] = cosine_basis(n, top)
+        lam = np.vecdot(block[:, None, :], cos[None, :top, :])
+        lam *= np.sqrt(2.0 / n)
+        if (b < top).any():
+            lam[np.arange(1, top + 1)[None, :] > b[:, None]] = 0.0
+        out[rows, :top] = lam
+    return out
+
+
 def cosine_projections(packed: FloatMatrix, n: IntVector, bins: IntVector) -> FloatMatrix:
     """``Lambda[:, j - 1] = sqrt(2 / T) sum_{t=1..T} cos(pi j (t - 1/2) / T) z_t`` for
     ``j = 1..max(bins)`` (0 past a row's own ``bins``), with ``z`` the first ``T = n[i]``
-    entries of row ``i`` of ``packed``.
+    entries of row ``i`` of ``packed`` (``n`` at most its width).
 
     The type-II cosine transform with orthonormal scaling: ``scipy.fft.dct(z, type=2,
     norm="ortho")[j]`` (Lazarus, Lewis, Stock & Watson 2018, p. 545). The basis vectors are
     orthonormal and orthogonal to a constant, so adding a constant to ``z`` changes nothing.
+    The rows are taken in blocks of equal ``T``, one cosine basis per distinct ``T``.
     """
     n = np.asarray(n, dtype=np.int64)
     bins = np.asarray(bins, dtype=np.int64)
-    rows, width = packed.shape
-    max_bins = int(bins.max(initial=0))
-    out = np.zeros((rows, max_bins))
-    if max_bins == 0 or width == 0:
-        return out
-    # Rows in chunks, so the (rows, periods) temporaries stay small.
-    step = max(1, CHUNK_ELEMENTS // width)
-    for lo in range(0, rows, step):
-        part = slice(lo, min(lo + step, rows))
-        safe_n = np.maximum(n[part], 1).astype(float)[:, None]
-        phase = np.pi * (np.arange(width) + 0.5)[None, :] / safe_n
-        z = np.where(np.arange(width)[None, :] < n[part, None], packed[part], 0.0)
-        scale = np.sqrt(2.0 / safe_n[:, 0])
-        b = bins[part]
-        for j in range(1, int(b.max(initial=0)) + 1):
-            out[part, j - 1] = np.where(j <= b, scale * np.vecdot(np.cos(j * phase), z), 0.0)
-    return out
+    rows = packed.shape[0]
+    n = np.minimum(n, packed.shape[1])
+    blocks = packed_blocks(packed, n, np.zeros(rows, dtype=np.int64), np.ones(rows, dtype=bool))
+    return _project(blocks, bins, rows)
+
+
+def residual_projections(res: Residuals, bins: IntVector) -> FloatMatrix:
+    """:func:`cosine_projections` of each series' observed residuals in their order (gaps
+    closed up; in units of ``res.unit``), read straight from ``res`` without packing the
+    whole matrix."""
+    return _project(residual_blocks(res), np.asarray(bins, dtype=np.int64), res.n_obs.shape[0])
 
 
 def ewc_variance(projections: FloatMatrix, bins: IntVector) -> FloatVector:
@@ -99,7 +126,7 @@ def ewc_long_run_variance(
     res = as_residuals(res)
     n = res.n_obs
     b = _bins(n, bins)
-    lam = cosine_projections(pack_observed(res.standard, res.observed), n, b)
+    lam = residual_projections(res, b)
     with np.errstate(invalid="ignore", over="ignore"):
         return ewc_variance(lam, b) * res.unit * res.unit
 
@@ -145,7 +172,7 @@ def ewc_bias(
     res = as_residuals(res)
     n = res.n_obs
     b = _bins(n, bins)
-    lam = cosine_projections(pack_observed(res.standard, res.observed), n, b)
+    lam = residual_projections(res, b)
     omega_std = ewc_variance(lam, b)  # in units of res.unit ** 2
     mean = res.mean
     zero = res.constant & ~(np.abs(mean) > 1e-12 * res.rounding_scale)
@@ -162,7 +189,9 @@ def ewc_bias(
         )
         t = np.where(se > 0, mean / se, np.sign(mean) * np.inf)
         p = t_sf_two_sided(t, df)
-        q = t_ppf(0.5 + ci_level / 2.0, df)
+        # Few distinct degrees of freedom in a fleet: the quantile once for each.
+        df_values, df_index = np.unique(df, return_inverse=True)
+        q = t_ppf(0.5 + ci_level / 2.0, df_values)[df_index]
         pct = (
             np.full(n.shape, np.nan)
             if actuals_scale is None

@@ -19,7 +19,7 @@ from .ewc import EWC_MIN_OBS, cosine_projections, ewc_bins, ewc_variance
 from .residual_arrays import CHUNK_ELEMENTS, align_left, as_residuals
 from .results import skip_reasons_and_ran
 from .tails import norm_sf_two_sided, t_ppf, t_sf_two_sided
-from .types import FloatVector, InputError, IntVector, ObjectVector
+from .types import FloatMatrix, FloatVector, InputError, IntVector, ObjectVector
 
 
 @dataclass(frozen=True, eq=False)
@@ -50,11 +50,58 @@ class FleetBias:
     skip_reason: ObjectVector
 
 
+MAX_ALIGNED_GROUPS = 64
+"""Most (fleet, calendar offset) groups of series summed by one matrix-vector product each."""
+
+
 def end_aligned_offsets(res: Residuals) -> IntVector:
     """Calendar position of column 0 of each row when the series' last training periods
     coincide (counted by position from the end): ``max(lengths) - lengths``."""
     lengths = res.lengths
     return (lengths.max(initial=0) - lengths).astype(np.int64)
+
+
+def _calendar_sums(
+    values: FloatMatrix,
+    coef: FloatVector,
+    fleet: IntVector,
+    offsets: IntVector,
+    n_fleets: int,
+    n_cal: int,
+) -> FloatMatrix:
+    """``H[g, p] = sum_i coef_i values[i, p - offsets_i]`` over the rows ``i`` of fleet ``g``
+    (shape ``(n_fleets, n_cal)``; ``values`` is 0 where a residual is missing, ``coef`` 0 for a
+    row left out, and row ``i`` ends by ``n_cal - offsets_i``).
+
+    Rows sharing a fleet and an offset (an aligned fleet has one such group) are summed by a
+    matrix-vector product each; with more groups than :data:`MAX_ALIGNED_GROUPS`, by a
+    weighted count over the calendar positions, in blocks of rows.
+    """
+    n_rows, width = values.shape
+    h = np.zeros((n_fleets, n_cal + width))  # room for a row's padding past its end
+    key = fleet * (n_cal + 1) + offsets
+    groups, inverse = np.unique(key, return_inverse=True)
+    if groups.size <= MAX_ALIGNED_GROUPS:
+        for k, gk in enumerate(groups):
+            g, off = divmod(int(gk), n_cal + 1)
+            if groups.size == 1:
+                h[g, off : off + width] += coef @ values
+                continue
+            rows = np.flatnonzero(inverse == k)
+            h[g, off : off + width] += coef[rows] @ values[rows]
+        return h[:, :n_cal]
+    flat = h.reshape(-1)
+    step = max(1, CHUNK_ELEMENTS // max(width, 1))
+    cols = np.arange(width)[None, :]
+    for lo in range(0, n_rows, step):  # blocks of rows: bounded temporaries
+        part = slice(lo, min(lo + step, n_rows))
+        pos = (fleet[part] * (n_cal + width) + offsets[part])[:, None] + cols
+        flat += np.bincount(
+            pos.reshape(-1),
+            weights=(coef[part, None] * values[part]).reshape(-1),
+            minlength=flat.size,
+        )[: flat.size]
+    return h[:, :n_cal]
 
 
 def fleet_bias(
@@ -134,25 +181,22 @@ def fleet_bias(
     # H on the calendar, one row per fleet, in units of `scale` (largest |H| contribution).
     coef = share / safe_n  # s_i / T_i
     n_cal = int((off + res.lengths).max(initial=0))
-    # Largest |H| contribution, to work in its units (no overflow in the squares).
+    # Largest |H| contribution, to work in its units (no overflow in the squares): res.unit is
+    # the largest |centred| of a row, except for a row of zeros (whose largest is 0).
+    nonzero = np.vecdot(res.standard, res.standard) > 0
     with np.errstate(invalid="ignore", over="ignore"):
-        scale = float(
-            np.max(np.abs(coef) * np.abs(res.centred).max(axis=1, initial=0.0), initial=0.0)
-        )
+        scale = float(np.max(np.abs(coef) * np.where(nonzero, res.unit, 0.0), initial=0.0))
     scale = scale if scale > 0 else 1.0
-    h = np.zeros(n_fleets * n_cal)
+    # Each used series' first and last observed residual on the calendar.
+    last_obs = res.lengths - 1
+    trailing = np.flatnonzero(used & (res.n_missing > 0))  # a gap may end the span
+    if trailing.size:
+        last_obs[trailing] = width - 1 - np.argmax(res.observed[trailing, ::-1], axis=1)
     first = np.full(n_fleets, n_cal, dtype=np.int64)
     last = np.full(n_fleets, -1, dtype=np.int64)
-    step = max(1, CHUNK_ELEMENTS // max(width, 1))
-    for lo in range(0, n_series, step):  # blocks of rows: bounded temporaries
-        part = slice(lo, min(lo + step, n_series))
-        rows, cols = np.nonzero(res.observed[part] & used[part, None])
-        rows += lo
-        pos = off[rows] + cols
-        contrib = (coef[rows] / scale) * res.centred[rows, cols]
-        h += np.bincount(g[rows] * n_cal + pos, weights=contrib, minlength=n_fleets * n_cal)
-        np.minimum.at(first, g[rows], pos)
-        np.maximum.at(last, g[rows], pos)
+    np.minimum.at(first, g[used], (off + res.start)[used])
+    np.maximum.at(last, g[used], (off + last_obs)[used])
+    h = _calendar_sums(res.centred, (coef / scale) * used, g, off, n_fleets, n_cal)
     h = h.reshape(n_fleets, n_cal)
     n_periods = np.maximum(last - first + 1, 0)
     b = ewc_bins(n_periods)

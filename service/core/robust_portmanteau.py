@@ -13,7 +13,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from .batch import Residuals
-from .residual_arrays import align_left, as_residuals
+from .residual_arrays import as_residuals
 from .results import CheckResult, skip_reasons_and_ran
 from .tails import chi2_sf
 from .types import BoolMatrix, FloatMatrix, InputError, IntVector
@@ -24,10 +24,13 @@ authors name 1.96 and 2.576 as good choices (``testcorr`` defaults to 2.576, whi
 better at relatively large lags)."""
 
 ROBUST_NONSEASONAL_LAGS = 10
-CHUNK_ELEMENTS = 1 << 20
-"""Entries per (series, lag, period) temporary: rows are processed in chunks of at most this many
-``lags x periods`` cells (and at most :data:`MAX_CHUNK_ROWS` rows), so memory stays bounded."""
+CHUNK_ELEMENTS = 1 << 18
+"""Entries per (series, lag, period) block of lagged products: rows are processed in blocks of
+at most this many ``lags x periods`` cells (and at most :data:`MAX_CHUNK_ROWS` rows), small
+enough to stay in cache."""
 MAX_CHUNK_ROWS = 2048
+FORM_ELEMENTS = 1 << 20
+"""Entries per (series, lag, lag) block of ``R*`` held for the quadratic forms."""
 PD_TOLERANCE = 1e-8
 """Smallest eigenvalue of ``R*`` (a unit-diagonal matrix) accepted as positive definite."""
 
@@ -127,14 +130,25 @@ def robust_lag_statistics(
     fallback = np.zeros(n_series, dtype=bool)
     width = res.standard.shape[1]
     if n_k and width:
-        rows = int(min(MAX_CHUNK_ROWS, max(1, CHUNK_ELEMENTS // (n_k * (width + 1)))))
-        for lo in range(0, n_series, rows):
-            part = slice(lo, min(lo + rows, n_series))
-            z = align_left(res.standard[part], res.start[part])
-            t, tst, qq, kp, me, fb = _chunk(z, lag_values, tested[part], threshold)
-            out_t[part] = np.where(tst, t, np.nan)
-            tested[part] = tst
-            q[part], kept[part], min_eig[part], fallback[part] = qq, kp, me, fb
+        form_rows = max(1, FORM_ELEMENTS // (n_k * n_k))
+        rows = int(min(MAX_CHUNK_ROWS, max(1, CHUNK_ELEMENTS // (n_k * width))))
+        buf = _Buffers(min(rows, n_series), n_k, width)
+        for lo in range(0, n_series, form_rows):
+            hi = min(lo + form_rows, n_series)
+            r_star = np.zeros((hi - lo, n_k, n_k))  # kept r_jk above the diagonal, else 0
+            t = np.zeros((hi - lo, n_k))
+            active = np.zeros((hi - lo, n_k), dtype=bool)  # lags in a kept pair
+            for c_lo in range(lo, hi, rows):
+                part = slice(c_lo, min(c_lo + rows, hi))
+                local = slice(part.start - lo, part.stop - lo)
+                z = _aligned(res, part, buf)
+                t[local], tested[part], kept[part], active[local] = _products(
+                    z, width, lag_values, tested[part], threshold, r_star[local], buf
+                )
+            block = slice(lo, hi)
+            q[block], min_eig[block], ok = _forms(t, r_star, active)
+            fallback[block] = ~ok
+            out_t[block] = np.where(tested[block], t, np.nan)
     return {
         "lag_values": lag_values,
         "t": out_t,
@@ -147,48 +161,169 @@ def robust_lag_statistics(
     }
 
 
-def _chunk(
-    z: FloatMatrix, lag_values: IntVector, tested: BoolMatrix, threshold: float
+DOT_BLOCK = 32
+"""The lagged products are held ``DOT_BLOCK``-aligned in length (zeros after the last period), so
+the per-series dot products run whole in the vectorised loop of the dot kernel."""
+
+
+class _Buffers:
+    """Work arrays reused by every block of rows (no fresh large allocation per block):
+    ``z`` the left-aligned rows, ``prod[0]`` the lagged products ``P_a(t)`` and ``prod[1]``
+    their squares (one slab of rows per lag), ``pairs`` the Gram sums."""
+
+    def __init__(self, rows: int, n_k: int, width: int) -> None:
+        self.width = -(-width // DOT_BLOCK) * DOT_BLOCK
+        self.z = np.empty(rows * self.width)
+        self.prod = np.empty(2 * n_k * rows * self.width)
+        self.pairs = np.empty(2 * rows * n_k * (n_k - 1) // 2)
+        self.upper = np.triu_indices(n_k, 1)
+        # incidence[a, p]: lag a is one of the pair p (to mark the lags in kept pairs)
+        incidence = np.zeros((n_k, self.upper[0].size))
+        incidence[self.upper[0], np.arange(self.upper[0].size)] = 1.0
+        incidence[self.upper[1], np.arange(self.upper[0].size)] = 1.0
+        self.incidence = incidence
+
+
+def _aligned(res: Residuals, part: slice, buf: _Buffers) -> FloatMatrix:
+    """Rows ``part`` of ``res.standard`` shifted left to their first observed residual, zeros
+    in the columns freed on the right and up to the buffer's width, C-ordered."""
+    start = res.start[part]
+    values = res.standard
+    width = values.shape[1]
+    n_rows = part.stop - part.start
+    z = buf.z[: n_rows * buf.width].reshape(n_rows, buf.width)
+    if (start == start[0]).all():
+        s0 = min(int(start[0]), width)
+        z[:, : width - s0] = values[part, s0:]
+        z[:, width - s0 :] = 0.0
+        return z
+    rows = np.arange(part.start, part.stop)
+    cols = np.arange(buf.width)[None, :]
+    values.reshape(-1).take((rows * width + start)[:, None] + cols, mode="clip", out=z)
+    z[cols >= (width - start)[:, None]] = 0.0
+    return z
+
+
+def _products(
+    z: FloatMatrix,
+    width: int,
+    lag_values: IntVector,
+    tested: BoolMatrix,
+    threshold: float,
+    r_out: FloatMatrix,
+    buf: _Buffers,
 ) -> tuple[np.ndarray, ...]:
-    """The statistics of :func:`robust_lag_statistics` for left-aligned rows ``z``."""
-    c, width = z.shape
+    """Robust ``t~`` (zero where not tested), the tested lags, the kept pairs and the lags in
+    kept pairs, per row of the left-aligned rows ``z`` (``width`` periods, then zeros); the
+    kept ``r*_jk`` (``j < k``) go to ``r_out`` above the diagonal.
+
+    ``P_a(t) = e_t e_{t-k}`` (``k`` the ``a``-th lag; 0 for ``t < k`` and where lag ``k`` is
+    not tested), its sums, the tail sums ``S_a(m) = sum_{t >= m} P_a(t)^2`` at the lags, and
+    for the pairs ``a < b`` the Gram sums ``sum_t P_a P_b`` and ``sum_t P_a^2 P_b^2`` (a dot
+    product per series and pair, stacked over the later lags of each ``a``).
+    """
+    c, padded = z.shape
     n_k = lag_values.size
-    prod = np.zeros((c, n_k, width))
+    top = int(lag_values[-1])
+    # prod[0, a, i, t] = z_it z_i(t - k): each lag's slab is one product of the flattened rows
+    # with themselves shifted by k, its first k columns (which would pair a row with the end
+    # of the previous one) then zeroed.
+    both = buf.prod[: 2 * n_k * c * padded].reshape(2, n_k, c, padded)
+    prod, sq = both[0], both[1]
+    flat = z.reshape(-1)
     for a, k in enumerate(lag_values):
-        if k < width:
-            prod[:, a, k:] = z[:, k:] * z[:, :-k]
-    prod *= tested[:, :, None]
-    sq = prod * prod
-    # S[:, a, s] = sum_{t >= s} sq[:, a, t] (0-based positions), with a zero column at `width`.
-    suffix = np.zeros((c, n_k, width + 1))
-    suffix[:, :, :width] = np.cumsum(sq[:, :, ::-1], axis=2)[:, :, ::-1]
-    total = suffix[:, :, 0]
-    tested = tested & (total > 0)  # a lag without an observed pair tests nothing
+        np.multiply(flat[k:], flat[:-k], out=prod[a].reshape(-1)[k:])
+        prod[a, :, :k] = 0.0
+        if not tested[:, a].all():
+            prod[a] *= tested[:, a][:, None]
+    np.multiply(prod, prod, out=sq)
+    # suffix[b, a] = S_a(lag_b) = sum_{t >= lag_b} P_a(t)^2: the tail from the top lag, then
+    # the columns between consecutive lags added from the right.
+    suffix = np.empty((n_k, n_k, c))
+    acc = np.vecdot(prod[:, :, top:], prod[:, :, top:])
+    suffix[-1] = acc
+    for b in range(n_k - 2, -1, -1):
+        lo, hi = int(lag_values[b]), int(lag_values[b + 1])
+        acc = acc + (sq[:, :, lo] if hi - lo == 1 else sq[:, :, lo:hi].sum(axis=2))
+        suffix[b] = acc
+    lag_index = np.arange(n_k)
+    total = suffix[lag_index, lag_index]  # S_a(lag_a) = S_a(0) = sum_t P_a(t)^2, (K, c)
+    tested = tested & (total > 0).T  # a lag without an observed pair tests nothing
     with np.errstate(invalid="ignore", divide="ignore"):
-        t = np.where(tested, prod.sum(axis=2) / np.sqrt(total), 0.0)
-    cross = np.matmul(prod, prod.swapaxes(1, 2))  # sum_t e_tj e_tk
-    quad = np.matmul(sq, sq.swapaxes(1, 2))  # sum_t e_tj^2 e_tk^2
-    del prod, sq
-    start = np.minimum(np.maximum.outer(lag_values, lag_values), width)  # m = max(j, k)
-    idx = np.arange(n_k)
-    s_j = suffix[:, idx[:, None], start]  # S_j(m), shape (c, K, K)
-    s_k = suffix[:, idx[None, :], start]  # S_k(m)
+        t = (prod[:, :, :width].sum(axis=2) / np.sqrt(total)).T
+    t[~tested] = 0.0
+    kept = np.zeros(c, dtype=np.int64)
+    active = np.zeros((c, n_k), dtype=bool)
+    if n_k < 2:
+        return t, tested, kept, active
+    # Pairs a < b (lags j < k): m = max(j, k) = lag_b, S_j(m) = S_a(lag_b), S_k(m) = S_b(0).
+    ia, ib = buf.upper
+    gram = buf.pairs[: 2 * ia.size * c].reshape(2, ia.size, c)  # sum P_a P_b, sum P_a^2 P_b^2
+    at = 0
+    for a in range(n_k - 1):
+        k = n_k - a - 1
+        np.vecdot(both[:, a : a + 1], both[:, a + 1 :], out=gram[:, at : at + k])
+        at += k
+    cross, quad = gram[0], gram[1]
     with np.errstate(invalid="ignore", divide="ignore"):
-        r = cross / np.sqrt(s_j * s_k)
+        r = cross / np.sqrt(suffix[ib, ia] * total[ib])
         tau = cross / np.sqrt(quad)
-    pair = tested[:, :, None] & tested[:, None, :]
-    keep = pair & (np.abs(tau) > threshold) & np.isfinite(r)
-    eye = np.eye(n_k, dtype=bool)[None, :, :]
-    keep &= ~eye
-    r_star = np.where(keep, r, 0.0)
-    r_star[:, idx, idx] = 1.0
-    eig = np.linalg.eigvalsh(r_star)[:, 0]
-    ok = eig > PD_TOLERANCE
-    safe = np.where(ok[:, None, None], r_star, np.eye(n_k)[None, :, :])
-    solved = np.linalg.solve(safe, t[:, :, None])[:, :, 0]
-    q = np.where(ok, np.vecdot(t, solved), np.vecdot(t, t))
-    kept = keep.sum(axis=(1, 2)) // 2
-    return t, tested, q, kept.astype(np.int64), eig, ~ok
+    keep = (tested[:, ia] & tested[:, ib]).T & (np.abs(tau) > threshold) & np.isfinite(r)
+    pair, row = np.nonzero(keep)
+    r_out[row, ia[pair], ib[pair]] = r[pair, row]
+    kept[:] = keep.sum(axis=0)
+    active[:] = (buf.incidence @ keep).T > 0  # counts of small integers: exact
+    return t, tested, kept, active
+
+
+def _forms(t: FloatMatrix, r_upper: np.ndarray, active: BoolMatrix) -> tuple[np.ndarray, ...]:
+    """``Q~ = t~' R*^{-1} t~`` (``sum t~^2`` where ``R*`` is not positive definite), the
+    smallest eigenvalue of ``R*`` and whether it is positive definite, per row.
+
+    ``R*`` has unit diagonal and the kept ``r*_jk`` of ``r_upper`` (above the diagonal, mirrored)
+    off it; ``active`` marks the lags in kept pairs. A lag in no kept pair has a unit row and
+    column: it adds ``t~_k^2`` and an eigenvalue 1, so the eigenvalues and the solve run on the
+    block of the active lags only (rows grouped by its size; ``R* = I`` needs neither, and a
+    single pair ``r`` has the eigenvalues ``1 -+ r`` and ``Q~ = (t_j^2 - 2 r t_j t_k + t_k^2) /
+    (1 - r^2)`` there).
+    """
+    n = t.shape[0]
+    q = np.vecdot(t, t)
+    eig = np.ones(n)
+    ok = np.ones(n, dtype=bool)
+    size = active.sum(axis=1)
+    rows = np.flatnonzero(size)
+    if rows.size == 0:
+        return q, eig, ok
+    rest = np.where(active[rows], 0.0, t[rows])
+    rest = np.vecdot(rest, rest)  # sum of t~^2 over the lags in no kept pair
+    size = size[rows]
+    for s in np.unique(size):
+        grp = np.flatnonzero(size == s)
+        target = rows[grp]
+        # The active lags of each row, ascending (row-major order of np.nonzero).
+        idx = np.nonzero(active[target])[1].reshape(-1, s)
+        tt = np.take_along_axis(t[target], idx, axis=1)
+        if s == 2:  # one kept pair: eigenvalues 1 -+ r, and the 2 x 2 inverse in closed form
+            r = r_upper[target, idx[:, 0], idx[:, 1]]
+            ev = 1.0 - np.abs(r)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                form = (tt[:, 0] ** 2 - 2.0 * r * tt[:, 0] * tt[:, 1] + tt[:, 1] ** 2) / (
+                    (1.0 - r) * (1.0 + r)
+                )
+        else:
+            block = r_upper[target[:, None, None], idx[:, :, None], idx[:, None, :]]
+            block += block.transpose(0, 2, 1)
+            diag = np.arange(s)
+            block[:, diag, diag] = 1.0
+            ev = np.linalg.eigvalsh(block)[:, 0]
+            block[~(ev > PD_TOLERANCE)] = np.eye(s)
+            form = np.vecdot(tt, np.linalg.solve(block, tt[:, :, None])[:, :, 0])
+        good = ev > PD_TOLERANCE
+        eig[target] = ev
+        ok[target] = good
+        q[target] = np.where(good, rest[grp] + form, q[target])
+    return q, eig, ok
 
 
 def robust_portmanteau(

@@ -54,6 +54,34 @@ def test_robust_z_uses_median_and_mad_after_the_head():
     )
 
 
+def test_median_and_mad_of_ragged_rows_with_ties_match_numpy():
+    # Integer-valued residuals (many ties), lengths of both parities, gaps and late starts; the
+    # MAD comes from a search in the sorted residuals, checked against np.median directly.
+    rng = np.random.default_rng(6)
+    rows = [rng.integers(-4, 5, size=n).astype(float) for n in (20, 21, 33, 60, 61, 47, 30)]
+    rows[2][[12, 20]] = np.nan
+    rows[4][:3] = np.nan
+    rows[5][[0, 15, 16, 40]] = np.nan
+    rows[6][10:] += rng.normal(size=20)  # no ties after the head
+    for row in rows:
+        row[np.flatnonzero(~np.isnan(row))[0]] += 40.0  # an extreme first residual
+    result = burn_in_hint(residuals(rows))
+    for i, row in enumerate(rows):
+        e = observed(row)
+        ref = e[10:]
+        med = np.median(ref)
+        mad = np.median(np.abs(ref - med))
+        assert mad > 0 and result.skip_reason[i] is None
+        # Robust z = |e - median| / (1.4826 MAD) (Rousseeuw & Croux 1993); the mean of the
+        # residuals cancels, as the check works on centred values.
+        np.testing.assert_allclose(
+            result.details["first_robust_z"][i], abs(e[0] - med) / (1.4826 * mad), rtol=1e-12
+        )
+        z = np.abs(e[:10] - med) / (1.4826 * mad)
+        assert result.details["extremes_in_head"][i] == np.count_nonzero(z > 8) >= 1
+    assert (result.statistic == 1).all()
+
+
 def test_no_hint_in_clean_noise():
     # Invented, seeded: 4000 series of 104 independent N(0, 1) errors get no hint at 8.
     rng = np.random.default_rng(2026)

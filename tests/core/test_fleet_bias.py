@@ -7,6 +7,7 @@ import pytest
 from scipy import stats
 
 from service.core import InputError
+from service.core import fleet_bias as fleet_module
 from service.core.ewc import ewc_bias, ewc_bins
 from service.core.fleet_bias import end_aligned_offsets, fleet_bias
 
@@ -81,13 +82,16 @@ def test_one_series_is_the_single_series_test():
     assert result.df[0] == single.details["df"][0] == 5
 
 
-def test_matches_direct_loop_with_ragged_series_gaps_and_two_fleets():
+@pytest.mark.parametrize("groups", [64, 0])  # one product per offset group / calendar counts
+def test_matches_direct_loop_with_ragged_series_gaps_and_two_fleets(groups, monkeypatch):
+    monkeypatch.setattr(fleet_module, "MAX_ALIGNED_GROUPS", groups)
     rng = np.random.default_rng(3)
     lengths = [52, 40, 60, 30, 2, 52, 45]
     common = rng.normal(size=60)
     rows = [0.1 + common[-n:] * 0.5 + rng.normal(size=n) for n in lengths]
     rows[1][[3, 17]] = np.nan
     rows[2][:5] = np.nan
+    rows[6][-2:] = np.nan  # the last two residuals missing: the span ends before the actuals
     weights = np.array([1.0, 2.0, 0.5, 4.0, 1.0, 0.0, 3.0])
     fleet = np.array([0, 0, 0, 1, 0, 1, 1])
     res = residuals(rows)
@@ -116,7 +120,9 @@ def test_matches_direct_loop_with_ragged_series_gaps_and_two_fleets():
     assert list(result.n_series) == [3, 2]
 
 
-def test_caller_offsets_place_series_on_a_calendar():
+@pytest.mark.parametrize("groups", [64, 0])
+def test_caller_offsets_place_series_on_a_calendar(groups, monkeypatch):
+    monkeypatch.setattr(fleet_module, "MAX_ALIGNED_GROUPS", groups)
     rng = np.random.default_rng(4)
     rows = [rng.normal(size=20), rng.normal(size=30), rng.normal(size=25)]
     offsets = np.array([10, 0, 40])  # the third starts after the others end: a hole
@@ -125,6 +131,7 @@ def test_caller_offsets_place_series_on_a_calendar():
     ref = direct_fleet(rows, weights, offsets)
     assert result.n_periods[0] == ref["n"] == 65
     np.testing.assert_allclose(result.std_error[0], ref["se"], rtol=RTOL)
+    np.testing.assert_allclose(result.theta[0], ref["theta"], rtol=RTOL)
 
 
 def test_skips_and_bad_input():

@@ -177,8 +177,13 @@ def test_batch_matches_direct_per_series_computation(lam):
         untested = np.setdiff1d(np.arange(st["lag_values"].size), cols)
         assert np.isnan(st["t"][i, untested]).all()
         np.testing.assert_allclose(result.p_value[i], stats.chi2.sf(q_ref, len(lags)), rtol=RTOL)
-        fallback = np.linalg.eigvalsh(r_star)[0] <= 1e-8
-        assert result.details["diagonal_fallback"][i] == fallback
+        # The smallest eigenvalue of the direct R* (numpy.linalg.eigvalsh, on all tested lags;
+        # ours runs on the lags in kept pairs): equal to rounding, absolute as eigenvalues are.
+        smallest = np.linalg.eigvalsh(r_star)[0]
+        np.testing.assert_allclose(st["min_eigenvalue"][i], smallest, rtol=0, atol=1e-13)
+        assert result.details["diagonal_fallback"][i] == (smallest <= 1e-8)
+        pairs = np.count_nonzero(np.triu(r_star, 1))
+        assert result.details["kept_pairs"][i] == st["kept_pairs"][i] == pairs
 
 
 def test_default_lags_and_model_params():

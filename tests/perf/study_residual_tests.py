@@ -4,8 +4,8 @@
 
 Parts: ``portmanteau`` (robust portmanteau vs Ljung-Box), ``ewc`` (EWC bias vs Newey-West),
 ``exact`` (the EWC statistic against t_B under iid normal errors), ``fleet`` (Driscoll-Kraay vs
-independent series), ``level`` (recent level shift), ``burnin`` (false-hint rates) and
-``memory`` (peak memory and time on 10,000 x 156). Every cell uses its own fixed seed; the
+independent series) and ``burnin`` (false-hint rates); peak memory and time are measured by
+``tests/perf/bench_residual_stats.py``. Every cell uses its own fixed seed; the
 numbers are printed as Markdown tables for tests/perf/RESULTS_residual_tests.md.
 All data are invented (simulated).
 """
@@ -14,17 +14,15 @@ from __future__ import annotations
 
 import argparse
 import time
-import tracemalloc
 
 import numpy as np
 from scipy import stats
 
 from service.core.autocorrelation import ljung_box
-from service.core.bias import bias, tracking_signal
+from service.core.bias import bias
 from service.core.burn_in import burn_in_hint
 from service.core.ewc import ewc_bias
 from service.core.fleet_bias import fleet_bias
-from service.core.level_shift import level_shift
 from service.core.residual_arrays import as_residuals
 from service.core.robust_portmanteau import robust_portmanteau
 
@@ -212,31 +210,6 @@ def part_fleet(reps, n_series=200, per_batch=100):
                 )
 
 
-def part_level(reps):
-    print("\n### Recent level shift (window 12): size and power for a +1 sd shift\n")
-    print(
-        "| noise | T | shift | level shift t: 1% | 5% | tracking-signal z (current): 1% | 5% "
-        "| trade limit |TS| > 4 |"
-    )
-    print("|---|---|---|---|---|---|---|---|")
-    for name in ("white noise", "GARCH(.1,.1,.8)", "t(3)"):
-        for t in (52, 104):
-            for shift in (0.0, 1.0):
-                if shift and name != "white noise":
-                    continue
-                x = null_data(name, cell_rng("level", name, t, shift), reps, t)
-                x[:, -12:] += shift  # white noise has sd 1
-                res = as_residuals(x)
-                ls = level_shift(res)
-                ts = tracking_signal(res)
-                print(
-                    f"| {name} | {t} | {shift:+.0f} sd | {rate(ls.p_value, 0.01):.3f} "
-                    f"| {rate(ls.p_value, 0.05):.3f} | {rate(ts.p_value, 0.01):.3f} "
-                    f"| {rate(ts.p_value, 0.05):.3f} "
-                    f"| {np.mean(ts.details['beyond_trade_limit']):.3f} |"
-                )
-
-
 def part_burnin(reps):
     print("\n### Burn-in hint: share of clean series given a hint (k >= 1)\n")
     thresholds = (4.0, 5.0, 6.0, 8.0, 10.0)
@@ -273,38 +246,7 @@ def part_burnin(reps):
                 )
 
 
-def part_memory():
-    print("\n### Peak memory and time on 10,000 series x 156 periods\n")
-    rng = np.random.default_rng(0)
-    x = rng.normal(size=(10_000, 156))
-    res = as_residuals(x)
-    input_bytes = x.nbytes
-    calls = {
-        "robust_portmanteau (lags 1..10)": lambda: robust_portmanteau(res, lags=10),
-        "robust_portmanteau (m = 52: lags 1..10, 52)": lambda: robust_portmanteau(
-            res, season_length=52
-        ),
-        "robust_portmanteau (lags 1..30)": lambda: robust_portmanteau(res, lags=30),
-        "ewc_bias": lambda: ewc_bias(res),
-        "fleet_bias": lambda: fleet_bias(res, np.ones(10_000)),
-        "level_shift": lambda: level_shift(res),
-        "burn_in_hint": lambda: burn_in_hint(res),
-    }
-    print(f"Input: {input_bytes / 2**20:.1f} MiB (the residual matrix).\n")
-    print("| call | peak extra memory | x input | time (s) |")
-    print("|---|---|---|---|")
-    for name, fn in calls.items():
-        fn()  # warm up
-        tracemalloc.start()
-        t0 = time.perf_counter()
-        fn()
-        dt = time.perf_counter() - t0
-        _, peak = tracemalloc.get_traced_memory()
-        tracemalloc.stop()
-        print(f"| {name} | {peak / 2**20:.1f} MiB | {peak / input_bytes:.2f} | {dt:.2f} |")
-
-
-PARTS = ("portmanteau", "ewc", "exact", "fleet", "level", "burnin", "memory")
+PARTS = ("portmanteau", "ewc", "exact", "fleet", "burnin")
 
 
 def main():
@@ -316,10 +258,7 @@ def main():
     print(f"numpy {np.__version__}, {args.reps} series per cell")
     for part in parts:
         t0 = time.perf_counter()
-        if part == "memory":
-            part_memory()
-        else:
-            globals()[f"part_{part}"](args.reps)
+        globals()[f"part_{part}"](args.reps)
         print(f"\n({part}: {time.perf_counter() - t0:.0f} s)")
 
 
