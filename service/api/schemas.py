@@ -167,12 +167,20 @@ def _fleet_statistics() -> dict[str, Any]:
         if check.fleet is not None:
             record = type(check.fleet.empty.result)
             hints = typing.get_type_hints(record)
-            fields = {
-                f.name: (hints[f.name] if hints[f.name] is int else float | None)
-                for f in dataclasses.fields(record)
-            }
+            fields = {f.name: _statistic_type(hints[f.name]) for f in dataclasses.fields(record)}
             out[check.fleet.key] = (_flat_model(f"Fleet{check.fleet.key.title()}", fields), ...)
     return out
+
+
+def _statistic_type(hint: Any) -> Any:
+    """A fleet statistic's JSON type: counts are integers, flags true/false, labels strings,
+    every other figure a number; null where the value is missing or not finite."""
+    base, nullable = results.optional(hint)
+    if base is int and not nullable:
+        return int
+    if base in (int, str, bool):
+        return base | None
+    return float | None
 
 
 def _record_model(cls: type) -> type[BaseModel]:

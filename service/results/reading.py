@@ -6,6 +6,7 @@ value that is off."""
 
 from __future__ import annotations
 
+import dataclasses
 import typing
 from collections.abc import Callable, Iterator, Mapping
 from operator import itemgetter
@@ -163,6 +164,8 @@ def _read_fields(cls: type, data: Mapping[str, Any], path: str) -> tuple[dict[st
         if s.inline:
             spread = s
         elif s.name not in data:
+            if s.name in _DEFAULTS[cls]:  # added since older documents were written
+                continue
             raise ValueError(f"{_where(_join(path, s.name))} is missing")
         else:
             kwargs[s.name] = _read_value(s.hint, data[s.name], _join(path, s.name), s.values)
@@ -187,6 +190,13 @@ def _keys(cls: type) -> frozenset[str]:
 
 
 _KEYS = {cls: _keys(cls) for cls in _RECORDS}
+# Fields a document may leave out (they were added later), with their defaults.
+_DEFAULTS = {
+    cls: {
+        f.name: f.default for f in dataclasses.fields(cls) if f.default is not dataclasses.MISSING
+    }
+    for cls in _RECORDS
+}
 # Records whose fields are all scalars (read column by column in a list).
 _FLAT = frozenset(
     cls
@@ -284,6 +294,10 @@ def _read_flat_records(cls: type, items: list[Any], path: str) -> tuple[Any, ...
     def at(i: int) -> str:
         return f"{path}[{i}]"
 
+    defaults = _DEFAULTS[cls]
+    if defaults and any(not row.keys() >= defaults.keys() for row in items):
+        # Documents written before a field was added: it takes its default.
+        items = [{**defaults, **row} for row in items]
     _same_keys(items, _KEYS[cls], at, _NOUN[cls])
     columns = []
     for s in _SPECS[cls]:

@@ -70,6 +70,8 @@ def result_json(verdict: str, **extra: Any) -> dict[str, Any]:
                 "failed_share": 0.5 if verdict == "fail" else 0.0,
                 "warned_share": 0.5 if verdict == "warn" else 0.0,
                 "message": "",
+                "fail_p_used": 0.002,
+                "warn_p_used": 0.01,
             }
         ],
         "fleet": {

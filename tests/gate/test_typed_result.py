@@ -85,7 +85,18 @@ def test_the_gate_returns_typed_records_and_to_dict_is_their_serializer():
     assert dumped(result.to_dict()) == dumped(d)
     assert list(d) == ["verdict", "policy", "reasons", "checks", "fleet", "series"]
     assert list(d["series"][0]) == ["id", "verdict", "n_obs", "weight", "bias", "checks"]
-    assert list(d["fleet"]) == ["n_series", "n_failed", "n_warned", "n_passed", "bias"]
+    # The counts, then each fleet-level test the registered checks declare, in their order.
+    assert list(d["fleet"]) == [
+        "n_series",
+        "n_failed",
+        "n_warned",
+        "n_passed",
+        "bias",
+        "autocorrelation",
+        "accuracy",
+        "holdout_bias",
+        "coverage",
+    ]
     assert list(d["series"][0]["checks"][0]) == [f.name for f in dataclasses.fields(SeriesCheck)]
     assert list(d["checks"][0]) == [f.name for f in dataclasses.fields(CheckSummary)]
     assert list(d["reasons"][0]) == [f.name for f in dataclasses.fields(Reason)]
