@@ -55,7 +55,9 @@ def _summary(
 
     if result.checks:
         w("\n")
-        header = ("check", "status", "tested", "failed", "warned", "failed%")
+        # "untested": series the check could not run on (an essential check's keep them from
+        # passing; each has its reason above).
+        header = ("check", "status", "tested", "failed", "warned", "untested", "failed%")
         rows = [
             (
                 c.name,
@@ -63,6 +65,7 @@ def _summary(
                 str(c.series_tested),
                 str(c.series_failed),
                 str(c.series_warned),
+                str(c.series_skipped),
                 _share(c.failed_share),
             )
             for c in result.checks

@@ -238,8 +238,8 @@ reasons (worst first):
   fail  bias  [bay-0] the mean residual is +2.1
   ... and 1 more (see the report)
 
-  check  status  tested  failed  warned  failed%
-  bias   fail         2       1       0    50.0%
+  check  status  tested  failed  warned  untested  failed%
+  bias   fail         2       1       0         0    50.0%
 
 gate: BLOCKS (verdict fail is at or worse than --fail-on warn)
 """
