@@ -56,7 +56,15 @@ def test_human_output_has_reasons_and_check_table(cli, body_file):
     assert "fail  bias  [store-1] residuals average +2.1: the forecasts run low" in out
     lines = out.splitlines()
     header = next(line for line in lines if line.strip().startswith("check"))
-    assert header.split() == ["check", "status", "tested", "failed", "warned", "failed%"]
+    assert header.split() == [
+        "check",
+        "status",
+        "tested",
+        "failed",
+        "warned",
+        "untested",
+        "failed%",
+    ]
     assert lines[lines.index(header) + 1].split() == ["bias", "fail", "2", "1", "0", "50.0%"]
 
 
