@@ -65,7 +65,7 @@ def test_human_output_has_reasons_and_check_table(cli, body_file):
         "untested",
         "failed%",
     ]
-    assert lines[lines.index(header) + 1].split() == ["bias", "fail", "2", "1", "0", "50.0%"]
+    assert lines[lines.index(header) + 1].split() == ["bias", "fail", "2", "1", "0", "0", "50.0%"]
 
 
 def test_json_output_is_the_full_answer(cli, body_file):
