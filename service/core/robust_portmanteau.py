@@ -224,7 +224,6 @@ def _products(
     """
     c, padded = z.shape
     n_k = lag_values.size
-    top = int(lag_values[-1])
     # prod[0, a, i, t] = z_it z_i(t - k): each lag's slab is one product of the flattened rows
     # with themselves shifted by k, its first k columns (which would pair a row with the end
     # of the previous one) then zeroed.
@@ -237,15 +236,12 @@ def _products(
         if not tested[:, a].all():
             prod[a] *= tested[:, a][:, None]
     np.multiply(prod, prod, out=sq)
-    # suffix[b, a] = S_a(lag_b) = sum_{t >= lag_b} P_a(t)^2: the tail from the top lag, then
-    # the columns between consecutive lags added from the right.
-    suffix = np.empty((n_k, n_k, c))
-    acc = np.vecdot(prod[:, :, top:], prod[:, :, top:])
-    suffix[-1] = acc
-    for b in range(n_k - 2, -1, -1):
-        lo, hi = int(lag_values[b]), int(lag_values[b + 1])
-        acc = acc + (sq[:, :, lo] if hi - lo == 1 else sq[:, :, lo:hi].sum(axis=2))
-        suffix[b] = acc
+    # suffix[b, a] = S_a(lag_b) = sum_{t >= lag_b} P_a(t)^2, each tail summed term by term
+    # from the last period down (a cumulative sum, in order): a row's tails then depend on its
+    # own products only, not on the other lags tested in the batch nor on the rows beside it
+    # (a fleet assessed in chunks gets the whole's numbers).
+    tails = np.cumsum(sq[:, :, ::-1], axis=2)
+    suffix = tails[:, :, padded - 1 - lag_values].transpose(2, 0, 1)
     lag_index = np.arange(n_k)
     total = suffix[lag_index, lag_index]  # S_a(lag_a) = S_a(0) = sum_t P_a(t)^2, (K, c)
     tested = tested & (total > 0).T  # a lag without an observed pair tests nothing

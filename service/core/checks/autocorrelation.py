@@ -77,7 +77,14 @@ def portmanteau_q(
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         lb_terms = np.where(within, r * r / (n[:, None] - k), 0.0)
         bp_terms = np.where(within, r * r, 0.0)
-    return n * (n + 2.0) * lb_terms.sum(axis=1), n * bp_terms.sum(axis=1)
+    # Summed lag by lag in order (not pairwise over the columns): a row's sums then do not
+    # depend on how many columns the batch's longest lag rule gives.
+    lb = np.zeros(r.shape[0])
+    bp = np.zeros(r.shape[0])
+    for j in range(r.shape[1]):
+        lb += lb_terms[:, j]
+        bp += bp_terms[:, j]
+    return n * (n + 2.0) * lb, n * bp
 
 
 def ljung_box(

@@ -147,11 +147,10 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
             contiguous = idx[-1] - idx[0] + 1 == idx.size
             # A run of consecutive series is a view; otherwise gather the rows.
             block = squares[idx[0] : idx[-1] + 1] if contiguous else squares[idx]
-            # Trim to the longest span in the block so short series cost little.
-            keep = ~np.isnan(block).all(axis=0)
-            first = int(np.argmax(keep)) if keep.any() else 0
-            last = int(keep.size - np.argmax(keep[::-1])) if keep.any() else 0
-            lm[idx], rows[idx], tss[idx] = _lm_one_order(block[:, first:last], int(order), buffer)
+            # Over the batch's whole width, never trimmed to the block's span: a row's sums
+            # then do not depend on which other rows share its block (a fleet assessed in
+            # chunks gives the numbers of the whole, to the last bit).
+            lm[idx], rows[idx], tss[idx] = _lm_one_order(block, int(order), buffer)
     # Squares that do not vary: constant residuals, +-c residuals (equal |e| within rounding),
     # or no variation left in the regression rows.
     flat = (
