@@ -146,6 +146,31 @@ class SeriesBatch:
     def n_series(self) -> int:
         return len(self.ids)
 
+    def rows(self, part: slice) -> SeriesBatch:
+        """The batch restricted to the rows in ``part`` (a slice; views of the matrices)."""
+        h = self.holdout
+        holdout = None
+        if h is not None:
+            holdout = Holdout(
+                actuals=h.actuals[part],
+                forecasts=h.forecasts[part],
+                lower=None if h.lower is None else h.lower[part],
+                upper=None if h.upper is None else h.upper[part],
+                level=None if h.level is None else h.level[part],
+            )
+        return SeriesBatch(
+            ids=self.ids[part],
+            actuals=self.actuals[part],
+            fitted=self.fitted[part],
+            weights=self.weights[part],
+            season_length=self.season_length,
+            model_params=self.model_params,
+            holdout=holdout,
+            lengths=self.lengths[part],
+            burn_in=self.burn_in[part],
+            weights_given=self.weights_given[part],
+        )
+
     def take(self, index: np.ndarray) -> SeriesBatch:
         """The batch restricted (and reordered) to the rows in ``index``."""
         index = np.asarray(index)

@@ -217,17 +217,38 @@ def fleet_coverage(
     """
     if not 0 < level < 1:
         raise InputError("level", f"must lie strictly between 0 and 1, got {level}")
+    t, x, a = coverage_counts(batch)
+    return fleet_coverage_from_counts(t, x, a, weights=weights, level=level)
+
+
+def coverage_counts(batch: SeriesBatch) -> tuple[FloatVector, FloatVector, FloatVector]:
+    """Per series: scored holdout steps ``T_i``, misses ``x_i`` and nominal miss rate ``a_i``
+    (0 steps for a series without intervals): what :func:`fleet_coverage` pools."""
     got = _misses(batch)
-    nan = float("nan")
     if got is None:
-        return FleetCoverage(nan, nan, nan, nan, nan, nan, level, nan, nan, 0, 0, 0)
+        zeros = np.zeros(batch.n_series)
+        return zeros, zeros, zeros
     miss, scored, lev = got
     t = scored.sum(axis=1).astype(float)
     x = miss.sum(axis=1).astype(float)
     a = np.where(np.isnan(lev), 0.0, 1.0 - lev)
-    w = np.ones(batch.n_series) if weights is None else np.asarray(weights, dtype=float)
-    if w.shape != (batch.n_series,):
-        raise InputError("weights", f"has {w.shape[0]} entries, expected {batch.n_series}")
+    return t, x, a
+
+
+def fleet_coverage_from_counts(
+    t: FloatVector,
+    x: FloatVector,
+    a: FloatVector,
+    *,
+    weights: FloatVector | None = None,
+    level: float = 0.95,
+) -> FleetCoverage:
+    """:func:`fleet_coverage` from the series' :func:`coverage_counts`."""
+    nan = float("nan")
+    n_series = t.shape[0]
+    w = np.ones(n_series) if weights is None else np.asarray(weights, dtype=float)
+    if w.shape != (n_series,):
+        raise InputError("weights", f"has {w.shape[0]} entries, expected {n_series}")
     use = (t > 0) & np.isfinite(w) & (w > 0)
     g = int(use.sum())
     if g == 0:

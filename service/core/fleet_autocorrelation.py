@@ -17,7 +17,7 @@ import numpy as np
 
 from .batch import Residuals
 from .ewc import cosine_projections, ewc_bins, ewc_variance
-from .residual_arrays import align_left
+from .fleet_parts import BLOCK, FleetPart, combine
 from .tails import t_sf_two_sided
 from .types import BoolMatrix, FloatVector
 
@@ -56,53 +56,101 @@ def fleet_lag_test(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
     variance ``P Omega_H`` over the ``P`` periods, ``Omega_H`` the EWC long-run variance of ``H``:
     ``t_k = theta_k / sqrt(P Omega_H)`` on ``B = ewc_bins(P)`` degrees of freedom. ``None``
     when no lag is tested by half the series.
+
+    The cross-sectional sums are taken block by block (:func:`fleet_lag_part` over each block
+    of :data:`~service.core.fleet_parts.BLOCK` series, :func:`fleet_lag_from_parts` over their
+    parts combined in order), so a fleet assessed in chunks gets the same numbers.
     """
-    n_used = int(use.sum())
-    if n_used == 0 or tested.shape[1] == 0:
-        return None
-    share_tested = (tested & use[:, None]).sum(axis=0) / n_used
-    lags = np.flatnonzero(share_tested >= 0.5) + 1
-    if lags.size == 0:
-        return None
+    n = res.n_obs.shape[0]
+    parts = [
+        fleet_lag_part(
+            res.rows(slice(lo, lo + BLOCK)), tested[lo : lo + BLOCK], use[lo : lo + BLOCK]
+        )
+        for lo in range(0, max(n, 1), BLOCK)
+    ]
+    return fleet_lag_from_parts(combine(parts))
+
+
+def fleet_lag_part(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> FleetPart:
+    """One block's share of :func:`fleet_lag_test`: how many of its series in ``use`` test
+    each lag (``sums["tested"]``, lag ``k`` at ``k - 1``) and, per lag ``k`` one of them tests,
+    the sum of their terms ``x_it`` by period counted from the series' last period
+    (``sums["h{k}"]``), how many have a term (``sums["m{k}"]``), the sum of their
+    autocorrelations at ``k`` (``sums["acf{k}"]``) and the first and last period with a term
+    (``lows``/``highs["q{k}"]``, counted from the end)."""
     z = res.standard
     obs = res.observed
-    n = res.n_obs
     width = z.shape[1]
     rows = np.flatnonzero(use)
-    offsets = (res.lengths.max(initial=0) - res.lengths)[rows]
-    n_cal = int((offsets + res.lengths[rows]).max(initial=0))
+    counts = np.zeros(width, dtype=np.int64)
+    k_max = min(tested.shape[1], width)
+    counts[:k_max] = (tested[:, :k_max] & use[:, None]).sum(axis=0)
+    sums: dict[str, np.ndarray] = {
+        "tested": counts,
+        "n_used": np.array([rows.size], dtype=np.int64),
+    }
+    lows: dict[str, int] = {}
+    highs: dict[str, int] = {}
+    if rows.size == 0 or tested.shape[1] == 0:
+        return FleetPart(sums=sums)
+    n = res.n_obs[rows]
+    lengths = res.lengths[rows]
+    zr = z[rows]
+    gamma0 = np.vecdot(zr, zr)
     with np.errstate(invalid="ignore", divide="ignore"):
-        s2 = np.vecdot(z[rows], z[rows]) / n[rows]
-    stats = np.full(lags.size, np.nan)
-    pvals = np.full(lags.size, np.nan)
-    dfs = np.zeros(lags.size, dtype=np.int64)
-    acfs = np.full(lags.size, np.nan)
-    gamma0 = np.vecdot(z[rows], z[rows])
-    for j, k in enumerate(lags.tolist()):
+        s2 = gamma0 / n
+    for k in (np.flatnonzero(counts[:k_max]) + 1).tolist():
         if k >= width:
             continue
-        zr = z[rows]
         pairs = obs[rows, k:] & obs[rows, :-k] & tested[rows, k - 1][:, None]
         prod = np.where(pairs, zr[:, k:] * zr[:, :-k], 0.0)
         norm = np.sqrt(np.vecdot(prod, prod))
         ok = norm > 0
         with np.errstate(invalid="ignore", divide="ignore"):
-            x = np.where(pairs & ok[:, None], (prod + (s2 / n[rows])[:, None]) / norm[:, None], 0.0)
-            acf = np.where(ok, prod.sum(axis=1) / gamma0, np.nan)
+            x = np.where(pairs & ok[:, None], (prod + (s2 / n)[:, None]) / norm[:, None], 0.0)
+            acf = np.where(ok, prod.sum(axis=1) / gamma0, 0.0)
         members = int(ok.sum())
         if members == 0:
             continue
+        sums[f"m{k}"] = np.array([members], dtype=np.int64)
+        sums[f"acf{k}"] = np.array([acf[ok].sum()])
         r_i, c_i = np.nonzero(x)
         if r_i.size == 0:
             continue
-        pos = offsets[r_i] + c_i + k
-        h = np.bincount(pos, weights=x[r_i, c_i] / members, minlength=n_cal)
-        first, last = int(pos.min()), int(pos.max())
-        span = np.array([max(last - first + 1, 0)])
+        q = lengths[r_i] - 1 - (c_i + k)
+        sums[f"h{k}"] = np.bincount(q, weights=x[r_i, c_i], minlength=width)[:width]
+        lows[f"q{k}"] = int(q.min())
+        highs[f"q{k}"] = int(q.max())
+    return FleetPart(sums=sums, lows=lows, highs=highs)
+
+
+def fleet_lag_from_parts(part: FleetPart) -> FleetLagTest | None:
+    """:func:`fleet_lag_test` from the :func:`fleet_lag_part` of its blocks combined in order
+    (the terms' sums divided by the number of series with a term, ``H_t``, then the test)."""
+    sums = part.sums
+    n_used = int(sums["n_used"][0]) if "n_used" in sums else 0
+    if n_used == 0:
+        return None
+    share_tested = sums["tested"] / n_used
+    lags = np.flatnonzero(share_tested >= 0.5) + 1
+    if lags.size == 0:
+        return None
+    stats = np.full(lags.size, np.nan)
+    pvals = np.full(lags.size, np.nan)
+    dfs = np.zeros(lags.size, dtype=np.int64)
+    acfs = np.full(lags.size, np.nan)
+    for j, k in enumerate(lags.tolist()):
+        if f"h{k}" not in sums:
+            continue
+        members = int(sums[f"m{k}"][0])
+        lo, hi = part.lows[f"q{k}"], part.highs[f"q{k}"]
+        # H on the calendar (oldest first) from its first to its last period with a term.
+        h = sums[f"h{k}"][lo : hi + 1][::-1] / members
+        span = np.array([hi - lo + 1])
         b = ewc_bins(span)
         if span[0] < 3 or b[0] < 1:
             continue
-        lam = cosine_projections(align_left(h[None, :], np.array([first])), span, b)
+        lam = cosine_projections(h[None, :], span, b)
         omega = float(ewc_variance(lam, b)[0])
         theta = float(h.sum())
         se = np.sqrt(max(omega, 0.0) * span[0])
@@ -111,7 +159,7 @@ def fleet_lag_test(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
         stats[j] = theta / se
         dfs[j] = int(b[0])
         pvals[j] = float(t_sf_two_sided(np.array(stats[j]), float(b[0])))
-        acfs[j] = float(np.nanmean(acf))
+        acfs[j] = float(sums[f"acf{k}"][0]) / members
     finite = np.isfinite(pvals)
     if not finite.any():
         return None

@@ -16,6 +16,7 @@ import numpy as np
 
 from .batch import Residuals
 from .ewc import EWC_MIN_OBS, cosine_projections, ewc_bins, ewc_variance
+from .fleet_parts import FleetPart, block_exponent
 from .residual_arrays import CHUNK_ELEMENTS, align_left, as_residuals
 from .results import skip_reasons_and_ran
 from .tails import norm_sf_two_sided, t_ppf, t_sf_two_sided
@@ -216,6 +217,167 @@ def fleet_bias(
         )
     with np.errstate(invalid="ignore", over="ignore"):
         se = scale * np.sqrt(np.maximum(omega, 0.0) * n_periods)
+    return _result(theta, se, b, n_periods, n_used, naive_var, scale, ci_level, min_obs)
+
+
+def fleet_bias_part(
+    res: Residuals,
+    weights: FloatVector,
+    *,
+    min_obs: int = EWC_MIN_OBS,
+    counts: FloatVector | None = None,
+) -> FleetPart:
+    """One block's share of :func:`fleet_bias_from_parts` (the end-aligned single fleet of the
+    bias check): per series the weight, ``n_obs``, mean, unit, sum of squares, first and last
+    observed residual and length; and ``H`` summed over the block's series on the calendar
+    counted from the fleet's last period (``scaled["h"]``, in units of a power of two: each
+    term ``(w_i / T_i) (e_it - mean_i)`` is ``m_i 2^(k_i)`` times ``e`` over its row's unit, so
+    no product overflows). ``counts`` (1 for a series the fleet counts, else 0) adds
+    ``scaled["h_count"]``, the same sum with those weights, which the fleet uses when no series
+    has a positive weight."""
+    width = res.values.shape[1]
+    w = np.asarray(weights, dtype=float)
+    n = res.n_obs
+    ss = np.vecdot(res.standard, res.standard)
+    last_obs = res.lengths.astype(np.int64)  # a copy
+    last_obs -= 1
+    trailing = np.flatnonzero(res.n_missing > 0)  # a gap may end the span
+    if trailing.size:
+        last_obs[trailing] = width - 1 - np.argmax(res.observed[trailing, ::-1], axis=1)
+    rows = {
+        "w": w,
+        **({} if counts is None else {"counts": np.asarray(counts, dtype=float)}),
+        "n_obs": n,
+        "mean": res.mean,
+        "unit": res.unit,
+        "ss": ss,
+        "start": res.start,
+        "last_obs": last_obs,
+        "lengths": res.lengths,
+    }
+    scaled = {}
+    weightings = [("h", w)] if counts is None else [("h", w), ("h_count", counts)]
+    for key, wk in weightings:
+        found = _calendar_part(res, wk, ss, min_obs)
+        if found is not None:
+            scaled[key] = found
+    return FleetPart(rows=rows, scaled=scaled)
+
+
+def _coefficients(w: FloatVector, n: IntVector, unit: FloatVector) -> tuple[FloatVector, IntVector]:
+    """``(w_i / T_i) unit_i`` as mantissa and binary exponent (the product never formed)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        m1, e1 = np.frexp(w / np.maximum(n, 1).astype(float))
+    m2, e2 = np.frexp(unit)
+    return m1 * m2, (e1.astype(np.int64) + e2.astype(np.int64))
+
+
+def _contributing(w: FloatVector, n: IntVector, ss: FloatVector, min_obs: int) -> np.ndarray:
+    return (n >= max(min_obs, 2)) & (w > 0) & (ss > 0)
+
+
+def _calendar_part(
+    res: Residuals, w: FloatVector, ss: FloatVector, min_obs: int
+) -> tuple[np.ndarray, int] | None:
+    """``sum_i c_i z_it`` by period counted from the end (index 0 the last period), in units
+    of ``2^E``, over the block's contributing rows; ``None`` when none contributes."""
+    rows = np.flatnonzero(_contributing(w, res.n_obs, ss, min_obs))
+    if rows.size == 0:
+        return None
+    width = res.values.shape[1]
+    mant, expo = _coefficients(w[rows], res.n_obs[rows], res.unit[rows])
+    coef, top = block_exponent(mant, expo)
+    terms = coef[:, None] * res.standard[rows]
+    lengths = res.lengths[rows]
+    out = np.zeros(width)
+    length = int(lengths[0])
+    if (lengths == length).all():
+        out[:length] = terms[:, :length].sum(axis=0)[::-1]
+        return out, top
+    q = lengths[:, None] - 1 - np.arange(width)[None, :]
+    inside = q >= 0
+    out += np.bincount(q[inside], weights=terms[inside], minlength=width)[:width]
+    return out, top
+
+
+def fleet_bias_from_parts(
+    part: FleetPart,
+    *,
+    counted: bool = False,
+    min_obs: int = EWC_MIN_OBS,
+    ci_level: float = 0.95,
+) -> FleetBias:
+    """:func:`fleet_bias` of one fleet aligned at its series' last periods, from the
+    :func:`fleet_bias_part` of its blocks combined in order
+    (:func:`~service.core.fleet_parts.combine`): the same formulas, with ``H`` summed block by
+    block, so a fleet assessed in chunks gets the numbers of the whole. ``counted``: weigh the
+    series by the parts' ``counts`` (their ``h_count`` sums) instead of their weights."""
+    rows = part.rows
+    w = rows["counts"] if counted else rows["w"]
+    n = rows["n_obs"]
+    unit = rows["unit"]
+    ss = rows["ss"]
+    lengths = rows["lengths"]
+    key = "h_count" if counted else "h"
+    n_series = n.shape[0]
+    zeros = np.zeros(n_series, dtype=np.int64)
+    used = (n >= max(min_obs, 2)) & (w > 0)
+    w_used = np.where(used, w, 0.0)
+    total = np.bincount(zeros, weights=w_used, minlength=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        share = np.where(used, w_used / total[0], 0.0)
+    safe_n = np.maximum(n, 1).astype(float)
+    mean = np.where(used, rows["mean"], 0.0)
+    theta = np.bincount(zeros, weights=share * mean, minlength=1)
+    n_cal = int(lengths.max(initial=0))
+    width = 0
+    h_end = np.zeros(0)
+    scale = 1.0
+    contrib = _contributing(w, n, ss, min_obs)
+    if contrib.any() and key in part.scaled:
+        acc, top = part.scaled[key]
+        width = acc.shape[0]
+        mant, expo = _coefficients(w[contrib], n[contrib], unit[contrib])
+        relative = float(np.ldexp(mant, (expo - top).astype(np.int32)).max())
+        h_end = acc / relative
+        t_mant, t_exp = np.frexp(total[0])
+        scale = float(np.ldexp(relative / t_mant, top - int(t_exp)))
+    off = n_cal - lengths
+    first = int(np.min((off + rows["start"])[used], initial=n_cal))
+    last = int(np.max((off + rows["last_obs"])[used], initial=-1))
+    n_periods = np.array([max(last - first + 1, 0)], dtype=np.int64)
+    b = ewc_bins(n_periods)
+    seg = np.zeros((1, max(int(n_periods[0]), 1)))
+    if n_periods[0] > 0 and width:
+        lo, hi = n_cal - 1 - last, n_cal - first
+        seg[0, : hi - lo] = h_end[lo:hi][::-1]
+    lam = cosine_projections(seg, n_periods, b)
+    omega = ewc_variance(lam, b)
+    n_used = np.array([int(used.sum())], dtype=np.int64)
+    with np.errstate(invalid="ignore", over="ignore"):
+        var_i = ss * (unit / scale) ** 2
+        var_i = var_i / np.maximum(n - 1, 1)
+        naive_var = np.bincount(
+            zeros, weights=np.where(used, share * share * var_i / safe_n, 0.0), minlength=1
+        )
+    with np.errstate(invalid="ignore", over="ignore"):
+        se = scale * np.sqrt(np.maximum(omega, 0.0) * n_periods)
+    return _result(theta, se, b, n_periods, n_used, naive_var, scale, ci_level, min_obs)
+
+
+def _result(
+    theta: FloatVector,
+    se: FloatVector,
+    b: IntVector,
+    n_periods: IntVector,
+    n_used: IntVector,
+    naive_var: FloatVector,
+    scale: float,
+    ci_level: float,
+    min_obs: int,
+) -> FleetBias:
+    """The test from its parts (the last steps of :func:`fleet_bias`)."""
+    n_fleets = theta.shape[0]
     reasons, ran = skip_reasons_and_ran(
         n_fleets,
         (n_used == 0, f"no series with {max(min_obs, 2)} residuals and a positive weight"),

@@ -46,6 +46,7 @@ from service.results import (
 )
 
 from .batch import SeriesBatch, stack_batches, stack_key
+from .fleet_parts import FleetPart
 from .messages import fleet_message, not_tested_message, pass_message, untested_message
 from .multiple import benjamini_hochberg_rows
 from .policy import CheckPolicy, Policy
@@ -348,11 +349,14 @@ def _decide_parts(
     parts: Sequence[SeriesBatch],
     policy: Policy,
     cps_all: Mapping[str, CheckPolicy],
+    fleet_parts: Mapping[str, FleetPart] | None = None,
 ) -> _Decided:
     """:func:`_decide` for each of ``parts`` (batches of one size, stacked in ``stacked``),
     vectorised over the parts: every per-series quantity is computed once over the stacked
     rows and every per-part reduction runs along the last axis of a (check, part, series)
-    array, so each part gets the numbers it would get alone."""
+    array, so each part gets the numbers it would get alone. ``fleet_parts`` (one part only):
+    the fleet-level tests' parts, by key, already gathered block by block (a chunked
+    assessment's), instead of gathering them from ``stacked``."""
     batch = stacked.batch
     n_parts = len(parts)
     size = parts[0].n_series if parts else 0
@@ -501,7 +505,9 @@ def _decide_parts(
         p_adjusted = dict(zip(names, p_matrix[:, rows], strict=True))
         # Codes order as severities: fail > warn > pass > skipped.
         fleet_code = max(int(status[:, g].max(initial=PASS)), PASS)
-        findings = _fleet_findings(results, part_weights, policy, k_fail[g], k_warn[g])
+        findings = _fleet_findings(
+            results, part_weights, policy, k_fail[g], k_warn[g], fleet_parts
+        )
         for name, finding in findings.values():
             if finding.code >= WARN:
                 fleet_code = max(fleet_code, finding.code)
@@ -581,7 +587,12 @@ def _pass_notes(
 
 
 def _fleet_findings(
-    results: BatchChecks, weights: np.ndarray, policy: Policy, k_fail: float, k_warn: float
+    results: BatchChecks,
+    weights: np.ndarray,
+    policy: Policy,
+    k_fail: float,
+    k_warn: float,
+    parts: Mapping[str, FleetPart] | None = None,
 ) -> dict[str, tuple[str, FleetFinding]]:
     """Every fleet-level test the registered checks declare, by key, with the name of the
     check that declares it: computed when that check ran (else its empty value) and judged at
@@ -597,7 +608,10 @@ def _fleet_findings(
         if int((~results[check.name].skipped).sum()) < test.min_series:
             out[test.key] = (check.name, test.empty)
             continue
-        finding = test.compute(results, weights, policy)
+        if parts is None:
+            finding = test.compute(results, weights, policy)
+        else:
+            finding = test.finish(parts[test.key], results, weights, policy)
         cp = policy.check(check.name)
         p = finding.p_value
         code = PASS

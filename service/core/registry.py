@@ -24,6 +24,7 @@ from typing import TYPE_CHECKING, Any, Literal
 import numpy as np
 
 from .batch import Residuals, SeriesBatch
+from .fleet_parts import BLOCK, FleetPart, combine
 from .results import CheckKind, CheckResult
 
 if TYPE_CHECKING:
@@ -208,15 +209,39 @@ class FleetFinding:
 @dataclass(frozen=True)
 class FleetTest:
     """A fleet-level test declared by a check (the fleet bias), written to the result's
-    ``fleet[key]``. ``compute(checks, weights, policy)`` gets one part's checks and weights;
-    ``empty`` stands in when the check did not run."""
+    ``fleet[key]``, in two steps (:mod:`service.core.fleet_parts`): ``gather(checks, weights,
+    policy)`` reads one block of series (their checks, residuals and batch rows, and their
+    weights) into a :class:`~service.core.fleet_parts.FleetPart`; ``finish(part, checks,
+    weights, policy)`` makes the finding from the parts of every block combined, with the
+    fleet's per-series check results and weights (``checks.batch`` and ``checks.residuals``
+    may hold no observations there). ``empty`` stands in when the check did not run."""
 
     key: str
-    compute: Callable[[BatchChecks, np.ndarray, Policy], FleetFinding]
+    gather: Callable[[BatchChecks, np.ndarray, Policy], FleetPart]
+    finish: Callable[[FleetPart, BatchChecks, np.ndarray, Policy], FleetFinding]
     empty: FleetFinding
     min_series: int = 10
     """Fewest series the owner must have tested for the fleet-level test to run (and to count
     in the fleet's families): below it the series' own tests are all the evidence there is."""
+
+    def gather_blocks(self, checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetPart:
+        """The part of every block of :data:`~service.core.fleet_parts.BLOCK` series of
+        ``checks``, combined in order."""
+        n = checks.batch.n_series
+        if n <= BLOCK:
+            return self.gather(checks, weights, policy)
+        return combine(
+            [
+                self.gather(
+                    checks.rows(slice(lo, min(lo + BLOCK, n))), weights[lo : lo + BLOCK], policy
+                )
+                for lo in range(0, n, BLOCK)
+            ]
+        )
+
+    def compute(self, checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFinding:
+        """The finding over one whole batch's checks and weights."""
+        return self.finish(self.gather_blocks(checks, weights, policy), checks, weights, policy)
 
 
 Runner = Callable[..., CheckResult]

@@ -26,6 +26,14 @@ class BatchChecks:
     def __getitem__(self, name: str) -> CheckResult:
         return self.checks[name]
 
+    def rows(self, part: slice) -> BatchChecks:
+        """The checks of the series in ``part`` (a slice of rows; views, no copies)."""
+        return BatchChecks(
+            batch=self.batch.rows(part),
+            residuals=self.residuals.rows(part),
+            checks={k: r.rows(part) for k, r in self.checks.items()},
+        )
+
     def split(self, parts: Sequence[SeriesBatch]) -> list[BatchChecks]:
         """Hand back each part's results from checks run over ``stack_batches(parts)``."""
         if len(parts) == 1:

@@ -15,7 +15,8 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ..batch import Residuals
-from ..fleet_autocorrelation import fleet_lag_test
+from ..fleet_autocorrelation import fleet_lag_from_parts, fleet_lag_part
+from ..fleet_parts import FleetPart
 from ..registry import (
     CheckDef,
     CheckInputs,
@@ -397,20 +398,27 @@ _NO_FLEET_ACF = FleetAutocorrelation(
 )
 
 
-def _fleet_autocorrelation(
+def _gather_fleet_autocorrelation(
     checks: BatchChecks, weights: np.ndarray, policy: Policy
-) -> FleetFinding:
+) -> FleetPart:
+    """One block's share of the pooled lag test (:func:`fleet_lag_part`) over the series the
+    check tested, at the lags it tested for each."""
     res = checks.residuals
     batch = checks.batch
     short, seasonal, _ = autocorrelation_lags(
         res.n_obs, batch.season_length, batch.model_params, policy.check("ljung_box").option("lags")
     )
-    use = ~checks["ljung_box"].skipped
-    found = fleet_lag_test(res, short | seasonal, use)
+    return fleet_lag_part(res, short | seasonal, ~checks["ljung_box"].skipped)
+
+
+def _fleet_autocorrelation(
+    part: FleetPart, checks: BatchChecks, weights: np.ndarray, policy: Policy
+) -> FleetFinding:
+    found = fleet_lag_from_parts(part)
     if found is None:
         return FleetFinding(_NO_FLEET_ACF)
     j = int(np.flatnonzero(found.lags == found.decisive_lag)[0])
-    m = batch.season_length
+    m = checks.batch.season_length
     min_acf = policy.check("ljung_box").option("min_acf")
     acf = float(found.mean_acf[j])
     material = True if min_acf is None else bool(abs(acf) >= float(min_acf))
@@ -512,7 +520,8 @@ CHECKS = (
         essential=True,
         fleet=FleetTest(
             key="autocorrelation",
-            compute=_fleet_autocorrelation,
+            gather=_gather_fleet_autocorrelation,
+            finish=_fleet_autocorrelation,
             empty=FleetFinding(_NO_FLEET_ACF),
         ),
     ),

@@ -10,6 +10,8 @@ import numpy as np
 
 from ..batch import SeriesBatch
 from ..comparison import DM_MIN_OBS, compare_with_benchmarks, holm
+from ..fleet_parts import FleetPart
+from ..fleet_pooling import pooled_mean
 from ..holdout import BENCHMARKS, benchmark_forecasts, holdout_pairs, holdout_reason
 from ..registry import CheckDef, CheckPolicy, Finding, FleetFinding, FleetTest, Option, fmt
 from ..relative_accuracy import fleet_avg_rel_mae
@@ -247,33 +249,67 @@ class FleetAccuracy:
         return {k: to_python(v) for k, v in vars(self).items()}
 
 
+@dataclass(frozen=True)
+class _Ratio:
+    """The average relative MAE against one benchmark (``exp`` of the pooled log ratio)."""
+
+    estimate: float
+    ci_low: float
+    ci_high: float
+    n_series: int
+
+
 _NO_FLEET_ACCURACY = FleetAccuracy(None, *(float("nan"),) * 4, 0, float("nan"), None)
 
 
-def _fleet_accuracy(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFinding:
+def _benchmark_names(season_length: int, policy: Policy) -> list[str]:
+    chosen = policy.check("benchmark_skill").option("benchmarks")
+    names = [k for k in BENCHMARKS if k != "seasonal_naive" or season_length > 1]
+    return [k for k in names if chosen is None or k in chosen]
+
+
+def _gather_accuracy(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetPart:
+    """Per benchmark, each series' log ratio of MAEs (``NaN`` where the check skipped it or
+    the ratio is not defined) and its holdout steps (0 there)."""
+    batch = checks.batch
+    use = ~checks["benchmark_skill"].skipped
+    rows: dict[str, np.ndarray] = {}
+    for name in _benchmark_names(batch.season_length, policy):
+        r = fleet_avg_rel_mae(batch, benchmark=name)
+        lr = np.where(use, r.log_ratios, np.nan)
+        rows[f"log_ratio:{name}"] = lr
+        rows[f"steps:{name}"] = np.where(np.isfinite(lr), r.weights, 0).astype(float)
+    return FleetPart(rows=rows)
+
+
+def _fleet_accuracy(
+    part: FleetPart, checks: BatchChecks, weights: np.ndarray, policy: Policy
+) -> FleetFinding:
     batch = checks.batch
     cp = policy.check("benchmark_skill")
     margin = MARGIN if cp.option("margin") is None else float(cp.option("margin"))
-    chosen = cp.option("benchmarks")
-    names = [k for k in BENCHMARKS if k != "seasonal_naive" or batch.season_length > 1]
-    names = [k for k in names if chosen is None or k in chosen]
+    names = _benchmark_names(batch.season_length, policy)
     use = ~checks["benchmark_skill"].skipped
     if not names or not use.any():
         return FleetFinding(_NO_FLEET_ACCURACY)
-    part = batch.take(np.flatnonzero(use))
     found = []
     for name in names:
-        r = fleet_avg_rel_mae(part, benchmark=name)
-        pooled = r.log_ratio
+        pooled = pooled_mean(part.rows[f"log_ratio:{name}"], part.rows[f"steps:{name}"])
         if pooled.n_series < 2 or not np.isfinite(pooled.std_error) or not pooled.std_error > 0:
             continue
         t = (pooled.estimate - np.log1p(margin)) / pooled.std_error
-        found.append((float(t_sf(np.array(t), float(pooled.df))), name, r))
+        found.append((float(t_sf(np.array(t), float(pooled.df))), name, pooled))
     if not found:
         return FleetFinding(_NO_FLEET_ACCURACY)
     p_adj = holm(np.array([f[0] for f in found]))
     j = int(np.argmin(p_adj))
-    _, name, r = found[j]
+    _, name, pooled = found[j]
+    r = _Ratio(
+        estimate=float(np.exp(pooled.estimate)),
+        ci_low=float(np.exp(pooled.ci_low)),
+        ci_high=float(np.exp(pooled.ci_high)),
+        n_series=pooled.n_series,
+    )
     summary = FleetAccuracy(
         benchmark=name,
         relative_mae=r.estimate,
@@ -348,7 +384,10 @@ CHECKS = (
         material=_skill_material,
         pass_notes=_skill_notes,
         fleet=FleetTest(
-            key="accuracy", compute=_fleet_accuracy, empty=FleetFinding(_NO_FLEET_ACCURACY)
+            key="accuracy",
+            gather=_gather_accuracy,
+            finish=_fleet_accuracy,
+            empty=FleetFinding(_NO_FLEET_ACCURACY),
         ),
     ),
 )

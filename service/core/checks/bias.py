@@ -17,7 +17,8 @@ import numpy as np
 
 from ..batch import Residuals, SeriesBatch
 from ..ewc import ewc_bias
-from ..fleet_bias import fleet_bias
+from ..fleet_bias import fleet_bias_from_parts, fleet_bias_part
+from ..fleet_parts import FleetPart
 from ..registry import (
     PASS,
     CheckDef,
@@ -474,25 +475,41 @@ class FleetBiasSummary:
 _NO_FLEET_BIAS = FleetBiasSummary(*(float("nan"),) * 5, 0, *(float("nan"),) * 6, None)
 
 
+def _gather_fleet_bias(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetPart:
+    """One block's share of the fleet bias (:func:`fleet_bias_part`), with each series' sums of
+    its residuals and of its absolute actuals over the residual periods."""
+    use = ~checks["bias"].skipped
+    res = checks.residuals
+    w = np.where(use, weights, 0.0)
+    counts = None if (w > 0).any() else use.astype(float)
+    part = fleet_bias_part(res, w, min_obs=BIAS_MIN_OBS, counts=counts)
+    observed = res.observed & use[:, None]
+    sums = {
+        "e_sum": np.where(observed, res.values, 0.0).sum(axis=1),
+        "y_sum": np.where(observed, np.abs(checks.batch.actuals), 0.0).sum(axis=1),
+    }
+    return FleetPart(rows={**part.rows, **sums}, scaled=part.scaled)
+
+
 def fleet_bias_summary(
-    checks: BatchChecks, weights: np.ndarray, cp: CheckPolicy
+    checks: BatchChecks, weights: np.ndarray, cp: CheckPolicy, part: FleetPart
 ) -> FleetBiasSummary:
-    """The :class:`FleetBiasSummary` of one batch's checks, with the fleet's series weights."""
+    """The :class:`FleetBiasSummary` of a fleet's checks, with its series weights, from the
+    parts its blocks gathered (:func:`_gather_fleet_bias`, combined in order)."""
     b = checks["bias"]
     use = ~b.skipped
     if not use.any():
         return _NO_FLEET_BIAS
-    res = checks.residuals
     w = np.where(use, weights, 0.0)
-    if not w.sum() > 0:
+    counted = not (w > 0).any()
+    if counted:
         w = use.astype(float)
     # Rows the per-series test skipped take no part (weight 0 drops them).
-    found = fleet_bias(res, w, min_obs=BIAS_MIN_OBS)
+    found = fleet_bias_from_parts(part, counted=counted, min_obs=BIAS_MIN_OBS)
     if found.skip_reason[0] is not None:
         return _NO_FLEET_BIAS
-    observed = res.observed[use]
-    pooled_e = np.where(observed, res.values[use], 0.0).sum()
-    pooled_y = np.where(observed, np.abs(checks.batch.actuals[use]), 0.0).sum()
+    pooled_e = part.rows["e_sum"][use].sum()
+    pooled_y = part.rows["y_sum"][use].sum()
     share = w[use] / w[use].sum()
     # Pooled residual sd sqrt(sum s_i sd_i^2), with the largest sd factored out (no overflow).
     sds = np.where(np.isfinite(b.details["residual_sd"][use]), b.details["residual_sd"][use], 0.0)
@@ -531,11 +548,13 @@ def _fleet_bias_message(b: FleetBiasSummary) -> str:
     )
 
 
-def _judge_fleet_bias(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFinding:
+def _judge_fleet_bias(
+    part: FleetPart, checks: BatchChecks, weights: np.ndarray, policy: Policy
+) -> FleetFinding:
     """The fleet bias: judged by the gate at the bias check's ``fleet_warn_p`` (or the
     fleet's ``bias_warn_p``, its earlier name) and ``fleet_fail_p``, when material."""
     cp = policy.check("bias")
-    found = fleet_bias_summary(checks, weights, cp)
+    found = fleet_bias_summary(checks, weights, cp, part)
     warn_p = policy.fleet.bias_warn_p if policy.fleet.bias_warn_p is not None else cp.fleet_warn_p
     return FleetFinding(
         found,
@@ -621,7 +640,12 @@ CHECKS = (
                 ("tracking_signal", "tracking_signal", "statistic"),
             ),
         ),
-        fleet=FleetTest(key="bias", compute=_judge_fleet_bias, empty=FleetFinding(_NO_FLEET_BIAS)),
+        fleet=FleetTest(
+            key="bias",
+            gather=_gather_fleet_bias,
+            finish=_judge_fleet_bias,
+            empty=FleetFinding(_NO_FLEET_BIAS),
+        ),
         essential=True,
         material=_bias_material,
         pass_notes=_bias_notes,

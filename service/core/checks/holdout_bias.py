@@ -16,6 +16,8 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from ..fleet_parts import FleetPart
+from ..fleet_pooling import pooled_mean
 from ..holdout_bias import fleet_holdout_bias, holdout_bias, training_rms
 from ..registry import (
     CheckDef,
@@ -102,13 +104,23 @@ class FleetHoldoutBias:
 _NO_FLEET = FleetHoldoutBias(*(float("nan"),) * 6, 0, None)
 
 
-def _fleet(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFinding:
+def _gather(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetPart:
+    """Each series' standardised holdout mean error and its weight in the pooled mean (its
+    holdout steps; 0 where the check skipped it or its scale is not positive)."""
+    result = checks["holdout_bias"]
+    use = ~result.skipped
+    found = fleet_holdout_bias(checks.batch, weights=np.where(use, result.details["horizon"], 0))
+    u = found.standardised
+    return FleetPart(rows={"u": u, "w": np.where(np.isfinite(u), found.weights, 0.0)})
+
+
+def _fleet(
+    part: FleetPart, checks: BatchChecks, weights: np.ndarray, policy: Policy
+) -> FleetFinding:
     cp = policy.check("holdout_bias")
     result = checks["holdout_bias"]
     use = ~result.skipped
-    batch = checks.batch
-    found = fleet_holdout_bias(batch, weights=np.where(use, result.details["horizon"], 0))
-    pooled = found.pooled
+    pooled = pooled_mean(part.rows["u"], part.rows["w"])
     if pooled.n_series < 2 or not np.isfinite(pooled.p_value):
         return FleetFinding(_NO_FLEET)
     n = np.where(use, result.details["horizon"], 0).astype(float)
@@ -194,6 +206,8 @@ CHECKS = (
         meaning="the forecasts drift from the actuals out of sample; refit on recent data",
         options=(Option("min_obs"), *_MATERIALITY),
         material=_material_series,
-        fleet=FleetTest(key="holdout_bias", compute=_fleet, empty=FleetFinding(_NO_FLEET)),
+        fleet=FleetTest(
+            key="holdout_bias", gather=_gather, finish=_fleet, empty=FleetFinding(_NO_FLEET)
+        ),
     ),
 )

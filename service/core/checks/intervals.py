@@ -8,7 +8,13 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ..batch import SeriesBatch
-from ..coverage_tests import fleet_coverage, kupiec_lr, miss_dependence
+from ..coverage_tests import (
+    coverage_counts,
+    fleet_coverage_from_counts,
+    kupiec_lr,
+    miss_dependence,
+)
+from ..fleet_parts import FleetPart
 from ..registry import (
     FAIL,
     WARN,
@@ -182,9 +188,17 @@ class FleetCoverageSummary:
 _NO_FLEET = FleetCoverageSummary(*(float("nan"),) * 6, 0, 0, None)
 
 
-def _fleet(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFinding:
+def _gather(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetPart:
+    t, x, a = coverage_counts(checks.batch)
+    return FleetPart(rows={"scored": t, "misses": x, "nominal": a})
+
+
+def _fleet(
+    part: FleetPart, checks: BatchChecks, weights: np.ndarray, policy: Policy
+) -> FleetFinding:
     cp = policy.check("interval_coverage")
-    found = fleet_coverage(checks.batch)
+    rows = part.rows
+    found = fleet_coverage_from_counts(rows["scored"], rows["misses"], rows["nominal"])
     if found.n_series < 2 or not np.isfinite(found.statistic):
         return FleetFinding(_NO_FLEET)
     p = float(t_sf(np.array(found.statistic), float(found.df)))
@@ -260,6 +274,8 @@ CHECKS = (
             Option("min_shortfall", kind="float", maximum=1, for_runner=False),
         ),
         cap=_too_wide_only_warns,
-        fleet=FleetTest(key="coverage", compute=_fleet, empty=FleetFinding(_NO_FLEET)),
+        fleet=FleetTest(
+            key="coverage", gather=_gather, finish=_fleet, empty=FleetFinding(_NO_FLEET)
+        ),
     ),
 )
