@@ -587,3 +587,60 @@ def residuals_of(batch: SeriesBatch) -> Residuals:
         standard=standard,
         rounding_scale=rounding_scale,
     )
+
+
+def conform(
+    batch: SeriesBatch, *, width: int, horizon: int = 0, intervals: bool = False
+) -> SeriesBatch:
+    """``batch`` padded to the shape of the fleet it is a chunk of: ``width`` training periods
+    (missing values on the right; the series' lengths stay theirs), a holdout of ``horizon``
+    steps (all missing for a chunk without one) and interval bounds (all missing where a
+    series has none) when ``intervals``. A chunk's rows are then the fleet's rows, so every
+    check gives them the numbers it gives them in the whole fleet.
+    """
+    n, have = batch.actuals.shape
+    if have > width:
+        raise InputError("actuals", f"has {have} periods, more than the fleet's {width}")
+
+    def pad(values: FloatMatrix | None, to: int) -> FloatMatrix:
+        out = np.full((n, to), np.nan)
+        if values is not None:
+            out[:, : values.shape[1]] = values
+        return out
+
+    def frozen(values: np.ndarray) -> np.ndarray:
+        values.flags.writeable = False
+        return values
+
+    h = batch.holdout
+    holdout = h
+    given = 0 if h is None else h.actuals.shape[1]
+    if given > horizon:
+        raise InputError("holdout_actuals", f"has {given} steps, more than the fleet's {horizon}")
+    if horizon and (h is None or given < horizon or (intervals and h.lower is None)):
+        with_bounds = intervals or (h is not None and h.lower is not None)
+        holdout = Holdout(
+            actuals=pad(None if h is None else h.actuals, horizon),
+            forecasts=pad(None if h is None else h.forecasts, horizon),
+            lower=pad(None if h is None else h.lower, horizon) if with_bounds else None,
+            upper=pad(None if h is None else h.upper, horizon) if with_bounds else None,
+            level=(
+                (np.full(n, np.nan) if h is None or h.level is None else h.level)
+                if with_bounds
+                else None
+            ),
+        )
+    if have == width and holdout is h:
+        return batch
+    return SeriesBatch(
+        ids=batch.ids,
+        actuals=batch.actuals if have == width else pad(batch.actuals, width),
+        fitted=batch.fitted if have == width else pad(batch.fitted, width),
+        weights=batch.weights,
+        season_length=batch.season_length,
+        model_params=batch.model_params,
+        holdout=holdout,
+        lengths=frozen(batch.lengths.copy()),
+        burn_in=batch.burn_in,
+        weights_given=batch.weights_given,
+    )

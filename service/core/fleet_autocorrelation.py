@@ -15,9 +15,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from . import fleet_parts
 from .batch import Residuals
 from .ewc import cosine_projections, ewc_bins, ewc_variance
-from .fleet_parts import BLOCK, FleetPart, combine
+from .fleet_parts import FleetPart, combine
 from .tails import t_sf_two_sided
 from .types import BoolMatrix, FloatVector
 
@@ -64,9 +65,11 @@ def fleet_lag_test(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
     n = res.n_obs.shape[0]
     parts = [
         fleet_lag_part(
-            res.rows(slice(lo, lo + BLOCK)), tested[lo : lo + BLOCK], use[lo : lo + BLOCK]
+            res.rows(slice(lo, lo + fleet_parts.BLOCK)),
+            tested[lo : lo + fleet_parts.BLOCK],
+            use[lo : lo + fleet_parts.BLOCK],
         )
-        for lo in range(0, max(n, 1), BLOCK)
+        for lo in range(0, max(n, 1), fleet_parts.BLOCK)
     ]
     return fleet_lag_from_parts(combine(parts))
 

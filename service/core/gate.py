@@ -505,9 +505,7 @@ def _decide_parts(
         p_adjusted = dict(zip(names, p_matrix[:, rows], strict=True))
         # Codes order as severities: fail > warn > pass > skipped.
         fleet_code = max(int(status[:, g].max(initial=PASS)), PASS)
-        findings = _fleet_findings(
-            results, part_weights, policy, k_fail[g], k_warn[g], fleet_parts
-        )
+        findings = _fleet_findings(results, part_weights, policy, k_fail[g], k_warn[g], fleet_parts)
         for name, finding in findings.values():
             if finding.code >= WARN:
                 fleet_code = max(fleet_code, finding.code)

@@ -23,8 +23,9 @@ from typing import TYPE_CHECKING, Any, Literal
 
 import numpy as np
 
+from . import fleet_parts
 from .batch import Residuals, SeriesBatch
-from .fleet_parts import BLOCK, FleetPart, combine
+from .fleet_parts import FleetPart, combine
 from .results import CheckKind, CheckResult
 
 if TYPE_CHECKING:
@@ -224,24 +225,27 @@ class FleetTest:
     """Fewest series the owner must have tested for the fleet-level test to run (and to count
     in the fleet's families): below it the series' own tests are all the evidence there is."""
 
-    def gather_blocks(self, checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetPart:
+    def gather_blocks(
+        self, checks: BatchChecks, weights: np.ndarray, policy: Policy
+    ) -> list[FleetPart]:
         """The part of every block of :data:`~service.core.fleet_parts.BLOCK` series of
-        ``checks``, combined in order."""
+        ``checks``, in order (combine them with :func:`~service.core.fleet_parts.combine`)."""
         n = checks.batch.n_series
-        if n <= BLOCK:
-            return self.gather(checks, weights, policy)
-        return combine(
-            [
-                self.gather(
-                    checks.rows(slice(lo, min(lo + BLOCK, n))), weights[lo : lo + BLOCK], policy
-                )
-                for lo in range(0, n, BLOCK)
-            ]
-        )
+        if n <= fleet_parts.BLOCK:
+            return [self.gather(checks, weights, policy)]
+        return [
+            self.gather(
+                checks.rows(slice(lo, lo + fleet_parts.BLOCK)),
+                weights[lo : lo + fleet_parts.BLOCK],
+                policy,
+            )
+            for lo in range(0, n, fleet_parts.BLOCK)
+        ]
 
     def compute(self, checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFinding:
         """The finding over one whole batch's checks and weights."""
-        return self.finish(self.gather_blocks(checks, weights, policy), checks, weights, policy)
+        parts = self.gather_blocks(checks, weights, policy)
+        return self.finish(combine(parts), checks, weights, policy)
 
 
 Runner = Callable[..., CheckResult]

@@ -7,7 +7,7 @@ entry per series. Results never change after they are made: their arrays are rea
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
@@ -129,6 +129,34 @@ class CheckResult:
         ):
             object.__setattr__(out, name, value)
         return out
+
+
+def concat_results(parts: Sequence[CheckResult]) -> CheckResult:
+    """One check's results over consecutive parts of a fleet as one (rows in order): the
+    parts' arrays concatenated, read-only, checked once already by each part."""
+    first = parts[0]
+    if len(parts) == 1:
+        return first
+
+    def joined(arrays: list[np.ndarray]) -> np.ndarray:
+        out = np.concatenate(arrays)
+        out.flags.writeable = False
+        return out
+
+    out = object.__new__(CheckResult)
+    for name, value in (
+        ("name", first.name),
+        ("kind", first.kind),
+        ("statistic", joined([p.statistic for p in parts])),
+        ("p_value", joined([p.p_value for p in parts])),
+        ("details", {k: joined([p.details[k] for p in parts]) for k in first.details}),
+        ("skip_reason", joined([p.skip_reason for p in parts])),
+        ("null_hypothesis", first.null_hypothesis),
+        ("detail_keys", first.detail_keys),
+        ("_skipped", joined([p.skipped for p in parts])),
+    ):
+        object.__setattr__(out, name, value)
+    return out
 
 
 def skip_reasons_and_ran(
