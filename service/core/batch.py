@@ -290,8 +290,7 @@ def make_batch(
                     raise InputError("ids", f"duplicate series id {s!r}", index=i)
                 seen.add(s)
 
-    volume = np.fmax(np.abs(a), np.abs(f))
-    volume = np.where(np.isnan(volume), 0.0, volume).sum(axis=1)
+    volume = _volume(a, f)
     if weights is None:
         w = volume
         given = np.zeros(n, dtype=bool)
@@ -376,6 +375,13 @@ def make_batch(
         burn_in=drop,
         weights_given=given,
     )
+
+
+def _volume(actuals: FloatMatrix, fitted: FloatMatrix) -> FloatVector:
+    """``sum_t max(|actual_t|, |fitted_t|)`` per row over the values given (the default
+    weight)."""
+    volume = np.fmax(np.abs(actuals), np.abs(fitted))
+    return np.where(np.isnan(volume), 0.0, volume).sum(axis=1)
 
 
 def stack_key(batch: SeriesBatch) -> tuple[object, ...]:
@@ -632,11 +638,16 @@ def conform(
         )
     if have == width and holdout is h:
         return batch
+    actuals, fitted, weights = batch.actuals, batch.fitted, batch.weights
+    if have != width:
+        actuals, fitted = pad(actuals, width), pad(fitted, width)
+        # The default weight summed over the fleet's width, as the whole fleet's batch sums it.
+        weights = np.where(batch.weights_given, weights, _volume(actuals, fitted))
     return SeriesBatch(
         ids=batch.ids,
-        actuals=batch.actuals if have == width else pad(batch.actuals, width),
-        fitted=batch.fitted if have == width else pad(batch.fitted, width),
-        weights=batch.weights,
+        actuals=actuals,
+        fitted=fitted,
+        weights=weights,
         season_length=batch.season_length,
         model_params=batch.model_params,
         holdout=holdout,
