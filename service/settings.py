@@ -76,3 +76,8 @@ class Settings(BaseSettings):
     http_parser: Literal["auto", "h11", "httptools"] = Field(
         default="auto", description="HTTP/1.1 parser; auto: httptools when installed, else h11."
     )
+    dask_scheduler: str | None = Field(
+        default=None,
+        description="Address of a Dask scheduler (tcp://host:8786) on which a chunked "
+        "assessment's parts run (service/cluster.py; the cluster extra); none: in the process.",
+    )
