@@ -197,11 +197,15 @@ def _codes(
             bounds[j] = np.array(
                 [cp.fail_below, cp.fail_above, cp.warn_below, cp.warn_above], dtype=float
             )
-    per_series = np.repeat(bounds, part_size, axis=1) if n_parts else np.zeros((len(checks), 0, 4))
-    lo_fail, hi_fail, lo_warn, hi_warn = (per_series[..., j] for j in range(4))
+    # Compared part by part, each part's bounds broadcast over its series (no copy per series).
+    cube = v.reshape(len(checks), n_parts, part_size if n_parts else 0)
+    lo_fail, hi_fail, lo_warn, hi_warn = (bounds[:, :, None, j] for j in range(4))
     codes = np.where(
-        (v < lo_fail) | (v > hi_fail), FAIL, np.where((v < lo_warn) | (v > hi_warn), WARN, PASS)
-    )
+        (cube < lo_fail) | (cube > hi_fail),
+        FAIL,
+        np.where((cube < lo_warn) | (cube > hi_warn), WARN, PASS),
+    ).reshape(shape)
+    del cube
     immaterial = np.zeros(shape, dtype=bool)
     for j, (name, cp) in enumerate(zip(names, cps, strict=True)):
         check = checks_by_name()[name]

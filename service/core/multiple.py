@@ -6,6 +6,9 @@ import numpy as np
 
 from .types import FloatMatrix, FloatVector, InputError
 
+ROWS_ELEMENTS = 1 << 20
+"""Values adjusted at a time by :func:`benjamini_hochberg_rows` (whole rows)."""
+
 
 def benjamini_hochberg(p_values: FloatVector) -> FloatVector:
     """Benjamini-Hochberg (1995) adjusted p-values; ``NaN`` entries are left out and kept.
@@ -29,13 +32,18 @@ def benjamini_hochberg_rows(p: FloatMatrix) -> FloatMatrix:
     width = p.shape[1]
     if width == 0:
         return np.full(p.shape, np.nan)
-    m = width - np.isnan(p).sum(axis=1)
-    # NaN sorts last, so the m non-missing p-values of a row lead it in ascending order.
-    order = np.argsort(p, axis=1, kind="stable")
-    row = np.arange(p.shape[0])[:, None]
-    ranked = p[row, order] * m[:, None] / np.arange(1, width + 1)
-    # Running minimum from the largest rank down; fmin passes over the trailing NaNs.
-    adjusted = np.minimum(np.fmin.accumulate(ranked[:, ::-1], axis=1)[:, ::-1], 1.0)
     out = np.empty(p.shape)
-    out[row, order] = adjusted
+    # Rows in groups of about ROWS_ELEMENTS values: the sort's work arrays stay bounded for a
+    # fleet of many series, and many short rows (one per small part) still go at once.
+    step = max(1, ROWS_ELEMENTS // width)
+    for lo in range(0, p.shape[0], step):
+        part = p[lo : lo + step]
+        m = width - np.isnan(part).sum(axis=1)
+        # NaN sorts last, so the m non-missing p-values of a row lead it in ascending order.
+        order = np.argsort(part, axis=1, kind="stable")
+        row = np.arange(part.shape[0])[:, None]
+        ranked = part[row, order] * m[:, None] / np.arange(1, width + 1)
+        # Running minimum from the largest rank down; fmin passes over the trailing NaNs.
+        adjusted = np.minimum(np.fmin.accumulate(ranked[:, ::-1], axis=1)[:, ::-1], 1.0)
+        out[lo : lo + step][row, order] = adjusted
     return out

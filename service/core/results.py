@@ -137,11 +137,42 @@ def concat_results(parts: Sequence[CheckResult]) -> CheckResult:
     first = parts[0]
     if len(parts) == 1:
         return first
+    return _concat(parts)
 
-    def joined(arrays: list[np.ndarray]) -> np.ndarray:
-        out = np.concatenate(arrays)
-        out.flags.writeable = False
-        return out
+
+def _constant(arrays: list[np.ndarray]) -> bool:
+    """Every entry of every array is the first entry of the first, bit for bit (same dtype)."""
+    head = arrays[0]
+    if head.size == 0 or any(a.dtype != head.dtype for a in arrays):
+        return False
+    if head.dtype.kind == "O":
+        value = head[0]
+        return all(
+            all(type(x) is type(value) and (x is value or x == value) for x in a.tolist())
+            for a in arrays
+        )
+    if head.dtype.kind in "fiub" and head.dtype.itemsize in (1, 8):
+        as_bits = np.uint8 if head.dtype.itemsize == 1 else np.uint64
+        value = head[:1].view(as_bits)[0]
+        return all(bool((a.view(as_bits) == value).all()) for a in arrays)
+    return False
+
+
+def _joined(arrays: list[np.ndarray]) -> np.ndarray:
+    """The arrays end to end, read-only; arrays holding one value throughout give a broadcast
+    view of it (no memory per series: a fleet of a million series whose holdout checks all
+    skipped holds their columns as one value each)."""
+    total = sum(a.shape[0] for a in arrays)
+    if _constant(arrays):
+        return np.broadcast_to(arrays[0][:1], (total,))
+    out = np.concatenate(arrays)
+    out.flags.writeable = False
+    return out
+
+
+def _concat(parts: Sequence[CheckResult]) -> CheckResult:
+    first = parts[0]
+    joined = _joined
 
     out = object.__new__(CheckResult)
     for name, value in (
