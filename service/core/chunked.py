@@ -26,7 +26,7 @@ from __future__ import annotations
 
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator, Mapping
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, fields, replace
 from typing import Any, Protocol
 
 import numpy as np
@@ -37,7 +37,7 @@ from .fleet_parts import Accumulator, FleetPart
 from .gate import Assessment, WeightsNotUsed, _decide_parts, _plan, _weights
 from .policy import Policy
 from .registry import all_checks
-from .results import CheckResult, concat_results
+from .results import CheckResult, compact_array, compact_result, concat_results, join_arrays
 from .runner import BatchChecks, run_checks
 from .types import InputError
 
@@ -121,8 +121,8 @@ def _describe(shape: tuple[object, ...]) -> str:
     text = f"{width} periods, season length {season}, {params} model parameters"
     if hold is None:
         return text + ", no holdout"
-    steps, bounds, _ = hold  # type: ignore[misc]
-    return text + f", a {steps}-step holdout" + (" with intervals" if bounds else "")
+    assert isinstance(hold, tuple)
+    return text + f", a {hold[0]}-step holdout" + (" with intervals" if hold[1] else "")
 
 
 def _parts(
@@ -231,8 +231,19 @@ def assess_chunks(
             acc = fleet.setdefault(key, Accumulator())
             for block in blocks:
                 acc.add(block)
-        # The observations stay behind; the part's results are all that is kept.
-        collected.append(result)
+        # The observations stay behind; the part's results are all that is kept, each column
+        # of one value throughout held once.
+        collected.append(
+            replace(
+                result,
+                checks={k: compact_result(r) for k, r in result.checks.items()},
+                residuals={k: compact_array(v) for k, v in result.residuals.items()},
+                given_weights=compact_array(result.given_weights),
+                weights_given=compact_array(result.weights_given),
+                burn_in=compact_array(result.burn_in),
+                fleet={},
+            )
+        )
         if progress is not None:
             progress(start + len(result.ids), total)
 
@@ -253,19 +264,13 @@ def assess_chunks(
     return _decide_parts(checks, [checks.batch], policy, cps_all, parts).assessments[0]
 
 
-def _joined(arrays: list[np.ndarray]) -> np.ndarray:
-    out = arrays[0] if len(arrays) == 1 else np.concatenate(arrays)
-    out.flags.writeable = False
-    return out
-
-
 def _summary_checks(parts: list[PartResult], template: SeriesBatch) -> BatchChecks:
     """The fleet's checks from its parts' results: every series' check results, and a batch
     and residuals holding the per-series values and no observations (zero periods)."""
     n = sum(len(p.ids) for p in parts)
     names = list(parts[0].checks)
     checks = {name: concat_results([p.checks[name] for p in parts]) for name in names}
-    vectors = {name: _joined([p.residuals[name] for p in parts]) for name in _RESIDUAL_VECTORS}
+    vectors = {name: join_arrays([p.residuals[name] for p in parts]) for name in _RESIDUAL_VECTORS}
     empty = np.zeros((n, 0))
     empty.flags.writeable = False
     no_obs = np.zeros((n, 0), dtype=bool)
@@ -277,18 +282,18 @@ def _summary_checks(parts: list[PartResult], template: SeriesBatch) -> BatchChec
         ids=tuple(i for p in parts for i in p.ids),
         actuals=empty,
         fitted=empty,
-        weights=_joined([p.given_weights for p in parts]),
+        weights=join_arrays([p.given_weights for p in parts]),
         season_length=template.season_length,
         model_params=template.model_params,
         holdout=holdout,
         lengths=vectors["lengths"],
-        burn_in=_joined([p.burn_in for p in parts]),
-        weights_given=_joined([p.weights_given for p in parts]),
+        burn_in=join_arrays([p.burn_in for p in parts]),
+        weights_given=join_arrays([p.weights_given for p in parts]),
     )
     matrices = {
         f.name: (no_obs if f.name == "observed" else empty)
         for f in fields(Residuals)
         if f.name not in _RESIDUAL_VECTORS
     }
-    residuals = Residuals(**vectors, **matrices)
+    residuals = Residuals(**vectors, **matrices)  # type: ignore[arg-type]
     return BatchChecks(batch=batch, residuals=residuals, checks=checks)

@@ -366,12 +366,12 @@ def fleet_bias_from_parts(
 
 
 def _result(
-    theta: FloatVector,
-    se: FloatVector,
-    b: IntVector,
-    n_periods: IntVector,
-    n_used: IntVector,
-    naive_var: FloatVector,
+    theta: np.ndarray,
+    se: np.ndarray,
+    b: np.ndarray,
+    n_periods: np.ndarray,
+    n_used: np.ndarray,
+    naive_var: np.ndarray,
     scale: float,
     ci_level: float,
     min_obs: int,

@@ -27,6 +27,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .results import compact_array, join_arrays
+
 BLOCK = 1024
 """Series per block of a fleet-level test's sums (a chunk of a chunked assessment holds a
 whole number of blocks, except the last)."""
@@ -90,7 +92,7 @@ class Accumulator:
 
     def add(self, part: FleetPart) -> None:
         for key, values in part.rows.items():
-            self._rows.setdefault(key, []).append(values)
+            self._rows.setdefault(key, []).append(compact_array(values))
         for key, values in part.sums.items():
             have = self._sums.get(key)
             self._sums[key] = values if have is None else have + values
@@ -103,7 +105,7 @@ class Accumulator:
 
     def result(self) -> FleetPart:
         return FleetPart(
-            rows={k: v[0] if len(v) == 1 else np.concatenate(v) for k, v in self._rows.items()},
+            rows={k: join_arrays(v) for k, v in self._rows.items()},
             sums=dict(self._sums),
             scaled=dict(self._scaled),
             lows=dict(self._lows),

@@ -164,10 +164,50 @@ def _joined(arrays: list[np.ndarray]) -> np.ndarray:
     skipped holds their columns as one value each)."""
     total = sum(a.shape[0] for a in arrays)
     if _constant(arrays):
-        return np.broadcast_to(arrays[0][:1], (total,))
+        return np.broadcast_to(arrays[0][:1].copy(), (total,))
     out = np.concatenate(arrays)
     out.flags.writeable = False
     return out
+
+
+def compact_array(values: np.ndarray) -> np.ndarray:
+    """``values`` itself, or a read-only broadcast view of its one value when every entry is
+    that value (bit for bit): the same numbers in no memory per series. A view of a larger
+    array is copied, so that what is kept does not keep the larger array alive."""
+    if values.ndim != 1 or values.strides == (0,):
+        return values
+    if _constant([values]):
+        return np.broadcast_to(values[:1].copy(), values.shape)
+    base = values.base
+    if base is not None and getattr(base, "nbytes", 0) > values.nbytes:
+        values = values.copy()
+        values.flags.writeable = False
+    return values
+
+
+def compact_result(result: CheckResult) -> CheckResult:
+    """The same result with every array of one value throughout held as a broadcast view
+    (what a chunked assessment keeps of each part: a check that skipped every series of a
+    fleet costs a few numbers, not a column per series)."""
+    out = object.__new__(CheckResult)
+    for name, value in (
+        ("name", result.name),
+        ("kind", result.kind),
+        ("statistic", compact_array(result.statistic)),
+        ("p_value", compact_array(result.p_value)),
+        ("details", {k: compact_array(v) for k, v in result.details.items()}),
+        ("skip_reason", compact_array(result.skip_reason)),
+        ("null_hypothesis", result.null_hypothesis),
+        ("detail_keys", result.detail_keys),
+        ("_skipped", compact_array(result.skipped)),
+    ):
+        object.__setattr__(out, name, value)
+    return out
+
+
+def join_arrays(arrays: Sequence[np.ndarray]) -> np.ndarray:
+    """The arrays end to end, read-only (a broadcast view when they hold one value)."""
+    return _joined(list(arrays))
 
 
 def _concat(parts: Sequence[CheckResult]) -> CheckResult:

@@ -96,6 +96,7 @@ class ParquetChunks:
         self._batch_rows = batch_rows
         self._columns = self._open_columns()
         self._shape = self._scan(max_series_length)
+        _release()
 
     @property
     def n_series(self) -> int:
@@ -342,7 +343,10 @@ class ParquetChunks:
                     break
                 rows = _take(pending, need)
                 held -= need
-                yield self._chunk(done, stop, rows)
+                chunk = self._chunk(done, stop, rows)
+                del rows
+                _release()
+                yield chunk
                 done = stop
         if done < n:
             raise RequestInvalid([{"loc": "body", "message": "the file changed while it was read"}])
@@ -402,6 +406,14 @@ class ParquetChunks:
 
 
 # ------------------------------------------------------------------------------ helpers
+
+
+def _release() -> None:
+    """Hand the memory pyarrow's pool keeps of freed record batches back to the system (it
+    would otherwise hold several record batches' worth for the rest of the process)."""
+    import pyarrow as pa
+
+    pa.default_memory_pool().release_unused()
 
 
 def _joined(parts: list[np.ndarray]) -> np.ndarray:
