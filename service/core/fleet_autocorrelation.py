@@ -102,28 +102,51 @@ def fleet_lag_part(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
     gamma0 = np.vecdot(zr, zr)
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = gamma0 / n
+        shift = s2 / n
+    obs_r = obs[rows]
+    length = int(lengths[0])
+    aligned = bool((lengths == length).all())  # the block's series end in one period
     for k in (np.flatnonzero(counts[:k_max]) + 1).tolist():
         if k >= width:
             continue
-        pairs = obs[rows, k:] & obs[rows, :-k] & tested[rows, k - 1][:, None]
-        prod = np.where(pairs, zr[:, k:] * zr[:, :-k], 0.0)
+        pairs = obs_r[:, k:] & obs_r[:, :-k] & tested[rows, k - 1][:, None]
+        prod = zr[:, k:] * zr[:, :-k]
+        every_pair = bool(pairs.all())  # no gap: nothing to clear
+        if not every_pair:
+            prod[~pairs] = 0.0
         norm = np.sqrt(np.vecdot(prod, prod))
         ok = norm > 0
         with np.errstate(invalid="ignore", divide="ignore"):
-            x = np.where(pairs & ok[:, None], (prod + (s2 / n)[:, None]) / norm[:, None], 0.0)
+            x = prod + shift[:, None]
+            x /= norm[:, None]
+            if not (every_pair and ok.all()):
+                x[~(pairs & ok[:, None])] = 0.0
             acf = np.where(ok, prod.sum(axis=1) / gamma0, 0.0)
         members = int(ok.sum())
         if members == 0:
             continue
         sums[f"m{k}"] = np.array([members], dtype=np.int64)
         sums[f"acf{k}"] = np.array([acf[ok].sum()])
-        r_i, c_i = np.nonzero(x)
-        if r_i.size == 0:
-            continue
-        q = lengths[r_i] - 1 - (c_i + k)
-        sums[f"h{k}"] = np.bincount(q, weights=x[r_i, c_i], minlength=width)[:width]
-        lows[f"q{k}"] = int(q.min())
-        highs[f"q{k}"] = int(q.max())
+        h = np.zeros(width)
+        if aligned:
+            # Column c of x is period c + k of every series: q = length - 1 - k - c.
+            used = np.flatnonzero(x.any(axis=0))
+            if used.size == 0:
+                continue
+            top = length - 1 - k
+            columns = x[:, : top + 1].sum(axis=0)
+            h[: top + 1] = columns[::-1]
+            lo, hi = top - int(used[-1]), top - int(used[0])
+        else:
+            r_i, c_i = np.nonzero(x)
+            if r_i.size == 0:
+                continue
+            q = lengths[r_i] - 1 - (c_i + k)
+            h += np.bincount(q, weights=x[r_i, c_i], minlength=width)[:width]
+            lo, hi = int(q.min()), int(q.max())
+        sums[f"h{k}"] = h
+        lows[f"q{k}"] = lo
+        highs[f"q{k}"] = hi
     return FleetPart(sums=sums, lows=lows, highs=highs)
 
 

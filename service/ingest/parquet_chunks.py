@@ -210,7 +210,7 @@ class ParquetChunks:
             empty = np.asarray(pc.fill_null(pc.equal(sid, ""), True))
             for r in rows[empty][:8]:
                 errs.add(f"row[{r}].series_id", "must not be empty")
-            values = sid.to_numpy(zero_copy_only=False)
+            first_id = sid[0].as_py() if n else None
             part = _part(cols.get("part"), n)
             bad_part = part < 0
             for r, text in zip(
@@ -235,12 +235,14 @@ class ParquetChunks:
             # Runs of one id: a new series wherever the id changes.
             change = np.ones(n, dtype=bool)
             if n > 1:
-                change[1:] = values[1:] != values[:-1]
-            if n and last_id is not None and values[0] == last_id:
+                differs = pc.not_equal(sid.slice(1), sid.slice(0, n - 1))
+                change[1:] = np.asarray(pc.fill_null(differs, True))
+            if n and last_id is not None and first_id == last_id:
                 change[0] = False
             starts = np.flatnonzero(change)
-            for k in starts.tolist():
-                s = values[k]
+            # One Python string per series, not per row.
+            run_ids = sid.take(pa.array(starts)).to_pylist() if starts.size else []
+            for k, s in zip(starts.tolist(), run_ids, strict=True):
                 if s is None or s == "":
                     continue
                 if s in seen:
@@ -259,7 +261,7 @@ class ParquetChunks:
                 ids.append(s)
             if "timestamp" in cols:
                 last_stamp = _check_stamps(
-                    cols["timestamp"], values, holdout, change, rows, last_stamp, errs
+                    cols["timestamp"], n, holdout, change, rows, last_stamp, errs
                 )
             # Per run: train rows, holdout rows, bounds given, one bound without the other.
             if n:
@@ -285,7 +287,7 @@ class ParquetChunks:
                         target[-1] = target[-1].copy()
                         target[-1][-1] += more
                     target.append(np.asarray(run, dtype=np.int64))
-                last_id = values[-1]
+                last_id = sid[n - 1].as_py()
             if errs.full:
                 break
         errs.check()
@@ -480,7 +482,7 @@ def _check_numbers(
 
 def _check_stamps(
     column: Any,
-    ids: np.ndarray,
+    n: int,
     holdout: np.ndarray,
     change: np.ndarray,
     rows: np.ndarray,
@@ -494,8 +496,8 @@ def _check_stamps(
     import pyarrow.compute as pc
 
     if pa.types.is_null(column.type):
-        stamps = np.full(len(ids), np.iinfo(np.int64).min)
-        null = np.ones(len(ids), dtype=bool)
+        stamps = np.full(n, np.iinfo(np.int64).min)
+        null = np.ones(n, dtype=bool)
     else:
         if pa.types.is_string(column.type) or pa.types.is_large_string(column.type):
             try:
