@@ -126,7 +126,9 @@ class ParquetChunks:
         if hasattr(self._source, "seek"):
             self._source.seek(0)
         try:
-            return pq.ParquetFile(self._source)
+            # Without pre-buffering: pyarrow would otherwise keep every row group's buffered
+            # bytes until the reader is closed, memory that grows with the file.
+            return pq.ParquetFile(self._source, pre_buffer=False)
         except Exception as exc:  # pyarrow raises its own error types for a bad file
             raise RequestUnparseable(
                 [{"loc": "body", "message": f"not a readable Parquet file: {exc}"}]
