@@ -26,7 +26,7 @@ from __future__ import annotations
 
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator, Mapping
-from dataclasses import dataclass, fields, replace
+from dataclasses import dataclass, fields
 from typing import Any, Protocol
 
 import numpy as np
@@ -37,7 +37,7 @@ from .fleet_parts import Accumulator, FleetPart
 from .gate import Assessment, WeightsNotUsed, _decide_parts, _plan, _weights
 from .policy import Policy
 from .registry import all_checks
-from .results import CheckResult, compact_array, compact_result, concat_results, join_arrays
+from .results import CheckResult, is_constant
 from .runner import BatchChecks, run_checks
 from .types import InputError
 
@@ -78,7 +78,7 @@ class PartResult:
     and each fleet-level test's parts, one per block of :data:`BLOCK` series, in order."""
 
     ids: tuple[str, ...]
-    checks: Mapping[str, CheckResult]
+    checks: dict[str, CheckResult]
     residuals: Mapping[str, np.ndarray]
     given_weights: np.ndarray
     weights_given: np.ndarray
@@ -220,7 +220,7 @@ def assess_chunks(
     if total is None:
         total = getattr(chunks, "n_series", None)
     cps_all = _plan(policy)[0]
-    collected: list[PartResult] = []
+    store = _Store(total)
     fleet: dict[str, Accumulator] = {}
     in_flight: deque[tuple[int, _Future]] = deque()
     template: SeriesBatch | None = None
@@ -231,19 +231,9 @@ def assess_chunks(
             acc = fleet.setdefault(key, Accumulator())
             for block in blocks:
                 acc.add(block)
-        # The observations stay behind; the part's results are all that is kept, each column
-        # of one value throughout held once.
-        collected.append(
-            replace(
-                result,
-                checks={k: compact_result(r) for k, r in result.checks.items()},
-                residuals={k: compact_array(v) for k, v in result.residuals.items()},
-                given_weights=compact_array(result.given_weights),
-                weights_given=compact_array(result.weights_given),
-                burn_in=compact_array(result.burn_in),
-                fleet={},
-            )
-        )
+        # The observations stay behind; the part's results are all that is kept, written into
+        # the fleet's columns (a column of one value throughout held once).
+        store.add(result)
         if progress is not None:
             progress(start + len(result.ids), total)
 
@@ -258,42 +248,138 @@ def assess_chunks(
         take(*in_flight.popleft())
     if template is None:
         raise InputError("chunks", "no series: the chunks hold none")
-    checks = _summary_checks(collected, template)
-    collected.clear()
+    checks = store.checks(template)
     parts = {key: acc.result() for key, acc in fleet.items()}
     return _decide_parts(checks, [checks.batch], policy, cps_all, parts).assessments[0]
 
 
-def _summary_checks(parts: list[PartResult], template: SeriesBatch) -> BatchChecks:
-    """The fleet's checks from its parts' results: every series' check results, and a batch
-    and residuals holding the per-series values and no observations (zero periods)."""
-    n = sum(len(p.ids) for p in parts)
-    names = list(parts[0].checks)
-    checks = {name: concat_results([p.checks[name] for p in parts]) for name in names}
-    vectors = {name: join_arrays([p.residuals[name] for p in parts]) for name in _RESIDUAL_VECTORS}
-    empty = np.zeros((n, 0))
-    empty.flags.writeable = False
-    no_obs = np.zeros((n, 0), dtype=bool)
-    no_obs.flags.writeable = False
-    holdout = None
-    if template.holdout is not None:
-        holdout = Holdout(actuals=empty, forecasts=empty)
-    batch = SeriesBatch(
-        ids=tuple(i for p in parts for i in p.ids),
-        actuals=empty,
-        fitted=empty,
-        weights=join_arrays([p.given_weights for p in parts]),
-        season_length=template.season_length,
-        model_params=template.model_params,
-        holdout=holdout,
-        lengths=vectors["lengths"],
-        burn_in=join_arrays([p.burn_in for p in parts]),
-        weights_given=join_arrays([p.weights_given for p in parts]),
-    )
-    matrices = {
-        f.name: (no_obs if f.name == "observed" else empty)
-        for f in fields(Residuals)
-        if f.name not in _RESIDUAL_VECTORS
-    }
-    residuals = Residuals(**vectors, **matrices)  # type: ignore[arg-type]
-    return BatchChecks(batch=batch, residuals=residuals, checks=checks)
+class _Column:
+    """One per-series column of the fleet, filled part by part: a single value while every
+    part holds only that value (bit for bit), else an array, sized to the fleet when its size is
+    known (else grown by doubling and trimmed at the end)."""
+
+    __slots__ = ("full", "size", "value")
+
+    def __init__(self) -> None:
+        self.value: np.ndarray | None = None
+        self.full: np.ndarray | None = None
+        self.size = 0
+
+    def add(self, values: np.ndarray, capacity: int | None) -> None:
+        m = values.shape[0]
+        if m == 0:
+            return
+        if self.full is None:
+            if self.value is None and is_constant([values]):
+                self.value = values[:1].copy()
+                self.size = m
+                return
+            if self.value is not None and is_constant([self.value, values]):
+                self.size += m
+                return
+            room = max(capacity or 0, 2 * (self.size + m))
+            dtype = values.dtype if self.value is None else np.result_type(self.value, values)
+            self.full = np.empty(room, dtype=dtype)
+            if self.value is not None:
+                self.full[: self.size] = self.value[0]
+        if self.full.shape[0] < self.size + m:
+            grown = np.empty(2 * (self.size + m), dtype=self.full.dtype)
+            grown[: self.size] = self.full[: self.size]
+            self.full = grown
+        if values.dtype != self.full.dtype:
+            self.full = self.full.astype(np.result_type(self.full, values))
+        self.full[self.size : self.size + m] = values
+        self.size += m
+
+    def result(self) -> np.ndarray:
+        if self.full is None:
+            assert self.value is not None
+            return np.broadcast_to(self.value, (self.size,))
+        out = self.full if self.full.shape[0] == self.size else self.full[: self.size].copy()
+        self.full = None
+        out.flags.writeable = False
+        return out
+
+
+class _Store:
+    """The per-series results of a chunked assessment, column by column (see :class:`_Column`).
+
+    ``total``, when known, sizes each column once."""
+
+    def __init__(self, total: int | None) -> None:
+        self.total = total
+        self.ids: list[str] = []
+        self.columns: dict[str, _Column] = {}
+        self.meta: dict[str, CheckResult] = {}
+
+    def _put(self, key: str, values: np.ndarray) -> None:
+        self.columns.setdefault(key, _Column()).add(values, self.total)
+
+    def add(self, part: PartResult) -> None:
+        self.ids.extend(part.ids)
+        for name, r in part.checks.items():
+            self.meta.setdefault(name, r)
+            self._put(f"{name}:statistic", r.statistic)
+            self._put(f"{name}:p_value", r.p_value)
+            self._put(f"{name}:skip_reason", r.skip_reason)
+            self._put(f"{name}:skipped", r.skipped)
+            for key, values in r.details.items():
+                self._put(f"{name}:d:{key}", values)
+        for key, values in part.residuals.items():
+            self._put(f"residuals:{key}", values)
+        self._put("given_weights", part.given_weights)
+        self._put("weights_given", part.weights_given)
+        self._put("burn_in", part.burn_in)
+
+    def take(self, key: str) -> np.ndarray:
+        return self.columns.pop(key).result()
+
+    def checks(self, template: SeriesBatch) -> BatchChecks:
+        """The fleet's checks: every series' check results, and a batch and residuals holding
+        the per-series values and no observations (zero periods)."""
+        n = len(self.ids)
+        checks = {}
+        for name, first in self.meta.items():
+            out = object.__new__(CheckResult)
+            for field_name, value in (
+                ("name", first.name),
+                ("kind", first.kind),
+                ("statistic", self.take(f"{name}:statistic")),
+                ("p_value", self.take(f"{name}:p_value")),
+                ("details", {k: self.take(f"{name}:d:{k}") for k in first.details}),
+                ("skip_reason", self.take(f"{name}:skip_reason")),
+                ("null_hypothesis", first.null_hypothesis),
+                ("detail_keys", first.detail_keys),
+                ("_skipped", self.take(f"{name}:skipped")),
+            ):
+                object.__setattr__(out, field_name, value)
+            checks[name] = out
+        self.meta.clear()
+        vectors = {name: self.take(f"residuals:{name}") for name in _RESIDUAL_VECTORS}
+        empty = np.zeros((n, 0))
+        empty.flags.writeable = False
+        no_obs = np.zeros((n, 0), dtype=bool)
+        no_obs.flags.writeable = False
+        holdout = None
+        if template.holdout is not None:
+            holdout = Holdout(actuals=empty, forecasts=empty)
+        batch = SeriesBatch(
+            ids=tuple(self.ids),
+            actuals=empty,
+            fitted=empty,
+            weights=self.take("given_weights"),
+            season_length=template.season_length,
+            model_params=template.model_params,
+            holdout=holdout,
+            lengths=vectors["lengths"],
+            burn_in=self.take("burn_in"),
+            weights_given=self.take("weights_given"),
+        )
+        self.ids = []
+        matrices = {
+            f.name: (no_obs if f.name == "observed" else empty)
+            for f in fields(Residuals)
+            if f.name not in _RESIDUAL_VECTORS
+        }
+        residuals = Residuals(**vectors, **matrices)  # type: ignore[arg-type]
+        return BatchChecks(batch=batch, residuals=residuals, checks=checks)

@@ -170,11 +170,13 @@ def _codes(
         p_adj = p_in  # one p-value adjusted on its own is itself
     else:
         p_adj = benjamini_hochberg_rows(p_in.reshape(-1, part_size)).reshape(shape)
+    del p_in  # (check, series) arrays are large for a big fleet: each freed when done
     adjust = policy.fleet.adjustment == "bh"
     use_adj = np.array(
         [adjust and t and cp.adjust for cp, t in zip(cps, is_test, strict=True)], dtype=bool
     )[:, None]
     v = np.where(use_adj, p_adj, values)
+    del values
     k_fail, k_warn = _family_sizes(names, cps, is_test, skipped, policy, part_size)
     # Per (check, part): fail below, fail above, warn below, warn above (a test's p-value has
     # only the "below" bounds, divided by its family's size); a bound that does not apply is

@@ -131,16 +131,7 @@ class CheckResult:
         return out
 
 
-def concat_results(parts: Sequence[CheckResult]) -> CheckResult:
-    """One check's results over consecutive parts of a fleet as one (rows in order): the
-    parts' arrays concatenated, read-only, checked once already by each part."""
-    first = parts[0]
-    if len(parts) == 1:
-        return first
-    return _concat(parts)
-
-
-def _constant(arrays: list[np.ndarray]) -> bool:
+def is_constant(arrays: list[np.ndarray]) -> bool:
     """Every entry of every array is the first entry of the first, bit for bit (same dtype)."""
     head = arrays[0]
     if head.size == 0 or any(a.dtype != head.dtype for a in arrays):
@@ -163,7 +154,7 @@ def _joined(arrays: list[np.ndarray]) -> np.ndarray:
     view of it (no memory per series: a fleet of a million series whose holdout checks all
     skipped holds their columns as one value each)."""
     total = sum(a.shape[0] for a in arrays)
-    if _constant(arrays):
+    if is_constant(arrays):
         return np.broadcast_to(arrays[0][:1].copy(), (total,))
     out = np.concatenate(arrays)
     out.flags.writeable = False
@@ -176,7 +167,7 @@ def compact_array(values: np.ndarray) -> np.ndarray:
     array is copied, so that what is kept does not keep the larger array alive."""
     if values.ndim != 1 or values.strides == (0,):
         return values
-    if _constant([values]):
+    if is_constant([values]):
         return np.broadcast_to(values[:1].copy(), values.shape)
     base = values.base
     if base is not None and getattr(base, "nbytes", 0) > values.nbytes:
@@ -185,49 +176,9 @@ def compact_array(values: np.ndarray) -> np.ndarray:
     return values
 
 
-def compact_result(result: CheckResult) -> CheckResult:
-    """The same result with every array of one value throughout held as a broadcast view
-    (what a chunked assessment keeps of each part: a check that skipped every series of a
-    fleet costs a few numbers, not a column per series)."""
-    out = object.__new__(CheckResult)
-    for name, value in (
-        ("name", result.name),
-        ("kind", result.kind),
-        ("statistic", compact_array(result.statistic)),
-        ("p_value", compact_array(result.p_value)),
-        ("details", {k: compact_array(v) for k, v in result.details.items()}),
-        ("skip_reason", compact_array(result.skip_reason)),
-        ("null_hypothesis", result.null_hypothesis),
-        ("detail_keys", result.detail_keys),
-        ("_skipped", compact_array(result.skipped)),
-    ):
-        object.__setattr__(out, name, value)
-    return out
-
-
 def join_arrays(arrays: Sequence[np.ndarray]) -> np.ndarray:
     """The arrays end to end, read-only (a broadcast view when they hold one value)."""
     return _joined(list(arrays))
-
-
-def _concat(parts: Sequence[CheckResult]) -> CheckResult:
-    first = parts[0]
-    joined = _joined
-
-    out = object.__new__(CheckResult)
-    for name, value in (
-        ("name", first.name),
-        ("kind", first.kind),
-        ("statistic", joined([p.statistic for p in parts])),
-        ("p_value", joined([p.p_value for p in parts])),
-        ("details", {k: joined([p.details[k] for p in parts]) for k in first.details}),
-        ("skip_reason", joined([p.skip_reason for p in parts])),
-        ("null_hypothesis", first.null_hypothesis),
-        ("detail_keys", first.detail_keys),
-        ("_skipped", joined([p.skipped for p in parts])),
-    ):
-        object.__setattr__(out, name, value)
-    return out
 
 
 def skip_reasons_and_ran(
