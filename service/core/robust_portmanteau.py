@@ -236,12 +236,15 @@ def _products(
         if not tested[:, a].all():
             prod[a] *= tested[:, a][:, None]
     np.multiply(prod, prod, out=sq)
-    # suffix[b, a] = S_a(lag_b) = sum_{t >= lag_b} P_a(t)^2, each tail summed term by term
-    # from the last period down (a cumulative sum, in order): a row's tails then depend on its
-    # own products only, not on the other lags tested in the batch nor on the rows beside it
-    # (a fleet assessed in chunks gets the whole's numbers).
-    tails = np.cumsum(sq[:, :, ::-1], axis=2)
-    suffix = tails[:, :, padded - 1 - lag_values].transpose(2, 0, 1)
+    # suffix[b, a] = S_a(lag_b) = sum_{t >= lag_b} P_a(t)^2: the whole sum of each lag's
+    # squares less its first lag_b terms. Both sums run over the row alone (its whole padded
+    # length, or its first lag_b periods), so a row's tails depend on its own products only,
+    # not on the other lags tested in the batch nor on the rows beside it (a fleet assessed in
+    # chunks gets the whole's numbers).
+    totals = sq.sum(axis=2)
+    suffix = np.empty((n_k, n_k, c))
+    for b, lag in enumerate(lag_values.tolist()):
+        suffix[b] = totals - sq[:, :, :lag].sum(axis=2)
     lag_index = np.arange(n_k)
     total = suffix[lag_index, lag_index]  # S_a(lag_a) = S_a(0) = sum_t P_a(t)^2, (K, c)
     tested = tested & (total > 0).T  # a lag without an observed pair tests nothing
