@@ -164,7 +164,9 @@ class AssessmentSummary:
             n_series=int(row.get("n_series") or 0),
             n_failed=int(row.get("n_failed") or 0),
             n_warned=int(row.get("n_warned") or 0),
-            policy=PolicyRef(name=str(policy.get("name", "")), version=policy.get("version")),
+            policy=PolicyRef(
+                name=str(policy.get("name", "")), version=int(policy.get("version") or 0)
+            ),
         )
 
 

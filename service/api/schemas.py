@@ -11,7 +11,7 @@ import dataclasses
 import typing
 from collections.abc import Mapping
 from datetime import datetime
-from typing import Any, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, create_model
 
@@ -116,7 +116,7 @@ AssessmentBody = _body_model(
 # Where the API says more than the record's type: the server always dates its answers.
 _API_TYPES: dict[tuple[type, str], Any] = {(results.AssessmentDocument, "created_at"): datetime}
 _MODELS: dict[type, type[BaseModel]] = {}
-_DESCRIPTIONS = {
+_DESCRIPTIONS: dict[type, str] = {
     results.AssessmentDocument: "The full result of an assessment (``id`` is null when computed "
     "with ``store=false``).",
 }
@@ -126,15 +126,15 @@ def _annotation(hint: Any, values: tuple[str, ...] | None = None) -> Any:
     """The pydantic type of a record field's type."""
     base, nullable = results.optional(hint)
     if base is results.Status:
-        out: Any = Literal[tuple(values or [s.value for s in results.Status])]  # type: ignore[valid-type]
+        out: Any = Literal[tuple(values or [s.value for s in results.Status])]
     elif base is results.SeriesTable:
-        out = list[_record_model(results.SeriesResult)]  # type: ignore[valid-type]
+        out = list.__class_getitem__(_record_model(results.SeriesResult))
     elif isinstance(base, type) and base in _RECORDS:
         out = _record_model(base)
     elif typing.get_origin(base) is tuple:
-        out = list[_annotation(typing.get_args(base)[0])]  # type: ignore[misc]
+        out = list.__class_getitem__(_annotation(typing.get_args(base)[0]))
     elif typing.get_origin(base) is Mapping:
-        out = dict[str, _annotation(typing.get_args(base)[1])]  # type: ignore[misc]
+        out = dict.__class_getitem__((str, _annotation(typing.get_args(base)[1])))
     else:
         out = base  # str, int, float, bool, Any
     return out | None if nullable else out
@@ -142,9 +142,8 @@ def _annotation(hint: Any, values: tuple[str, ...] | None = None) -> Any:
 
 def _flat_model(name: str, fields: dict[str, Any]) -> type[BaseModel]:
     """A model of number fields (a section or a fleet statistic), each required."""
-    return create_model(  # type: ignore[call-overload, no-any-return]
-        name, __config__=ConfigDict(extra="forbid"), **{k: (t, ...) for k, t in fields.items()}
-    )
+    required: dict[str, Any] = {k: (t, ...) for k, t in fields.items()}
+    return create_model(name, __config__=ConfigDict(extra="forbid"), **required)
 
 
 def _sections() -> dict[str, Any]:
@@ -187,7 +186,7 @@ def _record_model(cls: type) -> type[BaseModel]:
     if cls in _MODELS:
         return _MODELS[cls]
     fields: dict[str, Any] = {}
-    extra = "forbid"
+    extra: Literal["allow", "forbid"] = "forbid"
     for f in _inlined(cls):
         if not f.inline:
             hint = _API_TYPES.get((cls, f.name))
@@ -198,13 +197,13 @@ def _record_model(cls: type) -> type[BaseModel]:
             fields.update(_fleet_statistics())
         else:  # the document's further top-level fields
             extra = "allow"
-    _MODELS[cls] = model = create_model(  # type: ignore[call-overload]
+    _MODELS[cls] = model = create_model(
         cls.__name__,
         __config__=ConfigDict(extra=extra),
         __doc__=_DESCRIPTIONS.get(cls),
         **fields,
     )
-    return model  # type: ignore[no-any-return]
+    return model
 
 
 def _inlined(cls: type) -> list[results.JsonField]:
@@ -229,7 +228,14 @@ _RECORDS = (
     results.AssessmentDocument,
 )
 
-PolicyRef = _record_model(results.PolicyRef)
+if TYPE_CHECKING:  # the derived model, as a type the checker can read
+
+    class PolicyRef(BaseModel):
+        name: str
+        version: int
+
+else:
+    PolicyRef = _record_model(results.PolicyRef)
 AssessmentDocument = _record_model(results.AssessmentDocument)
 
 

@@ -95,7 +95,7 @@ def assess_offline(inp: AssessInput) -> AssessmentDocument:
 
     if inp.kind == "json":
         try:
-            request = ingest.parse_json_request(inp.body)
+            request = ingest.parse_json_request(inp.body if inp.body is not None else {})
         except ingest.RequestInvalid as exc:
             raise CliError(f"{inp.name}: invalid request: {errors_line(exc.errors)}") from None
         except InputError as exc:

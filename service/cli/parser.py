@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+from collections.abc import Callable
 from typing import NoReturn
 
 from .errors import Exit
@@ -17,7 +18,7 @@ class Parser(argparse.ArgumentParser):
         self.exit(Exit.USAGE, f"{self.prog}: error: {message} (see: {self.prog} --help)\n")
 
 
-def _int_at_least(low: int):
+def _int_at_least(low: int) -> Callable[[str], int]:
     def convert(text: str) -> int:
         try:
             value = int(text)

@@ -21,6 +21,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, fields
+from typing import Any, cast
 
 import numpy as np
 
@@ -91,14 +92,14 @@ def _check_row_lengths(name: str, arr: FloatMatrix, lengths: IntVector) -> None:
         )
 
 
-def _per_series(name: str, value: object, n: int) -> IntVector:
+def _per_series(name: str, value: int | Sequence[int] | IntVector | None, n: int) -> IntVector:
     """A non-negative integer for every series: one for all, or one each."""
     if value is None:
         return np.zeros(n, dtype=np.int64)
     if np.ndim(value) == 0:
         values = [value] * n
     else:
-        values = list(value)  # type: ignore[call-overload]
+        values = list(value)  # type: ignore[arg-type]
         if len(values) != n:
             raise InputError(name, f"has {len(values)} entries, expected {n}")
     for i, v in enumerate(values):
@@ -323,7 +324,7 @@ def make_batch(
             has_interval = (~np.isnan(lo) & ~np.isnan(up)).any(axis=1)
             if level is None:
                 lev = np.full(n, DEFAULT_LEVEL)
-            elif np.ndim(level) == 0:
+            elif np.ndim(cast(Any, level)) == 0:
                 lev = np.full(n, float(level))  # type: ignore[arg-type]
             else:
                 lev = np.array([np.nan if v is None else v for v in level], dtype=float)  # type: ignore[union-attr]
@@ -416,11 +417,14 @@ def stack_batches(batches: Sequence[SeriesBatch]) -> SeriesBatch:
         def rows(name: str) -> FloatMatrix | None:
             if getattr(first.holdout, name) is None:
                 return None
+            return stacked(name)
+
+        def stacked(name: str) -> FloatMatrix:
             return np.concatenate([getattr(p, name) for p in parts])
 
         holdout = Holdout(
-            actuals=rows("actuals"),
-            forecasts=rows("forecasts"),  # type: ignore[arg-type]
+            actuals=stacked("actuals"),
+            forecasts=stacked("forecasts"),
             lower=rows("lower"),
             upper=rows("upper"),
             level=rows("level"),

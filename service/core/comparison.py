@@ -20,7 +20,7 @@ from scipy.special import stdtr
 from .batch import SeriesBatch, nearly_constant
 from .holdout import BENCHMARKS, benchmark_forecasts
 from .path_variance import autocovariances, centred, ewc_long_run, truncated_long_run
-from .results import skip_reasons_and_ran
+from .results import NONE, skip_reasons_and_ran
 from .types import FloatMatrix, FloatVector, InputError, IntVector, ObjectVector
 
 LOSSES = ("squared", "absolute")
@@ -368,8 +368,8 @@ def compare_with_benchmarks(
     best = np.argmin(np.where(np.isnan(p_holm), np.inf, p_holm), axis=0)
     cols = np.arange(n)
     p_any = np.where(any_ran, p_holm[best, cols], np.nan)
-    worst = np.where(any_ran, np.array(names, dtype=object)[best], None)
-    reason = np.where(any_ran, None, tests.skip_reason[0])
+    worst = np.where(any_ran, np.array(names, dtype=object)[best], NONE)
+    reason = np.where(any_ran, NONE, tests.skip_reason[0])
     return BenchmarkComparison(
         benchmarks=tuple(names),
         tests=tests,

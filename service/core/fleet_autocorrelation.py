@@ -102,7 +102,9 @@ def fleet_lag_test(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
         b = ewc_bins(span)
         if span[0] < 3 or b[0] < 1:
             continue
-        lam = cosine_projections(align_left(h[None, :], np.array([first])), span, b)
+        lam = cosine_projections(
+            align_left(np.asarray(h, dtype=float)[None, :], np.array([first])), span, b
+        )
         omega = float(ewc_variance(lam, b)[0])
         theta = float(h.sum())
         se = np.sqrt(max(omega, 0.0) * span[0])

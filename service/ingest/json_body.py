@@ -287,14 +287,14 @@ def _train_values(
     at: str, s: Mapping[str, Any], errs: Errors, max_length: int | None
 ) -> tuple[list[Any], list[Any]]:
     """``actuals`` and ``fitted`` (empty where not an array): present, of one length."""
-    a, f = s.get("actuals"), s.get("fitted")
-    a_given, f_given = isinstance(a, list), isinstance(f, list)
+    a_raw, f_raw = s.get("actuals"), s.get("fitted")
+    a_given, f_given = isinstance(a_raw, list), isinstance(f_raw, list)
     if not a_given:
-        errs.add(f"{at}.actuals", _not_an_array(a))
+        errs.add(f"{at}.actuals", _not_an_array(a_raw))
     if not f_given:
-        errs.add(f"{at}.fitted", _not_an_array(f))
-    a = a if a_given else _EMPTY
-    f = f if f_given else _EMPTY
+        errs.add(f"{at}.fitted", _not_an_array(f_raw))
+    a: list[Any] = a_raw if isinstance(a_raw, list) else _EMPTY
+    f: list[Any] = f_raw if isinstance(f_raw, list) else _EMPTY
     if a_given and not a:
         errs.add(f"{at}.actuals", "must hold at least one value")
     if f_given and len(f) != len(a):

@@ -17,7 +17,14 @@ from typing import Any
 
 from sqlalchemy import Engine, Table, bindparam, insert, select
 
-from .models import AssessmentRow, IdempotencyKeyRow, PolicyRow, SeriesInputRow, SeriesResultRow
+from .models import (
+    AssessmentRow,
+    IdempotencyKeyRow,
+    PolicyRow,
+    SeriesInputRow,
+    SeriesResultRow,
+    table_of,
+)
 
 
 @dataclass(frozen=True)
@@ -65,12 +72,12 @@ class Statements:
 
     def __init__(self, engine: Engine) -> None:
         a, sr, si, k = (
-            AssessmentRow.__table__,
-            SeriesResultRow.__table__,
-            SeriesInputRow.__table__,
-            IdempotencyKeyRow.__table__,
+            table_of(AssessmentRow),
+            table_of(SeriesResultRow),
+            table_of(SeriesInputRow),
+            table_of(IdempotencyKeyRow),
         )
-        p = PolicyRow.__table__
+        p = table_of(PolicyRow)
         a_keys = [c.name for c in a.c if c.name != "seq"]
         self.insert_assessment = _compile(engine, insert(a).returning(a.c.seq), a, a_keys)
         self.insert_series_result = _compile(engine, insert(sr), sr, [c.name for c in sr.c])
@@ -83,7 +90,10 @@ class Statements:
             .limit(bindparam("one"))
         )
         self.latest_policy = _compile(engine, latest, p, ["name", "one"])
-        self.integrity_error = engine.dialect.dbapi.IntegrityError
+        dbapi = engine.dialect.dbapi
+        if dbapi is None:
+            raise RuntimeError(f"no DB-API module for the {engine.dialect.name} dialect")
+        self.integrity_error = dbapi.IntegrityError
 
 
 _CACHE: weakref.WeakKeyDictionary[Engine, Statements] = weakref.WeakKeyDictionary()

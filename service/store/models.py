@@ -7,6 +7,7 @@ per-series number arrays are packed little-endian float64 bytes (``NaN`` for mis
 from __future__ import annotations
 
 from datetime import datetime
+from typing import cast
 
 from sqlalchemy import (
     DateTime,
@@ -16,6 +17,7 @@ from sqlalchemy import (
     Integer,
     LargeBinary,
     String,
+    Table,
     Text,
     UniqueConstraint,
 )
@@ -24,6 +26,11 @@ from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
 class Base(DeclarativeBase):
     pass
+
+
+def table_of(row: type[Base]) -> Table:
+    """The Core table of a mapped row class (typed as a table, for insert/update/select)."""
+    return cast(Table, row.__table__)
 
 
 class AssessmentRow(Base):

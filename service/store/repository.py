@@ -28,6 +28,7 @@ from .models import (
     SeriesResultRow,
     ServerSecretRow,
     TokenRow,
+    table_of,
 )
 from .port import IdempotencyConflict
 from .records import (
@@ -85,13 +86,13 @@ __all__ = [
     "utcnow",
 ]
 
-A = AssessmentRow.__table__
-SR = SeriesResultRow.__table__
-SI = SeriesInputRow.__table__
-P = PolicyRow.__table__
-T = TokenRow.__table__
-K = IdempotencyKeyRow.__table__
-S = ServerSecretRow.__table__
+A = table_of(AssessmentRow)
+SR = table_of(SeriesResultRow)
+SI = table_of(SeriesInputRow)
+P = table_of(PolicyRow)
+T = table_of(TokenRow)
+K = table_of(IdempotencyKeyRow)
+S = table_of(ServerSecretRow)
 
 
 def _aware(value: datetime) -> datetime:
@@ -481,21 +482,22 @@ def create_token(
 ) -> tuple[StoredToken, str]:
     """Mint a token; returns its record and the secret (shown once, only its hash is kept)."""
     secret = TOKEN_PREFIX + secrets.token_urlsafe(32)
+    token_id, created_at = new_id(), utcnow()
     row = {
-        "id": new_id(),
+        "id": token_id,
         "token_hash": hash_token(secret),
         "scopes": " ".join(scopes),
         "label": label,
-        "created_at": utcnow(),
+        "created_at": created_at,
         "revoked_at": None,
     }
     with engine.begin() as conn:
         conn.execute(insert(T), row)
     return StoredToken(
-        id=row["id"],
+        id=token_id,
         scopes=tuple(scopes),
         label=label,
-        created_at=row["created_at"],
+        created_at=created_at,
         revoked_at=None,
     ), secret
 

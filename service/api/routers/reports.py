@@ -89,7 +89,7 @@ def link_secret(ctx: Context) -> str:
     server made on first use and keeps in its database, shared by every worker and restart."""
     configured = ctx.settings.link_secret
     if configured is not None:
-        secret = configured.get_secret_value()
+        secret: str | None = configured.get_secret_value()
     else:
         services = ctx.services
         secret = services.link_secret
@@ -101,7 +101,7 @@ def link_secret(ctx: Context) -> str:
                         name=LINK_SECRET_NAME, make=links.new_secret
                     )
                     services.link_secret = secret
-    if len(secret.encode()) < links.MIN_SECRET_LENGTH:
+    if secret is None or len(secret.encode()) < links.MIN_SECRET_LENGTH:
         raise ApiError(
             503,
             f"report links are not available: the link secret must be at least "
@@ -278,7 +278,7 @@ async def get_series_report(
         def page_of(sid: str | None) -> tuple[str, str] | None:
             return None if sid is None else (sid, f"{base}/series/{quote(sid, safe='')}{suffix}")
 
-        def draw() -> tuple:
+        def draw() -> tuple[Any, ...]:
             inputs = _inputs_of(ctx.store, assessment_id, series_id)
             if inputs is None:
                 raise ApiError(404, f"the inputs of series {series_id!r} were not stored")

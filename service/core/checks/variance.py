@@ -148,7 +148,7 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
             # A run of consecutive series is a view; otherwise gather the rows.
             block = squares[idx[0] : idx[-1] + 1] if contiguous else squares[idx]
             # Trim to the longest span in the block so short series cost little.
-            keep = ~np.isnan(block).all(axis=0)
+            keep = np.logical_or.reduce(~np.isnan(block), axis=0)
             first = int(np.argmax(keep)) if keep.any() else 0
             last = int(keep.size - np.argmax(keep[::-1])) if keep.any() else 0
             lm[idx], rows[idx], tss[idx] = _lm_one_order(block[:, first:last], int(order), buffer)
