@@ -652,8 +652,8 @@ def _results(d: _Decided) -> list[AssessmentResult]:
     float_arrays.append(d.weights)
     converted = _columns(float_arrays)
     weights = converted.pop()
-    for (name, key), values in zip(float_keys, converted, strict=True):
-        columns[name][key] = values
+    for (name, key), floats in zip(float_keys, converted, strict=True):
+        columns[name][key] = floats
     messages: dict[tuple[str, int], str] = dict(d.notes)
     verdicts: list[str] = []
     for g, a in enumerate(d.assessments):
@@ -679,19 +679,19 @@ def _results(d: _Decided) -> list[AssessmentResult]:
     # One set of columns over the stacked rows; each part's table is a run of its rows.
     columns_all = SeriesColumns(
         id=results.batch.ids,
-        verdict=verdicts,
-        n_obs=results.residuals.n_obs.tolist(),
-        weight=weights,
-        sections=sections,
+        verdict=tuple(verdicts),
+        n_obs=tuple(results.residuals.n_obs.tolist()),
+        weight=tuple(weights),
+        sections={k: None if v is None else _tuples(v) for k, v in sections.items()},
         checks=tuple(
             CheckColumns(
                 name=name,
-                status=col["status"],
-                statistic=col["statistic"],
-                p_value=col["p_value"],
-                p_adjusted=col["p_adjusted"],
-                details={k: col[f"d:{k}"] for k in results[name].details},
-                message=col["message"],
+                status=tuple(col["status"]),
+                statistic=tuple(col["statistic"]),
+                p_value=tuple(col["p_value"]),
+                p_adjusted=tuple(col["p_adjusted"]),
+                details=_tuples({k: col[f"d:{k}"] for k in results[name].details}),
+                message=tuple(col["message"]),
             )
             for name, col in columns.items()
         ),
@@ -719,6 +719,11 @@ def _results(d: _Decided) -> list[AssessmentResult]:
             )
         )
     return out
+
+
+def _tuples(columns: Mapping[str, list[Any]]) -> dict[str, tuple[Any, ...]]:
+    """Columns as the tuples the typed records hold."""
+    return {k: tuple(v) for k, v in columns.items()}
 
 
 def _section_columns(
