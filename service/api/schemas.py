@@ -56,7 +56,8 @@ _KINDS: dict[str, Any] = {
 
 def _field(spec: FieldSpec, nested: Mapping[str, type[BaseModel]]) -> tuple[Any, Any]:
     """(annotation, FieldInfo) of one request field."""
-    annotation = nested[spec.name] if spec.kind in ("series", "holdout") else _KINDS[spec.kind]
+    nests = ("series", "holdout", "baseline")
+    annotation = nested[spec.name] if spec.kind in nests else _KINDS[spec.kind]
     if spec.kind == "series":
         annotation = list[annotation]  # type: ignore[valid-type]
     options: dict[str, Any] = {
@@ -95,13 +96,27 @@ def _body_model(
     )
 
 
+class BaselineBody(BaseModel):
+    """The stored version of the same model the holdout is compared with."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    version: str = Field(
+        min_length=1,
+        max_length=200,
+        description="A stored version of the same model, or latest-pass: the newest other "
+        "version whose latest verdict passed.",
+        examples=["latest-pass", "2026.11.02"],
+    )
+
+
 HoldoutBody = _body_model("HoldoutBody", shape.HOLDOUT)
 SeriesBody = _body_model("SeriesBody", shape.SERIES, nested={"holdout": HoldoutBody})
 AssessmentBody = _body_model(
     "AssessmentBody",
     shape.ENVELOPE,
     "Body of ``POST /v1/assessments`` as JSON.",
-    nested={"series": SeriesBody},
+    nested={"series": SeriesBody, "baseline": BaselineBody},
 )
 
 

@@ -132,6 +132,18 @@ class Store(ABC):
         """The newest assessment of ``model`` (and ``version``), or ``None``."""
 
     @abstractmethod
+    def latest_passing_assessment(
+        self, *, model: str, exclude_version: str | None = None
+    ) -> AssessmentSummary | None:
+        """The newest assessment of ``model`` that is the latest of its version and passed,
+        leaving out ``exclude_version`` (a baseline's ``latest-pass``), or ``None``."""
+
+    @abstractmethod
+    def assessment_head(self, *, assessment_id: str) -> bytes | None:
+        """The stored result without its series (the JSON bytes of ``StoredAssessment.head``),
+        or ``None`` when there is no such id."""
+
+    @abstractmethod
     def series_inputs(self, *, assessment_id: str) -> list[SeriesInput] | None:
         """The stored input arrays of every series, in input order (``None``: no such id)."""
 

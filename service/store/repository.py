@@ -327,6 +327,34 @@ def latest_assessment(
     return found[0] if found else None
 
 
+def latest_passing_assessment(
+    engine: Engine, *, model: str, exclude_version: str | None = None
+) -> AssessmentSummary | None:
+    """The newest assessment of ``model`` that is the latest of its version and passed (a
+    version re-assessed since with another verdict does not count), leaving out
+    ``exclude_version``; ``None`` when there is none."""
+    newer = A.alias("newer")
+    later = (
+        select(newer.c.seq)
+        .where(newer.c.model == A.c.model, newer.c.version == A.c.version, newer.c.seq > A.c.seq)
+        .exists()
+    )
+    q = select(*_SUMMARY_COLUMNS).where(A.c.model == model, A.c.verdict == "pass", ~later)
+    if exclude_version is not None:
+        q = q.where(A.c.version != exclude_version)
+    q = q.order_by(A.c.seq.desc()).limit(1)
+    with engine.connect() as conn:
+        row = conn.execute(q).first()
+    return None if row is None else _summary(row)
+
+
+def assessment_head(engine: Engine, *, assessment_id: str) -> bytes | None:
+    """The stored result of an assessment without its series (JSON bytes), or ``None``."""
+    with engine.connect() as conn:
+        found = conn.execute(select(A.c.result).where(A.c.id == assessment_id)).scalar()
+    return None if found is None else found.encode()
+
+
 def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | None:
     """The stored input arrays of every series, in input order (``None``: no such id)."""
     with engine.connect() as conn:
