@@ -99,32 +99,38 @@ def _error(detail: str, loc: str = LOC) -> ApiError:
     return ApiError(422, f"{loc}: {detail}", errors=[{"loc": loc, "message": detail}])
 
 
-def find(store: Store, model: str, requested: str, own_version: str | None) -> AssessmentSummary:
+def find(
+    store: Store, model: str, requested: str, own_version: str | None, *, loc: str = LOC
+) -> AssessmentSummary:
     """The stored assessment ``requested`` names for ``model`` (its version's latest); 422
-    when there is none. ``latest-pass`` leaves out ``own_version``."""
+    naming ``loc`` when there is none. ``latest-pass`` leaves out ``own_version``."""
     if requested == LATEST_PASS:
         found = store.latest_passing_assessment(model=model, exclude_version=own_version)
         if found is None:
             raise _error(
                 f"latest-pass: no other stored version of model {model!r} has a latest "
-                "verdict of pass"
+                "verdict of pass",
+                loc,
             )
         return found
     found = store.latest_assessment(model=model, version=requested)
     if found is None:
-        raise _error(f"no stored assessment of model {model!r} version {requested!r}")
+        raise _error(f"no stored assessment of model {model!r} version {requested!r}", loc)
     return found
 
 
-def resolve(store: Store, model: str, requested: str, own_version: str | None) -> Source:
-    """The stored baseline ``requested`` names, with its inputs; 422 when it does not exist or
-    has no holdout."""
-    summary = find(store, model, requested, own_version)
+def resolve(
+    store: Store, model: str, requested: str, own_version: str | None, *, loc: str = LOC
+) -> Source:
+    """The stored baseline ``requested`` names, with its inputs; 422 naming ``loc`` when it
+    does not exist or has no holdout."""
+    summary = find(store, model, requested, own_version, loc=loc)
     inputs = store.series_inputs(assessment_id=summary.id) or []
     if not any(_has_holdout(s) for s in inputs):
         raise _error(
             f"version {summary.version!r} of model {model!r} (assessment {summary.id}) has no "
-            "holdout to compare with"
+            "holdout to compare with",
+            loc,
         )
     return Source(requested=requested, summary=summary, inputs=inputs)
 
@@ -146,6 +152,8 @@ def match(
     lengths: np.ndarray,
     timestamps: Sequence[Sequence[str] | None],
     width: int,
+    *,
+    loc: str = LOC,
 ) -> Match:
     """Line the baseline's holdouts up with the new series ``ids`` (holdout ``lengths`` and
     ``timestamps`` as sent, matrices ``width`` wide); 422 when no series has a matched
@@ -195,8 +203,9 @@ def match(
     unmatched_ids = [sid for i, sid in enumerate(ids) if lengths[i] > 0 and matched[i] == 0]
     if not matched.any():
         raise _error(
-            f"version {source.summary.version!r} shares no series with this request: no "
-            "series id with a holdout period in both"
+            f"version {source.summary.version!r} shares no series: no series id has holdout "
+            "periods on both sides that match (by timestamp, else by position)",
+            loc,
         )
     # Where the bounds are missing on one side only, the interval is missing there.
     missing_bound = np.isnan(lower) | np.isnan(upper)

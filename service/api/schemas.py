@@ -286,6 +286,42 @@ class SeriesRowPage(BaseModel):
     items: list[SeriesRow]
 
 
+class BaselineMatching(BaseModel):
+    """How a baseline's holdout was matched to the new one: series by id, periods by
+    timestamp when both sides give them, else by position; what found no match is counted
+    (ids listed up to 100 per kind), never guessed."""
+
+    requested: str = Field(description="The baseline as asked for: a version or latest-pass.")
+    matched_series: int
+    matched_periods: int
+    matched_by: dict[str, int] = Field(description="Matched series by timestamp and by position.")
+    unmatched_periods: int = Field(
+        description="Holdout periods of matched series without a baseline value."
+    )
+    unmatched_series: int = Field(description="Series with a holdout and no baseline value.")
+    unmatched_series_ids: list[str]
+    baseline_only_series: int = Field(description="Baseline series the new version lacks.")
+    baseline_only_series_ids: list[str]
+
+
+class BaselineRecord(BaselineMatching):
+    """The stored assessment an assessment's holdout was compared with (the ``baseline`` field
+    of its result)."""
+
+    version: str
+    assessment_id: str
+    created_at: datetime
+    verdict: Verdict
+
+
+class VerdictBaseline(BaselineRecord):
+    """The latest assessment's comparison with its baseline: which one, the matching, the
+    ``baseline_accuracy`` check's summary and fleet figures."""
+
+    check: dict[str, Any] | None = None
+    fleet: dict[str, Any] | None = None
+
+
 class ModelVerdict(BaseModel):
     model: str
     version: str
@@ -295,6 +331,44 @@ class ModelVerdict(BaseModel):
     policy: PolicyRef
     require: Verdict | None = None
     met: bool | None = None
+    baseline: VerdictBaseline | None = Field(
+        None, description="Present when the latest assessment had a baseline."
+    )
+
+
+class ComparedVersion(BaseModel):
+    version: str
+    assessment_id: str
+    created_at: datetime
+    verdict: Verdict
+
+
+class ComparedSeries(BaseModel):
+    """One series of ``b`` against ``a``: the matching and the ``baseline_accuracy`` check's
+    figures (its declared details in ``details``)."""
+
+    series_id: str
+    weight: float | None
+    matched_periods: int
+    unmatched_periods: int
+    matched_by: Literal["timestamp", "position"] | None
+    status: CheckStatus | None
+    statistic: float | None
+    p_value: float | None
+    p_adjusted: float | None
+    details: dict[str, Any]
+
+
+class Comparison(BaseModel):
+    """Version ``b`` against version ``a`` on their matched holdout periods."""
+
+    model: str
+    a: ComparedVersion
+    b: ComparedVersion
+    matching: BaselineMatching
+    check: dict[str, Any] | None = Field(description="The check's summary over the fleet.")
+    fleet: dict[str, Any] | None = Field(description="The check's fleet-level figures.")
+    series: list[ComparedSeries]
 
 
 # --- catalogue, policies, tokens --------------------------------------------------------------

@@ -29,6 +29,7 @@ from .records import (
     NewAssessment,
     SeriesInput,
     StoredAssessment,
+    StoredHead,
     StoredPolicy,
     StoredToken,
 )
@@ -139,9 +140,9 @@ class Store(ABC):
         leaving out ``exclude_version`` (a baseline's ``latest-pass``), or ``None``."""
 
     @abstractmethod
-    def assessment_head(self, *, assessment_id: str) -> bytes | None:
-        """The stored result without its series (the JSON bytes of ``StoredAssessment.head``),
-        or ``None`` when there is no such id."""
+    def assessment_head(self, *, assessment_id: str) -> StoredHead | None:
+        """The stored assessment without its series (its summary, the result's head and the
+        policy document that decided it), or ``None`` when there is no such id."""
 
     @abstractmethod
     def series_inputs(self, *, assessment_id: str) -> list[SeriesInput] | None:

@@ -39,6 +39,7 @@ from .records import (
     SeriesInput,
     SeriesResult,
     StoredAssessment,
+    StoredHead,
     StoredPolicy,
     StoredToken,
     hash_token,
@@ -59,8 +60,10 @@ __all__ = [
     "SeriesInput",
     "SeriesResult",
     "StoredAssessment",
+    "StoredHead",
     "StoredPolicy",
     "StoredToken",
+    "assessment_head",
     "count_tokens",
     "create_token",
     "find_idempotency_key",
@@ -71,6 +74,7 @@ __all__ = [
     "get_policy",
     "hash_token",
     "latest_assessment",
+    "latest_passing_assessment",
     "latest_policy_document",
     "list_assessments",
     "list_policies",
@@ -348,11 +352,21 @@ def latest_passing_assessment(
     return None if row is None else _summary(row)
 
 
-def assessment_head(engine: Engine, *, assessment_id: str) -> bytes | None:
-    """The stored result of an assessment without its series (JSON bytes), or ``None``."""
+def assessment_head(engine: Engine, *, assessment_id: str) -> StoredHead | None:
+    """A stored assessment without its series, with its policy document, or ``None``."""
     with engine.connect() as conn:
-        found = conn.execute(select(A.c.result).where(A.c.id == assessment_id)).scalar()
-    return None if found is None else found.encode()
+        row = conn.execute(
+            select(*_SUMMARY_COLUMNS, A.c.result, A.c.policy_document).where(
+                A.c.id == assessment_id
+            )
+        ).first()
+    if row is None:
+        return None
+    return StoredHead(
+        summary=_summary(row),
+        head=row.result.encode(),
+        policy_document=orjson.loads(row.policy_document),
+    )
 
 
 def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | None:

@@ -31,6 +31,7 @@ from .records import (
     NewAssessment,
     SeriesInput,
     StoredAssessment,
+    StoredHead,
     StoredPolicy,
     StoredToken,
 )
@@ -140,7 +141,7 @@ class SqlStore(Store):
         )
 
     @_translated
-    def assessment_head(self, *, assessment_id: str) -> bytes | None:
+    def assessment_head(self, *, assessment_id: str) -> StoredHead | None:
         return repo.assessment_head(self.engine, assessment_id=assessment_id)
 
     @_translated
