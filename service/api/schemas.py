@@ -183,7 +183,10 @@ def _fleet_statistics() -> dict[str, Any]:
             record = type(check.fleet.empty.result)
             hints = typing.get_type_hints(record)
             fields = {f.name: _statistic_type(hints[f.name]) for f in dataclasses.fields(record)}
-            out[check.fleet.key] = (_flat_model(f"Fleet{check.fleet.key.title()}", fields), ...)
+            model = _flat_model(f"Fleet{check.fleet.key.title()}", fields)
+            # A check that applies to some batches only (the baseline comparison) writes its
+            # statistic only into their results: not required.
+            out[check.fleet.key] = (model, ...) if check.applies is None else (model, None)
     return out
 
 
