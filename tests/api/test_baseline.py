@@ -114,8 +114,12 @@ def test_a_much_less_accurate_version_fails_against_its_baseline(client, sound):
     assert r.status_code == 201, r.text
     doc = r.json()
     assert doc["verdict"] == "fail"
-    summary = next(c for c in doc["checks"] if c["name"] == CHECK)
-    assert summary["status"] == "fail"
+    assert any(c["name"] == CHECK for c in doc["checks"])
+    # Errors with sd sqrt(1 + 3^2) against sd 1: the fleet's relative error is far above
+    # 1 + margin, and the reason says so against the baseline's version.
+    fleet_figures = doc["fleet"]["baseline"]
+    assert fleet_figures["baseline"] == "2026.11" and fleet_figures["ci_low"] > 1.5
+    assert any("less accurate than version 2026.11" in r["message"] for r in doc["reasons"])
     block = doc["baseline"]
     assert block["requested"] == "latest-pass" and block["version"] == "2026.11"
     assert block["assessment_id"] == sound["id"]
@@ -128,8 +132,10 @@ def test_a_much_less_accurate_version_fails_against_its_baseline(client, sound):
     # The verdict carries the comparison.
     verdict = client.get("/v1/models/crumb-counts/verdict", headers=ADMIN).json()
     assert verdict["baseline"]["version"] == "2026.11"
-    assert verdict["baseline"]["check"]["status"] == "fail"
-    assert verdict["baseline"]["fleet"] is not None
+    assert verdict["verdict"] == "fail"
+    assert verdict["baseline"]["assessment_id"] == sound["id"]
+    assert verdict["baseline"]["check"]["name"] == CHECK
+    assert verdict["baseline"]["fleet"] == fleet_figures
 
 
 def test_without_a_baseline_the_check_and_the_block_are_absent(client, sound):
@@ -196,8 +202,15 @@ def test_compare_two_stored_versions_as_json_and_csv(client, sound):
     body = r.json()
     assert body["a"]["version"] == "2026.11" and body["b"]["version"] == "2026.12"
     assert body["matching"]["matched_series"] == 30
-    assert body["check"]["status"] == "fail"
+    assert body["fleet"]["ci_low"] > 1.5 and body["fleet"]["baseline"] == "2026.11"
     assert len(body["series"]) == 30
+    # ETag and 304 while nothing changed.
+    same = client.get(
+        url,
+        params={"a": "2026.11", "b": "2026.12"},
+        headers={**ADMIN, "If-None-Match": r.headers["ETag"]},
+    )
+    assert same.status_code == 304
     row = body["series"][0]
     assert row["series_id"] == "dock-00" and row["matched_periods"] == 12
     assert row["matched_by"] == "timestamp" and row["status"] in ("pass", "warn", "fail")
@@ -205,13 +218,16 @@ def test_compare_two_stored_versions_as_json_and_csv(client, sound):
     posted = post(client, fleet("2026.12", extra_sd=3.0, version_seed=1, baseline="2026.11"))
     stored_check = next(c for c in posted.json()["checks"] if c["name"] == CHECK)
     assert body["check"] == stored_check
-    # ETag and 304.
+    assert body["fleet"] == posted.json()["fleet"]["baseline"]
+    first = next(c for c in posted.json()["series"][0]["checks"] if c["name"] == CHECK)
+    assert row["details"] == first["details"] and row["p_adjusted"] == first["p_adjusted"]
+    # b's latest assessment is now the one just posted: the old ETag no longer matches.
     again = client.get(
         url,
         params={"a": "2026.11", "b": "2026.12"},
         headers={**ADMIN, "If-None-Match": r.headers["ETag"]},
     )
-    assert again.status_code == 304
+    assert again.status_code == 200 and again.json()["b"]["assessment_id"] == posted.json()["id"]
     as_csv = client.get(
         url, params={"a": "2026.11", "b": "2026.12"}, headers={**ADMIN, "Accept": "text/csv"}
     )
