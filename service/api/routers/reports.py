@@ -9,6 +9,7 @@ assessment is submitted.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Annotated, Any
 from urllib.parse import quote
@@ -243,7 +244,7 @@ def baseline_path(store: Store, block: Any, inputs: Any) -> Any:
 
     from .. import baseline
 
-    if not isinstance(block, dict) or not inputs.has_holdout:
+    if not isinstance(block, Mapping) or not inputs.has_holdout:
         return inputs
     head = store.assessment_head(assessment_id=str(block.get("assessment_id")))
     stored = store.series_inputs(assessment_id=str(block.get("assessment_id")))
