@@ -260,3 +260,51 @@ def test_compare_needs_the_read_scope(client, sound, token):
         headers=token("submit"),
     )
     assert r.status_code == 403
+
+
+# --- several submissions in one pass -------------------------------------------------------
+
+
+def test_submissions_with_and_without_baselines_in_one_pass_answer_as_alone(client, sound):
+    import orjson
+
+    from service.api import assessing
+    from service.api.errors import ApiError
+    from service.core.batch import stack_key
+    from service.settings import Settings
+
+    store = client.app.state.store
+    settings = Settings(database_url="sqlite://", admin_token="unused-here")
+    bodies = [
+        fleet("2026.12", extra_sd=3.0, version_seed=1, baseline="2026.11"),
+        fleet("2026.13"),
+        fleet("2026.14", extra_sd=0.5, version_seed=2, baseline="latest-pass"),
+        fleet("2026.15", baseline="1999.01"),
+        fleet("2026.16", ids=[f"dock-{i:02d}" for i in range(10, 40)], baseline="2026.11"),
+        fleet("2026.17", extra_sd=1.0, version_seed=3, baseline="2026.11"),
+    ]
+
+    def jobs():
+        return [
+            assessing.Job(req=assessing.parse("json", orjson.dumps(b), {}, settings), store=False)
+            for b in bodies
+        ]
+
+    def plain(outcome):
+        if isinstance(outcome, BaseException):
+            return (type(outcome).__name__, getattr(outcome, "errors", None))
+        doc = orjson.loads(outcome.body)
+        doc.pop("created_at")
+        return doc
+
+    pass_jobs = jobs()
+    together = [plain(o) for o in assessing.run_many(store, pass_jobs)]
+    # The first and the last share their shape and baseline: the core stacks them.
+    assert stack_key(pass_jobs[0].req.batch) == stack_key(pass_jobs[5].req.batch)
+    assert pass_jobs[0].req.batch.baseline is not None
+    separately = [plain(assessing.run_many(store, [j])[0]) for j in jobs()]
+    assert together == separately
+    assert together[3][0] == ApiError.__name__
+    assert together[3][1][0]["loc"] == "baseline.version"
+    assert "baseline" not in together[1] and together[0]["baseline"]["version"] == "2026.11"
+    assert together[4]["baseline"]["unmatched_series"] == 10  # dock-30 to dock-39
