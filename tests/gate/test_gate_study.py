@@ -76,3 +76,11 @@ def test_a_challenger_with_ten_percent_larger_errors_fails_on_the_baseline():
     a, found, own = _against_baseline("challenger errors 10% larger sd", 22)
     assert a.verdict.value == "fail" and found.code == 3 and "fail" in own
     assert found.result.ci_low > 1.0 + found.result.margin
+    # The README's example sentence (section "The gate", "Against the version in production").
+    reason = next(r for r in a.reasons if r.check == "baseline_accuracy" and r.series_id is None)
+    assert reason.message == (
+        "This version is 9.6% less accurate than version 2026.11 on 500 matched series "
+        "(relative MAE 1.096, 95% CI 1.067-1.125; p = 7.5e-08 that it exceeds 1 + 0.02, "
+        "1.5e-11 that it exceeds 1); 0 series are significantly worse on their own: do not "
+        "ship this version until the loss is explained."
+    )
