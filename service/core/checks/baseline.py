@@ -51,6 +51,7 @@ MARGIN = 0.02
 significantly above 1.02 (README, "Against the version in production", says why)."""
 
 NO_MATCH = "no holdout period with a baseline forecast"
+_NONE = np.array(None, dtype=object)
 
 
 @dataclass(frozen=True, eq=False)
@@ -180,14 +181,14 @@ def baseline_accuracy(
         p = np.where(equal, 1.0, dm.p_worse)
         mean_d = np.where(equal, 0.0, dm.mean_differential)
         h_used = dm.h
-        dm_reason = np.where(equal, None, dm.skip_reason)
+        dm_reason = np.where(equal, _NONE, dm.skip_reason)
     first, _ = skip_reasons_and_ran(
         n,
         (np.full(n, batch.holdout is None), "no holdout"),
         (m.count == 0, NO_MATCH),
     )
-    reasons = np.where(np.equal(first, None), dm_reason, first)
-    ran = np.equal(reasons, None)
+    reasons = np.where(np.equal(first, _NONE), dm_reason, first)
+    ran = np.equal(reasons, _NONE)
     relative = error_ratio(m.new, m.baseline, loss) if m.matched.shape[1] else np.full(n, np.nan)
     finite = ran & np.isfinite(relative)
     details = {
@@ -324,11 +325,8 @@ def _fleet(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFin
         worse = int((use & (p_adj < fail_p) & _material(result, cp)).sum())
     side = _side_by_side(batch, m)
     count = np.where(use, m.count, 0)
-    level = np.where(
-        use[:, None] & m.matched,
-        np.abs(batch.holdout.actuals),
-        0.0,  # type: ignore[union-attr]
-    ).sum()
+    actuals = batch.holdout.actuals if batch.holdout is not None else m.new
+    level = np.where(use[:, None] & m.matched, np.abs(actuals), 0.0).sum()
     new_sum = np.where(use[:, None], np.nan_to_num(m.new), 0.0).sum()
     base_sum = np.where(use[:, None], np.nan_to_num(m.baseline), 0.0).sum()
     scored = np.where(use, side["interval_periods"], 0)
@@ -346,8 +344,8 @@ def _fleet(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFin
         series_worse=worse,
         bias_new=_pooled(np.array(new_sum), count),
         bias_baseline=_pooled(np.array(base_sum), count),
-        percent_bias_new=100.0 * new_sum / level if level > 0 else _NAN,
-        percent_bias_baseline=100.0 * base_sum / level if level > 0 else _NAN,
+        percent_bias_new=float(100.0 * new_sum / level) if level > 0 else _NAN,
+        percent_bias_baseline=float(100.0 * base_sum / level) if level > 0 else _NAN,
         coverage_new=_pooled(np.where(use, side["inside_new"], 0), scored),
         coverage_baseline=_pooled(np.where(use, side["inside_baseline"], 0), scored),
         material=bool(r.estimate > 1.0 + margin),
