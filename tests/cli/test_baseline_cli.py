@@ -105,3 +105,17 @@ def test_offline_has_no_baseline(cli, tmp_path):
         "2026.11",
     )
     assert run.code == 2 and "--offline" in run.err
+
+
+def test_the_printed_result_says_what_it_was_compared_with(cli, http, tmp_path):
+    assert assess(cli, http, write(tmp_path, "v1.json", fleet("2026.11"))).code == 0
+    ids = [f"dock-{i:02d}" for i in range(2, 32)]
+    body = fleet("2026.12", ids=ids, extra_sd=3.0, version_seed=1)
+    run = assess(cli, http, write(tmp_path, "v2.json", body), "--baseline", "latest-pass")
+    assert run.code == 1
+    (line,) = [x for x in run.out.splitlines() if x.startswith("against:")]
+    assert line.startswith("against: version 2026.11 (latest-pass), assessment ")
+    assert line.endswith(
+        "28 series, 336 holdout periods matched; 2 series without a baseline, "
+        "2 baseline series not in this version"
+    )
