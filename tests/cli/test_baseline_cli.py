@@ -119,3 +119,16 @@ def test_the_printed_result_says_what_it_was_compared_with(cli, http, tmp_path):
         "28 series, 336 holdout periods matched; 2 series without a baseline, "
         "2 baseline series not in this version"
     )
+
+
+def test_the_python_client_reads_the_comparison_and_the_verdicts_baseline(http):
+    from service.client import PlumblineClient
+
+    with PlumblineClient(URL, token=ADMIN, http=http) as client:
+        client.assess(fleet("2026.11"))
+        client.assess(fleet("2026.12", extra_sd=3.0, version_seed=1, baseline="2026.11"))
+        verdict = client.verdict("crumb-counts")
+        assert verdict.verdict == "fail" and verdict.baseline["version"] == "2026.11"
+        compared = client.compare("crumb-counts", a="2026.11", b="2026.12")
+        assert compared["fleet"] == verdict.baseline["fleet"]
+        assert len(compared["series"]) == 30
