@@ -9,6 +9,8 @@ from datetime import UTC, datetime
 
 import numpy as np
 import pytest
+from hypothesis import given
+from hypothesis import strategies as st
 
 from service.api import baseline
 from service.api.errors import ApiError
@@ -123,3 +125,33 @@ def test_listed_ids_are_capped_and_the_counts_whole():
     block = m.block()
     assert block["unmatched_series"] == 150
     assert len(block["unmatched_series_ids"]) == baseline.MAX_LISTED_IDS
+
+
+def _daily(n: int, start: int = 0) -> list[str]:
+    return [str(np.datetime64("2026-03-02") + np.timedelta64(start + k, "D")) for k in range(n)]
+
+
+@given(
+    new_len=st.integers(1, 15),
+    base_len=st.integers(1, 15),
+    offset=st.integers(-5, 5),
+)
+def test_timestamps_agree_with_positions_shifted_by_the_offset(new_len, base_len, offset):
+    # The baseline's holdout starts ``offset`` days after the new one's: matching by
+    # timestamp gives new step j the baseline's step j - offset, where that step exists.
+    values = np.arange(base_len, dtype=float) + 10.0
+    src = source(stored("a", values, _daily(base_len, offset)))
+    width = new_len + 2
+    if not any(0 <= j - offset < base_len for j in range(new_len)):
+        with pytest.raises(ApiError):
+            baseline.match(src, ["a"], np.array([new_len]), [_daily(new_len)], width)
+        return
+    m = baseline.match(src, ["a"], np.array([new_len]), [_daily(new_len)], width)
+    expected = np.full(width, np.nan)
+    for j in range(new_len):
+        if 0 <= j - offset < base_len:
+            expected[j] = values[j - offset]
+    np.testing.assert_array_equal(m.forecasts[0], expected)
+    if offset == 0:  # aligned: by position gives the same
+        by_position = baseline.match(src, ["a"], np.array([new_len]), [None], width)
+        np.testing.assert_array_equal(by_position.forecasts, m.forecasts)
