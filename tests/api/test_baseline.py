@@ -308,3 +308,25 @@ def test_submissions_with_and_without_baselines_in_one_pass_answer_as_alone(clie
     assert together[3][1][0]["loc"] == "baseline.version"
     assert "baseline" not in together[1] and together[0]["baseline"]["version"] == "2026.11"
     assert together[4]["baseline"]["unmatched_series"] == 10  # dock-30 to dock-39
+
+
+def test_compare_against_latest_pass_and_a_b_without_holdout(client, sound):
+    assert post(client, fleet("2026.12", extra_sd=1.0, version_seed=4)).status_code == 201
+    r = client.get(
+        "/v1/models/crumb-counts/compare",
+        params={"a": "latest-pass", "b": "2026.12"},
+        headers=ADMIN,
+    )
+    assert r.status_code == 200, r.text
+    body = r.json()
+    # The newest other version whose latest verdict passed: 2026.11 (b itself is left out).
+    assert body["a"]["assessment_id"] == sound["id"]
+    assert body["matching"]["requested"] == "latest-pass"
+    bare = fleet("2026.13")
+    for s in bare["series"]:
+        del s["holdout"]
+    assert post(client, bare).status_code == 201
+    r = client.get(
+        "/v1/models/crumb-counts/compare", params={"a": "2026.11", "b": "2026.13"}, headers=ADMIN
+    )
+    assert r.status_code == 422 and r.json()["errors"][0]["loc"] == "query.b"
