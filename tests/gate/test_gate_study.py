@@ -81,6 +81,7 @@ def test_a_challenger_with_ten_percent_larger_errors_fails_on_the_baseline():
     assert reason.message == (
         "This version is 9.6% less accurate than version 2026.11 on 500 matched series "
         "(relative MAE 1.096, 95% CI 1.067-1.125; p = 7.5e-08 that it exceeds 1 + 0.02, "
-        "1.5e-11 that it exceeds 1); 0 series are significantly worse on their own: do not "
-        "ship this version until the loss is explained."
+        "1.5e-11 that it exceeds 1); 0 series are significantly worse on their own "
+        "(BH-adjusted p < 0.01, beyond the margin): do not ship this version until the loss "
+        "is explained."
     )

@@ -392,6 +392,9 @@ class BaselineScenario:
     label: str
     sd_ratio: float
     target: str = ""
+    phi: float = 0.0
+    """Above 0: each version's errors are AR(1) ``phi`` along the path (unit variance scaled
+    to its sd), as the errors of forecasts from one origin tend to be."""
 
 
 BASELINE = (
@@ -400,6 +403,13 @@ BASELINE = (
     ),
     BaselineScenario("challenger errors 5% larger sd", 1.05),
     BaselineScenario("challenger errors 10% larger sd", 1.10, "fail >= 95%"),
+    BaselineScenario(
+        "equal quality, both versions' errors AR(1) 0.5 along the path",
+        1.0,
+        "fail <= 1%, warn <= 5%",
+        phi=0.5,
+    ),
+    BaselineScenario("challenger errors 10% larger sd, AR(1) 0.5 along the path", 1.10, phi=0.5),
 )
 BASELINE_SERIES = 500
 BASELINE_H = 12
@@ -413,10 +423,17 @@ def baseline_fleet(s: BaselineScenario, n: int, h: int, rng: np.random.Generator
     sound = holdout_fleet(HOLDOUT[0], n, h, rng)
     hold = sound.holdout
     sd = 5.0
-    # The correct forecast's errors have sd 5; independent noise brings them to sd_ratio * 5.
-    extra = sd * np.sqrt(s.sd_ratio**2 - 1.0)
-    new = hold.forecasts - extra * rng.standard_normal((n, h))
-    base = hold.actuals - sd * rng.standard_normal((n, h))
+    if s.phi:
+        # Errors drawn along the path: AR(1) with unit variance, times each version's sd.
+        unit = np.sqrt(1.0 - s.phi**2)
+        new = hold.actuals - s.sd_ratio * sd * unit * ar1(n, h, rng, phi=s.phi)
+        base = hold.actuals - sd * unit * ar1(n, h, rng, phi=s.phi)
+    else:
+        # The correct forecast's errors have sd 5; independent noise brings them to
+        # sd_ratio * 5.
+        extra = sd * np.sqrt(s.sd_ratio**2 - 1.0)
+        new = hold.forecasts - extra * rng.standard_normal((n, h))
+        base = hold.actuals - sd * rng.standard_normal((n, h))
     half_new, half_base = Z95 * sd * s.sd_ratio, Z95 * sd
     return make_batch(
         sound.actuals,
@@ -434,7 +451,9 @@ def baseline_fleet(s: BaselineScenario, n: int, h: int, rng: np.random.Generator
     )
 
 
-def baseline_table(reps: int, seed: int, n: int = BASELINE_SERIES) -> None:
+def baseline_table(
+    reps: int, seed: int, n: int = BASELINE_SERIES, only: tuple[int, ...] | None = None
+) -> None:
     print(f"\n## Against a baseline version (fleets of {n}, {BASELINE_H}-step holdout)\n")
     print(
         "| condition | fleets | fail | warn or fail | baseline_accuracy fail | "
@@ -443,6 +462,8 @@ def baseline_table(reps: int, seed: int, n: int = BASELINE_SERIES) -> None:
     print("|---|---|---|---|---|---|---|---|---|")
     policy = default_policy()
     for s_i, s in enumerate(BASELINE):
+        if only is not None and s_i not in only:
+            continue
         rng = np.random.default_rng(seed + 20000 + 100 * s_i)
         fails = warns = own_fail = own_warn = 0
         rel: list[float] = []
@@ -574,6 +595,12 @@ def main() -> None:
     parser.add_argument("--series", type=int, default=20000, help="series per per-series cell")
     parser.add_argument("--seed", type=int, default=20261203)
     parser.add_argument(
+        "--conditions",
+        type=lambda v: tuple(int(x) for x in v.split(",")),
+        default=None,
+        help="baseline rows to run, by position (0,1,...): default all",
+    )
+    parser.add_argument(
         "--only", choices=("size", "detect", "holdout", "series", "baseline"), default=None
     )
     args = parser.parse_args()
@@ -588,7 +615,7 @@ def main() -> None:
     if args.only in (None, "series"):
         per_series_table(args.series, args.seed)
     if args.only in (None, "baseline"):
-        baseline_table(args.reps, args.seed)
+        baseline_table(args.reps, args.seed, only=args.conditions)
     print(f"\nelapsed {time.perf_counter() - start:.0f} s")
 
 

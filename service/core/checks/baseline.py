@@ -354,13 +354,13 @@ def _fleet(checks: BatchChecks, weights: np.ndarray, policy: Policy) -> FleetFin
         summary,
         p_value=p_fail,
         material=True,
-        message=_fleet_message(summary, _label(batch)),
+        message=_fleet_message(summary, _label(batch), fail_p),
         warn_p=cp.fleet_warn_p,
         warn_p_value=p_worse,
     )
 
 
-def _fleet_message(s: FleetBaseline, label: str) -> str:
+def _fleet_message(s: FleetBaseline, label: str, fail_p: float) -> str:
     more = 100.0 * (s.relative_mae - 1.0)
     worse = f"{s.series_worse:,} series {'is' if s.series_worse == 1 else 'are'}"
     if s.material:
@@ -375,7 +375,7 @@ def _fleet_message(s: FleetBaseline, label: str) -> str:
         f"{label} on {s.series_used:,} matched series (relative MAE {s.relative_mae:.3f}, 95% "
         f"CI {s.ci_low:.3f}-{s.ci_high:.3f}; p = {s.p_value:.2g} that it exceeds "
         f"1 + {s.margin:g}, {s.p_worse:.2g} that it exceeds 1); {worse} significantly worse "
-        f"on their own: {then}."
+        f"on their own (BH-adjusted p < {fail_p:g}, beyond the margin): {then}."
     )
 
 
