@@ -168,37 +168,33 @@ def match(
     lower = np.full((n, width), np.nan)
     upper = np.full((n, width), np.nan)
     by_timestamp = np.zeros(n, dtype=bool)
-    any_interval = False
     stored = {s.series_id: s for s in source.inputs if _has_holdout(s)}
     wanted: set[str] = set()
+    pairs: list[tuple[int, SeriesInput]] = []
     for i, sid in enumerate(ids):
-        nh = int(lengths[i])
-        if nh == 0:
+        if lengths[i] == 0:
             continue
         wanted.add(sid)
         base = stored.get(sid)
-        if base is None:
+        if base is not None:
+            pairs.append((i, base))
+            by_timestamp[i] = timestamps[i] is not None and base.holdout_timestamps is not None
+    any_interval = any(b.holdout_lower is not None for _, b in pairs)
+    for group in (
+        [p for p in pairs if by_timestamp[p[0]]],
+        [p for p in pairs if not by_timestamp[p[0]]],
+    ):
+        if not group:
             continue
-        bf = base.holdout_forecasts
-        assert bf is not None
-        interval = base.holdout_lower is not None and base.holdout_upper is not None
-        new_ts, base_ts = timestamps[i], base.holdout_timestamps
-        if new_ts is not None and base_ts is not None:
-            by_timestamp[i] = True
-            at = _instants(base_ts)
-            mine = _instants(new_ts)
-            pos = np.minimum(np.searchsorted(at, mine), at.size - 1)
-            hit = at[pos] == mine
-            cols = np.flatnonzero(hit)
-            src = pos[hit]
+        rows, values, lo, up, base_len = _flat(group)
+        if by_timestamp[group[0][0]]:
+            at, src = _by_instant(group, rows, timestamps, lengths, base_len)
         else:
-            m = min(nh, bf.size)
-            cols = src = np.arange(m)
-        forecasts[i, cols] = bf[src]
-        if interval:
-            any_interval = True
-            lower[i, cols] = base.holdout_lower[src]  # type: ignore[index]
-            upper[i, cols] = base.holdout_upper[src]  # type: ignore[index]
+            at, src = _by_step(rows, np.asarray(lengths)[rows], base_len)
+        forecasts[at] = values[src]
+        if any_interval:
+            lower[at] = lo[src]
+            upper[at] = up[src]
     matched = (~np.isnan(forecasts)).sum(axis=1)
     unmatched_ids = [sid for i, sid in enumerate(ids) if lengths[i] > 0 and matched[i] == 0]
     if not matched.any():
@@ -222,6 +218,66 @@ def match(
         unmatched_ids=unmatched_ids,
         baseline_only_ids=[sid for sid in stored if sid not in wanted],
     )
+
+
+def _flat(
+    group: list[tuple[int, SeriesInput]],
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The new rows of ``group`` and its baselines' holdouts joined into flat arrays (bounds
+    ``NaN`` where a baseline has none), with each baseline's length."""
+    rows = np.array([i for i, _ in group], dtype=np.int64)
+    fc = [b.holdout_forecasts for _, b in group]
+    base_len = np.array([f.size for f in fc], dtype=np.int64)  # type: ignore[union-attr]
+
+    def bound(name: str) -> np.ndarray:
+        parts = [getattr(b, name) for _, b in group]
+        if all(p is None for p in parts):
+            return np.full(int(base_len.sum()), np.nan)
+        return np.concatenate(
+            [np.full(f.size, np.nan) if p is None else p for p, f in zip(parts, fc, strict=True)]  # type: ignore[union-attr]
+        )
+
+    return rows, np.concatenate(fc), bound("holdout_lower"), bound("holdout_upper"), base_len  # type: ignore[arg-type]
+
+
+def _starts(lengths: np.ndarray) -> np.ndarray:
+    return np.cumsum(lengths) - lengths
+
+
+def _by_step(
+    rows: np.ndarray, new_len: np.ndarray, base_len: np.ndarray
+) -> tuple[tuple[np.ndarray, np.ndarray], np.ndarray]:
+    """Step ``h`` of each new row takes step ``h`` of its baseline, where both have it: the
+    ``(row, column)`` places and the flat baseline positions they take."""
+    count = np.minimum(new_len, base_len)
+    cols = np.arange(count.sum()) - np.repeat(_starts(count), count)
+    src = np.repeat(_starts(base_len), count) + cols
+    return (np.repeat(rows, count), cols), src
+
+
+def _by_instant(
+    group: list[tuple[int, SeriesInput]],
+    rows: np.ndarray,
+    timestamps: Sequence[Sequence[str] | None],
+    lengths: np.ndarray,
+    base_len: np.ndarray,
+) -> tuple[tuple[np.ndarray, np.ndarray], np.ndarray]:
+    """Each new period takes its baseline's value at the same instant: every timestamp of
+    the group parsed at once, ranked over both sides, and looked up by (row, rank) keys
+    (each side's timestamps increase within a row, so the baseline's keys are sorted)."""
+    new_len = np.asarray(lengths, dtype=np.int64)[rows]
+    new_flat = [t for i, _ in group for t in list(timestamps[i])[: int(lengths[i])]]  # type: ignore[arg-type]
+    base_flat = [t for _, b in group for t in b.holdout_timestamps]  # type: ignore[union-attr]
+    instants = _instants(new_flat + base_flat)
+    _, rank = np.unique(instants, return_inverse=True)
+    span = int(rank.max(initial=0)) + 1
+    owner = np.arange(rows.size, dtype=np.int64)
+    new_key = np.repeat(owner, new_len) * span + rank[: len(new_flat)]
+    base_key = np.repeat(owner, base_len) * span + rank[len(new_flat) :]
+    pos = np.minimum(np.searchsorted(base_key, new_key), base_key.size - 1)
+    hit = base_key[pos] == new_key
+    cols = np.arange(new_key.size) - np.repeat(_starts(new_len), new_len)
+    return (np.repeat(rows, new_len)[hit], cols[hit]), pos[hit]
 
 
 def with_baseline(batch: SeriesBatch, found: Match) -> SeriesBatch:
