@@ -5,6 +5,8 @@ In-process (Starlette's TestClient, SQLite in a temporary directory), an invente
 timestamps, tests/api/baseline_helpers.py). Stores one version, then times ``--repeat`` stored
 submissions of a second version without a baseline and with ``baseline: latest-pass``, and
 ``GET /v1/models/{model}/compare``; prints the medians and the extra time a baseline costs.
+``--match-series N`` also times the matching alone (``service.api.baseline.match``) for ``N``
+invented stored series of 12 weekly steps, by timestamp and by position.
 """
 
 from __future__ import annotations
@@ -21,6 +23,36 @@ import orjson
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 
+def match_only(n: int, steps: int = 12) -> None:
+    from datetime import UTC, datetime
+
+    import numpy as np
+
+    from service.api import baseline
+    from service.store.records import AssessmentSummary, SeriesInput
+
+    stamps = [str(np.datetime64("2026-01-05") + np.timedelta64(7 * k, "D")) for k in range(steps)]
+    inputs = [
+        SeriesInput(
+            series_id=f"s{i}",
+            weight=None,
+            actuals=np.zeros(3),
+            fitted=np.zeros(3),
+            holdout_actuals=np.zeros(steps),
+            holdout_forecasts=np.arange(steps, dtype=float),
+            holdout_timestamps=stamps,
+        )
+        for i in range(n)
+    ]
+    summary = AssessmentSummary(1, "x", datetime.now(UTC), "m", "v", "pass", n, 0, 0, "default", 1)
+    source = baseline.Source("v", summary, inputs)
+    ids = [f"s{i}" for i in range(n)]
+    for name, given in (("timestamp", stamps), ("position", None)):
+        clock = time.perf_counter()
+        baseline.match(source, ids, np.full(n, steps), [given] * n, steps)
+        print(f"  match {n} series by {name:9s} {time.perf_counter() - clock:7.3f} s")
+
+
 def main() -> int:
     from fastapi.testclient import TestClient
 
@@ -31,7 +63,10 @@ def main() -> int:
     parser = argparse.ArgumentParser()
     parser.add_argument("--series", type=int, default=2000)
     parser.add_argument("--repeat", type=int, default=5)
+    parser.add_argument("--match-series", type=int, default=0)
     args = parser.parse_args()
+    if args.match_series:
+        match_only(args.match_series)
     ids = [f"dock-{i:05d}" for i in range(args.series)]
     token = "bench-baseline-admin-token-0000"
     auth = {"Authorization": f"Bearer {token}", "Content-Type": "application/json"}
