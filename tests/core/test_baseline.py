@@ -412,3 +412,42 @@ def test_a_shorter_baseline_row_pads_with_unmatched_periods():
     assert (
         batch.baseline.forecasts.shape == (1, 3) and np.isnan(batch.baseline.forecasts[0, 1:]).all()
     )
+
+
+def _one_much_worse(margin=None):
+    # Invented: one shop whose new forecasts miss by 5 to 6 loaves where the baseline's miss
+    # by 1 or 2: worse at every matched day.
+    hold = np.full((1, 12), 40.0)
+    new_err = np.array([[5.0, -6.0, 5.5, -5.0, 6.0, -5.5, 5.0, -6.0, 5.5, -5.0, 6.0, -5.5]])
+    base_err = np.array([[1.0, -1.0, 2.0, -1.0, 1.0, -2.0, 1.0, -1.0, 2.0, -1.0, 1.0, -2.0]])
+    batch = make_batch(
+        [[40.0, 41.0, 39.0] * 8],
+        [[40.0, 40.0, 40.0] * 8],
+        holdout_actuals=hold,
+        holdout_forecasts=hold - new_err,
+        baseline_forecasts=hold - base_err,
+    )
+    checks = {} if margin is None else {"baseline_accuracy": {"margin": margin}}
+    return assess(batch, Policy.from_dict({"name": "margin", "checks": checks}))
+
+
+def test_a_series_much_worse_fails_with_its_sentence():
+    a = _one_much_worse()
+    r = a.results["baseline_accuracy"]
+    assert a.status_codes["baseline_accuracy"][0] == 3
+    reason = next(x for x in a.reasons if x.check == "baseline_accuracy" and x.series_id)
+    rel = float(r.details["relative_error"][0])
+    assert reason.series_id == "0" and rel > 3
+    assert reason.message.startswith(
+        f"this version is less accurate than the baseline on the holdout: its RMSE is "
+        f"{rel:.3g} times the baseline's over 12 matched periods (Diebold-Mariano-HLN t = "
+    )
+
+
+def test_a_series_worse_within_the_margin_passes_and_says_so():
+    a = _one_much_worse(margin=10.0)
+    assert a.status_codes["baseline_accuracy"][0] == 1
+    entry = a.result().series[0].check("baseline_accuracy")
+    assert entry.message.startswith(
+        "significantly less accurate than the baseline, but by less than the policy's margin"
+    )
