@@ -207,6 +207,7 @@ def answer(model: str, found: baseline.Match, b: Any, result: AssessmentResult) 
         "matching": matching,
         "check": None if summary is None else summary.to_dict(),
         "fleet": None if fleet_key is None else data["fleet"].get(fleet_key),
+        "reasons": [r.message for r in result.reasons if r.check == CHECK and r.series_id is None],
         "series": rows,
     }
 
@@ -226,7 +227,12 @@ def baseline_of(store: Store, assessment_id: str) -> dict[str, Any] | None:
     fleet = None
     if c is not None and c.fleet is not None:
         fleet = (doc.get("fleet") or {}).get(c.fleet.key)
-    return {**block, "check": summary, "fleet": fleet}
+    reasons = [
+        r["message"]
+        for r in doc.get("reasons", ())
+        if r.get("check") == CHECK and r.get("series_id") is None
+    ]
+    return {**block, "check": summary, "fleet": fleet, "reasons": reasons}
 
 
 def csv_rows(body: dict[str, Any]) -> tuple[tuple[str, ...], list[list[Any]]]:

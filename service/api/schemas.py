@@ -323,6 +323,9 @@ class VerdictBaseline(BaselineRecord):
 
     check: dict[str, Any] | None = None
     fleet: dict[str, Any] | None = None
+    reasons: list[str] = Field(
+        default_factory=list, description="The comparison's fleet-level reason sentences."
+    )
 
 
 class ModelVerdict(BaseModel):
@@ -371,6 +374,7 @@ class Comparison(BaseModel):
     matching: BaselineMatching
     check: dict[str, Any] | None = Field(description="The check's summary over the fleet.")
     fleet: dict[str, Any] | None = Field(description="The check's fleet-level figures.")
+    reasons: list[str] = Field(description="The comparison's fleet-level reason sentences.")
     series: list[ComparedSeries]
 
 

@@ -136,6 +136,8 @@ def test_a_much_less_accurate_version_fails_against_its_baseline(client, sound):
     assert verdict["baseline"]["assessment_id"] == sound["id"]
     assert verdict["baseline"]["check"]["name"] == CHECK
     assert verdict["baseline"]["fleet"] == fleet_figures
+    (sentence,) = verdict["baseline"]["reasons"]
+    assert sentence.startswith("This version is ") and "than version 2026.11 on 30" in sentence
 
 
 def test_without_a_baseline_the_check_and_the_block_are_absent(client, sound):
@@ -219,6 +221,12 @@ def test_compare_two_stored_versions_as_json_and_csv(client, sound):
     stored_check = next(c for c in posted.json()["checks"] if c["name"] == CHECK)
     assert body["check"] == stored_check
     assert body["fleet"] == posted.json()["fleet"]["baseline"]
+    assert body["reasons"] == [
+        r["message"]
+        for r in posted.json()["reasons"]
+        if r["check"] == CHECK and r["series_id"] is None
+    ]
+    assert len(body["reasons"]) == 1
     first = next(c for c in posted.json()["series"][0]["checks"] if c["name"] == CHECK)
     assert row["details"] == first["details"] and row["p_adjusted"] == first["p_adjusted"]
     # b's latest assessment is now the one just posted: the old ETag no longer matches.
