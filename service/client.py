@@ -191,7 +191,8 @@ class AssessmentPage:
 
 @dataclass(frozen=True)
 class VerdictResult:
-    """The latest stored verdict of a model; ``met`` answers ``require`` (``None`` without it)."""
+    """The latest stored verdict of a model; ``met`` answers ``require`` (``None`` without it);
+    ``baseline`` the comparison with its baseline, when that assessment had one."""
 
     model: str
     version: str | None
@@ -199,6 +200,7 @@ class VerdictResult:
     assessment_id: str | None
     created_at: str | None
     met: bool | None
+    baseline: Mapping[str, Any] | None = None
 
     @classmethod
     def from_json(cls, data: Mapping[str, Any], *, met: bool | None) -> VerdictResult:
@@ -214,6 +216,7 @@ class VerdictResult:
             assessment_id=None if data.get("assessment_id") is None else str(data["assessment_id"]),
             created_at=data.get("created_at"),
             met=met,
+            baseline=data["baseline"] if isinstance(data.get("baseline"), Mapping) else None,
         )
 
 
@@ -406,6 +409,15 @@ class PlumblineClient:
         )
         met: bool | None = None if require is None else resp.status_code != 412
         return self._parse(VerdictResult.from_json, self._json(resp), met=met)
+
+    def compare(self, model: str, *, a: str, b: str) -> dict[str, Any]:
+        """``GET /v1/models/{model}/compare``: version ``b`` against version ``a`` (or
+        ``latest-pass``) on their stored holdouts, as the service answers it (JSON)."""
+        resp = self._send("GET", f"/v1/models/{_segment(model)}/compare", params={"a": a, "b": b})
+        data = self._json(resp)
+        if not isinstance(data, dict):
+            raise ServerError("the comparison is not a JSON object")
+        return data
 
     def create_link(self, assessment_id: str) -> str | None:
         """``POST /v1/assessments/{id}/links``: a shareable report URL, or ``None`` when the

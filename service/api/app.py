@@ -16,7 +16,7 @@ from .deps import Services, register
 from .errors import install_error_handlers
 from .metrics import Metrics, MetricsMiddleware
 from .openapi import examples_dir, install_openapi, load_examples
-from .routers import assessments, checks, health, models, policies, reports, tokens
+from .routers import assessments, checks, compare, health, models, policies, reports, tokens
 from .security import install_hardening
 
 DESCRIPTION = """Plumbline gates forecasting model releases on residual diagnostics over whole
@@ -57,7 +57,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     )
     register(app, store=store, settings=settings, services=services)
     install_error_handlers(app)
-    for module in (assessments, reports, models, checks, policies, tokens, health):
+    for module in (assessments, reports, models, compare, checks, policies, tokens, health):
         app.include_router(module.router)
     install_openapi(app, load_examples(examples_dir(settings.examples_dir)))
     install_hardening(app, settings)

@@ -33,6 +33,8 @@ from service.store.records import (
 )
 
 from . import policy_lookup
+from .baseline import Match as BaselineMatch
+from .baseline import attach as attach_baselines
 from .errors import ApiError
 
 _DUMP = orjson.OPT_SERIALIZE_NUMPY
@@ -144,6 +146,7 @@ class Job:
     timings: dict[str, float] = field(default_factory=dict)
     policy: Policy | None = None
     document: dict[str, Any] | None = None
+    baseline: BaselineMatch | None = None
 
 
 def resolve_policies(store: Store, jobs: list[Job]) -> list[Exception | None]:
@@ -206,7 +209,8 @@ def _weights_unused(job: Job) -> ApiError | None:
 def run_many(store: Store, jobs: list[Job]) -> list[Outcome | BaseException]:
     """Assess ``jobs`` together and save the stored ones in one transaction.
 
-    Policies not yet resolved are resolved first (:func:`resolve_policies`). The checks of
+    Policies not yet resolved are resolved first (:func:`resolve_policies`), then the
+    baselines asked for (:func:`service.api.baseline.attach`). The checks of
     jobs that share a policy and shape run in one vectorised pass
     (:func:`service.core.gate.assess_many_results`); each job is still decided and answered on
     its own series alone. A job's own failure is returned in its place: an unknown policy, an
@@ -214,6 +218,7 @@ def run_many(store: Store, jobs: list[Job]) -> list[Outcome | BaseException]:
     on its write (then it was not written; jobs with ``store`` false keep their answers).
     """
     outcomes: list[Outcome | BaseException | None] = list(resolve_policies(store, jobs))
+    attach_baselines(store, jobs, outcomes)
     ready = [i for i, o in enumerate(outcomes) if o is None]
     clock = time.perf_counter()
     results = assess_many_results([(jobs[i].req.batch, jobs[i].policy) for i in ready])  # type: ignore[misc]
@@ -282,7 +287,7 @@ def _document(job: Job, result: AssessmentResult) -> AssessmentDocument:
         labels=req.labels,
         season_length=req.season_length,
         model_params=req.model_params,
-        extra={},
+        extra={} if job.baseline is None else {"baseline": job.baseline.block()},
         result=result,
     )
 

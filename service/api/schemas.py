@@ -56,7 +56,8 @@ _KINDS: dict[str, Any] = {
 
 def _field(spec: FieldSpec, nested: Mapping[str, type[BaseModel]]) -> tuple[Any, Any]:
     """(annotation, FieldInfo) of one request field."""
-    annotation = nested[spec.name] if spec.kind in ("series", "holdout") else _KINDS[spec.kind]
+    nests = ("series", "holdout", "baseline")
+    annotation = nested[spec.name] if spec.kind in nests else _KINDS[spec.kind]
     if spec.kind == "series":
         annotation = list[annotation]  # type: ignore[valid-type]
     options: dict[str, Any] = {
@@ -95,13 +96,27 @@ def _body_model(
     )
 
 
+class BaselineBody(BaseModel):
+    """The stored version of the same model the holdout is compared with."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    version: str = Field(
+        min_length=1,
+        max_length=200,
+        description="A stored version of the same model, or latest-pass: the newest other "
+        "version whose latest verdict passed.",
+        examples=["latest-pass", "2026.11.02"],
+    )
+
+
 HoldoutBody = _body_model("HoldoutBody", shape.HOLDOUT)
 SeriesBody = _body_model("SeriesBody", shape.SERIES, nested={"holdout": HoldoutBody})
 AssessmentBody = _body_model(
     "AssessmentBody",
     shape.ENVELOPE,
     "Body of ``POST /v1/assessments`` as JSON.",
-    nested={"series": SeriesBody},
+    nested={"series": SeriesBody, "baseline": BaselineBody},
 )
 
 
@@ -167,7 +182,10 @@ def _fleet_statistics() -> dict[str, Any]:
             record = type(check.fleet.empty.result)
             hints = typing.get_type_hints(record)
             fields = {f.name: _statistic_type(hints[f.name]) for f in dataclasses.fields(record)}
-            out[check.fleet.key] = (_flat_model(f"Fleet{check.fleet.key.title()}", fields), ...)
+            model = _flat_model(f"Fleet{check.fleet.key.title()}", fields)
+            # A check that applies to some batches only (the baseline comparison) writes its
+            # statistic only into their results: not required.
+            out[check.fleet.key] = (model, ...) if check.applies is None else (model, None)
     return out
 
 
@@ -277,6 +295,45 @@ class SeriesRowPage(BaseModel):
     items: list[SeriesRow]
 
 
+class BaselineMatching(BaseModel):
+    """How a baseline's holdout was matched to the new one: series by id, periods by
+    timestamp when both sides give them, else by position; what found no match is counted
+    (ids listed up to 100 per kind), never guessed."""
+
+    requested: str = Field(description="The baseline as asked for: a version or latest-pass.")
+    matched_series: int
+    matched_periods: int
+    matched_by: dict[str, int] = Field(description="Matched series by timestamp and by position.")
+    unmatched_periods: int = Field(
+        description="Holdout periods of matched series without a baseline value."
+    )
+    unmatched_series: int = Field(description="Series with a holdout and no baseline value.")
+    unmatched_series_ids: list[str]
+    baseline_only_series: int = Field(description="Baseline series the new version lacks.")
+    baseline_only_series_ids: list[str]
+
+
+class BaselineRecord(BaselineMatching):
+    """The stored assessment an assessment's holdout was compared with (the ``baseline`` field
+    of its result)."""
+
+    version: str
+    assessment_id: str
+    created_at: datetime
+    verdict: Verdict
+
+
+class VerdictBaseline(BaselineRecord):
+    """The latest assessment's comparison with its baseline: which one, the matching, the
+    ``baseline_accuracy`` check's summary and fleet figures."""
+
+    check: dict[str, Any] | None = None
+    fleet: dict[str, Any] | None = None
+    reasons: list[str] = Field(
+        default_factory=list, description="The comparison's fleet-level reason sentences."
+    )
+
+
 class ModelVerdict(BaseModel):
     model: str
     version: str
@@ -286,6 +343,45 @@ class ModelVerdict(BaseModel):
     policy: PolicyRef
     require: Verdict | None = None
     met: bool | None = None
+    baseline: VerdictBaseline | None = Field(
+        None, description="Present when the latest assessment had a baseline."
+    )
+
+
+class ComparedVersion(BaseModel):
+    version: str
+    assessment_id: str
+    created_at: datetime
+    verdict: Verdict
+
+
+class ComparedSeries(BaseModel):
+    """One series of ``b`` against ``a``: the matching and the ``baseline_accuracy`` check's
+    figures (its declared details in ``details``)."""
+
+    series_id: str
+    weight: float | None
+    matched_periods: int
+    unmatched_periods: int
+    matched_by: Literal["timestamp", "position"] | None
+    status: CheckStatus | None
+    statistic: float | None
+    p_value: float | None
+    p_adjusted: float | None
+    details: dict[str, Any]
+
+
+class Comparison(BaseModel):
+    """Version ``b`` against version ``a`` on their matched holdout periods."""
+
+    model: str
+    a: ComparedVersion
+    b: ComparedVersion
+    matching: BaselineMatching
+    check: dict[str, Any] | None = Field(description="The check's summary over the fleet.")
+    fleet: dict[str, Any] | None = Field(description="The check's fleet-level figures.")
+    reasons: list[str] = Field(description="The comparison's fleet-level reason sentences.")
+    series: list[ComparedSeries]
 
 
 # --- catalogue, policies, tokens --------------------------------------------------------------

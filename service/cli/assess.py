@@ -24,6 +24,7 @@ def overrides_from_args(args: argparse.Namespace) -> Overrides:
         model_params=args.model_params,
         level=args.level,
         labels=dict(parse_label(text) for text in args.label),
+        baseline=args.baseline,
     )
 
 
@@ -103,6 +104,12 @@ def assess_offline(inp: AssessInput) -> AssessmentDocument:
         policy_value, labels = request.policy, dict(request.labels)
     else:
         request = parse_csv(inp)
+    if request.baseline is not None:
+        raise CliError(
+            f"{inp.name}: a baseline ({request.baseline!r}) is read from the versions stored on "
+            "a server; --offline has none: leave the baseline out or assess on a server"
+        )
+    if inp.kind == "csv":
         policy_value = inp.inline_policy if inp.inline_policy is not None else request.policy
         labels = {**request.labels, **inp.labels}
 

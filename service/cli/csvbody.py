@@ -74,7 +74,7 @@ def request_body(request: Any) -> dict[str, Any]:
                 hold["timestamps"] = list(request.holdout_timestamps[i])
             item["holdout"] = hold
         series.append(item)
-    return {
+    body = {
         "model": request.model,
         "version": request.version,
         "policy": request.policy,
@@ -83,6 +83,9 @@ def request_body(request: Any) -> dict[str, Any]:
         "labels": dict(request.labels),
         "series": series,
     }
+    if getattr(request, "baseline", None) is not None:
+        body["baseline"] = {"version": request.baseline}
+    return body
 
 
 def csv_as_body(inp: AssessInput) -> dict[str, Any]:

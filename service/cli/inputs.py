@@ -33,6 +33,7 @@ class Overrides:
     model_params: int | None = None
     level: float | None = None
     labels: dict[str, str] = field(default_factory=dict)
+    baseline: str | None = None
 
 
 @dataclass(frozen=True)
@@ -197,6 +198,8 @@ def apply_to_body(name: str, body: dict[str, Any], o: Overrides) -> dict[str, An
         value = getattr(o, key)
         if value is not None:
             out[key] = value
+    if o.baseline is not None:
+        out["baseline"] = {"version": o.baseline}
     if o.labels:
         labels = out.get("labels")
         if labels is None:
@@ -210,7 +213,7 @@ def apply_to_body(name: str, body: dict[str, Any], o: Overrides) -> dict[str, An
 def csv_params(o: Overrides) -> dict[str, str]:
     """The query parameters of a CSV upload (all strings, as they travel)."""
     params: dict[str, str] = {}
-    for key in ("model", "version", "policy", "season_length", "model_params", "level"):
+    for key in ("model", "version", "policy", "season_length", "model_params", "level", "baseline"):
         value = getattr(o, key)
         if value is not None and not isinstance(value, dict):
             params[key] = str(value)

@@ -121,6 +121,13 @@ def build_parser() -> Parser:
         "--level", metavar="L", type=_level, help="CSV only: nominal level of the intervals"
     )
     p.add_argument(
+        "--baseline",
+        metavar="VERSION|latest-pass",
+        help="compare the holdout with a stored version of the same model, or with the newest "
+        "other version whose latest verdict passed (latest-pass); a significantly less "
+        "accurate version fails the gate",
+    )
+    p.add_argument(
         "--label",
         metavar="KEY=VALUE",
         action="append",

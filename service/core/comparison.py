@@ -26,6 +26,8 @@ from .types import FloatMatrix, FloatVector, InputError, IntVector, ObjectVector
 LOSSES = ("squared", "absolute")
 DM_VARIANCES = ("ewc", "acf")
 DM_MIN_OBS = 3
+DM_EQUAL_LOSSES = "the model and the benchmark have equal losses at every step"
+"""The skip reason of :func:`dm_test` where the two losses are equal at every step."""
 
 
 def hln_factor(n_obs: IntVector | int, h: IntVector | int) -> FloatVector:
@@ -215,7 +217,7 @@ def dm_test(
     reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < min_obs, f"fewer than {min_obs} holdout steps with both forecasts"),
-        (zero, "the model and the benchmark have equal losses at every step"),
+        (zero, DM_EQUAL_LOSSES),
     )
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         if variance == "acf":

@@ -591,6 +591,8 @@ def _fleet_findings(
         if check.fleet is None:
             continue
         test = check.fleet
+        if not check.applies_to(results.batch):
+            continue  # not part of this batch's result at all
         if check.name not in results.checks:
             out[test.key] = (check.name, test.empty)
             continue
@@ -600,11 +602,12 @@ def _fleet_findings(
         finding = test.compute(results, weights, policy)
         cp = policy.check(check.name)
         p = finding.p_value
+        p_warn = p if finding.warn_p_value is None else finding.warn_p_value
         code = PASS
         if finding.material and np.isfinite(p):
             if cp.fleet_fail_p is not None and p < cp.fleet_fail_p / k_fail:
                 code = FAIL
-            elif finding.warn_p is not None and p < finding.warn_p / k_warn:
+            elif finding.warn_p is not None and p_warn < finding.warn_p / k_warn:
                 code = WARN
         out[test.key] = (check.name, replace(finding, code=code))
     return out

@@ -75,6 +75,7 @@ def build_request(envelope: Envelope, cols: SeriesColumns) -> AssessmentRequest:
         train_lengths=a_len,
         holdout_lengths=h_len,
         weights_given=tuple(cols.weights),
+        baseline=envelope.baseline,
     )
 
 

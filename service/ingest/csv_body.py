@@ -20,7 +20,7 @@ import numpy as np
 from .arrays import check_magnitude, check_timestamps
 from .assemble import build_request
 from .csv_rows import Columns, ReadSeries, read_rows
-from .fields import read_int, read_name, read_policy
+from .fields import read_baseline_version, read_int, read_name, read_policy
 from .request import (
     AssessmentRequest,
     Envelope,
@@ -34,7 +34,9 @@ from .shape import ENVELOPE, HOLDOUT, spec
 
 CSV_REQUIRED = ("series_id", "actual", "fitted")
 CSV_OPTIONAL = ("timestamp", "part", "lower", "upper")
-CSV_PARAMS = frozenset({"model", "version", "policy", "season_length", "model_params", "level"})
+CSV_PARAMS = frozenset(
+    {"model", "version", "policy", "season_length", "model_params", "level", "baseline"}
+)
 
 _SEASON_LENGTH = spec(ENVELOPE, "season_length")
 _MODEL_PARAMS = spec(ENVELOPE, "model_params")
@@ -53,9 +55,9 @@ def parse_csv_request(
     Columns ``series_id``, ``actual``, ``fitted`` (required), ``timestamp``, ``part`` (``train``
     by default, or ``holdout``; holdout rows carry the forecast in ``fitted``), ``lower``,
     ``upper``. ``params`` holds ``model``, ``version``, ``policy``, ``season_length``,
-    ``model_params`` and ``level`` (the query parameters). Rows of one series keep their order;
-    series keep the order of their first row. Empty cells are missing values. Errors name
-    ``line[N].column`` (line 1 is the header) or the series' field.
+    ``model_params``, ``level`` and ``baseline`` (the query parameters). Rows of one series
+    keep their order; series keep the order of their first row. Empty cells are missing
+    values. Errors name ``line[N].column`` (line 1 is the header) or the series' field.
     """
     params = dict(params or {})
     errs = Errors()
@@ -157,6 +159,9 @@ def read_csv_envelope(params: Mapping[str, str], errs: Errors) -> Envelope:
         season_length=_param_int(params, "season_length", errs, _SEASON_LENGTH.default, 1),
         model_params=_param_int(params, "model_params", errs, _MODEL_PARAMS.default, 0),
         labels={},
+        baseline=None
+        if params.get("baseline") is None
+        else read_baseline_version(params["baseline"], "baseline.version", errs),
     )
 
 

@@ -21,7 +21,7 @@ import orjson
 
 from .arrays import check_timestamps, flat_numbers
 from .assemble import build_request
-from .fields import read_int, read_labels, read_name, read_policy
+from .fields import read_baseline, read_int, read_labels, read_name, read_policy
 from .request import (
     MAX_ABS_VALUE,
     MAX_NAME_LENGTH,
@@ -179,6 +179,7 @@ def read_envelope(doc: Mapping[str, Any], errs: Errors) -> Envelope:
             minimum=int(_MODEL_PARAMS.minimum or 0),
         ),
         labels=read_labels(doc.get("labels"), errs),
+        baseline=read_baseline(doc.get("baseline"), errs),
     )
 
 

@@ -58,10 +58,11 @@ class AssessmentRequest:
     """A parsed, validated assessment request.
 
     ``policy`` is a stored policy's name or an inline policy document (a dict, validated by the
-    gate). ``timestamps`` and ``holdout_timestamps`` hold one list of ISO 8601 strings per series
-    (``None`` where a series has none). ``train_lengths`` / ``holdout_lengths`` are the lengths
-    of the arrays as sent and ``weights_given`` the weights as sent (``None``: the default), so
-    stored inputs can be given back exactly.
+    gate); ``baseline`` the version its holdout is to be compared with (the service resolves
+    it against the store). ``timestamps`` and ``holdout_timestamps`` hold one list of ISO 8601
+    strings per series (``None`` where a series has none). ``train_lengths`` /
+    ``holdout_lengths`` are the lengths of the arrays as sent and ``weights_given`` the weights
+    as sent (``None``: the default), so stored inputs can be given back exactly.
     """
 
     model: str
@@ -77,6 +78,8 @@ class AssessmentRequest:
     train_lengths: np.ndarray
     holdout_lengths: np.ndarray
     weights_given: tuple[float | None, ...]
+    baseline: str | None = None
+    """The ``baseline.version`` asked for (a stored version or ``latest-pass``), or ``None``."""
 
     @property
     def n_series(self) -> int:
@@ -93,6 +96,7 @@ class Envelope:
     season_length: int
     model_params: int
     labels: dict[str, str]
+    baseline: str | None = None
 
 
 @dataclass(frozen=True, eq=False)

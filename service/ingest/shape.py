@@ -12,6 +12,7 @@ The JSON parser names unknown fields from these tables, the OpenAPI request mode
 ``strings`` an array of strings (ISO 8601 timestamps)
 ``policy``  a stored policy's name or an inline policy document
 ``labels``  an object of string values
+``baseline`` the version to compare against: ``{"version": "..."}``
 ``series``  the array of series objects
 ``holdout`` the holdout object of one series
 =========== ==========================================================
@@ -26,7 +27,16 @@ from dataclasses import dataclass
 from typing import Any, Literal
 
 Kind = Literal[
-    "text", "integer", "number", "numbers", "strings", "policy", "labels", "series", "holdout"
+    "text",
+    "integer",
+    "number",
+    "numbers",
+    "strings",
+    "policy",
+    "labels",
+    "baseline",
+    "series",
+    "holdout",
 ]
 
 
@@ -71,6 +81,14 @@ ENVELOPE: tuple[FieldSpec, ...] = (
         description="Parameters the model estimated.",
     ),
     FieldSpec("labels", "labels"),
+    FieldSpec(
+        "baseline",
+        "baseline",
+        description="Compare the holdout with a stored version of the same model: "
+        '{"version": "2026.11.02"}, or {"version": "latest-pass"} for the newest other '
+        "version whose latest verdict passed.",
+        example={"version": "latest-pass"},
+    ),
     FieldSpec("series", "series", required=True),
 )
 """The body of ``POST /v1/assessments`` as JSON."""
@@ -120,3 +138,7 @@ def spec(fields: tuple[FieldSpec, ...], name: str) -> FieldSpec:
 TOP_LEVEL_FIELDS = frozenset(f.name for f in ENVELOPE)
 SERIES_FIELDS = frozenset(f.name for f in SERIES)
 HOLDOUT_FIELDS = frozenset(f.name for f in HOLDOUT)
+BASELINE_FIELDS = frozenset({"version"})
+"""The fields of the ``baseline`` object."""
+LATEST_PASS = "latest-pass"
+"""The ``baseline.version`` that names the newest other version whose latest verdict passed."""

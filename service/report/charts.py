@@ -275,6 +275,18 @@ def _holdout(ax: Any, d: SeriesDiagnostics) -> None:
         markersize=3.0,
         label="model forecast",
     )
+    if h.baseline_forecasts is not None:
+        ax.plot(
+            x_hold,
+            h.baseline_forecasts[: x_hold.size],
+            color=ROLE_COLOURS["highlight"],
+            marker="^",
+            markersize=3.0,
+            linestyle="-.",
+            linewidth=1.4,
+            label="baseline forecast"
+            + ("" if not h.baseline_label else f": version {h.baseline_label}"),
+        )
     if h.benchmark is not None and h.benchmark_forecasts is not None:
         ax.plot(
             x_hold,
@@ -341,7 +353,12 @@ _SPECS: dict[str, tuple[str, _Draw, _Caption]] = {
         lambda d: (
             "The out-of-sample period after the dotted line: actuals, the model's "
             "forecasts, its prediction interval and the forecast of the best simple benchmark "
-            "fitted to the same training actuals."
+            "fitted to the same training actuals"
+            + (
+                "; dash-dot: the baseline version's forecasts on the matched periods."
+                if d.holdout is not None and d.holdout.baseline_forecasts is not None
+                else "."
+            )
         ),
     ),
 }

@@ -52,6 +52,11 @@ class SeriesInputs:
     holdout_upper: FloatVector | None = None
     level: float | None = None
     holdout_timestamps: tuple[str, ...] | None = None
+    baseline_forecasts: FloatVector | None = None
+    """The baseline version's forecasts on this holdout's periods (``NaN`` where it has
+    none), when the assessment was compared with one."""
+    baseline_label: str | None = None
+    """The baseline's version."""
 
     @property
     def has_holdout(self) -> bool:

@@ -28,6 +28,7 @@ from service.results import (
     SeriesTable,
 )
 
+from .baseline import section as baseline_section
 from .charts import Chart
 from .style import PAGE_CSS
 
@@ -395,6 +396,7 @@ def render_report(assessment: AssessmentDocument, *, series_href: SeriesHref) ->
         + '<section class="card" id="checks-section"><h2>Checks across the fleet</h2>'
         + _checks_table(assessment.checks)
         + "</section>"
+        + baseline_section(assessment)
         + '<section class="card" id="bias-section"><h2>Fleet bias</h2>'
         + _fleet_bias(assessment.fleet)
         + "</section>"

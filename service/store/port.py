@@ -29,6 +29,7 @@ from .records import (
     NewAssessment,
     SeriesInput,
     StoredAssessment,
+    StoredHead,
     StoredPolicy,
     StoredToken,
 )
@@ -130,6 +131,18 @@ class Store(ABC):
         self, *, model: str, version: str | None = None
     ) -> AssessmentSummary | None:
         """The newest assessment of ``model`` (and ``version``), or ``None``."""
+
+    @abstractmethod
+    def latest_passing_assessment(
+        self, *, model: str, exclude_version: str | None = None
+    ) -> AssessmentSummary | None:
+        """The newest assessment of ``model`` that is the latest of its version and passed,
+        leaving out ``exclude_version`` (a baseline's ``latest-pass``), or ``None``."""
+
+    @abstractmethod
+    def assessment_head(self, *, assessment_id: str) -> StoredHead | None:
+        """The stored assessment without its series (its summary, the result's head and the
+        policy document that decided it), or ``None`` when there is no such id."""
 
     @abstractmethod
     def series_inputs(self, *, assessment_id: str) -> list[SeriesInput] | None:

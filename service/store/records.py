@@ -102,6 +102,16 @@ class StoredAssessment:
 
 
 @dataclass(frozen=True)
+class StoredHead:
+    """A stored assessment without its series: its summary, ``head`` (the result without
+    ``series``, JSON bytes) and the policy document that decided it."""
+
+    summary: AssessmentSummary
+    head: bytes
+    policy_document: dict[str, Any]
+
+
+@dataclass(frozen=True)
 class SeriesResult:
     """One series' result, already encoded as the JSON the API returns."""
 

@@ -40,6 +40,7 @@ from .records import (
     SeriesInput,
     SeriesResult,
     StoredAssessment,
+    StoredHead,
     StoredPolicy,
     StoredToken,
     hash_token,
@@ -60,8 +61,10 @@ __all__ = [
     "SeriesInput",
     "SeriesResult",
     "StoredAssessment",
+    "StoredHead",
     "StoredPolicy",
     "StoredToken",
+    "assessment_head",
     "count_tokens",
     "create_token",
     "find_idempotency_key",
@@ -72,6 +75,7 @@ __all__ = [
     "get_policy",
     "hash_token",
     "latest_assessment",
+    "latest_passing_assessment",
     "latest_policy_document",
     "list_assessments",
     "list_policies",
@@ -326,6 +330,44 @@ def latest_assessment(
     """The newest assessment of ``model`` (and ``version``), or ``None``."""
     found = list_assessments(engine, model=model, version=version, limit=1)
     return found[0] if found else None
+
+
+def latest_passing_assessment(
+    engine: Engine, *, model: str, exclude_version: str | None = None
+) -> AssessmentSummary | None:
+    """The newest assessment of ``model`` that is the latest of its version and passed (a
+    version re-assessed since with another verdict does not count), leaving out
+    ``exclude_version``; ``None`` when there is none."""
+    newer = A.alias("newer")
+    later = (
+        select(newer.c.seq)
+        .where(newer.c.model == A.c.model, newer.c.version == A.c.version, newer.c.seq > A.c.seq)
+        .exists()
+    )
+    q = select(*_SUMMARY_COLUMNS).where(A.c.model == model, A.c.verdict == "pass", ~later)
+    if exclude_version is not None:
+        q = q.where(A.c.version != exclude_version)
+    q = q.order_by(A.c.seq.desc()).limit(1)
+    with engine.connect() as conn:
+        row = conn.execute(q).first()
+    return None if row is None else _summary(row)
+
+
+def assessment_head(engine: Engine, *, assessment_id: str) -> StoredHead | None:
+    """A stored assessment without its series, with its policy document, or ``None``."""
+    with engine.connect() as conn:
+        row = conn.execute(
+            select(*_SUMMARY_COLUMNS, A.c.result, A.c.policy_document).where(
+                A.c.id == assessment_id
+            )
+        ).first()
+    if row is None:
+        return None
+    return StoredHead(
+        summary=_summary(row),
+        head=row.result.encode(),
+        policy_document=orjson.loads(row.policy_document),
+    )
 
 
 def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | None:

@@ -31,6 +31,7 @@ from .records import (
     NewAssessment,
     SeriesInput,
     StoredAssessment,
+    StoredHead,
     StoredPolicy,
     StoredToken,
 )
@@ -130,6 +131,18 @@ class SqlStore(Store):
         self, *, model: str, version: str | None = None
     ) -> AssessmentSummary | None:
         return repo.latest_assessment(self.engine, model=model, version=version)
+
+    @_translated
+    def latest_passing_assessment(
+        self, *, model: str, exclude_version: str | None = None
+    ) -> AssessmentSummary | None:
+        return repo.latest_passing_assessment(
+            self.engine, model=model, exclude_version=exclude_version
+        )
+
+    @_translated
+    def assessment_head(self, *, assessment_id: str) -> StoredHead | None:
+        return repo.assessment_head(self.engine, assessment_id=assessment_id)
 
     @_translated
     def series_inputs(self, *, assessment_id: str) -> list[SeriesInput] | None:

@@ -118,6 +118,13 @@ POST_PARAMETERS = [
         "CSV uploads: nominal level of the holdout intervals",
         {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
     ),
+    _param(
+        "baseline",
+        "query",
+        "CSV uploads: compare the holdout with this stored version of the model, or "
+        "latest-pass (the JSON body's baseline.version)",
+        {"type": "string", "minLength": 1, "maxLength": 200},
+    ),
 ]
 _TRUE = frozenset({"true", "1", "yes", "on"})
 _FALSE = frozenset({"false", "0", "no", "off"})
@@ -188,7 +195,7 @@ async def post_assessment(
     services: Annotated[Services, Depends(get_services)],
 ) -> Response:
     """Body: JSON (the shape in the contract) or ``text/csv`` long format with the model,
-    version, policy, season_length, model_params and level as query parameters."""
+    version, policy, season_length, model_params, level and baseline as query parameters."""
     # The hottest endpoint checks its token directly, with the store, settings and services it
     # is given: a dependency of its own costs more than the check itself (the other endpoints
     # use the same check as the ``require`` dependency).

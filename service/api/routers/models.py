@@ -10,6 +10,7 @@ from starlette.responses import Response
 from service.store.port import Store
 
 from ..auth import require
+from ..compare import baseline_of
 from ..deps import get_store
 from ..errors import ApiError
 from ..httputil import json_response, problem_docs
@@ -60,6 +61,9 @@ def latest_verdict(
         "created_at": found.created_at.isoformat(),
         "policy": {"name": found.policy_name, "version": found.policy_version},
     }
+    compared = baseline_of(store, found.id)
+    if compared is not None:
+        body["baseline"] = compared
     if require_ is None:
         return json_response(body)
     met = found.verdict in MEETS[require_]

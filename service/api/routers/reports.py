@@ -9,6 +9,7 @@ assessment is submitted.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Annotated, Any
 from urllib.parse import quote
@@ -236,6 +237,32 @@ def _inputs_of(store: Store, assessment_id: str, series_id: str) -> Any:
     return None
 
 
+def baseline_path(store: Store, block: Any, inputs: Any) -> Any:
+    """``inputs`` with the baseline's forecasts on its holdout periods (matched as the
+    assessment matched them), when the assessment had a baseline whose inputs are stored."""
+    from dataclasses import replace
+
+    from .. import baseline
+
+    if not isinstance(block, Mapping) or not inputs.has_holdout:
+        return inputs
+    head = store.assessment_head(assessment_id=str(block.get("assessment_id")))
+    stored = store.series_inputs(assessment_id=str(block.get("assessment_id")))
+    if head is None or not stored:
+        return inputs
+    mine = [s for s in stored if s.series_id == inputs.series_id]
+    source = baseline.Source(
+        requested=str(block.get("requested")), summary=head.summary, inputs=mine
+    )
+    n = inputs.holdout_actuals.size
+    stamps = None if inputs.holdout_timestamps is None else list(inputs.holdout_timestamps)
+    try:
+        found = baseline.match(source, [inputs.series_id], np.array([n]), [stamps], n)
+    except ApiError:  # nothing of this series matched
+        return inputs
+    return replace(inputs, baseline_forecasts=found.forecasts[0], baseline_label=found.version)
+
+
 @router.get(
     "/{assessment_id}/report/series/{series_id:path}",
     summary="One series' page of the report, with its diagnostic charts",
@@ -282,6 +309,7 @@ async def get_series_report(
             inputs = _inputs_of(ctx.store, assessment_id, series_id)
             if inputs is None:
                 raise ApiError(404, f"the inputs of series {series_id!r} were not stored")
+            inputs = baseline_path(ctx.store, assessment.extra.get("baseline"), inputs)
             diag = series_diagnostics(
                 inputs,
                 entry,

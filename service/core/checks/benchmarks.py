@@ -12,7 +12,7 @@ from ..batch import SeriesBatch
 from ..comparison import DM_MIN_OBS, compare_with_benchmarks, holm
 from ..holdout import BENCHMARKS, benchmark_forecasts, holdout_pairs, holdout_reason
 from ..registry import CheckDef, CheckPolicy, Finding, FleetFinding, FleetTest, Option, fmt
-from ..relative_accuracy import fleet_avg_rel_mae
+from ..relative_accuracy import error_ratio, fleet_avg_rel_mae
 from ..results import NONE, CheckResult, is_none, skip_reasons_and_ran, to_python
 from ..tails import t_sf
 from ..types import FloatMatrix, InputError
@@ -154,16 +154,7 @@ def benchmark_skill(
         forecasts = benchmark_forecasts(batch, err.shape[1])
         for j, name in enumerate(names):
             b_err = batch.holdout.actuals - forecasts[name]  # type: ignore[union-attr]
-            both = ok & ~np.isnan(b_err)
-            with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-                if loss == "squared":
-                    m_size = _rmse(err, both, both.sum(axis=1))
-                    b_size = _rmse(np.where(both, b_err, 0.0), both, both.sum(axis=1))
-                else:
-                    count = np.maximum(both.sum(axis=1), 1)
-                    m_size = np.where(both, np.abs(err), 0.0).sum(axis=1) / count
-                    b_size = np.where(both, np.abs(b_err), 0.0).sum(axis=1) / count
-                ratio = m_size / b_size
+            ratio = error_ratio(np.where(ok, err, np.nan), b_err, loss)
             relative = np.where(best == j, ratio, relative)
     # The reason a series could not be compared: no holdout, no benchmark, or the DM test's.
     no_run = np.where(is_none(cmp.skip_reason), "no comparison could run", cmp.skip_reason)
