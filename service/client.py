@@ -119,13 +119,23 @@ class RequestRejected(ClientError):
             more = len(self.errors) - limit
             text = "; ".join(parts) + (f" (and {more} more)" if more > 0 else "")
             return f"{head}: {text}"
-        return f"{head}: {self.detail}" if self.detail else head
+        return f"{head}: {_short(self.detail, 2 * SHORT_TEXT)}" if self.detail else head
+
+
+SHORT_TEXT = 200
+"""Most characters of one field error in :meth:`RequestRejected.summary`."""
+
+
+def _short(text: str, limit: int = SHORT_TEXT) -> str:
+    """``text`` on one line, cut to ``limit`` characters."""
+    text = " ".join(text.split())
+    return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
 def _error_text(error: Mapping[str, Any]) -> str:
     loc = error.get("loc")
     message = str(error.get("message", "invalid"))
-    return f"{loc}: {message}" if loc else message
+    return _short(f"{loc}: {message}" if loc else message)
 
 
 def _describe(exc: Exception) -> str:

@@ -34,7 +34,8 @@ def errors_line(errors: Any, limit: int = 3) -> str:
     parts = []
     for e in errors[:limit]:
         loc, message = e.get("loc"), e.get("message", "invalid")
-        parts.append(f"{loc}: {message}" if loc else str(message))
+        text = " ".join((f"{loc}: {message}" if loc else str(message)).split())
+        parts.append(text if len(text) <= 200 else text[:197] + "...")
     more = len(errors) - limit
     return "; ".join(parts) + (f" (and {more} more)" if more > 0 else "")
 

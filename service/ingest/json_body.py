@@ -25,6 +25,7 @@ from .fields import read_int, read_labels, read_name, read_policy
 from .request import (
     MAX_ABS_VALUE,
     MAX_NAME_LENGTH,
+    QUOTE_LIMIT,
     AssessmentRequest,
     Envelope,
     Errors,
@@ -205,7 +206,8 @@ def _unknown_fields(at: str, doc: Mapping[Any, Any], known: frozenset[str], errs
     for key in doc:
         if key not in known:
             errs.add(
-                f"{at}.{key}" if at else str(key), f"unknown field; expected one of {expected}"
+                f"{at}.{str(key)[:QUOTE_LIMIT]}" if at else str(key)[:QUOTE_LIMIT],
+                f"unknown field; expected one of {expected}",
             )
 
 

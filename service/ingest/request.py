@@ -164,6 +164,18 @@ class NonFinite:
         return f"the number {self.text[:40]} overflows a 64-bit float"
 
 
+QUOTE_LIMIT = 40
+"""Most characters of a piece of input an error message quotes."""
+
+
+def quote(text: str, limit: int = QUOTE_LIMIT) -> str:
+    """``text`` as an error quotes it: its repr, cut to ``limit`` characters with the full
+    length said, so an error never copies a whole input back."""
+    if len(text) <= limit:
+        return repr(text)
+    return f"{text[:limit]!r}... ({len(text):,} characters)"
+
+
 def describe(value: Any) -> str:
     if isinstance(value, NonFinite):
         return value.describe()
@@ -172,7 +184,9 @@ def describe(value: Any) -> str:
     if isinstance(value, bool):
         return "a boolean"
     if isinstance(value, str):
-        return "a string"
+        if not value:
+            return "an empty string"
+        return "a string of blanks only" if not value.strip() else "a string"
     if isinstance(value, (list, tuple)):
         return "an array"
     if isinstance(value, dict):
