@@ -26,6 +26,7 @@ from typing import Any
 from .records import (
     AssessmentSummary,
     IdempotencyRecord,
+    ModelSummary,
     NewAssessment,
     SeriesInput,
     StoredAssessment,
@@ -130,6 +131,16 @@ class Store(ABC):
         self, *, model: str, version: str | None = None
     ) -> AssessmentSummary | None:
         """The newest assessment of ``model`` (and ``version``), or ``None``."""
+
+    @abstractmethod
+    def list_models(self, *, verdict: str | None = None) -> list[ModelSummary]:
+        """Every model with its newest assessment and counts, by name (``verdict``: only the
+        models whose newest verdict it is)."""
+
+    @abstractmethod
+    def assessment_heads(self, *, seqs: Sequence[int]) -> dict[int, bytes]:
+        """The stored result without its series (JSON bytes) of each of these assessments,
+        by sequence number (one missing from the answer is not stored)."""
 
     @abstractmethod
     def series_inputs(self, *, assessment_id: str) -> list[SeriesInput] | None:

@@ -85,6 +85,16 @@ class AssessmentSummary:
 
 
 @dataclass(frozen=True)
+class ModelSummary:
+    """One model of the estate: its newest assessment, how many it has and of how many
+    versions."""
+
+    latest: AssessmentSummary
+    n_assessments: int
+    n_versions: int
+
+
+@dataclass(frozen=True)
 class StoredAssessment:
     """A stored assessment: ``head`` is the result without its series (JSON bytes), ``series``
     the JSON bytes of each series' result in input order."""

@@ -35,6 +35,7 @@ from .records import (
     TOKEN_PREFIX,
     AssessmentSummary,
     IdempotencyRecord,
+    ModelSummary,
     NewAssessment,
     SeriesInput,
     SeriesResult,
@@ -55,12 +56,14 @@ __all__ = [
     "AssessmentSummary",
     "IdempotencyConflict",
     "IdempotencyRecord",
+    "ModelSummary",
     "NewAssessment",
     "SeriesInput",
     "SeriesResult",
     "StoredAssessment",
     "StoredPolicy",
     "StoredToken",
+    "assessment_heads",
     "count_tokens",
     "create_token",
     "find_idempotency_key",
@@ -73,6 +76,7 @@ __all__ = [
     "latest_assessment",
     "latest_policy_document",
     "list_assessments",
+    "list_models",
     "list_policies",
     "list_tokens",
     "new_id",
@@ -325,6 +329,44 @@ def latest_assessment(
     """The newest assessment of ``model`` (and ``version``), or ``None``."""
     found = list_assessments(engine, model=model, version=version, limit=1)
     return found[0] if found else None
+
+
+def list_models(engine: Engine, *, verdict: str | None = None) -> list[ModelSummary]:
+    """Every model with its newest assessment (and its counts), by model name; ``verdict``
+    keeps the models whose newest verdict it is."""
+    per_model = (
+        select(
+            A.c.model.label("model"),
+            func.max(A.c.seq).label("latest"),
+            func.count().label("n_assessments"),
+            func.count(func.distinct(A.c.version)).label("n_versions"),
+        )
+        .group_by(A.c.model)
+        .subquery()
+    )
+    q = select(*_SUMMARY_COLUMNS, per_model.c.n_assessments, per_model.c.n_versions).join(
+        per_model, A.c.seq == per_model.c.latest
+    )
+    if verdict is not None:
+        q = q.where(A.c.verdict == verdict)
+    q = q.order_by(A.c.model)
+    with engine.connect() as conn:
+        return [
+            ModelSummary(latest=_summary(r), n_assessments=r.n_assessments, n_versions=r.n_versions)
+            for r in conn.execute(q)
+        ]
+
+
+def assessment_heads(engine: Engine, *, seqs: Sequence[int]) -> dict[int, bytes]:
+    """The stored result without its series (JSON bytes) of each assessment in ``seqs``."""
+    out: dict[int, bytes] = {}
+    wanted = sorted(set(seqs))
+    with engine.connect() as conn:
+        for start in range(0, len(wanted), 500):
+            part = wanted[start : start + 500]
+            for seq, head in conn.execute(select(A.c.seq, A.c.result).where(A.c.seq.in_(part))):
+                out[int(seq)] = head.encode()
+    return out
 
 
 def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | None:
