@@ -67,7 +67,8 @@ def _server_options(p: argparse.ArgumentParser, *, timeout: float = 30.0) -> Non
         metavar="N",
         type=_int_at_least(0),
         default=3,
-        help="retries on connection errors and 5xx answers, with backoff (default 3)",
+        help="retries on connection errors, 5xx and 429 answers, after the wait the server "
+        "asks for in Retry-After, else with backoff (default 3)",
     )
 
 
