@@ -39,13 +39,16 @@ from .shape import ENVELOPE, HOLDOUT, spec
 
 CSV_REQUIRED = ("series_id", "actual", "fitted")
 CSV_OPTIONAL = ("timestamp", "part", "lower", "upper")
-CSV_PARAMS = frozenset({"model", "version", "policy", "season_length", "model_params", "level"})
+CSV_PARAMS = frozenset(
+    {"model", "version", "policy", "season_length", "model_params", "level", "burn_in"}
+)
 _KNOWN_COLUMNS = frozenset(CSV_REQUIRED + CSV_OPTIONAL)
 _UNKNOWN_SHOWN = 5
 """Unknown columns named one by one; the rest are counted."""
 
 _SEASON_LENGTH = spec(ENVELOPE, "season_length")
 _MODEL_PARAMS = spec(ENVELOPE, "model_params")
+_BURN_IN = spec(ENVELOPE, "burn_in")
 _LEVEL = spec(HOLDOUT, "level")
 
 
@@ -176,6 +179,7 @@ def read_csv_envelope(params: Mapping[str, str], errs: Errors) -> Envelope:
         season_length=_param_int(params, "season_length", errs, _SEASON_LENGTH.default, 1),
         model_params=_param_int(params, "model_params", errs, _MODEL_PARAMS.default, 0),
         labels={},
+        burn_in=_param_int(params, "burn_in", errs, _BURN_IN.default, 0),
     )
 
 

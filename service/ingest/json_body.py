@@ -40,6 +40,7 @@ from .shape import ENVELOPE, HOLDOUT, HOLDOUT_FIELDS, SERIES_FIELDS, TOP_LEVEL_F
 
 _SEASON_LENGTH = spec(ENVELOPE, "season_length")
 _MODEL_PARAMS = spec(ENVELOPE, "model_params")
+_BURN_IN = spec(ENVELOPE, "burn_in")
 _LEVEL = spec(HOLDOUT, "level")
 _HOLDOUT_ARRAYS = tuple(f.name for f in HOLDOUT if f.kind == "numbers")
 _EMPTY: list[Any] = []
@@ -180,6 +181,13 @@ def read_envelope(doc: Mapping[str, Any], errs: Errors) -> Envelope:
             minimum=int(_MODEL_PARAMS.minimum or 0),
         ),
         labels=read_labels(doc.get("labels"), errs),
+        burn_in=read_int(
+            doc.get("burn_in"),
+            "burn_in",
+            errs,
+            default=_BURN_IN.default,
+            minimum=int(_BURN_IN.minimum or 0),
+        ),
     )
 
 
@@ -221,6 +229,7 @@ class SeriesRows:
         self.fitted: list[list[Any]] = []
         self.timestamps: list[Any] = []
         self.weights: list[float | None] = []
+        self.burn_in: list[int | None] = []
         self.holdout: dict[str, list[list[Any]]] = {k: [] for k in _HOLDOUT_ARRAYS}
         self.holdout_timestamps: list[Any] = []
         self.levels: list[float | None] = []
@@ -263,6 +272,10 @@ def read_series(
     rows.timestamps.append(None if ts is None else _train_timestamps(at, ts, len(a), errs))
     w = s.get("weight")
     rows.weights.append(None if w is None else _weight(at, w, errs))
+    b = s.get("burn_in")
+    rows.burn_in.append(
+        None if b is None else read_int(b, f"{at}.burn_in", errs, default=0, minimum=0)
+    )
     h = s.get("holdout")
     if h is None:
         rows.add_holdout(i, {}, None, None)
@@ -419,6 +432,7 @@ def json_columns(rows: SeriesRows, errs: Errors) -> SeriesColumns:
         timestamps=rows.timestamps,
         weights=rows.weights,
         holdout=holdout,
+        burn_in=rows.burn_in,
     )
 
 

@@ -61,7 +61,9 @@ class AssessmentRequest:
     gate). ``timestamps`` and ``holdout_timestamps`` hold one list of ISO 8601 strings per series
     (``None`` where a series has none). ``train_lengths`` / ``holdout_lengths`` are the lengths
     of the arrays as sent and ``weights_given`` the weights as sent (``None``: the default), so
-    stored inputs can be given back exactly.
+    stored inputs can be given back exactly. ``burn_in`` is each series' burn-in as applied
+    (its own, else the request's ``request_burn_in``), ``burn_in_given`` the per-series values
+    as sent; ``fitted_given`` the fitted values as sent (the batch's hold NaN over a burn-in).
     """
 
     model: str
@@ -77,10 +79,23 @@ class AssessmentRequest:
     train_lengths: np.ndarray
     holdout_lengths: np.ndarray
     weights_given: tuple[float | None, ...]
+    request_burn_in: int = 0
+    burn_in: np.ndarray | None = None
+    burn_in_given: tuple[int | None, ...] = ()
+    fitted_given: np.ndarray | None = None
 
     @property
     def n_series(self) -> int:
         return len(self.ids)
+
+    def burn_in_of(self, i: int) -> int:
+        """Series ``i``'s burn-in as applied."""
+        return 0 if self.burn_in is None else int(self.burn_in[i])
+
+    def fitted_sent(self, i: int) -> np.ndarray:
+        """Series ``i``'s fitted values as sent (its training length)."""
+        source = self.batch.fitted if self.fitted_given is None else self.fitted_given
+        return source[i, : int(self.train_lengths[i])]
 
 
 @dataclass(frozen=True)
@@ -93,6 +108,7 @@ class Envelope:
     season_length: int
     model_params: int
     labels: dict[str, str]
+    burn_in: int = 0
 
 
 @dataclass(frozen=True, eq=False)
@@ -129,6 +145,8 @@ class SeriesColumns:
     timestamps: list[list[str] | None]
     weights: list[float | None]
     holdout: HoldoutColumns | None
+    burn_in: list[int | None] | None = None
+    """Each series' own burn-in as sent (``None``: the request's)."""
 
 
 class Errors:

@@ -163,6 +163,7 @@ def _input_row(i: int, s: SeriesInput) -> dict[str, Any]:
         "holdout_timestamps": None
         if s.holdout_timestamps is None
         else orjson.dumps(s.holdout_timestamps).decode(),
+        "burn_in": s.burn_in or None,
     }
 
 
@@ -393,6 +394,7 @@ def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | 
             holdout_timestamps=None
             if r.holdout_timestamps is None
             else orjson.loads(r.holdout_timestamps),
+            burn_in=r.burn_in or 0,
         )
         for r in rows
     ]

@@ -232,6 +232,7 @@ def _inputs_of(store: Store, assessment_id: str, series_id: str) -> Any:
                 holdout_timestamps=None
                 if s.holdout_timestamps is None
                 else tuple(s.holdout_timestamps),
+                burn_in=s.burn_in,
             )
     return None
 
