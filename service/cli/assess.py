@@ -24,6 +24,7 @@ def overrides_from_args(args: argparse.Namespace) -> Overrides:
         model_params=args.model_params,
         level=args.level,
         labels=dict(parse_label(text) for text in args.label),
+        burn_in=args.burn_in,
     )
 
 

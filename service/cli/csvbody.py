@@ -54,8 +54,10 @@ def request_body(request: Any) -> dict[str, Any]:
         item: dict[str, Any] = {
             "id": sid,
             "actuals": _values(batch.actuals[i], n),
-            "fitted": _values(batch.fitted[i], n),
+            "fitted": _values(request.fitted_sent(i), n),
         }
+        if i < len(request.burn_in_given) and request.burn_in_given[i] is not None:
+            item["burn_in"] = int(request.burn_in_given[i])
         if request.timestamps[i] is not None:
             item["timestamps"] = list(request.timestamps[i])
         if i < len(request.weights_given) and request.weights_given[i] is not None:
@@ -81,6 +83,7 @@ def request_body(request: Any) -> dict[str, Any]:
         "policy": request.policy,
         "season_length": request.season_length,
         "model_params": request.model_params,
+        "burn_in": request.request_burn_in,
         "labels": dict(request.labels),
         "series": series,
     }

@@ -33,6 +33,7 @@ class Overrides:
     model_params: int | None = None
     level: float | None = None
     labels: dict[str, str] = field(default_factory=dict)
+    burn_in: int | None = None
 
 
 @dataclass(frozen=True)
@@ -212,7 +213,7 @@ def apply_to_body(name: str, body: dict[str, Any], o: Overrides) -> dict[str, An
     if o.level is not None:
         raise CliError("--level applies to CSV input; in JSON give holdout.level in each series")
     out = dict(body)
-    for key in ("model", "version", "policy", "season_length", "model_params"):
+    for key in ("model", "version", "policy", "season_length", "model_params", "burn_in"):
         value = getattr(o, key)
         if value is not None:
             out[key] = value
@@ -229,7 +230,7 @@ def apply_to_body(name: str, body: dict[str, Any], o: Overrides) -> dict[str, An
 def csv_params(o: Overrides) -> dict[str, str]:
     """The query parameters of a CSV upload (all strings, as they travel)."""
     params: dict[str, str] = {}
-    for key in ("model", "version", "policy", "season_length", "model_params", "level"):
+    for key in ("model", "version", "policy", "season_length", "model_params", "level", "burn_in"):
         value = getattr(o, key)
         if value is not None and not isinstance(value, dict):
             params[key] = str(value)

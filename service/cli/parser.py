@@ -121,6 +121,13 @@ def build_parser() -> Parser:
         "--level", metavar="L", type=_level, help="CSV only: nominal level of the intervals"
     )
     p.add_argument(
+        "--burn-in",
+        metavar="N",
+        type=_int_at_least(0),
+        help="periods to leave out at the start of every series, e.g. an ARIMA's first d + mD "
+        "fitted values (overrides the file's request-wide burn_in; a series' own stays)",
+    )
+    p.add_argument(
         "--label",
         metavar="KEY=VALUE",
         action="append",
