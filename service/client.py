@@ -53,6 +53,7 @@ __all__ = [
     "AssessmentSummary",
     "CheckSummary",
     "ClientError",
+    "ModelOverview",
     "PlumblineClient",
     "PolicyRef",
     "Reason",
@@ -208,6 +209,48 @@ class AssessmentPage:
         return cls(
             items=tuple(AssessmentSummary.from_json(r) for r in items),
             next_cursor=None if cursor is None else str(cursor),
+        )
+
+
+@dataclass(frozen=True)
+class ModelOverview:
+    """One row of ``GET /v1/models``: a model and its newest assessment."""
+
+    model: str
+    version: str
+    verdict: str
+    assessment_id: str
+    created_at: str | None
+    n_series: int
+    n_passed: int
+    n_warned: int
+    n_failed: int
+    checks_failed: tuple[str, ...]
+    checks_warned: tuple[str, ...]
+    policy: PolicyRef
+    n_assessments: int
+    n_versions: int
+    labels: Mapping[str, str]
+
+    @classmethod
+    def from_json(cls, row: Mapping[str, Any]) -> ModelOverview:
+        policy = row.get("policy") or {}
+        return cls(
+            model=str(row["model"]),
+            version=str(row["version"]),
+            verdict=str(row["verdict"]),
+            assessment_id=str(row["assessment_id"]),
+            created_at=row.get("created_at"),
+            n_series=int(row["n_series"]),
+            n_passed=int(row["n_passed"]),
+            n_warned=int(row["n_warned"]),
+            n_failed=int(row["n_failed"]),
+            checks_failed=tuple(str(c) for c in row.get("checks_failed") or ()),
+            checks_warned=tuple(str(c) for c in row.get("checks_warned") or ()),
+            policy=PolicyRef(name=str(policy.get("name", "")), version=policy.get("version")),
+            n_assessments=int(row["n_assessments"]),
+            n_versions=int(row["n_versions"]),
+            labels={str(k): str(v) for k, v in (row.get("labels") or {}).items()},
         )
 
 
@@ -420,6 +463,15 @@ class PlumblineClient:
         params = {k: _param(v) for k, v in filters.items() if v is not None}
         resp = self._send("GET", "/v1/assessments", params=params)
         return self._parse(AssessmentPage.from_json, self._json(resp))
+
+    def models(self, *, verdict: str | None = None) -> list[ModelOverview]:
+        """``GET /v1/models``: every model with its newest assessment, by name."""
+        params = {} if verdict is None else {"verdict": verdict}
+        data = self._json(self._send("GET", "/v1/models", params=params))
+        items = data.get("items")
+        if not isinstance(items, list):
+            raise ServerError("the models answer has no list of items")
+        return [self._parse(ModelOverview.from_json, row) for row in items]
 
     def verdict(
         self, model: str, *, version: str | None = None, require: str | None = None

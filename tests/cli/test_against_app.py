@@ -452,3 +452,19 @@ def test_burn_in_option_offline_and_on_json(cli, http, files):
     assert n_obs == [s["n_obs"] for s in json.loads(offline.out)["series"]]
     bad = cli("assess", str(files / "weekday.json"), "--offline", "--burn-in", "-1")
     assert bad.code == 2
+
+
+def test_client_lists_the_models(cli, http, files):
+    for name in ("weekday.json", "stale.json"):
+        assert assess(cli, http, files / name).code in (0, 1)
+    client = PlumblineClient(token=ADMIN, http=http)
+    rows = client.models()
+    by_model = {r.model: r for r in rows}
+    latest = {s["model"]: s for s in reversed(stored(http))}  # the newest of each model
+    assert set(by_model) == set(latest)
+    for model, row in by_model.items():
+        assert row.assessment_id == latest[model]["id"]
+        assert row.verdict == latest[model]["verdict"]
+        assert row.n_passed + row.n_warned + row.n_failed == row.n_series
+    failing = client.models(verdict="fail")
+    assert [r.verdict for r in failing] == ["fail"] * len(failing) and failing
