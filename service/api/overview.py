@@ -144,7 +144,9 @@ def list_csv(store: Store, rows: Sequence[AssessmentSummary]) -> bytes:
     return _csv(LIST_COLUMNS, flat, facts)
 
 
-def model_rows(store: Store, models: Sequence[ModelSummary]) -> tuple[list[dict], list[HeadFacts]]:
+def model_rows(
+    store: Store, models: Sequence[ModelSummary]
+) -> tuple[list[dict[str, Any]], list[HeadFacts]]:
     """The JSON rows of ``GET /v1/models`` and the facts they were made from."""
     facts = facts_of(store, [m.latest for m in models])
     rows = []

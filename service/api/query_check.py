@@ -84,7 +84,8 @@ def _unknown(name: str, allowed: frozenset[str]) -> str:
     return message + (f" (did you mean {close[0]!r}?)" if close else "")
 
 
-_DECLARED: dict[int, tuple[frozenset[str], frozenset[str]]] = {}
+_NAMES = "_plumbline_query_names"
+"""The attribute of an operation that keeps its declared names once read."""
 
 
 async def reject_unknown(request: Request) -> None:
@@ -95,10 +96,10 @@ async def reject_unknown(request: Request) -> None:
     route = request.scope.get("route")
     if not isinstance(route, APIRoute):
         return
-    key = id(route)
-    names = _DECLARED.get(key)
+    names = getattr(route, _NAMES, None)
     if names is None:
-        names = _DECLARED[key] = declared(route)
+        names = declared(route)
+        setattr(route, _NAMES, names)
     found = problems(request.scope.get("query_string", b""), *names)
     if found:
         more = len(found) - 1
@@ -116,6 +117,6 @@ def document(router: APIRouter) -> None:
     from .httputil import problem_docs
 
     for route in router.routes:
-        if isinstance(route, APIRoute) and "GET" in route.methods:
+        if isinstance(route, APIRoute) and "GET" in (route.methods or ()):
             for code, doc in problem_docs(422).items():
                 route.responses.setdefault(code, doc)
