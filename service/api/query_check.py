@@ -10,8 +10,10 @@ close match suggested). :func:`document` adds that 422 to each GET's OpenAPI res
 Values are still checked by the declared types (``limit=abc``, an unknown ``verdict``), with
 the same ``query.NAME`` locations.
 
-The check runs before the endpoint's dependencies (the token included): which parameters an
-operation takes is public (``/openapi.json``). Operations other than GET keep their own checks
+An operation that needs a token checks its query string once the token is admitted (in the
+``require`` dependency, or where a report page admits its token or signed link), so a request
+without a valid token is a 401 whatever its parameters; the others (the health probes) are
+checked first thing. Operations other than GET keep their own checks
 (the CSV upload names its unknown parameters itself) and return from it at once.
 """
 
@@ -86,21 +88,40 @@ def _unknown(name: str, allowed: frozenset[str]) -> str:
 
 _NAMES = "_plumbline_query_names"
 """The attribute of an operation that keeps its declared names once read."""
+_LATER = "_plumbline_query_checked_later"
+"""Marks a dependency or an endpoint that calls :func:`check` itself, after admitting the
+request (its token or signed link)."""
 
 
-async def reject_unknown(request: Request) -> None:
-    """The app-wide dependency: a GET whose query string holds a name its operation does not
-    declare, or a single-valued one twice, is refused with a 422 naming each."""
+def checked_later(fn: Any) -> Any:
+    """Mark ``fn`` (the token dependency, or an endpoint that admits requests itself) as
+    calling :func:`check` once the request is admitted: an unknown parameter from someone
+    without a valid token is then a 401 like any other request of theirs."""
+    setattr(fn, _LATER, True)
+    return fn
+
+
+def _names(route: APIRoute) -> tuple[frozenset[str], frozenset[str], bool]:
+    found = getattr(route, _NAMES, None)
+    if found is None:
+        later = getattr(route.endpoint, _LATER, False) or any(
+            getattr(d.call, _LATER, False) for d in route.dependant.dependencies
+        )
+        found = (*declared(route), bool(later))
+        setattr(route, _NAMES, found)
+    return found
+
+
+def check(request: Request) -> None:
+    """Refuse a GET whose query string holds a name its operation does not declare, or a
+    single-valued one twice, with a 422 naming each."""
     if request.method != "GET":
         return
     route = request.scope.get("route")
     if not isinstance(route, APIRoute):
         return
-    names = getattr(route, _NAMES, None)
-    if names is None:
-        names = declared(route)
-        setattr(route, _NAMES, names)
-    found = problems(request.scope.get("query_string", b""), *names)
+    allowed, single, _later = _names(route)
+    found = problems(request.scope.get("query_string", b""), allowed, single)
     if found:
         more = len(found) - 1
         raise ApiError(
@@ -109,6 +130,16 @@ async def reject_unknown(request: Request) -> None:
             + (f" (and {more} more problem{'s' if more > 1 else ''})" if more else ""),
             errors=found,
         )
+
+
+async def reject_unknown(request: Request) -> None:
+    """The app-wide dependency: :func:`check`, for the operations that do not check later
+    (after their token), such as the health probes."""
+    if request.method != "GET":
+        return
+    route = request.scope.get("route")
+    if isinstance(route, APIRoute) and not _names(route)[2]:
+        check(request)
 
 
 def document(router: APIRouter) -> None:

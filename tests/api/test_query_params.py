@@ -93,3 +93,31 @@ def test_posts_keep_their_own_checks(client, body):
     )
     assert r.status_code == 422
     assert r.json()["errors"][0]["loc"] == "modle"
+
+
+def test_without_a_valid_token_the_answer_is_401_whatever_the_parameters(client, body):
+    a = client.post("/v1/assessments", json=body(1), headers=ADMIN).json()
+    for path in (
+        "/v1/assessments",
+        f"/v1/assessments/{a['id']}",
+        "/v1/models",
+        f"/v1/assessments/{a['id']}/report",
+    ):
+        r = client.get(path, params={"no_such_param": "1"})
+        assert r.status_code == 401, (path, r.text)
+        r = client.get(path, params={"no_such_param": "1"}, headers={"Authorization": "Bearer x"})
+        assert r.status_code == 401, (path, r.text)
+    # The probes need no token: checked at once.
+    assert client.get("/healthz", params={"x": "1"}).status_code == 422
+
+
+def test_a_signed_link_with_an_unknown_parameter_is_refused_after_the_link(client, body):
+    a = client.post("/v1/assessments", json=body(1), headers=ADMIN).json()
+    url = client.post(f"/v1/assessments/{a['id']}/links", headers=ADMIN).json()["url"]
+    query = url.split("?", 1)[1]
+    ok = client.get(f"/v1/assessments/{a['id']}/report?{query}")
+    assert ok.status_code == 200
+    r = client.get(f"/v1/assessments/{a['id']}/report?{query}&zoom=2")
+    assert r.status_code == 422 and r.json()["errors"][0]["loc"] == "query.zoom"
+    forged = client.get(f"/v1/assessments/{a['id']}/report?expires=1&signature=x&zoom=2")
+    assert forged.status_code == 403
