@@ -107,6 +107,12 @@ POST_PARAMETERS = [
         "CSV uploads: nominal level of the holdout intervals",
         {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
     ),
+    _param(
+        "burn_in",
+        "query",
+        "CSV uploads: periods left out at the start of every series, default 0",
+        {"type": "integer", "minimum": 0},
+    ),
 ]
 _TRUE = frozenset({"true", "1", "yes", "on"})
 _FALSE = frozenset({"false", "0", "no", "off"})
@@ -177,7 +183,7 @@ async def post_assessment(
     services: Annotated[Services, Depends(get_services)],
 ) -> Response:
     """Body: JSON (the shape in the contract) or ``text/csv`` long format with the model,
-    version, policy, season_length, model_params and level as query parameters."""
+    version, policy, season_length, model_params, level and burn_in as query parameters."""
     # The hottest endpoint checks its token directly, with the store, settings and services it
     # is given: a dependency of its own costs more than the check itself (the other endpoints
     # use the same check as the ``require`` dependency).
