@@ -1,6 +1,8 @@
 """A small synchronous client for the Plumbline REST API, built on httpx.
 
-Connection errors and 5xx answers are retried with exponential backoff. Every assessment is sent
+Connection errors, 5xx answers and 429 (too many requests) are retried with exponential backoff,
+or after the delay a ``Retry-After`` header asks for (seconds or an HTTP date). Every assessment is
+sent
 with one ``Idempotency-Key`` reused across its retries, so a retry after a lost answer returns the
 stored result (200) instead of storing the assessment a second time.
 
@@ -24,7 +26,9 @@ import time
 import uuid
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
-from typing import Any
+from datetime import UTC, datetime
+from email.utils import parsedate_to_datetime
+from typing import Any, Literal
 
 import httpx
 
@@ -49,12 +53,14 @@ __all__ = [
     "AssessmentSummary",
     "CheckSummary",
     "ClientError",
+    "ModelOverview",
     "PlumblineClient",
     "PolicyRef",
     "Reason",
     "RequestRejected",
     "SeriesCheck",
     "SeriesResult",
+    "ServerBusy",
     "ServerError",
     "ServerUnreachable",
     "TokenCreated",
@@ -89,6 +95,15 @@ class ServerError(ClientError):
         super().__init__(message)
 
 
+class ServerBusy(ServerError):
+    """The server kept refusing for load (429 too many requests, or 503) after every retry, or
+    asked to wait longer than the client is willing to (``retry_after`` seconds, when it said)."""
+
+    def __init__(self, message: str, *, status: int, retry_after: float | None = None) -> None:
+        super().__init__(message, status=status)
+        self.retry_after = retry_after
+
+
 class RequestRejected(ClientError):
     """A 4xx answer: the request (body, token, scope, name...) was refused.
 
@@ -119,13 +134,23 @@ class RequestRejected(ClientError):
             more = len(self.errors) - limit
             text = "; ".join(parts) + (f" (and {more} more)" if more > 0 else "")
             return f"{head}: {text}"
-        return f"{head}: {self.detail}" if self.detail else head
+        return f"{head}: {_short(self.detail, 2 * SHORT_TEXT)}" if self.detail else head
+
+
+SHORT_TEXT = 200
+"""Most characters of one field error in :meth:`RequestRejected.summary`."""
+
+
+def _short(text: str, limit: int = SHORT_TEXT) -> str:
+    """``text`` on one line, cut to ``limit`` characters."""
+    text = " ".join(text.split())
+    return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
 def _error_text(error: Mapping[str, Any]) -> str:
     loc = error.get("loc")
     message = str(error.get("message", "invalid"))
-    return f"{loc}: {message}" if loc else message
+    return _short(f"{loc}: {message}" if loc else message)
 
 
 def _describe(exc: Exception) -> str:
@@ -186,6 +211,50 @@ class AssessmentPage:
         return cls(
             items=tuple(AssessmentSummary.from_json(r) for r in items),
             next_cursor=None if cursor is None else str(cursor),
+        )
+
+
+@dataclass(frozen=True)
+class ModelOverview:
+    """One row of ``GET /v1/models``: a model and its newest assessment."""
+
+    model: str
+    version: str
+    verdict: str
+    assessment_id: str
+    created_at: str | None
+    n_series: int
+    n_passed: int
+    n_warned: int
+    n_failed: int
+    checks_failed: tuple[str, ...]
+    checks_warned: tuple[str, ...]
+    policy: PolicyRef
+    n_assessments: int
+    n_versions: int
+    labels: Mapping[str, str]
+
+    @classmethod
+    def from_json(cls, row: Mapping[str, Any]) -> ModelOverview:
+        policy = row.get("policy") or {}
+        return cls(
+            model=str(row["model"]),
+            version=str(row["version"]),
+            verdict=str(row["verdict"]),
+            assessment_id=str(row["assessment_id"]),
+            created_at=row.get("created_at"),
+            n_series=int(row["n_series"]),
+            n_passed=int(row["n_passed"]),
+            n_warned=int(row["n_warned"]),
+            n_failed=int(row["n_failed"]),
+            checks_failed=tuple(str(c) for c in row.get("checks_failed") or ()),
+            checks_warned=tuple(str(c) for c in row.get("checks_warned") or ()),
+            policy=PolicyRef(
+                name=str(policy.get("name", "")), version=int(policy.get("version") or 0)
+            ),
+            n_assessments=int(row["n_assessments"]),
+            n_versions=int(row["n_versions"]),
+            labels={str(k): str(v) for k, v in (row.get("labels") or {}).items()},
         )
 
 
@@ -268,10 +337,13 @@ class PlumblineClient:
     timeout
         Seconds to wait for an answer (an assessment of a large fleet takes a while).
     retries
-        Retries after the first attempt on a connection error or a 5xx answer.
+        Retries after the first attempt on a connection error, a 5xx answer or a 429.
     backoff, max_backoff
-        Delay before retry ``i`` (0-based) is ``min(backoff * 2**i, max_backoff)`` seconds; a
-        numeric ``Retry-After`` on a 5xx answer is honoured up to ``max_backoff``.
+        Delay before retry ``i`` (0-based) is ``min(backoff * 2**i, max_backoff)`` seconds.
+    max_retry_after
+        A ``Retry-After`` on a 429 or 5xx answer (seconds, or an HTTP date) is waited out as
+        asked, up to this many seconds; when the server asks for longer, the client stops
+        and raises :class:`ServerBusy` (or :class:`ServerError`) at once instead.
     sleep, on_retry
         ``sleep(seconds)`` waits between attempts (default ``time.sleep``); ``on_retry(attempt,
         delay, what)`` is told before each retry.
@@ -288,13 +360,14 @@ class PlumblineClient:
         retries: int = 3,
         backoff: float = 0.5,
         max_backoff: float = 8.0,
+        max_retry_after: float = 60.0,
         sleep: Callable[[float], None] | None = None,
         on_retry: RetryHook | None = None,
     ) -> None:
         if retries < 0:
             raise ValueError(f"retries must be >= 0, got {retries}")
-        if backoff < 0 or max_backoff < 0:
-            raise ValueError("backoff and max_backoff must be >= 0")
+        if backoff < 0 or max_backoff < 0 or max_retry_after < 0:
+            raise ValueError("backoff, max_backoff and max_retry_after must be >= 0")
         if base_url is None and http is None:
             raise ValueError("base_url is required unless an httpx.Client is given as http")
         self._base = "" if base_url is None else _check_base_url(base_url)
@@ -308,6 +381,7 @@ class PlumblineClient:
         self._retries = retries
         self._backoff = backoff
         self._max_backoff = max_backoff
+        self._max_retry_after = max_retry_after
         self._sleep = sleep if sleep is not None else time.sleep
         self._on_retry = on_retry
 
@@ -397,6 +471,15 @@ class PlumblineClient:
         resp = self._send("GET", "/v1/assessments", params=params)
         return self._parse(AssessmentPage.from_json, self._json(resp))
 
+    def models(self, *, verdict: str | None = None) -> list[ModelOverview]:
+        """``GET /v1/models``: every model with its newest assessment, by name."""
+        params = {} if verdict is None else {"verdict": verdict}
+        data = self._json(self._send("GET", "/v1/models", params=params))
+        items = data.get("items")
+        if not isinstance(items, list):
+            raise ServerError("the models answer has no list of items")
+        return [self._parse(ModelOverview.from_json, row) for row in items]
+
     def verdict(
         self, model: str, *, version: str | None = None, require: str | None = None
     ) -> VerdictResult:
@@ -423,8 +506,9 @@ class PlumblineClient:
         """``POST /v1/assessments/{id}/links``: a shareable report URL, or ``None`` when the
         server does not offer links (404/405) or this token may not make one (403)."""
         try:
+            # Not retried on failure (a link is a convenience), only when the server is busy.
             resp = self._send(
-                "POST", f"/v1/assessments/{_segment(assessment_id)}/links", retry=False
+                "POST", f"/v1/assessments/{_segment(assessment_id)}/links", retry="busy"
             )
         except RequestRejected as exc:
             if exc.status in (403, 404, 405):
@@ -479,12 +563,12 @@ class PlumblineClient:
     # ------------------------------------------------------------------ plumbing
 
     def _delay(self, attempt: int, resp: httpx.Response | None = None) -> float:
-        delay = min(self._backoff * (2**attempt), self._max_backoff)
+        """The wait before retry ``attempt + 1``: what ``Retry-After`` asks, else the backoff."""
         if resp is not None:
-            after = resp.headers.get("Retry-After", "")
-            if after.strip().isdigit():
-                delay = min(float(after), self._max_backoff)
-        return delay
+            asked = retry_after_seconds(resp.headers.get("Retry-After"))
+            if asked is not None:
+                return asked
+        return min(self._backoff * (2**attempt), self._max_backoff)
 
     def _send(
         self,
@@ -494,17 +578,21 @@ class PlumblineClient:
         content: bytes | None = None,
         headers: Mapping[str, str] | None = None,
         params: Mapping[str, str] | None = None,
-        retry: bool = True,
+        retry: bool | Literal["busy"] = True,
         accept: frozenset[int] | set[int] = frozenset(),
     ) -> httpx.Response:
+        """Send with retries: ``retry=True`` retries connection errors, 5xx and 429;
+        ``"busy"`` only a 429 (the server's rate limit); ``False`` nothing."""
         url = self._base + path
         sent = {"Accept": "application/json, application/problem+json"}
         if self._token:
             sent["Authorization"] = f"Bearer {self._token}"
-        sent.update(headers or {})
+        sent.update(headers or {})  # the same headers (Idempotency-Key) on every attempt
         attempts = self._retries + 1 if retry else 1
+        tried = 0
         for attempt in range(attempts):
-            last = attempt + 1 == attempts
+            tried = attempt + 1
+            last = tried == attempts
             try:
                 resp = self._http.request(
                     method, url, content=content, headers=sent, params=params or None
@@ -512,26 +600,45 @@ class PlumblineClient:
             except httpx.UnsupportedProtocol as exc:
                 raise ValueError(f"server URL {self.base_url!r} is not http(s): {exc}") from exc
             except httpx.TransportError as exc:
-                if last:
-                    raise ServerUnreachable(self.base_url, attempts, exc) from exc
+                if last or retry is not True:
+                    raise ServerUnreachable(self.base_url, tried, exc) from exc
                 self._pause(attempt, None, _describe(exc))
                 continue
-            if resp.status_code >= 500 and not last:
-                self._pause(attempt, resp, f"server answered {resp.status_code}")
+            status = resp.status_code
+            again = status == 429 or (status >= 500 and retry is True)
+            if again and not last:
+                delay = self._delay(attempt, resp)
+                if delay > self._max_retry_after:
+                    break  # asked to wait longer than this client will: answer now
+                self._pause(attempt, resp, f"server answered {status}", delay)
                 continue
             break
-        if resp.status_code >= 500:
-            raise ServerError(
-                f"server error {resp.status_code} from {method} {path} after {attempts} "
-                f"attempt{'s' if attempts != 1 else ''}: {_problem_text(resp)}",
-                status=resp.status_code,
+        status = resp.status_code
+        if status == 429 or status == 503:
+            asked = retry_after_seconds(resp.headers.get("Retry-After"))
+            wait = "" if asked is None else f"; it asked to wait {asked:g}s"
+            if asked is not None and asked > self._max_retry_after:
+                wait += f", longer than this client waits ({self._max_retry_after:g}s)"
+            raise ServerBusy(
+                f"server busy ({status}) on {method} {path} after {tried} "
+                f"attempt{'s' if tried != 1 else ''}{wait}: {_problem_text(resp)}",
+                status=status,
+                retry_after=asked,
             )
-        if resp.status_code >= 400 and resp.status_code not in accept:
+        if status >= 500:
+            raise ServerError(
+                f"server error {status} from {method} {path} after {tried} "
+                f"attempt{'s' if tried != 1 else ''}: {_problem_text(resp)}",
+                status=status,
+            )
+        if status >= 400 and status not in accept:
             raise _rejected(resp)
         return resp
 
-    def _pause(self, attempt: int, resp: httpx.Response | None, what: str) -> None:
-        delay = self._delay(attempt, resp)
+    def _pause(
+        self, attempt: int, resp: httpx.Response | None, what: str, delay: float | None = None
+    ) -> None:
+        delay = self._delay(attempt, resp) if delay is None else delay
         if self._on_retry is not None:
             self._on_retry(attempt + 1, delay, what)
         self._sleep(delay)
@@ -555,6 +662,25 @@ class PlumblineClient:
             return build(data, **kwargs)
         except (ValueError, KeyError, TypeError) as exc:
             raise ServerError(f"unexpected answer from the server: {exc}") from None
+
+
+def retry_after_seconds(value: str | None, now: datetime | None = None) -> float | None:
+    """The seconds a ``Retry-After`` header value asks to wait (RFC 9110 section 10.2.3): a
+    whole number of seconds, or an HTTP date (``now`` is the time it is read at, default the
+    present; a date in the past is 0). ``None`` when absent or unreadable."""
+    if value is None:
+        return None
+    text = value.strip()
+    if text.isdigit():
+        return float(text)
+    try:
+        when = parsedate_to_datetime(text)
+    except (TypeError, ValueError, IndexError):
+        return None
+    if when.tzinfo is None:  # an HTTP date is in GMT
+        when = when.replace(tzinfo=UTC)
+    now = now if now is not None else datetime.now(UTC)
+    return max((when - now).total_seconds(), 0.0)
 
 
 def _check_base_url(base_url: str) -> str:

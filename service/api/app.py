@@ -5,11 +5,12 @@ from __future__ import annotations
 from contextlib import asynccontextmanager
 from typing import Any
 
-from fastapi import FastAPI
+from fastapi import Depends, FastAPI
 
 from service.settings import Settings
 from service.store import make_store
 
+from . import query_check
 from .auth import TokenCache, announce_first_token, ensure_first_token
 from .batching import SubmissionBatcher
 from .deps import Services, register
@@ -48,7 +49,13 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         yield
         store.close()
 
-    app = FastAPI(title="Plumbline", version="1", description=DESCRIPTION, lifespan=lifespan)
+    app = FastAPI(
+        title="Plumbline",
+        version="1",
+        description=DESCRIPTION,
+        lifespan=lifespan,
+        dependencies=[Depends(query_check.reject_unknown)],
+    )
     metrics = Metrics()
     services = Services(
         metrics=metrics,
@@ -58,6 +65,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
     register(app, store=store, settings=settings, services=services)
     install_error_handlers(app)
     for module in (assessments, reports, models, compare, checks, policies, tokens, health):
+        query_check.document(module.router)
         app.include_router(module.router)
     install_openapi(app, load_examples(examples_dir(settings.examples_dir)))
     install_hardening(app, settings)

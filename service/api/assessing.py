@@ -127,8 +127,9 @@ def _inputs(req: AssessmentRequest) -> list[SeriesInput]:
                 series_id=sid,
                 weight=req.weights_given[i],
                 actuals=b.actuals[i, :n],
-                fitted=b.fitted[i, :n],
+                fitted=req.fitted_sent(i),
                 timestamps=req.timestamps[i],
+                burn_in=req.burn_in_of(i),
                 **hold,
             )
         )

@@ -120,6 +120,7 @@ def stored_batch(inputs: list[SeriesInput], season_length: int, model_params: in
         season_length=season_length,
         model_params=model_params,
         lengths=lengths,
+        burn_in=[s.burn_in for s in inputs],
         **kwargs,
     )
     return Stored(

@@ -25,6 +25,7 @@ def overrides_from_args(args: argparse.Namespace) -> Overrides:
         level=args.level,
         labels=dict(parse_label(text) for text in args.label),
         baseline=args.baseline,
+        burn_in=args.burn_in,
     )
 
 

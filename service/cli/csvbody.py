@@ -34,7 +34,8 @@ def errors_line(errors: Any, limit: int = 3) -> str:
     parts = []
     for e in errors[:limit]:
         loc, message = e.get("loc"), e.get("message", "invalid")
-        parts.append(f"{loc}: {message}" if loc else str(message))
+        text = " ".join((f"{loc}: {message}" if loc else str(message)).split())
+        parts.append(text if len(text) <= 200 else text[:197] + "...")
     more = len(errors) - limit
     return "; ".join(parts) + (f" (and {more} more)" if more > 0 else "")
 
@@ -53,8 +54,10 @@ def request_body(request: Any) -> dict[str, Any]:
         item: dict[str, Any] = {
             "id": sid,
             "actuals": _values(batch.actuals[i], n),
-            "fitted": _values(batch.fitted[i], n),
+            "fitted": _values(request.fitted_sent(i), n),
         }
+        if i < len(request.burn_in_given) and request.burn_in_given[i] is not None:
+            item["burn_in"] = int(request.burn_in_given[i])
         if request.timestamps[i] is not None:
             item["timestamps"] = list(request.timestamps[i])
         if i < len(request.weights_given) and request.weights_given[i] is not None:
@@ -80,6 +83,7 @@ def request_body(request: Any) -> dict[str, Any]:
         "policy": request.policy,
         "season_length": request.season_length,
         "model_params": request.model_params,
+        "burn_in": request.request_burn_in,
         "labels": dict(request.labels),
         "series": series,
     }

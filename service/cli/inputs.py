@@ -34,6 +34,7 @@ class Overrides:
     level: float | None = None
     labels: dict[str, str] = field(default_factory=dict)
     baseline: str | None = None
+    burn_in: int | None = None
 
 
 @dataclass(frozen=True)
@@ -130,27 +131,46 @@ def _json_type(value: object) -> str:
     return "a number"
 
 
+CSV_DELIMITERS = (",", ";", "\t")
+"""What the service reads between cells (``service.ingest.csv_dialect``, which imports no more
+than this does but lives in a package that needs numpy)."""
+
+
 def check_csv_header(name: str, text: str) -> list[str]:
-    """The header's column names; raises when it lacks a required column."""
-    first = text.lstrip("\r\n").splitlines()[:1]
+    """The header's column names (lower-cased; names are read in any case, cells separated by
+    a comma, a semicolon or a tab, as the service reads them); raises when it lacks a required
+    column, saying what the header was read as."""
+    first = text.lstrip("\r\n")[: 64 * 1024].splitlines()[:1]
     if not first or not first[0].strip():
         raise CliError(
             f"{name}: empty file, expected a CSV header with columns "
             + ", ".join(REQUIRED_CSV_COLUMNS)
         )
-    try:
-        header = next(csv.reader(io.StringIO(first[0])))
-    except csv.Error as exc:
-        raise CliError(f"{name}: unreadable CSV header: {exc}") from None
-    columns = [c.strip() for c in header]
-    missing = [c for c in REQUIRED_CSV_COLUMNS if c not in columns]
+    best: list[str] = []
+    for delimiter in CSV_DELIMITERS:
+        try:
+            header = next(csv.reader(io.StringIO(first[0]), delimiter=delimiter))
+        except csv.Error as exc:
+            raise CliError(f"{name}: unreadable CSV header: {exc}") from None
+        columns = [c.strip().lower() for c in header]
+        if (
+            sum(c in columns for c in REQUIRED_CSV_COLUMNS)
+            > sum(c in best for c in REQUIRED_CSV_COLUMNS)
+            or not best
+        ):
+            best = columns
+    missing = [c for c in REQUIRED_CSV_COLUMNS if c not in best]
     if missing:
         plural = "s" if len(missing) > 1 else ""
+        shown = [c if len(c) <= 40 else c[:40] + "..." for c in best[:8] if c]
+        more = len(best) - 8
         raise CliError(
             f"{name}: missing required CSV column{plural} {', '.join(missing)} "
-            f"(header has: {', '.join(c for c in columns if c) or 'nothing'})"
+            f"(header has: {', '.join(shown) or 'nothing'}"
+            + (f" and {more:,} more" if more > 0 else "")
+            + "); cells separated by commas, semicolons or tabs are read, names in any case"
         )
-    return columns
+    return best
 
 
 def load_policy_option(value: str) -> str | dict[str, Any]:
@@ -194,7 +214,7 @@ def apply_to_body(name: str, body: dict[str, Any], o: Overrides) -> dict[str, An
     if o.level is not None:
         raise CliError("--level applies to CSV input; in JSON give holdout.level in each series")
     out = dict(body)
-    for key in ("model", "version", "policy", "season_length", "model_params"):
+    for key in ("model", "version", "policy", "season_length", "model_params", "burn_in"):
         value = getattr(o, key)
         if value is not None:
             out[key] = value
@@ -213,7 +233,16 @@ def apply_to_body(name: str, body: dict[str, Any], o: Overrides) -> dict[str, An
 def csv_params(o: Overrides) -> dict[str, str]:
     """The query parameters of a CSV upload (all strings, as they travel)."""
     params: dict[str, str] = {}
-    for key in ("model", "version", "policy", "season_length", "model_params", "level", "baseline"):
+    for key in (
+        "model",
+        "version",
+        "policy",
+        "season_length",
+        "model_params",
+        "level",
+        "baseline",
+        "burn_in",
+    ):
         value = getattr(o, key)
         if value is not None and not isinstance(value, dict):
             params[key] = str(value)

@@ -68,7 +68,8 @@ def _server_options(p: argparse.ArgumentParser, *, timeout: float = 30.0) -> Non
         metavar="N",
         type=_int_at_least(0),
         default=3,
-        help="retries on connection errors and 5xx answers, with backoff (default 3)",
+        help="retries on connection errors, 5xx and 429 answers, after the wait the server "
+        "asks for in Retry-After, else with backoff (default 3)",
     )
 
 
@@ -126,6 +127,13 @@ def build_parser() -> Parser:
         help="compare the holdout with a stored version of the same model, or with the newest "
         "other version whose latest verdict passed (latest-pass); a significantly less "
         "accurate version fails the gate",
+    )
+    p.add_argument(
+        "--burn-in",
+        metavar="N",
+        type=_int_at_least(0),
+        help="periods to leave out at the start of every series, e.g. an ARIMA's first d + mD "
+        "fitted values (overrides the file's request-wide burn_in; a series' own stays)",
     )
     p.add_argument(
         "--label",

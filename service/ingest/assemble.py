@@ -36,6 +36,8 @@ _CORE_LOCS = {
     "holdout_lower": "holdout.lower",
     "holdout_upper": "holdout.upper",
     "level": "holdout.level",
+    "burn_in": "burn_in",
+    "lengths": "actuals",
 }
 
 
@@ -52,13 +54,21 @@ def build_request(envelope: Envelope, cols: SeriesColumns) -> AssessmentRequest:
         h_len = cols.holdout.actuals.lengths
         h_ts = cols.holdout.timestamps
         kwargs = _holdout_matrices(cols.holdout)
+    given = list(cols.burn_in) if cols.burn_in is not None else [None] * n
+    burn_in = np.array(
+        [envelope.burn_in if b is None else b for b in given], dtype=np.int64
+    ).reshape(n)
+    fitted = padded_matrix(cols.fitted.values, a_len, width)
     batch = _make_batch(
         padded_matrix(cols.actuals.values, a_len, width),
-        padded_matrix(cols.fitted.values, a_len, width),
+        fitted,
         ids=cols.ids,
         weights=cols.weights,
         season_length=envelope.season_length,
         model_params=envelope.model_params,
+        # A series ends at its given length: a trailing missing actual is a gap.
+        lengths=a_len,
+        burn_in=burn_in,
         **kwargs,
     )
     return AssessmentRequest(
@@ -76,6 +86,10 @@ def build_request(envelope: Envelope, cols: SeriesColumns) -> AssessmentRequest:
         holdout_lengths=h_len,
         weights_given=tuple(cols.weights),
         baseline=envelope.baseline,
+        request_burn_in=envelope.burn_in,
+        burn_in=burn_in,
+        burn_in_given=tuple(given),
+        fitted_given=fitted if burn_in.any() else None,
     )
 
 

@@ -9,7 +9,7 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any
 
-from .request import MAX_NAME_LENGTH, NUL_MESSAGE, Errors, describe
+from .request import MAX_NAME_LENGTH, NUL_MESSAGE, QUOTE_LIMIT, Errors, describe
 from .shape import BASELINE_FIELDS
 
 
@@ -70,13 +70,13 @@ def read_labels(value: Any, errs: Errors) -> dict[str, str]:
     out: dict[str, str] = {}
     for key, item in value.items():
         if "\x00" in key or (isinstance(item, str) and "\x00" in item):
-            errs.add(f"labels.{key}", NUL_MESSAGE)
+            errs.add(f"labels.{key[:QUOTE_LIMIT]}", NUL_MESSAGE)
         elif isinstance(item, str):
             out[key] = item
         elif isinstance(item, (int, float)) and not isinstance(item, bool):
             out[key] = str(item)
         else:
-            errs.add(f"labels.{key}", f"must be a string, got {describe(item)}")
+            errs.add(f"labels.{key[:QUOTE_LIMIT]}", f"must be a string, got {describe(item)}")
     return out
 
 

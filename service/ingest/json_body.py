@@ -25,6 +25,7 @@ from .fields import read_baseline, read_int, read_labels, read_name, read_policy
 from .request import (
     MAX_ABS_VALUE,
     MAX_NAME_LENGTH,
+    QUOTE_LIMIT,
     AssessmentRequest,
     Envelope,
     Errors,
@@ -39,6 +40,7 @@ from .shape import ENVELOPE, HOLDOUT, HOLDOUT_FIELDS, SERIES_FIELDS, TOP_LEVEL_F
 
 _SEASON_LENGTH = spec(ENVELOPE, "season_length")
 _MODEL_PARAMS = spec(ENVELOPE, "model_params")
+_BURN_IN = spec(ENVELOPE, "burn_in")
 _LEVEL = spec(HOLDOUT, "level")
 _HOLDOUT_ARRAYS = tuple(f.name for f in HOLDOUT if f.kind == "numbers")
 _EMPTY: list[Any] = []
@@ -180,6 +182,13 @@ def read_envelope(doc: Mapping[str, Any], errs: Errors) -> Envelope:
         ),
         labels=read_labels(doc.get("labels"), errs),
         baseline=read_baseline(doc.get("baseline"), errs),
+        burn_in=read_int(
+            doc.get("burn_in"),
+            "burn_in",
+            errs,
+            default=_BURN_IN.default,
+            minimum=int(_BURN_IN.minimum or 0),
+        ),
     )
 
 
@@ -206,7 +215,8 @@ def _unknown_fields(at: str, doc: Mapping[Any, Any], known: frozenset[str], errs
     for key in doc:
         if key not in known:
             errs.add(
-                f"{at}.{key}" if at else str(key), f"unknown field; expected one of {expected}"
+                f"{at}.{str(key)[:QUOTE_LIMIT]}" if at else str(key)[:QUOTE_LIMIT],
+                f"unknown field; expected one of {expected}",
             )
 
 
@@ -220,6 +230,7 @@ class SeriesRows:
         self.fitted: list[list[Any]] = []
         self.timestamps: list[Any] = []
         self.weights: list[float | None] = []
+        self.burn_in: list[int | None] = []
         self.holdout: dict[str, list[list[Any]]] = {k: [] for k in _HOLDOUT_ARRAYS}
         self.holdout_timestamps: list[Any] = []
         self.levels: list[float | None] = []
@@ -262,6 +273,10 @@ def read_series(
     rows.timestamps.append(None if ts is None else _train_timestamps(at, ts, len(a), errs))
     w = s.get("weight")
     rows.weights.append(None if w is None else _weight(at, w, errs))
+    b = s.get("burn_in")
+    rows.burn_in.append(
+        None if b is None else read_int(b, f"{at}.burn_in", errs, default=0, minimum=0)
+    )
     h = s.get("holdout")
     if h is None:
         rows.add_holdout(i, {}, None, None)
@@ -418,6 +433,7 @@ def json_columns(rows: SeriesRows, errs: Errors) -> SeriesColumns:
         timestamps=rows.timestamps,
         weights=rows.weights,
         holdout=holdout,
+        burn_in=rows.burn_in,
     )
 
 

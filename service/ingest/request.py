@@ -62,7 +62,10 @@ class AssessmentRequest:
     it against the store). ``timestamps`` and ``holdout_timestamps`` hold one list of ISO 8601
     strings per series (``None`` where a series has none). ``train_lengths`` /
     ``holdout_lengths`` are the lengths of the arrays as sent and ``weights_given`` the weights
-    as sent (``None``: the default), so stored inputs can be given back exactly.
+    as sent (``None``: the default), so stored inputs can be given back exactly. ``burn_in`` is
+    each series' burn-in as applied (its own, else the request's ``request_burn_in``),
+    ``burn_in_given`` the per-series values
+    as sent; ``fitted_given`` the fitted values as sent (the batch's hold NaN over a burn-in).
     """
 
     model: str
@@ -80,10 +83,23 @@ class AssessmentRequest:
     weights_given: tuple[float | None, ...]
     baseline: str | None = None
     """The ``baseline.version`` asked for (a stored version or ``latest-pass``), or ``None``."""
+    request_burn_in: int = 0
+    burn_in: np.ndarray | None = None
+    burn_in_given: tuple[int | None, ...] = ()
+    fitted_given: np.ndarray | None = None
 
     @property
     def n_series(self) -> int:
         return len(self.ids)
+
+    def burn_in_of(self, i: int) -> int:
+        """Series ``i``'s burn-in as applied."""
+        return 0 if self.burn_in is None else int(self.burn_in[i])
+
+    def fitted_sent(self, i: int) -> np.ndarray:
+        """Series ``i``'s fitted values as sent (its training length)."""
+        source = self.batch.fitted if self.fitted_given is None else self.fitted_given
+        return source[i, : int(self.train_lengths[i])]
 
 
 @dataclass(frozen=True)
@@ -97,6 +113,7 @@ class Envelope:
     model_params: int
     labels: dict[str, str]
     baseline: str | None = None
+    burn_in: int = 0
 
 
 @dataclass(frozen=True, eq=False)
@@ -133,6 +150,8 @@ class SeriesColumns:
     timestamps: list[list[str] | None]
     weights: list[float | None]
     holdout: HoldoutColumns | None
+    burn_in: list[int | None] | None = None
+    """Each series' own burn-in as sent (``None``: the request's)."""
 
 
 class Errors:
@@ -168,6 +187,18 @@ class NonFinite:
         return f"the number {self.text[:40]} overflows a 64-bit float"
 
 
+QUOTE_LIMIT = 40
+"""Most characters of a piece of input an error message quotes."""
+
+
+def quote(text: str, limit: int = QUOTE_LIMIT) -> str:
+    """``text`` as an error quotes it: its repr, cut to ``limit`` characters with the full
+    length said, so an error never copies a whole input back."""
+    if len(text) <= limit:
+        return repr(text)
+    return f"{text[:limit]!r}... ({len(text):,} characters)"
+
+
 def describe(value: Any) -> str:
     if isinstance(value, NonFinite):
         return value.describe()
@@ -176,7 +207,9 @@ def describe(value: Any) -> str:
     if isinstance(value, bool):
         return "a boolean"
     if isinstance(value, str):
-        return "a string"
+        if not value:
+            return "an empty string"
+        return "a string of blanks only" if not value.strip() else "a string"
     if isinstance(value, (list, tuple)):
         return "an array"
     if isinstance(value, dict):

@@ -80,6 +80,15 @@ ENVELOPE: tuple[FieldSpec, ...] = (
         minimum=0,
         description="Parameters the model estimated.",
     ),
+    FieldSpec(
+        "burn_in",
+        "integer",
+        default=0,
+        minimum=0,
+        description="Periods dropped at the start of every series before any check (a model's "
+        "start-up values, e.g. an ARIMA's first d + mD fitted values): their fitted values "
+        "count as missing, their actuals stay training data. Default 0.",
+    ),
     FieldSpec("labels", "labels"),
     FieldSpec(
         "baseline",
@@ -110,6 +119,12 @@ SERIES: tuple[FieldSpec, ...] = (
     ),
     FieldSpec("timestamps", "strings", description="ISO 8601, strictly increasing."),
     FieldSpec("weight", "number", minimum=0, description="Default: sum of |actuals|."),
+    FieldSpec(
+        "burn_in",
+        "integer",
+        minimum=0,
+        description="This series' own burn-in, instead of the request's.",
+    ),
     FieldSpec("holdout", "holdout"),
 )
 """One object of ``series``."""

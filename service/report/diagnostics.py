@@ -173,6 +173,8 @@ def series_diagnostics(
             holdout_lower=_one_row(inputs.holdout_lower) if inputs.has_interval else None,
             holdout_upper=_one_row(inputs.holdout_upper) if inputs.has_interval else None,
             level=inputs.level if inputs.has_interval else None,
+            lengths=[inputs.actuals.size],
+            burn_in=int(inputs.burn_in),
         )
     except InputError as exc:
         raise ReportInputError(exc.argument, exc.message) from exc

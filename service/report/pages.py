@@ -472,10 +472,13 @@ def render_series(
         steps.append(f'<a rel="next" href="{_e(following[1])}">next: {_e(following[0])} →</a>')
     back = f'<p class="meta">{" · ".join(steps)}</p>'
     header = _header(assessment, f"Series {sid}", back, verdict=series.verdict)
+    sufficiency = series.check("data_sufficiency")
+    dropped = None if sufficiency is None else sufficiency.details.get("burn_in")
     facts = _facts(
         [
             ("Fleet verdict", _status(assessment.verdict)),
             ("Residuals", _num(series.n_obs)),
+            *([("Burn-in left out", f"the first {_num(dropped)} periods")] if dropped else []),
             ("Weight", _num(series.weight)),
             ("Mean error", _num(bias.get("mean_error"), 4)),
             (

@@ -93,6 +93,8 @@ class SeriesInputRow(Base):
     holdout_upper: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True)
     holdout_level: Mapped[float | None] = mapped_column(Float, nullable=True)
     holdout_timestamps: Mapped[str | None] = mapped_column(Text, nullable=True)
+    burn_in: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    """Periods dropped at the start of the series (``NULL``: none)."""
 
 
 class PolicyRow(Base):

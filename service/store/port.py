@@ -26,6 +26,7 @@ from typing import Any
 from .records import (
     AssessmentSummary,
     IdempotencyRecord,
+    ModelSummary,
     NewAssessment,
     SeriesInput,
     StoredAssessment,
@@ -143,6 +144,16 @@ class Store(ABC):
     def assessment_head(self, *, assessment_id: str) -> StoredHead | None:
         """The stored assessment without its series (its summary, the result's head and the
         policy document that decided it), or ``None`` when there is no such id."""
+
+    @abstractmethod
+    def list_models(self, *, verdict: str | None = None) -> list[ModelSummary]:
+        """Every model with its newest assessment and counts, by name (``verdict``: only the
+        models whose newest verdict it is)."""
+
+    @abstractmethod
+    def assessment_heads(self, *, seqs: Sequence[int]) -> dict[int, bytes]:
+        """The stored result without its series (JSON bytes) of each of these assessments,
+        by sequence number (one missing from the answer is not stored)."""
 
     @abstractmethod
     def series_inputs(self, *, assessment_id: str) -> list[SeriesInput] | None:

@@ -39,7 +39,8 @@ def hash_token(token: str) -> str:
 
 @dataclass(frozen=True)
 class SeriesInput:
-    """The numbers one series was assessed on (training arrays as sent, holdout if any)."""
+    """The numbers one series was assessed on (training arrays as sent, holdout if any) and
+    its burn-in."""
 
     series_id: str
     weight: float | None
@@ -52,6 +53,8 @@ class SeriesInput:
     holdout_upper: np.ndarray | None = None
     holdout_level: float | None = None
     holdout_timestamps: list[str] | None = None
+    burn_in: int = 0
+    """Periods dropped at the start of the series before any check."""
 
 
 @dataclass(frozen=True)
@@ -82,6 +85,16 @@ class AssessmentSummary:
             "n_warned": self.n_warned,
             "policy": {"name": self.policy_name, "version": self.policy_version},
         }
+
+
+@dataclass(frozen=True)
+class ModelSummary:
+    """One model of the estate: its newest assessment, how many it has and of how many
+    versions."""
+
+    latest: AssessmentSummary
+    n_assessments: int
+    n_versions: int
 
 
 @dataclass(frozen=True)

@@ -36,6 +36,7 @@ from .records import (
     TOKEN_PREFIX,
     AssessmentSummary,
     IdempotencyRecord,
+    ModelSummary,
     NewAssessment,
     SeriesInput,
     SeriesResult,
@@ -57,6 +58,7 @@ __all__ = [
     "AssessmentSummary",
     "IdempotencyConflict",
     "IdempotencyRecord",
+    "ModelSummary",
     "NewAssessment",
     "SeriesInput",
     "SeriesResult",
@@ -65,6 +67,7 @@ __all__ = [
     "StoredPolicy",
     "StoredToken",
     "assessment_head",
+    "assessment_heads",
     "count_tokens",
     "create_token",
     "find_idempotency_key",
@@ -78,6 +81,7 @@ __all__ = [
     "latest_passing_assessment",
     "latest_policy_document",
     "list_assessments",
+    "list_models",
     "list_policies",
     "list_tokens",
     "new_id",
@@ -164,6 +168,7 @@ def _input_row(i: int, s: SeriesInput) -> dict[str, Any]:
         "holdout_timestamps": None
         if s.holdout_timestamps is None
         else orjson.dumps(s.holdout_timestamps).decode(),
+        "burn_in": s.burn_in or None,
     }
 
 
@@ -370,6 +375,44 @@ def assessment_head(engine: Engine, *, assessment_id: str) -> StoredHead | None:
     )
 
 
+def list_models(engine: Engine, *, verdict: str | None = None) -> list[ModelSummary]:
+    """Every model with its newest assessment (and its counts), by model name; ``verdict``
+    keeps the models whose newest verdict it is."""
+    per_model = (
+        select(
+            A.c.model.label("model"),
+            func.max(A.c.seq).label("latest"),
+            func.count().label("n_assessments"),
+            func.count(func.distinct(A.c.version)).label("n_versions"),
+        )
+        .group_by(A.c.model)
+        .subquery()
+    )
+    q = select(*_SUMMARY_COLUMNS, per_model.c.n_assessments, per_model.c.n_versions).join(
+        per_model, A.c.seq == per_model.c.latest
+    )
+    if verdict is not None:
+        q = q.where(A.c.verdict == verdict)
+    q = q.order_by(A.c.model)
+    with engine.connect() as conn:
+        return [
+            ModelSummary(latest=_summary(r), n_assessments=r.n_assessments, n_versions=r.n_versions)
+            for r in conn.execute(q)
+        ]
+
+
+def assessment_heads(engine: Engine, *, seqs: Sequence[int]) -> dict[int, bytes]:
+    """The stored result without its series (JSON bytes) of each assessment in ``seqs``."""
+    out: dict[int, bytes] = {}
+    wanted = sorted(set(seqs))
+    with engine.connect() as conn:
+        for start in range(0, len(wanted), 500):
+            part = wanted[start : start + 500]
+            for seq, head in conn.execute(select(A.c.seq, A.c.result).where(A.c.seq.in_(part))):
+                out[int(seq)] = head.encode()
+    return out
+
+
 def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | None:
     """The stored input arrays of every series, in input order (``None``: no such id)."""
     with engine.connect() as conn:
@@ -394,6 +437,7 @@ def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | 
             holdout_timestamps=None
             if r.holdout_timestamps is None
             else orjson.loads(r.holdout_timestamps),
+            burn_in=r.burn_in or 0,
         )
         for r in rows
     ]

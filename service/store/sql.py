@@ -28,6 +28,7 @@ from .port import Readiness, Store, StoreError, StoreUnavailable
 from .records import (
     AssessmentSummary,
     IdempotencyRecord,
+    ModelSummary,
     NewAssessment,
     SeriesInput,
     StoredAssessment,
@@ -143,6 +144,14 @@ class SqlStore(Store):
     @_translated
     def assessment_head(self, *, assessment_id: str) -> StoredHead | None:
         return repo.assessment_head(self.engine, assessment_id=assessment_id)
+
+    @_translated
+    def list_models(self, *, verdict: str | None = None) -> list[ModelSummary]:
+        return repo.list_models(self.engine, verdict=verdict)
+
+    @_translated
+    def assessment_heads(self, *, seqs: Sequence[int]) -> dict[int, bytes]:
+        return repo.assessment_heads(self.engine, seqs=seqs)
 
     @_translated
     def series_inputs(self, *, assessment_id: str) -> list[SeriesInput] | None:

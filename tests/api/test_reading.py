@@ -121,10 +121,16 @@ def test_list_as_csv(client, body):
         "version",
         "verdict",
         "n_series",
+        "n_passed",
         "n_failed",
         "n_warned",
+        "n_checks_failed",
+        "n_checks_warned",
+        "checks_failed",
+        "checks_warned",
         "policy_name",
         "policy_version",
+        "label.run",
     }
 
 

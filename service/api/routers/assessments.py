@@ -35,24 +35,13 @@ from ..httputil import (
     json_body_doc,
     problem_docs,
 )
+from ..overview import list_csv
 from ..schemas import AssessmentDocument, AssessmentPage, SeriesRowPage, Verdict
 
 router = APIRouter(prefix="/v1/assessments", tags=["assessments"])
 
 _PROBLEMS = problem_docs(400, 401, 403, 409, 413, 415, 422)
 _READ_PROBLEMS = problem_docs(401, 403, 404, 422)
-SUMMARY_COLUMNS = (
-    "id",
-    "created_at",
-    "model",
-    "version",
-    "verdict",
-    "n_series",
-    "n_failed",
-    "n_warned",
-    "policy_name",
-    "policy_version",
-)
 SERIES_COLUMNS = (
     "assessment_id",
     "series_id",
@@ -125,6 +114,12 @@ POST_PARAMETERS = [
         "latest-pass (the JSON body's baseline.version)",
         {"type": "string", "minLength": 1, "maxLength": 200},
     ),
+    _param(
+        "burn_in",
+        "query",
+        "CSV uploads: periods left out at the start of every series, default 0",
+        {"type": "integer", "minimum": 0},
+    ),
 ]
 _TRUE = frozenset({"true", "1", "yes", "on"})
 _FALSE = frozenset({"false", "0", "no", "off"})
@@ -195,7 +190,8 @@ async def post_assessment(
     services: Annotated[Services, Depends(get_services)],
 ) -> Response:
     """Body: JSON (the shape in the contract) or ``text/csv`` long format with the model,
-    version, policy, season_length, model_params, level and baseline as query parameters."""
+    version, policy, season_length, model_params, level, baseline and burn_in as query
+    parameters."""
     # The hottest endpoint checks its token directly, with the store, settings and services it
     # is given: a dependency of its own costs more than the check itself (the other endpoints
     # use the same check as the ``require`` dependency).
@@ -324,25 +320,7 @@ def list_assessments(
         query["cursor"] = next_cursor
         headers["Link"] = f'</v1/assessments?{urlencode(query)}>; rel="next"'
     if wants_csv(request.headers.get("accept")):
-        body = to_csv(
-            SUMMARY_COLUMNS,
-            (
-                (
-                    r.id,
-                    r.created_at.isoformat(),
-                    r.model,
-                    r.version,
-                    r.verdict,
-                    r.n_series,
-                    r.n_failed,
-                    r.n_warned,
-                    r.policy_name,
-                    r.policy_version,
-                )
-                for r in rows
-            ),
-        )
-        return conditional(request, body, CSV, headers)
+        return conditional(request, list_csv(store, rows), CSV, headers)
     body = orjson.dumps({"items": [r.to_dict() for r in rows], "next_cursor": next_cursor})
     return conditional(request, body, JSON, headers)
 

@@ -26,6 +26,7 @@ from service.results import AssessmentDocument
 from service.settings import Settings
 from service.store.port import Store
 
+from .. import query_check
 from ..auth import authorize
 from ..deps import Services, get_services, get_settings, get_store
 from ..errors import ApiError
@@ -139,8 +140,10 @@ async def _admit(request: Request, ctx: Context, assessment_id: str) -> str:
             raise ApiError(403, exc.reason, slug="link-expired", title="Link expired") from None
         except links.LinkInvalid as exc:
             raise ApiError(403, exc.reason, slug="link-invalid", title="Invalid link") from None
+        query_check.check(request)  # once admitted, as for a token
         return link.query
     await _require_read(request, ctx)
+    query_check.check(request)
     return ""
 
 
@@ -181,6 +184,7 @@ def _html(text: str) -> Response:
     response_class=Response,
     responses={200: {"content": {"text/html": {}}}, **_PROBLEMS},
 )
+@query_check.checked_later
 async def get_report(
     request: Request,
     assessment_id: str,
@@ -233,6 +237,7 @@ def _inputs_of(store: Store, assessment_id: str, series_id: str) -> Any:
                 holdout_timestamps=None
                 if s.holdout_timestamps is None
                 else tuple(s.holdout_timestamps),
+                burn_in=s.burn_in,
             )
     return None
 
@@ -269,6 +274,7 @@ def baseline_path(store: Store, block: Any, inputs: Any) -> Any:
     response_class=Response,
     responses={200: {"content": {"text/html": {}}}, **_PROBLEMS},
 )
+@query_check.checked_later
 async def get_series_report(
     request: Request,
     assessment_id: str,
