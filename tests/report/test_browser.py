@@ -2,7 +2,10 @@
 
 Skips when no Chromium is installed (install the Debian package ``chromium``); with
 ``PLUMBLINE_REQUIRE_BROWSER=1`` (set by CI) it fails instead. Screenshots are saved under
-``test-artifacts/``.
+``test-artifacts/`` (or the folder ``PLUMBLINE_TEST_ARTIFACTS`` names), for CI to keep.
+
+Every page must load from the test server alone: the driver lists every request the page made
+and none may go to another host.
 """
 
 from __future__ import annotations
@@ -16,12 +19,15 @@ import pytest
 
 from service.links import sign_link
 
-from .devtools import Browser, find_chromium
+from .devtools import Browser, find_chromium, outside_requests
 from .fleet import invented_body
 
 pytestmark = pytest.mark.slow
 
-ARTIFACTS = Path(__file__).resolve().parents[2] / "test-artifacts"
+ARTIFACTS = Path(
+    os.environ.get("PLUMBLINE_TEST_ARTIFACTS")
+    or Path(__file__).resolve().parents[2] / "test-artifacts"
+)
 
 
 def _need_browser() -> str:
@@ -59,8 +65,70 @@ def served(live_server: dict):
     }
 
 
-def _check_clean(browser: Browser, what: str) -> None:
+def _check_clean(browser: Browser, what: str, server: str | None = None) -> None:
     assert browser.problems.all() == [], f"{what}: {browser.problems.all()}"
+    if server is not None:
+        assert browser.requests, f"{what}: no request seen"
+        assert outside_requests(browser.requests, server) == [], what
+
+
+def _wait_until(browser: Browser, condition: str, timeout_ms: int = 20000) -> None:
+    """Poll the JavaScript ``condition`` until it is true (the docs pages render after load)."""
+    ok = browser.evaluate(
+        "new Promise(resolve => { const t0 = Date.now(); (function poll() {"
+        f" if ({condition}) {{ resolve(true); return; }}"
+        f" if (Date.now() - t0 > {timeout_ms}) {{ resolve(false); return; }}"
+        " setTimeout(poll, 100); })(); })",
+        await_promise=True,
+    )
+    assert ok, f"timed out waiting for {condition}"
+
+
+def _operations(url: str) -> list[tuple[str, str]]:
+    doc = httpx.get(f"{url}/openapi.json").json()
+    return [
+        (method.upper(), path)
+        for path, item in doc["paths"].items()
+        for method in item
+        if method in ("get", "post", "put", "patch", "delete")
+    ]
+
+
+def test_api_docs_render_offline_in_chromium(served: dict) -> None:
+    """/docs (Swagger UI) and /redoc render the API from the server's own files: the title and
+    every operation shown, no request to any other host, no console error."""
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    url = served["url"]
+    operations = _operations(url)
+    assert ("POST", "/v1/assessments") in operations
+    with Browser(served["binary"]) as b:
+        b.open(f"{url}/docs")
+        _wait_until(b, f"document.querySelectorAll('.opblock').length >= {len(operations)}")
+        b.evaluate("new Promise(r => setTimeout(r, 500))", await_promise=True)
+        shown = b.evaluate("""({
+            title: document.querySelector('.info .title').textContent,
+            ops: Array.from(document.querySelectorAll('.opblock-summary')).map(s => [
+                s.querySelector('.opblock-summary-method').textContent.trim(),
+                s.querySelector('.opblock-summary-path').dataset.path]),
+        })""")
+        assert shown["title"].startswith("Plumbline")
+        assert sorted(map(tuple, shown["ops"])) == sorted(operations)
+        _check_clean(b, "/docs", url)
+        b.screenshot(str(ARTIFACTS / "docs.png"))
+
+        b.open(f"{url}/redoc")
+        _wait_until(b, "document.querySelectorAll('[data-section-id^=\"operation/\"]').length > 0")
+        b.evaluate("new Promise(r => setTimeout(r, 500))", await_promise=True)
+        shown = b.evaluate("""({
+            title: document.querySelector('h1').textContent,
+            ops: document.querySelectorAll('[data-section-id^="operation/"]').length,
+            text: document.body.innerText,
+        })""")
+        assert shown["title"].startswith("Plumbline")
+        assert shown["ops"] == len(operations)
+        assert "/v1/assessments" in shown["text"]
+        _check_clean(b, "/redoc", url)
+        b.screenshot(str(ARTIFACTS / "redoc.png"))
 
 
 def test_report_and_series_page_in_chromium(served: dict) -> None:
