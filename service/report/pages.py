@@ -18,6 +18,7 @@ from typing import Any
 
 from service import __version__
 from service.core import CATALOGUE
+from service.core.messages import fleet_message_rest
 from service.results import (
     AssessmentDocument,
     CheckSummary,
@@ -148,6 +149,27 @@ def _message(check: Any, message: Any) -> str:
     return _e(text)
 
 
+def _fleet_reason(check: Any, message: Any) -> str:
+    """A fleet-level reason's message after "<Title>, across the fleet:": without the title
+    and without a leading "Across the fleet" of its own, so neither is said twice."""
+    text = "" if message is None else str(message)
+    for prefix in (f"{check}: ", f"{_title(check)}: "):
+        if check and text.startswith(prefix):
+            text = text[len(prefix) :]
+            break
+    if text.lower().startswith(_ACROSS):
+        text = text[len(_ACROSS) :].lstrip(" ,")
+    return _e(text)
+
+
+_ACROSS = "across the fleet"
+
+
+def _check_summary(c: CheckSummary) -> str:
+    """The per-check table's last cell: what the message adds to the counts beside it."""
+    return _e(fleet_message_rest(_title(c.name), str(c.message or ""))) or "—"
+
+
 def _check_cell(check: Any) -> str:
     return (
         f'<span class="check-title">{_e(_title(check))}</span>'
@@ -256,15 +278,15 @@ def _reasons(reasons: Sequence[Reason], series_href: SeriesHref) -> str:
 
     def item(r: Reason) -> str:
         sid = r.series_id
-        where = (
-            f'<a href="{_e(series_href(str(sid)))}">{_e(sid)}</a>'
-            if sid is not None
-            else "across the fleet"
-        )
+        if sid is None:
+            where, text = _ACROSS, _fleet_reason(r.check, r.message)
+        else:
+            where = f'<a href="{_e(series_href(str(sid)))}">{_e(sid)}</a>'
+            text = _message(r.check, r.message)
         return (
             f'<li data-status="{_e(r.status)}" data-check="{_e(r.check)}">'
             f"{_status(r.status)} <strong>{_e(_title(r.check))}</strong>, "
-            f"{where}: {_message(r.check, r.message)}</li>"
+            f"{where}: {text}</li>"
         )
 
     shown = "".join(item(r) for r in reasons[:REASONS_SHOWN])
@@ -292,7 +314,7 @@ def _checks_table(checks: Sequence[CheckSummary]) -> str:
         f'<td class="num">{_num(c.series_warned)}</td>'
         f'<td class="num">{_num(c.series_skipped)}</td>'
         f'<td class="num">{_share(c.failed_share)}</td>'
-        f"<td>{_message(c.name, c.message)}</td></tr>"
+        f"<td>{_check_summary(c)}</td></tr>"
         for c in checks
     )
     return (
