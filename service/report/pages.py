@@ -402,10 +402,25 @@ def _series_table(series: SeriesTable, series_href: SeriesHref) -> str:
     )
 
 
-def render_report(assessment: AssessmentDocument, *, series_href: SeriesHref) -> str:
-    """The fleet report: verdict, reasons, per-check table, fleet bias and the series list
-    (worst first, sortable, each linking to ``series_href(series_id)``). No charts: those are
-    drawn per series, on the series page, so a fleet of any size stays one light page."""
+def _figures(charts: Sequence[Chart]) -> str:
+    return "".join(
+        f'<figure class="chart{" wide" if c.wide else ""}" id="chart-{_e(c.name)}" '
+        f'data-chart="{_e(c.name)}">{c.svg}'
+        f"<figcaption>{_e(c.caption)}</figcaption></figure>"
+        for c in charts
+    )
+
+
+def render_report(
+    assessment: AssessmentDocument,
+    *,
+    series_href: SeriesHref,
+    fleet_charts: Sequence[Chart] = (),
+) -> str:
+    """The fleet report: verdict, reasons, per-check table, the fleet's charts (when given:
+    :func:`service.report.fleet_charts.render_fleet_charts`, whose size is bounded whatever
+    the fleet's), fleet bias and the series list (worst first, sortable, each linking to
+    ``series_href(series_id)``)."""
     title = f"Gate report: {assessment.model or 'assessment'}"
     body = (
         _header(assessment, title)
@@ -417,6 +432,12 @@ def render_report(assessment: AssessmentDocument, *, series_href: SeriesHref) ->
         + '<section class="card" id="checks-section"><h2>Checks across the fleet</h2>'
         + _checks_table(assessment.checks)
         + "</section>"
+        + (
+            '<section class="card" id="fleet-charts-section"><h2>The fleet at a glance</h2>'
+            f'<div class="charts">{_figures(fleet_charts)}</div></section>'
+            if fleet_charts
+            else ""
+        )
         + '<section class="card" id="bias-section"><h2>Fleet bias</h2>'
         + _fleet_bias(assessment.fleet)
         + "</section>"
@@ -509,12 +530,7 @@ def render_series(
             ("Tracking signal", _num(bias.get("tracking_signal"))),
         ]
     )
-    figures = "".join(
-        f'<figure class="chart{" wide" if c.wide else ""}" id="chart-{_e(c.name)}" '
-        f'data-chart="{_e(c.name)}">{c.svg}'
-        f"<figcaption>{_e(c.caption)}</figcaption></figure>"
-        for c in charts
-    )
+    figures = _figures(charts)
     body = (
         header
         + f'<section class="card" id="summary-section"><h2>Summary</h2>{facts}</section>'
