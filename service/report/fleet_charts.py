@@ -201,8 +201,18 @@ def _grid(fig: Any, cols: FleetColumns) -> str:
         f"{a + 1:,}–{b:,} · {(cum[b] - cum[a]) / total:.0%} of weight"
         for a, b in itertools.pairwise(edges)
     ]
-    scale = LinearSegmentedColormap.from_list("fails", ["#FFFFFF", STATUS_COLOURS["fail"]])
-    mesh = ax.pcolormesh(fail, cmap=scale, vmin=0.0, vmax=1.0, edgecolors=GRID, linewidth=0.5)
+    # Ten steps of 10%: easier to read than a continuous scale, and its colour bar stays
+    # vector (matplotlib rasterises a bar of many steps into an embedded image).
+    ramp = LinearSegmentedColormap.from_list("fails", ["#FFFFFF", STATUS_COLOURS["fail"]])
+    steps = np.linspace(0.0, 1.0, 11)
+    scale = ListedColormap(ramp(np.linspace(0.0, 1.0, 10)))
+    mesh = ax.pcolormesh(
+        fail,
+        cmap=scale,
+        norm=BoundaryNorm(steps, scale.N),
+        edgecolors=GRID,
+        linewidth=0.5,
+    )
     for (i, j), share in np.ndenumerate(fail):
         if share > 0:
             text, colour = f"{share:.0%}" if share >= 0.01 else "<1%", "black"
@@ -215,7 +225,8 @@ def _grid(fig: Any, cols: FleetColumns) -> str:
         ax.text(j + 0.5, i + 0.5, text, ha="center", va="center", fontsize=8, color=colour)
     _grid_axes(ax, len(labels), checks, labels)
     ax.set_ylabel(f"Series in weight order, {len(labels)} bins")
-    bar = fig.colorbar(mesh, ax=ax, fraction=0.03, pad=0.01)
+    bar = fig.colorbar(mesh, ax=ax, fraction=0.03, pad=0.01, ticks=steps[::2])
+    bar.ax.yaxis.set_major_formatter(lambda v, _pos: f"{v:.0%}")
     bar.set_label("Share of the bin's series that fail")
     bar.outline.set_visible(False)
     return f"{n:,} series in {len(labels)} bins"

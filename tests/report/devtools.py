@@ -245,8 +245,23 @@ class Browser:
             raise RuntimeError(f"script failed: {out['exceptionDetails']}")
         return out.get("result", {}).get("value")
 
-    def screenshot(self, path: str) -> None:
-        """Full-page PNG."""
+    def screenshot(self, path: str, selector: str | None = None) -> None:
+        """Full-page PNG, or of the element ``selector`` names."""
+        if selector is not None:
+            box = self.evaluate(
+                f"(() => {{ const r = document.querySelector({json.dumps(selector)})"
+                ".getBoundingClientRect(); return {x: r.left + window.scrollX, "
+                "y: r.top + window.scrollY, width: r.width, height: r.height}; })()"
+            )
+            data = self.call(
+                "Page.captureScreenshot",
+                format="png",
+                captureBeyondViewport=True,
+                clip={**box, "scale": 1},
+            )
+            with open(path, "wb") as fh:
+                fh.write(base64.b64decode(data["data"]))
+            return
         height = int(self.evaluate("document.documentElement.scrollHeight") or self.height)
         self.call(
             "Emulation.setDeviceMetricsOverride",

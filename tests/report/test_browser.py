@@ -13,6 +13,7 @@ from __future__ import annotations
 import os
 import time
 from pathlib import Path
+from urllib.parse import quote
 
 import httpx
 import pytest
@@ -164,7 +165,15 @@ def test_report_and_series_page_in_chromium(served: dict) -> None:
             assert reason["message"].split(": ", 1)[-1] in shown
         assert page["checks"] == [c["name"] for c in a["checks"]]
         assert len(page["series"]) == len(a["series"])
-        assert page["svgs"] == 0  # the fleet page draws no chart
+        fleet = b.evaluate("""Array.from(document.querySelectorAll(
+            '#fleet-charts-section figure.chart')).map(f => {
+            const s = f.querySelector('svg').getBoundingClientRect();
+            return {name: f.dataset.chart, w: s.width, h: s.height};
+        })""")
+        assert [c["name"] for c in fleet] == ["grid", "bias", "pvalues"]
+        assert page["svgs"] == 3  # the fleet's charts; each series' wait for its page
+        assert all(c["w"] > 900 and c["h"] > 200 for c in fleet), fleet
+        assert outside_requests(b.requests, url) == []
         b.screenshot(str(ARTIFACTS / "report.png"))
 
         # The sort script runs: sorting by series id puts the ids in order.
@@ -191,7 +200,50 @@ def test_report_and_series_page_in_chromium(served: dict) -> None:
         assert [c["name"] for c in charts] == ["residuals", "acf", "histogram", "fitted", "holdout"]
         assert all(c["w"] > 300 and c["h"] > 150 for c in charts), charts
         assert b.evaluate("document.querySelector('h1').textContent") == f"Series {worst}"
+        assert outside_requests(b.requests, url) == []
         b.screenshot(str(ARTIFACTS / "series.png"))
+
+
+def test_large_fleet_and_long_series_in_chromium(served: dict) -> None:
+    """1,200 series of 700 weeks: the fleet page's charts drawn in bins, and a series page whose
+    residual chart draws a line and the mean residual; all from the test server alone."""
+    ARTIFACTS.mkdir(parents=True, exist_ok=True)
+    url, auth = served["url"], served["auth"]
+    body = invented_body(1200, t=700, h=4, seed=8)
+    body["model"] = "larkspur-oat-milk-long"
+    r = httpx.post(f"{url}/v1/assessments", json=body, headers=auth, timeout=180)
+    assert r.status_code == 201, r.text[:500]
+    a = r.json()
+    with Browser(served["binary"]) as b:
+        b.call("Network.setExtraHTTPHeaders", headers=auth)
+        b.open(f"{url}/v1/assessments/{a['id']}/report")
+        _check_clean(b, "report of 1,200 series", url)
+        shown = b.evaluate("""({
+            charts: Array.from(document.querySelectorAll('#fleet-charts-section figure.chart'))
+                .map(f => ({name: f.dataset.chart,
+                            text: f.querySelector('svg').textContent,
+                            h: f.querySelector('svg').getBoundingClientRect().height})),
+            rows: document.querySelectorAll('#series-table tbody tr').length,
+        })""")
+        assert shown["rows"] == 1200
+        names = [c["name"] for c in shown["charts"]]
+        assert names == ["grid", "bias", "pvalues"]
+        grid = shown["charts"][0]["text"]
+        assert "1,141–1,200" in grid and "Share of the bin's series that fail" in grid
+        assert all(c["h"] > 200 for c in shown["charts"])
+        b.screenshot(str(ARTIFACTS / "report-1200-charts.png"), "#fleet-charts-section")
+
+        sid = next(s["id"] for s in body["series"] if s["id"].endswith("-biased"))
+        b.open(f"{url}/v1/assessments/{a['id']}/report/series/{quote(sid, safe='')}")
+        _check_clean(b, "series of 700 weeks", url)
+        chart = b.evaluate("""(() => {
+            const svg = document.querySelector('#chart-residuals svg');
+            return {text: svg.textContent, markers: svg.querySelectorAll('use').length,
+                    w: svg.getBoundingClientRect().width};
+        })()""")
+        assert "mean residual" in chart["text"] and "tracking-signal window" in chart["text"]
+        assert chart["markers"] < 60 and chart["w"] > 300  # a line, not 700 markers
+        b.screenshot(str(ARTIFACTS / "series-700-charts.png"), "#charts-section")
 
 
 def test_expired_and_tampered_links_answer_403(served: dict) -> None:

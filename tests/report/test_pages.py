@@ -200,11 +200,17 @@ def test_untrusted_text_is_escaped() -> None:
 
 
 @pytest.mark.slow  # a 10,000-series report
-def test_large_fleet_report_draws_no_chart() -> None:
-    # 10,000 series: one light page of rows and links; charts wait for the series page.
+def test_large_fleet_report_stays_light() -> None:
+    # 10,000 series: rows and links, and three fleet charts of bounded size; the series'
+    # own charts wait for the series page.
+    from service.report.fleet_charts import render_fleet_charts
+
     a = document_of(invented_body(10_000, t=30, h=4))
-    html = render_report(a, series_href=href)
-    assert "<svg" not in html
+    assert "<svg" not in render_report(a, series_href=href)
+    charts = render_fleet_charts(a)
+    html = render_report(a, series_href=href, fleet_charts=charts)
+    assert html.count("<svg") == 3
+    assert sum(len(c.svg) for c in charts) < 400_000
     assert html.count('<tr data-series="') == 10_000
     assert html.count('<ul class="reasons"') == 2  # the first 20, then the toggle
     assert "more reasons: see the series table" in html
