@@ -49,14 +49,16 @@ class Chart:
 
 
 @contextmanager
-def _figure(salt: str, size: tuple[float, float]) -> Iterator[Any]:
+def _figure(
+    salt: str, size: tuple[float, float], layout: str | None = "constrained"
+) -> Iterator[Any]:
     import matplotlib
     from matplotlib.backends.backend_svg import FigureCanvasSVG
     from matplotlib.figure import Figure
 
     rc: dict[Any, Any] = {**CHART_RC, "svg.hashsalt": salt}
     with _RENDER_LOCK, matplotlib.rc_context(rc):
-        fig = Figure(figsize=size, layout="constrained")
+        fig = Figure(figsize=size, layout=layout)
         FigureCanvasSVG(fig)
         yield fig
 

@@ -158,6 +158,14 @@ def _grid(fig: Any, cols: FleetColumns) -> str:
     from matplotlib.patches import Patch
 
     n, checks = cols.codes.shape[0], cols.checks
+    width, height = fig.get_size_inches()
+    legend = 0 < n <= GRID_SERIES_MAX
+    fig.subplots_adjust(
+        left=2.55 / width,
+        right=1 - (0.2 if legend else 1.0) / width,  # room for the colour bar's labels
+        top=1 - 0.4 / height,
+        bottom=(1.45 + (0.45 if legend else 0.0)) / height,
+    )
     ax = fig.add_subplot()
     ax.set_title("Status of every check, heaviest series at the top")
     if n == 0 or not checks:
@@ -190,7 +198,11 @@ def _grid(fig: Any, cols: FleetColumns) -> str:
             for s in ("fail", "warn", "pass", "skipped")
         ]
         ax.legend(
-            handles=handles, loc="upper center", bbox_to_anchor=(0.5, -0.32), ncols=4, fontsize=9.5
+            handles=handles,
+            loc="upper center",
+            bbox_to_anchor=(0.5, -1.2 / (height - 0.4 - 1.9)),  # 1.2 in below the axes
+            ncols=4,
+            fontsize=9.5,
         )
         return f"{n} series, one row each"
     edges = weight_bins(n, GRID_BINS)
@@ -228,7 +240,7 @@ def _grid(fig: Any, cols: FleetColumns) -> str:
     bar = fig.colorbar(mesh, ax=ax, fraction=0.03, pad=0.01, ticks=steps[::2])
     bar.ax.yaxis.set_major_formatter(lambda v, _pos: f"{v:.0%}")
     bar.set_label("Share of the bin's series that fail")
-    bar.outline.set_visible(False)
+    bar.outline.set_edgecolor(GRID)
     return f"{n:,} series in {len(labels)} bins"
 
 
@@ -349,9 +361,20 @@ def _pvalues(fig: Any, cols: FleetColumns) -> str:
             ax.set_ylabel("Share of series")
         if k // per_row == rows - 1 or k + per_row >= len(tests):
             ax.set_xlabel("p-value")
+    width, height = fig.get_size_inches()
+    fig.subplots_adjust(
+        left=0.75 / width,
+        right=1 - 0.15 / width,
+        top=1 - 0.55 / height,
+        bottom=0.55 / height,
+        wspace=0.28,
+        hspace=0.55 if rows > 1 else 0.2,
+    )
     fig.suptitle(
         "Raw p-values of each test against the uniform share (dashed) of a sound fleet",
         x=0.01,
+        y=1 - 0.08 / height,
+        va="top",
         ha="left",
         fontsize=11.5,
         fontweight="bold",
@@ -394,8 +417,9 @@ _SPECS = {
 def _size(name: str, cols: FleetColumns) -> tuple[float, float]:
     if name == "grid":
         n = cols.codes.shape[0]
-        rows = n if n <= GRID_SERIES_MAX else min(GRID_BINS, n)
-        return (12.8, 2.2 + 0.27 * max(rows, 4))
+        if n <= GRID_SERIES_MAX:
+            return (12.8, 2.3 + 0.45 + 0.27 * max(n, 4))
+        return (12.8, 2.3 + 0.27 * min(GRID_BINS, n))
     if name == "pvalues":
         rows = max(-(-len(cols.p_values) // 4), 1)
         return (12.8, 0.8 + 2.3 * rows)
@@ -410,7 +434,10 @@ def render_fleet_chart(
         raise ValueError(f"unknown chart {name!r}; expected one of {', '.join(FLEET_CHART_NAMES)}")
     cols = fleet_columns(doc) if cols is None else cols
     title, draw, few, many = _SPECS[name]
-    with _figure(salt=f"fleet/{name}", size=_size(name, cols)) as fig:
+    # The grid and the p-value panels are laid out by hand (constrained layout over many
+    # labels and axes costs more than drawing them).
+    layout = "constrained" if name == "bias" else None
+    with _figure(salt=f"fleet/{name}", size=_size(name, cols), layout=layout) as fig:
         draw(fig, cols)
         svg = _svg_text(fig, title, prefix=f"fleet-{name}-")
     aggregated = (name == "grid" and cols.codes.shape[0] > GRID_SERIES_MAX) or (
