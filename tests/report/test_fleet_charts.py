@@ -191,3 +191,32 @@ def test_a_fleet_of_10000_stays_bounded() -> None:
     failing = int((fleet_columns(doc).bias_codes == 3).sum())
     assert failing > FAIL_MARKS_MAX
     assert f"the {FAIL_MARKS_MAX} heaviest of {failing:,}" in " ".join(_texts(charts["bias"].svg))
+
+
+@pytest.mark.parametrize(
+    ("actuals", "fitted", "says"),
+    [
+        ([[5.0, 5.0, 5.0]], [[4.0, 4.0, 4.0]], None),  # one series, constant residuals
+        ([[1.0] * 30] * 2, [[1.0] * 30] * 2, "no test ran on any series"),  # all zero
+        ([[1.0, 2.0, 3.0]], [[np.nan] * 3], "no series has a percent bias"),  # no residual
+    ],
+)
+def test_degenerate_fleets_still_draw(actuals, fitted, says) -> None:
+    result = assess(make_batch(np.array(actuals), np.array(fitted)), default_policy()).to_dict()
+    doc = AssessmentDocument.from_dict(
+        {
+            "id": None,
+            "created_at": None,
+            "model": "m",
+            "version": "1",
+            "stored": False,
+            "labels": {},
+            "season_length": 1,
+            "model_params": 0,
+            **result,
+        }
+    )
+    charts = {c.name: c for c in render_fleet_charts(doc)}
+    _assert_standalone(charts)
+    if says:
+        assert says in " ".join(t for c in charts.values() for t in _texts(c.svg))
