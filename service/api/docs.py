@@ -45,6 +45,19 @@ REDOC_LOGO = b"https://cdn.redoc.ly/redoc/logo-mini.svg"
 """The one outside address the ReDoc bundle loads by itself."""
 
 
+ASSETS_CACHE_CONTROL = "public, max-age=86400"
+"""The bundles are the installed package's files: a browser may keep them a day (and then
+revalidate them by their ``ETag``) instead of fetching 2.5 MB on every view of the docs."""
+
+
+class _Assets(StaticFiles):
+    async def get_response(self, path: str, scope: Any) -> Response:
+        response = await super().get_response(path, scope)
+        if response.status_code in (200, 304):
+            response.headers["Cache-Control"] = ASSETS_CACHE_CONTROL
+        return response
+
+
 def assets_dir() -> Path:
     """The folder of Swagger UI's and ReDoc's files that ``fastapi-offline`` ships."""
     return Path(str(files("fastapi_offline") / "static"))
@@ -100,7 +113,11 @@ def make_app(**kwargs: Any) -> FastAPI:
     # Before the folder's mount, which would otherwise answer this path with the file as is.
     @app.get(f"{ASSETS_URL}/{REDOC_BUNDLE}", include_in_schema=False)
     async def redoc_js() -> Response:
-        return Response(redoc_bundle(), media_type="text/javascript; charset=utf-8")
+        return Response(
+            redoc_bundle(),
+            media_type="text/javascript; charset=utf-8",
+            headers={"Cache-Control": ASSETS_CACHE_CONTROL},
+        )
 
-    app.mount(ASSETS_URL, StaticFiles(directory=assets_dir()), name="docs-assets")
+    app.mount(ASSETS_URL, _Assets(directory=assets_dir()), name="docs-assets")
     return app

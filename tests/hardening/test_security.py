@@ -12,8 +12,8 @@ import re
 
 import pytest
 
+from service.api.docs import ASSETS_CACHE_CONTROL, DOCS_CSP
 from service.api.docs import ASSETS_URL as DOCS_ASSETS
-from service.api.docs import DOCS_CSP
 from service.settings import Settings
 
 from .conftest import ADMIN, ADMIN_TOKEN, assessment, mint
@@ -87,6 +87,8 @@ def test_docs_pages_load_from_this_server_only_and_are_not_framed(make_client):
             asset = client.get(source)
             assert asset.status_code == 200, source
             assert len(asset.content) > 1000, source
+            assert asset.headers["cache-control"] == ASSETS_CACHE_CONTROL, source
+            assert asset.headers["x-content-type-options"] == "nosniff"
 
 
 def test_redoc_bundle_is_served_without_its_outside_logo(make_client):
