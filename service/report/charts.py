@@ -15,7 +15,7 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
 from html import escape
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 
@@ -50,7 +50,7 @@ class Chart:
 
 @contextmanager
 def _figure(
-    salt: str, size: tuple[float, float], layout: str | None = "constrained"
+    salt: str, size: tuple[float, float], layout: Literal["constrained"] | None = "constrained"
 ) -> Iterator[Any]:
     import matplotlib
     from matplotlib.backends.backend_svg import FigureCanvasSVG

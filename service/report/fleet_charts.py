@@ -24,7 +24,7 @@ from __future__ import annotations
 
 import itertools
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 
@@ -436,7 +436,7 @@ def render_fleet_chart(
     title, draw, few, many = _SPECS[name]
     # The grid and the p-value panels are laid out by hand (constrained layout over many
     # labels and axes costs more than drawing them).
-    layout = "constrained" if name == "bias" else None
+    layout: Literal["constrained"] | None = "constrained" if name == "bias" else None
     with _figure(salt=f"fleet/{name}", size=_size(name, cols), layout=layout) as fig:
         draw(fig, cols)
         svg = _svg_text(fig, title, prefix=f"fleet-{name}-")
