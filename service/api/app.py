@@ -14,6 +14,7 @@ from . import query_check
 from .auth import TokenCache, announce_first_token, ensure_first_token
 from .batching import SubmissionBatcher
 from .deps import Services, register
+from .docs import make_app
 from .errors import install_error_handlers
 from .metrics import Metrics, MetricsMiddleware
 from .openapi import examples_dir, install_openapi, load_examples
@@ -49,7 +50,7 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         yield
         store.close()
 
-    app = FastAPI(
+    app = make_app(
         title="Plumbline",
         version="1",
         description=DESCRIPTION,

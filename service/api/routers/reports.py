@@ -200,11 +200,17 @@ async def get_report(
 
     def work() -> str:
         from service.report import render_report
+        from service.report.fleet_charts import render_fleet_charts
 
         stored = stored_or_404(ctx.store, assessment_id)
         assessment = AssessmentDocument.from_dict(orjson.loads(stored.to_json()))
+        charts = _chart_cache(ctx.services).get_or_render(
+            (assessment_id, None), lambda: render_fleet_charts(assessment)
+        )
         return render_report(
-            assessment, series_href=lambda sid: f"{base}/series/{quote(sid, safe='')}{suffix}"
+            assessment,
+            series_href=lambda sid: f"{base}/series/{quote(sid, safe='')}{suffix}",
+            fleet_charts=charts,
         )
 
     return _html(await run_in_threadpool(work))
