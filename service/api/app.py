@@ -14,9 +14,10 @@ from .auth import TokenCache, announce_first_token, ensure_first_token
 from .batching import SubmissionBatcher
 from .deps import Services, register
 from .errors import install_error_handlers
+from .jobs import JobRunner
 from .metrics import Metrics, MetricsMiddleware
 from .openapi import examples_dir, install_openapi, load_examples
-from .routers import assessments, checks, health, models, policies, reports, tokens
+from .routers import assessments, checks, health, jobs, models, policies, reports, tokens
 from .security import install_hardening
 
 DESCRIPTION = """Plumbline gates forecasting model releases on residual diagnostics over whole
@@ -43,9 +44,13 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         store.migrate()
         announce_first_token(ensure_first_token(store, settings))
 
+    runner = JobRunner(store, settings)
+
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> Any:
+        runner.start()
         yield
+        runner.stop(timeout=settings.job_lease_seconds)
         store.close()
 
     app = FastAPI(title="Plumbline", version="1", description=DESCRIPTION, lifespan=lifespan)
@@ -54,10 +59,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         metrics=metrics,
         batcher=SubmissionBatcher(store, metrics),
         token_cache=TokenCache(settings.token_cache_seconds),
+        jobs=runner,
     )
     register(app, store=store, settings=settings, services=services)
     install_error_handlers(app)
-    for module in (assessments, reports, models, checks, policies, tokens, health):
+    for module in (assessments, jobs, reports, models, checks, policies, tokens, health):
         app.include_router(module.router)
     install_openapi(app, load_examples(examples_dir(settings.examples_dir)))
     install_hardening(app, settings)
@@ -68,8 +74,14 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             CORSMiddleware,
             allow_origins=settings.cors_origins,
             allow_methods=["GET", "POST", "DELETE"],
-            allow_headers=["Authorization", "Content-Type", "Idempotency-Key", "If-None-Match"],
-            expose_headers=["ETag", "Location", "Link"],
+            allow_headers=[
+                "Authorization",
+                "Content-Type",
+                "Idempotency-Key",
+                "If-None-Match",
+                "Prefer",
+            ],
+            expose_headers=["ETag", "Location", "Link", "Preference-Applied", "Retry-After"],
         )
     app.add_middleware(MetricsMiddleware, metrics=metrics)
     return app
