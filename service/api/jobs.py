@@ -87,9 +87,16 @@ def assess_input(job: JobInput, progress: Progress) -> AssessmentResult:
 # The stored input
 
 
+_MATRICES = ("actuals", "fitted", "h_actuals", "h_forecasts", "h_lower", "h_upper")
+
+
 def encode_request(req: AssessmentRequest) -> bytes:
-    """The validated request as bytes: its arrays as little-endian float64/int64/bool members
-    of an ``.npz`` archive and its other fields as one JSON member."""
+    """The validated request as bytes: an ``.npz`` archive of little-endian arrays and one
+    JSON member for the ids, timestamps and the request's own fields.
+
+    A matrix is kept as its rows' values up to each row's last non-missing one (``name``) and
+    those lengths (``name.len``): a ragged fleet's padding is not stored.
+    """
     b = req.batch
     h = b.holdout
     meta = {
@@ -107,11 +114,9 @@ def encode_request(req: AssessmentRequest) -> bytes:
         "batch_ids": list(b.ids),
         "batch_season_length": b.season_length,
         "batch_model_params": b.model_params,
+        "widths": {},
     }
     arrays: dict[str, np.ndarray] = {
-        "meta": np.frombuffer(orjson.dumps(meta), dtype=np.uint8),
-        "actuals": b.actuals,
-        "fitted": b.fitted,
         "weights": b.weights,
         "lengths": b.lengths,
         "burn_in": b.burn_in,
@@ -119,13 +124,22 @@ def encode_request(req: AssessmentRequest) -> bytes:
         "train_lengths": np.asarray(req.train_lengths),
         "holdout_lengths": np.asarray(req.holdout_lengths),
     }
+    matrices = {"actuals": b.actuals, "fitted": b.fitted}
     if h is not None:
-        arrays["h_actuals"] = h.actuals
-        arrays["h_forecasts"] = h.forecasts
-        for name in ("lower", "upper", "level"):
-            value = getattr(h, name)
-            if value is not None:
-                arrays[f"h_{name}"] = value
+        matrices.update(h_actuals=h.actuals, h_forecasts=h.forecasts)
+        for name in ("lower", "upper"):
+            if getattr(h, name) is not None:
+                matrices[f"h_{name}"] = getattr(h, name)
+        if h.level is not None:
+            arrays["h_level"] = h.level
+    for name, matrix in matrices.items():
+        present = ~np.isnan(matrix)
+        width = matrix.shape[1]
+        last = np.where(present.any(axis=1), width - np.argmax(present[:, ::-1], axis=1), 0)
+        arrays[name] = matrix[np.arange(width)[None, :] < last[:, None]]
+        arrays[f"{name}.len"] = last.astype(np.int64)
+        meta["widths"][name] = width  # type: ignore[index]
+    arrays["meta"] = np.frombuffer(orjson.dumps(meta), dtype=np.uint8)
     buffer = io.BytesIO()
     np.savez(buffer, **{k: _little_endian(v) for k, v in arrays.items()})
     return buffer.getvalue()
@@ -143,6 +157,13 @@ def _read_only(a: np.ndarray) -> np.ndarray:
     return a
 
 
+def _matrix(arrays: dict[str, np.ndarray], name: str, width: int) -> np.ndarray:
+    last = arrays[f"{name}.len"]
+    out = np.full((last.shape[0], width), np.nan)
+    out[np.arange(width)[None, :] < last[:, None]] = arrays[name]
+    return _read_only(out)
+
+
 def decode_request(blob: bytes) -> AssessmentRequest:
     """The request :func:`encode_request` stored, its arrays equal to the last bit."""
     with np.load(io.BytesIO(blob), allow_pickle=False) as z:
@@ -150,19 +171,21 @@ def decode_request(blob: bytes) -> AssessmentRequest:
     meta = orjson.loads(arrays.pop("meta").tobytes())
     if meta.get("format") != FORMAT:
         raise ValueError(f"stored job input has format {meta.get('format')!r}, not {FORMAT}")
+    widths = meta["widths"]
+    m = {name: _matrix(arrays, name, width) for name, width in widths.items()}
     holdout = None
-    if "h_actuals" in arrays:
+    if "h_actuals" in m:
         holdout = Holdout(
-            actuals=_read_only(arrays["h_actuals"]),
-            forecasts=_read_only(arrays["h_forecasts"]),
-            lower=_maybe(arrays.get("h_lower")),
-            upper=_maybe(arrays.get("h_upper")),
+            actuals=m["h_actuals"],
+            forecasts=m["h_forecasts"],
+            lower=m.get("h_lower"),
+            upper=m.get("h_upper"),
             level=_maybe(arrays.get("h_level")),
         )
     batch = SeriesBatch(
         ids=tuple(meta["batch_ids"]),
-        actuals=_read_only(arrays["actuals"]),
-        fitted=_read_only(arrays["fitted"]),
+        actuals=m["actuals"],
+        fitted=m["fitted"],
         weights=_read_only(arrays["weights"]),
         season_length=int(meta["batch_season_length"]),
         model_params=int(meta["batch_model_params"]),
