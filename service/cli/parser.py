@@ -148,6 +148,27 @@ def build_parser() -> Parser:
         help="server mode: the key for this assessment (default: a new one per run), e.g. the "
         "pipeline run id, so a re-run job gets the stored result instead of storing again",
     )
+    job = p.add_mutually_exclusive_group()
+    job.add_argument(
+        "--as-job",
+        dest="as_job",
+        action="store_true",
+        default=None,
+        help="server mode: run it as a background job on the server and wait for it, with a "
+        "progress bar on a terminal (default: for files over --job-above)",
+    )
+    job.add_argument(
+        "--no-job",
+        dest="as_job",
+        action="store_false",
+        help="server mode: one request that waits for the answer, however large the file",
+    )
+    p.add_argument(
+        "--job-above",
+        metavar="MIB",
+        type=_positive_float,
+        help="server mode: send requests larger than this many MiB as jobs (default 8)",
+    )
     _server_options(p, timeout=300.0)
 
     # verdict ---------------------------------------------------------------
