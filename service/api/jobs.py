@@ -141,7 +141,7 @@ def encode_request(req: AssessmentRequest) -> bytes:
         meta["widths"][name] = width  # type: ignore[index]
     arrays["meta"] = np.frombuffer(orjson.dumps(meta), dtype=np.uint8)
     buffer = io.BytesIO()
-    np.savez(buffer, **{k: _little_endian(v) for k, v in arrays.items()})
+    np.savez(buffer, **{k: _little_endian(v) for k, v in arrays.items()})  # type: ignore[arg-type]
     return buffer.getvalue()
 
 
@@ -443,6 +443,9 @@ class JobRunner:
             except StoreError as exc:  # the database is away: try again at the next poll
                 log.warning("jobs: could not take a job: %s", exc)
                 took = False
+            except Exception:  # a bug: logged, and the thread keeps serving the queue
+                log.exception("jobs: unexpected error taking or running a job")
+                took = False
             if not took:
                 self._wake.wait(self.settings.job_poll_seconds)
                 self._wake.clear()
@@ -494,8 +497,7 @@ class JobRunner:
             )
             result = self.work(JobInput(request=req, policy=policy), beat.progress)
             _outcome, record = assessing.stored_answer(pending, result, job.assessment_id)
-            beat.stop()
-            self._finish(claimed, record)
+            self._finish(claimed, record)  # the lease is still renewed while it writes
         except JobLost:
             log.warning("jobs: %s was taken over by another worker; its result is dropped", job.id)
         except StoreUnavailable as exc:  # not the job's fault: give it back for a later try

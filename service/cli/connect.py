@@ -6,7 +6,7 @@ import argparse
 import os
 import sys
 
-from ..client import PlumblineClient, RetryHook
+from ..client import JOB_ABOVE_BYTES, PlumblineClient, RetryHook
 from .errors import CliError
 from .progress import interactive
 
@@ -55,7 +55,7 @@ def client_from_args(
             timeout=args.timeout,
             retries=args.retries,
             on_retry=on_retry,
-            **({} if job_above_bytes is None else {"job_above_bytes": job_above_bytes}),
+            job_above_bytes=JOB_ABOVE_BYTES if job_above_bytes is None else job_above_bytes,
         )
     except ValueError as exc:
         raise CliError(f"--server: {exc}") from None

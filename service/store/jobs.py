@@ -15,10 +15,10 @@ from __future__ import annotations
 import weakref
 from collections.abc import Sequence
 from datetime import datetime, timedelta
-from typing import Any
+from typing import Any, cast
 
 import orjson
-from sqlalchemy import Engine, and_, bindparam, insert, or_, select, update
+from sqlalchemy import Engine, Table, and_, bindparam, insert, or_, select, update
 from sqlalchemy.exc import IntegrityError
 
 from . import fastpath
@@ -28,7 +28,7 @@ from .records import ClaimedJob, NewAssessment, NewJob, StoredJob, new_id, utcno
 from .repository import _aware, _write_all, find_idempotency_key
 from .writelock import write_lock
 
-J = JobRow.__table__
+J = cast(Table, JobRow.__table__)
 
 _VIEW = (
     J.c.id,
@@ -130,6 +130,11 @@ def claim_job(engine: Engine, *, worker: str, lease_seconds: float) -> ClaimedJo
     if engine.dialect.name == "postgresql":
         find = find.with_for_update(skip_locked=True)
     claim = new_id()
+    if engine.dialect.name != "postgresql":
+        # An idle worker looks without the write lock, which it takes only to claim.
+        with engine.connect() as conn:
+            if conn.execute(select(J.c.id).where(_takeable(now)).limit(1)).first() is None:
+                return None
     with write_lock(engine), engine.begin() as conn:
         row = conn.execute(find).first()
         if row is None:
