@@ -231,6 +231,26 @@ def build_parser() -> Parser:
         help="worker processes (default 1)",
     )
 
+    p = sub.add_parser(
+        "work",
+        help="run background jobs from the database, without serving HTTP",
+        description="Take the queued background assessments (POST with Prefer: respond-async) "
+        "from the service's database and run them until stopped (SIGTERM or Ctrl-C). Any "
+        "number of these may share one PostgreSQL database with the servers; the database "
+        "must be migrated (plumbline db upgrade).",
+    )
+    p.add_argument(
+        "--threads",
+        metavar="N",
+        type=_int_at_least(1),
+        help="jobs run at once (default: $PLUMBLINE_JOB_WORKERS, else 1)",
+    )
+    p.add_argument(
+        "--database",
+        metavar="URL",
+        help="SQLAlchemy URL (default: $PLUMBLINE_DATABASE_URL, else sqlite:///plumbline.db)",
+    )
+
     p = sub.add_parser("db", help="database maintenance")
     dsub = p.add_subparsers(dest="db_command", metavar="ACTION", required=True)
     d = dsub.add_parser("upgrade", help="apply the database migrations")

@@ -166,3 +166,39 @@ def test_two_server_processes_share_one_queue_and_run_each_job_once(database_url
         a.kill()
         b.kill()
         engine.dispose()
+
+
+@pytest.mark.slow
+def test_a_worker_process_without_http_runs_the_jobs(database_url, tmp_path):
+    """``plumbline work`` beside a server that only queues (``job_workers=0``)."""
+    from tests.serverproc import start_python, stop
+
+    body = fleet(8)
+    s = server(database_url, tmp_path, job_workers="0")
+    s.start()
+    log = tmp_path / "worker.log"
+    worker = start_python(
+        ["-m", "service.cli", "work", "--threads", "2"],
+        {"PLUMBLINE_DATABASE_URL": database_url},
+        log,
+    )
+    try:
+        r = httpx.post(f"{s.url}/v1/assessments", json=body, headers=ASYNC, timeout=60)
+        assert r.status_code == 202
+        job = wait_until(s.url + r.headers["location"], ("done", "failed"))
+        assert job["state"] == "done"
+        same_as_sync(s.url, job, body)
+        engine = create_engine(database_url)
+        try:
+            with engine.connect() as conn:
+                ran_by = conn.execute(
+                    text("SELECT worker FROM jobs WHERE id = :id"), {"id": job["id"]}
+                ).scalar_one()
+        finally:
+            engine.dispose()
+        assert ran_by.endswith(f":{worker.pid}")
+    finally:
+        stop(worker, signal.SIGTERM)
+        s.kill()
+    assert worker.returncode == 0, log.read_text()
+    assert "stopped" in log.read_text()

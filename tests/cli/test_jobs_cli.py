@@ -167,3 +167,9 @@ def demo_body(files):
     import json
 
     return json.loads((files / "weekday.json").read_text())
+
+
+def test_work_refuses_a_database_not_migrated(cli, tmp_path):
+    run = cli("work", "--database", f"sqlite:///{tmp_path / 'empty.db'}")
+    assert run.code == 2
+    assert "run plumbline db upgrade" in run.err
