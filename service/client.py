@@ -53,6 +53,8 @@ __all__ = [
     "AssessmentSummary",
     "CheckSummary",
     "ClientError",
+    "JobFailed",
+    "JobStatus",
     "ModelOverview",
     "PlumblineClient",
     "PolicyRef",
@@ -102,6 +104,21 @@ class ServerBusy(ServerError):
     def __init__(self, message: str, *, status: int, retry_after: float | None = None) -> None:
         super().__init__(message, status=status)
         self.retry_after = retry_after
+
+
+class JobFailed(ServerError):
+    """A background assessment ended ``failed`` on the server (a server-side error, recorded
+    with the job); ``problem`` is its RFC 9457 document."""
+
+    def __init__(self, job_id: str, problem: Mapping[str, Any]) -> None:
+        self.job_id = job_id
+        self.problem = dict(problem)
+        status = problem.get("status")
+        detail = problem.get("detail") or problem.get("title") or "no details"
+        super().__init__(
+            f"job {job_id} failed on the server: {detail}",
+            status=status if isinstance(status, int) else None,
+        )
 
 
 class RequestRejected(ClientError):
@@ -290,6 +307,44 @@ class VerdictResult:
 
 
 @dataclass(frozen=True)
+class JobStatus:
+    """``GET /v1/jobs/{id}``: a background assessment's state and progress."""
+
+    id: str
+    state: str
+    series_done: int
+    series_total: int
+    assessment_id: str | None
+    error: Mapping[str, Any] | None
+    retry_after: float | None = None
+
+    @property
+    def finished(self) -> bool:
+        return self.state in ("done", "failed")
+
+    @classmethod
+    def from_json(cls, data: Mapping[str, Any], retry_after: float | None = None) -> JobStatus:
+        progress = data["progress"]
+        assessment = data.get("assessment")
+        return cls(
+            id=str(data["id"]),
+            state=str(data["state"]),
+            series_done=int(progress["series_done"]),
+            series_total=int(progress["series_total"]),
+            assessment_id=None if not assessment else str(assessment["id"]),
+            error=data.get("error"),
+            retry_after=retry_after,
+        )
+
+
+JobHook = Callable[[JobStatus], None]
+"""Told each state of a job :meth:`PlumblineClient.wait_for_job` sees."""
+
+JOB_ABOVE_BYTES = 8 * 1024 * 1024
+"""By default, :meth:`PlumblineClient.assess` sends a body larger than this as a job."""
+
+
+@dataclass(frozen=True)
 class TokenCreated:
     """A new token; ``token`` is the secret, shown this once."""
 
@@ -345,8 +400,10 @@ class PlumblineClient:
         asked, up to this many seconds; when the server asks for longer, the client stops
         and raises :class:`ServerBusy` (or :class:`ServerError`) at once instead.
     sleep, on_retry
-        ``sleep(seconds)`` waits between attempts (default ``time.sleep``); ``on_retry(attempt,
-        delay, what)`` is told before each retry.
+        ``sleep(seconds)`` waits between attempts and between looks at a job (default
+        ``time.sleep``); ``on_retry(attempt, delay, what)`` is told before each retry.
+    job_above_bytes
+        :meth:`assess` sends a body larger than this as a background job and waits for it.
     """
 
     def __init__(
@@ -363,6 +420,7 @@ class PlumblineClient:
         max_retry_after: float = 60.0,
         sleep: Callable[[float], None] | None = None,
         on_retry: RetryHook | None = None,
+        job_above_bytes: int = JOB_ABOVE_BYTES,
     ) -> None:
         if retries < 0:
             raise ValueError(f"retries must be >= 0, got {retries}")
@@ -384,6 +442,7 @@ class PlumblineClient:
         self._max_retry_after = max_retry_after
         self._sleep = sleep if sleep is not None else time.sleep
         self._on_retry = on_retry
+        self._job_above = job_above_bytes
 
     @property
     def base_url(self) -> str:
@@ -409,12 +468,22 @@ class PlumblineClient:
         params: Mapping[str, Any] | None = None,
         store: bool = True,
         idempotency_key: str | None = None,
+        as_job: bool | None = None,
+        on_progress: JobHook | None = None,
+        wait_seconds: float | None = None,
     ) -> AssessmentDocument:
         """``POST /v1/assessments`` with a JSON ``body`` or ``csv`` text (long format).
 
         ``params`` become query parameters (for CSV: model, version, policy, season_length,
         model_params, level). One ``Idempotency-Key`` (``idempotency_key`` or a fresh UUID) is
         sent on every attempt of this call.
+
+        ``as_job`` true sends ``Prefer: respond-async``: the server queues a job and this call
+        waits for it (:meth:`wait_for_job`, telling ``on_progress`` each state it polls, for
+        ``wait_seconds`` at most: default no limit), then reads the stored assessment. The
+        default, ``None``, does so when the body is larger than ``job_above_bytes`` and the
+        assessment is stored. A server that answers at once (a repeated key, ``store`` false)
+        is answered as without a job.
         """
         if (body is None) == (csv is None):
             raise ValueError("give exactly one of body or csv")
@@ -436,10 +505,52 @@ class PlumblineClient:
             "Content-Type": content_type,
             "Idempotency-Key": idempotency_key or str(uuid.uuid4()),
         }
+        if as_job is None:
+            as_job = store and len(content) > self._job_above
+        if as_job:
+            headers["Prefer"] = "respond-async"
         resp = self._send("POST", "/v1/assessments", content=content, headers=headers, params=query)
         data = self._json(resp)
+        if resp.status_code == 202:
+            job = self._parse(JobStatus.from_json, data, retry_after=_retry_after(resp))
+            if on_progress is not None:
+                on_progress(job)
+            return self.wait_for_job(job.id, on_progress=on_progress, timeout=wait_seconds)
         replayed = resp.status_code == 200 or resp.headers.get("Idempotent-Replayed") == "true"
         return self._parse(AssessmentDocument.from_dict, data, replayed=replayed)
+
+    def job(self, job_id: str) -> JobStatus:
+        """``GET /v1/jobs/{id}``: a background assessment's state and progress."""
+        resp = self._send("GET", f"/v1/jobs/{_segment(job_id)}")
+        return self._parse(JobStatus.from_json, self._json(resp), retry_after=_retry_after(resp))
+
+    def wait_for_job(
+        self,
+        job_id: str,
+        *,
+        on_progress: JobHook | None = None,
+        timeout: float | None = None,
+        poll_seconds: float | None = None,
+    ) -> AssessmentDocument:
+        """Poll a job until it ends; its stored assessment. Between looks it waits the job's
+        ``Retry-After`` (or ``poll_seconds``, default 1 s). Raises :class:`JobFailed` when the
+        job failed and ``TimeoutError`` after ``timeout`` seconds (default: no limit)."""
+        deadline = None if timeout is None else time.monotonic() + timeout
+        while True:
+            job = self.job(job_id)
+            if on_progress is not None:
+                on_progress(job)
+            if job.state == "done" and job.assessment_id is not None:
+                return self.assessment(job.assessment_id)
+            if job.state == "failed":
+                raise JobFailed(job.id, job.error or {})
+            pause = poll_seconds if poll_seconds is not None else (job.retry_after or 1.0)
+            if deadline is not None:
+                left = deadline - time.monotonic()
+                if left <= 0:
+                    raise TimeoutError(f"job {job_id} still {job.state} after {timeout:g} s")
+                pause = min(pause, left)
+            self._sleep(pause)
 
     def assessment(self, assessment_id: str) -> AssessmentDocument:
         """``GET /v1/assessments/{id}``: a stored result."""
@@ -693,6 +804,11 @@ def _check_base_url(base_url: str) -> str:
             f"server URL {base_url!r} must look like http://host:port (scheme and host)"
         )
     return base_url.rstrip("/")
+
+
+def _retry_after(resp: httpx.Response) -> float | None:
+    after = resp.headers.get("Retry-After", "").strip()
+    return float(after) if after.isdigit() else None
 
 
 def _segment(value: str) -> str:

@@ -16,9 +16,20 @@ from .batching import SubmissionBatcher
 from .deps import Services, register
 from .docs import make_app
 from .errors import install_error_handlers
+from .jobs import JobRunner
 from .metrics import Metrics, MetricsMiddleware
 from .openapi import examples_dir, install_openapi, load_examples
-from .routers import assessments, checks, compare, health, models, policies, reports, tokens
+from .routers import (
+    assessments,
+    checks,
+    compare,
+    health,
+    jobs,
+    models,
+    policies,
+    reports,
+    tokens,
+)
 from .security import install_hardening
 
 DESCRIPTION = """Plumbline gates forecasting model releases on residual diagnostics over whole
@@ -45,9 +56,13 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         store.migrate()
         announce_first_token(ensure_first_token(store, settings))
 
+    runner = JobRunner(store, settings)
+
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> Any:
+        runner.start()
         yield
+        runner.stop(timeout=settings.job_lease_seconds)
         store.close()
 
     app = make_app(
@@ -62,10 +77,11 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         metrics=metrics,
         batcher=SubmissionBatcher(store, metrics),
         token_cache=TokenCache(settings.token_cache_seconds),
+        jobs=runner,
     )
     register(app, store=store, settings=settings, services=services)
     install_error_handlers(app)
-    for module in (assessments, reports, models, compare, checks, policies, tokens, health):
+    for module in (assessments, jobs, reports, models, compare, checks, policies, tokens, health):
         query_check.document(module.router)
         app.include_router(module.router)
     install_openapi(app, load_examples(examples_dir(settings.examples_dir)))
@@ -77,8 +93,14 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             CORSMiddleware,
             allow_origins=settings.cors_origins,
             allow_methods=["GET", "POST", "DELETE"],
-            allow_headers=["Authorization", "Content-Type", "Idempotency-Key", "If-None-Match"],
-            expose_headers=["ETag", "Location", "Link"],
+            allow_headers=[
+                "Authorization",
+                "Content-Type",
+                "Idempotency-Key",
+                "If-None-Match",
+                "Prefer",
+            ],
+            expose_headers=["ETag", "Location", "Link", "Preference-Applied", "Retry-After"],
         )
     app.add_middleware(MetricsMiddleware, metrics=metrics)
     return app

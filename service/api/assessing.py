@@ -276,11 +276,25 @@ def _lost_race(store: Store, job: Job) -> Outcome | ApiError | StoreError:
     )
 
 
-def _document(job: Job, result: AssessmentResult) -> AssessmentDocument:
+def stored_answer(
+    job: Job, result: AssessmentResult, assessment_id: str
+) -> tuple[Outcome, NewAssessment]:
+    """The answer and the record to write of a stored ``job`` whose ``result`` was computed
+    elsewhere (a background job's), under an id chosen beforehand."""
+    doc = _document(job, result, assessment_id)
+    (data,) = to_dicts([doc])
+    outcome, record = _answer(job, doc, data)
+    assert record is not None
+    return outcome, record
+
+
+def _document(
+    job: Job, result: AssessmentResult, assessment_id: str | None = None
+) -> AssessmentDocument:
     """The answer of one job: its result in the envelope (a new id when it is stored)."""
     req = job.req
     return AssessmentDocument(
-        id=new_id() if job.store else None,
+        id=(assessment_id or new_id()) if job.store else None,
         created_at=utcnow().isoformat(),
         model=req.model,
         version=req.version,

@@ -458,3 +458,34 @@ class PolicyDocument(BaseModel):
 
 # Schemas the OpenAPI document lists for bodies the endpoints read themselves.
 BODY_SCHEMAS: tuple[type[BaseModel], ...] = (AssessmentBody, TokenRequest, PolicyDocument)
+
+
+# --- jobs --------------------------------------------------------------------------------------
+
+
+class JobProgress(BaseModel):
+    series_done: int = Field(examples=[0])
+    series_total: int = Field(examples=[4000])
+
+
+class JobAssessmentLink(BaseModel):
+    id: str
+    href: str = Field(examples=["/v1/assessments/3f2b9c0d6a1e4f7e8d5c2b1a09f8e7d6"])
+
+
+class Job(BaseModel):
+    """A background assessment (``Prefer: respond-async``): its state, progress and, when
+    done, the assessment it stored; when failed, the problem that stopped it."""
+
+    id: str
+    state: Literal["queued", "running", "done", "failed"]
+    model: str
+    version: str
+    progress: JobProgress
+    created_at: datetime
+    started_at: datetime | None
+    updated_at: datetime
+    finished_at: datetime | None
+    attempts: int = Field(description="How many times a worker has started the job.")
+    assessment: JobAssessmentLink | None = Field(description="When done: the stored assessment.")
+    error: Problem | None = Field(description="When failed: why (RFC 9457).")

@@ -72,7 +72,7 @@ def _hint(exc: Any, args: Any) -> str:
     return text
 
 
-SERVER_COMMANDS = frozenset({"serve", "db"})
+SERVER_COMMANDS = frozenset({"serve", "db", "work"})
 """Commands that always work on the server's own database."""
 
 

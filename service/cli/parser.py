@@ -164,6 +164,27 @@ def build_parser() -> Parser:
         help="server mode: the key for this assessment (default: a new one per run), e.g. the "
         "pipeline run id, so a re-run job gets the stored result instead of storing again",
     )
+    job = p.add_mutually_exclusive_group()
+    job.add_argument(
+        "--as-job",
+        dest="as_job",
+        action="store_true",
+        default=None,
+        help="server mode: run it as a background job on the server and wait for it, with a "
+        "progress bar on a terminal (default: for files over --job-above)",
+    )
+    job.add_argument(
+        "--no-job",
+        dest="as_job",
+        action="store_false",
+        help="server mode: one request that waits for the answer, however large the file",
+    )
+    p.add_argument(
+        "--job-above",
+        metavar="MIB",
+        type=_positive_float,
+        help="server mode: send requests larger than this many MiB as jobs (default 8)",
+    )
     _server_options(p, timeout=300.0)
 
     # verdict ---------------------------------------------------------------
@@ -224,6 +245,26 @@ def build_parser() -> Parser:
         type=_int_at_least(1),
         default=1,
         help="worker processes (default 1)",
+    )
+
+    p = sub.add_parser(
+        "work",
+        help="run background jobs from the database, without serving HTTP",
+        description="Take the queued background assessments (POST with Prefer: respond-async) "
+        "from the service's database and run them until stopped (SIGTERM or Ctrl-C). Any "
+        "number of these may share one PostgreSQL database with the servers; the database "
+        "must be migrated (plumbline db upgrade).",
+    )
+    p.add_argument(
+        "--threads",
+        metavar="N",
+        type=_int_at_least(1),
+        help="jobs run at once (default: $PLUMBLINE_JOB_WORKERS, else 1)",
+    )
+    p.add_argument(
+        "--database",
+        metavar="URL",
+        help="SQLAlchemy URL (default: $PLUMBLINE_DATABASE_URL, else sqlite:///plumbline.db)",
     )
 
     p = sub.add_parser("db", help="database maintenance")

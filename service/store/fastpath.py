@@ -48,13 +48,21 @@ class Statement:
         return {k: values[k] for k in self.keys}
 
 
-def _compile(engine: Engine, stmt: Any, table: Table, keys: Sequence[str]) -> Statement:
+def _compile(
+    engine: Engine,
+    stmt: Any,
+    table: Table,
+    keys: Sequence[str],
+    types: Mapping[str, Any] | None = None,
+) -> Statement:
     compiled = stmt.compile(dialect=engine.dialect, column_keys=list(keys))
     order = compiled.positiontup
     processors = {}
     for key in keys:
-        if key in table.c:
-            proc = table.c[key].type.dialect_impl(engine.dialect).bind_processor(engine.dialect)
+        # A key named after a column binds as the column's type; ``types`` gives the others'.
+        kind = table.c[key].type if key in table.c else (types or {}).get(key)
+        if kind is not None:
+            proc = kind.dialect_impl(engine.dialect).bind_processor(engine.dialect)
             if proc is not None:
                 processors[key] = proc
     defaults = {k: v for k, v in compiled.params.items() if k not in keys}
@@ -97,6 +105,10 @@ class Statements:
 
 
 _CACHE: weakref.WeakKeyDictionary[Engine, Statements] = weakref.WeakKeyDictionary()
+
+
+compile_statement = _compile
+"""Compile a statement of another module for :func:`run_in_transaction` work."""
 
 
 def statements(engine: Engine) -> Statements:

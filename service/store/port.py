@@ -25,18 +25,22 @@ from typing import Any
 
 from .records import (
     AssessmentSummary,
+    ClaimedJob,
     IdempotencyRecord,
     ModelSummary,
     NewAssessment,
+    NewJob,
     SeriesInput,
     StoredAssessment,
     StoredHead,
+    StoredJob,
     StoredPolicy,
     StoredToken,
 )
 
 __all__ = [
     "IdempotencyConflict",
+    "JobLost",
     "Readiness",
     "Store",
     "StoreConflict",
@@ -70,6 +74,15 @@ class IdempotencyConflict(StoreConflict):
     def __init__(self, key: str) -> None:
         super().__init__(f"idempotency key {key!r} is already stored", kind="IntegrityError")
         self.key = key
+
+
+class JobLost(StoreConflict):
+    """The job is no longer the caller's: its lease expired and another worker took it (or it
+    was finished meanwhile). Nothing of the write was written."""
+
+    def __init__(self, job_id: str) -> None:
+        super().__init__(f"job {job_id!r} is no longer held by this worker", kind="JobLost")
+        self.job_id = job_id
 
 
 @dataclass(frozen=True)
@@ -162,6 +175,50 @@ class Store(ABC):
     @abstractmethod
     def find_idempotency_key(self, *, key: str) -> IdempotencyRecord | None:
         """The stored use of an idempotency key, or ``None``."""
+
+    # --- Jobs ----------------------------------------------------------------------------
+
+    @abstractmethod
+    def create_job(self, job: NewJob) -> StoredJob:
+        """Write a queued job; :class:`IdempotencyConflict` when its key is a job's already."""
+
+    @abstractmethod
+    def get_job(self, *, job_id: str) -> StoredJob | None:
+        """The job with this id (without its input), or ``None``."""
+
+    @abstractmethod
+    def find_job_by_key(self, *, key: str) -> StoredJob | None:
+        """The job submitted with this idempotency key, or ``None``."""
+
+    @abstractmethod
+    def claim_job(self, *, worker: str, lease_seconds: float) -> ClaimedJob | None:
+        """Take the oldest queued job (or running one whose lease expired) for
+        ``lease_seconds``, for ``worker``; ``None`` when none is free. Two workers never hold
+        the same job at once."""
+
+    @abstractmethod
+    def renew_job(
+        self, *, job_id: str, claim: str, lease_seconds: float, series_done: int | None = None
+    ) -> bool:
+        """Extend the claim's lease and record progress; ``False``: the job is not ours."""
+
+    @abstractmethod
+    def finish_job(self, *, job_id: str, claim: str, record: NewAssessment) -> StoredJob:
+        """Store the job's assessment and mark it done, in one transaction. Raises
+        :class:`JobLost` (nothing written) when the claim lost the job, and
+        :class:`IdempotencyConflict` when the job's key was stored meanwhile."""
+
+    @abstractmethod
+    def link_job(self, *, job_id: str, claim: str, assessment_id: str) -> bool:
+        """Mark the job done with an assessment stored already; ``False``: not ours."""
+
+    @abstractmethod
+    def fail_job(self, *, job_id: str, claim: str, error: dict[str, Any]) -> bool:
+        """Mark the job failed with ``error`` (a problem document); ``False``: not ours."""
+
+    @abstractmethod
+    def release_job(self, *, job_id: str, claim: str) -> bool:
+        """Put a running job back in the queue; ``False``: not ours."""
 
     # --- Policies ------------------------------------------------------------------------
 

@@ -217,3 +217,57 @@ class StoredToken:
             "created_at": self.created_at.isoformat(),
             "revoked_at": None if self.revoked_at is None else self.revoked_at.isoformat(),
         }
+
+
+# ---------------------------------------------------------------------------------------------
+# Jobs
+
+JOB_STATES = ("queued", "running", "done", "failed")
+
+
+@dataclass(frozen=True)
+class NewJob:
+    """Everything ``create_job`` writes: the job's own fields and its compact input."""
+
+    job_id: str
+    created_at: datetime
+    model: str
+    version: str
+    n_series: int
+    input: bytes
+    policy_document: dict[str, Any]
+    assessment_id: str
+    idempotency_key: str | None = None
+    body_hash: str | None = None
+
+
+@dataclass(frozen=True)
+class StoredJob:
+    """A job as ``GET /v1/jobs/{id}`` shows it (without its input). ``error`` is the
+    problem document of a failed job."""
+
+    id: str
+    state: str
+    created_at: datetime
+    started_at: datetime | None
+    updated_at: datetime
+    finished_at: datetime | None
+    model: str
+    version: str
+    n_series: int
+    series_done: int
+    assessment_id: str
+    error: dict[str, Any] | None
+    attempts: int
+    idempotency_key: str | None
+    body_hash: str | None
+
+
+@dataclass(frozen=True)
+class ClaimedJob:
+    """A job a worker has taken: run it, renew its lease with ``claim``, then finish it."""
+
+    job: StoredJob
+    claim: str
+    input: bytes
+    policy_document: dict[str, Any]

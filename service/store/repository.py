@@ -172,8 +172,13 @@ def _input_row(i: int, s: SeriesInput) -> dict[str, Any]:
     }
 
 
-def _write_all(engine: Engine, records: Sequence[NewAssessment]) -> list[int]:
-    """Write ``records`` in one transaction; their sequence numbers in order."""
+def _write_all(
+    engine: Engine,
+    records: Sequence[NewAssessment],
+    then: Callable[[Any, list[int]], None] | None = None,
+) -> list[int]:
+    """Write ``records`` in one transaction; their sequence numbers in order. ``then(cursor,
+    seqs)`` runs last in the same transaction (what raises there undoes the whole write)."""
     stmts = fastpath.statements(engine)
 
     def write(cursor: Any) -> list[int]:
@@ -231,6 +236,8 @@ def _write_all(engine: Engine, records: Sequence[NewAssessment]) -> list[int]:
         # Every series row of every assessment in two statements.
         fastpath.executemany(cursor, stmts.insert_series_result, result_rows)
         fastpath.executemany(cursor, stmts.insert_series_input, input_rows)
+        if then is not None:
+            then(cursor, seqs)
         return seqs
 
     with write_lock(engine):

@@ -18,7 +18,7 @@ from service.settings import Settings
 from service.store.port import Store
 from service.store.records import StoredAssessment
 
-from .. import assessing
+from .. import assessing, jobs
 from ..auth import authorize, require
 from ..body import is_csv, is_json, media_type, read_body
 from ..csvout import to_csv, wants_csv
@@ -36,7 +36,7 @@ from ..httputil import (
     problem_docs,
 )
 from ..overview import list_csv
-from ..schemas import AssessmentDocument, AssessmentPage, SeriesRowPage, Verdict
+from ..schemas import AssessmentDocument, AssessmentPage, Job, SeriesRowPage, Verdict
 
 router = APIRouter(prefix="/v1/assessments", tags=["assessments"])
 
@@ -83,6 +83,13 @@ POST_PARAMETERS = [
         "a repeat with the same key and body returns the stored "
         "result (200); with another body, 409",
         {"type": "string", "maxLength": 200},
+    ),
+    _param(
+        "Prefer",
+        "header",
+        "respond-async (RFC 7240): answer 202 with a job at once and assess in the background "
+        "(not with store=false, which is answered at once)",
+        {"type": "string", "examples": ["respond-async"]},
     ),
     _param("model", "query", "CSV uploads: the model name", {"type": "string"}),
     _param("version", "query", "CSV uploads: the model version", {"type": "string"}),
@@ -179,6 +186,11 @@ def _idempotency_key(value: str | None) -> str | None:
             "description": "A repeat of an Idempotency-Key with the same body (the "
             "stored result), or a store=false computation"
         },
+        202: {
+            "description": "With Prefer: respond-async: the assessment runs as a job; "
+            "Location names it (GET /v1/jobs/{id})",
+            "model": Job,
+        },
         **_PROBLEMS,
     },
     openapi_extra={**json_body_doc("AssessmentBody", csv=True), "parameters": POST_PARAMETERS},
@@ -215,6 +227,11 @@ async def post_assessment(
         if key is not None and keep
         else None
     )
+
+    if keep and jobs.prefers_async(request.headers.get("prefer")):  # a background job: 202
+        return await jobs.respond_async(
+            store, settings, services, kind=kind, body=body, params=params, key=key, digest=digest
+        )
 
     def replayed() -> assessing.Outcome | None:
         if digest is not None:
