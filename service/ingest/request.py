@@ -59,7 +59,8 @@ class AssessmentRequest:
 
     ``policy`` is a stored policy's name or an inline policy document (a dict, validated by the
     gate). ``timestamps`` and ``holdout_timestamps`` hold one list of ISO 8601 strings per series
-    (``None`` where a series has none). ``train_lengths`` / ``holdout_lengths`` are the lengths
+    (``None`` where a series has none; a columnar upload's make each series' list when it is
+    asked for). ``train_lengths`` / ``holdout_lengths`` are the lengths
     of the arrays as sent and ``weights_given`` the weights as sent (``None``: the default), so
     stored inputs can be given back exactly.
     """
@@ -72,8 +73,8 @@ class AssessmentRequest:
     labels: dict[str, str]
     ids: tuple[str, ...]
     batch: SeriesBatch
-    timestamps: tuple[list[str] | None, ...]
-    holdout_timestamps: tuple[list[str] | None, ...]
+    timestamps: Sequence[list[str] | None]
+    holdout_timestamps: Sequence[list[str] | None]
     train_lengths: np.ndarray
     holdout_lengths: np.ndarray
     weights_given: tuple[float | None, ...]
@@ -115,7 +116,7 @@ class HoldoutColumns:
     lower: FlatRows | None
     upper: FlatRows | None
     levels: list[float | None]
-    timestamps: list[list[str] | None]
+    timestamps: Sequence[list[str] | None]
 
 
 @dataclass(frozen=True, eq=False)
@@ -126,7 +127,7 @@ class SeriesColumns:
     ids: list[str]
     actuals: FlatRows
     fitted: FlatRows
-    timestamps: list[list[str] | None]
+    timestamps: Sequence[list[str] | None]
     weights: list[float | None]
     holdout: HoldoutColumns | None
 

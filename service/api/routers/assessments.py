@@ -18,9 +18,9 @@ from service.settings import Settings
 from service.store.port import Store
 from service.store.records import StoredAssessment
 
-from .. import assessing
+from .. import assessing, series_view
 from ..auth import authorize, require
-from ..body import is_csv, is_json, media_type, read_body
+from ..body import ARROW_STREAM, PARQUET, columnar_kind, is_csv, is_json, media_type, read_body
 from ..csvout import to_csv, wants_csv
 from ..deps import Services, get_services, get_settings, get_store
 from ..errors import ApiError
@@ -95,6 +95,7 @@ POST_PARAMETERS = [
         "result (200); with another body, 409",
         {"type": "string", "maxLength": 200},
     ),
+    series_view.PARAMETER,
     _param("model", "query", "CSV uploads: the model name", {"type": "string"}),
     _param("version", "query", "CSV uploads: the model version", {"type": "string"}),
     _param(
@@ -179,7 +180,10 @@ def _idempotency_key(value: str | None) -> str | None:
         },
         **_PROBLEMS,
     },
-    openapi_extra={**json_body_doc("AssessmentBody", csv=True), "parameters": POST_PARAMETERS},
+    openapi_extra={
+        **json_body_doc("AssessmentBody", csv=True, columnar=True),
+        "parameters": POST_PARAMETERS,
+    },
 )
 async def post_assessment(
     request: Request,
@@ -187,8 +191,9 @@ async def post_assessment(
     settings: Annotated[Settings, Depends(get_settings)],
     services: Annotated[Services, Depends(get_services)],
 ) -> Response:
-    """Body: JSON (the shape in the contract) or ``text/csv`` long format with the model,
-    version, policy, season_length, model_params and level as query parameters."""
+    """Body: JSON (the shape in the contract), or the long format as ``text/csv``, an Arrow IPC
+    stream or Parquet, with the model, version, policy, season_length, model_params and level
+    as query parameters. ``series`` sizes the answer (all, flagged or none)."""
     # The hottest endpoint checks its token directly, with the store, settings and services it
     # is given: a dependency of its own costs more than the check itself (the other endpoints
     # use the same check as the ``require`` dependency).
@@ -198,24 +203,29 @@ async def post_assessment(
         kind = "json"
     elif is_csv(kind_raw):
         kind = "csv"
+    elif (columnar := columnar_kind(kind_raw)) is not None:
+        kind = columnar
     else:
         raise ApiError(
-            415, f"Content-Type must be application/json or text/csv, got {kind_raw or 'none'}"
+            415,
+            "Content-Type must be application/json, text/csv, "
+            f"{ARROW_STREAM} or {PARQUET}, got {kind_raw[:100] or 'none'}",
         )
     keep = _store_flag(request.query_params.get("store"))
+    shown = series_view.shown_of(request.query_params)
     key = _idempotency_key(request.headers.get("idempotency-key"))
     body = await read_body(request, settings.max_body_bytes)
-    params = {k: v for k, v in request.query_params.items() if k != "store"}
+    params = {k: v for k, v in request.query_params.items() if k not in ("store", "series")}
     # The fingerprint matters only to an Idempotency-Key (its replay and its stored row).
     digest = (
-        assessing.body_hash(kind, params if kind == "csv" else {}, body)
+        assessing.body_hash(kind, params if kind != "json" else {}, body)
         if key is not None and keep
         else None
     )
 
     def replayed() -> assessing.Outcome | None:
         if digest is not None:
-            return assessing.replay(store, key, digest)  # type: ignore[arg-type]
+            return assessing.replay(store, key, digest, shown)  # type: ignore[arg-type]
         return None
 
     def job() -> assessing.Job:
@@ -227,6 +237,7 @@ async def post_assessment(
             idempotency_key=key if keep else None,
             digest=digest,
             timings={"parse": time.perf_counter() - clock},
+            shown=shown,
         )
 
     # Small bodies are parsed on the event loop (a thread hop and the lock hand-over between
@@ -353,6 +364,7 @@ def stored_or_404(store: Store, assessment_id: str) -> StoredAssessment:
     response_model=AssessmentDocument,
     summary="One assessment's full result, as the POST returned it",
     responses={304: {"description": "Not modified"}, **_READ_PROBLEMS},
+    openapi_extra={"parameters": [series_view.PARAMETER]},
 )
 def get_assessment(
     request: Request,
@@ -360,7 +372,9 @@ def get_assessment(
     principal: Annotated[Any, Depends(require("read"))],
     store: Annotated[Store, Depends(get_store)],
 ) -> Response:
-    return conditional(request, stored_or_404(store, assessment_id).to_json(), JSON)
+    shown = series_view.shown_of(request.query_params)
+    stored = stored_or_404(store, assessment_id)
+    return conditional(request, series_view.stored_answer(stored, shown), JSON)
 
 
 def series_rows(
