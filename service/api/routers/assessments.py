@@ -18,7 +18,7 @@ from service.settings import Settings
 from service.store.port import Store
 from service.store.records import StoredAssessment
 
-from .. import assessing, series_view
+from .. import assessing, series_export, series_view
 from ..auth import authorize, require
 from ..body import ARROW_STREAM, PARQUET, columnar_kind, is_csv, is_json, media_type, read_body
 from ..csvout import to_csv, wants_csv
@@ -35,7 +35,7 @@ from ..httputil import (
     json_body_doc,
     problem_docs,
 )
-from ..schemas import AssessmentDocument, AssessmentPage, SeriesRowPage, Verdict
+from ..schemas import AssessmentDocument, AssessmentPage, CheckStatus, SeriesRowPage, Verdict
 
 router = APIRouter(prefix="/v1/assessments", tags=["assessments"])
 
@@ -52,19 +52,6 @@ SUMMARY_COLUMNS = (
     "n_warned",
     "policy_name",
     "policy_version",
-)
-SERIES_COLUMNS = (
-    "assessment_id",
-    "series_id",
-    "series_verdict",
-    "n_obs",
-    "check",
-    "status",
-    "statistic",
-    "p_value",
-    "p_adjusted",
-    "message",
-    "details",
 )
 MAX_KEY_LENGTH = 200
 INLINE_BODY_BYTES = 64 * 1024
@@ -377,40 +364,18 @@ def get_assessment(
     return conditional(request, series_view.stored_answer(stored, shown), JSON)
 
 
-def series_rows(
-    assessment_id: str, series: SeriesTable, check: str | None, status: str | None
-) -> list[dict[str, Any]]:
-    rows = []
-    for s in series:
-        for c in s.checks:
-            if check is not None and c.name != check:
-                continue
-            if status is not None and c.status != status:
-                continue
-            rows.append(
-                {
-                    "assessment_id": assessment_id,
-                    "series_id": s.id,
-                    "series_verdict": str(s.verdict),
-                    "n_obs": s.n_obs,
-                    "check": c.name,
-                    "status": str(c.status),
-                    "statistic": c.statistic,
-                    "p_value": c.p_value,
-                    "p_adjusted": c.p_adjusted,
-                    "message": c.message,
-                    "details": dict(c.details),
-                }
-            )
-    return rows
-
-
 @router.get(
     "/{assessment_id}/series",
     response_model=SeriesRowPage,
-    summary="One flat row per series and check (JSON or CSV)",
+    summary="One flat row per series and check: a JSON page, or CSV, Arrow or Parquet",
     responses={
-        200: {"content": {"text/csv": {}}},
+        200: {
+            "content": {
+                "text/csv": {},
+                series_export.ARROW: {"schema": {"type": "string", "format": "binary"}},
+                series_export.PARQUET: {"schema": {"type": "string", "format": "binary"}},
+            }
+        },
         304: {"description": "Not modified"},
         **_READ_PROBLEMS,
     },
@@ -420,14 +385,23 @@ def get_series_rows(
     assessment_id: str,
     principal: Annotated[Any, Depends(require("read"))],
     store: Annotated[Store, Depends(get_store)],
-    check: Annotated[str | None, Query(description="only this check")] = None,
-    status: Annotated[str | None, Query(description="only rows with this status")] = None,
+    settings: Annotated[Settings, Depends(get_settings)],
+    check: Annotated[str | None, Query(description="only this check (a registered name)")] = None,
+    status: Annotated[CheckStatus | None, Query(description="only rows with this status")] = None,
+    limit: Annotated[int | None, Query(ge=1, description="JSON: rows per page")] = None,
+    cursor: Annotated[str | None, Query(description="JSON: the page after this one")] = None,
 ) -> Response:
+    """``Accept`` chooses JSON (a page of rows, with a ``next`` link), ``text/csv``,
+    ``application/vnd.apache.arrow.stream`` or ``application/vnd.apache.parquet`` (every row
+    asked for, with the common details as columns of their own)."""
+    query = series_export.read_query(request.query_params.multi_items(), settings.page_limit_max)
+    kind = series_export.negotiate(request.headers.get("accept"))
     stored = stored_or_404(store, assessment_id)
     series = SeriesTable.from_dicts([orjson.loads(s) for s in stored.series])
-    rows = series_rows(assessment_id, series, check, status)
-    if wants_csv(request.headers.get("accept")):
-        body = to_csv(SERIES_COLUMNS, ([r[c] for c in SERIES_COLUMNS] for r in rows))
-        return conditional(request, body, CSV)
-    body = orjson.dumps({"assessment_id": assessment_id, "items": rows})
-    return conditional(request, body, JSON)
+    rows = series_export.rows_of(assessment_id, series, query)
+    if kind == series_export.JSON:
+        body, next_link = series_export.page_body(assessment_id, rows, query, request.url.path)
+        headers = {} if next_link is None else {"Link": f'<{next_link}>; rel="next"'}
+        return conditional(request, body, JSON, headers)
+    media = CSV if kind == series_export.CSV else kind
+    return conditional(request, series_export.download(rows, kind), media)
