@@ -66,9 +66,10 @@ def send(
 ) -> AssessmentDocument:
     """One assessment on the server (retried with one Idempotency-Key by the client)."""
     body = inp.body
-    if inp.kind == "csv":
+    if inp.kind in ("csv", "arrow", "parquet"):
         if inp.inline_policy is None and not inp.labels:
-            return client.assess(csv=inp.text, params=inp.params, store=store, idempotency_key=key)
+            upload = {"csv": inp.text} if inp.kind == "csv" else {inp.kind: inp.data}
+            return client.assess(**upload, params=inp.params, store=store, idempotency_key=key)
         body = csv_as_body(inp)
     try:
         return client.assess(body, store=store, idempotency_key=key)
