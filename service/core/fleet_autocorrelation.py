@@ -87,13 +87,16 @@ def fleet_lag_test(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
             continue
         pairs = obs_r[:, k:] & obs_r[:, :-k] & tested[rows, k - 1][:, None]
         prod = zr[:, k:] * zr[:, :-k]
-        prod[~pairs] = 0.0
+        every_pair = bool(pairs.all())  # no gap: nothing to clear
+        if not every_pair:
+            prod[~pairs] = 0.0
         norm = np.sqrt(np.vecdot(prod, prod))
         ok = norm > 0
         with np.errstate(invalid="ignore", divide="ignore"):
             x = prod + shift[:, None]
             x /= norm[:, None]
-            x[~(pairs & ok[:, None])] = 0.0
+            if not (every_pair and ok.all()):
+                x[~(pairs & ok[:, None])] = 0.0
             acf = np.where(ok, prod.sum(axis=1) / gamma0, np.nan)
         members = int(ok.sum())
         if members == 0:

@@ -168,17 +168,21 @@ class _Rows:
             self.holdout = self._parts(_array(table, columns["part"]))
         self.values = {
             name: self._numbers(name, _array(table, columns[name]))
-            if name in columns
-            else np.full(self.n_rows, np.nan)
             for name in _NUMERIC
+            if name in columns
         }
-        bounded = ~np.isnan(self.values["lower"]) | ~np.isnan(self.values["upper"])
-        for r in _rows_of(bounded & ~self.holdout):
-            errs.add(f"row[{r}].lower", "lower and upper belong on holdout rows only")
+        bounds = [self.values[b] for b in ("lower", "upper") if b in self.values]
+        if bounds:
+            bounded = np.zeros(self.n_rows, dtype=bool)
+            for values in bounds:
+                bounded |= ~np.isnan(values)
+            for r in _rows_of(bounded & ~self.holdout):
+                errs.add(f"row[{r}].lower", "lower and upper belong on holdout rows only")
         self.stamps: np.ndarray | None = None  # int64 per row, for the order
         self.texts: Any = None  # what the stored timestamps are made of, per row
         if "timestamp" in columns:
             self._timestamps(_array(table, columns["timestamp"]))
+        self.reordered: np.ndarray | None = None  # the rows, when a sort reordered them
         train = np.flatnonzero(~self.holdout)
         held = np.flatnonzero(self.holdout)
         self.t_rows = self._grouped(train)
@@ -353,24 +357,33 @@ class _Rows:
         codes = self.codes[rows]
         if codes.size < 2 or bool((codes[1:] >= codes[:-1]).all()):
             return rows
-        return rows[np.argsort(codes, kind="stable")]
+        self.reordered = rows[np.argsort(codes, kind="stable")]
+        return self.reordered
+
+    def _taken(self, name: str, rows: np.ndarray) -> np.ndarray:
+        """Column ``name`` at ``rows`` (NaN throughout for a column left out)."""
+        values = self.values.get(name)
+        if values is None:
+            return np.full(rows.size, np.nan)
+        if rows.size == self.n_rows and rows is not self.reordered:
+            return values  # every row, in file order
+        return values[rows]
 
     def series(self) -> ReadSeries:
         """Every series as read, as the CSV upload's rows give it."""
         n = len(self.ids)
         t, h = self.t_rows, self.h_rows
-        v = self.values
         return ReadSeries(
             ids=self.ids,
             t_lengths=np.bincount(self.codes[t], minlength=n),
-            actual=v["actual"][t],
-            fitted=v["fitted"][t],
+            actual=self._taken("actual", t),
+            fitted=self._taken("fitted", t),
             t_stamps=None,  # checked here by row; given to the request lazily
             h_lengths=np.bincount(self.codes[h], minlength=n),
-            h_actual=v["actual"][h],
-            h_forecast=v["fitted"][h],
-            lower=v["lower"][h],
-            upper=v["upper"][h],
+            h_actual=self._taken("actual", h),
+            h_forecast=self._taken("fitted", h),
+            lower=self._taken("lower", h),
+            upper=self._taken("upper", h),
             h_stamps=None,
         )
 
