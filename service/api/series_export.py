@@ -11,7 +11,8 @@ series table; pyarrow is imported only for the columnar formats.
 
 Query parameters, each checked (a 422 names an unknown one and any value off): ``check``
 (a registered check's name), ``status`` (pass, warn, fail or skipped), ``limit`` and
-``cursor``.
+``cursor`` (JSON pages; a page holds at most ``PLUMBLINE_PAGE_LIMIT_MAX`` rows, the
+default).
 """
 
 from __future__ import annotations
@@ -83,7 +84,6 @@ them; a row whose check has no such detail leaves it empty."""
 
 STATUSES = ("pass", "warn", "fail", "skipped")
 PARAMETERS = frozenset({"check", "status", "limit", "cursor"})
-DEFAULT_LIMIT = 1000
 _CURSOR_PREFIX = "row:"
 
 _ROW_TYPES = {
@@ -131,7 +131,7 @@ def read_query(params: Sequence[tuple[str, str]], limit_max: int) -> Query:
     status = seen.get("status")
     if status is not None and status not in STATUSES:
         raise _bad("status", f"must be one of {', '.join(STATUSES)}, got {status[:40]!r}")
-    limit = min(DEFAULT_LIMIT, limit_max)
+    limit = limit_max
     if "limit" in seen:
         raw = seen["limit"]
         if not raw.isdigit() or not 1 <= int(raw) <= limit_max:
