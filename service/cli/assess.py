@@ -68,7 +68,9 @@ def send(
     body = inp.body
     if inp.kind in ("csv", "arrow", "parquet"):
         if inp.inline_policy is None and not inp.labels:
-            upload = {"csv": inp.text} if inp.kind == "csv" else {inp.kind: inp.data}
+            upload: dict[str, Any] = (
+                {"csv": inp.text} if inp.kind == "csv" else {inp.kind: inp.data}
+            )
             return client.assess(**upload, params=inp.params, store=store, idempotency_key=key)
         body = csv_as_body(inp)
     try:

@@ -114,7 +114,7 @@ def fleet_lag_test(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
             if r_i.size == 0:
                 continue
             pos = offsets[r_i] + c_i + k
-            h = np.bincount(pos, weights=x[r_i, c_i] / members, minlength=n_cal)
+            h = np.bincount(  # type: ignore[assignment]pos, weights=x[r_i, c_i] / members, minlength=n_cal)
             first, last = int(pos.min()), int(pos.max())
         span = np.array([max(last - first + 1, 0)])
         b = ewc_bins(span)

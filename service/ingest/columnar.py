@@ -228,7 +228,7 @@ class _Rows:
             [not s or len(s) > MAX_NAME_LENGTH or "\x00" in s for s in stripped], dtype=bool
         )
         if bad.any():
-            first = {}
+            first: dict[int, int] = {}
             for r in np.flatnonzero(bad[codes] & ~nulls):
                 first.setdefault(int(codes[r]), int(r))
                 if len(first) >= MAX_ERRORS:
@@ -452,7 +452,8 @@ class _Moments:
     def __getitem__(self, rows: Any) -> list[str]:
         part = self.moments[rows]
         zone = "UTC" if self.utc else "naive"
-        return np.datetime_as_string(part, unit=self.unit, timezone=zone).tolist()
+        text = np.datetime_as_string(part, unit=self.unit, timezone=zone)  # type: ignore[call-overload]
+        return text.tolist()  # type: ignore[no-any-return]
 
 
 class _Stamps(Sequence[list[str] | None]):
