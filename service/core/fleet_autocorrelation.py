@@ -114,7 +114,8 @@ def fleet_lag_test(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
             if r_i.size == 0:
                 continue
             pos = offsets[r_i] + c_i + k
-            h = np.bincount(  # type: ignore[assignment]pos, weights=x[r_i, c_i] / members, minlength=n_cal)
+            weights = x[r_i, c_i] / members
+            h = np.bincount(pos, weights=weights, minlength=n_cal)  # type: ignore[assignment]
             first, last = int(pos.min()), int(pos.max())
         span = np.array([max(last - first + 1, 0)])
         b = ewc_bins(span)

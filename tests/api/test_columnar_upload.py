@@ -325,3 +325,43 @@ def test_unknown_content_type_names_the_columnar_types(client):
     r = client.post("/v1/assessments", content=b"x", headers={**ADMIN, "Content-Type": "a/b"})
     assert r.status_code == 415
     assert ARROW_STREAM in r.json()["detail"] and PARQUET in r.json()["detail"]
+
+
+LAZY_PROBE = """
+import sys
+from pathlib import Path
+from fastapi.testclient import TestClient
+from service.api.app import create_app
+from service.settings import Settings
+
+app = create_app(Settings(database_url="sqlite:///" + sys.argv[1], admin_token="t" * 20))
+headers = {"Authorization": "Bearer " + "t" * 20}
+with TestClient(app) as client:
+    csv = "series_id,actual,fitted\\n" + "".join(f"a,{k % 5},2\\n" for k in range(30))
+    r = client.post("/v1/assessments?model=m&version=1", content=csv,
+                    headers={**headers, "Content-Type": "text/csv"})
+    assert r.status_code == 201, r.text
+    before = "pyarrow" in sys.modules
+    r = client.post("/v1/assessments?model=m&version=1", content=Path(sys.argv[2]).read_bytes(),
+                    headers={**headers, "Content-Type": "application/vnd.apache.arrow.stream"})
+    assert r.status_code == 201, r.text
+    print(f"BEFORE={before} AFTER={'pyarrow' in sys.modules}")
+"""
+
+
+def test_pyarrow_is_imported_only_when_a_columnar_body_arrives(tmp_path):
+    import subprocess
+    import sys
+    from pathlib import Path
+
+    data = tmp_path / "fleet.arrows"
+    data.write_bytes(arrow_bytes(table_of()))
+    proc = subprocess.run(
+        [sys.executable, "-c", LAZY_PROBE, str(tmp_path / "lazy.db"), str(data)],
+        capture_output=True,
+        text=True,
+        timeout=120,
+        cwd=Path(__file__).resolve().parents[2],
+    )
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    assert "BEFORE=False AFTER=True" in proc.stdout
