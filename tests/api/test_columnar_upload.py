@@ -349,6 +349,7 @@ with TestClient(app) as client:
 """
 
 
+@pytest.mark.slow  # a fresh interpreter importing the service: several seconds
 def test_pyarrow_is_imported_only_when_a_columnar_body_arrives(tmp_path):
     import subprocess
     import sys
