@@ -22,6 +22,7 @@ Starlette's ``TestClient``) as ``http=``, or an ``httpx.BaseTransport`` as ``tra
 from __future__ import annotations
 
 import json
+import os
 import time
 import uuid
 from collections.abc import Callable, Mapping, Sequence
@@ -70,6 +71,11 @@ __all__ = [
     "VerdictResult",
     "verdict_blocks",
 ]
+
+ARROW_STREAM = "application/vnd.apache.arrow.stream"
+PARQUET = "application/vnd.apache.parquet"
+PARQUET_EXTENSIONS = (".parquet", ".pq")
+ARROW_EXTENSIONS = (".arrow", ".arrows", ".ipc")
 
 # --------------------------------------------------------------------------- errors
 
@@ -465,18 +471,25 @@ class PlumblineClient:
         body: Mapping[str, Any] | None = None,
         *,
         csv: str | None = None,
+        arrow: bytes | None = None,
+        parquet: bytes | None = None,
         params: Mapping[str, Any] | None = None,
         store: bool = True,
         idempotency_key: str | None = None,
         as_job: bool | None = None,
         on_progress: JobHook | None = None,
         wait_seconds: float | None = None,
+        series: str | None = None,
     ) -> AssessmentDocument:
-        """``POST /v1/assessments`` with a JSON ``body`` or ``csv`` text (long format).
+        """``POST /v1/assessments`` with a JSON ``body``, ``csv`` text (long format), or the
+        bytes of an ``arrow`` IPC stream or a ``parquet`` file in the same long layout.
 
-        ``params`` become query parameters (for CSV: model, version, policy, season_length,
-        model_params, level). One ``Idempotency-Key`` (``idempotency_key`` or a fresh UUID) is
-        sent on every attempt of this call.
+        ``params`` become query parameters (for CSV, Arrow and Parquet: model, version,
+        policy, season_length, model_params, level). ``series`` sizes the answer: ``"all"``
+        (the server's default), ``"flagged"`` or ``"none"`` (then ``result.series`` holds
+        only those rows and ``extra["series_shown"]`` says so; the counts stay whole). One
+        ``Idempotency-Key`` (``idempotency_key`` or a fresh UUID) is sent on every attempt
+        of this call.
 
         ``as_job`` true sends ``Prefer: respond-async``: the server queues a job and this call
         waits for it (:meth:`wait_for_job`, telling ``on_progress`` each state it polls, for
@@ -485,8 +498,9 @@ class PlumblineClient:
         assessment is stored. A server that answers at once (a repeated key, ``store`` false)
         is answered as without a job.
         """
-        if (body is None) == (csv is None):
-            raise ValueError("give exactly one of body or csv")
+        given = [v for v in (body, csv, arrow, parquet) if v is not None]
+        if len(given) != 1:
+            raise ValueError("give exactly one of body, csv, arrow or parquet")
         if body is not None:
             try:
                 content = json.dumps(body, allow_nan=False, separators=(",", ":")).encode()
@@ -495,12 +509,18 @@ class PlumblineClient:
                     "body holds NaN or infinity, which JSON cannot carry; use null for missing"
                 ) from exc
             content_type = "application/json"
-        else:
-            content = csv.encode()  # type: ignore[union-attr]
+        elif csv is not None:
+            content = csv.encode()
             content_type = "text/csv"
+        elif arrow is not None:
+            content, content_type = bytes(arrow), ARROW_STREAM
+        else:
+            content, content_type = bytes(parquet), PARQUET  # type: ignore[arg-type]
         query = {k: _param(v) for k, v in (params or {}).items() if v is not None}
         if not store:
             query["store"] = "false"
+        if series is not None:
+            query["series"] = series
         headers = {
             "Content-Type": content_type,
             "Idempotency-Key": idempotency_key or str(uuid.uuid4()),
@@ -552,10 +572,53 @@ class PlumblineClient:
                 pause = min(pause, left)
             self._sleep(pause)
 
-    def assessment(self, assessment_id: str) -> AssessmentDocument:
-        """``GET /v1/assessments/{id}``: a stored result."""
-        resp = self._send("GET", f"/v1/assessments/{_segment(assessment_id)}")
+    def assess_file(
+        self, path: str | os.PathLike[str], *, params: Mapping[str, Any] | None = None, **kw: Any
+    ) -> AssessmentDocument:
+        """:meth:`assess` on a file of the long layout, sent as its extension says:
+        ``.parquet`` (or ``.pq``) as Parquet, ``.arrow`` (``.arrows``, ``.ipc``) as an Arrow
+        IPC stream, ``.csv`` as CSV; ``.json`` is read as the JSON body."""
+        ext = os.path.splitext(os.fspath(path))[1].lower()
+        with open(path, "rb") as fh:
+            data = fh.read()
+        if ext in PARQUET_EXTENSIONS:
+            return self.assess(parquet=data, params=params, **kw)
+        if ext in ARROW_EXTENSIONS:
+            return self.assess(arrow=data, params=params, **kw)
+        if ext == ".csv":
+            return self.assess(csv=data.decode("utf-8-sig"), params=params, **kw)
+        if ext == ".json":
+            return self.assess(json.loads(data), params=params, **kw)
+        raise ValueError(f"{path}: expected a .json, .csv, .parquet or .arrow file")
+
+    def assessment(self, assessment_id: str, *, series: str | None = None) -> AssessmentDocument:
+        """``GET /v1/assessments/{id}``: a stored result (``series`` as for :meth:`assess`)."""
+        resp = self._send(
+            "GET",
+            f"/v1/assessments/{_segment(assessment_id)}",
+            params=None if series is None else {"series": series},
+        )
         return self._parse(AssessmentDocument.from_dict, self._json(resp))
+
+    def series_download(
+        self,
+        assessment_id: str,
+        *,
+        media_type: str = "application/vnd.apache.parquet",
+        check: str | None = None,
+        status: str | None = None,
+    ) -> bytes:
+        """``GET /v1/assessments/{id}/series`` as a download: every row (one per series and
+        check) as Parquet (the default), an Arrow IPC stream
+        (``application/vnd.apache.arrow.stream``) or CSV (``text/csv``)."""
+        query = {k: v for k, v in (("check", check), ("status", status)) if v is not None}
+        resp = self._send(
+            "GET",
+            f"/v1/assessments/{_segment(assessment_id)}/series",
+            params=query or None,
+            headers={"Accept": media_type},
+        )
+        return resp.content
 
     def list_assessments(
         self,

@@ -32,7 +32,7 @@ from service.store.records import (
     utcnow,
 )
 
-from . import policy_lookup
+from . import policy_lookup, series_view
 from .baseline import Match as BaselineMatch
 from .baseline import attach as attach_baselines
 from .errors import ApiError
@@ -71,8 +71,9 @@ def body_hash(kind: str, params: Mapping[str, str], body: bytes) -> str:
     return h.hexdigest()
 
 
-def replay(store: Store, key: str, digest: str) -> Outcome | None:
-    """The stored outcome for a repeated ``Idempotency-Key`` (409 when the body differs)."""
+def replay(store: Store, key: str, digest: str, shown: str = "all") -> Outcome | None:
+    """The stored outcome for a repeated ``Idempotency-Key`` (409 when the body differs),
+    answered in the view ``shown`` (``?series=``)."""
     record = store.find_idempotency_key(key=key)
     if record is None:
         return None
@@ -87,7 +88,7 @@ def replay(store: Store, key: str, digest: str) -> Outcome | None:
     if stored is None:  # removed meanwhile: treat the key as free
         return None
     return Outcome(
-        body=stored.to_json(),
+        body=series_view.stored_answer(stored, shown),
         assessment_id=stored.summary.id,
         verdict=stored.summary.verdict,
         replayed=True,
@@ -101,6 +102,11 @@ def parse(
     limits = {"max_series": settings.max_series, "max_series_length": settings.max_series_length}
     if kind == "csv":
         return parse_csv_request(body, params, **limits)
+    if kind in ("arrow", "parquet"):
+        # pyarrow is imported by this parser alone, when such a body arrives.
+        from service.ingest.columnar import parse_columnar_request
+
+        return parse_columnar_request(body, kind, params, **limits)  # type: ignore[arg-type]
     return parse_json_request(body, **limits)
 
 
@@ -148,6 +154,8 @@ class Job:
     policy: Policy | None = None
     document: dict[str, Any] | None = None
     baseline: BaselineMatch | None = None
+    shown: str = "all"
+    """Which series rows the answer lists (``?series=``, :mod:`service.api.series_view`)."""
 
 
 def resolve_policies(store: Store, jobs: list[Job]) -> list[Exception | None]:
@@ -222,7 +230,11 @@ def run_many(store: Store, jobs: list[Job]) -> list[Outcome | BaseException]:
     attach_baselines(store, jobs, outcomes)
     ready = [i for i, o in enumerate(outcomes) if o is None]
     clock = time.perf_counter()
-    results = assess_many_results([(jobs[i].req.batch, jobs[i].policy) for i in ready])  # type: ignore[misc]
+    # A stored job keeps every series row (they are stored); the answer may show fewer.
+    results = assess_many_results(
+        [(jobs[i].req.batch, jobs[i].policy) for i in ready],  # type: ignore[misc]
+        [jobs[i].shown if not jobs[i].store else "all" for i in ready],
+    )
     documents = [_document(jobs[i], result) for i, result in zip(ready, results, strict=True)]
     # One serializer for the whole pass: the stacked submissions' rows are built at once.
     encoded = to_dicts(documents)
@@ -261,7 +273,7 @@ def _lost_race(store: Store, job: Job) -> Outcome | ApiError | StoreError:
     """Another request with the same key was stored first: answer as its repeat would (or
     with the store's error when the look-up fails)."""
     try:
-        again = replay(store, job.idempotency_key, job.digest)  # type: ignore[arg-type]
+        again = replay(store, job.idempotency_key, job.digest, job.shown)  # type: ignore[arg-type]
     except ApiError as exc:  # the other request had another body: 409
         return exc
     except StoreError as exc:  # the store failed on the look-up: this job's answer alone
@@ -317,6 +329,9 @@ def _answer(
     verdict = str(result.verdict)
     n_series = result.n_series
     if not store:
+        if job.shown != "all":  # marked just before the rows, as a stored answer is
+            data["series_shown"] = job.shown
+            data["series"] = data.pop("series")
         return Outcome(
             body=orjson.dumps(data, option=_DUMP),
             assessment_id=None,
@@ -328,8 +343,10 @@ def _answer(
     series = data.pop("series")  # the last key: stored row by row, the rest as the head
     head_json = orjson.dumps(data, option=_DUMP)
     encoded = [orjson.dumps(s, option=_DUMP) for s in series]
-    body = head_json[:-1] + b',"series":[' + b",".join(encoded) + b"]}"
     table = result.series
+    body = series_view.joined(
+        head_json, series_view.picked(encoded, table.column("verdict"), job.shown), job.shown
+    )
     record = NewAssessment(
         assessment_id=doc.id,  # type: ignore[arg-type]
         created_at=datetime.fromisoformat(doc.created_at),  # type: ignore[arg-type]

@@ -293,6 +293,8 @@ class SeriesRow(BaseModel):
 class SeriesRowPage(BaseModel):
     assessment_id: str
     items: list[SeriesRow]
+    next_cursor: str | None = Field(None, description="the next page's cursor; null: last page")
+    next: str | None = Field(None, description="the next page's path and query; null: last")
 
 
 class BaselineMatching(BaseModel):

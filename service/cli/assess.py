@@ -92,10 +92,13 @@ def send(
     background job, waited for, when ``as_job`` is true or (``None``) the body is large."""
     body = inp.body
     job = {"as_job": as_job, "on_progress": on_progress}
-    if inp.kind == "csv":
+    if inp.kind in ("csv", "arrow", "parquet"):
         if inp.inline_policy is None and not inp.labels:
+            upload: dict[str, Any] = (
+                {"csv": inp.text} if inp.kind == "csv" else {inp.kind: inp.data}
+            )
             return client.assess(
-                csv=inp.text, params=inp.params, store=store, idempotency_key=key, **job
+                **upload, params=inp.params, store=store, idempotency_key=key, **job
             )
         body = csv_as_body(inp)
     try:

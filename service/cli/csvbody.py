@@ -16,11 +16,16 @@ from .inputs import AssessInput
 
 
 def parse_csv(inp: AssessInput) -> Any:
-    """``service.ingest.parse_csv_request`` on ``inp``; bad content becomes a one-line error."""
+    """``service.ingest.parse_csv_request`` on ``inp`` (``parse_columnar_request`` for an
+    Arrow or Parquet file); bad content becomes a one-line error."""
     from .. import ingest
     from ..core import InputError
 
     try:
+        if inp.kind in ("arrow", "parquet"):
+            from ..ingest.columnar import parse_columnar_request
+
+            return parse_columnar_request(inp.data or b"", inp.kind, dict(inp.params))
         return ingest.parse_csv_request(inp.text or "", dict(inp.params))
     except ingest.RequestInvalid as exc:
         raise CliError(f"{inp.name}: invalid request: {errors_line(exc.errors)}") from None
@@ -93,7 +98,7 @@ def request_body(request: Any) -> dict[str, Any]:
 
 
 def csv_as_body(inp: AssessInput) -> dict[str, Any]:
-    """``inp`` (CSV) as a JSON body with its inline policy and labels."""
+    """``inp`` (CSV, Arrow or Parquet) as a JSON body with its inline policy and labels."""
     body = request_body(parse_csv(inp))
     if inp.inline_policy is not None:
         body["policy"] = inp.inline_policy

@@ -88,14 +88,18 @@ def build_parser() -> Parser:
     p = sub.add_parser(
         "assess",
         help="assess a file of series and gate on its verdict",
-        description="Assess FILE (JSON in the request body's shape, or CSV long format) on a "
-        "server or --offline. Exit 0 when the gate passes, 1 when the verdict is at or worse "
-        "than --fail-on.",
+        description="Assess FILE (JSON in the request body's shape, or the long format as CSV, "
+        "Parquet or an Arrow IPC stream) on a server or --offline. Exit 0 when the gate "
+        "passes, 1 when the verdict is at or worse than --fail-on.",
     )
-    p.add_argument("file", metavar="FILE", help="JSON or CSV file ('-' reads standard input)")
+    p.add_argument(
+        "file",
+        metavar="FILE",
+        help="JSON, CSV, Parquet (.parquet) or Arrow (.arrow) file ('-' reads standard input)",
+    )
     p.add_argument(
         "--format",
-        choices=("json", "csv"),
+        choices=("json", "csv", "arrow", "parquet"),
         help="file format (default: from the extension, else from the content)",
     )
     p.add_argument("--model", metavar="M", help="model name (overrides the file's)")
@@ -119,7 +123,10 @@ def build_parser() -> Parser:
         help="parameters the model estimated (reduces the Ljung-Box df; default 0)",
     )
     p.add_argument(
-        "--level", metavar="L", type=_level, help="CSV only: nominal level of the intervals"
+        "--level",
+        metavar="L",
+        type=_level,
+        help="CSV, Arrow and Parquet: nominal level of the intervals",
     )
     p.add_argument(
         "--baseline",

@@ -77,27 +77,46 @@ def fleet_lag_test(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
     pvals = np.full(lags.size, np.nan)
     dfs = np.zeros(lags.size, dtype=np.int64)
     acfs = np.full(lags.size, np.nan)
-    gamma0 = np.vecdot(z[rows], z[rows])
+    zr = z[rows]
+    obs_r = obs[rows]
+    gamma0 = np.vecdot(zr, zr)
+    shift = s2 / n[rows]
+    aligned = not offsets.any()  # every series ends in the same period: no realignment
     for j, k in enumerate(lags.tolist()):
         if k >= width:
             continue
-        zr = z[rows]
-        pairs = obs[rows, k:] & obs[rows, :-k] & tested[rows, k - 1][:, None]
-        prod = np.where(pairs, zr[:, k:] * zr[:, :-k], 0.0)
+        pairs = obs_r[:, k:] & obs_r[:, :-k] & tested[rows, k - 1][:, None]
+        prod = zr[:, k:] * zr[:, :-k]
+        every_pair = bool(pairs.all())  # no gap: nothing to clear
+        if not every_pair:
+            prod[~pairs] = 0.0
         norm = np.sqrt(np.vecdot(prod, prod))
         ok = norm > 0
         with np.errstate(invalid="ignore", divide="ignore"):
-            x = np.where(pairs & ok[:, None], (prod + (s2 / n[rows])[:, None]) / norm[:, None], 0.0)
+            x = prod + shift[:, None]
+            x /= norm[:, None]
+            if not (every_pair and ok.all()):
+                x[~(pairs & ok[:, None])] = 0.0
             acf = np.where(ok, prod.sum(axis=1) / gamma0, np.nan)
         members = int(ok.sum())
         if members == 0:
             continue
-        r_i, c_i = np.nonzero(x)
-        if r_i.size == 0:
-            continue
-        pos = offsets[r_i] + c_i + k
-        h = np.bincount(pos, weights=x[r_i, c_i] / members, minlength=n_cal)
-        first, last = int(pos.min()), int(pos.max())
+        if aligned:
+            # Column by column, rows added in order: the sums bincount makes below.
+            used = np.flatnonzero(x.any(axis=0))
+            if used.size == 0:
+                continue
+            h = np.zeros(n_cal)
+            h[k : k + x.shape[1]] = (x / members).sum(axis=0)
+            first, last = int(used[0]) + k, int(used[-1]) + k
+        else:
+            r_i, c_i = np.nonzero(x)
+            if r_i.size == 0:
+                continue
+            pos = offsets[r_i] + c_i + k
+            weights = x[r_i, c_i] / members
+            h = np.bincount(pos, weights=weights, minlength=n_cal)  # type: ignore[assignment]
+            first, last = int(pos.min()), int(pos.max())
         span = np.array([max(last - first + 1, 0)])
         b = ewc_bins(span)
         if span[0] < 3 or b[0] < 1:

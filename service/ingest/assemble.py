@@ -8,6 +8,7 @@ with the request field it concerns, see :func:`core_error_loc`) and returns the
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -49,7 +50,7 @@ def build_request(envelope: Envelope, cols: SeriesColumns) -> AssessmentRequest:
     width = int(a_len.max(initial=0))
     kwargs: dict[str, Any] = {}
     h_len = np.zeros(n, dtype=np.int64)
-    h_ts: list[list[str] | None] = [None] * n
+    h_ts: Sequence[list[str] | None] = [None] * n
     if cols.holdout is not None:
         h_len = cols.holdout.actuals.lengths
         h_ts = cols.holdout.timestamps
@@ -80,8 +81,8 @@ def build_request(envelope: Envelope, cols: SeriesColumns) -> AssessmentRequest:
         labels=envelope.labels,
         ids=tuple(cols.ids),
         batch=batch,
-        timestamps=tuple(cols.timestamps),
-        holdout_timestamps=tuple(h_ts),
+        timestamps=_kept(cols.timestamps),
+        holdout_timestamps=_kept(h_ts),
         train_lengths=a_len,
         holdout_lengths=h_len,
         weights_given=tuple(cols.weights),
@@ -91,6 +92,11 @@ def build_request(envelope: Envelope, cols: SeriesColumns) -> AssessmentRequest:
         burn_in_given=tuple(given),
         fitted_given=fitted if burn_in.any() else None,
     )
+
+
+def _kept(stamps: Sequence[list[str] | None]) -> Sequence[list[str] | None]:
+    """Lists become tuples; a sequence that makes its items on demand is kept as it is."""
+    return tuple(stamps) if isinstance(stamps, list) else stamps
 
 
 def _holdout_matrices(h: HoldoutColumns) -> dict[str, Any]:

@@ -60,7 +60,8 @@ class AssessmentRequest:
     ``policy`` is a stored policy's name or an inline policy document (a dict, validated by the
     gate); ``baseline`` the version its holdout is to be compared with (the service resolves
     it against the store). ``timestamps`` and ``holdout_timestamps`` hold one list of ISO 8601
-    strings per series (``None`` where a series has none). ``train_lengths`` /
+    strings per series (``None`` where a series has none; a columnar upload's make each
+    series' list when it is asked for). ``train_lengths`` /
     ``holdout_lengths`` are the lengths of the arrays as sent and ``weights_given`` the weights
     as sent (``None``: the default), so stored inputs can be given back exactly. ``burn_in`` is
     each series' burn-in as applied (its own, else the request's ``request_burn_in``),
@@ -76,8 +77,8 @@ class AssessmentRequest:
     labels: dict[str, str]
     ids: tuple[str, ...]
     batch: SeriesBatch
-    timestamps: tuple[list[str] | None, ...]
-    holdout_timestamps: tuple[list[str] | None, ...]
+    timestamps: Sequence[list[str] | None]
+    holdout_timestamps: Sequence[list[str] | None]
     train_lengths: np.ndarray
     holdout_lengths: np.ndarray
     weights_given: tuple[float | None, ...]
@@ -136,7 +137,7 @@ class HoldoutColumns:
     lower: FlatRows | None
     upper: FlatRows | None
     levels: list[float | None]
-    timestamps: list[list[str] | None]
+    timestamps: Sequence[list[str] | None]
 
 
 @dataclass(frozen=True, eq=False)
@@ -147,7 +148,7 @@ class SeriesColumns:
     ids: list[str]
     actuals: FlatRows
     fitted: FlatRows
-    timestamps: list[list[str] | None]
+    timestamps: Sequence[list[str] | None]
     weights: list[float | None]
     holdout: HoldoutColumns | None
     burn_in: list[int | None] | None = None

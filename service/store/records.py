@@ -10,7 +10,7 @@ from __future__ import annotations
 import hashlib
 import uuid
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
 
@@ -100,11 +100,13 @@ class ModelSummary:
 @dataclass(frozen=True)
 class StoredAssessment:
     """A stored assessment: ``head`` is the result without its series (JSON bytes), ``series``
-    the JSON bytes of each series' result in input order."""
+    the JSON bytes of each series' result in input order, ``verdicts`` their verdicts."""
 
     summary: AssessmentSummary
     head: bytes
     series: list[bytes]
+    verdicts: list[str] = field(default_factory=list)
+    """Each series' verdict, in the order of ``series``."""
 
     def to_json(self) -> bytes:
         """The full result as the POST returned it, without re-encoding the stored JSON."""

@@ -288,15 +288,16 @@ def get_assessment(engine: Engine, *, assessment_id: str) -> StoredAssessment | 
         ).first()
         if row is None:
             return None
-        series = (
-            conn.execute(
-                select(SR.c.result).where(SR.c.assessment_seq == row.seq).order_by(SR.c.position)
-            )
-            .scalars()
-            .all()
-        )
+        series = conn.execute(
+            select(SR.c.result, SR.c.verdict)
+            .where(SR.c.assessment_seq == row.seq)
+            .order_by(SR.c.position)
+        ).all()
     return StoredAssessment(
-        summary=_summary(row), head=row.result.encode(), series=[s.encode() for s in series]
+        summary=_summary(row),
+        head=row.result.encode(),
+        series=[s.result.encode() for s in series],
+        verdicts=[s.verdict for s in series],
     )
 
 
