@@ -139,7 +139,7 @@ def assess_offline(inp: AssessInput) -> AssessmentDocument:
             f"{inp.name}: a baseline ({request.baseline!r}) is read from the versions stored on "
             "a server; --offline has none: leave the baseline out or assess on a server"
         )
-    if inp.kind == "csv":
+    if inp.kind != "json":
         policy_value = inp.inline_policy if inp.inline_policy is not None else request.policy
         labels = {**request.labels, **inp.labels}
 
