@@ -193,6 +193,13 @@ def main() -> int:
             post(
                 "invalid-body", "Error: fitted shorter than actuals, a level given in percent", bad
             )
+            unknown = _request("sound", "2026.12.07")
+            unknown["baseline"] = {"version": "2026.11.23"}
+            post(
+                "unknown-baseline",
+                "Error: a baseline version of the model that is not stored",
+                unknown,
+            )
     _dump(
         HERE / "index.json",
         {

@@ -76,6 +76,29 @@ class Settings(BaseSettings):
     http_parser: Literal["auto", "h11", "httptools"] = Field(
         default="auto", description="HTTP/1.1 parser; auto: httptools when installed, else h11."
     )
+    # Background jobs (service/api/jobs.py): ``Prefer: respond-async`` submissions.
+    job_workers: int = Field(
+        default=1,
+        ge=0,
+        le=64,
+        description="Threads of each serving process that run jobs; 0: this process queues "
+        "jobs but runs none (another process on the same database does).",
+    )
+    job_lease_seconds: float = Field(
+        default=30.0,
+        gt=0,
+        description="How long a worker holds a job without renewing its lease (it renews a "
+        "third of this apart); a job whose worker died is taken up again after it.",
+    )
+    job_poll_seconds: float = Field(
+        default=1.0, gt=0, description="How often an idle job worker looks for a queued job."
+    )
+    job_max_attempts: int = Field(
+        default=3,
+        ge=1,
+        description="A job started this many times without finishing (its worker stopped "
+        "each time) is failed rather than started again.",
+    )
     dask_scheduler: str | None = Field(
         default=None,
         description="Address of a Dask scheduler (tcp://host:8786) on which a chunked "

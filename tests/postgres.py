@@ -1,8 +1,8 @@
 """The PostgreSQL server the storage and HTTP tests also run against.
 
-``PLUMBLINE_TEST_POSTGRES_URL`` names it (default the local test database); with
-``PLUMBLINE_REQUIRE_POSTGRES=1`` (as CI sets) an unreachable server fails a test instead of
-skipping it.
+``PLUMBLINE_TEST_POSTGRES_URL`` names it (default the local test database; ``none`` leaves
+PostgreSQL out even when a local server answers); with ``PLUMBLINE_REQUIRE_POSTGRES=1`` (as CI
+sets) an unreachable server fails a test instead of skipping it.
 """
 
 from __future__ import annotations
@@ -25,6 +25,8 @@ def postgres_required() -> bool:
 
 def _postgres_problem() -> str | None:
     """``None`` when the PostgreSQL server answers, else why not (checked once per test run)."""
+    if "problem" not in _postgres_state and postgres_url().strip().lower() == "none":
+        _postgres_state["problem"] = "PLUMBLINE_TEST_POSTGRES_URL=none leaves PostgreSQL out"
     if "problem" not in _postgres_state:
         try:
             import psycopg

@@ -5,18 +5,31 @@ from __future__ import annotations
 from contextlib import asynccontextmanager
 from typing import Any
 
-from fastapi import FastAPI
+from fastapi import Depends, FastAPI
 
 from service.settings import Settings
 from service.store import make_store
 
+from . import query_check
 from .auth import TokenCache, announce_first_token, ensure_first_token
 from .batching import SubmissionBatcher
 from .deps import Services, register
+from .docs import make_app
 from .errors import install_error_handlers
+from .jobs import JobRunner
 from .metrics import Metrics, MetricsMiddleware
 from .openapi import examples_dir, install_openapi, load_examples
-from .routers import assessments, checks, health, models, policies, reports, tokens
+from .routers import (
+    assessments,
+    checks,
+    compare,
+    health,
+    jobs,
+    models,
+    policies,
+    reports,
+    tokens,
+)
 from .security import install_hardening
 
 DESCRIPTION = """Plumbline gates forecasting model releases on residual diagnostics over whole
@@ -43,21 +56,33 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         store.migrate()
         announce_first_token(ensure_first_token(store, settings))
 
+    runner = JobRunner(store, settings)
+
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> Any:
+        runner.start()
         yield
+        runner.stop(timeout=settings.job_lease_seconds)
         store.close()
 
-    app = FastAPI(title="Plumbline", version="1", description=DESCRIPTION, lifespan=lifespan)
+    app = make_app(
+        title="Plumbline",
+        version="1",
+        description=DESCRIPTION,
+        lifespan=lifespan,
+        dependencies=[Depends(query_check.reject_unknown)],
+    )
     metrics = Metrics()
     services = Services(
         metrics=metrics,
         batcher=SubmissionBatcher(store, metrics),
         token_cache=TokenCache(settings.token_cache_seconds),
+        jobs=runner,
     )
     register(app, store=store, settings=settings, services=services)
     install_error_handlers(app)
-    for module in (assessments, reports, models, checks, policies, tokens, health):
+    for module in (assessments, jobs, reports, models, compare, checks, policies, tokens, health):
+        query_check.document(module.router)
         app.include_router(module.router)
     install_openapi(app, load_examples(examples_dir(settings.examples_dir)))
     install_hardening(app, settings)
@@ -68,8 +93,14 @@ def create_app(settings: Settings | None = None) -> FastAPI:
             CORSMiddleware,
             allow_origins=settings.cors_origins,
             allow_methods=["GET", "POST", "DELETE"],
-            allow_headers=["Authorization", "Content-Type", "Idempotency-Key", "If-None-Match"],
-            expose_headers=["ETag", "Location", "Link"],
+            allow_headers=[
+                "Authorization",
+                "Content-Type",
+                "Idempotency-Key",
+                "If-None-Match",
+                "Prefer",
+            ],
+            expose_headers=["ETag", "Location", "Link", "Preference-Applied", "Retry-After"],
         )
     app.add_middleware(MetricsMiddleware, metrics=metrics)
     return app

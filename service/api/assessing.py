@@ -32,7 +32,9 @@ from service.store.records import (
     utcnow,
 )
 
-from . import policy_lookup
+from . import policy_lookup, series_view
+from .baseline import Match as BaselineMatch
+from .baseline import attach as attach_baselines
 from .errors import ApiError
 
 _DUMP = orjson.OPT_SERIALIZE_NUMPY
@@ -69,8 +71,9 @@ def body_hash(kind: str, params: Mapping[str, str], body: bytes) -> str:
     return h.hexdigest()
 
 
-def replay(store: Store, key: str, digest: str) -> Outcome | None:
-    """The stored outcome for a repeated ``Idempotency-Key`` (409 when the body differs)."""
+def replay(store: Store, key: str, digest: str, shown: str = "all") -> Outcome | None:
+    """The stored outcome for a repeated ``Idempotency-Key`` (409 when the body differs),
+    answered in the view ``shown`` (``?series=``)."""
     record = store.find_idempotency_key(key=key)
     if record is None:
         return None
@@ -85,7 +88,7 @@ def replay(store: Store, key: str, digest: str) -> Outcome | None:
     if stored is None:  # removed meanwhile: treat the key as free
         return None
     return Outcome(
-        body=stored.to_json(),
+        body=series_view.stored_answer(stored, shown),
         assessment_id=stored.summary.id,
         verdict=stored.summary.verdict,
         replayed=True,
@@ -99,6 +102,11 @@ def parse(
     limits = {"max_series": settings.max_series, "max_series_length": settings.max_series_length}
     if kind == "csv":
         return parse_csv_request(body, params, **limits)
+    if kind in ("arrow", "parquet"):
+        # pyarrow is imported by this parser alone, when such a body arrives.
+        from service.ingest.columnar import parse_columnar_request
+
+        return parse_columnar_request(body, kind, params, **limits)  # type: ignore[arg-type]
     return parse_json_request(body, **limits)
 
 
@@ -125,8 +133,9 @@ def _inputs(req: AssessmentRequest) -> list[SeriesInput]:
                 series_id=sid,
                 weight=req.weights_given[i],
                 actuals=b.actuals[i, :n],
-                fitted=b.fitted[i, :n],
+                fitted=req.fitted_sent(i),
                 timestamps=req.timestamps[i],
+                burn_in=req.burn_in_of(i),
                 **hold,
             )
         )
@@ -144,6 +153,9 @@ class Job:
     timings: dict[str, float] = field(default_factory=dict)
     policy: Policy | None = None
     document: dict[str, Any] | None = None
+    baseline: BaselineMatch | None = None
+    shown: str = "all"
+    """Which series rows the answer lists (``?series=``, :mod:`service.api.series_view`)."""
 
 
 def resolve_policies(store: Store, jobs: list[Job]) -> list[Exception | None]:
@@ -206,7 +218,8 @@ def _weights_unused(job: Job) -> ApiError | None:
 def run_many(store: Store, jobs: list[Job]) -> list[Outcome | BaseException]:
     """Assess ``jobs`` together and save the stored ones in one transaction.
 
-    Policies not yet resolved are resolved first (:func:`resolve_policies`). The checks of
+    Policies not yet resolved are resolved first (:func:`resolve_policies`), then the
+    baselines asked for (:func:`service.api.baseline.attach`). The checks of
     jobs that share a policy and shape run in one vectorised pass
     (:func:`service.core.gate.assess_many_results`); each job is still decided and answered on
     its own series alone. A job's own failure is returned in its place: an unknown policy, an
@@ -214,9 +227,14 @@ def run_many(store: Store, jobs: list[Job]) -> list[Outcome | BaseException]:
     on its write (then it was not written; jobs with ``store`` false keep their answers).
     """
     outcomes: list[Outcome | BaseException | None] = list(resolve_policies(store, jobs))
+    attach_baselines(store, jobs, outcomes)
     ready = [i for i, o in enumerate(outcomes) if o is None]
     clock = time.perf_counter()
-    results = assess_many_results([(jobs[i].req.batch, jobs[i].policy) for i in ready])  # type: ignore[misc]
+    # A stored job keeps every series row (they are stored); the answer may show fewer.
+    results = assess_many_results(
+        [(jobs[i].req.batch, jobs[i].policy) for i in ready],  # type: ignore[misc]
+        [jobs[i].shown if not jobs[i].store else "all" for i in ready],
+    )
     documents = [_document(jobs[i], result) for i, result in zip(ready, results, strict=True)]
     # One serializer for the whole pass: the stacked submissions' rows are built at once.
     encoded = to_dicts(documents)
@@ -255,7 +273,7 @@ def _lost_race(store: Store, job: Job) -> Outcome | ApiError | StoreError:
     """Another request with the same key was stored first: answer as its repeat would (or
     with the store's error when the look-up fails)."""
     try:
-        again = replay(store, job.idempotency_key, job.digest)  # type: ignore[arg-type]
+        again = replay(store, job.idempotency_key, job.digest, job.shown)  # type: ignore[arg-type]
     except ApiError as exc:  # the other request had another body: 409
         return exc
     except StoreError as exc:  # the store failed on the look-up: this job's answer alone
@@ -270,11 +288,25 @@ def _lost_race(store: Store, job: Job) -> Outcome | ApiError | StoreError:
     )
 
 
-def _document(job: Job, result: AssessmentResult) -> AssessmentDocument:
+def stored_answer(
+    job: Job, result: AssessmentResult, assessment_id: str
+) -> tuple[Outcome, NewAssessment]:
+    """The answer and the record to write of a stored ``job`` whose ``result`` was computed
+    elsewhere (a background job's), under an id chosen beforehand."""
+    doc = _document(job, result, assessment_id)
+    (data,) = to_dicts([doc])
+    outcome, record = _answer(job, doc, data)
+    assert record is not None
+    return outcome, record
+
+
+def _document(
+    job: Job, result: AssessmentResult, assessment_id: str | None = None
+) -> AssessmentDocument:
     """The answer of one job: its result in the envelope (a new id when it is stored)."""
     req = job.req
     return AssessmentDocument(
-        id=new_id() if job.store else None,
+        id=(assessment_id or new_id()) if job.store else None,
         created_at=utcnow().isoformat(),
         model=req.model,
         version=req.version,
@@ -282,7 +314,7 @@ def _document(job: Job, result: AssessmentResult) -> AssessmentDocument:
         labels=req.labels,
         season_length=req.season_length,
         model_params=req.model_params,
-        extra={},
+        extra={} if job.baseline is None else {"baseline": job.baseline.block()},
         result=result,
     )
 
@@ -297,6 +329,9 @@ def _answer(
     verdict = str(result.verdict)
     n_series = result.n_series
     if not store:
+        if job.shown != "all":  # marked just before the rows, as a stored answer is
+            data["series_shown"] = job.shown
+            data["series"] = data.pop("series")
         return Outcome(
             body=orjson.dumps(data, option=_DUMP),
             assessment_id=None,
@@ -308,8 +343,10 @@ def _answer(
     series = data.pop("series")  # the last key: stored row by row, the rest as the head
     head_json = orjson.dumps(data, option=_DUMP)
     encoded = [orjson.dumps(s, option=_DUMP) for s in series]
-    body = head_json[:-1] + b',"series":[' + b",".join(encoded) + b"]}"
     table = result.series
+    body = series_view.joined(
+        head_json, series_view.picked(encoded, table.column("verdict"), job.shown), job.shown
+    )
     record = NewAssessment(
         assessment_id=doc.id,  # type: ignore[arg-type]
         created_at=datetime.fromisoformat(doc.created_at),  # type: ignore[arg-type]

@@ -27,6 +27,7 @@ from service.settings import Settings
 from service.store.port import Store
 from service.store.records import SCOPES, hash_token
 
+from . import query_check
 from .deps import Services, get_services, get_settings, get_store
 from .errors import ApiError
 
@@ -158,12 +159,14 @@ def require(scope: str) -> Callable[..., object]:
         store: Annotated[Store, Depends(get_store)],
         services: Annotated[Services, Depends(get_services)],
     ) -> Principal:
-        return await authorize(
+        principal = await authorize(
             request, scope, settings=settings, store=store, cache=services.token_cache
         )
+        query_check.check(request)  # a GET's query string, once the token is admitted
+        return principal
 
     dependency.__name__ = f"require_{scope}"
-    return dependency
+    return query_check.checked_later(dependency)
 
 
 def ensure_first_token(store: Store, settings: Settings) -> str | None:

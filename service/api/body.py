@@ -29,6 +29,20 @@ def is_csv(kind: str) -> bool:
     return kind in ("text/csv", "application/csv")
 
 
+ARROW_STREAM = "application/vnd.apache.arrow.stream"
+PARQUET = "application/vnd.apache.parquet"
+_COLUMNAR = {
+    ARROW_STREAM: "arrow",
+    "application/vnd.apache.arrow.file": "arrow",
+    PARQUET: "parquet",
+}
+
+
+def columnar_kind(kind: str) -> str | None:
+    """``"arrow"`` or ``"parquet"`` for a columnar upload's media type, else ``None``."""
+    return _COLUMNAR.get(kind)
+
+
 async def read_body(request: Request, limit: int) -> bytes:
     """The whole body, refusing with 413 as soon as it is known to exceed ``limit`` bytes:
     from ``Content-Length`` before reading, else while streaming."""

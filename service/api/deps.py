@@ -24,6 +24,7 @@ from service.store.port import Store
 if TYPE_CHECKING:  # pragma: no cover - annotations only
     from .auth import TokenCache
     from .batching import SubmissionBatcher
+    from .jobs import JobRunner
     from .metrics import Metrics
 
 __all__ = ["Services", "get_services", "get_settings", "get_store", "register"]
@@ -32,12 +33,14 @@ __all__ = ["Services", "get_services", "get_settings", "get_store", "register"]
 @dataclass
 class Services:
     """The app's in-process services beside the store: metrics, the batcher of small
-    submissions, the memory of verified tokens, and what the report pages keep once made (their
-    chart cache and the link-signing key read from the store)."""
+    submissions, the runner of background jobs, the memory of verified tokens, and what the
+    report pages keep once made (their chart cache and the link-signing key read from the
+    store)."""
 
     metrics: Metrics
     batcher: SubmissionBatcher
     token_cache: TokenCache
+    jobs: JobRunner | None = None
     chart_cache: Any = None
     link_secret: str | None = None
     lock: threading.Lock = field(default_factory=threading.Lock, repr=False)

@@ -31,6 +31,11 @@ PROBLEM_JSON = "application/problem+json"
 TYPE_PREFIX = "urn:plumbline:problem:"
 RETRY_AFTER_SECONDS = 5
 """What ``Retry-After`` says while the database is unavailable."""
+MAX_DETAIL_CHARS = 1000
+"""Longest ``detail`` or field ``message`` in a problem body; longer ones are cut (an error
+quotes at most a short prefix of any input, and this bounds what a message could still copy)."""
+MAX_LOC_CHARS = 200
+"""Longest ``loc`` of a field error."""
 INTERNAL_ERROR = "internal error: the service failed on this request; it has been logged"
 
 log = logging.getLogger("plumbline.api")
@@ -92,15 +97,28 @@ def problem(
         "type": TYPE_PREFIX + (slug or _SLUGS.get(status, f"http-{status}")),
         "title": title or HTTPStatus(status).phrase,
         "status": status,
-        "detail": detail,
+        "detail": bounded(detail, MAX_DETAIL_CHARS),
     }
     if errors is not None:
-        body["errors"] = [{"loc": str(e["loc"]), "message": str(e["message"])} for e in errors]
+        body["errors"] = [
+            {
+                "loc": bounded(str(e["loc"]), MAX_LOC_CHARS),
+                "message": bounded(str(e["message"]), MAX_DETAIL_CHARS),
+            }
+            for e in errors
+        ]
     for key, value in (extra or {}).items():
         body.setdefault(key, value)
     return Response(
         orjson.dumps(body), status_code=status, media_type=PROBLEM_JSON, headers=dict(headers or {})
     )
+
+
+def bounded(text: str, limit: int) -> str:
+    """``text`` cut to ``limit`` characters, saying so."""
+    if len(text) <= limit:
+        return text
+    return text[: limit - 30] + f"... (cut; {len(text):,} characters)"
 
 
 def policy_errors(exc: InputError, prefix: str = "policy") -> list[dict[str, str]]:

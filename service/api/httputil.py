@@ -94,12 +94,16 @@ def problem_docs(*codes: int) -> dict[int | str, dict[str, Any]]:
     return {code: {"model": Problem, "content": {"application/problem+json": {}}} for code in codes}
 
 
-def json_body_doc(schema: str, *, csv: bool = False) -> dict[str, Any]:
+def json_body_doc(schema: str, *, csv: bool = False, columnar: bool = False) -> dict[str, Any]:
     """``openapi_extra`` documenting a JSON request body by a component schema name (the body
-    itself is read by the endpoint, with the size limit, not by the framework)."""
+    itself is read by the endpoint, with the size limit, not by the framework); ``csv`` and
+    ``columnar`` add the long layout as CSV text and as Arrow IPC stream and Parquet files."""
     content: dict[str, Any] = {
         "application/json": {"schema": {"$ref": f"#/components/schemas/{schema}"}}
     }
     if csv:
         content["text/csv"] = {"schema": {"type": "string"}}
+    if columnar:
+        for kind in ("application/vnd.apache.arrow.stream", "application/vnd.apache.parquet"):
+            content[kind] = {"schema": {"type": "string", "format": "binary"}}
     return {"requestBody": {"required": True, "content": content}}

@@ -11,7 +11,7 @@ import dataclasses
 import typing
 from collections.abc import Mapping
 from datetime import datetime
-from typing import Any, Literal
+from typing import TYPE_CHECKING, Any, Literal
 
 from pydantic import BaseModel, ConfigDict, Field, create_model
 
@@ -56,7 +56,8 @@ _KINDS: dict[str, Any] = {
 
 def _field(spec: FieldSpec, nested: Mapping[str, type[BaseModel]]) -> tuple[Any, Any]:
     """(annotation, FieldInfo) of one request field."""
-    annotation = nested[spec.name] if spec.kind in ("series", "holdout") else _KINDS[spec.kind]
+    nests = ("series", "holdout", "baseline")
+    annotation = nested[spec.name] if spec.kind in nests else _KINDS[spec.kind]
     if spec.kind == "series":
         annotation = list[annotation]  # type: ignore[valid-type]
     options: dict[str, Any] = {
@@ -95,13 +96,27 @@ def _body_model(
     )
 
 
+class BaselineBody(BaseModel):
+    """The stored version of the same model the holdout is compared with."""
+
+    model_config = ConfigDict(extra="forbid")
+
+    version: str = Field(
+        min_length=1,
+        max_length=200,
+        description="A stored version of the same model, or latest-pass: the newest other "
+        "version whose latest verdict passed.",
+        examples=["latest-pass", "2026.11.02"],
+    )
+
+
 HoldoutBody = _body_model("HoldoutBody", shape.HOLDOUT)
 SeriesBody = _body_model("SeriesBody", shape.SERIES, nested={"holdout": HoldoutBody})
 AssessmentBody = _body_model(
     "AssessmentBody",
     shape.ENVELOPE,
     "Body of ``POST /v1/assessments`` as JSON.",
-    nested={"series": SeriesBody},
+    nested={"series": SeriesBody, "baseline": BaselineBody},
 )
 
 
@@ -116,7 +131,7 @@ AssessmentBody = _body_model(
 # Where the API says more than the record's type: the server always dates its answers.
 _API_TYPES: dict[tuple[type, str], Any] = {(results.AssessmentDocument, "created_at"): datetime}
 _MODELS: dict[type, type[BaseModel]] = {}
-_DESCRIPTIONS = {
+_DESCRIPTIONS: dict[type, str] = {
     results.AssessmentDocument: "The full result of an assessment (``id`` is null when computed "
     "with ``store=false``).",
 }
@@ -126,15 +141,15 @@ def _annotation(hint: Any, values: tuple[str, ...] | None = None) -> Any:
     """The pydantic type of a record field's type."""
     base, nullable = results.optional(hint)
     if base is results.Status:
-        out: Any = Literal[tuple(values or [s.value for s in results.Status])]  # type: ignore[valid-type]
+        out: Any = Literal[tuple(values or [s.value for s in results.Status])]
     elif base is results.SeriesTable:
-        out = list[_record_model(results.SeriesResult)]  # type: ignore[valid-type]
+        out = list.__class_getitem__(_record_model(results.SeriesResult))
     elif isinstance(base, type) and base in _RECORDS:
         out = _record_model(base)
     elif typing.get_origin(base) is tuple:
-        out = list[_annotation(typing.get_args(base)[0])]  # type: ignore[misc]
+        out = list.__class_getitem__(_annotation(typing.get_args(base)[0]))
     elif typing.get_origin(base) is Mapping:
-        out = dict[str, _annotation(typing.get_args(base)[1])]  # type: ignore[misc]
+        out = dict.__class_getitem__((str, _annotation(typing.get_args(base)[1])))
     else:
         out = base  # str, int, float, bool, Any
     return out | None if nullable else out
@@ -142,9 +157,8 @@ def _annotation(hint: Any, values: tuple[str, ...] | None = None) -> Any:
 
 def _flat_model(name: str, fields: dict[str, Any]) -> type[BaseModel]:
     """A model of number fields (a section or a fleet statistic), each required."""
-    return create_model(  # type: ignore[call-overload, no-any-return]
-        name, __config__=ConfigDict(extra="forbid"), **{k: (t, ...) for k, t in fields.items()}
-    )
+    required: dict[str, Any] = {k: (t, ...) for k, t in fields.items()}
+    return create_model(name, __config__=ConfigDict(extra="forbid"), **required)
 
 
 def _sections() -> dict[str, Any]:
@@ -168,7 +182,10 @@ def _fleet_statistics() -> dict[str, Any]:
             record = type(check.fleet.empty.result)
             hints = typing.get_type_hints(record)
             fields = {f.name: _statistic_type(hints[f.name]) for f in dataclasses.fields(record)}
-            out[check.fleet.key] = (_flat_model(f"Fleet{check.fleet.key.title()}", fields), ...)
+            model = _flat_model(f"Fleet{check.fleet.key.title()}", fields)
+            # A check that applies to some batches only (the baseline comparison) writes its
+            # statistic only into their results: not required.
+            out[check.fleet.key] = (model, ...) if check.applies is None else (model, None)
     return out
 
 
@@ -187,7 +204,7 @@ def _record_model(cls: type) -> type[BaseModel]:
     if cls in _MODELS:
         return _MODELS[cls]
     fields: dict[str, Any] = {}
-    extra = "forbid"
+    extra: Literal["allow", "forbid"] = "forbid"
     for f in _inlined(cls):
         if not f.inline:
             hint = _API_TYPES.get((cls, f.name))
@@ -198,13 +215,13 @@ def _record_model(cls: type) -> type[BaseModel]:
             fields.update(_fleet_statistics())
         else:  # the document's further top-level fields
             extra = "allow"
-    _MODELS[cls] = model = create_model(  # type: ignore[call-overload]
+    _MODELS[cls] = model = create_model(
         cls.__name__,
         __config__=ConfigDict(extra=extra),
         __doc__=_DESCRIPTIONS.get(cls),
         **fields,
     )
-    return model  # type: ignore[no-any-return]
+    return model
 
 
 def _inlined(cls: type) -> list[results.JsonField]:
@@ -229,7 +246,14 @@ _RECORDS = (
     results.AssessmentDocument,
 )
 
-PolicyRef = _record_model(results.PolicyRef)
+if TYPE_CHECKING:  # the derived model, as a type the checker can read
+
+    class PolicyRef(BaseModel):
+        name: str
+        version: int
+
+else:
+    PolicyRef = _record_model(results.PolicyRef)
 AssessmentDocument = _record_model(results.AssessmentDocument)
 
 
@@ -269,6 +293,47 @@ class SeriesRow(BaseModel):
 class SeriesRowPage(BaseModel):
     assessment_id: str
     items: list[SeriesRow]
+    next_cursor: str | None = Field(None, description="the next page's cursor; null: last page")
+    next: str | None = Field(None, description="the next page's path and query; null: last")
+
+
+class BaselineMatching(BaseModel):
+    """How a baseline's holdout was matched to the new one: series by id, periods by
+    timestamp when both sides give them, else by position; what found no match is counted
+    (ids listed up to 100 per kind), never guessed."""
+
+    requested: str = Field(description="The baseline as asked for: a version or latest-pass.")
+    matched_series: int
+    matched_periods: int
+    matched_by: dict[str, int] = Field(description="Matched series by timestamp and by position.")
+    unmatched_periods: int = Field(
+        description="Holdout periods of matched series without a baseline value."
+    )
+    unmatched_series: int = Field(description="Series with a holdout and no baseline value.")
+    unmatched_series_ids: list[str]
+    baseline_only_series: int = Field(description="Baseline series the new version lacks.")
+    baseline_only_series_ids: list[str]
+
+
+class BaselineRecord(BaselineMatching):
+    """The stored assessment an assessment's holdout was compared with (the ``baseline`` field
+    of its result)."""
+
+    version: str
+    assessment_id: str
+    created_at: datetime
+    verdict: Verdict
+
+
+class VerdictBaseline(BaselineRecord):
+    """The latest assessment's comparison with its baseline: which one, the matching, the
+    ``baseline_accuracy`` check's summary and fleet figures."""
+
+    check: dict[str, Any] | None = None
+    fleet: dict[str, Any] | None = None
+    reasons: list[str] = Field(
+        default_factory=list, description="The comparison's fleet-level reason sentences."
+    )
 
 
 class ModelVerdict(BaseModel):
@@ -280,6 +345,45 @@ class ModelVerdict(BaseModel):
     policy: PolicyRef
     require: Verdict | None = None
     met: bool | None = None
+    baseline: VerdictBaseline | None = Field(
+        None, description="Present when the latest assessment had a baseline."
+    )
+
+
+class ComparedVersion(BaseModel):
+    version: str
+    assessment_id: str
+    created_at: datetime
+    verdict: Verdict
+
+
+class ComparedSeries(BaseModel):
+    """One series of ``b`` against ``a``: the matching and the ``baseline_accuracy`` check's
+    figures (its declared details in ``details``)."""
+
+    series_id: str
+    weight: float | None
+    matched_periods: int
+    unmatched_periods: int
+    matched_by: Literal["timestamp", "position"] | None
+    status: CheckStatus | None
+    statistic: float | None
+    p_value: float | None
+    p_adjusted: float | None
+    details: dict[str, Any]
+
+
+class Comparison(BaseModel):
+    """Version ``b`` against version ``a`` on their matched holdout periods."""
+
+    model: str
+    a: ComparedVersion
+    b: ComparedVersion
+    matching: BaselineMatching
+    check: dict[str, Any] | None = Field(description="The check's summary over the fleet.")
+    fleet: dict[str, Any] | None = Field(description="The check's fleet-level figures.")
+    reasons: list[str] = Field(description="The comparison's fleet-level reason sentences.")
+    series: list[ComparedSeries]
 
 
 # --- catalogue, policies, tokens --------------------------------------------------------------
@@ -356,3 +460,34 @@ class PolicyDocument(BaseModel):
 
 # Schemas the OpenAPI document lists for bodies the endpoints read themselves.
 BODY_SCHEMAS: tuple[type[BaseModel], ...] = (AssessmentBody, TokenRequest, PolicyDocument)
+
+
+# --- jobs --------------------------------------------------------------------------------------
+
+
+class JobProgress(BaseModel):
+    series_done: int = Field(examples=[0])
+    series_total: int = Field(examples=[4000])
+
+
+class JobAssessmentLink(BaseModel):
+    id: str
+    href: str = Field(examples=["/v1/assessments/3f2b9c0d6a1e4f7e8d5c2b1a09f8e7d6"])
+
+
+class Job(BaseModel):
+    """A background assessment (``Prefer: respond-async``): its state, progress and, when
+    done, the assessment it stored; when failed, the problem that stopped it."""
+
+    id: str
+    state: Literal["queued", "running", "done", "failed"]
+    model: str
+    version: str
+    progress: JobProgress
+    created_at: datetime
+    started_at: datetime | None
+    updated_at: datetime
+    finished_at: datetime | None
+    attempts: int = Field(description="How many times a worker has started the job.")
+    assessment: JobAssessmentLink | None = Field(description="When done: the stored assessment.")
+    error: Problem | None = Field(description="When failed: why (RFC 9457).")

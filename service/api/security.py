@@ -21,6 +21,7 @@ from __future__ import annotations
 from collections.abc import Iterable
 from typing import Any
 
+from .docs import DOCS_CSP, DOCS_PATHS
 from .limits import ASGIApp, LimitsMiddleware, Message, Receive, Scope, Send
 
 __all__ = [
@@ -51,8 +52,6 @@ HTML_CSP = (
 )
 """Content-Security-Policy for self-contained HTML pages (inline styles, scripts and SVG only)."""
 
-DOCS_CSP = "frame-ancestors 'none'"
-"""The interactive API docs load their scripts from elsewhere: only framing is forbidden."""
 
 HSTS = "max-age=31536000; includeSubDomains"
 CACHE_CONTROL = "no-store"
@@ -175,12 +174,7 @@ def install_hardening(app: Any, settings: Any) -> None:
         max_body_bytes=settings.max_body_bytes,
         body_read_timeout_seconds=settings.body_read_timeout_seconds,
     )
-    docs_paths = [
-        getattr(app, "docs_url", None),
-        getattr(app, "redoc_url", None),
-        getattr(app, "swagger_ui_oauth2_redirect_url", None),
-    ]
-    app.add_middleware(SecurityHeadersMiddleware, docs_paths=[p for p in docs_paths if p])
+    app.add_middleware(SecurityHeadersMiddleware, docs_paths=DOCS_PATHS)
 
     build = app.openapi
 

@@ -72,11 +72,11 @@ def _hint(exc: Any, args: Any) -> str:
     return text
 
 
-SERVER_COMMANDS = frozenset({"serve", "db"})
+SERVER_COMMANDS = frozenset({"serve", "db", "work"})
 """Commands that always work on the server's own database."""
 
 
-def _dispatch(args: Any, out: IO[str]) -> Exit:
+def _dispatch(args: Any, out: IO[str]) -> int:
     if args.command in SERVER_COMMANDS or (args.command == "tokens" and _tokens_on_database(args)):
         from .server import run as run_on_server
 

@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import argparse
 import sys
+from collections.abc import Callable
 from typing import IO, Any
 
-from ..client import AssessmentDocument, ClientError
+from ..client import AssessmentDocument, ClientError, JobStatus
 from . import render
 from .connect import client_from_args, note, retry_notice, server_from_args
 from .csvbody import csv_as_body, errors_line, parse_csv
@@ -24,6 +25,8 @@ def overrides_from_args(args: argparse.Namespace) -> Overrides:
         model_params=args.model_params,
         level=args.level,
         labels=dict(parse_label(text) for text in args.label),
+        baseline=args.baseline,
+        burn_in=args.burn_in,
     )
 
 
@@ -40,9 +43,24 @@ def run(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
             result = assess_offline(inp)
             where = "offline"
         else:
-            with client_from_args(args, server, on_retry=retry_notice) as client:
+            above = None if args.job_above is None else int(args.job_above * 1024 * 1024)
+            with client_from_args(
+                args, server, on_retry=retry_notice, job_above_bytes=above
+            ) as client:
                 spin.update(_what("assessing", inp) + f" on {server}")
-                result = send(client, inp, store=args.store, key=args.idempotency_key)
+
+                def progress(job: JobStatus) -> None:
+                    spin.update(_what(f"job {job.state}:", inp) + f" on {server}")
+                    spin.progress(job.series_done, job.series_total)
+
+                result = send(
+                    client,
+                    inp,
+                    store=args.store,
+                    key=args.idempotency_key,
+                    as_job=args.as_job,
+                    on_progress=progress,
+                )
                 if result.id is not None:
                     spin.update("asking for a report link")
                     link = report_link(client, result)
@@ -62,16 +80,29 @@ def _what(verb: str, inp: AssessInput) -> str:
 
 
 def send(
-    client: Any, inp: AssessInput, *, store: bool, key: str | None = None
+    client: Any,
+    inp: AssessInput,
+    *,
+    store: bool,
+    key: str | None = None,
+    as_job: bool | None = None,
+    on_progress: Callable[[JobStatus], None] | None = None,
 ) -> AssessmentDocument:
-    """One assessment on the server (retried with one Idempotency-Key by the client)."""
+    """One assessment on the server (retried with one Idempotency-Key by the client); as a
+    background job, waited for, when ``as_job`` is true or (``None``) the body is large."""
     body = inp.body
-    if inp.kind == "csv":
+    job = {"as_job": as_job, "on_progress": on_progress}
+    if inp.kind in ("csv", "arrow", "parquet"):
         if inp.inline_policy is None and not inp.labels:
-            return client.assess(csv=inp.text, params=inp.params, store=store, idempotency_key=key)
+            upload: dict[str, Any] = (
+                {"csv": inp.text} if inp.kind == "csv" else {inp.kind: inp.data}
+            )
+            return client.assess(
+                **upload, params=inp.params, store=store, idempotency_key=key, **job
+            )
         body = csv_as_body(inp)
     try:
-        return client.assess(body, store=store, idempotency_key=key)
+        return client.assess(body, store=store, idempotency_key=key, **job)
     except ValueError as exc:  # NaN/inf in the body
         raise CliError(f"{inp.name}: {exc}") from None
 
@@ -95,7 +126,7 @@ def assess_offline(inp: AssessInput) -> AssessmentDocument:
 
     if inp.kind == "json":
         try:
-            request = ingest.parse_json_request(inp.body)
+            request = ingest.parse_json_request(inp.body if inp.body is not None else {})
         except ingest.RequestInvalid as exc:
             raise CliError(f"{inp.name}: invalid request: {errors_line(exc.errors)}") from None
         except InputError as exc:
@@ -103,6 +134,12 @@ def assess_offline(inp: AssessInput) -> AssessmentDocument:
         policy_value, labels = request.policy, dict(request.labels)
     else:
         request = parse_csv(inp)
+    if request.baseline is not None:
+        raise CliError(
+            f"{inp.name}: a baseline ({request.baseline!r}) is read from the versions stored on "
+            "a server; --offline has none: leave the baseline out or assess on a server"
+        )
+    if inp.kind != "json":
         policy_value = inp.inline_policy if inp.inline_policy is not None else request.policy
         labels = {**request.labels, **inp.labels}
 

@@ -6,7 +6,7 @@ import argparse
 import os
 import sys
 
-from ..client import PlumblineClient, RetryHook
+from ..client import JOB_ABOVE_BYTES, PlumblineClient, RetryHook
 from .errors import CliError
 from .progress import interactive
 
@@ -39,7 +39,11 @@ def note(text: str) -> None:
 
 
 def client_from_args(
-    args: argparse.Namespace, server: str, *, on_retry: RetryHook | None = retry_notice
+    args: argparse.Namespace,
+    server: str,
+    *,
+    on_retry: RetryHook | None = retry_notice,
+    job_above_bytes: int | None = None,
 ) -> PlumblineClient:
     """A client for ``server``; ``args.http`` (set by :func:`service.cli.main`'s ``http=``) is an
     ``httpx.Client`` to send through, e.g. Starlette's ``TestClient`` around an in-process app."""
@@ -51,6 +55,7 @@ def client_from_args(
             timeout=args.timeout,
             retries=args.retries,
             on_retry=on_retry,
+            job_above_bytes=JOB_ABOVE_BYTES if job_above_bytes is None else job_above_bytes,
         )
     except ValueError as exc:
         raise CliError(f"--server: {exc}") from None

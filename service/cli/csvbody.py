@@ -16,11 +16,16 @@ from .inputs import AssessInput
 
 
 def parse_csv(inp: AssessInput) -> Any:
-    """``service.ingest.parse_csv_request`` on ``inp``; bad content becomes a one-line error."""
+    """``service.ingest.parse_csv_request`` on ``inp`` (``parse_columnar_request`` for an
+    Arrow or Parquet file); bad content becomes a one-line error."""
     from .. import ingest
     from ..core import InputError
 
     try:
+        if inp.kind in ("arrow", "parquet"):
+            from ..ingest.columnar import parse_columnar_request
+
+            return parse_columnar_request(inp.data or b"", inp.kind, dict(inp.params))
         return ingest.parse_csv_request(inp.text or "", dict(inp.params))
     except ingest.RequestInvalid as exc:
         raise CliError(f"{inp.name}: invalid request: {errors_line(exc.errors)}") from None
@@ -34,7 +39,8 @@ def errors_line(errors: Any, limit: int = 3) -> str:
     parts = []
     for e in errors[:limit]:
         loc, message = e.get("loc"), e.get("message", "invalid")
-        parts.append(f"{loc}: {message}" if loc else str(message))
+        text = " ".join((f"{loc}: {message}" if loc else str(message)).split())
+        parts.append(text if len(text) <= 200 else text[:197] + "...")
     more = len(errors) - limit
     return "; ".join(parts) + (f" (and {more} more)" if more > 0 else "")
 
@@ -53,8 +59,10 @@ def request_body(request: Any) -> dict[str, Any]:
         item: dict[str, Any] = {
             "id": sid,
             "actuals": _values(batch.actuals[i], n),
-            "fitted": _values(batch.fitted[i], n),
+            "fitted": _values(request.fitted_sent(i), n),
         }
+        if i < len(request.burn_in_given) and request.burn_in_given[i] is not None:
+            item["burn_in"] = int(request.burn_in_given[i])
         if request.timestamps[i] is not None:
             item["timestamps"] = list(request.timestamps[i])
         if i < len(request.weights_given) and request.weights_given[i] is not None:
@@ -74,19 +82,23 @@ def request_body(request: Any) -> dict[str, Any]:
                 hold["timestamps"] = list(request.holdout_timestamps[i])
             item["holdout"] = hold
         series.append(item)
-    return {
+    body = {
         "model": request.model,
         "version": request.version,
         "policy": request.policy,
         "season_length": request.season_length,
         "model_params": request.model_params,
+        "burn_in": request.request_burn_in,
         "labels": dict(request.labels),
         "series": series,
     }
+    if getattr(request, "baseline", None) is not None:
+        body["baseline"] = {"version": request.baseline}
+    return body
 
 
 def csv_as_body(inp: AssessInput) -> dict[str, Any]:
-    """``inp`` (CSV) as a JSON body with its inline policy and labels."""
+    """``inp`` (CSV, Arrow or Parquet) as a JSON body with its inline policy and labels."""
     body = request_body(parse_csv(inp))
     if inp.inline_policy is not None:
         body["policy"] = inp.inline_policy

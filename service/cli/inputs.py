@@ -19,7 +19,15 @@ from .errors import CliError
 
 REQUIRED_CSV_COLUMNS = ("series_id", "actual", "fitted")
 
-Kind = Literal["json", "csv"]
+Kind = Literal["json", "csv", "arrow", "parquet"]
+COLUMNAR_EXTENSIONS = {
+    ".parquet": "parquet",
+    ".pq": "parquet",
+    ".arrow": "arrow",
+    ".arrows": "arrow",
+    ".ipc": "arrow",
+}
+"""Files of the long layout as Arrow IPC or Parquet, by extension (read as bytes)."""
 
 
 @dataclass(frozen=True)
@@ -33,6 +41,8 @@ class Overrides:
     model_params: int | None = None
     level: float | None = None
     labels: dict[str, str] = field(default_factory=dict)
+    baseline: str | None = None
+    burn_in: int | None = None
 
 
 @dataclass(frozen=True)
@@ -41,7 +51,8 @@ class AssessInput:
 
     JSON input: ``body`` is the request body with the overrides applied. CSV input: ``text`` is
     the file and ``params`` the query parameters; an inline policy (``--policy FILE``) and
-    ``labels`` have no query parameter, so they travel apart (see ``csv_as_body``).
+    ``labels`` have no query parameter, so they travel apart (see ``csv_as_body``). Arrow and
+    Parquet input: ``data`` is the file, with ``params`` as for CSV.
     """
 
     name: str
@@ -51,6 +62,7 @@ class AssessInput:
     params: dict[str, str] = field(default_factory=dict)
     inline_policy: dict[str, Any] | None = None
     labels: dict[str, str] = field(default_factory=dict)
+    data: bytes | None = None
 
     @property
     def n_series(self) -> int | None:
@@ -61,6 +73,19 @@ class AssessInput:
 
 def read_text(path: str) -> tuple[str, str]:
     """(display name, text) of ``path``; ``-`` reads standard input."""
+    name, data = read_bytes(path)
+    try:
+        text = data.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise CliError(
+            f"{name}: not UTF-8 text (byte {exc.start}); expected a JSON or CSV file "
+            "(or give a Parquet or Arrow file its extension, or --format)"
+        ) from None
+    return name, text
+
+
+def read_bytes(path: str) -> tuple[str, bytes]:
+    """(display name, bytes) of ``path``; ``-`` reads standard input."""
     if path == "-":
         data = sys.stdin.buffer.read()
         name = "standard input"
@@ -77,20 +102,16 @@ def read_text(path: str) -> tuple[str, str]:
             raise CliError(f"{path}: permission denied") from None
         except OSError as exc:
             raise CliError(f"{path}: cannot read ({exc.strerror or exc})") from None
-    try:
-        text = data.decode("utf-8-sig")
-    except UnicodeDecodeError as exc:
-        raise CliError(
-            f"{name}: not UTF-8 text (byte {exc.start}); expected a JSON or CSV file"
-        ) from None
-    return name, text
+    return name, data
 
 
 def detect_kind(path: str, text: str, declared: str | None = None) -> Kind:
     """``declared`` if given, else by extension (.json / .csv), else by the first character."""
-    if declared in ("json", "csv"):
+    if declared in ("json", "csv", "arrow", "parquet"):
         return declared  # type: ignore[return-value]
     ext = os.path.splitext(path)[1].lower()
+    if ext in COLUMNAR_EXTENSIONS:
+        return COLUMNAR_EXTENSIONS[ext]  # type: ignore[return-value]
     if ext == ".json":
         return "json"
     if ext == ".csv":
@@ -129,27 +150,46 @@ def _json_type(value: object) -> str:
     return "a number"
 
 
+CSV_DELIMITERS = (",", ";", "\t")
+"""What the service reads between cells (``service.ingest.csv_dialect``, which imports no more
+than this does but lives in a package that needs numpy)."""
+
+
 def check_csv_header(name: str, text: str) -> list[str]:
-    """The header's column names; raises when it lacks a required column."""
-    first = text.lstrip("\r\n").splitlines()[:1]
+    """The header's column names (lower-cased; names are read in any case, cells separated by
+    a comma, a semicolon or a tab, as the service reads them); raises when it lacks a required
+    column, saying what the header was read as."""
+    first = text.lstrip("\r\n")[: 64 * 1024].splitlines()[:1]
     if not first or not first[0].strip():
         raise CliError(
             f"{name}: empty file, expected a CSV header with columns "
             + ", ".join(REQUIRED_CSV_COLUMNS)
         )
-    try:
-        header = next(csv.reader(io.StringIO(first[0])))
-    except csv.Error as exc:
-        raise CliError(f"{name}: unreadable CSV header: {exc}") from None
-    columns = [c.strip() for c in header]
-    missing = [c for c in REQUIRED_CSV_COLUMNS if c not in columns]
+    best: list[str] = []
+    for delimiter in CSV_DELIMITERS:
+        try:
+            header = next(csv.reader(io.StringIO(first[0]), delimiter=delimiter))
+        except csv.Error as exc:
+            raise CliError(f"{name}: unreadable CSV header: {exc}") from None
+        columns = [c.strip().lower() for c in header]
+        if (
+            sum(c in columns for c in REQUIRED_CSV_COLUMNS)
+            > sum(c in best for c in REQUIRED_CSV_COLUMNS)
+            or not best
+        ):
+            best = columns
+    missing = [c for c in REQUIRED_CSV_COLUMNS if c not in best]
     if missing:
         plural = "s" if len(missing) > 1 else ""
+        shown = [c if len(c) <= 40 else c[:40] + "..." for c in best[:8] if c]
+        more = len(best) - 8
         raise CliError(
             f"{name}: missing required CSV column{plural} {', '.join(missing)} "
-            f"(header has: {', '.join(c for c in columns if c) or 'nothing'})"
+            f"(header has: {', '.join(shown) or 'nothing'}"
+            + (f" and {more:,} more" if more > 0 else "")
+            + "); cells separated by commas, semicolons or tabs are read, names in any case"
         )
-    return columns
+    return best
 
 
 def load_policy_option(value: str) -> str | dict[str, Any]:
@@ -173,6 +213,21 @@ def load_policy_option(value: str) -> str | dict[str, Any]:
 
 def load_input(path: str, overrides: Overrides, declared: str | None = None) -> AssessInput:
     """Read and first-check ``path``, then apply ``overrides``."""
+    columnar = declared in ("arrow", "parquet") or (
+        declared is None and os.path.splitext(path)[1].lower() in COLUMNAR_EXTENSIONS
+    )
+    if columnar:
+        name, data = read_bytes(path)
+        if not data:
+            raise CliError(f"{name}: empty file, expected an Arrow IPC stream or Parquet file")
+        return AssessInput(
+            name=name,
+            kind=detect_kind(path, "", declared),
+            data=data,
+            params=csv_params(overrides),
+            inline_policy=overrides.policy if isinstance(overrides.policy, dict) else None,
+            labels=dict(overrides.labels),
+        )
     name, text = read_text(path)
     kind = detect_kind(path, text, declared)
     if kind == "json":
@@ -191,12 +246,17 @@ def load_input(path: str, overrides: Overrides, declared: str | None = None) -> 
 
 def apply_to_body(name: str, body: dict[str, Any], o: Overrides) -> dict[str, Any]:
     if o.level is not None:
-        raise CliError("--level applies to CSV input; in JSON give holdout.level in each series")
+        raise CliError(
+            "--level applies to CSV input (and Arrow or Parquet); in JSON give holdout.level "
+            "in each series"
+        )
     out = dict(body)
-    for key in ("model", "version", "policy", "season_length", "model_params"):
+    for key in ("model", "version", "policy", "season_length", "model_params", "burn_in"):
         value = getattr(o, key)
         if value is not None:
             out[key] = value
+    if o.baseline is not None:
+        out["baseline"] = {"version": o.baseline}
     if o.labels:
         labels = out.get("labels")
         if labels is None:
@@ -210,7 +270,16 @@ def apply_to_body(name: str, body: dict[str, Any], o: Overrides) -> dict[str, An
 def csv_params(o: Overrides) -> dict[str, str]:
     """The query parameters of a CSV upload (all strings, as they travel)."""
     params: dict[str, str] = {}
-    for key in ("model", "version", "policy", "season_length", "model_params", "level"):
+    for key in (
+        "model",
+        "version",
+        "policy",
+        "season_length",
+        "model_params",
+        "level",
+        "baseline",
+        "burn_in",
+    ):
         value = getattr(o, key)
         if value is not None and not isinstance(value, dict):
             params[key] = str(value)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+from collections.abc import Callable
 from typing import NoReturn
 
 from .errors import Exit
@@ -17,7 +18,7 @@ class Parser(argparse.ArgumentParser):
         self.exit(Exit.USAGE, f"{self.prog}: error: {message} (see: {self.prog} --help)\n")
 
 
-def _int_at_least(low: int):
+def _int_at_least(low: int) -> Callable[[str], int]:
     def convert(text: str) -> int:
         try:
             value = int(text)
@@ -67,7 +68,8 @@ def _server_options(p: argparse.ArgumentParser, *, timeout: float = 30.0) -> Non
         metavar="N",
         type=_int_at_least(0),
         default=3,
-        help="retries on connection errors and 5xx answers, with backoff (default 3)",
+        help="retries on connection errors, 5xx and 429 answers, after the wait the server "
+        "asks for in Retry-After, else with backoff (default 3)",
     )
 
 
@@ -86,14 +88,18 @@ def build_parser() -> Parser:
     p = sub.add_parser(
         "assess",
         help="assess a file of series and gate on its verdict",
-        description="Assess FILE (JSON in the request body's shape, or CSV long format) on a "
-        "server or --offline. Exit 0 when the gate passes, 1 when the verdict is at or worse "
-        "than --fail-on.",
+        description="Assess FILE (JSON in the request body's shape, or the long format as CSV, "
+        "Parquet or an Arrow IPC stream) on a server or --offline. Exit 0 when the gate "
+        "passes, 1 when the verdict is at or worse than --fail-on.",
     )
-    p.add_argument("file", metavar="FILE", help="JSON or CSV file ('-' reads standard input)")
+    p.add_argument(
+        "file",
+        metavar="FILE",
+        help="JSON, CSV, Parquet (.parquet) or Arrow (.arrow) file ('-' reads standard input)",
+    )
     p.add_argument(
         "--format",
-        choices=("json", "csv"),
+        choices=("json", "csv", "arrow", "parquet"),
         help="file format (default: from the extension, else from the content)",
     )
     p.add_argument("--model", metavar="M", help="model name (overrides the file's)")
@@ -117,7 +123,24 @@ def build_parser() -> Parser:
         help="parameters the model estimated (reduces the Ljung-Box df; default 0)",
     )
     p.add_argument(
-        "--level", metavar="L", type=_level, help="CSV only: nominal level of the intervals"
+        "--level",
+        metavar="L",
+        type=_level,
+        help="CSV, Arrow and Parquet: nominal level of the intervals",
+    )
+    p.add_argument(
+        "--baseline",
+        metavar="VERSION|latest-pass",
+        help="compare the holdout with a stored version of the same model, or with the newest "
+        "other version whose latest verdict passed (latest-pass); a significantly less "
+        "accurate version fails the gate",
+    )
+    p.add_argument(
+        "--burn-in",
+        metavar="N",
+        type=_int_at_least(0),
+        help="periods to leave out at the start of every series, e.g. an ARIMA's first d + mD "
+        "fitted values (overrides the file's request-wide burn_in; a series' own stays)",
     )
     p.add_argument(
         "--label",
@@ -147,6 +170,27 @@ def build_parser() -> Parser:
         metavar="KEY",
         help="server mode: the key for this assessment (default: a new one per run), e.g. the "
         "pipeline run id, so a re-run job gets the stored result instead of storing again",
+    )
+    job = p.add_mutually_exclusive_group()
+    job.add_argument(
+        "--as-job",
+        dest="as_job",
+        action="store_true",
+        default=None,
+        help="server mode: run it as a background job on the server and wait for it, with a "
+        "progress bar on a terminal (default: for files over --job-above)",
+    )
+    job.add_argument(
+        "--no-job",
+        dest="as_job",
+        action="store_false",
+        help="server mode: one request that waits for the answer, however large the file",
+    )
+    p.add_argument(
+        "--job-above",
+        metavar="MIB",
+        type=_positive_float,
+        help="server mode: send requests larger than this many MiB as jobs (default 8)",
     )
     _server_options(p, timeout=300.0)
 
@@ -208,6 +252,26 @@ def build_parser() -> Parser:
         type=_int_at_least(1),
         default=1,
         help="worker processes (default 1)",
+    )
+
+    p = sub.add_parser(
+        "work",
+        help="run background jobs from the database, without serving HTTP",
+        description="Take the queued background assessments (POST with Prefer: respond-async) "
+        "from the service's database and run them until stopped (SIGTERM or Ctrl-C). Any "
+        "number of these may share one PostgreSQL database with the servers; the database "
+        "must be migrated (plumbline db upgrade).",
+    )
+    p.add_argument(
+        "--threads",
+        metavar="N",
+        type=_int_at_least(1),
+        help="jobs run at once (default: $PLUMBLINE_JOB_WORKERS, else 1)",
+    )
+    p.add_argument(
+        "--database",
+        metavar="URL",
+        help="SQLAlchemy URL (default: $PLUMBLINE_DATABASE_URL, else sqlite:///plumbline.db)",
     )
 
     p = sub.add_parser("db", help="database maintenance")

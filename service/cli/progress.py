@@ -1,4 +1,6 @@
-"""A spinner on stderr while the command waits or computes, only on an interactive terminal."""
+"""A spinner on stderr while the command waits or computes, only on an interactive terminal;
+a progress bar in its place once the work reports how far it is (a background job's series
+done of total)."""
 
 from __future__ import annotations
 
@@ -8,6 +10,13 @@ import time
 from typing import IO
 
 _FRAMES = "|/-\\"
+BAR_WIDTH = 24
+
+
+def bar(done: int, total: int, width: int = BAR_WIDTH) -> str:
+    """``[#######.................]  1,234/4,000`` for ``done`` of ``total``."""
+    filled = 0 if total <= 0 else min(width, int(width * done / total))
+    return f"[{'#' * filled}{'.' * (width - filled)}] {done:,}/{total:,}"
 
 
 def interactive(stdout: IO[str] | None = None, stderr: IO[str] | None = None) -> bool:
@@ -46,9 +55,14 @@ class Spinner:
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._drawn = False
+        self._bar: str | None = None
 
     def update(self, message: str) -> None:
         self.message = message
+
+    def progress(self, done: int, total: int, what: str = "series") -> None:
+        """Draw a bar of ``done`` of ``total`` (then ``what``) after the message from now on."""
+        self._bar = f"{bar(done, total)} {what}"
 
     def __enter__(self) -> Spinner:
         if self.enabled:
@@ -72,7 +86,8 @@ class Spinner:
         frame = 0
         while not self._stop.is_set():
             elapsed = time.monotonic() - start
-            self._stream.write(f"\r\033[K{_FRAMES[frame % 4]} {self.message} {elapsed:.1f}s")
+            shown = self.message if self._bar is None else f"{self.message} {self._bar}"
+            self._stream.write(f"\r\033[K{_FRAMES[frame % 4]} {shown} {elapsed:.1f}s")
             self._stream.flush()
             self._drawn = True
             frame += 1

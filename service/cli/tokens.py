@@ -15,7 +15,7 @@ from typing import IO, Any
 
 from ..client import TokenCreated, TokenInfo
 from . import render
-from .connect import SERVER_ENV, client_from_args
+from .connect import SERVER_ENV, client_from_args, server_from_args
 from .errors import CliError, Exit
 
 
@@ -109,7 +109,7 @@ class ApiTokens:
     """Tokens through ``/v1/tokens`` (needs an admin token)."""
 
     def __init__(self, args: argparse.Namespace) -> None:
-        server = args.server or os.environ.get(SERVER_ENV)
+        server = server_from_args(args, purpose="manage tokens on")
         self._client = client_from_args(args, server)
 
     def __enter__(self) -> ApiTokens:

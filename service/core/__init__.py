@@ -3,10 +3,11 @@
 No web framework, database or pydantic import lives here; the API, store and CLI wrap it.
 """
 
-from .batch import Holdout, Residuals, SeriesBatch, make_batch, residuals_of
+from .batch import Baseline, Holdout, Residuals, SeriesBatch, make_batch, residuals_of
 from .catalogue import CATALOGUE, CHECK_NAMES, CheckSpec
 from .checks.accuracy import mase, naive_scale
 from .checks.autocorrelation import autocorrelations, ljung_box, portmanteau_lags, portmanteau_q
+from .checks.baseline import baseline_accuracy
 from .checks.benchmarks import benchmark_skill
 from .checks.bias import (
     bias,
@@ -34,6 +35,7 @@ __all__ = [
     "CHECK_NAMES",
     "CHECK_OPTIONS",
     "Assessment",
+    "Baseline",
     "BatchChecks",
     "CheckResult",
     "CheckSpec",
@@ -48,6 +50,7 @@ __all__ = [
     "arch_lm",
     "assess",
     "autocorrelations",
+    "baseline_accuracy",
     "benchmark_forecasts",
     "benchmark_skill",
     "benjamini_hochberg",

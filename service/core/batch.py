@@ -21,6 +21,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, fields
+from typing import Any, cast
 
 import numpy as np
 
@@ -91,14 +92,14 @@ def _check_row_lengths(name: str, arr: FloatMatrix, lengths: IntVector) -> None:
         )
 
 
-def _per_series(name: str, value: object, n: int) -> IntVector:
+def _per_series(name: str, value: int | Sequence[int] | IntVector | None, n: int) -> IntVector:
     """A non-negative integer for every series: one for all, or one each."""
     if value is None:
         return np.zeros(n, dtype=np.int64)
     if np.ndim(value) == 0:
         values = [value] * n
     else:
-        values = list(value)  # type: ignore[call-overload]
+        values = list(value)  # type: ignore[arg-type]
         if len(values) != n:
             raise InputError(name, f"has {len(values)} entries, expected {n}")
     for i, v in enumerate(values):
@@ -125,6 +126,31 @@ class Holdout:
 
 
 @dataclass(frozen=True, eq=False)
+class Baseline:
+    """The holdout forecasts of the version a batch is compared with (the baseline: the
+    version in production), on the holdout's periods.
+
+    ``forecasts`` has the holdout's shape ``(n_series, horizon)``, ``NaN`` where a series or
+    period has no matched baseline value; ``lower``/``upper`` are its intervals (both or
+    neither); ``label`` names the baseline version in sentences (``None``: "the baseline").
+    """
+
+    forecasts: FloatMatrix
+    lower: FloatMatrix | None = None
+    upper: FloatMatrix | None = None
+    label: str | None = None
+
+    def rows(self, index: np.ndarray) -> Baseline:
+        """The baseline of the rows in ``index`` (an index array or a slice)."""
+        return Baseline(
+            forecasts=self.forecasts[index],
+            lower=None if self.lower is None else self.lower[index],
+            upper=None if self.upper is None else self.upper[index],
+            label=self.label,
+        )
+
+
+@dataclass(frozen=True, eq=False)
 class SeriesBatch:
     """A validated batch of series: build it with :func:`make_batch`."""
 
@@ -141,6 +167,8 @@ class SeriesBatch:
     """Periods dropped at the start of each series (their fitted values count as missing)."""
     weights_given: BoolVector
     """Where ``weights`` holds a weight the caller gave (elsewhere: the series' volume)."""
+    baseline: Baseline | None = None
+    """The holdout forecasts of the version this one is compared with, if any."""
 
     @property
     def n_series(self) -> int:
@@ -169,6 +197,7 @@ class SeriesBatch:
             lengths=self.lengths[part],
             burn_in=self.burn_in[part],
             weights_given=self.weights_given[part],
+            baseline=None if self.baseline is None else self.baseline.rows(part),  # type: ignore[arg-type]
         )
 
     def take(self, index: np.ndarray) -> SeriesBatch:
@@ -195,6 +224,7 @@ class SeriesBatch:
             lengths=self.lengths[index],
             burn_in=self.burn_in[index],
             weights_given=self.weights_given[index],
+            baseline=None if self.baseline is None else self.baseline.rows(index),
         )
 
 
@@ -213,6 +243,10 @@ def make_batch(
     level: float | Sequence[float | None] | FloatVector | None = None,
     lengths: Sequence[int] | IntVector | None = None,
     burn_in: int | Sequence[int] | IntVector | None = None,
+    baseline_forecasts: FloatMatrix | Sequence[Sequence[float | None]] | None = None,
+    baseline_lower: FloatMatrix | Sequence[Sequence[float | None]] | None = None,
+    baseline_upper: FloatMatrix | Sequence[Sequence[float | None]] | None = None,
+    baseline_label: str | None = None,
 ) -> SeriesBatch:
     """Validate and assemble a batch.
 
@@ -242,6 +276,15 @@ def make_batch(
         fitted value.
     burn_in : int or sequence of int, optional
         Periods to drop at the start of every series (or of each), default 0.
+    baseline_forecasts : 2-D array, optional
+        The holdout forecasts of the version this one is compared with (the ``baseline``),
+        in the holdout's shape; ``None`` or ``NaN`` where a series or period has no matched
+        baseline value. Needs the holdout.
+    baseline_lower, baseline_upper : 2-D array, optional
+        The baseline's interval bounds, given together and with ``baseline_forecasts``,
+        ``lower <= upper``.
+    baseline_label : str, optional
+        The baseline version's name, for sentences; needs ``baseline_forecasts``.
 
     Raises
     ------
@@ -325,29 +368,13 @@ def make_batch(
         )
         if hf.shape[1] > ha.shape[1]:
             ha = _same_shape("holdout_actuals", ha, hf, "holdout_forecasts")
-        lo = up = lev = None
-        if (holdout_lower is None) != (holdout_upper is None):
-            raise InputError(
-                "holdout_upper" if holdout_upper is None else "holdout_lower",
-                "interval bounds must be given together",
-            )
-        if holdout_lower is not None:
-            lo = _same_shape(
-                "holdout_lower", _matrix("holdout_lower", holdout_lower, n), ha, "holdout_actuals"
-            )
-            up = _same_shape(
-                "holdout_upper", _matrix("holdout_upper", holdout_upper, n), ha, "holdout_actuals"
-            )
-            crossed = lo > up  # NaN compares False
-            if crossed.any():
-                i, j = (int(v) for v in np.argwhere(crossed)[0])
-                raise InputError(
-                    "holdout_lower", f"lower bound above upper bound at step {j + 1}", index=i
-                )
+        lev = None
+        lo, up = _bounds_pair("holdout", holdout_lower, holdout_upper, n, ha, "holdout_actuals")
+        if lo is not None and up is not None:
             has_interval = (~np.isnan(lo) & ~np.isnan(up)).any(axis=1)
             if level is None:
                 lev = np.full(n, DEFAULT_LEVEL)
-            elif np.ndim(level) == 0:
+            elif np.ndim(cast(Any, level)) == 0:
                 lev = np.full(n, float(level))  # type: ignore[arg-type]
             else:
                 lev = np.array([np.nan if v is None else v for v in level], dtype=float)  # type: ignore[union-attr]
@@ -363,6 +390,9 @@ def make_batch(
             lev = np.where(has_interval, lev, np.nan)
         holdout = Holdout(actuals=ha, forecasts=hf, lower=lo, upper=up, level=lev)
 
+    baseline = _baseline(
+        holdout, n, baseline_forecasts, baseline_lower, baseline_upper, baseline_label
+    )
     return SeriesBatch(
         ids=id_tuple,
         actuals=a,
@@ -374,6 +404,7 @@ def make_batch(
         lengths=span,
         burn_in=drop,
         weights_given=given,
+        baseline=baseline,
     )
 
 
@@ -382,6 +413,62 @@ def _volume(actuals: FloatMatrix, fitted: FloatMatrix) -> FloatVector:
     weight)."""
     volume = np.fmax(np.abs(actuals), np.abs(fitted))
     return np.where(np.isnan(volume), 0.0, volume).sum(axis=1)
+
+
+def _bounds_pair(
+    prefix: str, lower: object, upper: object, n: int, like: FloatMatrix, like_name: str
+) -> tuple[FloatMatrix | None, FloatMatrix | None]:
+    """Interval bounds ``{prefix}_lower``/``{prefix}_upper``, both or neither, in ``like``'s
+    shape, ``lower <= upper`` wherever both are given."""
+    if (lower is None) != (upper is None):
+        raise InputError(
+            f"{prefix}_upper" if upper is None else f"{prefix}_lower",
+            "interval bounds must be given together",
+        )
+    if lower is None:
+        return None, None
+    lo = _same_shape(f"{prefix}_lower", _matrix(f"{prefix}_lower", lower, n), like, like_name)
+    up = _same_shape(f"{prefix}_upper", _matrix(f"{prefix}_upper", upper, n), like, like_name)
+    crossed = lo > up  # NaN compares False
+    if crossed.any():
+        i, j = (int(v) for v in np.argwhere(crossed)[0])
+        raise InputError(
+            f"{prefix}_lower", f"lower bound above upper bound at step {j + 1}", index=i
+        )
+    return lo, up
+
+
+def _baseline(
+    holdout: Holdout | None,
+    n: int,
+    forecasts: object,
+    lower: object,
+    upper: object,
+    label: object,
+) -> Baseline | None:
+    """The validated baseline of :func:`make_batch` (``None`` when none was given)."""
+    if forecasts is None:
+        for name, value in (
+            ("baseline_lower", lower),
+            ("baseline_upper", upper),
+            ("baseline_label", label),
+        ):
+            if value is not None:
+                raise InputError(name, "needs baseline_forecasts")
+        return None
+    if holdout is None:
+        raise InputError("baseline_forecasts", "a baseline needs the holdout actuals and forecasts")
+    if label is not None and not isinstance(label, str):
+        raise InputError("baseline_label", "must be a string")
+    like = holdout.actuals
+    bf = _same_shape(
+        "baseline_forecasts",
+        _matrix("baseline_forecasts", forecasts, n),
+        like,
+        "holdout_actuals",
+    )
+    lo, up = _bounds_pair("baseline", lower, upper, n, like, "holdout_actuals")
+    return Baseline(forecasts=bf, lower=lo, upper=up, label=label)
 
 
 def stack_key(batch: SeriesBatch) -> tuple[object, ...]:
@@ -406,6 +493,15 @@ def stack_key(batch: SeriesBatch) -> tuple[object, ...]:
             None if h.upper is None else _missing(h.upper),
             None if h.level is None else _missing(h.level),
         )
+    b = batch.baseline
+    base: tuple[object, ...] = ()
+    if b is not None:
+        base = (
+            b.label,
+            _missing(b.forecasts),
+            None if b.lower is None else _missing(b.lower),
+            None if b.upper is None else _missing(b.upper),
+        )
     return (
         batch.season_length,
         batch.model_params,
@@ -414,6 +510,7 @@ def stack_key(batch: SeriesBatch) -> tuple[object, ...]:
         _missing(batch.actuals),
         _missing(batch.fitted),
         hold,
+        base,
     )
 
 
@@ -435,10 +532,18 @@ def stack_batches(batches: Sequence[SeriesBatch]) -> SeriesBatch:
         b.actuals.shape[1] != first.actuals.shape[1]
         or (b.season_length, b.model_params) != (first.season_length, first.model_params)
         or (b.holdout is None) != (first.holdout is None)
+        or (b.baseline is None) != (first.baseline is None)
+        or (
+            b.baseline is not None
+            and first.baseline is not None
+            and (b.baseline.label, b.baseline.lower is None)
+            != (first.baseline.label, first.baseline.lower is None)
+        )
         for b in batches[1:]
     ):
         raise ValueError(
-            "stack_batches: the batches differ in season length, model parameters or shape"
+            "stack_batches: the batches differ in season length, model parameters, shape or "
+            "baseline"
         )
     holdout = None
     if first.holdout is not None:
@@ -447,14 +552,32 @@ def stack_batches(batches: Sequence[SeriesBatch]) -> SeriesBatch:
         def rows(name: str) -> FloatMatrix | None:
             if getattr(first.holdout, name) is None:
                 return None
+            return stacked(name)
+
+        def stacked(name: str) -> FloatMatrix:
             return np.concatenate([getattr(p, name) for p in parts])
 
         holdout = Holdout(
-            actuals=rows("actuals"),
-            forecasts=rows("forecasts"),  # type: ignore[arg-type]
+            actuals=stacked("actuals"),
+            forecasts=stacked("forecasts"),
             lower=rows("lower"),
             upper=rows("upper"),
             level=rows("level"),
+        )
+    baseline = None
+    if first.baseline is not None:
+        given = [b.baseline for b in batches]
+
+        def base_rows(name: str) -> FloatMatrix | None:
+            if getattr(first.baseline, name) is None:
+                return None
+            return np.concatenate([getattr(g, name) for g in given])
+
+        baseline = Baseline(
+            forecasts=base_rows("forecasts"),  # type: ignore[arg-type]
+            lower=base_rows("lower"),
+            upper=base_rows("upper"),
+            label=first.baseline.label,
         )
     return SeriesBatch(
         ids=tuple(i for b in batches for i in b.ids),
@@ -467,6 +590,7 @@ def stack_batches(batches: Sequence[SeriesBatch]) -> SeriesBatch:
         lengths=np.concatenate([b.lengths for b in batches]),
         burn_in=np.concatenate([b.burn_in for b in batches]),
         weights_given=np.concatenate([b.weights_given for b in batches]),
+        baseline=baseline,
     )
 
 
@@ -636,6 +760,14 @@ def conform(
                 else None
             ),
         )
+    baseline = batch.baseline
+    if baseline is not None and holdout is not h:
+        baseline = Baseline(
+            forecasts=pad(baseline.forecasts, horizon),
+            lower=None if baseline.lower is None else pad(baseline.lower, horizon),
+            upper=None if baseline.upper is None else pad(baseline.upper, horizon),
+            label=baseline.label,
+        )
     if have == width and holdout is h:
         return batch
     actuals, fitted, weights = batch.actuals, batch.fitted, batch.weights
@@ -654,4 +786,5 @@ def conform(
         lengths=frozen(batch.lengths.copy()),
         burn_in=batch.burn_in,
         weights_given=batch.weights_given,
+        baseline=baseline,
     )

@@ -32,7 +32,7 @@ from typing import Any, Protocol
 import numpy as np
 
 from . import fleet_parts
-from .batch import Holdout, Residuals, SeriesBatch, stack_batches
+from .batch import Baseline, Holdout, Residuals, SeriesBatch, stack_batches
 from .fleet_parts import Accumulator, FleetPart
 from .gate import Assessment, WeightsNotUsed, _decide_parts, _plan, _weights
 from .policy import Policy
@@ -113,16 +113,19 @@ def assess_part(batch: SeriesBatch, policy: Policy) -> PartResult:
 def _shape(batch: SeriesBatch) -> tuple[object, ...]:
     h = batch.holdout
     hold = None if h is None else (h.actuals.shape[1], h.lower is not None, h.level is not None)
-    return (batch.actuals.shape[1], batch.season_length, batch.model_params, hold)
+    b = batch.baseline
+    base = None if b is None else (b.label, b.lower is not None)
+    return (batch.actuals.shape[1], batch.season_length, batch.model_params, hold, base)
 
 
 def _describe(shape: tuple[object, ...]) -> str:
-    width, season, params, hold = shape
+    width, season, params, hold, base = shape
     text = f"{width} periods, season length {season}, {params} model parameters"
     if hold is None:
         return text + ", no holdout"
     assert isinstance(hold, tuple)
-    return text + f", a {hold[0]}-step holdout" + (" with intervals" if hold[1] else "")
+    text += f", a {hold[0]}-step holdout" + (" with intervals" if hold[1] else "")
+    return text + ("" if base is None else f", a baseline {base!r}")
 
 
 def _parts(
@@ -363,6 +366,9 @@ class _Store:
         holdout = None
         if template.holdout is not None:
             holdout = Holdout(actuals=empty, forecasts=empty)
+        baseline = None
+        if template.baseline is not None:
+            baseline = Baseline(forecasts=empty, label=template.baseline.label)
         batch = SeriesBatch(
             ids=tuple(self.ids),
             actuals=empty,
@@ -374,6 +380,7 @@ class _Store:
             lengths=vectors["lengths"],
             burn_in=self.take("burn_in"),
             weights_given=self.take("weights_given"),
+            baseline=baseline,
         )
         self.ids = []
         matrices = {

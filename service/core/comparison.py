@@ -20,12 +20,14 @@ from scipy.special import stdtr
 from .batch import SeriesBatch, nearly_constant
 from .holdout import BENCHMARKS, benchmark_forecasts
 from .path_variance import autocovariances, centred, ewc_long_run, truncated_long_run
-from .results import skip_reasons_and_ran
+from .results import NONE, skip_reasons_and_ran
 from .types import FloatMatrix, FloatVector, InputError, IntVector, ObjectVector
 
 LOSSES = ("squared", "absolute")
 DM_VARIANCES = ("ewc", "acf")
 DM_MIN_OBS = 3
+DM_EQUAL_LOSSES = "the model and the benchmark have equal losses at every step"
+"""The skip reason of :func:`dm_test` where the two losses are equal at every step."""
 
 
 def hln_factor(n_obs: IntVector | int, h: IntVector | int) -> FloatVector:
@@ -215,7 +217,7 @@ def dm_test(
     reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < min_obs, f"fewer than {min_obs} holdout steps with both forecasts"),
-        (zero, "the model and the benchmark have equal losses at every step"),
+        (zero, DM_EQUAL_LOSSES),
     )
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         if variance == "acf":
@@ -368,8 +370,8 @@ def compare_with_benchmarks(
     best = np.argmin(np.where(np.isnan(p_holm), np.inf, p_holm), axis=0)
     cols = np.arange(n)
     p_any = np.where(any_ran, p_holm[best, cols], np.nan)
-    worst = np.where(any_ran, np.array(names, dtype=object)[best], None)
-    reason = np.where(any_ran, None, tests.skip_reason[0])
+    worst = np.where(any_ran, np.array(names, dtype=object)[best], NONE)
+    reason = np.where(any_ran, NONE, tests.skip_reason[0])
     return BenchmarkComparison(
         benchmarks=tuple(names),
         tests=tests,

@@ -69,6 +69,8 @@ _STATUS = np.array(
     [Status.SKIPPED.value, Status.PASS.value, Status.WARN.value, Status.FAIL.value], dtype=object
 )
 _STATUS_ENUM = (Status.SKIPPED, Status.PASS, Status.WARN, Status.FAIL)
+SHOWN = ("all", "flagged", "none")
+"""Which series rows a result holds: every one, those not passing, or none."""
 
 
 @dataclass(frozen=True, eq=False)
@@ -300,12 +302,22 @@ def assess_many(items: Sequence[tuple[SeriesBatch, Policy]]) -> list[Assessment]
     return out  # type: ignore[return-value]
 
 
-def assess_many_results(items: Sequence[tuple[SeriesBatch, Policy]]) -> list[AssessmentResult]:
+def assess_many_results(
+    items: Sequence[tuple[SeriesBatch, Policy]], shown: Sequence[str] | None = None
+) -> list[AssessmentResult]:
     """``[assess(batch, policy).result() for batch, policy in items]``, as
-    :func:`assess_many` groups them, with each group's series columns built at once."""
+    :func:`assess_many` groups them, with each group's series columns built at once.
+
+    ``shown`` (one per item; all ``"all"`` unless given) says which series rows each result
+    holds: ``"all"``, ``"flagged"`` (those not passing) or ``"none"``; the rows left out are
+    never built. The verdict, reasons, check summaries and fleet counts are the same."""
+    views = list(shown) if shown is not None else ["all"] * len(items)
+    if len(views) != len(items) or not set(views) <= set(SHOWN):
+        raise ValueError(f"shown: one of {', '.join(SHOWN)} per item")
     out: list[AssessmentResult | None] = [None] * len(items)
     for members, decided in _decided_groups(items):
-        for i, result in zip(members, _results(decided), strict=True):
+        results = _results(decided, [views[i] for i in members])
+        for i, result in zip(members, results, strict=True):
             out[i] = result
     return out  # type: ignore[return-value]
 
@@ -606,6 +618,8 @@ def _fleet_findings(
         if check.fleet is None:
             continue
         test = check.fleet
+        if not check.applies_to(results.batch):
+            continue  # not part of this batch's result at all
         if check.name not in results.checks:
             out[test.key] = (check.name, test.empty)
             continue
@@ -618,11 +632,12 @@ def _fleet_findings(
             finding = test.finish(parts[test.key], results, weights, policy)
         cp = policy.check(check.name)
         p = finding.p_value
+        p_warn = p if finding.warn_p_value is None else finding.warn_p_value
         code = PASS
         if finding.material and np.isfinite(p):
             if cp.fleet_fail_p is not None and p < cp.fleet_fail_p / k_fail:
                 code = FAIL
-            elif finding.warn_p is not None and p < finding.warn_p / k_warn:
+            elif finding.warn_p is not None and p_warn < finding.warn_p / k_warn:
                 code = WARN
         out[test.key] = (check.name, replace(finding, code=code))
     return out
@@ -639,21 +654,44 @@ def _columns(arrays: list[np.ndarray]) -> list[list[Any]]:
     return out.tolist()
 
 
-def _results(d: _Decided) -> list[AssessmentResult]:
+def _results(d: _Decided, shown: Sequence[str] | None = None) -> list[AssessmentResult]:
     """The typed result of each assessment in ``d``, their series columns built at once over
     the stacked tables (per check, the list of its per-series entries; a part's series are a
-    run of rows) and handed to each part's :class:`SeriesTable`."""
+    run of rows) and handed to each part's :class:`SeriesTable`. ``shown`` (per assessment,
+    as :func:`assess_many_results` takes it) keeps only some rows: the others are never
+    converted, given a sentence or made into a row."""
     results = d.checks
     n = results.batch.n_series
     size = n // len(d.assessments) if d.assessments else 0
+    views = list(shown) if shown is not None else ["all"] * len(d.assessments)
+    codes = [a.series_codes for a in d.assessments]
+    # The stacked rows kept, part by part; None: all of them.
+    keep: np.ndarray | None = None
+    counts = [size] * len(d.assessments)
+    if any(v != "all" for v in views):
+        picked = []
+        for g, (view, c) in enumerate(zip(views, codes, strict=True)):
+            rows = np.arange(g * size, (g + 1) * size)
+            if view == "flagged":
+                rows = rows[c > PASS]
+            elif view == "none":
+                rows = rows[:0]
+            picked.append(rows)
+            counts[g] = rows.size
+        keep = np.concatenate(picked) if picked else np.zeros(0, dtype=np.intp)
+
+    def kept(values: np.ndarray) -> np.ndarray:
+        return values if keep is None else values[keep]
+
+    m = n if keep is None else keep.size
     # Every float column of every check converted in one go, the others one by one.
     float_keys: list[tuple[str, str]] = []
     float_arrays: list[np.ndarray] = []
     columns: dict[str, dict[str, list[Any]]] = {}
     for name, res in results.checks.items():
         col: dict[str, list[Any]] = {
-            "status": _STATUS[d.status_codes[name]].tolist(),
-            "skip": res.skip_reason.tolist(),
+            "status": _STATUS[kept(d.status_codes[name])].tolist(),
+            "skip": kept(res.skip_reason).tolist(),
         }
         for key, values in (
             ("statistic", res.statistic),
@@ -663,23 +701,31 @@ def _results(d: _Decided) -> list[AssessmentResult]:
         ):
             if values.dtype.kind == "f":
                 float_keys.append((name, key))
-                float_arrays.append(values)
+                float_arrays.append(kept(values))
             else:
-                col[key] = values.tolist()
+                col[key] = kept(values).tolist()
         columns[name] = col
-    float_arrays.append(d.weights)
+    float_arrays.append(kept(d.weights))
     converted = _columns(float_arrays)
     weights = converted.pop()
-    for (name, key), values in zip(float_keys, converted, strict=True):
-        columns[name][key] = values
+    for (name, key), floats in zip(float_keys, converted, strict=True):
+        columns[name][key] = floats
+    # Sentences by (check, stacked row), then by position among the rows kept.
     messages: dict[tuple[str, int], str] = dict(d.notes)
-    verdicts: list[str] = []
     for g, a in enumerate(d.assessments):
+        if views[g] == "none":
+            continue
         index_of = {sid: g * size + i for i, sid in enumerate(a.ids)}
         for r in a.reasons:
             if r.series_id is not None:
                 messages[(r.check, index_of[r.series_id])] = r.message
-        verdicts += a.series_verdicts()
+    if keep is not None:
+        position = {int(row): k for k, row in enumerate(keep.tolist())}
+        messages = {
+            (name, position[i]): text for (name, i), text in messages.items() if i in position
+        }
+    all_codes = np.concatenate(codes) if codes else np.zeros(0, dtype=int)
+    verdicts = _STATUS[np.maximum(kept(all_codes), PASS)].tolist()
     for name in results.checks:
         col = columns[name]
         passed = pass_message(name)
@@ -690,36 +736,39 @@ def _results(d: _Decided) -> list[AssessmentResult]:
             for i, (status, skip) in enumerate(zip(col["status"], col["skip"], strict=True))
         ]
     sections = {
-        check.section.key: _section_columns(check.name, check.section.fields, columns, n)
+        check.section.key: _section_columns(check.name, check.section.fields, columns, m)
         for check in all_checks()
         if check.section is not None
     }
-    # One set of columns over the stacked rows; each part's table is a run of its rows.
+    # One set of columns over the stacked rows kept; each part's table is a run of its rows.
     columns_all = SeriesColumns(
-        id=results.batch.ids,
-        verdict=verdicts,
-        n_obs=results.residuals.n_obs.tolist(),
-        weight=weights,
-        sections=sections,
+        id=results.batch.ids
+        if keep is None
+        else tuple(results.batch.ids[i] for i in keep.tolist()),
+        verdict=tuple(verdicts),
+        n_obs=tuple(kept(results.residuals.n_obs).tolist()),
+        weight=tuple(weights),
+        sections={k: None if v is None else _tuples(v) for k, v in sections.items()},
         checks=tuple(
             CheckColumns(
                 name=name,
-                status=col["status"],
-                statistic=col["statistic"],
-                p_value=col["p_value"],
-                p_adjusted=col["p_adjusted"],
-                details={k: col[f"d:{k}"] for k in results[name].details},
-                message=col["message"],
+                status=tuple(col["status"]),
+                statistic=tuple(col["statistic"]),
+                p_value=tuple(col["p_value"]),
+                p_adjusted=tuple(col["p_adjusted"]),
+                details=_tuples({k: col[f"d:{k}"] for k in results[name].details}),
+                message=tuple(col["message"]),
             )
             for name, col in columns.items()
         ),
     )
     out = []
+    start = 0
     for g, a in enumerate(d.assessments):
-        part = SeriesTable(columns_all, g * size, (g + 1) * size)
-        part_verdicts = part.column("verdict")
-        n_failed = part_verdicts.count("fail")
-        n_warned = part_verdicts.count("warn")
+        part = SeriesTable(columns_all, start, start + counts[g])
+        start += counts[g]
+        n_failed = int((codes[g] == FAIL).sum())
+        n_warned = int((np.maximum(codes[g], PASS) == WARN).sum())
         out.append(
             AssessmentResult(
                 verdict=a.verdict,
@@ -737,6 +786,11 @@ def _results(d: _Decided) -> list[AssessmentResult]:
             )
         )
     return out
+
+
+def _tuples(columns: Mapping[str, list[Any]]) -> dict[str, tuple[Any, ...]]:
+    """Columns as the tuples the typed records hold."""
+    return {k: tuple(v) for k, v in columns.items()}
 
 
 def _section_columns(

@@ -28,6 +28,8 @@ def fleet_message(
     title = check.title
     if tested == 0:
         return f"{title}: no series could be tested."
+    if code < WARN and failed == 0 and warned == 0:
+        return f"{title}: none of the {tested} series tested fails or warns."
     head = (
         f"{title}: {failed} of {tested} series fail and {warned} warn "
         f"({failed_share:.1%} of the weight fails, {warned_share:.1%} warns)"
@@ -46,7 +48,23 @@ def fleet_message(
             else f", above the warn share of {warn_share:.1%}"
         )
         return f"{head}{why}; {check.meaning}."
-    return f"{head}; within the policy's shares."
+    return f"{head}, {WITHIN_SHARES}."
+
+
+WITHIN_SHARES = "within the policy's shares"
+_HEAD_END = " warns)"
+
+
+def fleet_message_rest(title: str, message: str) -> str:
+    """What :func:`fleet_message` says beyond the counts a table shows beside it: why the
+    check warns or fails (the share passed, a critical series) and what to do, or that the
+    counts are within the policy's shares; empty when no series fails or warns."""
+    text = message.removeprefix(f"{title}: ")
+    if text.startswith("none of the ") and text.endswith(" fails or warns."):
+        return ""
+    cut = text.find(_HEAD_END)
+    rest = text if cut < 0 else text[cut + len(_HEAD_END) :].lstrip(",; ")
+    return rest[:1].upper() + rest[1:]
 
 
 def untested_message(name: str, code: int, untested: int, size: int, share: float) -> str:

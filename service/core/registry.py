@@ -205,6 +205,10 @@ class FleetFinding:
     """The warn threshold (before the family's division): the owner's ``fleet_warn_p``, or
     what ``compute`` found in the policy instead."""
     code: int = PASS
+    warn_p_value: float | None = None
+    """The p-value the warn threshold is compared with, where it is another test's than
+    ``p_value``'s (the baseline comparison fails beyond a margin and warns at any loss);
+    ``None``: ``p_value``."""
 
 
 @dataclass(frozen=True)
@@ -305,6 +309,11 @@ class CheckDef:
     hint : callable, optional
         ``hint(result) -> {series: sentence}``: a note added to the reasons of every residual
         check of those series (the first residuals look like a model's burn-in).
+    applies : callable, optional
+        ``applies(batch) -> bool``: whether the check belongs to this batch at all (the
+        baseline comparison, only when a baseline was given). Where it is false the check does
+        not run and is left out of the result entirely: no summary, no series entry, no fleet
+        statistic, no place in the fleet's families. ``None``: every batch.
     """
 
     name: str
@@ -332,6 +341,7 @@ class CheckDef:
     material: MaterialFn | None = None
     pass_notes: NotesFn | None = None
     hint: Callable[[CheckResult], Mapping[int, str]] | None = None
+    applies: Callable[[SeriesBatch], bool] | None = None
     option_names: frozenset[str] = field(init=False, default=frozenset())
     runner_options: frozenset[str] = field(init=False, default=frozenset())
 
@@ -351,6 +361,10 @@ class CheckDef:
             allowed |= {"fleet_warn_p", "fleet_fail_p"}
         allowed |= set(self.thresholds)
         return frozenset(allowed)
+
+    def applies_to(self, batch: SeriesBatch) -> bool:
+        """Whether this check belongs to ``batch`` (see ``applies``)."""
+        return self.applies is None or bool(self.applies(batch))
 
     def reason(self, finding: Finding) -> str:
         """The full reason sentence: what was found, then what it means."""

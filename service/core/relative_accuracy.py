@@ -24,6 +24,21 @@ def _root_mean_square(x: FloatMatrix, ok: np.ndarray) -> tuple[FloatVector, IntV
         return np.where(count > 0, peak * np.sqrt((s * s).sum(axis=1) / count), np.nan), count
 
 
+def error_ratio(model_errors: FloatMatrix, other_errors: FloatMatrix, loss: str) -> FloatVector:
+    """Per row, the size of ``model_errors`` over that of ``other_errors`` on the steps where
+    both are observed: the ratio of RMSEs for ``loss="squared"``, of MAEs for ``"absolute"``
+    (``NaN`` or ``inf`` where undefined). Errors 3, -4 against 1, 1 give ``sqrt(12.5)``
+    (squared) and 3.5 (absolute)."""
+    both = ~(np.isnan(model_errors) | np.isnan(other_errors))
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        if loss == "squared":
+            size = _root_mean_square(model_errors, both)[0]
+            return size / _root_mean_square(other_errors, both)[0]
+        count = np.maximum(both.sum(axis=1), 1)
+        size = np.where(both, np.abs(model_errors), 0.0).sum(axis=1) / count
+        return size / (np.where(both, np.abs(other_errors), 0.0).sum(axis=1) / count)
+
+
 def rmsse_scale(actuals: FloatMatrix, season_length: int = 1) -> FloatVector:
     """In-sample root mean square of the (seasonal) naive forecast's errors,
     ``sqrt(mean_t (y_t - y_{t-m})^2)`` over the pairs with both values observed; ``NaN`` when

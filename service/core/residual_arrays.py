@@ -110,8 +110,9 @@ def packed_blocks(
         if len(edges) == 2:
             yield rows, block[:, : int(n[0])]
             continue
+        index = np.arange(rows.start, rows.stop) if isinstance(rows, slice) else rows
         for a, b in pairwise(edges):
-            yield rows[a:b], block[a:b, : int(n[a])]
+            yield index[a:b], block[a:b, : int(n[a])]
 
 
 def residual_blocks(

@@ -22,9 +22,13 @@ CheckKind = Literal["test", "metric"]
 """``test``: judged by its p-value. ``metric``: judged by its statistic against thresholds."""
 
 
-def _is_none(values: np.ndarray) -> np.ndarray:
+NONE = np.array(None, dtype=object)
+"""``None`` as a 0-d object array: the typed stand-in for ``None`` in ``np.where``/``np.equal``."""
+
+
+def is_none(values: np.ndarray) -> np.ndarray:
     """Element-wise ``is None`` over an object array, without a Python-level loop."""
-    return np.equal(values, None)
+    return np.equal(values, NONE)
 
 
 def to_python(value: Any) -> Any:
@@ -74,7 +78,7 @@ class CheckResult:
         n = statistic.shape[0]
         p_value = np.array(self.p_value, dtype=float)
         reasons = np.array(self.skip_reason, dtype=object).reshape(n)
-        ran = _is_none(reasons)
+        ran = is_none(reasons)
         # A NaN statistic (or a test's NaN p-value) with no reason is a bug in the check.
         missing = np.isnan(statistic)
         if self.kind == "test":
@@ -191,7 +195,7 @@ def skip_reasons_and_ran(
     masks = np.empty((len(conditions), n), dtype=bool)
     for k, (mask, _) in enumerate(conditions):
         masks[k] = mask
-    hit = masks.any(axis=0)
+    hit = np.logical_or.reduce(masks, axis=0)
     # One entry per condition, then None for the rows no condition holds for.
     table = np.array([reason for _, reason in conditions] + [None], dtype=object)
     return table[np.where(hit, masks.argmax(axis=0), len(conditions))], ~hit

@@ -60,7 +60,9 @@ def run_checks(
     *,
     only: tuple[str, ...] | None = None,
 ) -> BatchChecks:
-    """Run the checks named in ``only`` (default all, in catalogue order) over ``batch``.
+    """Run the checks named in ``only`` (default all, in catalogue order) over ``batch``; a
+    check that does not apply to the batch (``CheckDef.applies``: the baseline comparison
+    without a baseline) is left out.
 
     ``options`` maps a check name to keyword options of that check (``CHECK_OPTIONS``), such
     as ``{"ljung_box": {"lags": 12}, "tracking_signal": {"window": 8}}``; ``None`` values mean
@@ -79,5 +81,9 @@ def run_checks(
             raise InputError(f"options.{name}", f"takes no option {sorted(extra)[0]!r}")
         opts[name] = given
     inputs = CheckInputs(batch=batch, residuals=residuals_of(batch))
-    results = {c.name: c.run(inputs, **opts[c.name]) for c in all_checks() if c.name in opts}
+    results = {
+        c.name: c.run(inputs, **opts[c.name])
+        for c in all_checks()
+        if c.name in opts and c.applies_to(batch)
+    }
     return BatchChecks(batch=batch, residuals=inputs.residuals, checks=results)

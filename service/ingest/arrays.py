@@ -109,6 +109,8 @@ def _positions(mask: np.ndarray, lengths: np.ndarray) -> list[tuple[int, int]]:
 def padded_matrix(flat: np.ndarray, lengths: np.ndarray, width: int | None = None) -> np.ndarray:
     """Right-pad the rows of ``flat`` with NaN into an ``(n, width)`` matrix."""
     width = int(lengths.max(initial=0)) if width is None else width
+    if flat.size == lengths.shape[0] * width and bool((lengths == width).all()):
+        return flat.reshape(lengths.shape[0], width).copy()  # every row full: nothing to pad
     out = np.full((lengths.shape[0], width), np.nan)
     out[np.arange(width)[None, :] < lengths[:, None]] = flat
     return out

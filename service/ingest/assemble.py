@@ -8,6 +8,7 @@ with the request field it concerns, see :func:`core_error_loc`) and returns the
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
@@ -36,6 +37,8 @@ _CORE_LOCS = {
     "holdout_lower": "holdout.lower",
     "holdout_upper": "holdout.upper",
     "level": "holdout.level",
+    "burn_in": "burn_in",
+    "lengths": "actuals",
 }
 
 
@@ -47,18 +50,26 @@ def build_request(envelope: Envelope, cols: SeriesColumns) -> AssessmentRequest:
     width = int(a_len.max(initial=0))
     kwargs: dict[str, Any] = {}
     h_len = np.zeros(n, dtype=np.int64)
-    h_ts: list[list[str] | None] = [None] * n
+    h_ts: Sequence[list[str] | None] = [None] * n
     if cols.holdout is not None:
         h_len = cols.holdout.actuals.lengths
         h_ts = cols.holdout.timestamps
         kwargs = _holdout_matrices(cols.holdout)
+    given = list(cols.burn_in) if cols.burn_in is not None else [None] * n
+    burn_in = np.array(
+        [envelope.burn_in if b is None else b for b in given], dtype=np.int64
+    ).reshape(n)
+    fitted = padded_matrix(cols.fitted.values, a_len, width)
     batch = _make_batch(
         padded_matrix(cols.actuals.values, a_len, width),
-        padded_matrix(cols.fitted.values, a_len, width),
+        fitted,
         ids=cols.ids,
         weights=cols.weights,
         season_length=envelope.season_length,
         model_params=envelope.model_params,
+        # A series ends at its given length: a trailing missing actual is a gap.
+        lengths=a_len,
+        burn_in=burn_in,
         **kwargs,
     )
     return AssessmentRequest(
@@ -70,12 +81,22 @@ def build_request(envelope: Envelope, cols: SeriesColumns) -> AssessmentRequest:
         labels=envelope.labels,
         ids=tuple(cols.ids),
         batch=batch,
-        timestamps=tuple(cols.timestamps),
-        holdout_timestamps=tuple(h_ts),
+        timestamps=_kept(cols.timestamps),
+        holdout_timestamps=_kept(h_ts),
         train_lengths=a_len,
         holdout_lengths=h_len,
         weights_given=tuple(cols.weights),
+        baseline=envelope.baseline,
+        request_burn_in=envelope.burn_in,
+        burn_in=burn_in,
+        burn_in_given=tuple(given),
+        fitted_given=fitted if burn_in.any() else None,
     )
+
+
+def _kept(stamps: Sequence[list[str] | None]) -> Sequence[list[str] | None]:
+    """Lists become tuples; a sequence that makes its items on demand is kept as it is."""
+    return tuple(stamps) if isinstance(stamps, list) else stamps
 
 
 def _holdout_matrices(h: HoldoutColumns) -> dict[str, Any]:

@@ -13,15 +13,19 @@ from __future__ import annotations
 
 import csv
 import io
+import warnings
 from collections.abc import Iterator, Mapping
+from dataclasses import replace
 
 import numpy as np
 
 from .arrays import check_magnitude, check_timestamps
 from .assemble import build_request
+from .csv_dialect import detect_delimiter, header_summary
 from .csv_rows import Columns, ReadSeries, read_rows
-from .fields import read_int, read_name, read_policy
+from .fields import read_baseline_version, read_int, read_name, read_policy
 from .request import (
+    QUOTE_LIMIT,
     AssessmentRequest,
     Envelope,
     Errors,
@@ -29,15 +33,22 @@ from .request import (
     HoldoutColumns,
     RequestUnparseable,
     SeriesColumns,
+    quote,
 )
 from .shape import ENVELOPE, HOLDOUT, spec
 
 CSV_REQUIRED = ("series_id", "actual", "fitted")
 CSV_OPTIONAL = ("timestamp", "part", "lower", "upper")
-CSV_PARAMS = frozenset({"model", "version", "policy", "season_length", "model_params", "level"})
+CSV_PARAMS = frozenset(
+    {"model", "version", "policy", "season_length", "model_params", "level", "baseline", "burn_in"}
+)
+_KNOWN_COLUMNS = frozenset(CSV_REQUIRED + CSV_OPTIONAL)
+_UNKNOWN_SHOWN = 5
+"""Unknown columns named one by one; the rest are counted."""
 
 _SEASON_LENGTH = spec(ENVELOPE, "season_length")
 _MODEL_PARAMS = spec(ENVELOPE, "model_params")
+_BURN_IN = spec(ENVELOPE, "burn_in")
 _LEVEL = spec(HOLDOUT, "level")
 
 
@@ -53,15 +64,17 @@ def parse_csv_request(
     Columns ``series_id``, ``actual``, ``fitted`` (required), ``timestamp``, ``part`` (``train``
     by default, or ``holdout``; holdout rows carry the forecast in ``fitted``), ``lower``,
     ``upper``. ``params`` holds ``model``, ``version``, ``policy``, ``season_length``,
-    ``model_params`` and ``level`` (the query parameters). Rows of one series keep their order;
-    series keep the order of their first row. Empty cells are missing values. Errors name
-    ``line[N].column`` (line 1 is the header) or the series' field.
+    ``model_params``, ``level`` and ``baseline`` (the query parameters). Rows of one series
+    keep their order; series keep the order of their first row. Empty cells are missing
+    values. Errors name ``line[N].column`` (line 1 is the header) or the series' field.
     """
     params = dict(params or {})
     errs = Errors()
     check_params(params, errs)
-    reader = csv.reader(io.StringIO(_decode(text)), strict=True)
-    cols = read_header(reader, errs)
+    decoded = _decode(text)
+    delimiter = detect_delimiter(decoded, _KNOWN_COLUMNS)
+    reader = csv.reader(io.StringIO(decoded), delimiter=delimiter, strict=True)
+    cols = read_header(reader, errs, delimiter)
     level = read_level(params, errs)
     series = read_rows(reader, cols, errs)
     envelope = read_csv_envelope(params, errs)
@@ -93,31 +106,40 @@ def _decode(text: str | bytes) -> str:
     return text[1:] if text.startswith("\ufeff") else text
 
 
-def read_header(reader: Iterator[list[str]], errs: Errors) -> Columns:
-    """The header row; raises with every problem found so far when a column is missing,
-    unknown or repeated."""
+def read_header(reader: Iterator[list[str]], errs: Errors, delimiter: str = ",") -> Columns:
+    """The header row (names in any case); raises with every problem found so far when a
+    column is missing, unknown or repeated. Errors quote at most a short prefix of a cell."""
     try:
         header = next(reader)
     except StopIteration:
         raise RequestUnparseable([{"loc": "body", "message": "empty CSV: no header row"}]) from None
     except csv.Error as exc:
         raise RequestUnparseable([{"loc": "line[1]", "message": f"malformed CSV: {exc}"}]) from None
-    header = [h.strip() for h in header]
+    shown = [h.strip() for h in header]
+    header = [h.lower() for h in shown]
     col = {name: k for k, name in enumerate(header)}
-    for name in CSV_REQUIRED:
-        if name not in col:
-            errs.add(
-                f"header.{name}",
-                f"required column {name!r} is missing (columns: {', '.join(header)})",
-            )
-    for name in header:
-        if name not in CSV_REQUIRED and name not in CSV_OPTIONAL:
-            errs.add(
-                f"header.{name}",
-                f"unknown column; expected {', '.join(CSV_REQUIRED + CSV_OPTIONAL)}",
-            )
+    missing = [name for name in CSV_REQUIRED if name not in col]
+    if missing:
+        seen = header_summary(shown, delimiter)
+        for name in missing:
+            errs.add(f"header.{name}", f"required column {name!r} is missing ({seen})")
+            seen = "see above"
+    expected = ", ".join(CSV_REQUIRED + CSV_OPTIONAL)
+    unknown = [k for k, name in enumerate(header) if name not in _KNOWN_COLUMNS]
+    for k in unknown[:_UNKNOWN_SHOWN]:
+        errs.add(
+            f"header.{shown[k][:QUOTE_LIMIT]}",
+            f"unknown column {quote(shown[k])}; expected {expected} (in any case)",
+        )
+    if len(unknown) > _UNKNOWN_SHOWN:
+        errs.add("header", f"{len(unknown) - _UNKNOWN_SHOWN:,} more unknown columns")
     if len(col) != len(header):
-        errs.add("header", "a column name appears twice")
+        twice = sorted({n for n in header if header.count(n) > 1})
+        errs.add(
+            "header",
+            "a column name appears twice (names are read in any case): "
+            + ", ".join(quote(n) for n in twice[:5]),
+        )
     errs.check()
     return Columns(
         width=len(header),
@@ -157,6 +179,10 @@ def read_csv_envelope(params: Mapping[str, str], errs: Errors) -> Envelope:
         season_length=_param_int(params, "season_length", errs, _SEASON_LENGTH.default, 1),
         model_params=_param_int(params, "model_params", errs, _MODEL_PARAMS.default, 0),
         labels={},
+        baseline=None
+        if params.get("baseline") is None
+        else read_baseline_version(params["baseline"], "baseline.version", errs),
+        burn_in=_param_int(params, "burn_in", errs, _BURN_IN.default, 0),
     )
 
 
@@ -199,8 +225,85 @@ def check_series(rs: ReadSeries, errs: Errors, max_length: int | None) -> None:
             )
 
 
+def in_time_order(rs: ReadSeries, errs: Errors) -> ReadSeries:
+    """The rows of each series sorted by timestamp (train rows and holdout rows apart), when
+    the upload has a timestamp column whose every stamp parses; two rows of one series at the
+    same time are reported. Without timestamps (or with one that does not parse, which
+    :func:`~service.ingest.arrays.check_timestamps` reports) the file order stays."""
+    if rs.t_stamps is None:
+        return rs
+    train = _time_order(rs.t_stamps, rs.ids, "timestamps", errs)
+    hold = _time_order(rs.h_stamps or [], rs.ids, "holdout.timestamps", errs)
+    if train is None and hold is None:
+        return rs
+    changes: dict[str, object] = {}
+    if train is not None:
+        changes.update(
+            actual=rs.actual[train],
+            fitted=rs.fitted[train],
+            t_stamps=_reordered(rs.t_stamps, train),
+        )
+    if hold is not None and rs.h_stamps is not None:
+        changes.update(
+            h_actual=rs.h_actual[hold],
+            h_forecast=rs.h_forecast[hold],
+            lower=rs.lower[hold],
+            upper=rs.upper[hold],
+            h_stamps=_reordered(rs.h_stamps, hold),
+        )
+    return replace(rs, **changes)  # type: ignore[arg-type]
+
+
+def _time_order(
+    stamps: list[list[str]], ids: list[str], field: str, errs: Errors
+) -> np.ndarray | None:
+    """The permutation of the flat rows that sorts each series' rows by time (stable), or
+    ``None`` when they are in order already or a stamp does not parse."""
+    flat = [t for row in stamps for t in row]
+    if len(flat) < 2 or not all(flat):
+        return None
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            times = np.array(flat, dtype="datetime64[us]").astype(np.int64)
+    except (ValueError, OverflowError):
+        return None
+    lengths = np.fromiter(map(len, stamps), dtype=np.int64, count=len(stamps))
+    series = np.repeat(np.arange(len(stamps)), lengths)
+    order = np.lexsort((times, series))
+    sorted_times = times[order]
+    same = (np.diff(sorted_times) == 0) & (np.diff(series[order]) == 0)
+    reported: set[int] = set()
+    for pos in np.flatnonzero(same):
+        i = int(series[order][pos])
+        if i in reported:
+            continue
+        reported.add(i)
+        errs.add(
+            f"series[{i}].{field}",
+            f"series {quote(ids[i])} has two rows at {quote(flat[int(order[pos])])}: one row "
+            "per series and period",
+        )
+    if (order == np.arange(order.size)).all():
+        return None
+    return order
+
+
+def _reordered(stamps: list[list[str]], order: np.ndarray) -> list[list[str]]:
+    flat = [t for row in stamps for t in row]
+    moved = [flat[k] for k in order.tolist()]
+    out, start = [], 0
+    for row in stamps:
+        out.append(moved[start : start + len(row)])
+        start += len(row)
+    return out
+
+
 def csv_columns(rs: ReadSeries, level: float | None, errs: Errors) -> SeriesColumns:
-    """Every series' numbers as flat arrays, checked at once; raises with every problem."""
+    """Every series' numbers as flat arrays, checked at once; raises with every problem.
+    Each series' rows are first put in time order (:func:`in_time_order`)."""
+    rs = in_time_order(rs, errs)
+    errs.check()
     n = len(rs.ids)
     actuals = FlatRows(rs.actual, rs.t_lengths)
     fitted = FlatRows(rs.fitted, rs.t_lengths)

@@ -19,7 +19,7 @@ from itertools import chain, islice
 
 import numpy as np
 
-from .request import MAX_NAME_LENGTH, Errors, RequestUnparseable
+from .request import MAX_NAME_LENGTH, Errors, RequestUnparseable, quote
 
 CHUNK_ROWS = 20_000
 """Rows taken at a time by the array path."""
@@ -329,11 +329,14 @@ def _read_row(
         return True
     sid = row[cols.series_id].strip()
     if not sid:
-        errs.add(f"line[{line}].series_id", "must not be empty")
+        errs.add(
+            f"line[{line}].series_id",
+            f"must be a non-empty string, got an empty string at data row {line - 1}",
+        )
         return False
     part = row[cols.part].strip() if cols.part is not None else ""
     if part not in _PARTS:
-        errs.add(f"line[{line}].part", f"must be train or holdout, got {part[:40]!r}")
+        errs.add(f"line[{line}].part", f"must be train or holdout, got {quote(part)}")
         return False
     g = groups.get(sid)
     if g is None:
@@ -370,8 +373,18 @@ def _row_numbers(row: list[str], line: int, cols: Columns, errs: Errors) -> list
         if value - value == 0.0:  # finite (NaN and infinities give NaN)
             out[slot] = value
         else:
-            errs.add(f"line[{line}].{name}", f"must be a finite number or empty, got {cell[:40]!r}")
+            errs.add(f"line[{line}].{name}", f"must be a finite number or empty, got {_cell(cell)}")
     return out
+
+
+def _cell(cell: str) -> str:
+    """A refused number cell as an error quotes it, with a hint for a decimal comma."""
+    shown = quote(cell)
+    try:
+        float(cell.replace(",", ".", 1))
+    except ValueError:
+        return shown
+    return f"{shown} (a decimal comma? write numbers with a point, e.g. 12.5)"
 
 
 def _from_groups(groups: dict[str, Group], *, with_stamps: bool) -> ReadSeries:

@@ -9,7 +9,8 @@ from __future__ import annotations
 from collections.abc import Mapping
 from typing import Any
 
-from .request import MAX_NAME_LENGTH, NUL_MESSAGE, Errors, describe
+from .request import MAX_NAME_LENGTH, NUL_MESSAGE, QUOTE_LIMIT, Errors, describe
+from .shape import BASELINE_FIELDS
 
 
 def read_name(doc: Mapping[str, Any], key: str, errs: Errors, *, required: bool) -> str:
@@ -69,11 +70,46 @@ def read_labels(value: Any, errs: Errors) -> dict[str, str]:
     out: dict[str, str] = {}
     for key, item in value.items():
         if "\x00" in key or (isinstance(item, str) and "\x00" in item):
-            errs.add(f"labels.{key}", NUL_MESSAGE)
+            errs.add(f"labels.{key[:QUOTE_LIMIT]}", NUL_MESSAGE)
         elif isinstance(item, str):
             out[key] = item
         elif isinstance(item, (int, float)) and not isinstance(item, bool):
             out[key] = str(item)
         else:
-            errs.add(f"labels.{key}", f"must be a string, got {describe(item)}")
+            errs.add(f"labels.{key[:QUOTE_LIMIT]}", f"must be a string, got {describe(item)}")
     return out
+
+
+def read_baseline(value: Any, errs: Errors) -> str | None:
+    """The ``baseline`` object's ``version`` (a stored version, or ``latest-pass``), or
+    ``None`` when no baseline is asked for."""
+    if value is None:
+        return None
+    if not isinstance(value, dict):
+        errs.add(
+            "baseline",
+            f'must be an object such as {{"version": "latest-pass"}}, got {describe(value)}',
+        )
+        return None
+    for key in value:
+        if key not in BASELINE_FIELDS:
+            errs.add(f"baseline.{key}", f"unknown field; expected one of {sorted(BASELINE_FIELDS)}")
+    if "version" not in value:
+        errs.add("baseline.version", "is required: a stored version of the model or latest-pass")
+        return None
+    return read_baseline_version(value["version"], "baseline.version", errs)
+
+
+def read_baseline_version(value: Any, loc: str, errs: Errors) -> str | None:
+    """A baseline version as sent (JSON ``baseline.version`` or the CSV ``baseline``
+    parameter): a non-empty name of at most ``MAX_NAME_LENGTH`` characters."""
+    if not isinstance(value, str) or not value.strip():
+        errs.add(loc, f"must be a non-empty string, got {describe(value)}")
+        return None
+    if len(value) > MAX_NAME_LENGTH:
+        errs.add(loc, f"must be at most {MAX_NAME_LENGTH} characters")
+        return None
+    if "\x00" in value:
+        errs.add(loc, NUL_MESSAGE)
+        return None
+    return value

@@ -21,10 +21,11 @@ import orjson
 
 from .arrays import check_timestamps, flat_numbers
 from .assemble import build_request
-from .fields import read_int, read_labels, read_name, read_policy
+from .fields import read_baseline, read_int, read_labels, read_name, read_policy
 from .request import (
     MAX_ABS_VALUE,
     MAX_NAME_LENGTH,
+    QUOTE_LIMIT,
     AssessmentRequest,
     Envelope,
     Errors,
@@ -39,6 +40,7 @@ from .shape import ENVELOPE, HOLDOUT, HOLDOUT_FIELDS, SERIES_FIELDS, TOP_LEVEL_F
 
 _SEASON_LENGTH = spec(ENVELOPE, "season_length")
 _MODEL_PARAMS = spec(ENVELOPE, "model_params")
+_BURN_IN = spec(ENVELOPE, "burn_in")
 _LEVEL = spec(HOLDOUT, "level")
 _HOLDOUT_ARRAYS = tuple(f.name for f in HOLDOUT if f.kind == "numbers")
 _EMPTY: list[Any] = []
@@ -179,6 +181,14 @@ def read_envelope(doc: Mapping[str, Any], errs: Errors) -> Envelope:
             minimum=int(_MODEL_PARAMS.minimum or 0),
         ),
         labels=read_labels(doc.get("labels"), errs),
+        baseline=read_baseline(doc.get("baseline"), errs),
+        burn_in=read_int(
+            doc.get("burn_in"),
+            "burn_in",
+            errs,
+            default=_BURN_IN.default,
+            minimum=int(_BURN_IN.minimum or 0),
+        ),
     )
 
 
@@ -205,7 +215,8 @@ def _unknown_fields(at: str, doc: Mapping[Any, Any], known: frozenset[str], errs
     for key in doc:
         if key not in known:
             errs.add(
-                f"{at}.{key}" if at else str(key), f"unknown field; expected one of {expected}"
+                f"{at}.{str(key)[:QUOTE_LIMIT]}" if at else str(key)[:QUOTE_LIMIT],
+                f"unknown field; expected one of {expected}",
             )
 
 
@@ -219,6 +230,7 @@ class SeriesRows:
         self.fitted: list[list[Any]] = []
         self.timestamps: list[Any] = []
         self.weights: list[float | None] = []
+        self.burn_in: list[int | None] = []
         self.holdout: dict[str, list[list[Any]]] = {k: [] for k in _HOLDOUT_ARRAYS}
         self.holdout_timestamps: list[Any] = []
         self.levels: list[float | None] = []
@@ -261,6 +273,10 @@ def read_series(
     rows.timestamps.append(None if ts is None else _train_timestamps(at, ts, len(a), errs))
     w = s.get("weight")
     rows.weights.append(None if w is None else _weight(at, w, errs))
+    b = s.get("burn_in")
+    rows.burn_in.append(
+        None if b is None else read_int(b, f"{at}.burn_in", errs, default=0, minimum=0)
+    )
     h = s.get("holdout")
     if h is None:
         rows.add_holdout(i, {}, None, None)
@@ -287,14 +303,14 @@ def _train_values(
     at: str, s: Mapping[str, Any], errs: Errors, max_length: int | None
 ) -> tuple[list[Any], list[Any]]:
     """``actuals`` and ``fitted`` (empty where not an array): present, of one length."""
-    a, f = s.get("actuals"), s.get("fitted")
-    a_given, f_given = isinstance(a, list), isinstance(f, list)
+    a_raw, f_raw = s.get("actuals"), s.get("fitted")
+    a_given, f_given = isinstance(a_raw, list), isinstance(f_raw, list)
     if not a_given:
-        errs.add(f"{at}.actuals", _not_an_array(a))
+        errs.add(f"{at}.actuals", _not_an_array(a_raw))
     if not f_given:
-        errs.add(f"{at}.fitted", _not_an_array(f))
-    a = a if a_given else _EMPTY
-    f = f if f_given else _EMPTY
+        errs.add(f"{at}.fitted", _not_an_array(f_raw))
+    a: list[Any] = a_raw if isinstance(a_raw, list) else _EMPTY
+    f: list[Any] = f_raw if isinstance(f_raw, list) else _EMPTY
     if a_given and not a:
         errs.add(f"{at}.actuals", "must hold at least one value")
     if f_given and len(f) != len(a):
@@ -417,6 +433,7 @@ def json_columns(rows: SeriesRows, errs: Errors) -> SeriesColumns:
         timestamps=rows.timestamps,
         weights=rows.weights,
         holdout=holdout,
+        burn_in=rows.burn_in,
     )
 
 

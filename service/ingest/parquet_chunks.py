@@ -23,7 +23,7 @@ batches (``pyarrow.parquet.ParquetFile.iter_batches``) twice:
 The chunks' rows are the rows the CSV upload of the same data gives the core, so
 :func:`service.core.chunked.assess_chunks` over them equals the one-shot assessment of that
 upload. Memory held: the ids, two counts per series, and one chunk's and one record batch's
-rows. pyarrow is imported when a file is opened (the ``parquet`` extra).
+rows. pyarrow is imported when a file is opened.
 """
 
 from __future__ import annotations
@@ -209,9 +209,14 @@ class ParquetChunks:
             if not pa.types.is_integer(sid.type):
                 sid = pc.utf8_trim_whitespace(sid.cast(pa.string()))
             sid = sid.cast(pa.string())
+            null_id = np.asarray(sid.is_null())
             empty = np.asarray(pc.fill_null(pc.equal(sid, ""), True))
-            for r in rows[empty][:8]:
-                errs.add(f"row[{r}].series_id", "must not be empty")
+            for k in np.flatnonzero(empty)[:8].tolist():
+                got = "null" if null_id[k] else "an empty string"
+                errs.add(
+                    f"row[{rows[k]}].series_id",
+                    f"must be a non-empty string, got {got} at data row {rows[k]}",
+                )
             first_id = sid[0].as_py() if n else None
             part = _part(cols.get("part"), n)
             bad_part = part < 0

@@ -58,10 +58,15 @@ class AssessmentRequest:
     """A parsed, validated assessment request.
 
     ``policy`` is a stored policy's name or an inline policy document (a dict, validated by the
-    gate). ``timestamps`` and ``holdout_timestamps`` hold one list of ISO 8601 strings per series
-    (``None`` where a series has none). ``train_lengths`` / ``holdout_lengths`` are the lengths
-    of the arrays as sent and ``weights_given`` the weights as sent (``None``: the default), so
-    stored inputs can be given back exactly.
+    gate); ``baseline`` the version its holdout is to be compared with (the service resolves
+    it against the store). ``timestamps`` and ``holdout_timestamps`` hold one list of ISO 8601
+    strings per series (``None`` where a series has none; a columnar upload's make each
+    series' list when it is asked for). ``train_lengths`` /
+    ``holdout_lengths`` are the lengths of the arrays as sent and ``weights_given`` the weights
+    as sent (``None``: the default), so stored inputs can be given back exactly. ``burn_in`` is
+    each series' burn-in as applied (its own, else the request's ``request_burn_in``),
+    ``burn_in_given`` the per-series values
+    as sent; ``fitted_given`` the fitted values as sent (the batch's hold NaN over a burn-in).
     """
 
     model: str
@@ -72,15 +77,30 @@ class AssessmentRequest:
     labels: dict[str, str]
     ids: tuple[str, ...]
     batch: SeriesBatch
-    timestamps: tuple[list[str] | None, ...]
-    holdout_timestamps: tuple[list[str] | None, ...]
+    timestamps: Sequence[list[str] | None]
+    holdout_timestamps: Sequence[list[str] | None]
     train_lengths: np.ndarray
     holdout_lengths: np.ndarray
     weights_given: tuple[float | None, ...]
+    baseline: str | None = None
+    """The ``baseline.version`` asked for (a stored version or ``latest-pass``), or ``None``."""
+    request_burn_in: int = 0
+    burn_in: np.ndarray | None = None
+    burn_in_given: tuple[int | None, ...] = ()
+    fitted_given: np.ndarray | None = None
 
     @property
     def n_series(self) -> int:
         return len(self.ids)
+
+    def burn_in_of(self, i: int) -> int:
+        """Series ``i``'s burn-in as applied."""
+        return 0 if self.burn_in is None else int(self.burn_in[i])
+
+    def fitted_sent(self, i: int) -> np.ndarray:
+        """Series ``i``'s fitted values as sent (its training length)."""
+        source = self.batch.fitted if self.fitted_given is None else self.fitted_given
+        return source[i, : int(self.train_lengths[i])]
 
 
 @dataclass(frozen=True)
@@ -93,6 +113,8 @@ class Envelope:
     season_length: int
     model_params: int
     labels: dict[str, str]
+    baseline: str | None = None
+    burn_in: int = 0
 
 
 @dataclass(frozen=True, eq=False)
@@ -115,7 +137,7 @@ class HoldoutColumns:
     lower: FlatRows | None
     upper: FlatRows | None
     levels: list[float | None]
-    timestamps: list[list[str] | None]
+    timestamps: Sequence[list[str] | None]
 
 
 @dataclass(frozen=True, eq=False)
@@ -126,9 +148,11 @@ class SeriesColumns:
     ids: list[str]
     actuals: FlatRows
     fitted: FlatRows
-    timestamps: list[list[str] | None]
+    timestamps: Sequence[list[str] | None]
     weights: list[float | None]
     holdout: HoldoutColumns | None
+    burn_in: list[int | None] | None = None
+    """Each series' own burn-in as sent (``None``: the request's)."""
 
 
 class Errors:
@@ -164,6 +188,18 @@ class NonFinite:
         return f"the number {self.text[:40]} overflows a 64-bit float"
 
 
+QUOTE_LIMIT = 40
+"""Most characters of a piece of input an error message quotes."""
+
+
+def quote(text: str, limit: int = QUOTE_LIMIT) -> str:
+    """``text`` as an error quotes it: its repr, cut to ``limit`` characters with the full
+    length said, so an error never copies a whole input back."""
+    if len(text) <= limit:
+        return repr(text)
+    return f"{text[:limit]!r}... ({len(text):,} characters)"
+
+
 def describe(value: Any) -> str:
     if isinstance(value, NonFinite):
         return value.describe()
@@ -172,7 +208,9 @@ def describe(value: Any) -> str:
     if isinstance(value, bool):
         return "a boolean"
     if isinstance(value, str):
-        return "a string"
+        if not value:
+            return "an empty string"
+        return "a string of blanks only" if not value.strip() else "a string"
     if isinstance(value, (list, tuple)):
         return "an array"
     if isinstance(value, dict):

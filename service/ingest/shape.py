@@ -12,6 +12,7 @@ The JSON parser names unknown fields from these tables, the OpenAPI request mode
 ``strings`` an array of strings (ISO 8601 timestamps)
 ``policy``  a stored policy's name or an inline policy document
 ``labels``  an object of string values
+``baseline`` the version to compare against: ``{"version": "..."}``
 ``series``  the array of series objects
 ``holdout`` the holdout object of one series
 =========== ==========================================================
@@ -26,7 +27,16 @@ from dataclasses import dataclass
 from typing import Any, Literal
 
 Kind = Literal[
-    "text", "integer", "number", "numbers", "strings", "policy", "labels", "series", "holdout"
+    "text",
+    "integer",
+    "number",
+    "numbers",
+    "strings",
+    "policy",
+    "labels",
+    "baseline",
+    "series",
+    "holdout",
 ]
 
 
@@ -70,7 +80,24 @@ ENVELOPE: tuple[FieldSpec, ...] = (
         minimum=0,
         description="Parameters the model estimated.",
     ),
+    FieldSpec(
+        "burn_in",
+        "integer",
+        default=0,
+        minimum=0,
+        description="Periods dropped at the start of every series before any check (a model's "
+        "start-up values, e.g. an ARIMA's first d + mD fitted values): their fitted values "
+        "count as missing, their actuals stay training data. Default 0.",
+    ),
     FieldSpec("labels", "labels"),
+    FieldSpec(
+        "baseline",
+        "baseline",
+        description="Compare the holdout with a stored version of the same model: "
+        '{"version": "2026.11.02"}, or {"version": "latest-pass"} for the newest other '
+        "version whose latest verdict passed.",
+        example={"version": "latest-pass"},
+    ),
     FieldSpec("series", "series", required=True),
 )
 """The body of ``POST /v1/assessments`` as JSON."""
@@ -92,6 +119,12 @@ SERIES: tuple[FieldSpec, ...] = (
     ),
     FieldSpec("timestamps", "strings", description="ISO 8601, strictly increasing."),
     FieldSpec("weight", "number", minimum=0, description="Default: sum of |actuals|."),
+    FieldSpec(
+        "burn_in",
+        "integer",
+        minimum=0,
+        description="This series' own burn-in, instead of the request's.",
+    ),
     FieldSpec("holdout", "holdout"),
 )
 """One object of ``series``."""
@@ -120,3 +153,7 @@ def spec(fields: tuple[FieldSpec, ...], name: str) -> FieldSpec:
 TOP_LEVEL_FIELDS = frozenset(f.name for f in ENVELOPE)
 SERIES_FIELDS = frozenset(f.name for f in SERIES)
 HOLDOUT_FIELDS = frozenset(f.name for f in HOLDOUT)
+BASELINE_FIELDS = frozenset({"version"})
+"""The fields of the ``baseline`` object."""
+LATEST_PASS = "latest-pass"
+"""The ``baseline.version`` that names the newest other version whose latest verdict passed."""

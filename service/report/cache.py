@@ -14,7 +14,8 @@ from collections.abc import Callable, Hashable
 from .charts import Chart
 
 DEFAULT_SIZE = 64
-"""Series kept (about 5 charts of some 30-100 kB each)."""
+"""Entries kept: a series (about 5 charts of some 30-100 kB each) or a fleet page (3 charts,
+at most a few hundred kB together)."""
 
 
 class ChartCache:

@@ -15,7 +15,7 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
 from html import escape
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 
@@ -25,6 +25,10 @@ from .style import CHART_RC, FIGURE_SIZE, GRID, ROLE_COLOURS, WIDE_FIGURE_SIZE
 CHART_NAMES = ("residuals", "acf", "histogram", "fitted", "holdout")
 WIDE_CHARTS = frozenset({"holdout"})
 MAX_BINS = 40
+MARKERS_UP_TO = 150
+"""The residual chart marks each period up to this many residuals; beyond, a thin line."""
+SHADE_ALPHA = 0.22
+"""Opacity of the shaded spans (the tracking-signal window, the tested lags)."""
 
 # rcParams are process-wide: one chart at a time keeps concurrent requests from mixing styles.
 _RENDER_LOCK = threading.Lock()
@@ -45,14 +49,16 @@ class Chart:
 
 
 @contextmanager
-def _figure(salt: str, size: tuple[float, float]) -> Iterator[Any]:
+def _figure(
+    salt: str, size: tuple[float, float], layout: Literal["constrained"] | None = "constrained"
+) -> Iterator[Any]:
     import matplotlib
     from matplotlib.backends.backend_svg import FigureCanvasSVG
     from matplotlib.figure import Figure
 
     rc: dict[Any, Any] = {**CHART_RC, "svg.hashsalt": salt}
     with _RENDER_LOCK, matplotlib.rc_context(rc):
-        fig = Figure(figsize=size, layout="constrained")
+        fig = Figure(figsize=size, layout=layout)
         FigureCanvasSVG(fig)
         yield fig
 
@@ -102,6 +108,14 @@ def _zero_line(ax: Any) -> None:
     ax.axhline(0.0, color=ROLE_COLOURS["reference"], linewidth=1.0, zorder=1)
 
 
+def isolated(values: np.ndarray) -> np.ndarray:
+    """The observed values with no observed neighbour: a line through them draws nothing."""
+    ok = ~np.isnan(values)
+    before = np.concatenate(([False], ok[:-1]))
+    after = np.concatenate((ok[1:], [False]))
+    return ok & ~before & ~after
+
+
 def _residuals(ax: Any, d: SeriesDiagnostics) -> None:
     ok = ~np.isnan(d.residuals)
     if not ok.any():
@@ -114,13 +128,31 @@ def _residuals(ax: Any, d: SeriesDiagnostics) -> None:
             x[last[0]],
             x[last[-1]],
             color=ROLE_COLOURS["highlight"],
-            alpha=0.10,
+            alpha=SHADE_ALPHA,
             linewidth=0,
             label=f"last {len(last)} residuals (tracking-signal window)",
         )
+        ax.axvline(x[last[0]], color=ROLE_COLOURS["highlight"], linewidth=1.0, zorder=1)
     _zero_line(ax)
-    ax.plot(
-        x, d.residuals, color=ROLE_COLOURS["residual"], marker="o", markersize=2.4, label="residual"
+    residual = ROLE_COLOURS["residual"]
+    n = int(ok.sum())
+    if n <= MARKERS_UP_TO:
+        ax.plot(x, d.residuals, color=residual, marker="o", markersize=2.4, label="residual")
+    else:
+        # Many periods: a thin line (markers would merge into a band); a lone value between
+        # gaps still gets its dot.
+        width = 1.0 if n <= 400 else 0.7
+        ax.plot(x, d.residuals, color=residual, linewidth=width, label="residual")
+        alone = isolated(d.residuals)
+        if alone.any():
+            ax.plot(x[alone], d.residuals[alone], "o", color=residual, markersize=2.0)
+    ax.axhline(
+        d.mean,
+        color=ROLE_COLOURS["fit"],
+        linestyle="--",
+        linewidth=1.6,
+        zorder=3,
+        label=f"mean residual {d.mean:+.3g}",
     )
     ax.set_xlabel(d.axis.label)
     ax.set_ylabel("Residual (actual − fitted)\n[series units]")
@@ -138,7 +170,7 @@ def _acf(ax: Any, d: SeriesDiagnostics) -> None:
             0.5,
             d.ljung_box_lags + 0.5,
             color=ROLE_COLOURS["highlight"],
-            alpha=0.10,
+            alpha=SHADE_ALPHA,
             linewidth=0,
             label=f"lags 1–{d.ljung_box_lags} tested for autocorrelation",
         )
@@ -172,6 +204,9 @@ def _acf(ax: Any, d: SeriesDiagnostics) -> None:
             markersize=4.5,
             label="outside the bounds",
         )
+    from matplotlib.ticker import MaxNLocator
+
+    ax.xaxis.set_major_locator(MaxNLocator(integer=True))
     ax.set_xlim(0.3, d.acf.size + 0.7)
     top = max(float(np.nanmax(np.abs(d.acf))), b) * 1.25
     ax.set_ylim(-top, top)
@@ -275,6 +310,18 @@ def _holdout(ax: Any, d: SeriesDiagnostics) -> None:
         markersize=3.0,
         label="model forecast",
     )
+    if h.baseline_forecasts is not None:
+        ax.plot(
+            x_hold,
+            h.baseline_forecasts[: x_hold.size],
+            color=ROLE_COLOURS["highlight"],
+            marker="^",
+            markersize=3.0,
+            linestyle="-.",
+            linewidth=1.4,
+            label="baseline forecast"
+            + ("" if not h.baseline_label else f": version {h.baseline_label}"),
+        )
     if h.benchmark is not None and h.benchmark_forecasts is not None:
         ax.plot(
             x_hold,
@@ -299,8 +346,14 @@ _SPECS: dict[str, tuple[str, _Draw, _Caption]] = {
         "Residuals over time",
         _residuals,
         lambda d: (
-            "Actual minus fitted value per period, with the zero line. Runs on one side "
-            "of zero point to bias; a spread that changes over time points to unstable variance."
+            "Actual minus fitted value per period, with the zero line and the mean residual "
+            "(dashed). Runs on one side of zero point to bias; a spread that changes over time "
+            "points to unstable variance"
+            + (
+                f"; shaded: the last {d.tracking_window} residuals, the tracking signal's window."
+                if d.tracking_window
+                else "."
+            )
         ),
     ),
     "acf": (
@@ -341,7 +394,12 @@ _SPECS: dict[str, tuple[str, _Draw, _Caption]] = {
         lambda d: (
             "The out-of-sample period after the dotted line: actuals, the model's "
             "forecasts, its prediction interval and the forecast of the best simple benchmark "
-            "fitted to the same training actuals."
+            "fitted to the same training actuals"
+            + (
+                "; dash-dot: the baseline version's forecasts on the matched periods."
+                if d.holdout is not None and d.holdout.baseline_forecasts is not None
+                else "."
+            )
         ),
     ),
 }

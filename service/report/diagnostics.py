@@ -55,6 +55,8 @@ class HoldoutView:
     benchmark: str | None
     benchmark_forecasts: FloatVector | None
     context_start: int
+    baseline_forecasts: FloatVector | None = None
+    baseline_label: str | None = None
     """Index of the first training period drawn before the holdout."""
 
 
@@ -171,6 +173,8 @@ def series_diagnostics(
             holdout_lower=_one_row(inputs.holdout_lower) if inputs.has_interval else None,
             holdout_upper=_one_row(inputs.holdout_upper) if inputs.has_interval else None,
             level=inputs.level if inputs.has_interval else None,
+            lengths=[inputs.actuals.size],
+            burn_in=int(inputs.burn_in),
         )
     except InputError as exc:
         raise ReportInputError(exc.argument, exc.message) from exc
@@ -215,6 +219,8 @@ def series_diagnostics(
             benchmark=None if bench is None else str(best),
             benchmark_forecasts=None if bench is None else bench[0],
             context_start=max(int(batch.lengths[0]) - span, 0),
+            baseline_forecasts=inputs.baseline_forecasts,
+            baseline_label=inputs.baseline_label,
         )
     return SeriesDiagnostics(
         series_id=inputs.series_id,

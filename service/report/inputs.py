@@ -39,7 +39,8 @@ class SeriesInputs:
 
     ``timestamps`` label the training periods (ISO dates draw a date axis; anything else falls
     back to period numbers); ``holdout_timestamps`` the holdout steps, which otherwise follow
-    the last training period at its usual spacing.
+    the last training period at its usual spacing. ``burn_in`` periods at the start were left
+    out of the checks, and are left out of the residual charts the same way.
     """
 
     series_id: str
@@ -52,6 +53,13 @@ class SeriesInputs:
     holdout_upper: FloatVector | None = None
     level: float | None = None
     holdout_timestamps: tuple[str, ...] | None = None
+    baseline_forecasts: FloatVector | None = None
+    """The baseline version's forecasts on this holdout's periods (``NaN`` where it has
+    none), when the assessment was compared with one."""
+    baseline_label: str | None = None
+    """The baseline's version."""
+    burn_in: int = 0
+    """Periods dropped at the start before any check (their fitted values count as missing)."""
 
     @property
     def has_holdout(self) -> bool:
@@ -69,7 +77,8 @@ class SeriesInputs:
     @classmethod
     def from_mapping(cls, data: Mapping[str, Any]) -> SeriesInputs:
         """Build from the request body's shape of one series (``id``, ``actuals``, ``fitted``,
-        ``timestamps``, ``holdout: {actuals, forecasts, lower, upper, level, timestamps}``), as
+        ``timestamps``, ``burn_in``, ``holdout: {actuals, forecasts, lower, upper, level,
+        timestamps}``), as
         ``service.ingest.shape`` defines it (a test checks the two agree)."""
         if not isinstance(data, Mapping):
             raise ReportInputError("series", "must be an object")
@@ -92,6 +101,9 @@ class SeriesInputs:
                 raise ReportInputError(
                     "timestamps", f"has {len(stamps)} values, actuals has {actuals.size}"
                 )
+        burn_in = data.get("burn_in") or 0
+        if isinstance(burn_in, bool) or not isinstance(burn_in, int) or burn_in < 0:
+            raise ReportInputError("burn_in", "must be an integer >= 0")
         hold = data.get("holdout") or None
         ha = hf = lo = up = None
         level = None
@@ -130,4 +142,5 @@ class SeriesInputs:
             holdout_upper=up,
             level=level,
             holdout_timestamps=hold_stamps,
+            burn_in=burn_in,
         )

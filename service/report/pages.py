@@ -18,6 +18,7 @@ from typing import Any
 
 from service import __version__
 from service.core import CATALOGUE
+from service.core.messages import fleet_message_rest
 from service.results import (
     AssessmentDocument,
     CheckSummary,
@@ -28,6 +29,7 @@ from service.results import (
     SeriesTable,
 )
 
+from .baseline import section as baseline_section
 from .charts import Chart
 from .style import PAGE_CSS
 
@@ -148,6 +150,27 @@ def _message(check: Any, message: Any) -> str:
     return _e(text)
 
 
+def _fleet_reason(check: Any, message: Any) -> str:
+    """A fleet-level reason's message after "<Title>, across the fleet:": without the title
+    and without a leading "Across the fleet" of its own, so neither is said twice."""
+    text = "" if message is None else str(message)
+    for prefix in (f"{check}: ", f"{_title(check)}: "):
+        if check and text.startswith(prefix):
+            text = text[len(prefix) :]
+            break
+    if text.lower().startswith(_ACROSS):
+        text = text[len(_ACROSS) :].lstrip(" ,")
+    return _e(text)
+
+
+_ACROSS = "across the fleet"
+
+
+def _check_summary(c: CheckSummary) -> str:
+    """The per-check table's last cell: what the message adds to the counts beside it."""
+    return _e(fleet_message_rest(_title(c.name), str(c.message or ""))) or "—"
+
+
 def _check_cell(check: Any) -> str:
     return (
         f'<span class="check-title">{_e(_title(check))}</span>'
@@ -256,15 +279,15 @@ def _reasons(reasons: Sequence[Reason], series_href: SeriesHref) -> str:
 
     def item(r: Reason) -> str:
         sid = r.series_id
-        where = (
-            f'<a href="{_e(series_href(str(sid)))}">{_e(sid)}</a>'
-            if sid is not None
-            else "across the fleet"
-        )
+        if sid is None:
+            where, text = _ACROSS, _fleet_reason(r.check, r.message)
+        else:
+            where = f'<a href="{_e(series_href(str(sid)))}">{_e(sid)}</a>'
+            text = _message(r.check, r.message)
         return (
             f'<li data-status="{_e(r.status)}" data-check="{_e(r.check)}">'
             f"{_status(r.status)} <strong>{_e(_title(r.check))}</strong>, "
-            f"{where}: {_message(r.check, r.message)}</li>"
+            f"{where}: {text}</li>"
         )
 
     shown = "".join(item(r) for r in reasons[:REASONS_SHOWN])
@@ -292,7 +315,7 @@ def _checks_table(checks: Sequence[CheckSummary]) -> str:
         f'<td class="num">{_num(c.series_warned)}</td>'
         f'<td class="num">{_num(c.series_skipped)}</td>'
         f'<td class="num">{_share(c.failed_share)}</td>'
-        f"<td>{_message(c.name, c.message)}</td></tr>"
+        f"<td>{_check_summary(c)}</td></tr>"
         for c in checks
     )
     return (
@@ -380,10 +403,25 @@ def _series_table(series: SeriesTable, series_href: SeriesHref) -> str:
     )
 
 
-def render_report(assessment: AssessmentDocument, *, series_href: SeriesHref) -> str:
-    """The fleet report: verdict, reasons, per-check table, fleet bias and the series list
-    (worst first, sortable, each linking to ``series_href(series_id)``). No charts: those are
-    drawn per series, on the series page, so a fleet of any size stays one light page."""
+def _figures(charts: Sequence[Chart]) -> str:
+    return "".join(
+        f'<figure class="chart{" wide" if c.wide else ""}" id="chart-{_e(c.name)}" '
+        f'data-chart="{_e(c.name)}">{c.svg}'
+        f"<figcaption>{_e(c.caption)}</figcaption></figure>"
+        for c in charts
+    )
+
+
+def render_report(
+    assessment: AssessmentDocument,
+    *,
+    series_href: SeriesHref,
+    fleet_charts: Sequence[Chart] = (),
+) -> str:
+    """The fleet report: verdict, reasons, per-check table, the fleet's charts (when given:
+    :func:`service.report.fleet_charts.render_fleet_charts`, whose size is bounded whatever
+    the fleet's), fleet bias and the series list (worst first, sortable, each linking to
+    ``series_href(series_id)``)."""
     title = f"Gate report: {assessment.model or 'assessment'}"
     body = (
         _header(assessment, title)
@@ -395,6 +433,13 @@ def render_report(assessment: AssessmentDocument, *, series_href: SeriesHref) ->
         + '<section class="card" id="checks-section"><h2>Checks across the fleet</h2>'
         + _checks_table(assessment.checks)
         + "</section>"
+        + baseline_section(assessment)
+        + (
+            '<section class="card" id="fleet-charts-section"><h2>The fleet at a glance</h2>'
+            f'<div class="charts">{_figures(fleet_charts)}</div></section>'
+            if fleet_charts
+            else ""
+        )
         + '<section class="card" id="bias-section"><h2>Fleet bias</h2>'
         + _fleet_bias(assessment.fleet)
         + "</section>"
@@ -470,10 +515,13 @@ def render_series(
         steps.append(f'<a rel="next" href="{_e(following[1])}">next: {_e(following[0])} →</a>')
     back = f'<p class="meta">{" · ".join(steps)}</p>'
     header = _header(assessment, f"Series {sid}", back, verdict=series.verdict)
+    sufficiency = series.check("data_sufficiency")
+    dropped = None if sufficiency is None else sufficiency.details.get("burn_in")
     facts = _facts(
         [
             ("Fleet verdict", _status(assessment.verdict)),
             ("Residuals", _num(series.n_obs)),
+            *([("Burn-in left out", f"the first {_num(dropped)} periods")] if dropped else []),
             ("Weight", _num(series.weight)),
             ("Mean error", _num(bias.get("mean_error"), 4)),
             (
@@ -487,12 +535,7 @@ def render_series(
             ("Tracking signal", _num(bias.get("tracking_signal"))),
         ]
     )
-    figures = "".join(
-        f'<figure class="chart{" wide" if c.wide else ""}" id="chart-{_e(c.name)}" '
-        f'data-chart="{_e(c.name)}">{c.svg}'
-        f"<figcaption>{_e(c.caption)}</figcaption></figure>"
-        for c in charts
-    )
+    figures = _figures(charts)
     body = (
         header
         + f'<section class="card" id="summary-section"><h2>Summary</h2>{facts}</section>'

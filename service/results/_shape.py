@@ -110,7 +110,7 @@ def _maker(cls: type) -> Callable[..., Any]:
     names = [f.name for f in dataclasses.fields(cls)]
     body = "".join(f"    _set(obj, {n!r}, {n})\n" for n in names)
     source = f"def make({', '.join(names)}):\n    obj = _new(_cls)\n{body}    return obj\n"
-    namespace = {"_new": object.__new__, "_set": object.__setattr__, "_cls": cls}
+    namespace: dict[str, Any] = {"_new": object.__new__, "_set": object.__setattr__, "_cls": cls}
     exec(source, namespace)  # the source is made of field names only
     return namespace["make"]
 

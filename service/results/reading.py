@@ -146,7 +146,17 @@ def _read_record(cls: type, data: Any, path: str) -> Any:
     return cls(**kwargs)
 
 
-def _read_fields(cls: type, data: Mapping[str, Any], path: str) -> tuple[dict[str, Any], list]:
+def _field_path(at: Callable[[int], str], field: str) -> Callable[[int], str]:
+    """The path of ``field`` in the ``i``-th object of ``at``."""
+    return lambda i: _join(at(i), field)
+
+
+def _item_path(at: str) -> Callable[[int], str]:
+    """The path of the ``j``-th entry of the list at ``at``."""
+    return lambda j: f"{at}[{j}]"
+
+
+def _read_fields(cls: type, data: Mapping[str, Any], path: str) -> tuple[dict[str, Any], list[str]]:
     """The fields of ``cls`` read from ``data`` and the keys left over, in order. An inline
     record takes its own fields; an inline mapping takes the keys left over."""
     kwargs: dict[str, Any] = {}
@@ -304,7 +314,7 @@ def _read_flat_records(cls: type, items: list[Any], path: str) -> tuple[Any, ...
         column = _read_column(
             s.hint,
             list(map(itemgetter(s.name), items)),
-            lambda i, f=s.name: _join(at(i), f),
+            _field_path(at, s.name),
             s.values,
         )
         columns.append([_STATUS_OF[v] for v in column] if s.hint is Status else column)
@@ -336,13 +346,13 @@ def _read_table(value: Any, path: str) -> SeriesTable:
         f: _read_column(
             _SERIES_SPECS[f].hint,
             list(map(itemgetter(f), rows)),
-            lambda i, f=f: _join(at(i), f),
+            _field_path(at, f),
             _SERIES_SPECS[f].values,
         )
         for f in _SERIES_COLUMNS
     }
     sections = {
-        key: _read_section([r[key] for r in rows], lambda i, key=key: _join(at(i), key))
+        key: _read_section([r[key] for r in rows], _field_path(at, key))
         for key in first
         if key not in _SERIES_SPECS
     }
@@ -357,9 +367,7 @@ def _read_object_columns(
     _objects(objects, at)
     _same_keys(objects, frozenset(objects[0]), at)
     return {
-        k: _read_column(
-            Any, list(map(itemgetter(k), objects)), lambda i, k=k: _join(at(i), k), None
-        )
+        k: _read_column(Any, list(map(itemgetter(k), objects)), _field_path(at, k), None)
         for k in objects[0]
     }
 
@@ -378,7 +386,7 @@ def _read_checks(lists: list[Any], at: Callable[[int], str]) -> tuple[CheckColum
     """Every row lists the same checks in the same order, each entry with the fields of a
     :class:`SeriesCheck` and the same detail keys in every row."""
     for i, v in enumerate(lists):
-        _objects(v, lambda j, i=i: f"{at(i)}[{j}]")
+        _objects(v, _item_path(at(i)))
     names = [c.get("name") for c in lists[0]]
     for j, name in enumerate(names):
         if not isinstance(name, str):
@@ -402,7 +410,7 @@ def _read_checks(lists: list[Any], at: Callable[[int], str]) -> tuple[CheckColum
             f: _read_column(
                 _CHECK_HINTS[f],
                 list(map(itemgetter(f), entries)),
-                lambda i, f=f: _join(where(i), f),
+                _field_path(where, f),
                 None,
             )
             for f in _CHECK_COLUMNS

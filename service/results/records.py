@@ -486,11 +486,15 @@ class AssessmentResult(_Record):
 
     @property
     def n_series(self) -> int:
-        return len(self.series)
+        """How many series were assessed (``series`` may hold only some of them, when the
+        answer was asked for with ``series=flagged`` or ``none``)."""
+        return self.fleet.n_series
 
     def count(self, verdict: str) -> int:
-        """How many series got ``verdict``."""
-        return self.series.column("verdict").count(verdict)
+        """How many series got ``verdict`` (from the fleet's counts)."""
+        fleet = self.fleet
+        counts = {"fail": fleet.n_failed, "warn": fleet.n_warned, "pass": fleet.n_passed}
+        return counts.get(verdict, 0)
 
     def blocks(self, fail_on: str = "fail") -> bool:
         """True when the verdict is at or worse than ``fail_on``."""

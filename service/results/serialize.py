@@ -48,7 +48,7 @@ def _json_expr(hint: Any, access: str) -> str:
     raise TypeError(f"no JSON form for {hint!r}")
 
 
-def _serializer(cls: type) -> Callable[[Any, Callable[[SeriesTable], list]], dict[str, Any]]:
+def _serializer(cls: type) -> Callable[[Any, Callable[[SeriesTable], list[Any]]], dict[str, Any]]:
     """``to_dict(record, rows)``: ``rows(table)`` gives the JSON rows of a series table."""
     entries = []
     for s in json_fields(cls):

@@ -2,7 +2,8 @@
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from collections.abc import Mapping
+from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
     from .records import AssessmentDocument, AssessmentResult
@@ -10,6 +11,26 @@ if TYPE_CHECKING:
 
 def _share(value: float | None) -> str:
     return "-" if value is None else f"{100 * value:.1f}%"
+
+
+def _baseline_line(b: Mapping[str, Any]) -> str:
+    """What the holdout was compared with, and what of it matched."""
+    asked = b.get("requested")
+    how = "" if asked in (None, b.get("version")) else f" ({asked})"
+    line = (
+        f"against: version {b.get('version')}{how}, assessment {b.get('assessment_id')}; "
+        f"{b.get('matched_series')} series, {b.get('matched_periods')} holdout periods matched"
+    )
+    missed = [
+        f"{b.get(k)} {what}"
+        for k, what in (
+            ("unmatched_series", "series without a baseline"),
+            ("baseline_only_series", "baseline series not in this version"),
+            ("unmatched_periods", "periods unmatched"),
+        )
+        if b.get(k)
+    ]
+    return line + ("; " + ", ".join(missed) if missed else "") + "\n"
 
 
 def _summary(
@@ -41,6 +62,9 @@ def _summary(
         w(f"stored:  no ({where})\n" if where else "stored:  no\n")
     if link:
         w(f"report:  {link}\n")
+    baseline = None if doc is None else doc.extra.get("baseline")
+    if isinstance(baseline, Mapping):
+        w(_baseline_line(baseline))
 
     if result.reasons:
         w("\nreasons (worst first):\n")

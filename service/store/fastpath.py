@@ -17,7 +17,14 @@ from typing import Any
 
 from sqlalchemy import Engine, Table, bindparam, insert, select
 
-from .models import AssessmentRow, IdempotencyKeyRow, PolicyRow, SeriesInputRow, SeriesResultRow
+from .models import (
+    AssessmentRow,
+    IdempotencyKeyRow,
+    PolicyRow,
+    SeriesInputRow,
+    SeriesResultRow,
+    table_of,
+)
 
 
 @dataclass(frozen=True)
@@ -41,13 +48,21 @@ class Statement:
         return {k: values[k] for k in self.keys}
 
 
-def _compile(engine: Engine, stmt: Any, table: Table, keys: Sequence[str]) -> Statement:
+def _compile(
+    engine: Engine,
+    stmt: Any,
+    table: Table,
+    keys: Sequence[str],
+    types: Mapping[str, Any] | None = None,
+) -> Statement:
     compiled = stmt.compile(dialect=engine.dialect, column_keys=list(keys))
     order = compiled.positiontup
     processors = {}
     for key in keys:
-        if key in table.c:
-            proc = table.c[key].type.dialect_impl(engine.dialect).bind_processor(engine.dialect)
+        # A key named after a column binds as the column's type; ``types`` gives the others'.
+        kind = table.c[key].type if key in table.c else (types or {}).get(key)
+        if kind is not None:
+            proc = kind.dialect_impl(engine.dialect).bind_processor(engine.dialect)
             if proc is not None:
                 processors[key] = proc
     defaults = {k: v for k, v in compiled.params.items() if k not in keys}
@@ -65,12 +80,12 @@ class Statements:
 
     def __init__(self, engine: Engine) -> None:
         a, sr, si, k = (
-            AssessmentRow.__table__,
-            SeriesResultRow.__table__,
-            SeriesInputRow.__table__,
-            IdempotencyKeyRow.__table__,
+            table_of(AssessmentRow),
+            table_of(SeriesResultRow),
+            table_of(SeriesInputRow),
+            table_of(IdempotencyKeyRow),
         )
-        p = PolicyRow.__table__
+        p = table_of(PolicyRow)
         a_keys = [c.name for c in a.c if c.name != "seq"]
         self.insert_assessment = _compile(engine, insert(a).returning(a.c.seq), a, a_keys)
         self.insert_series_result = _compile(engine, insert(sr), sr, [c.name for c in sr.c])
@@ -83,10 +98,17 @@ class Statements:
             .limit(bindparam("one"))
         )
         self.latest_policy = _compile(engine, latest, p, ["name", "one"])
-        self.integrity_error = engine.dialect.dbapi.IntegrityError
+        dbapi = engine.dialect.dbapi
+        if dbapi is None:
+            raise RuntimeError(f"no DB-API module for the {engine.dialect.name} dialect")
+        self.integrity_error = dbapi.IntegrityError
 
 
 _CACHE: weakref.WeakKeyDictionary[Engine, Statements] = weakref.WeakKeyDictionary()
+
+
+compile_statement = _compile
+"""Compile a statement of another module for :func:`run_in_transaction` work."""
 
 
 def statements(engine: Engine) -> Statements:

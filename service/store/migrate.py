@@ -4,13 +4,17 @@ from __future__ import annotations
 
 from functools import lru_cache
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from sqlalchemy import Engine
+
+if TYPE_CHECKING:
+    from alembic.config import Config
 
 MIGRATIONS = Path(__file__).with_name("migrations")
 
 
-def _config(url: str):  # -> alembic.config.Config, imported lazily (startup only)
+def _config(url: str) -> Config:  # alembic imported lazily (startup only)
     from alembic.config import Config
 
     cfg = Config()

@@ -7,6 +7,7 @@ per-series number arrays are packed little-endian float64 bytes (``NaN`` for mis
 from __future__ import annotations
 
 from datetime import datetime
+from typing import cast
 
 from sqlalchemy import (
     DateTime,
@@ -16,6 +17,7 @@ from sqlalchemy import (
     Integer,
     LargeBinary,
     String,
+    Table,
     Text,
     UniqueConstraint,
 )
@@ -24,6 +26,11 @@ from sqlalchemy.orm import DeclarativeBase, Mapped, mapped_column
 
 class Base(DeclarativeBase):
     pass
+
+
+def table_of(row: type[Base]) -> Table:
+    """The Core table of a mapped row class (typed as a table, for insert/update/select)."""
+    return cast(Table, row.__table__)
 
 
 class AssessmentRow(Base):
@@ -86,6 +93,8 @@ class SeriesInputRow(Base):
     holdout_upper: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True)
     holdout_level: Mapped[float | None] = mapped_column(Float, nullable=True)
     holdout_timestamps: Mapped[str | None] = mapped_column(Text, nullable=True)
+    burn_in: Mapped[int | None] = mapped_column(Integer, nullable=True)
+    """Periods dropped at the start of the series (``NULL``: none)."""
 
 
 class PolicyRow(Base):
@@ -137,3 +146,41 @@ class ServerSecretRow(Base):
     name: Mapped[str] = mapped_column(String(64), primary_key=True)
     value: Mapped[str] = mapped_column(Text, nullable=False)
     created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)
+
+
+class JobRow(Base):
+    """An assessment run in the background: its state, progress, lease and compact input.
+
+    ``input`` holds the validated request's arrays (see ``service.api.jobs``), cleared once the
+    assessment is stored; ``assessment_id`` is chosen when the job is made, so a job run twice
+    after a crash stores one assessment. A running job belongs to ``worker`` under ``claim``
+    until ``lease_expires_at``; a worker that stops renewing its lease loses the job to the next.
+    """
+
+    __tablename__ = "jobs"
+
+    seq: Mapped[int] = mapped_column(Integer, primary_key=True, autoincrement=True)
+    id: Mapped[str] = mapped_column(String(32), unique=True, nullable=False)
+    state: Mapped[str] = mapped_column(String(8), nullable=False)
+    created_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)
+    started_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+    updated_at: Mapped[datetime] = mapped_column(DateTime(timezone=True), nullable=False)
+    finished_at: Mapped[datetime | None] = mapped_column(DateTime(timezone=True), nullable=True)
+    model: Mapped[str] = mapped_column(String(200), nullable=False)
+    version: Mapped[str] = mapped_column(String(200), nullable=False)
+    n_series: Mapped[int] = mapped_column(Integer, nullable=False)
+    series_done: Mapped[int] = mapped_column(Integer, nullable=False)
+    input: Mapped[bytes | None] = mapped_column(LargeBinary, nullable=True)
+    policy_document: Mapped[str] = mapped_column(Text, nullable=False)
+    idempotency_key: Mapped[str | None] = mapped_column(String(200), unique=True, nullable=True)
+    body_hash: Mapped[str | None] = mapped_column(String(64), nullable=True)
+    assessment_id: Mapped[str] = mapped_column(String(32), nullable=False)
+    error: Mapped[str | None] = mapped_column(Text, nullable=True)
+    worker: Mapped[str | None] = mapped_column(String(200), nullable=True)
+    claim: Mapped[str | None] = mapped_column(String(32), nullable=True)
+    lease_expires_at: Mapped[datetime | None] = mapped_column(
+        DateTime(timezone=True), nullable=True
+    )
+    attempts: Mapped[int] = mapped_column(Integer, nullable=False)
+
+    __table_args__ = (Index("ix_jobs_state_seq", "state", "seq"),)

@@ -25,16 +25,22 @@ from typing import Any
 
 from .records import (
     AssessmentSummary,
+    ClaimedJob,
     IdempotencyRecord,
+    ModelSummary,
     NewAssessment,
+    NewJob,
     SeriesInput,
     StoredAssessment,
+    StoredHead,
+    StoredJob,
     StoredPolicy,
     StoredToken,
 )
 
 __all__ = [
     "IdempotencyConflict",
+    "JobLost",
     "Readiness",
     "Store",
     "StoreConflict",
@@ -68,6 +74,15 @@ class IdempotencyConflict(StoreConflict):
     def __init__(self, key: str) -> None:
         super().__init__(f"idempotency key {key!r} is already stored", kind="IntegrityError")
         self.key = key
+
+
+class JobLost(StoreConflict):
+    """The job is no longer the caller's: its lease expired and another worker took it (or it
+    was finished meanwhile). Nothing of the write was written."""
+
+    def __init__(self, job_id: str) -> None:
+        super().__init__(f"job {job_id!r} is no longer held by this worker", kind="JobLost")
+        self.job_id = job_id
 
 
 @dataclass(frozen=True)
@@ -132,12 +147,78 @@ class Store(ABC):
         """The newest assessment of ``model`` (and ``version``), or ``None``."""
 
     @abstractmethod
+    def latest_passing_assessment(
+        self, *, model: str, exclude_version: str | None = None
+    ) -> AssessmentSummary | None:
+        """The newest assessment of ``model`` that is the latest of its version and passed,
+        leaving out ``exclude_version`` (a baseline's ``latest-pass``), or ``None``."""
+
+    @abstractmethod
+    def assessment_head(self, *, assessment_id: str) -> StoredHead | None:
+        """The stored assessment without its series (its summary, the result's head and the
+        policy document that decided it), or ``None`` when there is no such id."""
+
+    @abstractmethod
+    def list_models(self, *, verdict: str | None = None) -> list[ModelSummary]:
+        """Every model with its newest assessment and counts, by name (``verdict``: only the
+        models whose newest verdict it is)."""
+
+    @abstractmethod
+    def assessment_heads(self, *, seqs: Sequence[int]) -> dict[int, bytes]:
+        """The stored result without its series (JSON bytes) of each of these assessments,
+        by sequence number (one missing from the answer is not stored)."""
+
+    @abstractmethod
     def series_inputs(self, *, assessment_id: str) -> list[SeriesInput] | None:
         """The stored input arrays of every series, in input order (``None``: no such id)."""
 
     @abstractmethod
     def find_idempotency_key(self, *, key: str) -> IdempotencyRecord | None:
         """The stored use of an idempotency key, or ``None``."""
+
+    # --- Jobs ----------------------------------------------------------------------------
+
+    @abstractmethod
+    def create_job(self, job: NewJob) -> StoredJob:
+        """Write a queued job; :class:`IdempotencyConflict` when its key is a job's already."""
+
+    @abstractmethod
+    def get_job(self, *, job_id: str) -> StoredJob | None:
+        """The job with this id (without its input), or ``None``."""
+
+    @abstractmethod
+    def find_job_by_key(self, *, key: str) -> StoredJob | None:
+        """The job submitted with this idempotency key, or ``None``."""
+
+    @abstractmethod
+    def claim_job(self, *, worker: str, lease_seconds: float) -> ClaimedJob | None:
+        """Take the oldest queued job (or running one whose lease expired) for
+        ``lease_seconds``, for ``worker``; ``None`` when none is free. Two workers never hold
+        the same job at once."""
+
+    @abstractmethod
+    def renew_job(
+        self, *, job_id: str, claim: str, lease_seconds: float, series_done: int | None = None
+    ) -> bool:
+        """Extend the claim's lease and record progress; ``False``: the job is not ours."""
+
+    @abstractmethod
+    def finish_job(self, *, job_id: str, claim: str, record: NewAssessment) -> StoredJob:
+        """Store the job's assessment and mark it done, in one transaction. Raises
+        :class:`JobLost` (nothing written) when the claim lost the job, and
+        :class:`IdempotencyConflict` when the job's key was stored meanwhile."""
+
+    @abstractmethod
+    def link_job(self, *, job_id: str, claim: str, assessment_id: str) -> bool:
+        """Mark the job done with an assessment stored already; ``False``: not ours."""
+
+    @abstractmethod
+    def fail_job(self, *, job_id: str, claim: str, error: dict[str, Any]) -> bool:
+        """Mark the job failed with ``error`` (a problem document); ``False``: not ours."""
+
+    @abstractmethod
+    def release_job(self, *, job_id: str, claim: str) -> bool:
+        """Put a running job back in the queue; ``False``: not ours."""
 
     # --- Policies ------------------------------------------------------------------------
 

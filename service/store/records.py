@@ -10,7 +10,7 @@ from __future__ import annotations
 import hashlib
 import uuid
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
 
@@ -39,7 +39,8 @@ def hash_token(token: str) -> str:
 
 @dataclass(frozen=True)
 class SeriesInput:
-    """The numbers one series was assessed on (training arrays as sent, holdout if any)."""
+    """The numbers one series was assessed on (training arrays as sent, holdout if any) and
+    its burn-in."""
 
     series_id: str
     weight: float | None
@@ -52,6 +53,8 @@ class SeriesInput:
     holdout_upper: np.ndarray | None = None
     holdout_level: float | None = None
     holdout_timestamps: list[str] | None = None
+    burn_in: int = 0
+    """Periods dropped at the start of the series before any check."""
 
 
 @dataclass(frozen=True)
@@ -85,13 +88,25 @@ class AssessmentSummary:
 
 
 @dataclass(frozen=True)
+class ModelSummary:
+    """One model of the estate: its newest assessment, how many it has and of how many
+    versions."""
+
+    latest: AssessmentSummary
+    n_assessments: int
+    n_versions: int
+
+
+@dataclass(frozen=True)
 class StoredAssessment:
     """A stored assessment: ``head`` is the result without its series (JSON bytes), ``series``
-    the JSON bytes of each series' result in input order."""
+    the JSON bytes of each series' result in input order, ``verdicts`` their verdicts."""
 
     summary: AssessmentSummary
     head: bytes
     series: list[bytes]
+    verdicts: list[str] = field(default_factory=list)
+    """Each series' verdict, in the order of ``series``."""
 
     def to_json(self) -> bytes:
         """The full result as the POST returned it, without re-encoding the stored JSON."""
@@ -99,6 +114,16 @@ class StoredAssessment:
         assert head.endswith(b"}")
         glue = b"," if len(head) > 2 else b""
         return head[:-1] + glue + b'"series":[' + b",".join(self.series) + b"]}"
+
+
+@dataclass(frozen=True)
+class StoredHead:
+    """A stored assessment without its series: its summary, ``head`` (the result without
+    ``series``, JSON bytes) and the policy document that decided it."""
+
+    summary: AssessmentSummary
+    head: bytes
+    policy_document: dict[str, Any]
 
 
 @dataclass(frozen=True)
@@ -194,3 +219,57 @@ class StoredToken:
             "created_at": self.created_at.isoformat(),
             "revoked_at": None if self.revoked_at is None else self.revoked_at.isoformat(),
         }
+
+
+# ---------------------------------------------------------------------------------------------
+# Jobs
+
+JOB_STATES = ("queued", "running", "done", "failed")
+
+
+@dataclass(frozen=True)
+class NewJob:
+    """Everything ``create_job`` writes: the job's own fields and its compact input."""
+
+    job_id: str
+    created_at: datetime
+    model: str
+    version: str
+    n_series: int
+    input: bytes
+    policy_document: dict[str, Any]
+    assessment_id: str
+    idempotency_key: str | None = None
+    body_hash: str | None = None
+
+
+@dataclass(frozen=True)
+class StoredJob:
+    """A job as ``GET /v1/jobs/{id}`` shows it (without its input). ``error`` is the
+    problem document of a failed job."""
+
+    id: str
+    state: str
+    created_at: datetime
+    started_at: datetime | None
+    updated_at: datetime
+    finished_at: datetime | None
+    model: str
+    version: str
+    n_series: int
+    series_done: int
+    assessment_id: str
+    error: dict[str, Any] | None
+    attempts: int
+    idempotency_key: str | None
+    body_hash: str | None
+
+
+@dataclass(frozen=True)
+class ClaimedJob:
+    """A job a worker has taken: run it, renew its lease with ``claim``, then finish it."""
+
+    job: StoredJob
+    claim: str
+    input: bytes
+    policy_document: dict[str, Any]

@@ -28,6 +28,7 @@ from .models import (
     SeriesResultRow,
     ServerSecretRow,
     TokenRow,
+    table_of,
 )
 from .port import IdempotencyConflict
 from .records import (
@@ -35,10 +36,12 @@ from .records import (
     TOKEN_PREFIX,
     AssessmentSummary,
     IdempotencyRecord,
+    ModelSummary,
     NewAssessment,
     SeriesInput,
     SeriesResult,
     StoredAssessment,
+    StoredHead,
     StoredPolicy,
     StoredToken,
     hash_token,
@@ -55,12 +58,16 @@ __all__ = [
     "AssessmentSummary",
     "IdempotencyConflict",
     "IdempotencyRecord",
+    "ModelSummary",
     "NewAssessment",
     "SeriesInput",
     "SeriesResult",
     "StoredAssessment",
+    "StoredHead",
     "StoredPolicy",
     "StoredToken",
+    "assessment_head",
+    "assessment_heads",
     "count_tokens",
     "create_token",
     "find_idempotency_key",
@@ -71,8 +78,10 @@ __all__ = [
     "get_policy",
     "hash_token",
     "latest_assessment",
+    "latest_passing_assessment",
     "latest_policy_document",
     "list_assessments",
+    "list_models",
     "list_policies",
     "list_tokens",
     "new_id",
@@ -85,13 +94,13 @@ __all__ = [
     "utcnow",
 ]
 
-A = AssessmentRow.__table__
-SR = SeriesResultRow.__table__
-SI = SeriesInputRow.__table__
-P = PolicyRow.__table__
-T = TokenRow.__table__
-K = IdempotencyKeyRow.__table__
-S = ServerSecretRow.__table__
+A = table_of(AssessmentRow)
+SR = table_of(SeriesResultRow)
+SI = table_of(SeriesInputRow)
+P = table_of(PolicyRow)
+T = table_of(TokenRow)
+K = table_of(IdempotencyKeyRow)
+S = table_of(ServerSecretRow)
 
 
 def _aware(value: datetime) -> datetime:
@@ -159,11 +168,17 @@ def _input_row(i: int, s: SeriesInput) -> dict[str, Any]:
         "holdout_timestamps": None
         if s.holdout_timestamps is None
         else orjson.dumps(s.holdout_timestamps).decode(),
+        "burn_in": s.burn_in or None,
     }
 
 
-def _write_all(engine: Engine, records: Sequence[NewAssessment]) -> list[int]:
-    """Write ``records`` in one transaction; their sequence numbers in order."""
+def _write_all(
+    engine: Engine,
+    records: Sequence[NewAssessment],
+    then: Callable[[Any, list[int]], None] | None = None,
+) -> list[int]:
+    """Write ``records`` in one transaction; their sequence numbers in order. ``then(cursor,
+    seqs)`` runs last in the same transaction (what raises there undoes the whole write)."""
     stmts = fastpath.statements(engine)
 
     def write(cursor: Any) -> list[int]:
@@ -221,6 +236,8 @@ def _write_all(engine: Engine, records: Sequence[NewAssessment]) -> list[int]:
         # Every series row of every assessment in two statements.
         fastpath.executemany(cursor, stmts.insert_series_result, result_rows)
         fastpath.executemany(cursor, stmts.insert_series_input, input_rows)
+        if then is not None:
+            then(cursor, seqs)
         return seqs
 
     with write_lock(engine):
@@ -271,15 +288,16 @@ def get_assessment(engine: Engine, *, assessment_id: str) -> StoredAssessment | 
         ).first()
         if row is None:
             return None
-        series = (
-            conn.execute(
-                select(SR.c.result).where(SR.c.assessment_seq == row.seq).order_by(SR.c.position)
-            )
-            .scalars()
-            .all()
-        )
+        series = conn.execute(
+            select(SR.c.result, SR.c.verdict)
+            .where(SR.c.assessment_seq == row.seq)
+            .order_by(SR.c.position)
+        ).all()
     return StoredAssessment(
-        summary=_summary(row), head=row.result.encode(), series=[s.encode() for s in series]
+        summary=_summary(row),
+        head=row.result.encode(),
+        series=[s.result.encode() for s in series],
+        verdicts=[s.verdict for s in series],
     )
 
 
@@ -327,6 +345,82 @@ def latest_assessment(
     return found[0] if found else None
 
 
+def latest_passing_assessment(
+    engine: Engine, *, model: str, exclude_version: str | None = None
+) -> AssessmentSummary | None:
+    """The newest assessment of ``model`` that is the latest of its version and passed (a
+    version re-assessed since with another verdict does not count), leaving out
+    ``exclude_version``; ``None`` when there is none."""
+    newer = A.alias("newer")
+    later = (
+        select(newer.c.seq)
+        .where(newer.c.model == A.c.model, newer.c.version == A.c.version, newer.c.seq > A.c.seq)
+        .exists()
+    )
+    q = select(*_SUMMARY_COLUMNS).where(A.c.model == model, A.c.verdict == "pass", ~later)
+    if exclude_version is not None:
+        q = q.where(A.c.version != exclude_version)
+    q = q.order_by(A.c.seq.desc()).limit(1)
+    with engine.connect() as conn:
+        row = conn.execute(q).first()
+    return None if row is None else _summary(row)
+
+
+def assessment_head(engine: Engine, *, assessment_id: str) -> StoredHead | None:
+    """A stored assessment without its series, with its policy document, or ``None``."""
+    with engine.connect() as conn:
+        row = conn.execute(
+            select(*_SUMMARY_COLUMNS, A.c.result, A.c.policy_document).where(
+                A.c.id == assessment_id
+            )
+        ).first()
+    if row is None:
+        return None
+    return StoredHead(
+        summary=_summary(row),
+        head=row.result.encode(),
+        policy_document=orjson.loads(row.policy_document),
+    )
+
+
+def list_models(engine: Engine, *, verdict: str | None = None) -> list[ModelSummary]:
+    """Every model with its newest assessment (and its counts), by model name; ``verdict``
+    keeps the models whose newest verdict it is."""
+    per_model = (
+        select(
+            A.c.model.label("model"),
+            func.max(A.c.seq).label("latest"),
+            func.count().label("n_assessments"),
+            func.count(func.distinct(A.c.version)).label("n_versions"),
+        )
+        .group_by(A.c.model)
+        .subquery()
+    )
+    q = select(*_SUMMARY_COLUMNS, per_model.c.n_assessments, per_model.c.n_versions).join(
+        per_model, A.c.seq == per_model.c.latest
+    )
+    if verdict is not None:
+        q = q.where(A.c.verdict == verdict)
+    q = q.order_by(A.c.model)
+    with engine.connect() as conn:
+        return [
+            ModelSummary(latest=_summary(r), n_assessments=r.n_assessments, n_versions=r.n_versions)
+            for r in conn.execute(q)
+        ]
+
+
+def assessment_heads(engine: Engine, *, seqs: Sequence[int]) -> dict[int, bytes]:
+    """The stored result without its series (JSON bytes) of each assessment in ``seqs``."""
+    out: dict[int, bytes] = {}
+    wanted = sorted(set(seqs))
+    with engine.connect() as conn:
+        for start in range(0, len(wanted), 500):
+            part = wanted[start : start + 500]
+            for seq, head in conn.execute(select(A.c.seq, A.c.result).where(A.c.seq.in_(part))):
+                out[int(seq)] = head.encode()
+    return out
+
+
 def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | None:
     """The stored input arrays of every series, in input order (``None``: no such id)."""
     with engine.connect() as conn:
@@ -351,6 +445,7 @@ def series_inputs(engine: Engine, *, assessment_id: str) -> list[SeriesInput] | 
             holdout_timestamps=None
             if r.holdout_timestamps is None
             else orjson.loads(r.holdout_timestamps),
+            burn_in=r.burn_in or 0,
         )
         for r in rows
     ]
@@ -481,21 +576,22 @@ def create_token(
 ) -> tuple[StoredToken, str]:
     """Mint a token; returns its record and the secret (shown once, only its hash is kept)."""
     secret = TOKEN_PREFIX + secrets.token_urlsafe(32)
+    token_id, created_at = new_id(), utcnow()
     row = {
-        "id": new_id(),
+        "id": token_id,
         "token_hash": hash_token(secret),
         "scopes": " ".join(scopes),
         "label": label,
-        "created_at": utcnow(),
+        "created_at": created_at,
         "revoked_at": None,
     }
     with engine.begin() as conn:
         conn.execute(insert(T), row)
     return StoredToken(
-        id=row["id"],
+        id=token_id,
         scopes=tuple(scopes),
         label=label,
-        created_at=row["created_at"],
+        created_at=created_at,
         revoked_at=None,
     ), secret
 

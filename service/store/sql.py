@@ -20,6 +20,7 @@ from typing import Any, TypeVar
 
 from sqlalchemy import Engine, event, text
 
+from . import jobs
 from . import repository as repo
 from .engine import make_engine
 from .migrate import current_revision, head_revision, upgrade_engine
@@ -27,10 +28,15 @@ from .outages import DriverErrors, drop_broken_connections, sqlite_code
 from .port import Readiness, Store, StoreError, StoreUnavailable
 from .records import (
     AssessmentSummary,
+    ClaimedJob,
     IdempotencyRecord,
+    ModelSummary,
     NewAssessment,
+    NewJob,
     SeriesInput,
     StoredAssessment,
+    StoredHead,
+    StoredJob,
     StoredPolicy,
     StoredToken,
 )
@@ -132,12 +138,78 @@ class SqlStore(Store):
         return repo.latest_assessment(self.engine, model=model, version=version)
 
     @_translated
+    def latest_passing_assessment(
+        self, *, model: str, exclude_version: str | None = None
+    ) -> AssessmentSummary | None:
+        return repo.latest_passing_assessment(
+            self.engine, model=model, exclude_version=exclude_version
+        )
+
+    @_translated
+    def assessment_head(self, *, assessment_id: str) -> StoredHead | None:
+        return repo.assessment_head(self.engine, assessment_id=assessment_id)
+
+    @_translated
+    def list_models(self, *, verdict: str | None = None) -> list[ModelSummary]:
+        return repo.list_models(self.engine, verdict=verdict)
+
+    @_translated
+    def assessment_heads(self, *, seqs: Sequence[int]) -> dict[int, bytes]:
+        return repo.assessment_heads(self.engine, seqs=seqs)
+
+    @_translated
     def series_inputs(self, *, assessment_id: str) -> list[SeriesInput] | None:
         return repo.series_inputs(self.engine, assessment_id=assessment_id)
 
     @_translated
     def find_idempotency_key(self, *, key: str) -> IdempotencyRecord | None:
         return repo.find_idempotency_key(self.engine, key=key)
+
+    # --- Jobs ----------------------------------------------------------------------------
+
+    @_translated
+    def create_job(self, job: NewJob) -> StoredJob:
+        return jobs.create_job(self.engine, job)
+
+    @_translated
+    def get_job(self, *, job_id: str) -> StoredJob | None:
+        return jobs.get_job(self.engine, job_id=job_id)
+
+    @_translated
+    def find_job_by_key(self, *, key: str) -> StoredJob | None:
+        return jobs.find_job_by_key(self.engine, key=key)
+
+    @_translated
+    def claim_job(self, *, worker: str, lease_seconds: float) -> ClaimedJob | None:
+        return jobs.claim_job(self.engine, worker=worker, lease_seconds=lease_seconds)
+
+    @_translated
+    def renew_job(
+        self, *, job_id: str, claim: str, lease_seconds: float, series_done: int | None = None
+    ) -> bool:
+        return jobs.renew_job(
+            self.engine,
+            job_id=job_id,
+            claim=claim,
+            lease_seconds=lease_seconds,
+            series_done=series_done,
+        )
+
+    @_translated
+    def finish_job(self, *, job_id: str, claim: str, record: NewAssessment) -> StoredJob:
+        return jobs.finish_job(self.engine, job_id=job_id, claim=claim, record=record)
+
+    @_translated
+    def link_job(self, *, job_id: str, claim: str, assessment_id: str) -> bool:
+        return jobs.link_job(self.engine, job_id=job_id, claim=claim, assessment_id=assessment_id)
+
+    @_translated
+    def fail_job(self, *, job_id: str, claim: str, error: dict[str, Any]) -> bool:
+        return jobs.fail_job(self.engine, job_id=job_id, claim=claim, error=error)
+
+    @_translated
+    def release_job(self, *, job_id: str, claim: str) -> bool:
+        return jobs.release_job(self.engine, job_id=job_id, claim=claim)
 
     # --- Policies ------------------------------------------------------------------------
 

@@ -132,7 +132,7 @@ def small():
 @pytest.mark.parametrize(
     ("column", "row", "value", "message"),
     [
-        ("series_id", 2, "", "must not be empty"),
+        ("series_id", 2, "", "must be a non-empty string, got an empty string at data row 2"),
         ("part", 3, "test", "must be train or holdout, got 'test'"),
         ("lower", 1, 0.5, "lower and upper belong on holdout rows only"),
         ("actual", 5, float("nan"), "must be a finite number or empty"),

@@ -423,3 +423,48 @@ def test_a_token_without_read_scope_gets_no_link_and_no_noise(cli, http, files):
     )
     run = assess(cli, http, files / "weekday.json", token=made["token"])
     assert run.code == 0 and "report:" not in run.out and run.err == ""
+
+
+def _burn_ins(printed: str) -> set[int]:
+    result = json.loads(printed)
+    return {
+        c["details"]["burn_in"]
+        for s in result["series"]
+        for c in s["checks"]
+        if c["name"] == "data_sufficiency"
+    }
+
+
+@pytest.mark.parametrize("extra", [(), ("--label", "run=9")])
+def test_burn_in_option_reaches_the_service(cli, http, files, extra):
+    # CSV as a CSV upload (?burn_in=2), and with a label as the JSON body it becomes.
+    csv_opts = ("--model", "weekday", "--version", "1", "--season-length", "7")
+    run = assess(cli, http, files / "weekday.csv", *csv_opts, "--burn-in", "2", "--json", *extra)
+    assert run.code in (0, 1), run.err
+    assert _burn_ins(run.out) == {2}
+
+
+def test_burn_in_option_offline_and_on_json(cli, http, files):
+    online = assess(cli, http, files / "weekday.json", "--burn-in", "3", "--json")
+    offline = cli("assess", str(files / "weekday.json"), "--offline", "--burn-in", "3", "--json")
+    assert _burn_ins(online.out) == _burn_ins(offline.out) == {3}
+    n_obs = [s["n_obs"] for s in json.loads(online.out)["series"]]
+    assert n_obs == [s["n_obs"] for s in json.loads(offline.out)["series"]]
+    bad = cli("assess", str(files / "weekday.json"), "--offline", "--burn-in", "-1")
+    assert bad.code == 2
+
+
+def test_client_lists_the_models(cli, http, files):
+    for name in ("weekday.json", "stale.json"):
+        assert assess(cli, http, files / name).code in (0, 1)
+    client = PlumblineClient(token=ADMIN, http=http)
+    rows = client.models()
+    by_model = {r.model: r for r in rows}
+    latest = {s["model"]: s for s in reversed(stored(http))}  # the newest of each model
+    assert set(by_model) == set(latest)
+    for model, row in by_model.items():
+        assert row.assessment_id == latest[model]["id"]
+        assert row.verdict == latest[model]["verdict"]
+        assert row.n_passed + row.n_warned + row.n_failed == row.n_series
+    failing = client.models(verdict="fail")
+    assert [r.verdict for r in failing] == ["fail"] * len(failing) and failing

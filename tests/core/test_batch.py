@@ -216,6 +216,7 @@ def test_degenerate_rows_never_raise():
         holdout_forecasts=horizon,
         holdout_lower=[[2.0, 2.0]] * 7,
         holdout_upper=[[4.0, 4.0]] * 7,
+        baseline_forecasts=[[3.0, None]] * 7,
     )
     out = run_checks(b)
     assert tuple(out.checks) == CHECK_NAMES
@@ -320,7 +321,22 @@ def series(draw):
     width = draw(st.lists(st.floats(0, 50), min_size=h, max_size=h))
     lower = [f - w for f, w in zip(hf, width, strict=True)]
     upper = [f + w for f, w in zip(hf, width, strict=True)]
-    return {"a": actuals, "f": fitted, "ha": ha, "hf": hf, "lo": lower, "up": upper}
+    # The baseline version's forecasts, some periods unmatched, with their own intervals.
+    bf = draw(st.lists(st.one_of(st.none(), finite), min_size=h, max_size=h))
+    bw = draw(st.lists(st.floats(0, 50), min_size=h, max_size=h))
+    blo = [None if f is None else f - w for f, w in zip(bf, bw, strict=True)]
+    bup = [None if f is None else f + w for f, w in zip(bf, bw, strict=True)]
+    return {
+        "a": actuals,
+        "f": fitted,
+        "ha": ha,
+        "hf": hf,
+        "lo": lower,
+        "up": upper,
+        "bf": bf,
+        "blo": blo,
+        "bup": bup,
+    }
 
 
 def _batch(items, season_length=1, pad=0):
@@ -337,6 +353,9 @@ def _batch(items, season_length=1, pad=0):
         holdout_lower=rows("lo"),
         holdout_upper=rows("up"),
         level=0.9,
+        baseline_forecasts=rows("bf"),
+        baseline_lower=rows("blo"),
+        baseline_upper=rows("bup"),
     )
 
 
@@ -396,6 +415,7 @@ def test_scale_free_results_do_not_depend_on_the_unit(unit):
     f[:, 0] = np.nan
     ha = rng.normal(50, 10, (4, 6))
     hf = ha + rng.normal(0, 2, (4, 6))
+    bf = ha + rng.normal(0, 2, (4, 6))
 
     def run(k):
         return run_checks(
@@ -408,6 +428,7 @@ def test_scale_free_results_do_not_depend_on_the_unit(unit):
                 holdout_lower=(hf - 3) * k,
                 holdout_upper=(hf + 3) * k,
                 level=0.8,
+                baseline_forecasts=bf * k,
             )
         )
 
@@ -478,6 +499,9 @@ def test_any_accepted_input_runs_every_check(rows, m, data):
             holdout_forecasts=hf,
             holdout_lower=lower,
             holdout_upper=upper,
+            baseline_forecasts=[
+                [data.draw(st.one_of(st.none(), any_magnitude)) for _ in x] for x in ha
+            ],
         )
     )
     for name in CHECK_NAMES:

@@ -279,3 +279,23 @@ def test_fleet_bias_from_parts_matches_a_direct_loop(small_blocks):
     # And the general function agrees to rounding.
     general = fleet_bias(res, weights)
     assert got.std_error[0] == pytest.approx(float(general.std_error[0]), rel=1e-12)
+
+
+def test_equal_with_a_baseline(small_blocks):
+    # The baseline comparison's fleet figure too (an invented production version's holdout
+    # forecasts, labelled): chunks are row ranges of the whole batch, baseline included.
+    from service.core.batch import Baseline, SeriesBatch
+
+    whole, _ = whole_and_chunks(17, 40, 40)
+    rng = np.random.default_rng(17)
+    h = whole.holdout
+    forecasts = h.actuals + rng.standard_normal(h.actuals.shape) * 1.3
+    fields = {f: getattr(whole, f) for f in SeriesBatch.__dataclass_fields__}
+    fields["baseline"] = Baseline(forecasts=forecasts, label="2026.11")
+    with_base = SeriesBatch(**fields)
+    policy = default_policy()
+    one = assess(with_base, policy)
+    assert one.to_dict()["fleet"]["baseline"]["p_value"] is not None
+    for size in (1, 7):
+        chunks = [with_base.rows(slice(lo, lo + size)) for lo in range(0, 40, size)]
+        assert_same(one, assess_chunks(chunks, policy, part_blocks=2))

@@ -51,7 +51,7 @@ CHECKS = [
     ignored_auth,
 ]
 # POST /v1/assessments reads the CSV-only query parameters (model, version, policy,
-# season_length, model_params, level) only for CSV uploads and ignores them beside a JSON
+# season_length, model_params, level, burn_in) only for CSV uploads and ignores them beside a JSON
 # body, so an out-of-range one there is not an error; every other check still applies to it.
 LENIENT = {"POST /v1/assessments": [negative_data_rejection]}
 

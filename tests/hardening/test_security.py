@@ -8,9 +8,12 @@ no framing, no referrer, a policy that loads nothing, no shared caching).
 from __future__ import annotations
 
 import logging
+import re
 
 import pytest
 
+from service.api.docs import ASSETS_CACHE_CONTROL, DOCS_CSP
+from service.api.docs import ASSETS_URL as DOCS_ASSETS
 from service.settings import Settings
 
 from .conftest import ADMIN, ADMIN_TOKEN, assessment, mint
@@ -62,11 +65,41 @@ def test_list_keeps_its_own_cache_control_for_etags(make_client):
     assert_security_headers(r)
 
 
-def test_docs_page_may_load_its_scripts_but_not_be_framed(make_client):
-    r = make_client().get("/docs")
-    assert r.status_code == 200
-    assert r.headers["content-security-policy"] == "frame-ancestors 'none'"
-    assert r.headers["x-frame-options"] == "DENY"
+def test_docs_pages_load_from_this_server_only_and_are_not_framed(make_client):
+    client = make_client()
+    for path in ("/docs", "/redoc"):
+        r = client.get(path)
+        assert r.status_code == 200
+        csp = r.headers["content-security-policy"]
+        assert csp == DOCS_CSP
+        # Every fetch directive names this server alone (no host, no scheme but data:/blob:).
+        for directive in csp.split("; "):
+            _name, *sources = directive.split(" ")
+            assert set(sources) <= {"'self'", "'unsafe-inline'", "'none'", "data:", "blob:"}, (
+                directive
+            )
+        assert "frame-ancestors 'none'" in csp
+        assert r.headers["x-frame-options"] == "DENY"
+        # The page's scripts, styles and favicon are this server's own files.
+        sources = re.findall(r'(?:src|href)="([^"]+)"', r.text)
+        assert sources and all(s.startswith(DOCS_ASSETS + "/") for s in sources), sources
+        for source in sources:
+            asset = client.get(source)
+            assert asset.status_code == 200, source
+            assert len(asset.content) > 1000, source
+            assert asset.headers["cache-control"] == ASSETS_CACHE_CONTROL, source
+            assert asset.headers["x-content-type-options"] == "nosniff"
+
+
+def test_redoc_bundle_is_served_without_its_outside_logo(make_client):
+    from service.api.docs import REDOC_BUNDLE, REDOC_LOGO, assets_dir
+
+    shipped = (assets_dir() / REDOC_BUNDLE).read_bytes()
+    assert REDOC_LOGO in shipped  # the package's file as it is: the address is there...
+    served = make_client().get(f"{DOCS_ASSETS}/{REDOC_BUNDLE}")
+    assert served.status_code == 200
+    assert REDOC_LOGO not in served.content  # ...and the served copy does not load it
+    assert len(served.content) == len(shipped) - len(REDOC_LOGO) + len(b"data:,")
 
 
 def test_hsts_over_https(make_client):

@@ -2,8 +2,9 @@
 
     python tests/perf/bench_report.py [n_series]
 
-Prints the time to render the fleet page for ``n_series`` series (default 10,000) and to draw one
-series page's charts. Uses the invented fleet of the report tests.
+Prints the time to draw the fleet page's charts and to render the fleet page for ``n_series``
+series (default 10,000), and to draw one series page's charts. Uses the invented fleet of the
+report tests.
 """
 
 from __future__ import annotations
@@ -22,6 +23,7 @@ from service.report import (
     render_series,
     series_diagnostics,
 )
+from service.report.fleet_charts import render_fleet_charts
 from service.results import AssessmentDocument
 from tests.report.fleet import assessment_of, invented_body
 
@@ -35,9 +37,20 @@ def main(n_series: int) -> None:
     html = render_report(a, series_href=lambda sid: f"series/{sid}")
     t2 = time.perf_counter()
     print(
-        f"fleet page, {n_series} series: {t2 - t1:.3f} s, {len(html) / 1e6:.1f} MB "
-        f"(reading the stored document before it: {t1 - t0:.3f} s)"
+        f"fleet page without its charts, {n_series} series: {t2 - t1:.3f} s, "
+        f"{len(html) / 1e6:.1f} MB (reading the stored document before it: {t1 - t0:.3f} s)"
     )
+    for attempt in ("first (imports matplotlib)", "second", "third"):
+        t0 = time.perf_counter()
+        charts = render_fleet_charts(a)
+        t1 = time.perf_counter()
+        html = render_report(a, series_href=lambda sid: f"series/{sid}", fleet_charts=charts)
+        t2 = time.perf_counter()
+        sizes = ", ".join(f"{c.name} {len(c.svg) / 1e3:.0f} kB" for c in charts)
+        print(
+            f"fleet charts, {attempt}: {t1 - t0:.3f} s ({sizes}); the page with them "
+            f"{t2 - t1:.3f} s, {len(html) / 1e6:.1f} MB"
+        )
     s = body["series"][1]
     entry = find_series(a, s["id"])
     for attempt in ("first (imports matplotlib)", "second"):

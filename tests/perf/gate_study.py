@@ -11,10 +11,14 @@ Invented fleets with simulated residuals, sound and flawed, through ``service.co
 * holdout rows: correct models with their own path forecasts and 95% intervals (a level, an
   AR(1) 0.5, a seasonal m = 12 profile) over 6, 12 and 24 steps, and flawed ones (forecasts
   shifted by 1 sd, a random walk forecast by its training mean, 80% intervals claimed as 95%);
-* the per-series tests' rejection rates at 1% and 5% (raw p-values) under sound residuals.
+* the per-series tests' rejection rates at 1% and 5% (raw p-values) under sound residuals;
+* baseline rows: a new version against the version in production on the same 12-step holdout
+  (fleets of 500), of equal quality (independent errors of the same size) and with errors of
+  5% and 10% larger standard deviation.
 
     python tests/perf/gate_study.py --reps 1000 --small-reps 5000
     python tests/perf/gate_study.py --only size --reps 200     # a quicker look
+    python tests/perf/gate_study.py --only baseline --reps 1000
 
 Each figure is a proportion over independent fleets; its standard error is at most
 ``0.5 / sqrt(reps)`` (1.6 points at 1,000 fleets, 0.3 near 1% or 99%; 0.14 near 1% at 5,000).
@@ -379,6 +383,114 @@ def holdout_table(reps: int, seed: int) -> None:
             )
 
 
+@dataclass(frozen=True)
+class BaselineScenario:
+    """A new version against the version in production on the same holdout: the baseline's
+    errors are independent of the new version's, ``sd_ratio`` times smaller (the new version's
+    holdout errors have ``sd_ratio`` times the baseline's standard deviation)."""
+
+    label: str
+    sd_ratio: float
+    target: str = ""
+    phi: float = 0.0
+    """Above 0: each version's errors are AR(1) ``phi`` along the path (unit variance scaled
+    to its sd), as the errors of forecasts from one origin tend to be."""
+
+
+BASELINE = (
+    BaselineScenario(
+        "equal quality: independent errors of the same size", 1.0, "fail <= 1%, warn <= 5%"
+    ),
+    BaselineScenario("challenger errors 5% larger sd", 1.05),
+    BaselineScenario("challenger errors 10% larger sd", 1.10, "fail >= 95%"),
+    BaselineScenario(
+        "equal quality, both versions' errors AR(1) 0.5 along the path",
+        1.0,
+        "fail <= 1%, warn <= 5%",
+        phi=0.5,
+    ),
+    BaselineScenario("challenger errors 10% larger sd, AR(1) 0.5 along the path", 1.10, phi=0.5),
+)
+BASELINE_SERIES = 500
+BASELINE_H = 12
+
+
+def baseline_fleet(s: BaselineScenario, n: int, h: int, rng: np.random.Generator):
+    """A batch of ``n`` invented series (``holdout_fleet``'s correct level model over an
+    ``h``-step holdout) with a baseline version: the new version's holdout errors have
+    standard deviation ``sd_ratio * 5``, the baseline's 5, the two independent; each version's
+    95% intervals are its forecast +- 1.96 times its own error sd."""
+    sound = holdout_fleet(HOLDOUT[0], n, h, rng)
+    hold = sound.holdout
+    sd = 5.0
+    if s.phi:
+        # Errors drawn along the path: AR(1) with unit variance, times each version's sd.
+        unit = np.sqrt(1.0 - s.phi**2)
+        new = hold.actuals - s.sd_ratio * sd * unit * ar1(n, h, rng, phi=s.phi)
+        base = hold.actuals - sd * unit * ar1(n, h, rng, phi=s.phi)
+    else:
+        # The correct forecast's errors have sd 5; independent noise brings them to
+        # sd_ratio * 5.
+        extra = sd * np.sqrt(s.sd_ratio**2 - 1.0)
+        new = hold.forecasts - extra * rng.standard_normal((n, h))
+        base = hold.actuals - sd * rng.standard_normal((n, h))
+    half_new, half_base = Z95 * sd * s.sd_ratio, Z95 * sd
+    return make_batch(
+        sound.actuals,
+        sound.fitted,
+        ids=list(sound.ids),
+        holdout_actuals=hold.actuals,
+        holdout_forecasts=new,
+        holdout_lower=new - half_new,
+        holdout_upper=new + half_new,
+        level=0.95,
+        baseline_forecasts=base,
+        baseline_lower=base - half_base,
+        baseline_upper=base + half_base,
+        baseline_label="2026.11",
+    )
+
+
+def baseline_table(
+    reps: int, seed: int, n: int = BASELINE_SERIES, only: tuple[int, ...] | None = None
+) -> None:
+    print(f"\n## Against a baseline version (fleets of {n}, {BASELINE_H}-step holdout)\n")
+    print(
+        "| condition | fleets | fail | warn or fail | baseline_accuracy fail | "
+        "baseline_accuracy warn | median relative MAE | from | target |"
+    )
+    print("|---|---|---|---|---|---|---|---|---|")
+    policy = default_policy()
+    for s_i, s in enumerate(BASELINE):
+        if only is not None and s_i not in only:
+            continue
+        rng = np.random.default_rng(seed + 20000 + 100 * s_i)
+        fails = warns = own_fail = own_warn = 0
+        rel: list[float] = []
+        culprits: dict[str, int] = {}
+        for _ in range(reps):
+            a = assess_many([(baseline_fleet(s, n, BASELINE_H, rng), policy)])[0]
+            v = a.verdict.value
+            fails += v == "fail"
+            warns += v != "pass"
+            # The check's own outcome: its fleet-level test or its share of series.
+            summary = next(c for c in a.summaries if c.name == "baseline_accuracy")
+            own = max(a.fleet["baseline"].code, {"fail": 3, "warn": 2}.get(summary.status, 1))
+            own_fail += own == 3
+            own_warn += own >= 2
+            rel.append(a.fleet["baseline"].result.relative_mae)
+            if v != "pass":
+                bad = "fail" if v == "fail" else "warn"
+                for c in {r.check for r in a.reasons if r.status.value == bad}:
+                    culprits[c] = culprits.get(c, 0) + 1
+        print(
+            f"| {s.label} | {reps} | {fails / reps:.1%} | {warns / reps:.1%} | "
+            f"{own_fail / reps:.1%} | {own_warn / reps:.1%} | {np.median(rel):.3f} | "
+            f"{_culprits(culprits, reps)} | {s.target} |",
+            flush=True,
+        )
+
+
 def fleet(s: Scenario, n: int, t: int, rng: np.random.Generator):
     """A batch of ``n`` invented series: level around 100, the scenario's residuals."""
     e = GENERATORS[s.kind](n, t, rng, **s.params)
@@ -482,7 +594,15 @@ def main() -> None:
     parser.add_argument("--small-reps", type=int, default=5000, help="fleets of 1 or 5 per cell")
     parser.add_argument("--series", type=int, default=20000, help="series per per-series cell")
     parser.add_argument("--seed", type=int, default=20261203)
-    parser.add_argument("--only", choices=("size", "detect", "holdout", "series"), default=None)
+    parser.add_argument(
+        "--conditions",
+        type=lambda v: tuple(int(x) for x in v.split(",")),
+        default=None,
+        help="baseline rows to run, by position (0,1,...): default all",
+    )
+    parser.add_argument(
+        "--only", choices=("size", "detect", "holdout", "series", "baseline"), default=None
+    )
     args = parser.parse_args()
     start = time.perf_counter()
     print(f"default policy; {args.reps} fleets of 200, {args.small_reps} fleets of 1 or 5")
@@ -494,6 +614,8 @@ def main() -> None:
         holdout_table(args.reps, args.seed)
     if args.only in (None, "series"):
         per_series_table(args.series, args.seed)
+    if args.only in (None, "baseline"):
+        baseline_table(args.reps, args.seed, only=args.conditions)
     print(f"\nelapsed {time.perf_counter() - start:.0f} s")
 
 

@@ -3,7 +3,7 @@
 It starts a Chromium binary from the system packages with a fresh profile, talks to the page
 over the DevTools websocket on loopback, and records every console error, uncaught exception,
 log error (a blocked fetch or a Content-Security-Policy violation shows there) and failed or
-4xx/5xx request.
+4xx/5xx request, and the URL of every request the page made (``Browser.requests``).
 """
 
 from __future__ import annotations
@@ -50,6 +50,25 @@ def find_chromium() -> str | None:
     return None
 
 
+LOCAL_SCHEMES = frozenset({"data", "blob", "about", "chrome-error"})
+
+
+def outside_requests(urls: list[str], server: str) -> list[str]:
+    """The URLs of ``urls`` aimed anywhere but ``server`` (``http://host:port``); ``data:``,
+    ``blob:`` and ``about:`` URLs never leave the page."""
+    from urllib.parse import urlsplit
+
+    home = urlsplit(server)
+    out = []
+    for url in urls:
+        parts = urlsplit(url)
+        if parts.scheme in LOCAL_SCHEMES:
+            continue
+        if (parts.scheme, parts.netloc) != (home.scheme, home.netloc):
+            out.append(url)
+    return out
+
+
 @dataclass
 class PageProblems:
     console_errors: list[str] = field(default_factory=list)
@@ -67,6 +86,8 @@ class Browser:
         self.width = width
         self.height = height
         self.problems = PageProblems()
+        self.requests: list[str] = []
+        """Every URL the page asked for, in order (``Network.requestWillBeSent``)."""
         self._events: list[dict[str, Any]] = []
         self._next = 0
 
@@ -161,6 +182,8 @@ class Browser:
             self.problems.console_errors.append(
                 f"log {e.get('source')}: {e.get('text')} {e.get('url', '')}".strip()
             )
+        elif method == "Network.requestWillBeSent":
+            self.requests.append(str(p.get("request", {}).get("url", "")))
         elif method == "Network.loadingFailed":
             self.problems.failed_requests.append(
                 f"request failed: {p.get('errorText')} ({p.get('blockedReason', '')})"
@@ -201,8 +224,10 @@ class Browser:
     # -- page helpers ---------------------------------------------------------------------
 
     def open(self, url: str) -> None:
-        """Navigate and wait for the load event, then let late requests settle."""
+        """Navigate and wait for the load event, then let late requests settle; ``requests``
+        starts afresh."""
         self._events.clear()
+        self.requests.clear()
         result = self.call("Page.navigate", url=url)
         if result.get("errorText"):
             raise RuntimeError(f"navigation to {url} failed: {result['errorText']}")
@@ -220,8 +245,23 @@ class Browser:
             raise RuntimeError(f"script failed: {out['exceptionDetails']}")
         return out.get("result", {}).get("value")
 
-    def screenshot(self, path: str) -> None:
-        """Full-page PNG."""
+    def screenshot(self, path: str, selector: str | None = None) -> None:
+        """Full-page PNG, or of the element ``selector`` names."""
+        if selector is not None:
+            box = self.evaluate(
+                f"(() => {{ const r = document.querySelector({json.dumps(selector)})"
+                ".getBoundingClientRect(); return {x: r.left + window.scrollX, "
+                "y: r.top + window.scrollY, width: r.width, height: r.height}; })()"
+            )
+            data = self.call(
+                "Page.captureScreenshot",
+                format="png",
+                captureBeyondViewport=True,
+                clip={**box, "scale": 1},
+            )
+            with open(path, "wb") as fh:
+                fh.write(base64.b64decode(data["data"]))
+            return
         height = int(self.evaluate("document.documentElement.scrollHeight") or self.height)
         self.call(
             "Emulation.setDeviceMetricsOverride",

@@ -184,3 +184,51 @@ def test_holdout_without_intervals_draws_no_band() -> None:
     text = _texts(render_chart("holdout", d).svg)
     assert "model forecast" in text and "prediction interval" not in text
     assert "best benchmark" in text
+
+
+@pytest.fixture(scope="module")
+def long_series() -> tuple[dict, object]:
+    """An invented series of 700 weekly residuals (the fleet of tests/report/fleet.py)."""
+    from .fleet import document_of, invented_body
+
+    body = invented_body(5, t=700, h=12)
+    s = body["series"][2]  # the biased one
+    d = series_diagnostics(
+        SeriesInputs.from_mapping(s),
+        find_series(document_of(body), s["id"]),
+        season_length=52,
+        model_params=2,
+    )
+    return s, d
+
+
+def test_many_residuals_draw_a_line_not_a_band_of_markers(charts: dict, long_series) -> None:
+    _s, d = long_series
+    svg = render_chart("residuals", d).svg
+    # matplotlib writes one <use> per marker (and per tick mark): 700 markers would be 700+.
+    assert svg.count("<use") < 60
+    assert charts["residuals"].svg.count("<use") > 100  # 103 residuals still get their dots
+
+
+def test_residual_chart_draws_the_mean_residual(long_series) -> None:
+    s, d = long_series
+    actual = np.array(s["actuals"], dtype=float)
+    fitted = np.array([np.nan if v is None else v for v in s["fitted"]], dtype=float)
+    mean = float(np.nanmean(actual - fitted))  # numpy's mean of the residuals
+    assert d.mean == pytest.approx(mean, rel=1e-12)
+    assert f"mean residual {mean:+.3g}" in _texts(render_chart("residuals", d).svg)
+
+
+def test_shading_is_visible(charts: dict) -> None:
+    from service.report.charts import SHADE_ALPHA
+
+    assert SHADE_ALPHA >= 0.2
+    for name in ("residuals", "acf"):
+        assert f"opacity: {SHADE_ALPHA}" in charts[name].svg, name
+
+
+def test_isolated_values_are_found() -> None:
+    from service.report.charts import isolated
+
+    x = np.array([1.0, np.nan, 2.0, 3.0, np.nan, 4.0, np.nan, np.nan, 5.0])
+    assert isolated(x).tolist() == [True, False, False, False, False, True, False, False, True]

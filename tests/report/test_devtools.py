@@ -19,6 +19,9 @@ BROKEN = b"""<!DOCTYPE html><html><head><link rel="icon" href="data:,"></head><b
 <script>console.error("planted console error"); undefinedFunction();</script>
 </body></html>"""
 
+ELSEWHERE = b"""<!DOCTYPE html><html><head><link rel="icon" href="data:,"></head><body>
+<img src="http://127.0.0.2:9/elsewhere.png" alt=""></body></html>"""
+
 LOCKED = b"""<!DOCTYPE html><html><head><link rel="icon" href="data:,"></head><body>
 <img src="http://127.0.0.1:9/elsewhere.png" alt=""></body></html>"""
 
@@ -27,6 +30,7 @@ class _Handler(BaseHTTPRequestHandler):
     def do_GET(self) -> None:
         pages = {
             "/broken": (BROKEN, {}),
+            "/elsewhere": (ELSEWHERE, {}),
             "/locked": (LOCKED, {"Content-Security-Policy": CONTENT_SECURITY_POLICY}),
         }
         if self.path not in pages:
@@ -75,3 +79,15 @@ def test_report_policy_blocks_outside_fetches_and_the_driver_sees_it(site: str) 
         assert any(
             "elsewhere.png" in p or "Content Security Policy" in p for p in b.problems.all()
         ), b.problems.all()
+
+
+def test_driver_lists_every_request_so_outside_ones_can_be_counted(site: str) -> None:
+    from .devtools import Browser, outside_requests
+
+    with Browser(_need_browser()) as b:
+        b.open(f"{site}/elsewhere")
+        assert f"{site}/elsewhere" in b.requests
+        assert outside_requests(b.requests, site) == ["http://127.0.0.2:9/elsewhere.png"]
+        b.open(f"{site}/broken")
+        assert b.requests[0] == f"{site}/broken"  # open() starts a new list
+        assert outside_requests(b.requests, site) == []

@@ -14,6 +14,7 @@ KEPT = {
     "actuals": "actuals",
     "fitted": "fitted",
     "timestamps": "timestamps",
+    "burn_in": "burn_in",
     "holdout.actuals": "holdout_actuals",
     "holdout.forecasts": "holdout_forecasts",
     "holdout.lower": "holdout_lower",
@@ -36,6 +37,8 @@ def _value(spec: shape.FieldSpec, n: int, offset: float) -> object:
         return [f"2026-{1 + int(offset) // 10:02d}-{k + 1:02d}" for k in range(n)]
     if spec.kind == "text":
         return "depot-4/sku-118"
+    if spec.kind == "integer":
+        return 2
     assert spec.kind == "number", spec
     return 0.8 if spec.above is not None else 2.0
 

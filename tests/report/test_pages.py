@@ -76,10 +76,52 @@ def test_report_shows_verdict_reasons_checks_and_bias(assessment: dict, report: 
             str(c["series_warned"]),
         ]
         assert cells[6] == f"{100 * c['failed_share']:.1f}%"
+        # The last cell adds to the counts beside it, never repeats them.
+        assert "series fail" not in cells[7] and "of the weight" not in cells[7]
+        if c["series_failed"] == c["series_warned"] == 0:
+            assert cells[7] == "—"
+        else:
+            assert cells[7].startswith(("Above the fail share", "Above the warn share")), cells[7]
     b = assessment["fleet"]["bias"]
     assert f"{b['mean_error']:.4g}" in report
     assert "statistical evidence, not a guarantee" in report
     assert "assessed 2026-12-01 22:00 UTC" in report  # created_at 2026-12-01T22:00:00Z
+
+
+def test_fleet_reasons_say_across_the_fleet_once() -> None:
+    """A fleet-level test's sentence begins "Across the fleet ...": the report's line says
+    "<Title>, across the fleet: the forecasts run ...", not the phrase twice."""
+    import numpy as np
+
+    from service.core import make_batch
+    from service.core.gate import assess
+    from service.core.policy import default_policy
+    from service.results import AssessmentDocument
+
+    # Invented: 30 kiosks whose forecasts all run 0.2 sd low (seed 3).
+    rng = np.random.default_rng(3)
+    fitted = np.full((30, 52), 100.0)
+    batch = make_batch(fitted + rng.normal(0.2, 1.0, fitted.shape), fitted)
+    result = assess(batch, default_policy()).to_dict()
+    fleet = [r for r in result["reasons"] if r["series_id"] is None]
+    assert any(r["message"].startswith("Across the fleet") for r in fleet)
+    doc = AssessmentDocument.from_dict(
+        {
+            "id": None,
+            "created_at": None,
+            "model": "kiosks",
+            "version": "1",
+            "stored": False,
+            "labels": {},
+            "season_length": 1,
+            "model_params": 0,
+            **result,
+        }
+    )
+    html = render_report(doc, series_href=href)
+    lines = re.findall(r'<li data-status="\w+" data-check="\w+">(.*?)</li>', html)
+    assert lines and all(line.lower().count("across the fleet") <= 1 for line in lines)
+    assert "<strong>Bias</strong>, across the fleet: the forecasts run low: " in html
 
 
 def test_series_listed_worst_first_with_links(assessment: dict, document, report: str) -> None:
@@ -158,11 +200,17 @@ def test_untrusted_text_is_escaped() -> None:
 
 
 @pytest.mark.slow  # a 10,000-series report
-def test_large_fleet_report_draws_no_chart() -> None:
-    # 10,000 series: one light page of rows and links; charts wait for the series page.
+def test_large_fleet_report_stays_light() -> None:
+    # 10,000 series: rows and links, and three fleet charts of bounded size; the series'
+    # own charts wait for the series page.
+    from service.report.fleet_charts import render_fleet_charts
+
     a = document_of(invented_body(10_000, t=30, h=4))
-    html = render_report(a, series_href=href)
-    assert "<svg" not in html
+    assert "<svg" not in render_report(a, series_href=href)
+    charts = render_fleet_charts(a)
+    html = render_report(a, series_href=href, fleet_charts=charts)
+    assert html.count("<svg") == 3
+    assert sum(len(c.svg) for c in charts) < 400_000
     assert html.count('<tr data-series="') == 10_000
     assert html.count('<ul class="reasons"') == 2  # the first 20, then the toggle
     assert "more reasons: see the series table" in html

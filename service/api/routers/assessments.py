@@ -18,10 +18,10 @@ from service.settings import Settings
 from service.store.port import Store
 from service.store.records import StoredAssessment
 
-from .. import assessing
+from .. import assessing, jobs, series_export, series_view
 from ..auth import authorize, require
-from ..body import is_csv, is_json, media_type, read_body
-from ..csvout import to_csv, wants_csv
+from ..body import ARROW_STREAM, PARQUET, columnar_kind, is_csv, is_json, media_type, read_body
+from ..csvout import wants_csv
 from ..deps import Services, get_services, get_settings, get_store
 from ..errors import ApiError
 from ..gcpause import paused_gc
@@ -35,37 +35,20 @@ from ..httputil import (
     json_body_doc,
     problem_docs,
 )
-from ..schemas import AssessmentDocument, AssessmentPage, SeriesRowPage, Verdict
+from ..overview import list_csv
+from ..schemas import (
+    AssessmentDocument,
+    AssessmentPage,
+    CheckStatus,
+    Job,
+    SeriesRowPage,
+    Verdict,
+)
 
 router = APIRouter(prefix="/v1/assessments", tags=["assessments"])
 
 _PROBLEMS = problem_docs(400, 401, 403, 409, 413, 415, 422)
 _READ_PROBLEMS = problem_docs(401, 403, 404, 422)
-SUMMARY_COLUMNS = (
-    "id",
-    "created_at",
-    "model",
-    "version",
-    "verdict",
-    "n_series",
-    "n_failed",
-    "n_warned",
-    "policy_name",
-    "policy_version",
-)
-SERIES_COLUMNS = (
-    "assessment_id",
-    "series_id",
-    "series_verdict",
-    "n_obs",
-    "check",
-    "status",
-    "statistic",
-    "p_value",
-    "p_adjusted",
-    "message",
-    "details",
-)
 MAX_KEY_LENGTH = 200
 INLINE_BODY_BYTES = 64 * 1024
 
@@ -95,6 +78,14 @@ POST_PARAMETERS = [
         "result (200); with another body, 409",
         {"type": "string", "maxLength": 200},
     ),
+    _param(
+        "Prefer",
+        "header",
+        "respond-async (RFC 7240): answer 202 with a job at once and assess in the background "
+        "(not with store=false, which is answered at once)",
+        {"type": "string", "examples": ["respond-async"]},
+    ),
+    series_view.PARAMETER,
     _param("model", "query", "CSV uploads: the model name", {"type": "string"}),
     _param("version", "query", "CSV uploads: the model version", {"type": "string"}),
     _param(
@@ -117,6 +108,19 @@ POST_PARAMETERS = [
         "query",
         "CSV uploads: nominal level of the holdout intervals",
         {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 1},
+    ),
+    _param(
+        "baseline",
+        "query",
+        "CSV uploads: compare the holdout with this stored version of the model, or "
+        "latest-pass (the JSON body's baseline.version)",
+        {"type": "string", "minLength": 1, "maxLength": 200},
+    ),
+    _param(
+        "burn_in",
+        "query",
+        "CSV uploads: periods left out at the start of every series, default 0",
+        {"type": "integer", "minimum": 0},
     ),
 ]
 _TRUE = frozenset({"true", "1", "yes", "on"})
@@ -177,9 +181,17 @@ def _idempotency_key(value: str | None) -> str | None:
             "description": "A repeat of an Idempotency-Key with the same body (the "
             "stored result), or a store=false computation"
         },
+        202: {
+            "description": "With Prefer: respond-async: the assessment runs as a job; "
+            "Location names it (GET /v1/jobs/{id})",
+            "model": Job,
+        },
         **_PROBLEMS,
     },
-    openapi_extra={**json_body_doc("AssessmentBody", csv=True), "parameters": POST_PARAMETERS},
+    openapi_extra={
+        **json_body_doc("AssessmentBody", csv=True, columnar=True),
+        "parameters": POST_PARAMETERS,
+    },
 )
 async def post_assessment(
     request: Request,
@@ -187,8 +199,10 @@ async def post_assessment(
     settings: Annotated[Settings, Depends(get_settings)],
     services: Annotated[Services, Depends(get_services)],
 ) -> Response:
-    """Body: JSON (the shape in the contract) or ``text/csv`` long format with the model,
-    version, policy, season_length, model_params and level as query parameters."""
+    """Body: JSON (the shape in the contract), or the long format as ``text/csv``, an Arrow IPC
+    stream or Parquet, with the model, version, policy, season_length, model_params, level,
+    baseline and burn_in as query parameters. ``series`` sizes the answer (all, flagged or
+    none)."""
     # The hottest endpoint checks its token directly, with the store, settings and services it
     # is given: a dependency of its own costs more than the check itself (the other endpoints
     # use the same check as the ``require`` dependency).
@@ -198,24 +212,34 @@ async def post_assessment(
         kind = "json"
     elif is_csv(kind_raw):
         kind = "csv"
+    elif (columnar := columnar_kind(kind_raw)) is not None:
+        kind = columnar
     else:
         raise ApiError(
-            415, f"Content-Type must be application/json or text/csv, got {kind_raw or 'none'}"
+            415,
+            "Content-Type must be application/json, text/csv, "
+            f"{ARROW_STREAM} or {PARQUET}, got {kind_raw[:100] or 'none'}",
         )
     keep = _store_flag(request.query_params.get("store"))
+    shown = series_view.shown_of(request.query_params)
     key = _idempotency_key(request.headers.get("idempotency-key"))
     body = await read_body(request, settings.max_body_bytes)
-    params = {k: v for k, v in request.query_params.items() if k != "store"}
+    params = {k: v for k, v in request.query_params.items() if k not in ("store", "series")}
     # The fingerprint matters only to an Idempotency-Key (its replay and its stored row).
     digest = (
-        assessing.body_hash(kind, params if kind == "csv" else {}, body)
+        assessing.body_hash(kind, params if kind != "json" else {}, body)
         if key is not None and keep
         else None
     )
 
+    if keep and jobs.prefers_async(request.headers.get("prefer")):  # a background job: 202
+        return await jobs.respond_async(
+            store, settings, services, kind=kind, body=body, params=params, key=key, digest=digest
+        )
+
     def replayed() -> assessing.Outcome | None:
         if digest is not None:
-            return assessing.replay(store, key, digest)  # type: ignore[arg-type]
+            return assessing.replay(store, key, digest, shown)  # type: ignore[arg-type]
         return None
 
     def job() -> assessing.Job:
@@ -227,6 +251,7 @@ async def post_assessment(
             idempotency_key=key if keep else None,
             digest=digest,
             timings={"parse": time.perf_counter() - clock},
+            shown=shown,
         )
 
     # Small bodies are parsed on the event loop (a thread hop and the lock hand-over between
@@ -317,25 +342,7 @@ def list_assessments(
         query["cursor"] = next_cursor
         headers["Link"] = f'</v1/assessments?{urlencode(query)}>; rel="next"'
     if wants_csv(request.headers.get("accept")):
-        body = to_csv(
-            SUMMARY_COLUMNS,
-            (
-                (
-                    r.id,
-                    r.created_at.isoformat(),
-                    r.model,
-                    r.version,
-                    r.verdict,
-                    r.n_series,
-                    r.n_failed,
-                    r.n_warned,
-                    r.policy_name,
-                    r.policy_version,
-                )
-                for r in rows
-            ),
-        )
-        return conditional(request, body, CSV, headers)
+        return conditional(request, list_csv(store, rows), CSV, headers)
     body = orjson.dumps({"items": [r.to_dict() for r in rows], "next_cursor": next_cursor})
     return conditional(request, body, JSON, headers)
 
@@ -353,6 +360,7 @@ def stored_or_404(store: Store, assessment_id: str) -> StoredAssessment:
     response_model=AssessmentDocument,
     summary="One assessment's full result, as the POST returned it",
     responses={304: {"description": "Not modified"}, **_READ_PROBLEMS},
+    openapi_extra={"parameters": [series_view.PARAMETER]},
 )
 def get_assessment(
     request: Request,
@@ -360,43 +368,23 @@ def get_assessment(
     principal: Annotated[Any, Depends(require("read"))],
     store: Annotated[Store, Depends(get_store)],
 ) -> Response:
-    return conditional(request, stored_or_404(store, assessment_id).to_json(), JSON)
-
-
-def series_rows(
-    assessment_id: str, series: SeriesTable, check: str | None, status: str | None
-) -> list[dict[str, Any]]:
-    rows = []
-    for s in series:
-        for c in s.checks:
-            if check is not None and c.name != check:
-                continue
-            if status is not None and c.status != status:
-                continue
-            rows.append(
-                {
-                    "assessment_id": assessment_id,
-                    "series_id": s.id,
-                    "series_verdict": str(s.verdict),
-                    "n_obs": s.n_obs,
-                    "check": c.name,
-                    "status": str(c.status),
-                    "statistic": c.statistic,
-                    "p_value": c.p_value,
-                    "p_adjusted": c.p_adjusted,
-                    "message": c.message,
-                    "details": dict(c.details),
-                }
-            )
-    return rows
+    shown = series_view.shown_of(request.query_params)
+    stored = stored_or_404(store, assessment_id)
+    return conditional(request, series_view.stored_answer(stored, shown), JSON)
 
 
 @router.get(
     "/{assessment_id}/series",
     response_model=SeriesRowPage,
-    summary="One flat row per series and check (JSON or CSV)",
+    summary="One flat row per series and check: a JSON page, or CSV, Arrow or Parquet",
     responses={
-        200: {"content": {"text/csv": {}}},
+        200: {
+            "content": {
+                "text/csv": {},
+                series_export.ARROW: {"schema": {"type": "string", "format": "binary"}},
+                series_export.PARQUET: {"schema": {"type": "string", "format": "binary"}},
+            }
+        },
         304: {"description": "Not modified"},
         **_READ_PROBLEMS,
     },
@@ -406,14 +394,23 @@ def get_series_rows(
     assessment_id: str,
     principal: Annotated[Any, Depends(require("read"))],
     store: Annotated[Store, Depends(get_store)],
-    check: Annotated[str | None, Query(description="only this check")] = None,
-    status: Annotated[str | None, Query(description="only rows with this status")] = None,
+    settings: Annotated[Settings, Depends(get_settings)],
+    check: Annotated[str | None, Query(description="only this check (a registered name)")] = None,
+    status: Annotated[CheckStatus | None, Query(description="only rows with this status")] = None,
+    limit: Annotated[int | None, Query(ge=1, description="JSON: rows per page")] = None,
+    cursor: Annotated[str | None, Query(description="JSON: the page after this one")] = None,
 ) -> Response:
+    """``Accept`` chooses JSON (a page of rows, with a ``next`` link), ``text/csv``,
+    ``application/vnd.apache.arrow.stream`` or ``application/vnd.apache.parquet`` (every row
+    asked for, with the common details as columns of their own)."""
+    query = series_export.read_query(request.query_params.multi_items(), settings.page_limit_max)
+    kind = series_export.negotiate(request.headers.get("accept"))
     stored = stored_or_404(store, assessment_id)
     series = SeriesTable.from_dicts([orjson.loads(s) for s in stored.series])
-    rows = series_rows(assessment_id, series, check, status)
-    if wants_csv(request.headers.get("accept")):
-        body = to_csv(SERIES_COLUMNS, ([r[c] for c in SERIES_COLUMNS] for r in rows))
-        return conditional(request, body, CSV)
-    body = orjson.dumps({"assessment_id": assessment_id, "items": rows})
-    return conditional(request, body, JSON)
+    rows = series_export.rows_of(assessment_id, series, query)
+    if kind == series_export.JSON:
+        body, next_link = series_export.page_body(assessment_id, rows, query, request.url.path)
+        headers = {} if next_link is None else {"Link": f'<{next_link}>; rel="next"'}
+        return conditional(request, body, JSON, headers)
+    media = CSV if kind == series_export.CSV else kind
+    return conditional(request, series_export.download(rows, kind), media)

@@ -21,7 +21,8 @@ router = APIRouter(prefix="/v1/checks", tags=["checks"])
 def catalogue() -> dict[str, Any]:
     """Every check with the built-in default policy's settings for it."""
     policy = builtin_default().to_dict()
-    per_check = policy.get("checks") if isinstance(policy.get("checks"), dict) else {}
+    found = policy.get("checks")
+    per_check: dict[str, Any] = found if isinstance(found, dict) else {}
     checks = []
     for spec in CATALOGUE:
         item = asdict(spec)

@@ -9,6 +9,7 @@ assessment is submitted.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Annotated, Any
 from urllib.parse import quote
@@ -25,6 +26,7 @@ from service.results import AssessmentDocument
 from service.settings import Settings
 from service.store.port import Store
 
+from .. import query_check
 from ..auth import authorize
 from ..deps import Services, get_services, get_settings, get_store
 from ..errors import ApiError
@@ -89,7 +91,7 @@ def link_secret(ctx: Context) -> str:
     server made on first use and keeps in its database, shared by every worker and restart."""
     configured = ctx.settings.link_secret
     if configured is not None:
-        secret = configured.get_secret_value()
+        secret: str | None = configured.get_secret_value()
     else:
         services = ctx.services
         secret = services.link_secret
@@ -101,7 +103,7 @@ def link_secret(ctx: Context) -> str:
                         name=LINK_SECRET_NAME, make=links.new_secret
                     )
                     services.link_secret = secret
-    if len(secret.encode()) < links.MIN_SECRET_LENGTH:
+    if secret is None or len(secret.encode()) < links.MIN_SECRET_LENGTH:
         raise ApiError(
             503,
             f"report links are not available: the link secret must be at least "
@@ -138,8 +140,10 @@ async def _admit(request: Request, ctx: Context, assessment_id: str) -> str:
             raise ApiError(403, exc.reason, slug="link-expired", title="Link expired") from None
         except links.LinkInvalid as exc:
             raise ApiError(403, exc.reason, slug="link-invalid", title="Invalid link") from None
+        query_check.check(request)  # once admitted, as for a token
         return link.query
     await _require_read(request, ctx)
+    query_check.check(request)
     return ""
 
 
@@ -180,6 +184,7 @@ def _html(text: str) -> Response:
     response_class=Response,
     responses={200: {"content": {"text/html": {}}}, **_PROBLEMS},
 )
+@query_check.checked_later
 async def get_report(
     request: Request,
     assessment_id: str,
@@ -195,11 +200,17 @@ async def get_report(
 
     def work() -> str:
         from service.report import render_report
+        from service.report.fleet_charts import render_fleet_charts
 
         stored = stored_or_404(ctx.store, assessment_id)
         assessment = AssessmentDocument.from_dict(orjson.loads(stored.to_json()))
+        charts = _chart_cache(ctx.services).get_or_render(
+            (assessment_id, None), lambda: render_fleet_charts(assessment)
+        )
         return render_report(
-            assessment, series_href=lambda sid: f"{base}/series/{quote(sid, safe='')}{suffix}"
+            assessment,
+            series_href=lambda sid: f"{base}/series/{quote(sid, safe='')}{suffix}",
+            fleet_charts=charts,
         )
 
     return _html(await run_in_threadpool(work))
@@ -232,8 +243,35 @@ def _inputs_of(store: Store, assessment_id: str, series_id: str) -> Any:
                 holdout_timestamps=None
                 if s.holdout_timestamps is None
                 else tuple(s.holdout_timestamps),
+                burn_in=s.burn_in,
             )
     return None
+
+
+def baseline_path(store: Store, block: Any, inputs: Any) -> Any:
+    """``inputs`` with the baseline's forecasts on its holdout periods (matched as the
+    assessment matched them), when the assessment had a baseline whose inputs are stored."""
+    from dataclasses import replace
+
+    from .. import baseline
+
+    if not isinstance(block, Mapping) or not inputs.has_holdout:
+        return inputs
+    head = store.assessment_head(assessment_id=str(block.get("assessment_id")))
+    stored = store.series_inputs(assessment_id=str(block.get("assessment_id")))
+    if head is None or not stored:
+        return inputs
+    mine = [s for s in stored if s.series_id == inputs.series_id]
+    source = baseline.Source(
+        requested=str(block.get("requested")), summary=head.summary, inputs=mine
+    )
+    n = inputs.holdout_actuals.size
+    stamps = None if inputs.holdout_timestamps is None else list(inputs.holdout_timestamps)
+    try:
+        found = baseline.match(source, [inputs.series_id], np.array([n]), [stamps], n)
+    except ApiError:  # nothing of this series matched
+        return inputs
+    return replace(inputs, baseline_forecasts=found.forecasts[0], baseline_label=found.version)
 
 
 @router.get(
@@ -242,6 +280,7 @@ def _inputs_of(store: Store, assessment_id: str, series_id: str) -> Any:
     response_class=Response,
     responses={200: {"content": {"text/html": {}}}, **_PROBLEMS},
 )
+@query_check.checked_later
 async def get_series_report(
     request: Request,
     assessment_id: str,
@@ -278,10 +317,11 @@ async def get_series_report(
         def page_of(sid: str | None) -> tuple[str, str] | None:
             return None if sid is None else (sid, f"{base}/series/{quote(sid, safe='')}{suffix}")
 
-        def draw() -> tuple:
+        def draw() -> tuple[Any, ...]:
             inputs = _inputs_of(ctx.store, assessment_id, series_id)
             if inputs is None:
                 raise ApiError(404, f"the inputs of series {series_id!r} were not stored")
+            inputs = baseline_path(ctx.store, assessment.extra.get("baseline"), inputs)
             diag = series_diagnostics(
                 inputs,
                 entry,

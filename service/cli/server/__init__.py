@@ -1,7 +1,8 @@
 """The ``plumbline`` commands that work on the server's own database, apart from the HTTP client.
 
-``serve`` (run the service), ``db upgrade`` (apply the migrations) and ``tokens`` with
-``--database`` (or no server given: a first set-up before any admin token exists). They use the
+``serve`` (run the service), ``work`` (run its background jobs), ``db upgrade`` (apply the
+migrations) and ``tokens`` with ``--database`` (or no server given: a first set-up before any
+admin token exists). They use the
 store and the API; the client side of the command (``service.cli``) imports neither, and
 imports this package only to run one of these commands.
 """
@@ -20,6 +21,10 @@ def run(args: argparse.Namespace, out: IO[str]) -> Exit:
         from .admin import serve
 
         return serve(args, out)
+    if args.command == "work":
+        from .admin import work
+
+        return work(args, out)
     if args.command == "db":
         from .admin import db_upgrade
 

@@ -25,6 +25,61 @@ def serve(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
     return Exit.PASSES
 
 
+def work(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
+    """Run the database's background jobs in this process until SIGTERM or SIGINT."""
+    import signal
+    import threading
+
+    from ...api.jobs import JobRunner
+    from ...settings import Settings
+    from ...store import StoreUnavailable, make_store
+
+    base = Settings()
+    overrides: dict[str, object] = {"database_url": database_url(args)}
+    if args.threads is not None:
+        overrides["job_workers"] = args.threads
+    elif base.job_workers < 1:
+        overrides["job_workers"] = 1
+    settings = base.model_copy(update=overrides)
+    store = make_store(settings.database_url)
+    try:
+        try:
+            ready = store.readiness()
+        except StoreUnavailable as exc:
+            raise CliError(
+                f"cannot reach the database {safe_url(settings.database_url)}: {exc}",
+                Exit.UNREACHABLE,
+            ) from None
+        if not ready.migrated:
+            raise CliError(
+                f"the database {safe_url(settings.database_url)} is at schema revision "
+                f"{ready.schema_revision or 'none'}, this build needs {ready.head_revision}: "
+                "run plumbline db upgrade"
+            )
+        stop = threading.Event()
+        previous = {
+            sig: signal.signal(sig, lambda *_: stop.set())
+            for sig in (signal.SIGTERM, signal.SIGINT)
+        }
+        runner = JobRunner(store, settings)
+        runner.start()
+        out.write(
+            f"running background jobs from {safe_url(settings.database_url)} "
+            f"in {settings.job_workers} thread(s); SIGTERM or Ctrl-C stops\n"
+        )
+        out.flush()
+        try:
+            stop.wait()
+        finally:
+            runner.stop(timeout=settings.job_lease_seconds)
+            for sig, handler in previous.items():
+                signal.signal(sig, handler)
+    finally:
+        store.close()
+    out.write("stopped\n")
+    return Exit.PASSES
+
+
 def db_upgrade(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
     from sqlalchemy.exc import ArgumentError, NoSuchModuleError, SQLAlchemyError
 

@@ -8,7 +8,7 @@ from ..batch import SeriesBatch
 from ..holdout import holdout_pairs, holdout_reason
 from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
 from ..relative_accuracy import rmsse
-from ..results import CheckResult, skip_reasons_and_ran
+from ..results import CheckResult, is_none, skip_reasons_and_ran
 from ..types import FloatMatrix, FloatVector, InputError
 
 
@@ -78,7 +78,7 @@ def rmsse_check(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     holdout, when the training series is too short for one difference, or when the scale is 0.
     """
     found = rmsse(batch, min_obs=min_obs)
-    ran = np.equal(found.skip_reason, None)
+    ran = is_none(found.skip_reason)
     return CheckResult(
         name="rmsse",
         kind="metric",

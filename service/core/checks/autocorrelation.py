@@ -27,7 +27,7 @@ from ..registry import (
     Option,
     fmt,
 )
-from ..results import CheckResult, skip_reasons_and_ran, to_python
+from ..results import NONE, CheckResult, skip_reasons_and_ran, to_python
 from ..robust_portmanteau import robust_portmanteau
 from ..tails import chi2_sf
 from ..types import BoolMatrix, FloatMatrix, FloatVector, InputError, IntVector
@@ -295,7 +295,7 @@ def autocorrelation_test(
         "seasonal_lags": k_seasonal.astype(np.int64),
         "seasonal_statistic": np.where(ran, q_seasonal, np.nan),
         "seasonal_p_value": np.where(ran, p_seasonal, np.nan),
-        "decided_by": np.where(ran, np.where(by_seasonal, "seasonal", "short"), None),
+        "decided_by": np.where(ran, np.where(by_seasonal, "seasonal", "short"), NONE),
         "lags_grown": grown,
         "season_length": np.full(n.shape, m),
         "method": np.full(n.shape, "robust", dtype=object),

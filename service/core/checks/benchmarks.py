@@ -14,8 +14,8 @@ from ..fleet_parts import FleetPart
 from ..fleet_pooling import pooled_mean
 from ..holdout import BENCHMARKS, benchmark_forecasts, holdout_pairs, holdout_reason
 from ..registry import CheckDef, CheckPolicy, Finding, FleetFinding, FleetTest, Option, fmt
-from ..relative_accuracy import fleet_avg_rel_mae
-from ..results import CheckResult, skip_reasons_and_ran, to_python
+from ..relative_accuracy import error_ratio, fleet_avg_rel_mae
+from ..results import NONE, CheckResult, is_none, skip_reasons_and_ran, to_python
 from ..tails import t_sf
 from ..types import FloatMatrix, InputError
 
@@ -98,7 +98,7 @@ def skill_over_benchmarks(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResul
         statistic=np.where(ran, skill, np.nan),
         p_value=np.full(n, np.nan),
         details={
-            "best_benchmark": np.where(ran, best_name, None),
+            "best_benchmark": np.where(ran, best_name, NONE),
             "skill": np.where(ran, skill, np.nan),
             "rmse_model": np.where(ran, model_rmse, np.nan),
             "rmse_best": np.where(ran, best, np.nan),
@@ -144,7 +144,7 @@ def benchmark_skill(
     cmp = compare_with_benchmarks(batch, loss=loss, benchmarks=benchmarks, min_obs=min_obs)
     n = batch.n_series
     names = cmp.benchmarks
-    ran = np.equal(cmp.skip_reason, None) & ~np.isnan(cmp.p_worse_any)
+    ran = is_none(cmp.skip_reason) & ~np.isnan(cmp.p_worse_any)
     p_holm = np.where(np.isnan(cmp.p_holm), np.inf, cmp.p_holm)
     best = np.argmin(p_holm, axis=0) if names else np.zeros(n, dtype=np.int64)
     cols = np.arange(n)
@@ -156,27 +156,18 @@ def benchmark_skill(
         forecasts = benchmark_forecasts(batch, err.shape[1])
         for j, name in enumerate(names):
             b_err = batch.holdout.actuals - forecasts[name]  # type: ignore[union-attr]
-            both = ok & ~np.isnan(b_err)
-            with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-                if loss == "squared":
-                    m_size = _rmse(err, both, both.sum(axis=1))
-                    b_size = _rmse(np.where(both, b_err, 0.0), both, both.sum(axis=1))
-                else:
-                    count = np.maximum(both.sum(axis=1), 1)
-                    m_size = np.where(both, np.abs(err), 0.0).sum(axis=1) / count
-                    b_size = np.where(both, np.abs(b_err), 0.0).sum(axis=1) / count
-                ratio = m_size / b_size
+            ratio = error_ratio(np.where(ok, err, np.nan), b_err, loss)
             relative = np.where(best == j, ratio, relative)
     # The reason a series could not be compared: no holdout, no benchmark, or the DM test's.
-    no_run = np.where(np.equal(cmp.skip_reason, None), "no comparison could run", cmp.skip_reason)
+    no_run = np.where(is_none(cmp.skip_reason), "no comparison could run", cmp.skip_reason)
     first = np.isin(
         skill.skip_reason,
         [holdout_reason(1), "no benchmark could be fitted to the training actuals"],
     )
-    reasons = np.where(ran, None, np.where(first, skill.skip_reason, no_run))
+    reasons = np.where(ran, NONE, np.where(first, skill.skip_reason, no_run))
     chosen = np.array(names, dtype=object)[best] if names else np.full(n, None, dtype=object)
     details = {
-        "compared_with": np.where(ran, chosen, None),
+        "compared_with": np.where(ran, chosen, NONE),
         "relative_error": np.where(ran & np.isfinite(relative), relative, np.nan),
         "loss": np.full(n, loss, dtype=object),
         **{f"p_{name}": np.where(ran, cmp.p_holm[j], np.nan) for j, name in enumerate(names)},

@@ -29,7 +29,7 @@ from ..registry import (
     Option,
     fmt,
 )
-from ..results import CheckResult, to_python
+from ..results import CheckResult, is_none, to_python
 from .bias import MIN_PERCENT, MIN_SD, _material
 
 if TYPE_CHECKING:
@@ -44,7 +44,7 @@ def holdout_bias_check(inputs: CheckInputs, *, min_obs: int = 3) -> CheckResult:
     judged against (``residual_rms``)."""
     batch = inputs.batch
     found = holdout_bias(batch, min_obs=min_obs)
-    ran = np.equal(found.skip_reason, None)
+    ran = is_none(found.skip_reason)
     return CheckResult(
         name="holdout_bias",
         kind="test",

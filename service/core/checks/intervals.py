@@ -27,7 +27,7 @@ from ..registry import (
     Option,
     fmt,
 )
-from ..results import CheckResult, skip_reasons_and_ran, to_python
+from ..results import CheckResult, is_none, skip_reasons_and_ran, to_python
 from ..tails import chi2_sf, t_sf
 from ..types import FloatMatrix, FloatVector
 
@@ -128,7 +128,7 @@ def _run(inputs: CheckInputs, **options: Any) -> CheckResult:
     batch = inputs.batch
     result = interval_coverage(batch, **options)
     dep = miss_dependence(batch)
-    ok = np.equal(dep.skip_reason, None) & ~result.skipped
+    ok = is_none(dep.skip_reason) & ~result.skipped
     details = dict(result.details)
     details["independence_lr"] = np.where(ok, dep.lr_ind, np.nan)
     details["independence_p_value"] = np.where(ok, dep.p_ind, np.nan)

@@ -8,7 +8,7 @@ from scipy.special import ndtr, ndtri
 
 from ..batch import Residuals
 from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
-from ..results import CheckResult, skip_reasons_and_ran
+from ..results import NONE, CheckResult, skip_reasons_and_ran
 from ..tails import chi2_sf
 from ..types import FloatMatrix, FloatVector
 
@@ -159,7 +159,7 @@ def normality(res: Residuals, *, min_obs: int = JB_MIN_OBS) -> CheckResult:
             **jb.details,
             "jarque_bera": jb.statistic,
             "jarque_bera_p_value": jb.p_value,
-            "method": np.where(ran, np.where(use, "shapiro-wilk", "jarque-bera"), None),
+            "method": np.where(ran, np.where(use, "shapiro-wilk", "jarque-bera"), NONE),
         },
         skip_reason=jb.skip_reason,
         null_hypothesis="the residuals are normally distributed",

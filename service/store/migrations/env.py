@@ -15,7 +15,10 @@ def run_migrations_online() -> None:
     if connection is None:
         from service.store.engine import make_engine
 
-        engine = make_engine(config.get_main_option("sqlalchemy.url"))
+        url = config.get_main_option("sqlalchemy.url")
+        if url is None:
+            raise RuntimeError("alembic: no sqlalchemy.url and no connection given")
+        engine = make_engine(url)
         with engine.begin() as conn:
             context.configure(
                 connection=conn, target_metadata=target_metadata, render_as_batch=True
