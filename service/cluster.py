@@ -15,10 +15,12 @@ from collections.abc import Iterable, Iterator
 from contextlib import contextmanager
 from typing import Any
 
+from service.core import fleet_parts
 from service.core.batch import SeriesBatch
-from service.core.chunked import Progress, assess_chunks
+from service.core.chunked import PART_BLOCKS, Progress, assess_chunks
 from service.core.gate import Assessment
 from service.core.policy import Policy
+from service.results import AssessmentResult
 from service.settings import Settings
 
 CONNECT_TIMEOUT_SECONDS = 30
@@ -68,7 +70,34 @@ def assess_chunks_on(
     *,
     settings: Settings | None = None,
     total: int | None = None,
+    part_blocks: int = PART_BLOCKS,
 ) -> Assessment:
     """:func:`~service.core.chunked.assess_chunks` on the configured cluster, or here."""
     with cluster_executor(settings) as executor:
-        return assess_chunks(chunks, policy, progress, executor, total=total)
+        return assess_chunks(
+            chunks, policy, progress, executor, total=total, part_blocks=part_blocks
+        )
+
+
+JOB_PART_BLOCKS = PART_BLOCKS
+"""Blocks of series per part when a job's fleet is assessed in chunks."""
+
+
+def chunked_work(job: Any, progress: Progress) -> AssessmentResult:
+    """A background job's work in parts (``service.api.jobs.JobRunner``'s ``work``): the
+    job's validated fleet assessed part by part with :func:`assess_chunks_on` (on the cluster
+    that ``PLUMBLINE_DASK_SCHEDULER`` names, else here), its progress reported after each part.
+    The result is the one :func:`service.api.jobs.assess_input` gives, to the last bit."""
+    batch = job.request.batch
+    n = batch.n_series
+    size = JOB_PART_BLOCKS * fleet_parts.BLOCK
+    progress(0, n)
+    chunks = (batch.rows(slice(lo, lo + size)) for lo in range(0, n, size))
+    found = assess_chunks_on(chunks, job.policy, progress, total=n, part_blocks=JOB_PART_BLOCKS)
+    return found.result()
+
+
+def job_work(settings: Settings) -> Any:
+    """The work the job runner is given: :func:`chunked_work` when a Dask scheduler is
+    configured, else ``None`` (the runner's default, one vectorised pass)."""
+    return chunked_work if settings.dask_scheduler else None

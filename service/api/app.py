@@ -7,6 +7,7 @@ from typing import Any
 
 from fastapi import Depends, FastAPI
 
+from service.cluster import job_work
 from service.settings import Settings
 from service.store import make_store
 
@@ -56,7 +57,8 @@ def create_app(settings: Settings | None = None) -> FastAPI:
         store.migrate()
         announce_first_token(ensure_first_token(store, settings))
 
-    runner = JobRunner(store, settings)
+    work = job_work(settings)
+    runner = JobRunner(store, settings) if work is None else JobRunner(store, settings, work=work)
 
     @asynccontextmanager
     async def lifespan(_app: FastAPI) -> Any:

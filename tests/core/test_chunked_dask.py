@@ -64,3 +64,25 @@ def test_an_unreachable_scheduler_is_named():
     with pytest.raises(ClusterUnavailable, match="cannot reach the Dask scheduler"):
         with cluster_executor(settings, timeout=1):
             pass
+
+
+def test_a_jobs_work_in_parts_on_the_cluster(cluster, monkeypatch):
+    # The job runner's work when a scheduler is configured: the parsed upload's fleet in
+    # parts on the cluster, the same result as the runner's default one-pass work.
+    from service.api.jobs import JobInput, assess_input
+    from service.cluster import chunked_work, job_work
+    from service.ingest import parse_csv_request
+
+    from ..api.test_parquet_chunks import PARAMS, invented_long, to_csv
+
+    monkeypatch.setattr(fleet_parts, "BLOCK", 8)
+    monkeypatch.setattr("service.cluster.JOB_PART_BLOCKS", 1)
+    monkeypatch.setenv("PLUMBLINE_DASK_SCHEDULER", cluster.scheduler_address)
+    assert job_work(Settings()) is chunked_work
+    assert job_work(Settings(dask_scheduler=None)) is None
+    req = parse_csv_request(to_csv(invented_long(n=30)), PARAMS)
+    job = JobInput(request=req, policy=default_policy())
+    seen = []
+    got = chunked_work(job, lambda done, total: seen.append((done, total)))
+    assert got.to_dict() == assess_input(job, lambda done, total: None).to_dict()
+    assert seen[0] == (0, 30) and seen[-1] == (30, 30) and len(seen) == 5

@@ -31,6 +31,7 @@ def work(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
     import threading
 
     from ...api.jobs import JobRunner
+    from ...cluster import job_work
     from ...settings import Settings
     from ...store import StoreUnavailable, make_store
 
@@ -61,7 +62,10 @@ def work(args: argparse.Namespace, out: IO[str] = sys.stdout) -> Exit:
             sig: signal.signal(sig, lambda *_: stop.set())
             for sig in (signal.SIGTERM, signal.SIGINT)
         }
-        runner = JobRunner(store, settings)
+        work = job_work(settings)
+        runner = (
+            JobRunner(store, settings) if work is None else JobRunner(store, settings, work=work)
+        )
         runner.start()
         out.write(
             f"running background jobs from {safe_url(settings.database_url)} "
