@@ -101,7 +101,7 @@ def assess_part(batch: SeriesBatch, policy: Policy) -> PartResult:
     res = checks.residuals
     return PartResult(
         ids=batch.ids,
-        checks=checks.checks,
+        checks=dict(checks.checks),
         residuals={name: getattr(res, name) for name in _RESIDUAL_VECTORS},
         given_weights=batch.weights,
         weights_given=batch.weights_given,
