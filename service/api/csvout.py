@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import csv
 import io
-from collections.abc import Iterable, Sequence
+from collections.abc import Iterable, Iterator, Sequence
 from typing import Any
 
 import orjson
@@ -44,14 +44,11 @@ def to_csv(header: Sequence[str], rows: Iterable[Sequence[Any]]) -> bytes:
     return out.getvalue().encode("utf-8")
 
 
-def wants_csv(accept: str | None) -> bool:
-    """Whether an ``Accept`` header asks for CSV ahead of JSON."""
-    if not accept:
-        return False
-    best: tuple[float, int, str] | None = None
+def accept_items(accept: str) -> Iterator[tuple[float, int, str]]:
+    """The media ranges of an ``Accept`` header (RFC 9110 section 12.5.1): ``(q, position,
+    type)`` each, the type lower-cased, ``q`` 1 unless given (0 when unreadable)."""
     for position, part in enumerate(accept.split(",")):
         fields = part.strip().split(";")
-        kind = fields[0].strip().lower()
         q = 1.0
         for param in fields[1:]:
             name, _, val = param.strip().partition("=")
@@ -60,6 +57,15 @@ def wants_csv(accept: str | None) -> bool:
                     q = float(val)
                 except ValueError:
                     q = 0.0
+        yield q, position, fields[0].strip().lower()
+
+
+def wants_csv(accept: str | None) -> bool:
+    """Whether an ``Accept`` header asks for CSV ahead of JSON."""
+    if not accept:
+        return False
+    best: tuple[float, int, str] | None = None
+    for q, position, kind in accept_items(accept):
         if kind in ("text/csv", "application/json", "application/*", "*/*", "text/*"):
             rank = (q, -position, kind)
             if best is None or rank[:2] > best[:2]:

@@ -30,7 +30,7 @@ import orjson
 from service.core.registry import all_checks
 from service.results import SeriesTable
 
-from .csvout import to_csv
+from .csvout import accept_items, to_csv
 from .errors import ApiError
 
 JSON = "application/json"
@@ -162,17 +162,7 @@ def negotiate(accept: str | None) -> str:
     if not accept:
         return JSON
     best: tuple[float, int, str] | None = None
-    for position, part in enumerate(accept.split(",")):
-        fields = part.strip().split(";")
-        kind = fields[0].strip().lower()
-        q = 1.0
-        for param in fields[1:]:
-            name, _, val = param.strip().partition("=")
-            if name.strip() == "q":
-                try:
-                    q = float(val)
-                except ValueError:
-                    q = 0.0
+    for q, position, kind in accept_items(accept):
         if kind in ("*/*", "application/*"):
             kind = JSON
         elif kind == "text/*":
