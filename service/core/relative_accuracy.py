@@ -13,6 +13,26 @@ from .results import skip_reasons_and_ran
 from .types import FloatMatrix, FloatVector, InputError, IntVector, ObjectVector
 
 
+@dataclass(frozen=True)
+class RelativeMae:
+    """An average relative MAE: ``exp`` of a pooled mean log ratio of errors, with the
+    interval's ends transformed the same way (Davydenko & Fildes 2013)."""
+
+    estimate: float
+    ci_low: float
+    ci_high: float
+    n_series: int
+
+    @classmethod
+    def of(cls, pooled: PooledMean) -> RelativeMae:
+        return cls(
+            estimate=float(np.exp(pooled.estimate)),
+            ci_low=float(np.exp(pooled.ci_low)),
+            ci_high=float(np.exp(pooled.ci_high)),
+            n_series=pooled.n_series,
+        )
+
+
 def _root_mean_square(x: FloatMatrix, ok: np.ndarray) -> tuple[FloatVector, IntVector]:
     """``sqrt(mean x^2)`` over ``ok`` per row, computed over the row's largest ``|x|`` so squares
     neither overflow nor underflow; and the count."""

@@ -39,7 +39,7 @@ from ..registry import (
     Option,
     fmt,
 )
-from ..relative_accuracy import avg_rel_mae, error_ratio
+from ..relative_accuracy import RelativeMae, avg_rel_mae, error_ratio
 from ..results import CheckResult, skip_reasons_and_ran, to_python
 from ..tails import t_sf
 from ..types import FloatMatrix, InputError
@@ -292,17 +292,6 @@ class FleetBaseline:
         return {k: to_python(v) for k, v in vars(self).items()}
 
 
-@dataclass(frozen=True)
-class _Ratio:
-    """The average relative MAE of the new version against the baseline (``exp`` of the
-    pooled log ratio)."""
-
-    estimate: float
-    ci_low: float
-    ci_high: float
-    n_series: int
-
-
 _NAN = float("nan")
 _NO_FLEET = FleetBaseline(None, *(_NAN,) * 6, 0, 0, 0, 0, *(_NAN,) * 6, None)
 
@@ -355,12 +344,7 @@ def _fleet(
     pooled = pooled_mean(rows["log_ratio"], rows["steps"])
     if pooled.n_series < 2:
         return FleetFinding(_NO_FLEET)
-    r = _Ratio(
-        estimate=float(np.exp(pooled.estimate)),
-        ci_low=float(np.exp(pooled.ci_low)),
-        ci_high=float(np.exp(pooled.ci_high)),
-        n_series=pooled.n_series,
-    )
+    r = RelativeMae.of(pooled)
     p_fail = _one_sided(pooled.estimate, pooled.std_error, float(np.log1p(margin)), pooled.df)
     p_worse = _one_sided(pooled.estimate, pooled.std_error, 0.0, pooled.df)
     p_adj = benjamini_hochberg_rows(np.where(use, result.p_value, np.nan)[None, :])[0]

@@ -14,7 +14,7 @@ from ..fleet_parts import FleetPart
 from ..fleet_pooling import pooled_mean
 from ..holdout import BENCHMARKS, benchmark_forecasts, holdout_pairs, holdout_reason
 from ..registry import CheckDef, CheckPolicy, Finding, FleetFinding, FleetTest, Option, fmt
-from ..relative_accuracy import error_ratio, fleet_avg_rel_mae
+from ..relative_accuracy import RelativeMae, error_ratio, fleet_avg_rel_mae
 from ..results import NONE, CheckResult, is_none, skip_reasons_and_ran, to_python
 from ..tails import t_sf
 from ..types import FloatMatrix, InputError
@@ -240,16 +240,6 @@ class FleetAccuracy:
         return {k: to_python(v) for k, v in vars(self).items()}
 
 
-@dataclass(frozen=True)
-class _Ratio:
-    """The average relative MAE against one benchmark (``exp`` of the pooled log ratio)."""
-
-    estimate: float
-    ci_low: float
-    ci_high: float
-    n_series: int
-
-
 _NO_FLEET_ACCURACY = FleetAccuracy(None, *(float("nan"),) * 4, 0, float("nan"), None)
 
 
@@ -295,12 +285,7 @@ def _fleet_accuracy(
     p_adj = holm(np.array([f[0] for f in found]))
     j = int(np.argmin(p_adj))
     _, name, pooled = found[j]
-    r = _Ratio(
-        estimate=float(np.exp(pooled.estimate)),
-        ci_low=float(np.exp(pooled.ci_low)),
-        ci_high=float(np.exp(pooled.ci_high)),
-        n_series=pooled.n_series,
-    )
+    r = RelativeMae.of(pooled)
     summary = FleetAccuracy(
         benchmark=name,
         relative_mae=r.estimate,
