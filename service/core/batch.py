@@ -140,7 +140,7 @@ class Baseline:
     upper: FloatMatrix | None = None
     label: str | None = None
 
-    def rows(self, index: np.ndarray) -> Baseline:
+    def rows(self, index: slice | np.ndarray) -> Baseline:
         """The baseline of the rows in ``index`` (an index array or a slice)."""
         return Baseline(
             forecasts=self.forecasts[index],
@@ -176,55 +176,36 @@ class SeriesBatch:
 
     def rows(self, part: slice) -> SeriesBatch:
         """The batch restricted to the rows in ``part`` (a slice; views of the matrices)."""
-        h = self.holdout
-        holdout = None
-        if h is not None:
-            holdout = Holdout(
-                actuals=h.actuals[part],
-                forecasts=h.forecasts[part],
-                lower=None if h.lower is None else h.lower[part],
-                upper=None if h.upper is None else h.upper[part],
-                level=None if h.level is None else h.level[part],
-            )
-        return SeriesBatch(
-            ids=self.ids[part],
-            actuals=self.actuals[part],
-            fitted=self.fitted[part],
-            weights=self.weights[part],
-            season_length=self.season_length,
-            model_params=self.model_params,
-            holdout=holdout,
-            lengths=self.lengths[part],
-            burn_in=self.burn_in[part],
-            weights_given=self.weights_given[part],
-            baseline=None if self.baseline is None else self.baseline.rows(part),  # type: ignore[arg-type]
-        )
+        return self._select(part, self.ids[part])
 
     def take(self, index: np.ndarray) -> SeriesBatch:
         """The batch restricted (and reordered) to the rows in ``index``."""
         index = np.asarray(index)
+        return self._select(index, tuple(self.ids[i] for i in index))
+
+    def _select(self, rows: slice | np.ndarray, ids: tuple[str, ...]) -> SeriesBatch:
         h = self.holdout
         holdout = None
         if h is not None:
             holdout = Holdout(
-                actuals=h.actuals[index],
-                forecasts=h.forecasts[index],
-                lower=None if h.lower is None else h.lower[index],
-                upper=None if h.upper is None else h.upper[index],
-                level=None if h.level is None else h.level[index],
+                actuals=h.actuals[rows],
+                forecasts=h.forecasts[rows],
+                lower=None if h.lower is None else h.lower[rows],
+                upper=None if h.upper is None else h.upper[rows],
+                level=None if h.level is None else h.level[rows],
             )
         return SeriesBatch(
-            ids=tuple(self.ids[i] for i in index),
-            actuals=self.actuals[index],
-            fitted=self.fitted[index],
-            weights=self.weights[index],
+            ids=ids,
+            actuals=self.actuals[rows],
+            fitted=self.fitted[rows],
+            weights=self.weights[rows],
             season_length=self.season_length,
             model_params=self.model_params,
             holdout=holdout,
-            lengths=self.lengths[index],
-            burn_in=self.burn_in[index],
-            weights_given=self.weights_given[index],
-            baseline=None if self.baseline is None else self.baseline.rows(index),
+            lengths=self.lengths[rows],
+            burn_in=self.burn_in[rows],
+            weights_given=self.weights_given[rows],
+            baseline=None if self.baseline is None else self.baseline.rows(rows),
         )
 
 
