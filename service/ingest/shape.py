@@ -118,7 +118,15 @@ SERIES: tuple[FieldSpec, ...] = (
         description="One-step in-sample fitted values, same length; null where none.",
     ),
     FieldSpec("timestamps", "strings", description="ISO 8601, strictly increasing."),
-    FieldSpec("weight", "number", minimum=0, description="Default: sum of |actuals|."),
+    FieldSpec(
+        "weight",
+        "number",
+        minimum=0,
+        description=(
+            "Used when the policy weighs series as given (`given`, or `auto` when weights "
+            "are sent). Default: the volume, sum over periods of max(|actual|, |fitted|)."
+        ),
+    ),
     FieldSpec(
         "burn_in",
         "integer",
