@@ -312,7 +312,7 @@ def run_cell(client: Client, cell: Cell, reps: int, seed: int, detail: bool) -> 
             cell.warns += v in ("warn", "fail")
             if v != "pass":
                 names = {c["name"] for c in doc["checks"] if c["status"] in ("warn", "fail")}
-                names |= {r["check"] for r in doc.get("reasons") or []}
+                names |= {r["check"] for r in doc.get("reasons") or [] if not r.get("series_id")}
                 for name in names:
                     cell.culprits[name] = cell.culprits.get(name, 0) + 1
             fa = (doc.get("fleet") or {}).get("autocorrelation") or {}
@@ -459,7 +459,8 @@ def edge_probes(client: Client, tmp: Path) -> list[Probe]:
         out.append(
             Probe(
                 f"every fitted value null -> CLI exit code non-zero ({mode[0]})",
-                f"plumbline assess all-null.json {' '.join(m for m in mode if m != TOKEN)}",
+                "plumbline assess all-null.json "
+                + " ".join({client.url: "URL", TOKEN: "TOKEN"}.get(m, m) for m in mode),
                 f"exit {p.returncode}; {(p.stdout + p.stderr).strip().splitlines()[:1]}",
                 p.returncode != 0,
             )
@@ -771,6 +772,38 @@ def edge_probes(client: Client, tmp: Path) -> list[Probe]:
                 st in (200, 201) and not bad,
             )
         )
+
+    # 7b. the OpenAPI document says the same about the default weight
+    oa = client.http.get("/openapi.json").text
+    says_actuals_only = "Default: sum of |actuals|" in oa
+    out.append(
+        Probe(
+            "the OpenAPI description of series[].weight says what the service does "
+            "(volume = sum max(|actual|, |fitted|))",
+            "GET /openapi.json, the series' weight field",
+            "description: 'Default: sum of |actuals|.'"
+            if says_actuals_only
+            else "no 'sum of |actuals|' description",
+            not says_actuals_only,
+        )
+    )
+
+    # 1b. a large fleet where a few series have no fitted value at all
+    ser = [white_series(rng, 60, f"s{i}") for i in range(200)]
+    for i in range(3):
+        ser[i]["fitted"] = [None] * 60
+    st, doc = post(envelope(ser))
+    sv = [x["verdict"] for x in doc.get("series", [])[:3]]
+    out.append(
+        Probe(
+            "fleet of 200, 3 series with every fitted value null (1.5% of the weight, under the "
+            "2% warn share): those series fail; the fleet (README share rule) may pass",
+            "200 white-noise series of 60, s0-s2 fitted all null",
+            f"{st}, fleet {doc.get('verdict')}, s0-s2 {sv}; fleet-level reasons "
+            f"{[r['message'][:60] for r in doc.get('reasons', []) if not r.get('series_id')]}",
+            st in (200, 201) and sv == ["fail"] * 3,
+        )
+    )
 
     # 9. the tracking signal's sentence never contradicts its number
     cases = []
