@@ -30,7 +30,7 @@ import threading
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from http import HTTPStatus
-from typing import Any
+from typing import IO, Any
 
 import numpy as np
 import orjson
@@ -47,12 +47,13 @@ from service.settings import Settings
 from service.store.port import IdempotencyConflict, JobLost, Store, StoreError, StoreUnavailable
 from service.store.records import ClaimedJob, NewJob, StoredJob, new_id, utcnow
 
-from . import assessing
+from . import assessing, parquet_jobs, policy_lookup
 from .deps import Services
 from .errors import INTERNAL_ERROR, TYPE_PREFIX, ApiError
 from .gcpause import paused_gc
 from .httputil import JSON
 from .policy_lookup import policy_from_document
+from .spool import read_all
 
 log = logging.getLogger("plumbline.jobs")
 
@@ -284,7 +285,7 @@ def submit(
     settings: Settings,
     *,
     kind: str,
-    body: bytes,
+    body: bytes | IO[bytes],
     params: Mapping[str, str],
     key: str | None,
     digest: str | None,
@@ -302,27 +303,49 @@ def submit(
         found = store.find_job_by_key(key=key)
         if found is not None:
             return _same_key(found, key, digest)
-    req = assessing.parse(kind, body, params, settings)
-    pending = assessing.Job(req=req, store=True, idempotency_key=key, digest=digest)
-    (problem,) = assessing.resolve_policies(store, [pending])
-    if problem is not None:
-        raise problem
-    # A baseline that cannot be compared is refused now, as a synchronous POST would; the
-    # job matches it again when it runs (latest-pass: the newest passing version then).
-    _baseline_problem(store, pending)
-    assert pending.document is not None
-    record = NewJob(
-        job_id=new_id(),
-        created_at=utcnow(),
-        model=req.model,
-        version=req.version,
-        n_series=req.n_series,
-        input=encode_request(req),
-        policy_document=pending.document,
-        assessment_id=new_id(),
-        idempotency_key=key,
-        body_hash=digest,
-    )
+    described = None
+    if kind == "parquet":  # read in chunks when it runs, unless it cannot be (then None)
+        from . import parquet_jobs
+
+        described = parquet_jobs.describe(body, params, settings)
+    if described is not None:
+        _policy, document = policy_lookup.resolve(store, described.policy)
+        record = NewJob(
+            job_id=new_id(),
+            created_at=utcnow(),
+            model=described.model,
+            version=described.version,
+            n_series=described.n_series,
+            input=described.encode(),
+            input_parts=parquet_jobs.input_parts(body),
+            policy_document=document,
+            assessment_id=new_id(),
+            idempotency_key=key,
+            body_hash=digest,
+        )
+    else:
+        req = assessing.parse(kind, read_all(body), params, settings)
+        pending = assessing.Job(req=req, store=True, idempotency_key=key, digest=digest)
+        (problem,) = assessing.resolve_policies(store, [pending])
+        if problem is not None:
+            raise problem
+        # A baseline that cannot be compared is refused now, as a synchronous POST would; the
+        # job matches it again when it runs (latest-pass: the newest passing version then).
+        _baseline_problem(store, pending)
+        assert pending.document is not None
+        record = NewJob(
+            job_id=new_id(),
+            created_at=utcnow(),
+            model=req.model,
+            version=req.version,
+            n_series=req.n_series,
+            input=encode_request(req),
+            policy_document=pending.document,
+            assessment_id=new_id(),
+            idempotency_key=key,
+            body_hash=digest,
+        )
+        del req, pending
     try:
         return Submitted(job=store.create_job(record))
     except IdempotencyConflict:  # the same key submitted at the same moment
@@ -338,7 +361,7 @@ async def respond_async(
     services: Services,
     *,
     kind: str,
-    body: bytes,
+    body: bytes | IO[bytes],
     params: Mapping[str, str],
     key: str | None,
     digest: str | None,
@@ -511,6 +534,9 @@ class JobRunner:
                     job_id=job.id, claim=claimed.claim, assessment_id=found.summary.id
                 )
                 return
+            if parquet_jobs.is_described(claimed.input):
+                self._run_parts(claimed, beat)
+                return
             req = decode_request(claimed.input)
             policy = policy_from_document(claimed.policy_document)
             pending = assessing.Job(
@@ -535,6 +561,22 @@ class JobRunner:
         except Exception:
             log.exception("jobs: %s failed", job.id)
             self._fail(claimed, _problem(500, INTERNAL_ERROR, "internal-error"))
+
+    def _run_parts(self, claimed: ClaimedJob, beat: _Heartbeat) -> None:
+        """A Parquet job stored in parts: assessed chunk by chunk, stored part by part
+        (:mod:`service.api.parquet_jobs`)."""
+        from service.cluster import assess_chunks_on
+
+        settings = self.settings
+
+        def assess(chunks: Any, policy: Policy, progress: Any, *, total: int) -> Any:
+            return assess_chunks_on(chunks, policy, progress, settings=settings, total=total)
+
+        policy = policy_from_document(claimed.policy_document)
+        with parquet_jobs.prepared(
+            self.store, settings, claimed, beat.progress, assess, policy
+        ) as record:
+            self._finish(claimed, record)  # the rows are made while they are written
 
     def _finish(self, claimed: ClaimedJob, record: Any) -> None:
         job = claimed.job
@@ -589,7 +631,7 @@ class _Heartbeat:
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._run, name="plumbline-job-lease", daemon=True)
 
-    def progress(self, done: int, total: int) -> None:
+    def progress(self, done: int, total: int | None) -> None:
         self.done = int(done)
 
     def __enter__(self) -> _Heartbeat:
