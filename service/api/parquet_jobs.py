@@ -58,6 +58,9 @@ PART_BYTES = 4 * MIB
 SERIES_PER_CHUNK = 16_384
 """Series per chunk read from the file when the job runs."""
 
+WRITE_SERIES = 2_048
+"""Series whose rows and inputs are made and written at a time."""
+
 MAGIC = b"plumbline:parquet-parts:1\n"
 """How a job's ``input`` that describes parts (not ``.npz`` arrays) begins."""
 
@@ -301,12 +304,28 @@ def prepared(
         head = orjson.dumps(data, option=_DUMP)
 
         def make() -> Iterator[tuple[Sequence[SeriesResult], Sequence[SeriesInput]]]:
+            # Written a few thousand series at a time: a series' row is a few kB of JSON and
+            # some hundred Python values while it is made.
             size = chunks.series_per_chunk
-            tables = assessment.series_parts(size)
+            step = WRITE_SERIES if size % WRITE_SERIES == 0 else size
+            tables = assessment.series_parts(step)
             stamps = _stamp_texts(path, chunks, described.stamps)
             hold = chunks.holdout_lengths
-            for k, (batch, table, texts) in enumerate(zip(chunks, tables, stamps, strict=True)):
-                yield _rows(table), _inputs(batch, hold[k * size : (k + 1) * size], texts)
+            lo = 0
+            for batch, (t_stamps, h_stamps) in zip(chunks, stamps, strict=True):
+                for j in range(0, batch.n_series, step):
+                    part = slice(j, j + step)
+                    table = next(tables)
+                    yield (
+                        _rows(table),
+                        _inputs(
+                            batch.rows(part),
+                            hold[lo + j : lo + j + step],
+                            (t_stamps[part], h_stamps[part]),
+                        ),
+                    )
+                    del table
+                lo += batch.n_series
 
         yield NewAssessment(
             assessment_id=job.assessment_id,

@@ -31,7 +31,8 @@ SYNC = {**ADMIN, "Content-Type": PARQUET}
 
 @pytest.fixture(autouse=True)
 def small_pieces(monkeypatch):
-    monkeypatch.setattr(parquet_jobs, "SERIES_PER_CHUNK", 37)
+    monkeypatch.setattr(parquet_jobs, "SERIES_PER_CHUNK", 74)
+    monkeypatch.setattr(parquet_jobs, "WRITE_SERIES", 37)
     monkeypatch.setattr(parquet_jobs, "PART_BYTES", 4096)
     monkeypatch.setattr(spool, "SPOOL_BYTES", 10_000)
 
