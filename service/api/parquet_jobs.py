@@ -24,7 +24,6 @@ as every other job.
 
 from __future__ import annotations
 
-import gc
 import io
 import tempfile
 from collections.abc import Callable, Iterator, Mapping, Sequence
@@ -50,6 +49,8 @@ from service.store.records import (
     SeriesResult,
     utcnow,
 )
+
+from .memory import release_memory
 
 MIB = 1024 * 1024
 PART_BYTES = 4 * MIB
@@ -149,7 +150,7 @@ def describe(
         )
     stamps = _stamp_form(source, chunks.columns)
     del chunks
-    gc.collect()
+    release_memory()
     return Described(
         params=params,
         model=envelope.model,
@@ -281,9 +282,10 @@ def prepared(
             series_per_chunk=SERIES_PER_CHUNK,
         )
         n = chunks.n_series
+        release_memory()
         progress(0, n)
         assessment = assess(chunks, policy, progress, total=n)
-        gc.collect()
+        release_memory()
         result = assessment.result("none")
         doc = AssessmentDocument(
             id=job.assessment_id,
@@ -326,6 +328,8 @@ def prepared(
                     )
                     del table
                 lo += batch.n_series
+                del batch
+                release_memory()
 
         yield NewAssessment(
             assessment_id=job.assessment_id,

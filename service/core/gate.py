@@ -119,10 +119,14 @@ class Assessment:
         if size < 1:
             raise ValueError("size must be at least 1")
         n = len(self.ids)
-        # The pass sentences and the series' reasons, by part, positions counted in the part.
-        notes: dict[int, dict[tuple[str, int], str]] = {}
-        for (check, row), text in self.notes.items():
-            notes.setdefault(row // size, {})[(check, row % size)] = text
+        # The pass sentences by row, in row order (arrays and references to the sentences,
+        # not a second dictionary of every one), handed to each part with its positions.
+        note_rows = np.fromiter(
+            (row for _, row in self.notes), dtype=np.int64, count=len(self.notes)
+        )
+        note_keys = list(self.notes)
+        order = np.argsort(note_rows, kind="stable")
+        note_rows = note_rows[order]
         named = {r.series_id for r in self.reasons if r.series_id is not None}
         parts_of: dict[str, int] = {}
         if named:
@@ -135,6 +139,11 @@ class Assessment:
                 reasons.setdefault(parts_of[r.series_id], []).append(r)
         for k, lo in enumerate(range(0, n, size)):
             rows = slice(lo, min(lo + size, n))
+            first, last = np.searchsorted(note_rows, [rows.start, rows.stop])
+            notes = {
+                (note_keys[j][0], note_keys[j][1] - lo): self.notes[note_keys[j]]
+                for j in order[first:last].tolist()
+            }
             part = replace(
                 self,
                 results=self.results.rows(rows),
@@ -143,7 +152,7 @@ class Assessment:
                 p_adjusted={name: p[rows] for name, p in self.p_adjusted.items()},
                 series_codes=self.series_codes[rows],
                 reasons=tuple(reasons.get(k, ())),
-                notes=notes.get(k, {}),
+                notes=notes,
             )
             yield part.result().series
 
@@ -586,7 +595,10 @@ def _decide_parts(
                 summaries=tuple(summaries),
                 reasons=tuple(ordered),
                 fleet={key: finding for key, (_, finding) in findings.items()},
-                notes={
+                # One part: its rows are the stacked rows (no copy of every sentence).
+                notes=notes
+                if n_parts == 1
+                else {
                     (name, i - rows.start): text
                     for (name, i), text in notes.items()
                     if rows.start <= i < rows.stop
