@@ -52,6 +52,7 @@ from .deps import Services
 from .errors import INTERNAL_ERROR, TYPE_PREFIX, ApiError
 from .gcpause import paused_gc
 from .httputil import JSON
+from .memory import release_memory
 from .policy_lookup import policy_from_document
 from .spool import read_all
 
@@ -570,7 +571,18 @@ class JobRunner:
         settings = self.settings
 
         def assess(chunks: Any, policy: Policy, progress: Any, *, total: int) -> Any:
-            return assess_chunks_on(chunks, policy, progress, settings=settings, total=total)
+            def each_part(done: int, of: int | None) -> None:
+                progress(done, of)
+                release_memory()  # the part's observations, before the next part's
+
+            return assess_chunks_on(
+                chunks,
+                policy,
+                each_part,
+                settings=settings,
+                total=total,
+                part_blocks=parquet_jobs.PART_BLOCKS,
+            )
 
         policy = policy_from_document(claimed.policy_document)
         with parquet_jobs.prepared(

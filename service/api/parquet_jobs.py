@@ -59,6 +59,10 @@ PART_BYTES = 4 * MIB
 SERIES_PER_CHUNK = 16_384
 """Series per chunk read from the file when the job runs."""
 
+PART_BLOCKS = 8
+"""Blocks of 1,024 series per part of the chunked assessment (the result does not depend on
+it; smaller parts hold fewer observations at a time)."""
+
 WRITE_SERIES = 2_048
 """Series whose rows and inputs are made and written at a time."""
 
