@@ -14,6 +14,10 @@ by default), which returns the assessment's result and calls ``progress(done, to
 series are done; another implementation (chunks of series, a cluster) takes its place through
 the runner's ``work`` argument.
 
+A Parquet upload is the exception: it is stored as sent, in parts, and read back chunk by
+chunk when the job runs (:mod:`service.api.parquet_jobs`; the ``work`` argument is not used
+for it).
+
 A job fails only on a server-side error: its problem document is stored with the job. A job
 whose worker died (the process was killed, the machine lost) is taken up again once its lease
 expires; one that was started ``job_max_attempts`` times without finishing is failed, so a

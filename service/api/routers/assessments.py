@@ -390,6 +390,11 @@ def get_assessment(
     store: Annotated[Store, Depends(get_store)],
 ) -> Response:
     shown = series_view.shown_of(request.query_params)
+    if shown == "none":  # the head alone: no series row is read (a big fleet has millions)
+        head = store.assessment_head(assessment_id=assessment_id)
+        if head is None:
+            raise ApiError(404, f"no assessment with id {assessment_id!r}")
+        return conditional(request, series_view.joined(head.head, (), "none"), JSON)
     stored = stored_or_404(store, assessment_id)
     return conditional(request, series_view.stored_answer(stored, shown), JSON)
 
