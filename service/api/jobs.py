@@ -533,7 +533,8 @@ class JobRunner:
     def _run(self, claimed: ClaimedJob, beat: _Heartbeat) -> None:
         job = claimed.job
         try:
-            found = self.store.get_assessment(assessment_id=job.assessment_id)
+            # Its head alone: the series rows of a big fleet are not read to learn this.
+            found = self.store.assessment_head(assessment_id=job.assessment_id)
             if found is not None:  # stored by an earlier attempt already
                 self.store.link_job(
                     job_id=job.id, claim=claimed.claim, assessment_id=found.summary.id
