@@ -12,7 +12,7 @@ import time
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from datetime import datetime
-from typing import Any
+from typing import IO, Any
 
 import numpy as np
 import orjson
@@ -36,6 +36,7 @@ from . import policy_lookup, series_view
 from .baseline import Match as BaselineMatch
 from .baseline import attach as attach_baselines
 from .errors import ApiError
+from .spool import update_hash
 
 _DUMP = orjson.OPT_SERIALIZE_NUMPY
 
@@ -60,14 +61,15 @@ class Outcome:
         )
 
 
-def body_hash(kind: str, params: Mapping[str, str], body: bytes) -> str:
-    """Fingerprint of a request for ``Idempotency-Key``: media type, parameters and bytes."""
+def body_hash(kind: str, params: Mapping[str, str], body: bytes | IO[bytes]) -> str:
+    """Fingerprint of a request for ``Idempotency-Key``: media type, parameters and bytes
+    (a spooled body read from its file)."""
     h = hashlib.sha256()
     h.update(kind.encode())
     h.update(b"\0")
     h.update(orjson.dumps(sorted(params.items())))
     h.update(b"\0")
-    h.update(body)
+    update_hash(h, body)
     return h.hexdigest()
 
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Any, TypeVar
+from typing import IO, Any, TypeVar
 
 from fastapi import Request
 from pydantic import BaseModel, ValidationError
@@ -10,6 +10,7 @@ from pydantic import BaseModel, ValidationError
 from service.ingest import load_json
 
 from .errors import ApiError, validation_errors
+from .spool import SCOPE_KEY
 
 M = TypeVar("M", bound=BaseModel)
 
@@ -68,6 +69,22 @@ async def read_body(request: Request, limit: int) -> bytes:
             )
         chunks.append(chunk)
     return b"".join(chunks)
+
+
+async def read_upload(request: Request, limit: int) -> bytes | IO[bytes]:
+    """The body as :func:`read_body` reads it, or, when it is big (above
+    :data:`~service.api.spool.SPOOL_BYTES`), the temporary file it was spooled to (at its
+    start; closed when the request ends), so that it is never held whole in memory."""
+    spooled = request.scope.get(SCOPE_KEY)
+    if spooled is not None:
+        size = spooled.seek(0, 2)
+        spooled.seek(0)
+        if size > limit:
+            raise ApiError(
+                413, f"request body exceeds the limit of {limit} bytes (PLUMBLINE_MAX_BODY_BYTES)"
+            )
+        return spooled
+    return await read_body(request, limit)
 
 
 def require_json(request: Request) -> None:

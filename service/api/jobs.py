@@ -14,6 +14,10 @@ by default), which returns the assessment's result and calls ``progress(done, to
 series are done; another implementation (chunks of series, a cluster) takes its place through
 the runner's ``work`` argument.
 
+A Parquet upload is the exception: it is stored as sent, in parts, and read back chunk by
+chunk when the job runs (:mod:`service.api.parquet_jobs`; the ``work`` argument is not used
+for it).
+
 A job fails only on a server-side error: its problem document is stored with the job. A job
 whose worker died (the process was killed, the machine lost) is taken up again once its lease
 expires; one that was started ``job_max_attempts`` times without finishing is failed, so a
@@ -30,7 +34,7 @@ import threading
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from http import HTTPStatus
-from typing import Any
+from typing import IO, Any
 
 import numpy as np
 import orjson
@@ -47,12 +51,14 @@ from service.settings import Settings
 from service.store.port import IdempotencyConflict, JobLost, Store, StoreError, StoreUnavailable
 from service.store.records import ClaimedJob, NewJob, StoredJob, new_id, utcnow
 
-from . import assessing
+from . import assessing, parquet_jobs, policy_lookup
 from .deps import Services
 from .errors import INTERNAL_ERROR, TYPE_PREFIX, ApiError
 from .gcpause import paused_gc
 from .httputil import JSON
+from .memory import release_memory
 from .policy_lookup import policy_from_document
+from .spool import read_all
 
 log = logging.getLogger("plumbline.jobs")
 
@@ -284,7 +290,7 @@ def submit(
     settings: Settings,
     *,
     kind: str,
-    body: bytes,
+    body: bytes | IO[bytes],
     params: Mapping[str, str],
     key: str | None,
     digest: str | None,
@@ -302,27 +308,49 @@ def submit(
         found = store.find_job_by_key(key=key)
         if found is not None:
             return _same_key(found, key, digest)
-    req = assessing.parse(kind, body, params, settings)
-    pending = assessing.Job(req=req, store=True, idempotency_key=key, digest=digest)
-    (problem,) = assessing.resolve_policies(store, [pending])
-    if problem is not None:
-        raise problem
-    # A baseline that cannot be compared is refused now, as a synchronous POST would; the
-    # job matches it again when it runs (latest-pass: the newest passing version then).
-    _baseline_problem(store, pending)
-    assert pending.document is not None
-    record = NewJob(
-        job_id=new_id(),
-        created_at=utcnow(),
-        model=req.model,
-        version=req.version,
-        n_series=req.n_series,
-        input=encode_request(req),
-        policy_document=pending.document,
-        assessment_id=new_id(),
-        idempotency_key=key,
-        body_hash=digest,
-    )
+    described = None
+    if kind == "parquet":  # read in chunks when it runs, unless it cannot be (then None)
+        from . import parquet_jobs
+
+        described = parquet_jobs.describe(body, params, settings)
+    if described is not None:
+        _policy, document = policy_lookup.resolve(store, described.policy)
+        record = NewJob(
+            job_id=new_id(),
+            created_at=utcnow(),
+            model=described.model,
+            version=described.version,
+            n_series=described.n_series,
+            input=described.encode(),
+            input_parts=parquet_jobs.input_parts(body),
+            policy_document=document,
+            assessment_id=new_id(),
+            idempotency_key=key,
+            body_hash=digest,
+        )
+    else:
+        req = assessing.parse(kind, read_all(body), params, settings)
+        pending = assessing.Job(req=req, store=True, idempotency_key=key, digest=digest)
+        (problem,) = assessing.resolve_policies(store, [pending])
+        if problem is not None:
+            raise problem
+        # A baseline that cannot be compared is refused now, as a synchronous POST would; the
+        # job matches it again when it runs (latest-pass: the newest passing version then).
+        _baseline_problem(store, pending)
+        assert pending.document is not None
+        record = NewJob(
+            job_id=new_id(),
+            created_at=utcnow(),
+            model=req.model,
+            version=req.version,
+            n_series=req.n_series,
+            input=encode_request(req),
+            policy_document=pending.document,
+            assessment_id=new_id(),
+            idempotency_key=key,
+            body_hash=digest,
+        )
+        del req, pending
     try:
         return Submitted(job=store.create_job(record))
     except IdempotencyConflict:  # the same key submitted at the same moment
@@ -338,7 +366,7 @@ async def respond_async(
     services: Services,
     *,
     kind: str,
-    body: bytes,
+    body: bytes | IO[bytes],
     params: Mapping[str, str],
     key: str | None,
     digest: str | None,
@@ -505,11 +533,15 @@ class JobRunner:
     def _run(self, claimed: ClaimedJob, beat: _Heartbeat) -> None:
         job = claimed.job
         try:
-            found = self.store.get_assessment(assessment_id=job.assessment_id)
+            # Its head alone: the series rows of a big fleet are not read to learn this.
+            found = self.store.assessment_head(assessment_id=job.assessment_id)
             if found is not None:  # stored by an earlier attempt already
                 self.store.link_job(
                     job_id=job.id, claim=claimed.claim, assessment_id=found.summary.id
                 )
+                return
+            if parquet_jobs.is_described(claimed.input):
+                self._run_parts(claimed, beat)
                 return
             req = decode_request(claimed.input)
             policy = policy_from_document(claimed.policy_document)
@@ -535,6 +567,33 @@ class JobRunner:
         except Exception:
             log.exception("jobs: %s failed", job.id)
             self._fail(claimed, _problem(500, INTERNAL_ERROR, "internal-error"))
+
+    def _run_parts(self, claimed: ClaimedJob, beat: _Heartbeat) -> None:
+        """A Parquet job stored in parts: assessed chunk by chunk, stored part by part
+        (:mod:`service.api.parquet_jobs`)."""
+        from service.cluster import assess_chunks_on
+
+        settings = self.settings
+
+        def assess(chunks: Any, policy: Policy, progress: Any, *, total: int) -> Any:
+            def each_part(done: int, of: int | None) -> None:
+                progress(done, of)
+                release_memory()  # the part's observations, before the next part's
+
+            return assess_chunks_on(
+                chunks,
+                policy,
+                each_part,
+                settings=settings,
+                total=total,
+                part_blocks=parquet_jobs.PART_BLOCKS,
+            )
+
+        policy = policy_from_document(claimed.policy_document)
+        with parquet_jobs.prepared(
+            self.store, settings, claimed, beat.progress, assess, policy
+        ) as record:
+            self._finish(claimed, record)  # the rows are made while they are written
 
     def _finish(self, claimed: ClaimedJob, record: Any) -> None:
         job = claimed.job
@@ -589,7 +648,7 @@ class _Heartbeat:
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._run, name="plumbline-job-lease", daemon=True)
 
-    def progress(self, done: int, total: int) -> None:
+    def progress(self, done: int, total: int | None) -> None:
         self.done = int(done)
 
     def __enter__(self) -> _Heartbeat:

@@ -13,6 +13,8 @@ request's meaning:
 * **Body size.** A ``Content-Length`` above ``max_body_bytes`` answers ``413`` before any of the
   body is read; a body sent without a length (chunked) answers ``413`` as soon as what arrived
   passes the limit.
+* **Body spooling.** A body above :data:`~service.api.spool.SPOOL_BYTES` is kept in a
+  temporary file while it is read (:mod:`service.api.spool`), not in memory.
 * **Body read time.** The whole body must arrive within ``body_read_timeout_seconds`` of the
   first read, else ``408``: a client that trickles its upload cannot hold a request open for
   ever.
@@ -33,8 +35,10 @@ from collections import OrderedDict
 from collections.abc import Awaitable, Callable, MutableMapping
 from dataclasses import dataclass
 from http import HTTPStatus
-from typing import Any
+from typing import IO, Any
 from urllib.parse import parse_qsl
+
+from .spool import PIECE_BYTES, SCOPE_KEY, Spool
 
 __all__ = [
     "EXEMPT_PATHS",
@@ -252,14 +256,32 @@ class LimitsMiddleware:
                 return
 
         replay = receive
+        spool: Spool | None = None
         if scope.get("method") in ("POST", "PUT", "PATCH") or length is not None:
-            body = await self._read_body(receive, send)
-            if body is None:
-                return
-            replay = _replaying(body, receive)
+            spool = Spool()
+            try:
+                read = await self._read_body(receive, send, spool)
+                if not read:
+                    return
+            except BaseException:
+                spool.close()
+                raise
+            body = spool.done()
+            if isinstance(body, bytes):
+                replay = _replaying(body, receive)
+            else:  # a big body: in a temporary file, which the endpoint may read itself
+                scope[SCOPE_KEY] = body
+                replay = _replaying_file(body, receive)
+        try:
+            await self._call(scope, replay, send, client)
+        finally:
+            if spool is not None:
+                scope.pop(SCOPE_KEY, None)
+                spool.close()
 
+    async def _call(self, scope: Scope, receive: Receive, send: Send, client: str) -> None:
         if not self.auth_failures.enabled:
-            await self.app(scope, replay, send)
+            await self.app(scope, receive, send)
             return
 
         async def watch_status(message: Message) -> None:
@@ -267,11 +289,10 @@ class LimitsMiddleware:
                 self.auth_failures.charge(client)
             await send(message)
 
-        await self.app(scope, replay, watch_status)
+        await self.app(scope, receive, watch_status)
 
-    async def _read_body(self, receive: Receive, send: Send) -> bytes | None:
-        """The whole body, or ``None`` after answering ``413`` or ``408``."""
-        chunks: list[bytes] = []
+    async def _read_body(self, receive: Receive, send: Send, spool: Spool) -> bool:
+        """The whole body into ``spool``; ``False`` after answering ``413`` or ``408``."""
         size = 0
         deadline = time.monotonic() + self.body_read_timeout
         while True:
@@ -288,9 +309,9 @@ class LimitsMiddleware:
                     408,
                     f"The request body did not arrive within {self.body_read_timeout:g} seconds.",
                 )
-                return None
+                return False
             if message["type"] == "http.disconnect":
-                return None
+                return False
             chunk = message.get("body", b"")
             if chunk:
                 size += len(chunk)
@@ -300,10 +321,10 @@ class LimitsMiddleware:
                         413,
                         f"The request body is over the limit of {self.max_body_bytes} bytes.",
                     )
-                    return None
-                chunks.append(chunk)
+                    return False
+                spool.add(chunk)
             if not message.get("more_body", False):
-                return b"".join(chunks)
+                return True
 
 
 async def _refuse_nul(scope: Scope, send: Send) -> bool:
@@ -328,6 +349,26 @@ async def _refuse_nul(scope: Scope, send: Send) -> bool:
         return False
     await problem_response(send, 422, f"{errors[0]['loc']}: {errors[0]['message']}", errors=errors)
     return True
+
+
+def _replaying_file(body: IO[bytes], receive: Receive) -> Receive:
+    """A ``receive`` that gives a spooled body from its file in pieces, then defers to the
+    real channel (it reads at its own offset: the endpoint may read the file too)."""
+    offset = 0
+    finished = False
+
+    async def replay() -> Message:
+        nonlocal offset, finished
+        if finished:
+            return await receive()
+        body.seek(offset)
+        piece = body.read(PIECE_BYTES)
+        offset += len(piece)
+        more = len(piece) == PIECE_BYTES
+        finished = not more
+        return {"type": "http.request", "body": piece, "more_body": more}
+
+    return replay
 
 
 def _replaying(body: bytes, receive: Receive) -> Receive:

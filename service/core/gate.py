@@ -99,14 +99,62 @@ class Assessment:
     def series_verdicts(self) -> list[str]:
         return _STATUS[np.maximum(self.series_codes, PASS)].tolist()
 
-    def result(self) -> AssessmentResult:
+    def result(self, shown: str = "all") -> AssessmentResult:
         """The typed result (:class:`service.results.AssessmentResult`): verdict, policy,
-        reasons, per-check summaries, fleet counts and statistics, and the series table."""
+        reasons, per-check summaries, fleet counts and statistics, and the series table
+        (the rows ``shown`` asks for: ``"all"``, ``"flagged"`` or ``"none"``)."""
+        if shown not in SHOWN:
+            raise ValueError(f"shown: one of {', '.join(SHOWN)}")
         return _results(
             _Decided(
                 [self], self.results, self.status_codes, self.p_adjusted, self.weights, self.notes
-            )
+            ),
+            [shown],
         )[0]
+
+    def series_parts(self, size: int) -> Iterator[SeriesTable]:
+        """Every series' row, as :meth:`result` gives them, in tables of ``size`` series
+        (the last may be shorter), each built when it is asked for: a big fleet's rows are
+        never all held as Python values at once."""
+        if size < 1:
+            raise ValueError("size must be at least 1")
+        n = len(self.ids)
+        # The pass sentences by row, in row order (arrays and references to the sentences,
+        # not a second dictionary of every one), handed to each part with its positions.
+        note_rows = np.fromiter(
+            (row for _, row in self.notes), dtype=np.int64, count=len(self.notes)
+        )
+        note_keys = list(self.notes)
+        order = np.argsort(note_rows, kind="stable")
+        note_rows = note_rows[order]
+        named = {r.series_id for r in self.reasons if r.series_id is not None}
+        parts_of: dict[str, int] = {}
+        if named:
+            for row, sid in enumerate(self.ids):
+                if sid in named:
+                    parts_of[sid] = row // size
+        reasons: dict[int, list[Reason]] = {}
+        for r in self.reasons:
+            if r.series_id is not None:
+                reasons.setdefault(parts_of[r.series_id], []).append(r)
+        for k, lo in enumerate(range(0, n, size)):
+            rows = slice(lo, min(lo + size, n))
+            first, last = np.searchsorted(note_rows, [rows.start, rows.stop])
+            notes = {
+                (note_keys[j][0], note_keys[j][1] - lo): self.notes[note_keys[j]]
+                for j in order[first:last].tolist()
+            }
+            part = replace(
+                self,
+                results=self.results.rows(rows),
+                weights=self.weights[rows],
+                status_codes={name: c[rows] for name, c in self.status_codes.items()},
+                p_adjusted={name: p[rows] for name, p in self.p_adjusted.items()},
+                series_codes=self.series_codes[rows],
+                reasons=tuple(reasons.get(k, ())),
+                notes=notes,
+            )
+            yield part.result().series
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready result (plain Python values; NaN and infinities become ``None``):
@@ -547,7 +595,10 @@ def _decide_parts(
                 summaries=tuple(summaries),
                 reasons=tuple(ordered),
                 fleet={key: finding for key, (_, finding) in findings.items()},
-                notes={
+                # One part: its rows are the stacked rows (no copy of every sentence).
+                notes=notes
+                if n_parts == 1
+                else {
                     (name, i - rows.start): text
                     for (name, i), text in notes.items()
                     if rows.start <= i < rows.stop

@@ -13,7 +13,8 @@ batches (``pyarrow.parquet.ParquetFile.iter_batches``) twice:
    series (contiguous rows, train rows, bounds on the same holdout rows, the length limit),
    and learns the fleet's shape: the ids, the longest training period and holdout, whether any
    series has intervals. Problems are reported as the CSV upload reports them, naming the row
-   and column (``row[N].column``, ``N`` counting data rows from 1) or the series' field
+   and column (``row[N].column``, ``N`` counting data rows from 1, or from 0 with ``first_row=0`` as
+   the columnar upload counts them) or the series' field
    (``series[i].actuals``), at most :data:`~service.ingest.request.MAX_ERRORS`, by raising
    :class:`~service.ingest.request.RequestInvalid`;
 2. iteration, which yields :class:`~service.core.SeriesBatch` chunks of ``series_per_chunk``
@@ -28,6 +29,7 @@ rows. pyarrow is imported when a file is opened.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Iterator
 from dataclasses import dataclass
 from typing import IO, Any
@@ -46,6 +48,7 @@ SERIES_PER_CHUNK = 16_384
 """Series per chunk by default (a whole number of the core's blocks of series)."""
 
 _NUMBERS = ("actual", "fitted", "lower", "upper")
+_PANDAS_INDEX = re.compile(r"__index_level_\d+__")
 
 
 @dataclass(frozen=True)
@@ -85,6 +88,7 @@ class ParquetChunks:
         series_per_chunk: int = SERIES_PER_CHUNK,
         batch_rows: int = BATCH_ROWS,
         max_series_length: int | None = None,
+        first_row: int = 1,
     ) -> None:
         if series_per_chunk < 1:
             raise ValueError("series_per_chunk must be at least 1")
@@ -94,6 +98,7 @@ class ParquetChunks:
         self._level = level
         self._per_chunk = series_per_chunk
         self._batch_rows = batch_rows
+        self._first_row = first_row
         self._columns = self._open_columns()
         self._shape = self._scan(max_series_length)
         _release()
@@ -113,6 +118,26 @@ class ParquetChunks:
     @property
     def horizon(self) -> int:
         return self._shape.horizon
+
+    @property
+    def series_per_chunk(self) -> int:
+        """Series per chunk (the last may hold fewer)."""
+        return self._per_chunk
+
+    @property
+    def train_lengths(self) -> np.ndarray:
+        """Each series' train rows."""
+        return self._shape.train
+
+    @property
+    def holdout_lengths(self) -> np.ndarray:
+        """Each series' holdout rows."""
+        return self._shape.holdout
+
+    @property
+    def columns(self) -> tuple[str, ...]:
+        """The file's columns read (those of the long layout)."""
+        return tuple(self._columns)
 
     @property
     def intervals(self) -> bool:
@@ -141,7 +166,8 @@ class ParquetChunks:
 
         schema = self._file().schema_arrow
         errs = Errors()
-        names = list(schema.names)
+        # The columns pandas adds for a named index are left out, as the columnar upload does.
+        names = [n for n in schema.names if not _PANDAS_INDEX.fullmatch(n)]
         for name in CSV_REQUIRED:
             if name not in names:
                 errs.add(
@@ -204,7 +230,7 @@ class ParquetChunks:
         last_stamp = {False: None, True: None}
         for start, cols in self._batches(names):
             n = len(cols["series_id"])
-            rows = np.arange(start + 1, start + n + 1)  # data rows counted from 1
+            rows = np.arange(start, start + n) + self._first_row  # data rows, from 1 by default
             sid = cols["series_id"]
             if not pa.types.is_integer(sid.type):
                 sid = pc.utf8_trim_whitespace(sid.cast(pa.string()))
@@ -407,6 +433,9 @@ class ParquetChunks:
         return make_batch(
             actuals,
             fitted,
+            # A series ends at its last train row, as in the CSV and columnar uploads: a
+            # trailing missing value is a gap.
+            lengths=shape.train[lo:hi],
             ids=shape.ids[lo:hi],
             season_length=self._season_length,
             model_params=self._model_params,

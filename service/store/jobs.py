@@ -13,22 +13,23 @@ transaction, so after a crash either both are there or neither.
 from __future__ import annotations
 
 import weakref
-from collections.abc import Sequence
+from collections.abc import Iterator, Sequence
 from datetime import datetime, timedelta
 from typing import Any, cast
 
 import orjson
-from sqlalchemy import Engine, Table, and_, bindparam, insert, or_, select, update
+from sqlalchemy import Engine, Table, and_, bindparam, delete, insert, or_, select, update
 from sqlalchemy.exc import IntegrityError
 
 from . import fastpath
-from .models import JobRow
+from .models import JobInputPartRow, JobRow
 from .port import IdempotencyConflict, JobLost
 from .records import ClaimedJob, NewAssessment, NewJob, StoredJob, new_id, utcnow
 from .repository import _aware, _write_all, find_idempotency_key
 from .writelock import write_lock
 
 J = cast(Table, JobRow.__table__)
+JP = cast(Table, JobInputPartRow.__table__)
 
 _VIEW = (
     J.c.id,
@@ -94,6 +95,10 @@ def create_job(engine: Engine, job: NewJob) -> StoredJob:
     try:
         with write_lock(engine), engine.begin() as conn:
             conn.execute(insert(J), values)
+            # The parts one statement each: a part's bytes are dropped once written.
+            for position, data in enumerate(job.input_parts):
+                conn.execute(insert(JP), {"job_id": job.job_id, "position": position, "data": data})
+                del data
     except IntegrityError:
         if job.idempotency_key is not None and find_job_by_key(engine, key=job.idempotency_key):
             raise IdempotencyConflict(job.idempotency_key) from None
@@ -107,6 +112,23 @@ def get_job(engine: Engine, *, job_id: str) -> StoredJob | None:
     with engine.connect() as conn:
         row = conn.execute(select(*_VIEW).where(J.c.id == job_id)).first()
     return None if row is None else _job(row)
+
+
+def job_input_parts(engine: Engine, *, job_id: str) -> Iterator[bytes]:
+    """The parts of a job's input as sent, in order, one read at a time (none for a job whose
+    input is whole in ``jobs.input``)."""
+    with engine.connect() as conn:
+        count = conn.execute(
+            select(JP.c.position).where(JP.c.job_id == job_id).order_by(JP.c.position.desc())
+        ).first()
+    for position in range(0 if count is None else count.position + 1):
+        with engine.connect() as conn:
+            data = conn.execute(
+                select(JP.c.data).where(JP.c.job_id == job_id, JP.c.position == position)
+            ).scalar()
+        if data is None:
+            raise ValueError(f"part {position} of the input of job {job_id} is missing")
+        yield bytes(data)
 
 
 def find_job_by_key(engine: Engine, *, key: str) -> StoredJob | None:
@@ -232,6 +254,9 @@ class _Finish:
         self.statement = fastpath.compile_statement(
             engine, stmt, J, ["job_id", "job_claim", "now"], types={"now": J.c.updated_at.type}
         )
+        self.drop_parts = fastpath.compile_statement(
+            engine, delete(JP).where(JP.c.job_id == bindparam("job_id")), JP, ["job_id"]
+        )
 
 
 _FINISH: weakref.WeakKeyDictionary[Engine, _Finish] = weakref.WeakKeyDictionary()
@@ -255,6 +280,7 @@ def finish_job(engine: Engine, *, job_id: str, claim: str, record: NewAssessment
         )
         if cursor.rowcount != 1:
             raise JobLost(job_id)
+        cursor.execute(made.drop_parts.sql, made.drop_parts.params({"job_id": job_id}))
 
     stmts = fastpath.statements(engine)
     try:
@@ -276,6 +302,8 @@ def link_job(engine: Engine, *, job_id: str, claim: str, assessment_id: str) -> 
         done = conn.execute(
             update(J).where(_mine(job_id, claim)).values(**_done_values(utcnow(), assessment_id))
         )
+        if done.rowcount:
+            conn.execute(delete(JP).where(JP.c.job_id == job_id))
     return bool(done.rowcount)
 
 

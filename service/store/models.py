@@ -184,3 +184,15 @@ class JobRow(Base):
     attempts: Mapped[int] = mapped_column(Integer, nullable=False)
 
     __table_args__ = (Index("ix_jobs_state_seq", "state", "seq"),)
+
+
+class JobInputPartRow(Base):
+    """One part (a few MiB) of a job's input as it was sent, for inputs too big to hold
+    whole (a big Parquet upload): ``jobs.input`` then describes it. Dropped with the input
+    once the job's assessment is stored."""
+
+    __tablename__ = "job_input_parts"
+
+    job_id: Mapped[str] = mapped_column(String(32), primary_key=True)
+    position: Mapped[int] = mapped_column(Integer, primary_key=True)
+    data: Mapped[bytes] = mapped_column(LargeBinary, nullable=False)

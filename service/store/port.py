@@ -18,7 +18,7 @@ they are.
 from __future__ import annotations
 
 from abc import ABC, abstractmethod
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
@@ -185,6 +185,11 @@ class Store(ABC):
     @abstractmethod
     def get_job(self, *, job_id: str) -> StoredJob | None:
         """The job with this id (without its input), or ``None``."""
+
+    @abstractmethod
+    def job_input_parts(self, *, job_id: str) -> Iterator[bytes]:
+        """The parts of a job's input as sent (``NewJob.input_parts``), in order, read one at
+        a time; none when the job's input is whole."""
 
     @abstractmethod
     def find_job_by_key(self, *, key: str) -> StoredJob | None:

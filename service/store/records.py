@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import hashlib
 import uuid
-from collections.abc import Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from typing import Any
@@ -137,6 +137,15 @@ class SeriesResult:
 
 
 @dataclass(frozen=True)
+class SeriesParts:
+    """The series rows and inputs of an assessment, made part by part in input order:
+    ``make()`` yields ``(results, inputs)`` of consecutive series, ``n_series`` in all."""
+
+    n_series: int
+    make: Callable[[], Iterator[tuple[Sequence[SeriesResult], Sequence[SeriesInput]]]]
+
+
+@dataclass(frozen=True)
 class NewAssessment:
     """Everything ``save_assessments`` writes for one assessment.
 
@@ -159,6 +168,13 @@ class NewAssessment:
     inputs: Sequence[SeriesInput]
     idempotency_key: str | None = None
     body_hash: str | None = None
+    parts: SeriesParts | None = None
+    """A big fleet's series rows and inputs made part by part while they are written (then
+    ``series`` and ``inputs`` are empty): none of them is held whole."""
+
+    @property
+    def n_series(self) -> int:
+        return len(self.series) if self.parts is None else self.parts.n_series
 
     def summary(self, seq: int) -> AssessmentSummary:
         return AssessmentSummary(
@@ -168,7 +184,7 @@ class NewAssessment:
             model=self.model,
             version=self.version,
             verdict=self.verdict,
-            n_series=len(self.series),
+            n_series=self.n_series,
             n_failed=self.n_failed,
             n_warned=self.n_warned,
             policy_name=self.policy_name,
@@ -241,6 +257,9 @@ class NewJob:
     assessment_id: str
     idempotency_key: str | None = None
     body_hash: str | None = None
+    input_parts: Iterable[bytes] = ()
+    """The input as sent, in parts of a few MiB (a big Parquet upload), written with the job
+    and read back by ``Store.job_input_parts``; ``input`` then describes it."""
 
 
 @dataclass(frozen=True)

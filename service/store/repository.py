@@ -39,6 +39,7 @@ from .records import (
     ModelSummary,
     NewAssessment,
     SeriesInput,
+    SeriesParts,
     SeriesResult,
     StoredAssessment,
     StoredHead,
@@ -195,7 +196,7 @@ def _write_all(
                         "model": r.model,
                         "version": r.version,
                         "verdict": r.verdict,
-                        "n_series": len(r.series),
+                        "n_series": r.n_series,
                         "n_failed": r.n_failed,
                         "n_warned": r.n_warned,
                         "policy_name": r.policy_name,
@@ -221,6 +222,8 @@ def _write_all(
             input_rows += [
                 {"assessment_seq": seq, **_input_row(i, s)} for i, s in enumerate(r.inputs)
             ]
+            if r.parts is not None:
+                _write_parts(cursor, stmts, seq, r.parts)
             if r.idempotency_key is not None:
                 cursor.execute(
                     stmts.insert_key.sql,
@@ -242,6 +245,39 @@ def _write_all(
 
     with write_lock(engine):
         return fastpath.run_in_transaction(engine, write)
+
+
+def _write_parts(cursor: Any, stmts: Any, seq: int, parts: SeriesParts) -> None:
+    """A big fleet's series rows and inputs, part by part (each part's rows dropped once
+    written)."""
+    position = 0
+    for results, inputs in parts.make():
+        if len(results) != len(inputs):
+            raise ValueError("a part's series rows and inputs do not match")
+        fastpath.executemany(
+            cursor,
+            stmts.insert_series_result,
+            [
+                {
+                    "assessment_seq": seq,
+                    "position": position + i,
+                    "series_id": s.series_id,
+                    "verdict": s.verdict,
+                    "n_obs": s.n_obs,
+                    "result": s.json.decode(),
+                }
+                for i, s in enumerate(results)
+            ],
+        )
+        fastpath.executemany(
+            cursor,
+            stmts.insert_series_input,
+            [{"assessment_seq": seq, **_input_row(position + i, s)} for i, s in enumerate(inputs)],
+        )
+        position += len(results)
+        del results, inputs
+    if position != parts.n_series:
+        raise ValueError(f"{position} series rows written; the assessment has {parts.n_series}")
 
 
 def save_assessments(

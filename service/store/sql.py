@@ -14,7 +14,7 @@ The readiness probe is a round trip and, on SQLite, a committed write: a read-on
 from __future__ import annotations
 
 import functools
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from datetime import datetime
 from typing import Any, TypeVar
 
@@ -174,6 +174,16 @@ class SqlStore(Store):
     @_translated
     def get_job(self, *, job_id: str) -> StoredJob | None:
         return jobs.get_job(self.engine, job_id=job_id)
+
+    def job_input_parts(self, *, job_id: str) -> Iterator[bytes]:
+        parts = jobs.job_input_parts(self.engine, job_id=job_id)
+        while True:
+            try:
+                yield next(parts)
+            except StopIteration:
+                return
+            except self._errors.types as exc:
+                raise self._failure(exc) from exc
 
     @_translated
     def find_job_by_key(self, *, key: str) -> StoredJob | None:

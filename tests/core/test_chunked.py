@@ -299,3 +299,20 @@ def test_equal_with_a_baseline(small_blocks):
     for size in (1, 7):
         chunks = [with_base.rows(slice(lo, lo + size)) for lo in range(0, 40, size)]
         assert_same(one, assess_chunks(chunks, policy, part_blocks=2))
+
+
+@pytest.mark.parametrize("size", [1, 9, 60, 100])
+def test_series_rows_made_in_parts_are_the_results_rows(small_blocks, size):
+    # A big fleet's rows are made a few thousand at a time when they are stored; each part's
+    # rows (with the series' reasons and pass sentences at their places) are the result's.
+    _, chunks = whole_and_chunks(11, 60, 13)
+    # Without the adjustment across series, some series warn or fail and carry reasons.
+    strict = Policy.from_dict({"name": "unadjusted", "fleet": {"adjustment": "none"}})
+    got = assess_chunks(chunks, strict, part_blocks=2)
+    rows = [row for table in got.series_parts(size) for row in table.to_dicts()]
+    assert rows == got.result().series.to_dicts()
+    assert any(r["verdict"] != "pass" for r in rows)  # reasons are placed, not only passes
+    head = got.result("none")
+    assert len(head.series) == 0 and head.to_dict() | {"series": rows} == got.to_dict()
+    with pytest.raises(ValueError):
+        next(got.series_parts(0))

@@ -20,7 +20,15 @@ from service.store.records import StoredAssessment
 
 from .. import assessing, jobs, series_export, series_view
 from ..auth import authorize, require
-from ..body import ARROW_STREAM, PARQUET, columnar_kind, is_csv, is_json, media_type, read_body
+from ..body import (
+    ARROW_STREAM,
+    PARQUET,
+    columnar_kind,
+    is_csv,
+    is_json,
+    media_type,
+    read_upload,
+)
 from ..csvout import wants_csv
 from ..deps import Services, get_services, get_settings, get_store
 from ..errors import ApiError
@@ -44,6 +52,7 @@ from ..schemas import (
     SeriesRowPage,
     Verdict,
 )
+from ..spool import read_all
 
 router = APIRouter(prefix="/v1/assessments", tags=["assessments"])
 
@@ -223,19 +232,31 @@ async def post_assessment(
     keep = _store_flag(request.query_params.get("store"))
     shown = series_view.shown_of(request.query_params)
     key = _idempotency_key(request.headers.get("idempotency-key"))
-    body = await read_body(request, settings.max_body_bytes)
+    # A big body is a temporary file here (service/api/spool.py), not bytes.
+    upload = await read_upload(request, settings.max_body_bytes)
     params = {k: v for k, v in request.query_params.items() if k not in ("store", "series")}
     # The fingerprint matters only to an Idempotency-Key (its replay and its stored row).
-    digest = (
-        assessing.body_hash(kind, params if kind != "json" else {}, body)
-        if key is not None and keep
-        else None
-    )
+    digest = None
+    if key is not None and keep:
+        hashed = (kind, params if kind != "json" else {}, upload)
+        digest = (
+            assessing.body_hash(*hashed)
+            if isinstance(upload, bytes)
+            else await run_in_threadpool(assessing.body_hash, *hashed)
+        )
 
     if keep and jobs.prefers_async(request.headers.get("prefer")):  # a background job: 202
         return await jobs.respond_async(
-            store, settings, services, kind=kind, body=body, params=params, key=key, digest=digest
+            store,
+            settings,
+            services,
+            kind=kind,
+            body=upload,
+            params=params,
+            key=key,
+            digest=digest,
         )
+    body = upload if isinstance(upload, bytes) else await run_in_threadpool(read_all, upload)
 
     def replayed() -> assessing.Outcome | None:
         if digest is not None:
@@ -369,6 +390,11 @@ def get_assessment(
     store: Annotated[Store, Depends(get_store)],
 ) -> Response:
     shown = series_view.shown_of(request.query_params)
+    if shown == "none":  # the head alone: no series row is read (a big fleet has millions)
+        head = store.assessment_head(assessment_id=assessment_id)
+        if head is None:
+            raise ApiError(404, f"no assessment with id {assessment_id!r}")
+        return conditional(request, series_view.joined(head.head, (), "none"), JSON)
     stored = stored_or_404(store, assessment_id)
     return conditional(request, series_view.stored_answer(stored, shown), JSON)
 
