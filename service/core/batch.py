@@ -52,6 +52,11 @@ def _matrix(name: str, values: object, n_series: int | None = None) -> FloatMatr
         raise InputError(name, f"expected a 2-D array (series x periods), got {arr.ndim}-D")
     if n_series is not None and arr.shape[0] != n_series:
         raise InputError(name, f"has {arr.shape[0]} rows, expected {n_series} (one per series)")
+    if arr.size == 0 or (
+        -float(np.fmin.reduce(arr, axis=None)) <= MAX_MAGNITUDE
+        and float(np.fmax.reduce(arr, axis=None)) <= MAX_MAGNITUDE
+    ):
+        return arr  # NaN aside, every value within the bound (no temporary)
     with np.errstate(invalid="ignore"):
         huge = np.abs(arr) > MAX_MAGNITUDE  # infinities included
     if huge.any() and np.isinf(arr).any():
@@ -85,10 +90,15 @@ def _row_lengths(arr: FloatMatrix) -> IntVector:
 
 
 def _check_row_lengths(name: str, arr: FloatMatrix, lengths: IntVector) -> None:
-    longer = _row_lengths(arr) > lengths
+    short = np.flatnonzero(lengths < arr.shape[1])  # only these rows can run past their end
+    if short.size == 0:
+        return
+    longer = _row_lengths(arr[short]) > lengths[short]
     if longer.any():
         raise InputError(
-            name, "has values after the end of the series", index=int(np.argmax(longer))
+            name,
+            "has values after the end of the series",
+            index=int(short[np.argmax(longer)]),
         )
 
 
@@ -96,6 +106,13 @@ def _per_series(name: str, value: int | Sequence[int] | IntVector | None, n: int
     """A non-negative integer for every series: one for all, or one each."""
     if value is None:
         return np.zeros(n, dtype=np.int64)
+    if isinstance(value, np.ndarray) and value.ndim == 1 and value.dtype.kind == "i":
+        if value.shape[0] != n:
+            raise InputError(name, f"has {value.shape[0]} entries, expected {n}")
+        negative = value < 0
+        if negative.any():
+            raise InputError(name, "must be an integer >= 0", index=int(np.argmax(negative)))
+        return value.astype(np.int64)  # a copy: the batch's own
     if np.ndim(value) == 0:
         values = [value] * n
     else:
@@ -392,8 +409,10 @@ def make_batch(
 def _volume(actuals: FloatMatrix, fitted: FloatMatrix) -> FloatVector:
     """``sum_t max(|actual_t|, |fitted_t|)`` per row over the values given (the default
     weight)."""
-    volume = np.fmax(np.abs(actuals), np.abs(fitted))
-    return np.where(np.isnan(volume), 0.0, volume).sum(axis=1)
+    volume = np.abs(actuals)
+    np.fmax(volume, np.abs(fitted), out=volume)
+    volume[np.isnan(volume)] = 0.0
+    return volume.sum(axis=1)
 
 
 def _bounds_pair(

@@ -80,6 +80,8 @@ def _report_non_numbers(rows: Sequence[Sequence[Any]], locs: Sequence[str], errs
 def check_magnitude(flat: FlatRows, locs: Sequence[str], errs: Errors) -> bool:
     """Report the values beyond :data:`MAX_ABS_VALUE` (at most :data:`MAX_ERRORS`); ``True``
     when there is none."""
+    if within_bound(flat.values, MAX_ABS_VALUE):
+        return True
     with np.errstate(invalid="ignore"):
         huge = np.abs(flat.values) > MAX_ABS_VALUE
     if not huge.any():
@@ -94,6 +96,17 @@ def check_magnitude(flat: FlatRows, locs: Sequence[str], errs: Errors) -> bool:
             f"magnitude of {MAX_ABS_VALUE:g}; rescale the series",
         )
     return False
+
+
+def within_bound(values: np.ndarray, bound: float) -> bool:
+    """Every value of ``values`` (NaN aside) at most ``bound`` in magnitude, infinities not:
+    two reductions, no temporary array. ``False`` means: look closer."""
+    if values.size == 0:
+        return True
+    with np.errstate(invalid="ignore"):
+        low = float(np.fmin.reduce(values, axis=None))
+        high = float(np.fmax.reduce(values, axis=None))
+    return -low <= bound and high <= bound
 
 
 def _positions(mask: np.ndarray, lengths: np.ndarray) -> list[tuple[int, int]]:
