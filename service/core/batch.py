@@ -21,6 +21,7 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, fields
+from functools import cached_property
 from typing import Any, cast
 
 import numpy as np
@@ -646,6 +647,14 @@ class Residuals:
         """The residuals of the series in ``part`` (a slice of rows)."""
         return Residuals(**{f.name: getattr(self, f.name)[part] for f in fields(Residuals)})
 
+    @cached_property
+    def square_sums(self) -> tuple[FloatVector, FloatVector]:
+        """``(top, sums)``: the largest observed ``|e|`` per row (0 where none) and the row sums
+        of ``(e / peak)^2`` over the observed residuals, ``peak = top`` (1 where 0). Computed
+        once; :func:`scaled_squares` hands them over when it has the squares anyway."""
+        scaled_squares(self)
+        return cast(tuple[FloatVector, FloatVector], self.__dict__["square_sums"])
+
     def autocovariances(self, max_lag: int) -> FloatMatrix:
         """``gamma[:, k]`` for ``k = 0..max_lag``: sum of lag-``k`` products of the centred
         residuals over observed pairs, divided by ``n_obs`` (shape ``(n_series, max_lag + 1)``).
@@ -664,6 +673,21 @@ class Residuals:
             out[:, k] = np.vecdot(z[:, k:], z[:, :-k])
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             return out / self.n_obs[:, None]
+
+
+def scaled_squares(res: Residuals) -> tuple[FloatVector, FloatMatrix]:
+    """``(top, squares)``: the largest observed ``|e|`` per row (0 where none) and ``(e /
+    peak)^2``, ``peak = top`` (1 where 0), 0 where missing: values in ``[0, 1]``, so sums of
+    them and of their products neither overflow nor underflow. A new matrix the caller may
+    change; its row sums are kept as ``res.square_sums``."""
+    magnitude = np.abs(np.where(res.observed, res.values, 0.0))
+    top = magnitude.max(axis=1, initial=0.0)
+    peak = np.where(top > 0, top, 1.0)
+    np.divide(magnitude, peak[:, None], out=magnitude)
+    np.multiply(magnitude, magnitude, out=magnitude)
+    if "square_sums" not in res.__dict__:
+        res.__dict__["square_sums"] = (top, magnitude.sum(axis=1))
+    return top, magnitude
 
 
 def nearly_constant(

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
-from ..batch import Residuals
+from ..batch import Residuals, scaled_squares
 from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
 from ..results import CheckResult, skip_reasons_and_ran
 from ..tails import chi2_sf
@@ -134,15 +134,11 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     # Squares of e over its largest |e| (R^2 does not depend on the unit): values in [0, 1],
     # so the cross-products of squares neither overflow nor underflow; 0 where missing.
     observed = res.observed
-    magnitude = np.abs(np.where(observed, res.values, 0.0))
-    top = magnitude.max(axis=1, initial=0.0)
-    peak = np.where(top > 0, top, 1.0)
-    z = magnitude / peak[:, None]
-    np.multiply(z, z, out=z)
+    top, z = scaled_squares(res)
     # Shift each row by the mean of its observed squares (its whole width: a row's sums do not
     # depend on the rows beside it), 0 where missing.
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        shift = np.where(n > 0, z.sum(axis=1) / np.maximum(n, 1), 0.0)
+        shift = np.where(n > 0, res.square_sums[1] / np.maximum(n, 1), 0.0)
     np.subtract(z, shift[:, None], out=z)
     z[~observed] = 0.0
     # Loop over the few distinct lag orders and over blocks of rows, never over single series.
@@ -177,7 +173,7 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     # Squares that do not vary: constant residuals, +-c residuals (equal |e| within rounding:
     # the largest and smallest observed |e| of :func:`nearly_constant`), or no variation left
     # in the regression rows.
-    smallest = np.where(observed, magnitude, np.inf).min(axis=1, initial=np.inf)
+    smallest = np.fmin.reduce(np.abs(res.values), axis=1, initial=np.inf)  # NaN: missing
     have = n >= 2
     base = np.maximum(np.maximum(top, smallest), res.rounding_scale)
     with np.errstate(invalid="ignore"):
