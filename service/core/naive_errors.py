@@ -42,4 +42,4 @@ def batch_naive_scales(batch: SeriesBatch, season_length: int) -> tuple[FloatVec
     if found is None:
         found = naive_error_scales(batch.actuals, season_length)
         batch.__dict__[key] = found
-    return found  # type: ignore[no-any-return]
+    return found
