@@ -701,7 +701,14 @@ def nearly_constant(
     """
     hi = np.where(observed, values, -np.inf).max(axis=1, initial=-np.inf)
     lo = np.where(observed, values, np.inf).min(axis=1, initial=np.inf)
-    have = observed.sum(axis=1) >= 2
+    return _constant_from_range(hi, lo, observed.sum(axis=1) >= 2, scale)
+
+
+def _constant_from_range(
+    hi: FloatVector, lo: FloatVector, have: np.ndarray, scale: FloatVector | float
+) -> np.ndarray:
+    """:func:`nearly_constant` from each row's largest and smallest observed value and whether
+    it has at least 2."""
     base = np.maximum(np.maximum(np.abs(hi), np.abs(lo)), scale)
     with np.errstate(invalid="ignore"):
         return ~have | ((hi - lo) <= 1e-12 * np.where(have, base, 1.0))
@@ -710,20 +717,29 @@ def nearly_constant(
 def residuals_of(batch: SeriesBatch) -> Residuals:
     """Compute the residuals of ``batch`` under the rules in this module's docstring."""
     e = batch.actuals - batch.fitted
-    observed = ~np.isnan(e)
+    observed = np.isnan(e)
+    np.logical_not(observed, out=observed)
     n_obs = observed.sum(axis=1).astype(np.int64)
     lengths = batch.lengths
     first = np.argmax(observed, axis=1) if e.shape[1] else np.zeros(e.shape[0], dtype=np.int64)
-    start = np.where(observed.any(axis=1), first, lengths).astype(np.int64)
+    start = np.where(n_obs > 0, first, lengths).astype(np.int64)
     n_missing = np.maximum(lengths - start, 0) - n_obs
-    filled = np.where(observed, e, 0.0)
+    gone = ~observed
+    centred = e.copy()
+    centred[gone] = 0.0
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        mean = filled.sum(axis=1) / n_obs
+        mean = centred.sum(axis=1) / n_obs
     mean = np.where(n_obs > 0, mean, np.nan)
-    centred = np.where(observed, e - mean[:, None], 0.0)
-    magnitude = np.maximum(np.abs(batch.actuals), np.abs(batch.fitted))
-    rounding_scale = np.where(observed, magnitude, 0.0).max(axis=1, initial=0.0)
-    constant = nearly_constant(e, observed, rounding_scale)
+    np.subtract(centred, mean[:, None], out=centred)
+    centred[gone] = 0.0
+    magnitude = np.abs(batch.actuals)
+    np.maximum(magnitude, np.abs(batch.fitted), out=magnitude)
+    magnitude[gone] = 0.0
+    rounding_scale = magnitude.max(axis=1, initial=0.0)
+    # The largest and smallest observed residual (max and min are exact, NaN is missing).
+    hi = np.where(n_obs > 0, np.fmax.reduce(e, axis=1, initial=-np.inf), -np.inf)
+    lo = np.where(n_obs > 0, np.fmin.reduce(e, axis=1, initial=np.inf), np.inf)
+    constant = _constant_from_range(hi, lo, n_obs >= 2, rounding_scale)
     unit = np.abs(centred).max(axis=1, initial=0.0)
     unit = np.where(unit > 0, unit, 1.0)
     standard = centred / unit[:, None]

@@ -191,21 +191,23 @@ def tracking_signal(
     need = 2 * window if min_obs is None else max(min_obs, window + 1)
     n = res.n_obs
     observed = res.observed
-    # Rank of each observed residual counted from the end of its row: 1 is the last.
-    rank_from_end = np.cumsum(observed[:, ::-1], axis=1)[:, ::-1]
-    recent = observed & (rank_from_end <= window)
+    recent = _last_observed(res, window)
     e = np.where(recent, res.values, 0.0)
     total = e.sum(axis=1)
-    abs_total = np.abs(e).sum(axis=1)
+    outside = ~recent
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        abs_total = np.abs(e).sum(axis=1)
         # Sample variance in units of res.unit (standardised residuals): no overflow.
-        var = np.vecdot(res.standard, res.standard) / (n - 1)
+        squares = np.vecdot(res.standard, res.standard)
+        var = squares / (n - 1)
         # Second moment about zero (the null's mean) of all residuals, and the window's own
         # variance about its mean, both in units of res.unit.
         shift = res.mean / res.unit
-        second = (np.vecdot(res.standard, res.standard) + n * shift * shift) / n
+        second = (squares + n * shift * shift) / n
         w_mean = total / window / res.unit
-        w_dev = np.where(recent, res.values / res.unit[:, None] - w_mean[:, None], 0.0)
+        w_dev = np.divide(e, res.unit[:, None], out=e)  # e inside the window: its values
+        w_dev -= w_mean[:, None]
+        w_dev[outside] = 0.0
         w_var = np.vecdot(w_dev, w_dev) / (window - 1)
         ts = window * total / abs_total
         z = (total / res.unit) / np.sqrt(window * np.maximum(second, w_var))
@@ -243,6 +245,23 @@ def tracking_signal(
         skip_reason=reasons,
         null_hypothesis="the last errors have mean zero",
     )
+
+
+def _last_observed(res: Residuals, window: int) -> np.ndarray:
+    """Where each row's last ``window`` observed residuals are (all of them in a shorter row).
+    A row without a gap holds its observed residuals in the columns ``start..length - 1``, so
+    those are the columns from ``max(start, length - window)``; the other rows count their
+    observed residuals from the end."""
+    observed = res.observed
+    width = observed.shape[1]
+    plain = res.n_missing == 0
+    if plain.all():
+        cols = np.arange(width)[None, :]
+        begin = np.maximum(res.start, res.lengths - window)
+        return (cols >= begin[:, None]) & (cols < res.lengths[:, None])
+    # Rank of each observed residual counted from the end of its row: 1 is the last.
+    rank_from_end = np.cumsum(observed[:, ::-1], axis=1)[:, ::-1]
+    return observed & (rank_from_end <= window)
 
 
 MIN_SD = 0.1
