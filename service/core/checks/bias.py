@@ -190,7 +190,6 @@ def tracking_signal(
         raise InputError("window", f"must be at least 2, got {window}")
     need = 2 * window if min_obs is None else max(min_obs, window + 1)
     n = res.n_obs
-    observed = res.observed
     recent = _last_observed(res, window)
     e = np.where(recent, res.values, 0.0)
     total = e.sum(axis=1)

@@ -21,7 +21,11 @@ def arch_lags(n_obs: IntVector) -> IntVector:
 
 
 def _lm_one_order(
-    z: FloatMatrix, valid: np.ndarray, lags: int, buffer: np.ndarray | None = None
+    z: FloatMatrix,
+    valid: np.ndarray,
+    lags: int,
+    buffer: np.ndarray | None = None,
+    span: tuple[int, int] | None = None,
 ) -> tuple[FloatVector, IntVector, FloatVector]:
     """``n R^2`` of ``s_t`` on ``1, s_{t-1}..s_{t-lags}`` for each row, with rows that miss any
     of those values left out. Returns (LM, rows used, centred total sum of squares).
@@ -29,7 +33,8 @@ def _lm_one_order(
     ``z``: the squares ``s`` less their row's mean over the observed ones (``R^2`` does not
     change, and the cross-products below are taken about values near zero, so they do not
     cancel), 0 where missing. ``valid[:, r]``: regression row ``r`` (``s_{r + lags}`` on
-    ``s_{r + lags - 1}..s_r``) has all its values observed (:func:`_usable_rows`).
+    ``s_{r + lags - 1}..s_r``) has all its values observed (:func:`_usable_rows`); ``span``
+    ``(lo, hi)``, when given, says that is ``lo <= r < hi`` in every row.
 
     ``buffer``: optional flat float array of at least ``rows x (width - lags) x (lags + 1)``
     elements, reused between blocks for the regression rows (saves allocating them anew)."""
@@ -44,7 +49,10 @@ def _lm_one_order(
         buffer = np.empty(size)
     cols = buffer[:size].reshape(n_series, rows, lags + 1)
     np.copyto(cols, window)
-    if not valid.all():
+    if span is not None:  # the usable rows are lo..hi - 1 in every series
+        cols[:, : span[0]] = 0.0
+        cols[:, max(span[1], span[0]) :] = 0.0
+    elif not valid.all():
         cols[~valid] = 0.0
     # One small Gram matrix per series, [y, x]' [y, x] over the usable rows (a batched matrix
     # product), centred with the column sums: this absorbs the intercept.
@@ -162,14 +170,13 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
             # depend on which other rows share its block (a fleet assessed in chunks gives the
             # numbers of the whole, to the last bit).
             part = slice(idx[0], idx[-1] + 1) if contiguous else idx
-            valid = _usable_rows(
-                observed[part],
-                res.start[part],
-                res.lengths[part],
-                bool(gap_free[part].all()),
-                order,
-            )
-            lm[idx], rows[idx], tss[idx] = _lm_one_order(z[part], valid, order, buffer)
+            starts, ends = res.start[part], res.lengths[part]
+            plain = bool(gap_free[part].all())
+            valid = _usable_rows(observed[part], starts, ends, plain, order)
+            span = None
+            if plain and (starts == starts[0]).all() and (ends == ends[0]).all():
+                span = (int(starts[0]), int(ends[0]) - order)  # the same rows in every series
+            lm[idx], rows[idx], tss[idx] = _lm_one_order(z[part], valid, order, buffer, span)
     # Squares that do not vary: constant residuals, +-c residuals (equal |e| within rounding:
     # the largest and smallest observed |e| of :func:`nearly_constant`), or no variation left
     # in the regression rows.
