@@ -668,11 +668,22 @@ class Residuals:
         z = self.standard
         width = z.shape[1]
         out = np.zeros((z.shape[0], max_lag + 1))
-        out[:, 0] = np.vecdot(z, z)
-        for k in range(1, min(max_lag, width - 1) + 1):
-            out[:, k] = np.vecdot(z[:, k:], z[:, :-k])
+        for k in range(0, min(max_lag, width - 1) + 1):
+            out[:, k] = self.lag_products(k)
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             return out / self.n_obs[:, None]
+
+    def lag_products(self, k: int) -> FloatVector:
+        """``sum_t z_t z_{t-k}`` per row of ``standard`` (``0 <= k`` below the width), one
+        dot product per row, computed once for every check that asks (read-only)."""
+        memo: dict[int, FloatVector] = self.__dict__.setdefault("_lag_products", {})
+        found = memo.get(k)
+        if found is None:
+            z = self.standard
+            found = np.vecdot(z, z) if k == 0 else np.vecdot(z[:, k:], z[:, :-k])
+            found.flags.writeable = False
+            memo[k] = found
+        return found
 
 
 def scaled_squares(res: Residuals) -> tuple[FloatVector, FloatMatrix]:

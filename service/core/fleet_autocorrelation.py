@@ -100,7 +100,7 @@ def fleet_lag_part(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
     lengths = res.lengths[rows]
     every = rows.size == use.shape[0]
     zr = z if every else z[rows]  # the block's rows in use (all of them: a view)
-    gamma0 = np.vecdot(zr, zr)
+    gamma0 = res.lag_products(0) if every else res.lag_products(0)[rows]
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = gamma0 / n
         shift = s2 / n

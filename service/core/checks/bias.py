@@ -197,7 +197,7 @@ def tracking_signal(
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         abs_total = np.abs(e).sum(axis=1)
         # Sample variance in units of res.unit (standardised residuals): no overflow.
-        squares = np.vecdot(res.standard, res.standard)
+        squares = res.lag_products(0)
         var = squares / (n - 1)
         # Second moment about zero (the null's mean) of all residuals, and the window's own
         # variance about its mean, both in units of res.unit.
@@ -301,7 +301,7 @@ def bias(
     ran = ~ewc.skipped
     n = res.n_obs
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        sd = res.unit * np.sqrt(np.vecdot(res.standard, res.standard) / (n - 1))
+        sd = res.unit * np.sqrt(res.lag_products(0) / (n - 1))
     d = ewc.details
     return CheckResult(
         name="bias",
