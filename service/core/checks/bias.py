@@ -340,14 +340,23 @@ def _mean_abs_actual(batch: SeriesBatch, res: Residuals) -> np.ndarray:
         return a.sum(axis=1) / res.n_obs
 
 
+def _actuals_scale(inputs: CheckInputs) -> np.ndarray:
+    """:func:`_mean_abs_actual` of the run's batch, computed once for the checks that use it."""
+    found = inputs.__dict__.get("_mean_abs_actual")
+    if found is None:
+        found = inputs.__dict__["_mean_abs_actual"] = _mean_abs_actual(
+            inputs.batch, inputs.residuals
+        )
+        found.flags.writeable = False
+    return found
+
+
 def _run_bias(inputs: CheckInputs, **options: Any) -> CheckResult:
-    res = inputs.residuals
-    return bias(res, _mean_abs_actual(inputs.batch, res), **options)
+    return bias(inputs.residuals, _actuals_scale(inputs), **options)
 
 
 def _run_tracking(inputs: CheckInputs, **options: Any) -> CheckResult:
-    res = inputs.residuals
-    return tracking_signal(res, actuals_scale=_mean_abs_actual(inputs.batch, res), **options)
+    return tracking_signal(inputs.residuals, actuals_scale=_actuals_scale(inputs), **options)
 
 
 def _bounds(cp: CheckPolicy) -> tuple[float, float]:

@@ -32,9 +32,10 @@ def _lm_one_order(
 
     ``z``: the squares ``s`` less their row's mean over the observed ones (``R^2`` does not
     change, and the cross-products below are taken about values near zero, so they do not
-    cancel), 0 where missing. ``valid[:, r]``: regression row ``r`` (``s_{r + lags}`` on
-    ``s_{r + lags - 1}..s_r``) has all its values observed (:func:`_usable_rows`); ``span``
-    ``(lo, hi)``, when given, says that is ``lo <= r < hi`` in every row.
+    cancel), anything finite where missing (no usable row reads it). ``valid[:, r]``:
+    regression row ``r`` (``s_{r + lags}`` on ``s_{r + lags - 1}..s_r``) has all its values
+    observed (:func:`_usable_rows`); ``span`` ``(lo, hi)``, when given, says that is
+    ``lo <= r < hi`` in every row.
 
     ``buffer``: optional flat float array of at least ``rows x (width - lags) x (lags + 1)``
     elements, reused between blocks for the regression rows (saves allocating them anew)."""
@@ -144,11 +145,11 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     observed = res.observed
     top, z = scaled_squares(res)
     # Shift each row by the mean of its observed squares (its whole width: a row's sums do not
-    # depend on the rows beside it), 0 where missing.
+    # depend on the rows beside it).
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         shift = np.where(n > 0, res.square_sums[1] / np.maximum(n, 1), 0.0)
+    # Where a square is missing, z is -shift: no usable regression row holds such a value.
     np.subtract(z, shift[:, None], out=z)
-    z[~observed] = 0.0
     # Loop over the few distinct lag orders and over blocks of rows, never over single series.
     width = z.shape[1]
     buffer = np.empty(min(_CHUNK, n_series) * width * (ARCH_MAX_LAGS + 1)) if n_series else None
