@@ -19,9 +19,8 @@ Rules fixed here, used by every check:
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, fields
-from functools import cached_property
 from typing import Any, cast
 
 import numpy as np
@@ -644,16 +643,40 @@ class Residuals:
     rounding_scale: FloatVector
 
     def rows(self, part: slice) -> Residuals:
-        """The residuals of the series in ``part`` (a slice of rows)."""
-        return Residuals(**{f.name: getattr(self, f.name)[part] for f in fields(Residuals)})
+        """The residuals of the series in ``part`` (a slice of rows), with the per-series
+        figures already computed (:meth:`memo`) for those rows."""
+        out = Residuals(**{f.name: getattr(self, f.name)[part] for f in fields(Residuals)})
+        memo = self.__dict__.get("_memo")
+        if memo:
+            out.__dict__["_memo"] = {key: values[part] for key, values in memo.items()}
+        return out
 
-    @cached_property
+    def memo(self, key: str, make: Callable[[], FloatVector]) -> FloatVector:
+        """The per-series vector ``make()``, computed once for these residuals and shared by
+        every check that asks for ``key`` (read-only; :meth:`rows` keeps its rows)."""
+        memo: dict[str, FloatVector] = self.__dict__.setdefault("_memo", {})
+        found = memo.get(key)
+        if found is None:
+            found = make()
+            found.flags.writeable = False
+            memo[key] = found
+        return found
+
+    @property
     def square_sums(self) -> tuple[FloatVector, FloatVector]:
         """``(top, sums)``: the largest observed ``|e|`` per row (0 where none) and the row sums
         of ``(e / peak)^2`` over the observed residuals, ``peak = top`` (1 where 0). Computed
         once; :func:`scaled_squares` hands them over when it has the squares anyway."""
-        scaled_squares(self)
-        return cast(tuple[FloatVector, FloatVector], self.__dict__["square_sums"])
+        if "square_sums" not in self.__dict__.get("_memo", {}):
+            scaled_squares(self)
+        return self.memo("largest", _missing_memo), self.memo("square_sums", _missing_memo)
+
+    @property
+    def value_sums(self) -> FloatVector:
+        """Per row, the sum of the observed residuals (as their mean takes it)."""
+        return self.memo(
+            "value_sums", lambda: np.where(self.observed, self.values, 0.0).sum(axis=1)
+        )
 
     def autocovariances(self, max_lag: int) -> FloatMatrix:
         """``gamma[:, k]`` for ``k = 0..max_lag``: sum of lag-``k`` products of the centred
@@ -676,14 +699,22 @@ class Residuals:
     def lag_products(self, k: int) -> FloatVector:
         """``sum_t z_t z_{t-k}`` per row of ``standard`` (``0 <= k`` below the width), one
         dot product per row, computed once for every check that asks (read-only)."""
-        memo: dict[int, FloatVector] = self.__dict__.setdefault("_lag_products", {})
-        found = memo.get(k)
-        if found is None:
-            z = self.standard
-            found = np.vecdot(z, z) if k == 0 else np.vecdot(z[:, k:], z[:, :-k])
-            found.flags.writeable = False
-            memo[k] = found
-        return found
+        z = self.standard
+        if k == 0:
+            return self.memo("lag0", lambda: np.vecdot(z, z))
+        return self.memo(f"lag{k}", lambda: np.vecdot(z[:, k:], z[:, :-k]))
+
+
+def _missing_memo() -> FloatVector:
+    raise AssertionError("computed by scaled_squares")
+
+
+def abs_actual_sums(batch: SeriesBatch, res: Residuals) -> FloatVector:
+    """Per series, the sum of ``|actual|`` over the periods with a residual (``res`` the
+    residuals of ``batch``), computed once."""
+    return res.memo(
+        "abs_actual_sums", lambda: np.where(res.observed, np.abs(batch.actuals), 0.0).sum(axis=1)
+    )
 
 
 def scaled_squares(res: Residuals) -> tuple[FloatVector, FloatMatrix]:
@@ -696,8 +727,12 @@ def scaled_squares(res: Residuals) -> tuple[FloatVector, FloatMatrix]:
     peak = np.where(top > 0, top, 1.0)
     np.divide(magnitude, peak[:, None], out=magnitude)
     np.multiply(magnitude, magnitude, out=magnitude)
-    if "square_sums" not in res.__dict__:
-        res.__dict__["square_sums"] = (top, magnitude.sum(axis=1))
+    memo: dict[str, FloatVector] = res.__dict__.setdefault("_memo", {})
+    if "square_sums" not in memo:
+        sums = magnitude.sum(axis=1)
+        kept = top.copy()
+        kept.flags.writeable = sums.flags.writeable = False
+        memo["largest"], memo["square_sums"] = kept, sums
     return top, magnitude
 
 
@@ -738,8 +773,9 @@ def residuals_of(batch: SeriesBatch) -> Residuals:
     gone = ~observed
     centred = e.copy()
     centred[gone] = 0.0
+    value_sums = centred.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        mean = centred.sum(axis=1) / n_obs
+        mean = value_sums / n_obs
     mean = np.where(n_obs > 0, mean, np.nan)
     np.subtract(centred, mean[:, None], out=centred)
     centred[gone] = 0.0
@@ -754,7 +790,8 @@ def residuals_of(batch: SeriesBatch) -> Residuals:
     unit = np.abs(centred).max(axis=1, initial=0.0)
     unit = np.where(unit > 0, unit, 1.0)
     standard = centred / unit[:, None]
-    return Residuals(
+    value_sums.flags.writeable = False
+    out = Residuals(
         values=e,
         observed=observed,
         n_obs=n_obs,
@@ -768,6 +805,8 @@ def residuals_of(batch: SeriesBatch) -> Residuals:
         standard=standard,
         rounding_scale=rounding_scale,
     )
+    out.__dict__["_memo"] = {"value_sums": value_sums}
+    return out
 
 
 def conform(

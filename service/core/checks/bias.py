@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from ..batch import Residuals, SeriesBatch
+from ..batch import Residuals, SeriesBatch, abs_actual_sums
 from ..ewc import ewc_bias
 from ..fleet_bias import fleet_bias_from_parts, fleet_bias_part
 from ..fleet_parts import FleetPart
@@ -335,28 +335,18 @@ def bias(
 
 
 def _mean_abs_actual(batch: SeriesBatch, res: Residuals) -> np.ndarray:
-    a = np.where(res.observed, np.abs(batch.actuals), 0.0)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        return a.sum(axis=1) / res.n_obs
-
-
-def _actuals_scale(inputs: CheckInputs) -> np.ndarray:
-    """:func:`_mean_abs_actual` of the run's batch, computed once for the checks that use it."""
-    found = inputs.__dict__.get("_mean_abs_actual")
-    if found is None:
-        found = inputs.__dict__["_mean_abs_actual"] = _mean_abs_actual(
-            inputs.batch, inputs.residuals
-        )
-        found.flags.writeable = False
-    return found
+        return abs_actual_sums(batch, res) / res.n_obs
 
 
 def _run_bias(inputs: CheckInputs, **options: Any) -> CheckResult:
-    return bias(inputs.residuals, _actuals_scale(inputs), **options)
+    res = inputs.residuals
+    return bias(res, _mean_abs_actual(inputs.batch, res), **options)
 
 
 def _run_tracking(inputs: CheckInputs, **options: Any) -> CheckResult:
-    return tracking_signal(inputs.residuals, actuals_scale=_actuals_scale(inputs), **options)
+    res = inputs.residuals
+    return tracking_signal(res, actuals_scale=_mean_abs_actual(inputs.batch, res), **options)
 
 
 def _bounds(cp: CheckPolicy) -> tuple[float, float]:
@@ -510,10 +500,9 @@ def _gather_fleet_bias(checks: BatchChecks, weights: np.ndarray, policy: Policy)
     w = np.where(use, weights, 0.0)
     counts = None if (w > 0).any() else use.astype(float)
     part = fleet_bias_part(res, w, min_obs=BIAS_MIN_OBS, counts=counts)
-    observed = res.observed & use[:, None]
-    sums = {
-        "e_sum": np.where(observed, res.values, 0.0).sum(axis=1),
-        "y_sum": np.where(observed, np.abs(checks.batch.actuals), 0.0).sum(axis=1),
+    sums = {  # over the residual periods of the series used, 0 for the others
+        "e_sum": np.where(use, res.value_sums, 0.0),
+        "y_sum": np.where(use, abs_actual_sums(checks.batch, res), 0.0),
     }
     return FleetPart(rows={**part.rows, **sums}, scaled=part.scaled)
 
