@@ -119,11 +119,15 @@ def _positions(mask: np.ndarray, lengths: np.ndarray) -> list[tuple[int, int]]:
     return out
 
 
-def padded_matrix(flat: np.ndarray, lengths: np.ndarray, width: int | None = None) -> np.ndarray:
-    """Right-pad the rows of ``flat`` with NaN into an ``(n, width)`` matrix."""
+def padded_matrix(
+    flat: np.ndarray, lengths: np.ndarray, width: int | None = None, *, copy: bool = True
+) -> np.ndarray:
+    """Right-pad the rows of ``flat`` with NaN into an ``(n, width)`` matrix. ``copy=False``:
+    when every row is full, a view of ``flat`` (for a reader that copies it anyway)."""
     width = int(lengths.max(initial=0)) if width is None else width
     if flat.size == lengths.shape[0] * width and bool((lengths == width).all()):
-        return flat.reshape(lengths.shape[0], width).copy()  # every row full: nothing to pad
+        full = flat.reshape(lengths.shape[0], width)  # every row full: nothing to pad
+        return full.copy() if copy else full
     out = np.full((lengths.shape[0], width), np.nan)
     out[np.arange(width)[None, :] < lengths[:, None]] = flat
     return out

@@ -364,10 +364,16 @@ class _Rows:
 
     # --- grouping -----------------------------------------------------------------------------
 
+    def _at(self, values: np.ndarray, rows: np.ndarray) -> np.ndarray:
+        """``values[rows]``; ``values`` itself when ``rows`` is every row in file order."""
+        if rows.size == self.n_rows and rows is not self.reordered:
+            return values
+        return values[rows]
+
     def _grouped(self, rows: np.ndarray) -> np.ndarray:
         """``rows`` ordered by series, file order kept within each (no sort when the rows of
         each series already come together in order of first appearance)."""
-        codes = self.codes[rows]
+        codes = self._at(self.codes, rows)
         if codes.size < 2 or bool((codes[1:] >= codes[:-1]).all()):
             return rows
         self.reordered = rows[np.argsort(codes, kind="stable")]
@@ -388,11 +394,11 @@ class _Rows:
         t, h = self.t_rows, self.h_rows
         return ReadSeries(
             ids=self.ids,
-            t_lengths=np.bincount(self.codes[t], minlength=n),
+            t_lengths=np.bincount(self._at(self.codes, t), minlength=n),
             actual=self._taken("actual", t),
             fitted=self._taken("fitted", t),
             t_stamps=None,  # checked here by row; given to the request lazily
-            h_lengths=np.bincount(self.codes[h], minlength=n),
+            h_lengths=np.bincount(self._at(self.codes, h), minlength=n),
             h_actual=self._taken("actual", h),
             h_forecast=self._taken("fitted", h),
             lower=self._taken("lower", h),
@@ -406,7 +412,7 @@ class _Rows:
         if self.stamps is None:
             return
         for rows, lengths in ((self.t_rows, read.t_lengths), (self.h_rows, read.h_lengths)):
-            stamps = self.stamps[rows]
+            stamps = self._at(self.stamps, rows)
             if stamps.size < 2:
                 continue
             starts = np.cumsum(lengths) - lengths
