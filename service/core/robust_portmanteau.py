@@ -24,7 +24,7 @@ authors name 1.96 and 2.576 as good choices (``testcorr`` defaults to 2.576, whi
 better at relatively large lags)."""
 
 ROBUST_NONSEASONAL_LAGS = 10
-CHUNK_ELEMENTS = 1 << 17
+CHUNK_ELEMENTS = 1 << 16
 """Entries per (series, lag, period) block of lagged products: rows are processed in blocks of
 at most this many ``lags x periods`` cells (and at most :data:`MAX_CHUNK_ROWS` rows), small
 enough to stay in cache."""
