@@ -12,7 +12,7 @@ from ..tails import chi2_sf
 from ..types import FloatMatrix, FloatVector, InputError, IntVector
 
 ARCH_MAX_LAGS = 10
-_CHUNK = 2048
+_CHUNK = 512
 
 
 def arch_lags(n_obs: IntVector) -> IntVector:
