@@ -19,7 +19,7 @@ Rules fixed here, used by every check:
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, fields
 from typing import Any, cast
 
@@ -52,6 +52,11 @@ def _matrix(name: str, values: object, n_series: int | None = None) -> FloatMatr
         raise InputError(name, f"expected a 2-D array (series x periods), got {arr.ndim}-D")
     if n_series is not None and arr.shape[0] != n_series:
         raise InputError(name, f"has {arr.shape[0]} rows, expected {n_series} (one per series)")
+    if arr.size == 0 or (
+        -float(np.fmin.reduce(arr, axis=None)) <= MAX_MAGNITUDE
+        and float(np.fmax.reduce(arr, axis=None)) <= MAX_MAGNITUDE
+    ):
+        return arr  # NaN aside, every value within the bound (no temporary)
     with np.errstate(invalid="ignore"):
         huge = np.abs(arr) > MAX_MAGNITUDE  # infinities included
     if huge.any() and np.isinf(arr).any():
@@ -85,10 +90,15 @@ def _row_lengths(arr: FloatMatrix) -> IntVector:
 
 
 def _check_row_lengths(name: str, arr: FloatMatrix, lengths: IntVector) -> None:
-    longer = _row_lengths(arr) > lengths
+    short = np.flatnonzero(lengths < arr.shape[1])  # only these rows can run past their end
+    if short.size == 0:
+        return
+    longer = _row_lengths(arr[short]) > lengths[short]
     if longer.any():
         raise InputError(
-            name, "has values after the end of the series", index=int(np.argmax(longer))
+            name,
+            "has values after the end of the series",
+            index=int(short[np.argmax(longer)]),
         )
 
 
@@ -96,6 +106,13 @@ def _per_series(name: str, value: int | Sequence[int] | IntVector | None, n: int
     """A non-negative integer for every series: one for all, or one each."""
     if value is None:
         return np.zeros(n, dtype=np.int64)
+    if isinstance(value, np.ndarray) and value.ndim == 1 and value.dtype.kind == "i":
+        if value.shape[0] != n:
+            raise InputError(name, f"has {value.shape[0]} entries, expected {n}")
+        negative = value < 0
+        if negative.any():
+            raise InputError(name, "must be an integer >= 0", index=int(np.argmax(negative)))
+        return value.astype(np.int64)  # a copy: the batch's own
     if np.ndim(value) == 0:
         values = [value] * n
     else:
@@ -392,8 +409,10 @@ def make_batch(
 def _volume(actuals: FloatMatrix, fitted: FloatMatrix) -> FloatVector:
     """``sum_t max(|actual_t|, |fitted_t|)`` per row over the values given (the default
     weight)."""
-    volume = np.fmax(np.abs(actuals), np.abs(fitted))
-    return np.where(np.isnan(volume), 0.0, volume).sum(axis=1)
+    volume = np.abs(actuals)
+    np.fmax(volume, np.abs(fitted), out=volume)
+    volume[np.isnan(volume)] = 0.0
+    return volume.sum(axis=1)
 
 
 def _bounds_pair(
@@ -624,8 +643,40 @@ class Residuals:
     rounding_scale: FloatVector
 
     def rows(self, part: slice) -> Residuals:
-        """The residuals of the series in ``part`` (a slice of rows)."""
-        return Residuals(**{f.name: getattr(self, f.name)[part] for f in fields(Residuals)})
+        """The residuals of the series in ``part`` (a slice of rows), with the per-series
+        figures already computed (:meth:`memo`) for those rows."""
+        out = Residuals(**{f.name: getattr(self, f.name)[part] for f in fields(Residuals)})
+        memo = self.__dict__.get("_memo")
+        if memo:
+            out.__dict__["_memo"] = {key: values[part] for key, values in memo.items()}
+        return out
+
+    def memo(self, key: str, make: Callable[[], FloatVector]) -> FloatVector:
+        """The per-series vector ``make()``, computed once for these residuals and shared by
+        every check that asks for ``key`` (read-only; :meth:`rows` keeps its rows)."""
+        memo: dict[str, FloatVector] = self.__dict__.setdefault("_memo", {})
+        found = memo.get(key)
+        if found is None:
+            found = make()
+            found.flags.writeable = False
+            memo[key] = found
+        return found
+
+    @property
+    def square_sums(self) -> tuple[FloatVector, FloatVector]:
+        """``(top, sums)``: the largest observed ``|e|`` per row (0 where none) and the row sums
+        of ``(e / peak)^2`` over the observed residuals, ``peak = top`` (1 where 0). Computed
+        once; :func:`scaled_squares` hands them over when it has the squares anyway."""
+        if "square_sums" not in self.__dict__.get("_memo", {}):
+            scaled_squares(self)
+        return self.memo("largest", _missing_memo), self.memo("square_sums", _missing_memo)
+
+    @property
+    def value_sums(self) -> FloatVector:
+        """Per row, the sum of the observed residuals (as their mean takes it)."""
+        return self.memo(
+            "value_sums", lambda: np.where(self.observed, self.values, 0.0).sum(axis=1)
+        )
 
     def autocovariances(self, max_lag: int) -> FloatMatrix:
         """``gamma[:, k]`` for ``k = 0..max_lag``: sum of lag-``k`` products of the centred
@@ -640,11 +691,49 @@ class Residuals:
         z = self.standard
         width = z.shape[1]
         out = np.zeros((z.shape[0], max_lag + 1))
-        out[:, 0] = np.vecdot(z, z)
-        for k in range(1, min(max_lag, width - 1) + 1):
-            out[:, k] = np.vecdot(z[:, k:], z[:, :-k])
+        for k in range(0, min(max_lag, width - 1) + 1):
+            out[:, k] = self.lag_products(k)
         with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
             return out / self.n_obs[:, None]
+
+    def lag_products(self, k: int) -> FloatVector:
+        """``sum_t z_t z_{t-k}`` per row of ``standard`` (``0 <= k`` below the width), one
+        dot product per row, computed once for every check that asks (read-only)."""
+        z = self.standard
+        if k == 0:
+            return self.memo("lag0", lambda: np.vecdot(z, z))
+        return self.memo(f"lag{k}", lambda: np.vecdot(z[:, k:], z[:, :-k]))
+
+
+def _missing_memo() -> FloatVector:
+    raise AssertionError("computed by scaled_squares")
+
+
+def abs_actual_sums(batch: SeriesBatch, res: Residuals) -> FloatVector:
+    """Per series, the sum of ``|actual|`` over the periods with a residual (``res`` the
+    residuals of ``batch``), computed once."""
+    return res.memo(
+        "abs_actual_sums", lambda: np.where(res.observed, np.abs(batch.actuals), 0.0).sum(axis=1)
+    )
+
+
+def scaled_squares(res: Residuals) -> tuple[FloatVector, FloatMatrix]:
+    """``(top, squares)``: the largest observed ``|e|`` per row (0 where none) and ``(e /
+    peak)^2``, ``peak = top`` (1 where 0), 0 where missing: values in ``[0, 1]``, so sums of
+    them and of their products neither overflow nor underflow. A new matrix the caller may
+    change; its row sums are kept as ``res.square_sums``."""
+    magnitude = np.abs(np.where(res.observed, res.values, 0.0))
+    top = magnitude.max(axis=1, initial=0.0)
+    peak = np.where(top > 0, top, 1.0)
+    np.divide(magnitude, peak[:, None], out=magnitude)
+    np.multiply(magnitude, magnitude, out=magnitude)
+    memo: dict[str, FloatVector] = res.__dict__.setdefault("_memo", {})
+    if "square_sums" not in memo:
+        sums = magnitude.sum(axis=1)
+        kept = top.copy()
+        kept.flags.writeable = sums.flags.writeable = False
+        memo["largest"], memo["square_sums"] = kept, sums
+    return top, magnitude
 
 
 def nearly_constant(
@@ -658,7 +747,14 @@ def nearly_constant(
     """
     hi = np.where(observed, values, -np.inf).max(axis=1, initial=-np.inf)
     lo = np.where(observed, values, np.inf).min(axis=1, initial=np.inf)
-    have = observed.sum(axis=1) >= 2
+    return _constant_from_range(hi, lo, observed.sum(axis=1) >= 2, scale)
+
+
+def _constant_from_range(
+    hi: FloatVector, lo: FloatVector, have: np.ndarray, scale: FloatVector | float
+) -> np.ndarray:
+    """:func:`nearly_constant` from each row's largest and smallest observed value and whether
+    it has at least 2."""
     base = np.maximum(np.maximum(np.abs(hi), np.abs(lo)), scale)
     with np.errstate(invalid="ignore"):
         return ~have | ((hi - lo) <= 1e-12 * np.where(have, base, 1.0))
@@ -667,24 +763,35 @@ def nearly_constant(
 def residuals_of(batch: SeriesBatch) -> Residuals:
     """Compute the residuals of ``batch`` under the rules in this module's docstring."""
     e = batch.actuals - batch.fitted
-    observed = ~np.isnan(e)
+    observed = np.isnan(e)
+    np.logical_not(observed, out=observed)
     n_obs = observed.sum(axis=1).astype(np.int64)
     lengths = batch.lengths
     first = np.argmax(observed, axis=1) if e.shape[1] else np.zeros(e.shape[0], dtype=np.int64)
-    start = np.where(observed.any(axis=1), first, lengths).astype(np.int64)
+    start = np.where(n_obs > 0, first, lengths).astype(np.int64)
     n_missing = np.maximum(lengths - start, 0) - n_obs
-    filled = np.where(observed, e, 0.0)
+    gone = ~observed
+    centred = e.copy()
+    centred[gone] = 0.0
+    value_sums = centred.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        mean = filled.sum(axis=1) / n_obs
+        mean = value_sums / n_obs
     mean = np.where(n_obs > 0, mean, np.nan)
-    centred = np.where(observed, e - mean[:, None], 0.0)
-    magnitude = np.maximum(np.abs(batch.actuals), np.abs(batch.fitted))
-    rounding_scale = np.where(observed, magnitude, 0.0).max(axis=1, initial=0.0)
-    constant = nearly_constant(e, observed, rounding_scale)
+    np.subtract(centred, mean[:, None], out=centred)
+    centred[gone] = 0.0
+    magnitude = np.abs(batch.actuals)
+    np.maximum(magnitude, np.abs(batch.fitted), out=magnitude)
+    magnitude[gone] = 0.0
+    rounding_scale = magnitude.max(axis=1, initial=0.0)
+    # The largest and smallest observed residual (max and min are exact, NaN is missing).
+    hi = np.where(n_obs > 0, np.fmax.reduce(e, axis=1, initial=-np.inf), -np.inf)
+    lo = np.where(n_obs > 0, np.fmin.reduce(e, axis=1, initial=np.inf), np.inf)
+    constant = _constant_from_range(hi, lo, n_obs >= 2, rounding_scale)
     unit = np.abs(centred).max(axis=1, initial=0.0)
     unit = np.where(unit > 0, unit, 1.0)
     standard = centred / unit[:, None]
-    return Residuals(
+    value_sums.flags.writeable = False
+    out = Residuals(
         values=e,
         observed=observed,
         n_obs=n_obs,
@@ -698,6 +805,8 @@ def residuals_of(batch: SeriesBatch) -> Residuals:
         standard=standard,
         rounding_scale=rounding_scale,
     )
+    out.__dict__["_memo"] = {"value_sums": value_sums}
+    return out
 
 
 def conform(

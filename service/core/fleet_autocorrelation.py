@@ -98,29 +98,50 @@ def fleet_lag_part(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
         return FleetPart(sums=sums)
     n = res.n_obs[rows]
     lengths = res.lengths[rows]
-    zr = z[rows]
-    gamma0 = np.vecdot(zr, zr)
+    every = rows.size == use.shape[0]
+    zr = z if every else z[rows]  # the block's rows in use (all of them: a view)
+    gamma0 = res.lag_products(0) if every else res.lag_products(0)[rows]
     with np.errstate(invalid="ignore", divide="ignore"):
         s2 = gamma0 / n
         shift = s2 / n
-    obs_r = obs[rows]
+    obs_r = obs if every else obs[rows]
+    tested_r = tested if every else tested[rows]
     length = int(lengths[0])
     aligned = bool((lengths == length).all())  # the block's series end in one period
+    starts = res.start[rows]
+    first = int(starts[0]) if starts.size else 0
+    # Every series of the block observed from one period to its last without a gap: the
+    # observed pairs at lag k are then the columns first..length - 1 - k of the products.
+    plain = aligned and bool((starts == first).all() and (res.n_missing[rows] == 0).all())
+    x = np.empty((rows.size, max(width - 1, 0)))
     for k in (np.flatnonzero(counts[:k_max]) + 1).tolist():
         if k >= width:
             continue
-        pairs = obs_r[:, k:] & obs_r[:, :-k] & tested[rows, k - 1][:, None]
+        every_row = bool(tested_r[:, k - 1].all())
         prod = zr[:, k:] * zr[:, :-k]
-        every_pair = bool(pairs.all())  # no gap: nothing to clear
-        if not every_pair:
-            prod[~pairs] = 0.0
+        if plain:
+            # Outside the observed pairs one factor is 0, so the product is already 0.
+            top = length - 1 - k
+            if not every_row:
+                prod[~tested_r[:, k - 1]] = 0.0
+            pairs = None
+        else:
+            pairs = obs_r[:, k:] & obs_r[:, :-k] & tested_r[:, k - 1][:, None]
+            if not pairs.all():
+                prod[~pairs] = 0.0
         norm = np.sqrt(np.vecdot(prod, prod))
         ok = norm > 0
+        xk = x[:, : width - k]
         with np.errstate(invalid="ignore", divide="ignore"):
-            x = prod + shift[:, None]
-            x /= norm[:, None]
-            if not (every_pair and ok.all()):
-                x[~(pairs & ok[:, None])] = 0.0
+            np.add(prod, shift[:, None], out=xk)
+            xk /= norm[:, None]
+            if pairs is None:
+                xk[:, : min(first, width - k)] = 0.0
+                xk[:, max(top + 1, 0) :] = 0.0
+                if not (every_row and ok.all()):
+                    xk[~(ok & tested_r[:, k - 1])] = 0.0
+            elif not (pairs.all() and ok.all()):
+                xk[~(pairs & ok[:, None])] = 0.0
             acf = np.where(ok, prod.sum(axis=1) / gamma0, 0.0)
         members = int(ok.sum())
         if members == 0:
@@ -130,19 +151,33 @@ def fleet_lag_part(res: Residuals, tested: BoolMatrix, use: np.ndarray) -> Fleet
         h = np.zeros(width)
         if aligned:
             # Column c of x is period c + k of every series: q = length - 1 - k - c.
-            used = np.flatnonzero(x.any(axis=0))
+            top = length - 1 - k
+            if pairs is None:
+                # Only the columns first..top can hold a term; a column with a non-zero sum
+                # holds one, one summing to 0 is looked at.
+                if first > top:
+                    continue
+                columns = np.zeros(top + 1)
+                columns[first:] = xk[:, first : top + 1].sum(axis=0)
+                held = columns[first:] != 0
+                if not held.all():
+                    held |= xk[:, first : top + 1].any(axis=0)
+                used = np.flatnonzero(held) + first
+            else:
+                used = np.flatnonzero(xk.any(axis=0))
+                if used.size == 0:
+                    continue
+                columns = xk[:, : top + 1].sum(axis=0)
             if used.size == 0:
                 continue
-            top = length - 1 - k
-            columns = x[:, : top + 1].sum(axis=0)
             h[: top + 1] = columns[::-1]
             lo, hi = top - int(used[-1]), top - int(used[0])
         else:
-            r_i, c_i = np.nonzero(x)
+            r_i, c_i = np.nonzero(xk)
             if r_i.size == 0:
                 continue
             q = lengths[r_i] - 1 - (c_i + k)
-            h += np.bincount(q, weights=x[r_i, c_i], minlength=width)[:width]
+            h += np.bincount(q, weights=xk[r_i, c_i], minlength=width)[:width]
             lo, hi = int(q.min()), int(q.max())
         sums[f"h{k}"] = h
         lows[f"q{k}"] = lo

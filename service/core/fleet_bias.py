@@ -184,7 +184,7 @@ def fleet_bias(
     n_cal = int((off + res.lengths).max(initial=0))
     # Largest |H| contribution, to work in its units (no overflow in the squares): res.unit is
     # the largest |centred| of a row, except for a row of zeros (whose largest is 0).
-    nonzero = np.vecdot(res.standard, res.standard) > 0
+    nonzero = res.lag_products(0) > 0
     with np.errstate(invalid="ignore", over="ignore"):
         scale = float(np.max(np.abs(coef) * np.where(nonzero, res.unit, 0.0), initial=0.0))
     scale = scale if scale > 0 else 1.0
@@ -210,7 +210,7 @@ def fleet_bias(
     # In units of ``scale`` (as H above), so squares of values near the accepted magnitude
     # neither overflow nor underflow.
     with np.errstate(invalid="ignore", over="ignore"):
-        var_i = np.vecdot(res.standard, res.standard) * (res.unit / scale) ** 2
+        var_i = res.lag_products(0) * (res.unit / scale) ** 2
         var_i = var_i / np.maximum(n - 1, 1)
         naive_var = np.bincount(
             g, weights=np.where(used, share * share * var_i / safe_n, 0.0), minlength=n_fleets
@@ -238,7 +238,7 @@ def fleet_bias_part(
     width = res.values.shape[1]
     w = np.asarray(weights, dtype=float)
     n = res.n_obs
-    ss = np.vecdot(res.standard, res.standard)
+    ss = res.lag_products(0)
     last_obs = res.lengths.astype(np.int64)  # a copy
     last_obs -= 1
     trailing = np.flatnonzero(res.n_missing > 0)  # a gap may end the span

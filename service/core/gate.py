@@ -26,8 +26,9 @@ A verdict is statistical evidence under the stated assumptions, not a guarantee.
 
 from __future__ import annotations
 
-from collections.abc import Iterator, Mapping, Sequence
+from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass, replace
+from functools import partial
 from typing import Any
 
 import numpy as np
@@ -509,7 +510,8 @@ def _decide_parts(
         not_run = (essential & (matrix == SKIPPED)).any(axis=0)
         series_codes_all = np.where(not_run, np.maximum(series_codes_all, WARN), series_codes_all)
     hints = _hints(defs, stacked)
-    notes = _pass_notes(defs, stacked, matrix, p_matrix, immaterial)
+    # Sentences for series rows: made when a row is shown (an answer without rows never).
+    notes = _LazyNotes(partial(_pass_notes, defs, stacked, matrix, p_matrix, immaterial))
     split = stacked.split(parts) if n_parts > 1 else [stacked]
     out = []
     for g, (part, results) in enumerate(zip(parts, split, strict=True)):
@@ -596,13 +598,7 @@ def _decide_parts(
                 reasons=tuple(ordered),
                 fleet={key: finding for key, (_, finding) in findings.items()},
                 # One part: its rows are the stacked rows (no copy of every sentence).
-                notes=notes
-                if n_parts == 1
-                else {
-                    (name, i - rows.start): text
-                    for (name, i), text in notes.items()
-                    if rows.start <= i < rows.stop
-                },
+                notes=notes if n_parts == 1 else _LazyNotes(partial(_part_notes, notes, rows)),
             )
         )
     return _Decided(
@@ -634,6 +630,37 @@ def _hints(defs: Sequence[CheckDef], checks: BatchChecks) -> dict[int, str]:
             for i, text in check.hint(checks[check.name]).items():
                 out[i] = f"{out[i]}; {text}" if i in out else text
     return out
+
+
+class _LazyNotes(Mapping[tuple[str, int], str]):
+    """A mapping made by ``make()`` the first time it is read."""
+
+    def __init__(self, make: Callable[[], Mapping[tuple[str, int], str]]) -> None:
+        self._make: Callable[[], Mapping[tuple[str, int], str]] | None = make
+        self._found: Mapping[tuple[str, int], str] = {}
+
+    def _notes(self) -> Mapping[tuple[str, int], str]:
+        if self._make is not None:
+            self._found, self._make = self._make(), None
+        return self._found
+
+    def __getitem__(self, key: tuple[str, int]) -> str:
+        return self._notes()[key]
+
+    def __iter__(self) -> Iterator[tuple[str, int]]:
+        return iter(self._notes())
+
+    def __len__(self) -> int:
+        return len(self._notes())
+
+
+def _part_notes(notes: Mapping[tuple[str, int], str], rows: slice) -> dict[tuple[str, int], str]:
+    """The notes of the stacked rows ``rows``, by row within them."""
+    return {
+        (name, i - rows.start): text
+        for (name, i), text in notes.items()
+        if rows.start <= i < rows.stop
+    }
 
 
 def _pass_notes(
@@ -762,7 +789,7 @@ def _results(d: _Decided, shown: Sequence[str] | None = None) -> list[Assessment
     for (name, key), floats in zip(float_keys, converted, strict=True):
         columns[name][key] = floats
     # Sentences by (check, stacked row), then by position among the rows kept.
-    messages: dict[tuple[str, int], str] = dict(d.notes)
+    messages: dict[tuple[str, int], str] = dict(d.notes) if m else {}
     for g, a in enumerate(d.assessments):
         if views[g] == "none":
             continue

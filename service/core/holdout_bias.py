@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.special import stdtr
 
-from .batch import SeriesBatch, nearly_constant
+from .batch import Residuals, SeriesBatch, nearly_constant
 from .fleet_pooling import PooledMean, pooled_mean
 from .holdout import holdout_pairs
 from .path_variance import autocovariances, bartlett_long_run, centred, ewc_degrees, ewc_long_run
@@ -196,9 +196,17 @@ class FleetBias:
     weights: FloatVector
 
 
-def training_rms(batch: SeriesBatch) -> FloatVector:
+def training_rms(batch: SeriesBatch, residuals: Residuals | None = None) -> FloatVector:
     """Root mean square of the training residuals ``actual - fitted`` per series (observed
-    residuals only; ``NaN`` without any): the unit the pooled bias measures errors in."""
+    residuals only; ``NaN`` without any): the unit the pooled bias measures errors in.
+    ``residuals``: the batch's own (:func:`~service.core.batch.residuals_of`), whose sums of
+    squares other checks may have taken already."""
+    if residuals is not None:
+        top, sums = residuals.square_sums
+        peak = np.where(top > 0, top, 1.0)
+        count = residuals.n_obs
+        with np.errstate(invalid="ignore", divide="ignore"):
+            return np.where(count > 0, peak * np.sqrt(sums / count), np.nan)
     e = batch.actuals - batch.fitted
     ok = ~np.isnan(e)
     count = ok.sum(axis=1)

@@ -9,6 +9,7 @@ import numpy as np
 from .batch import SeriesBatch
 from .fleet_pooling import PooledMean, pooled_mean
 from .holdout import BENCHMARKS, benchmark_forecasts, holdout_pairs, holdout_reason
+from .naive_errors import batch_naive_scales
 from .results import skip_reasons_and_ran
 from .types import FloatMatrix, FloatVector, InputError, IntVector, ObjectVector
 
@@ -105,7 +106,9 @@ def rmsse(batch: SeriesBatch, *, seasonal: bool = False, min_obs: int = 1) -> Sc
     too short for one difference, or when the scale is 0 (a constant series).
     """
     m = batch.season_length if seasonal else 1
-    scale = rmsse_scale(batch.actuals, m)
+    if m < 1:
+        raise InputError("season_length", f"must be at least 1, got {m}")
+    scale = batch_naive_scales(batch, m)[1]  # rmsse_scale(batch.actuals, m)
     err, ok, _ = holdout_pairs(batch)
     rmse, count = _root_mean_square(err, ok)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):

@@ -24,7 +24,7 @@ authors name 1.96 and 2.576 as good choices (``testcorr`` defaults to 2.576, whi
 better at relatively large lags)."""
 
 ROBUST_NONSEASONAL_LAGS = 10
-CHUNK_ELEMENTS = 1 << 18
+CHUNK_ELEMENTS = 1 << 16
 """Entries per (series, lag, period) block of lagged products: rows are processed in blocks of
 at most this many ``lags x periods`` cells (and at most :data:`MAX_CHUNK_ROWS` rows), small
 enough to stay in cache."""
@@ -242,11 +242,13 @@ def _products(
     # not on the other lags tested in the batch nor on the rows beside it (a fleet assessed in
     # chunks gets the whole's numbers).
     totals = sq.sum(axis=2)
+    # Only the pairs a < b need S_a(lag_b); for a >= b the first lag_b terms are zeros
+    # (P_a(t) = 0 for t < lag_a), so S_a(lag_a) = S_a(0) is the whole sum.
     suffix = np.empty((n_k, n_k, c))
     for b, lag in enumerate(lag_values.tolist()):
-        suffix[b] = totals - sq[:, :, :lag].sum(axis=2)
-    lag_index = np.arange(n_k)
-    total = suffix[lag_index, lag_index]  # S_a(lag_a) = S_a(0) = sum_t P_a(t)^2, (K, c)
+        if b:
+            suffix[b, :b] = totals[:b] - sq[:b, :, :lag].sum(axis=2)
+    total = totals  # S_a(lag_a) = S_a(0) = sum_t P_a(t)^2, (K, c)
     tested = tested & (total > 0).T  # a lag without an observed pair tests nothing
     with np.errstate(invalid="ignore", divide="ignore"):
         t = (prod[:, :, :width].sum(axis=2) / np.sqrt(total)).T

@@ -80,6 +80,8 @@ def _report_non_numbers(rows: Sequence[Sequence[Any]], locs: Sequence[str], errs
 def check_magnitude(flat: FlatRows, locs: Sequence[str], errs: Errors) -> bool:
     """Report the values beyond :data:`MAX_ABS_VALUE` (at most :data:`MAX_ERRORS`); ``True``
     when there is none."""
+    if within_bound(flat.values, MAX_ABS_VALUE):
+        return True
     with np.errstate(invalid="ignore"):
         huge = np.abs(flat.values) > MAX_ABS_VALUE
     if not huge.any():
@@ -96,6 +98,17 @@ def check_magnitude(flat: FlatRows, locs: Sequence[str], errs: Errors) -> bool:
     return False
 
 
+def within_bound(values: np.ndarray, bound: float) -> bool:
+    """Every value of ``values`` (NaN aside) at most ``bound`` in magnitude, infinities not:
+    two reductions, no temporary array. ``False`` means: look closer."""
+    if values.size == 0:
+        return True
+    with np.errstate(invalid="ignore"):
+        low = float(np.fmin.reduce(values, axis=None))
+        high = float(np.fmax.reduce(values, axis=None))
+    return -low <= bound and high <= bound
+
+
 def _positions(mask: np.ndarray, lengths: np.ndarray) -> list[tuple[int, int]]:
     """(row, index in the row) of the first :data:`MAX_ERRORS` true values of ``mask``."""
     ends = np.cumsum(lengths)
@@ -106,11 +119,15 @@ def _positions(mask: np.ndarray, lengths: np.ndarray) -> list[tuple[int, int]]:
     return out
 
 
-def padded_matrix(flat: np.ndarray, lengths: np.ndarray, width: int | None = None) -> np.ndarray:
-    """Right-pad the rows of ``flat`` with NaN into an ``(n, width)`` matrix."""
+def padded_matrix(
+    flat: np.ndarray, lengths: np.ndarray, width: int | None = None, *, copy: bool = True
+) -> np.ndarray:
+    """Right-pad the rows of ``flat`` with NaN into an ``(n, width)`` matrix. ``copy=False``:
+    when every row is full, a view of ``flat`` (for a reader that copies it anyway)."""
     width = int(lengths.max(initial=0)) if width is None else width
     if flat.size == lengths.shape[0] * width and bool((lengths == width).all()):
-        return flat.reshape(lengths.shape[0], width).copy()  # every row full: nothing to pad
+        full = flat.reshape(lengths.shape[0], width)  # every row full: nothing to pad
+        return full.copy() if copy else full
     out = np.full((lengths.shape[0], width), np.nan)
     out[np.arange(width)[None, :] < lengths[:, None]] = flat
     return out

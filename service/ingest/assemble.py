@@ -59,9 +59,11 @@ def build_request(envelope: Envelope, cols: SeriesColumns) -> AssessmentRequest:
     burn_in = np.array(
         [envelope.burn_in if b is None else b for b in given], dtype=np.int64
     ).reshape(n)
-    fitted = padded_matrix(cols.fitted.values, a_len, width)
+    # make_batch copies what it is given: the request keeps its own fitted values only when
+    # a burn-in drops some of them from the batch.
+    fitted = padded_matrix(cols.fitted.values, a_len, width, copy=bool(burn_in.any()))
     batch = _make_batch(
-        padded_matrix(cols.actuals.values, a_len, width),
+        padded_matrix(cols.actuals.values, a_len, width, copy=False),
         fitted,
         ids=cols.ids,
         weights=cols.weights,

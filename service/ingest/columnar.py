@@ -29,6 +29,7 @@ from typing import Any, Literal, overload
 
 import numpy as np
 
+from .arrays import within_bound
 from .assemble import build_request
 from .csv_body import (
     CSV_OPTIONAL,
@@ -217,9 +218,19 @@ class _Rows:
         arr = self._text("series_id", raw, integers=True)
         if arr is None:
             return [], np.zeros(self.n_rows, dtype=np.int64)
-        encoded = pc.dictionary_encode(arr)
-        nulls = np.asarray(encoded.indices.is_null())
-        codes = np.asarray(encoded.indices.fill_null(0), dtype=np.int64)
+        if arr.null_count == 0 and len(arr) > 1:
+            # The usual file: each series' rows together. Encode the first row of each run
+            # of equal ids (a series may still come back later) and repeat its code.
+            change = np.asarray(pc.not_equal(arr[1:], arr[:-1]))
+            starts = np.flatnonzero(np.concatenate(([True], change)))
+            encoded = pc.dictionary_encode(arr.take(starts))
+            run_codes = np.asarray(encoded.indices, dtype=np.int64)
+            codes = np.repeat(run_codes, np.diff(np.append(starts, len(arr))))
+            nulls = np.zeros(self.n_rows, dtype=bool)
+        else:
+            encoded = pc.dictionary_encode(arr)
+            nulls = np.asarray(encoded.indices.is_null())
+            codes = np.asarray(encoded.indices.fill_null(0), dtype=np.int64)
         for r in _rows_of(nulls):
             self.errs.add(f"row[{r}].series_id", "must not be empty (null)")
         given = encoded.dictionary.to_pylist()  # one string per series
@@ -276,6 +287,8 @@ class _Rows:
             return np.full(self.n_rows, np.nan)
         arr = raw if pat.is_float64(t) else raw.cast(pa.float64(), safe=False)
         values = np.asarray(arr.to_numpy(zero_copy_only=False), dtype=np.float64)
+        if within_bound(values, MAX_ABS_VALUE):
+            return values  # no infinity, nothing beyond the bound (NaN aside)
         with np.errstate(invalid="ignore"):
             inf = np.isinf(values)
             huge = ~inf & (np.abs(values) > MAX_ABS_VALUE)
@@ -351,10 +364,16 @@ class _Rows:
 
     # --- grouping -----------------------------------------------------------------------------
 
+    def _at(self, values: np.ndarray, rows: np.ndarray) -> np.ndarray:
+        """``values[rows]``; ``values`` itself when ``rows`` is every row in file order."""
+        if rows.size == self.n_rows and rows is not self.reordered:
+            return values
+        return values[rows]
+
     def _grouped(self, rows: np.ndarray) -> np.ndarray:
         """``rows`` ordered by series, file order kept within each (no sort when the rows of
         each series already come together in order of first appearance)."""
-        codes = self.codes[rows]
+        codes = self._at(self.codes, rows)
         if codes.size < 2 or bool((codes[1:] >= codes[:-1]).all()):
             return rows
         self.reordered = rows[np.argsort(codes, kind="stable")]
@@ -375,11 +394,11 @@ class _Rows:
         t, h = self.t_rows, self.h_rows
         return ReadSeries(
             ids=self.ids,
-            t_lengths=np.bincount(self.codes[t], minlength=n),
+            t_lengths=np.bincount(self._at(self.codes, t), minlength=n),
             actual=self._taken("actual", t),
             fitted=self._taken("fitted", t),
             t_stamps=None,  # checked here by row; given to the request lazily
-            h_lengths=np.bincount(self.codes[h], minlength=n),
+            h_lengths=np.bincount(self._at(self.codes, h), minlength=n),
             h_actual=self._taken("actual", h),
             h_forecast=self._taken("fitted", h),
             lower=self._taken("lower", h),
@@ -393,7 +412,7 @@ class _Rows:
         if self.stamps is None:
             return
         for rows, lengths in ((self.t_rows, read.t_lengths), (self.h_rows, read.h_lengths)):
-            stamps = self.stamps[rows]
+            stamps = self._at(self.stamps, rows)
             if stamps.size < 2:
                 continue
             starts = np.cumsum(lengths) - lengths

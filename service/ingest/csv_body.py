@@ -14,8 +14,9 @@ from __future__ import annotations
 import csv
 import io
 import warnings
-from collections.abc import Iterator, Mapping
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import replace
+from typing import overload
 
 import numpy as np
 
@@ -206,7 +207,12 @@ def check_series(rs: ReadSeries, errs: Errors, max_length: int | None) -> None:
     too_long = np.zeros(len(rs.ids), dtype=bool)
     if max_length is not None:
         too_long = np.maximum(rs.t_lengths, rs.h_lengths) > max_length
-    for i, sid in enumerate(rs.ids):
+    # The series with a problem, found with array operations; the sentences one by one.
+    flagged = (rs.t_lengths == 0) | too_long | (rs.interval & rs.uneven_bounds)
+    if rs.t_stamps is not None:
+        flagged |= np.array([not all(s) for s in rs.t_stamps], dtype=bool)
+    for i in np.flatnonzero(flagged).tolist():
+        sid = rs.ids[i]
         if not rs.t_lengths[i]:
             errs.add(f"series[{i}].actuals", f"series {sid!r} has holdout rows but no train rows")
             continue
@@ -352,5 +358,28 @@ def _holdout_columns(rs: ReadSeries, level: float | None, errs: Errors) -> Holdo
     )
 
 
-def _locs(n: int, key: str) -> list[str]:
-    return [f"series[{i}].{key}" for i in range(n)]
+class _Locs(Sequence[str]):
+    """``series[i].{key}`` for ``i < n``, each made when asked for (most are never read)."""
+
+    def __init__(self, n: int, key: str) -> None:
+        self._n, self._key = n, key
+
+    def __len__(self) -> int:
+        return self._n
+
+    @overload
+    def __getitem__(self, i: int) -> str: ...
+
+    @overload
+    def __getitem__(self, i: slice) -> list[str]: ...
+
+    def __getitem__(self, i: int | slice) -> str | list[str]:
+        if isinstance(i, slice):
+            return [self[k] for k in range(*i.indices(self._n))]
+        if not -self._n <= i < self._n:
+            raise IndexError(i)
+        return f"series[{i % self._n}].{self._key}"
+
+
+def _locs(n: int, key: str) -> Sequence[str]:
+    return _Locs(n, key)

@@ -6,6 +6,7 @@ import numpy as np
 
 from ..batch import SeriesBatch
 from ..holdout import holdout_pairs, holdout_reason
+from ..naive_errors import batch_naive_scales
 from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
 from ..relative_accuracy import rmsse
 from ..results import CheckResult, is_none, skip_reasons_and_ran
@@ -42,7 +43,7 @@ def mase(batch: SeriesBatch, *, min_obs: int = 1) -> CheckResult:
     too short for one (seasonal) difference, or when the scale is zero (a constant series).
     """
     m = batch.season_length
-    scale = naive_scale(batch.actuals, m)
+    scale = batch_naive_scales(batch, m)[0]  # naive_scale(batch.actuals, m)
     err, ok, count = holdout_pairs(batch)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         mae = np.where(count > 0, np.where(ok, np.abs(err), 0.0).sum(axis=1) / count, np.nan)

@@ -194,12 +194,12 @@ def _lag_autocorrelations(res: Residuals, lag_values: np.ndarray) -> FloatMatrix
     """``r_k`` (observed pairs over ``n_obs``, as :func:`autocorrelations`) at the given lags."""
     z = res.standard
     width = z.shape[1]
-    gamma0 = np.vecdot(z, z)
+    gamma0 = res.lag_products(0)
     out = np.full((z.shape[0], lag_values.size), np.nan)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         for j, k in enumerate(lag_values.tolist()):
             if k < width:
-                out[:, j] = np.vecdot(z[:, k:], z[:, :-k]) / gamma0
+                out[:, j] = res.lag_products(k) / gamma0
     return out
 
 

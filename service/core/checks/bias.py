@@ -15,7 +15,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from ..batch import Residuals, SeriesBatch
+from ..batch import Residuals, SeriesBatch, abs_actual_sums
 from ..ewc import ewc_bias
 from ..fleet_bias import fleet_bias_from_parts, fleet_bias_part
 from ..fleet_parts import FleetPart
@@ -190,22 +190,23 @@ def tracking_signal(
         raise InputError("window", f"must be at least 2, got {window}")
     need = 2 * window if min_obs is None else max(min_obs, window + 1)
     n = res.n_obs
-    observed = res.observed
-    # Rank of each observed residual counted from the end of its row: 1 is the last.
-    rank_from_end = np.cumsum(observed[:, ::-1], axis=1)[:, ::-1]
-    recent = observed & (rank_from_end <= window)
+    recent = _last_observed(res, window)
     e = np.where(recent, res.values, 0.0)
     total = e.sum(axis=1)
-    abs_total = np.abs(e).sum(axis=1)
+    outside = ~recent
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        abs_total = np.abs(e).sum(axis=1)
         # Sample variance in units of res.unit (standardised residuals): no overflow.
-        var = np.vecdot(res.standard, res.standard) / (n - 1)
+        squares = res.lag_products(0)
+        var = squares / (n - 1)
         # Second moment about zero (the null's mean) of all residuals, and the window's own
         # variance about its mean, both in units of res.unit.
         shift = res.mean / res.unit
-        second = (np.vecdot(res.standard, res.standard) + n * shift * shift) / n
+        second = (squares + n * shift * shift) / n
         w_mean = total / window / res.unit
-        w_dev = np.where(recent, res.values / res.unit[:, None] - w_mean[:, None], 0.0)
+        w_dev = np.divide(e, res.unit[:, None], out=e)  # e inside the window: its values
+        w_dev -= w_mean[:, None]
+        w_dev[outside] = 0.0
         w_var = np.vecdot(w_dev, w_dev) / (window - 1)
         ts = window * total / abs_total
         z = (total / res.unit) / np.sqrt(window * np.maximum(second, w_var))
@@ -243,6 +244,23 @@ def tracking_signal(
         skip_reason=reasons,
         null_hypothesis="the last errors have mean zero",
     )
+
+
+def _last_observed(res: Residuals, window: int) -> np.ndarray:
+    """Where each row's last ``window`` observed residuals are (all of them in a shorter row).
+    A row without a gap holds its observed residuals in the columns ``start..length - 1``, so
+    those are the columns from ``max(start, length - window)``; the other rows count their
+    observed residuals from the end."""
+    observed = res.observed
+    width = observed.shape[1]
+    plain = res.n_missing == 0
+    if plain.all():
+        cols = np.arange(width)[None, :]
+        begin = np.maximum(res.start, res.lengths - window)
+        return (cols >= begin[:, None]) & (cols < res.lengths[:, None])
+    # Rank of each observed residual counted from the end of its row: 1 is the last.
+    rank_from_end = np.cumsum(observed[:, ::-1], axis=1)[:, ::-1]
+    return observed & (rank_from_end <= window)
 
 
 MIN_SD = 0.1
@@ -283,7 +301,7 @@ def bias(
     ran = ~ewc.skipped
     n = res.n_obs
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        sd = res.unit * np.sqrt(np.vecdot(res.standard, res.standard) / (n - 1))
+        sd = res.unit * np.sqrt(res.lag_products(0) / (n - 1))
     d = ewc.details
     return CheckResult(
         name="bias",
@@ -317,9 +335,8 @@ def bias(
 
 
 def _mean_abs_actual(batch: SeriesBatch, res: Residuals) -> np.ndarray:
-    a = np.where(res.observed, np.abs(batch.actuals), 0.0)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        return a.sum(axis=1) / res.n_obs
+        return abs_actual_sums(batch, res) / res.n_obs
 
 
 def _run_bias(inputs: CheckInputs, **options: Any) -> CheckResult:
@@ -483,10 +500,9 @@ def _gather_fleet_bias(checks: BatchChecks, weights: np.ndarray, policy: Policy)
     w = np.where(use, weights, 0.0)
     counts = None if (w > 0).any() else use.astype(float)
     part = fleet_bias_part(res, w, min_obs=BIAS_MIN_OBS, counts=counts)
-    observed = res.observed & use[:, None]
-    sums = {
-        "e_sum": np.where(observed, res.values, 0.0).sum(axis=1),
-        "y_sum": np.where(observed, np.abs(checks.batch.actuals), 0.0).sum(axis=1),
+    sums = {  # over the residual periods of the series used, 0 for the others
+        "e_sum": np.where(use, res.value_sums, 0.0),
+        "y_sum": np.where(use, abs_actual_sums(checks.batch, res), 0.0),
     }
     return FleetPart(rows={**part.rows, **sums}, scaled=part.scaled)
 

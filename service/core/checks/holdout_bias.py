@@ -56,7 +56,7 @@ def holdout_bias_check(inputs: CheckInputs, *, min_obs: int = 3) -> CheckResult:
             "std_error": np.where(ran, found.std_error, np.nan),
             "df": np.where(ran, found.df, np.nan),
             "horizon": found.n_obs,
-            "residual_rms": training_rms(batch),
+            "residual_rms": training_rms(batch, inputs.residuals),
             "method": np.full(batch.n_series, found.method, dtype=object),
         },
         skip_reason=found.skip_reason,

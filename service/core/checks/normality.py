@@ -146,7 +146,11 @@ def normality(res: Residuals, *, min_obs: int = JB_MIN_OBS) -> CheckResult:
         values = np.where(res.observed, res.standard, np.inf)
         for size in np.unique(n[use]).tolist():
             rows = np.flatnonzero(use & (n == size))
-            ordered = np.sort(values[rows], axis=1)[:, :size]
+            if rows.size == n_series:  # every series (the usual fleet): sorted in place
+                values.sort(axis=1)
+                ordered = values[:, :size]
+            else:
+                ordered = np.sort(values[rows], axis=1)[:, :size]
             w[rows], p[rows] = shapiro_wilk_w(ordered, size)
     statistic = np.where(use, w, jb.statistic)
     p_value = np.where(use, p, jb.p_value)

@@ -5,14 +5,14 @@ from __future__ import annotations
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
-from ..batch import Residuals, nearly_constant
+from ..batch import Residuals, scaled_squares
 from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
 from ..results import CheckResult, skip_reasons_and_ran
 from ..tails import chi2_sf
 from ..types import FloatMatrix, FloatVector, InputError, IntVector
 
 ARCH_MAX_LAGS = 10
-_CHUNK = 2048
+_CHUNK = 512
 
 
 def arch_lags(n_obs: IntVector) -> IntVector:
@@ -21,32 +21,27 @@ def arch_lags(n_obs: IntVector) -> IntVector:
 
 
 def _lm_one_order(
-    squares: FloatMatrix, lags: int, buffer: np.ndarray | None = None
+    z: FloatMatrix,
+    valid: np.ndarray,
+    lags: int,
+    buffer: np.ndarray | None = None,
+    span: tuple[int, int] | None = None,
 ) -> tuple[FloatVector, IntVector, FloatVector]:
     """``n R^2`` of ``s_t`` on ``1, s_{t-1}..s_{t-lags}`` for each row, with rows that miss any
     of those values left out. Returns (LM, rows used, centred total sum of squares).
 
+    ``z``: the squares ``s`` less their row's mean over the observed ones (``R^2`` does not
+    change, and the cross-products below are taken about values near zero, so they do not
+    cancel), anything finite where missing (no usable row reads it). ``valid[:, r]``:
+    regression row ``r`` (``s_{r + lags}`` on ``s_{r + lags - 1}..s_r``) has all its values
+    observed (:func:`_usable_rows`); ``span`` ``(lo, hi)``, when given, says that is
+    ``lo <= r < hi`` in every row.
+
     ``buffer``: optional flat float array of at least ``rows x (width - lags) x (lags + 1)``
     elements, reused between blocks for the regression rows (saves allocating them anew)."""
-    n_series, width = squares.shape
+    n_series, width = z.shape
     rows = width - lags
-    if rows <= 0:
-        nan = np.full(n_series, np.nan)
-        return nan, np.zeros(n_series, dtype=np.int64), nan
-    # A regression row t (t = lags..width-1) is usable when s_{t-lags}..s_t are all observed:
-    # count the missing values in that window from a running count.
-    nan = np.isnan(squares)
-    missing = np.zeros((n_series, width + 1), dtype=np.int64)
-    np.cumsum(nan, axis=1, out=missing[:, 1:])
-    valid = missing[:, lags + 1 :] == missing[:, :rows]
     used = valid.sum(axis=1)
-    # Shift each row by the mean of its observed squares: R^2 does not change, and the
-    # cross-products below are taken about values near zero, so they do not cancel.
-    have = width - missing[:, -1]
-    filled = np.where(nan, 0.0, squares)
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        shift = np.where(have > 0, filled.sum(axis=1) / np.maximum(have, 1), 0.0)
-    z = np.where(nan, 0.0, squares - shift[:, None])
     # window[:, t, 0] is z_t, window[:, t, j] is z_{t-j}: a strided view, copied once into the
     # regression rows, of which the unusable ones are then zeroed.
     window = sliding_window_view(z, lags + 1, axis=1)[:, :, ::-1]
@@ -55,7 +50,10 @@ def _lm_one_order(
         buffer = np.empty(size)
     cols = buffer[:size].reshape(n_series, rows, lags + 1)
     np.copyto(cols, window)
-    if not valid.all():
+    if span is not None:  # the usable rows are lo..hi - 1 in every series
+        cols[:, : span[0]] = 0.0
+        cols[:, max(span[1], span[0]) :] = 0.0
+    elif not valid.all():
         cols[~valid] = 0.0
     # One small Gram matrix per series, [y, x]' [y, x] over the usable rows (a batched matrix
     # product), centred with the column sums: this absorbs the intercept.
@@ -87,6 +85,22 @@ def _lm_one_order(
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         r2 = explained / tss
     return used * r2, used.astype(np.int64), tss
+
+
+def _usable_rows(
+    observed: np.ndarray, start: IntVector, end: IntVector, gap_free: bool, lags: int
+) -> np.ndarray:
+    """``valid[:, r]``: the values ``r..r + lags`` of a row are all observed. ``gap_free``:
+    every row's observed values are the columns ``start..end - 1`` (no gap), so that is
+    ``start <= r <= end - 1 - lags``; else from a running count of the missing values."""
+    n_series, width = observed.shape
+    rows = width - lags
+    if gap_free:
+        r = np.arange(rows)[None, :]
+        return (r >= start[:, None]) & (r <= (end - 1 - lags)[:, None])
+    missing = np.zeros((n_series, width + 1), dtype=np.int64)
+    np.cumsum(~observed, axis=1, out=missing[:, 1:])
+    return missing[:, lags + 1 :] == missing[:, :rows]
 
 
 def _solve_each(a: np.ndarray, b: FloatMatrix) -> FloatMatrix:
@@ -127,37 +141,52 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     rows = np.zeros(n_series, dtype=np.int64)
     tss = np.full(n_series, np.nan)
     # Squares of e over its largest |e| (R^2 does not depend on the unit): values in [0, 1],
-    # so the cross-products of squares neither overflow nor underflow.
-    peak = np.where(res.observed, np.abs(res.values), 0.0).max(axis=1, initial=0.0)
-    peak = np.where(peak > 0, peak, 1.0)
-    scaled = res.values / peak[:, None]
-    squares = np.where(res.observed, scaled * scaled, np.nan)
+    # so the cross-products of squares neither overflow nor underflow; 0 where missing.
+    observed = res.observed
+    top, z = scaled_squares(res)
+    # Shift each row by the mean of its observed squares (its whole width: a row's sums do not
+    # depend on the rows beside it).
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        shift = np.where(n > 0, res.square_sums[1] / np.maximum(n, 1), 0.0)
+    # Where a square is missing, z is -shift: no usable regression row holds such a value.
+    np.subtract(z, shift[:, None], out=z)
     # Loop over the few distinct lag orders and over blocks of rows, never over single series.
-    width = squares.shape[1]
+    width = z.shape[1]
     buffer = np.empty(min(_CHUNK, n_series) * width * (ARCH_MAX_LAGS + 1)) if n_series else None
+    gap_free = res.n_missing == 0
     positive = used_lags[used_lags >= 1]
     if positive.size and (positive == positive[0]).all():
         orders = positive[:1]  # one order for the whole batch (the usual case): no sort
     else:
         orders = np.unique(positive)
-    for order in orders:
+    for order in orders.tolist():
         members = np.flatnonzero(used_lags == order)
+        if order >= width:  # no regression row at all
+            continue
         for lo in range(0, members.size, _CHUNK):
             idx = members[lo : lo + _CHUNK]
             contiguous = idx[-1] - idx[0] + 1 == idx.size
-            # A run of consecutive series is a view; otherwise gather the rows.
-            block = squares[idx[0] : idx[-1] + 1] if contiguous else squares[idx]
-            # Over the batch's whole width, never trimmed to the block's span: a row's sums
-            # then do not depend on which other rows share its block (a fleet assessed in
-            # chunks gives the numbers of the whole, to the last bit).
-            lm[idx], rows[idx], tss[idx] = _lm_one_order(block, int(order), buffer)
-    # Squares that do not vary: constant residuals, +-c residuals (equal |e| within rounding),
-    # or no variation left in the regression rows.
-    flat = (
-        res.constant
-        | nearly_constant(np.abs(res.values), res.observed, res.rounding_scale)
-        | ~(tss > 0)
-    )
+            # A run of consecutive series is a view; otherwise gather the rows. Over the
+            # batch's whole width, never trimmed to the block's span: a row's sums then do not
+            # depend on which other rows share its block (a fleet assessed in chunks gives the
+            # numbers of the whole, to the last bit).
+            part = slice(idx[0], idx[-1] + 1) if contiguous else idx
+            starts, ends = res.start[part], res.lengths[part]
+            plain = bool(gap_free[part].all())
+            valid = _usable_rows(observed[part], starts, ends, plain, order)
+            span = None
+            if plain and (starts == starts[0]).all() and (ends == ends[0]).all():
+                span = (int(starts[0]), int(ends[0]) - order)  # the same rows in every series
+            lm[idx], rows[idx], tss[idx] = _lm_one_order(z[part], valid, order, buffer, span)
+    # Squares that do not vary: constant residuals, +-c residuals (equal |e| within rounding:
+    # the largest and smallest observed |e| of :func:`nearly_constant`), or no variation left
+    # in the regression rows.
+    smallest = np.fmin.reduce(np.abs(res.values), axis=1, initial=np.inf)  # NaN: missing
+    have = n >= 2
+    base = np.maximum(np.maximum(top, smallest), res.rounding_scale)
+    with np.errstate(invalid="ignore"):
+        equal_size = ~have | ((top - smallest) <= 1e-12 * np.where(have, base, 1.0))
+    flat = res.constant | equal_size | ~(tss > 0)
     reasons, ran = skip_reasons_and_ran(
         n_series,
         (n < max(min_obs, 2), f"fewer than {max(min_obs, 2)} residuals"),
