@@ -510,6 +510,7 @@ def _decide_parts(
         not_run = (essential & (matrix == SKIPPED)).any(axis=0)
         series_codes_all = np.where(not_run, np.maximum(series_codes_all, WARN), series_codes_all)
     hints = _hints(defs, stacked)
+    lag_row = names.index("ljung_box") if "ljung_box" in names else None
     # Sentences for series rows: made when a row is shown (an answer without rows never).
     notes = _LazyNotes(partial(_pass_notes, defs, stacked, matrix, p_matrix, immaterial))
     split = stacked.split(parts) if n_parts > 1 else [stacked]
@@ -562,6 +563,12 @@ def _decide_parts(
             note = None if check.needs_holdout else hints.get(rows.start + i)
             if note:
                 text = f"{text[:-1]}; {note}."
+            if (
+                check.name in _MEAN_TESTS
+                and lag_row is not None
+                and matrix[lag_row, rows.start + i] >= WARN
+            ):
+                text = f"{text[:-1]}; {_AUTOCORRELATED_TOO}."
             reason = Reason(check.name, _STATUS_ENUM[c], part.ids[i], text)
             series_reasons.append((c, -float(part_weights[i]), i, reason))
         for j, i in unchecked[g]:
@@ -609,6 +616,20 @@ def _decide_parts(
         weights,
         notes,
     )
+
+
+_MEAN_TESTS = frozenset({"bias", "tracking_signal"})
+"""Checks that test a series' mean error with a variance that allows for short-range
+autocorrelation only (HAC bandwidths of a few periods)."""
+
+_AUTOCORRELATED_TOO = (
+    "this series' residuals are also autocorrelated, and a test of the mean allows for short-range "
+    "autocorrelation only, so with structure at longer (e.g. seasonal) lags the evidence of "
+    "bias can be overstated: remove the autocorrelation first, then look at the bias again"
+)
+"""Added to a bias or tracking-signal reason of a series whose autocorrelation check warns or
+fails (the service-conditions study: zero-mean residuals with a seasonal AR 0.5 term at lag 7,
+T = 60, reject the bias test 7% of the time at 1%)."""
 
 
 def _used(kind: str, bounds: np.ndarray) -> dict[str, float | None]:
