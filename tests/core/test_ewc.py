@@ -128,14 +128,14 @@ def test_t_is_the_ratio_of_the_zeroth_dct_term_to_the_next_b():
     np.testing.assert_allclose(result.p_value, 2 * stats.t.sf(np.abs(t_ref), b), rtol=1e-10)
 
 
-def test_series_rule_takes_two_ninths_of_t_and_never_fewer_than_the_paper():
+def test_series_rule_takes_a_sixth_of_t_and_never_fewer_than_the_paper():
     # The per-series bias test's rule (a project choice; the README's gate study): B =
-    # max(floor(2 T / 9), floor(0.4 T^(2/3)), 2), at most T - 1; computed here by brute force.
+    # max(floor(T / 6), floor(0.4 T^(2/3)), 2), at most T - 1; computed here by brute force.
     n = np.arange(2, 3001)
-    expected = np.minimum(np.maximum(np.floor(2 * n / 9).astype(int), ewc_bins(n)), n - 1)
+    expected = np.minimum(np.maximum(np.floor(n / 6).astype(int), ewc_bins(n)), n - 1)
     np.testing.assert_array_equal(series_bins(n), expected)
     got = series_bins(np.array([3, 10, 20, 30, 52, 104, 156, 260]))
-    assert got.tolist() == [2, 2, 4, 6, 11, 23, 34, 57]
+    assert got.tolist() == [2, 2, 3, 5, 8, 17, 26, 43]
 
 
 def test_all_cosines_give_the_one_sample_t_test():
@@ -150,16 +150,16 @@ def test_all_cosines_give_the_one_sample_t_test():
 
 
 def test_the_check_rule_at_104_periods_against_scipy_dct():
-    # T = 104: B = 23 (floor(208 / 9)); t = y_0 / sqrt(mean(y_j^2), j = 1..23) with y the
-    # orthonormal DCT-II of the residuals (scipy.fft.dct), p from scipy's t with 23 df.
+    # T = 104: B = 17 (floor(104 / 6)); t = y_0 / sqrt(mean(y_j^2), j = 1..17) with y the
+    # orthonormal DCT-II of the residuals (scipy.fft.dct), p from scipy's t with 17 df.
     rng = np.random.default_rng(104)
     x = rng.normal(0.25, 1.0, size=(3, 104))
     result = ewc_bias(x, bins=series_bins(np.full(3, 104)))
     y = fft.dct(x, type=2, norm="ortho", axis=1)
-    t_ref = y[:, 0] / np.sqrt(np.mean(y[:, 1:24] ** 2, axis=1))
+    t_ref = y[:, 0] / np.sqrt(np.mean(y[:, 1:18] ** 2, axis=1))
     np.testing.assert_allclose(result.statistic, t_ref, rtol=1e-12)
-    np.testing.assert_allclose(result.p_value, 2 * stats.t.sf(np.abs(t_ref), 23), rtol=1e-10)
-    assert (result.details["df"] == 23).all()
+    np.testing.assert_allclose(result.p_value, 2 * stats.t.sf(np.abs(t_ref), 17), rtol=1e-10)
+    assert (result.details["df"] == 17).all()
 
 
 def test_per_series_bins_match_one_at_a_time():

@@ -266,7 +266,7 @@ def bias(
 
     The test is the EWC t test of :func:`service.core.ewc.ewc_bias` (Lazarus, Lewis, Stock &
     Watson 2018): ``t = mean / SE`` with the equal-weighted cosine long-run variance on
-    ``B = max(floor(2 T / 9), floor(0.4 T^(2/3)), 2)`` cosine terms
+    ``B = max(floor(T / 6), floor(0.4 T^(2/3)), 2)`` cosine terms
     (:func:`service.core.ewc.series_bins`, or ``bins``) and Student t with ``B``
     degrees of freedom; the interval ``mean +- t_{B,(1+level)/2} SE`` comes from it.
     ``details`` keep the Newey-West figures of :func:`newey_west_bias` (``hac_lags``,
@@ -588,7 +588,7 @@ CHECKS = (
         ),
         null_hypothesis="the residuals have mean zero",
         defaults=(
-            "B = max(floor(2T/9), floor(0.4 T^(2/3)), 2) cosine terms, Student t with B df; "
+            "B = max(floor(T/6), floor(0.4 T^(2/3)), 2) cosine terms, Student t with B df; "
             "95% interval; "
             "material at 0.1 residual sd or 1% of the level; Newey-West lags "
             "floor(4 (T/100)^(2/9)) in details"
