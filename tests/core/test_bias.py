@@ -309,15 +309,17 @@ def test_tracking_signal_skips_and_options():
 
 def test_the_bias_check_tests_with_ewc_and_reports_newey_west_beside_it():
     # The check's statistic is the EWC t test; the Newey-West figures sit in its details.
-    from service.core.ewc import ewc_bias
+    from service.core.ewc import ewc_bias, series_bins
 
     rng = np.random.default_rng(12)
     rows = invented_rows(rng, [80, 52, 104, 20, 60, 33])
     res = residuals(rows)
     scale = _scale(res)
     check = bias(res, scale, hac_lags=3)
-    ewc = ewc_bias(res, scale)
+    ewc = ewc_bias(res, scale, bins=series_bins(res.n_obs))
     nw = newey_west_bias(res, scale, hac_lags=3)
+    # The per-series rule: floor(T / 6) terms, at least LLSW's (T = 80, 52, 104, 20, 60, 33).
+    assert check.details["bins"].tolist() == [13, 8, 17, 3, 10, 5]
     np.testing.assert_array_equal(check.statistic, ewc.statistic)
     np.testing.assert_array_equal(check.p_value, ewc.p_value)
     for key in ("mean_error", "std_error", "ci_low", "ci_high", "df"):

@@ -13,6 +13,7 @@ from service.core.ewc import (
     ewc_bias,
     ewc_bins,
     ewc_long_run_variance,
+    series_bins,
 )
 from tests.reference_values import X20
 
@@ -125,6 +126,50 @@ def test_t_is_the_ratio_of_the_zeroth_dct_term_to_the_next_b():
     t_ref = y[:, 0] / np.sqrt(np.mean(y[:, 1 : b + 1] ** 2, axis=1))
     np.testing.assert_allclose(result.statistic, t_ref, rtol=1e-12)
     np.testing.assert_allclose(result.p_value, 2 * stats.t.sf(np.abs(t_ref), b), rtol=1e-10)
+
+
+def test_series_rule_takes_a_sixth_of_t_and_never_fewer_than_the_paper():
+    # The per-series bias test's rule (a project choice; the README's gate study): B =
+    # max(floor(T / 6), floor(0.4 T^(2/3)), 2), at most T - 1; computed here by brute force.
+    n = np.arange(2, 3001)
+    expected = np.minimum(np.maximum(np.floor(n / 6).astype(int), ewc_bins(n)), n - 1)
+    np.testing.assert_array_equal(series_bins(n), expected)
+    got = series_bins(np.array([3, 10, 20, 30, 52, 104, 156, 260]))
+    assert got.tolist() == [2, 2, 3, 5, 8, 17, 26, 43]
+
+
+def test_all_cosines_give_the_one_sample_t_test():
+    # B = T - 1: the T - 1 cosines and the constant are an orthonormal basis, so Omega is the
+    # sample variance (ddof 1) and the EWC test is the one-sample t test (scipy.stats.ttest_1samp).
+    rng = np.random.default_rng(31)
+    x = rng.normal(0.2, 1.0, size=(4, 40))
+    result = ewc_bias(x, bins=39)
+    ref = stats.ttest_1samp(x, 0.0, axis=1)
+    np.testing.assert_allclose(result.statistic, ref.statistic, rtol=1e-10)
+    np.testing.assert_allclose(result.p_value, ref.pvalue, rtol=1e-8)
+
+
+def test_the_check_rule_at_104_periods_against_scipy_dct():
+    # T = 104: B = 17 (floor(104 / 6)); t = y_0 / sqrt(mean(y_j^2), j = 1..17) with y the
+    # orthonormal DCT-II of the residuals (scipy.fft.dct), p from scipy's t with 17 df.
+    rng = np.random.default_rng(104)
+    x = rng.normal(0.25, 1.0, size=(3, 104))
+    result = ewc_bias(x, bins=series_bins(np.full(3, 104)))
+    y = fft.dct(x, type=2, norm="ortho", axis=1)
+    t_ref = y[:, 0] / np.sqrt(np.mean(y[:, 1:18] ** 2, axis=1))
+    np.testing.assert_allclose(result.statistic, t_ref, rtol=1e-12)
+    np.testing.assert_allclose(result.p_value, 2 * stats.t.sf(np.abs(t_ref), 17), rtol=1e-10)
+    assert (result.details["df"] == 17).all()
+
+
+def test_per_series_bins_match_one_at_a_time():
+    rng = np.random.default_rng(8)
+    x = rng.normal(0.0, 1.0, size=(3, 60))
+    b = np.array([2, 7, 13])
+    whole = ewc_bias(x, bins=b)
+    for i in range(3):
+        one = ewc_bias(x[i : i + 1], bins=int(b[i]))
+        assert whole.statistic[i] == one.statistic[0] and whole.details["df"][i] == b[i]
 
 
 # --- Direct computation ----------------------------------------------------------------------

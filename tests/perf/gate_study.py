@@ -19,6 +19,8 @@ Invented fleets with simulated residuals, sound and flawed, through ``service.co
     python tests/perf/gate_study.py --reps 1000 --small-reps 5000
     python tests/perf/gate_study.py --only size --reps 200     # a quicker look
     python tests/perf/gate_study.py --only baseline --reps 1000
+    python tests/perf/gate_study.py --cell "sound: GARCH(1,1) 0.1/0.1/0.8,260,1" --seeds 8
+        # one cell of the size or detection tables again, at its seed and the next 7
 
 Each figure is a proportion over independent fleets; its standard error is at most
 ``0.5 / sqrt(reps)`` (1.6 points at 1,000 fleets, 0.3 near 1% or 99%; 0.14 near 1% at 5,000).
@@ -588,6 +590,36 @@ def per_series_table(series: int, seed: int) -> None:
             print(f"| {label} | {t} | {series} | " + " | ".join(cells) + " |", flush=True)
 
 
+def cell_table(cell: str, seeds: int, small_reps: int, reps: int, seed: int) -> None:
+    """One cell of the size or detection tables (``label,T,series``) at its own seed and the
+    ``seeds - 1`` next ones, each run on its own, then pooled: a cell's figure at one seed is
+    one draw, and the pooled figure has ``sqrt(seeds)`` times less standard error."""
+    label, t_text, n_text = cell.rsplit(",", 2)
+    t, n = int(t_text), int(n_text)
+    # Each table's seeds as size_table and detect_table make them (detection: 5000 further).
+    found = [
+        (offset, s_i, s)
+        for offset, table in ((0, SIZE), (5000, DETECT))
+        for s_i, s in enumerate(table)
+        if s.label == label and t in s.lengths and n in s.sizes
+    ]
+    if not found:
+        raise SystemExit(f"no cell {cell!r} in the size or detection tables")
+    offset, s_i, s = found[0]
+    r = (reps if n >= 200 else small_reps) if n <= 1000 else max(reps // 10, 20)
+    print(f"\n## {label}, T = {t}, fleets of {n}: {seeds} seeds of {r} fleets\n")
+    print("| seed | fleets | fail | warn or fail | from |")
+    print("|---|---|---|---|---|")
+    total_fail = total_warn = 0.0
+    for k in range(seeds):
+        cell_seed = seed + offset + 1000 * s_i + 10 * t + n + k
+        fail, warn, why = rates(s, n, t, r, cell_seed)
+        total_fail += fail
+        total_warn += warn
+        print(f"| {cell_seed} | {r} | {fail:.2%} | {warn:.1%} | {_culprits(why, r)} |", flush=True)
+    print(f"| pooled | {r * seeds} | {total_fail / seeds:.2%} | {total_warn / seeds:.1%} | |")
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--reps", type=int, default=1000, help="fleets of 200 per cell")
@@ -603,8 +635,16 @@ def main() -> None:
     parser.add_argument(
         "--only", choices=("size", "detect", "holdout", "series", "baseline"), default=None
     )
+    parser.add_argument(
+        "--cell", default=None, help='one cell again: "label,T,series" (see --seeds)'
+    )
+    parser.add_argument("--seeds", type=int, default=1, help="seeds for --cell (default 1)")
     args = parser.parse_args()
     start = time.perf_counter()
+    if args.cell is not None:
+        cell_table(args.cell, args.seeds, args.small_reps, args.reps, args.seed)
+        print(f"\nelapsed {time.perf_counter() - start:.0f} s")
+        return
     print(f"default policy; {args.reps} fleets of 200, {args.small_reps} fleets of 1 or 5")
     if args.only in (None, "size"):
         size_table(args.reps, args.small_reps, args.seed)

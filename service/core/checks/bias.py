@@ -16,7 +16,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ..batch import Residuals, SeriesBatch, abs_actual_sums
-from ..ewc import ewc_bias
+from ..ewc import ewc_bias, series_bins
 from ..fleet_bias import fleet_bias_from_parts, fleet_bias_part
 from ..fleet_parts import FleetPart
 from ..registry import (
@@ -284,7 +284,8 @@ def bias(
 
     The test is the EWC t test of :func:`service.core.ewc.ewc_bias` (Lazarus, Lewis, Stock &
     Watson 2018): ``t = mean / SE`` with the equal-weighted cosine long-run variance on
-    ``B = max(floor(0.4 T^(2/3)), 2)`` cosine terms (or ``bins``) and Student t with ``B``
+    ``B = max(floor(T / 6), floor(0.4 T^(2/3)), 2)`` cosine terms
+    (:func:`service.core.ewc.series_bins`, or ``bins``) and Student t with ``B``
     degrees of freedom; the interval ``mean +- t_{B,(1+level)/2} SE`` comes from it.
     ``details`` keep the Newey-West figures of :func:`newey_west_bias` (``hac_lags``,
     ``nw_std_error``, ``nw_t``, ``nw_p_value``), the residual standard deviation
@@ -296,7 +297,9 @@ def bias(
     biased for certain (``t = +-inf``, ``p = 0``); all-zero residuals and series with fewer
     than ``min_obs`` (at least 3) residuals skip.
     """
-    ewc = ewc_bias(res, actuals_scale, bins=bins, ci_level=ci_level, min_obs=min_obs)
+    # At least 1 for the argument check; capped at T - 1 inside (0 where T < 2, as skipped).
+    b = np.maximum(series_bins(res.n_obs), 1) if bins is None else bins
+    ewc = ewc_bias(res, actuals_scale, bins=b, ci_level=ci_level, min_obs=min_obs)
     nw = newey_west_bias(res, actuals_scale, hac_lags=hac_lags, ci_level=ci_level, min_obs=min_obs)
     ran = ~ewc.skipped
     n = res.n_obs
@@ -601,7 +604,8 @@ CHECKS = (
         ),
         null_hypothesis="the residuals have mean zero",
         defaults=(
-            "B = max(floor(0.4 T^(2/3)), 2) cosine terms, Student t with B df; 95% interval; "
+            "B = max(floor(T/6), floor(0.4 T^(2/3)), 2) cosine terms, Student t with B df; "
+            "95% interval; "
             "material at 0.1 residual sd or 1% of the level; Newey-West lags "
             "floor(4 (T/100)^(2/9)) in details"
         ),
