@@ -17,6 +17,7 @@ from typing import IO, Any
 import numpy as np
 import orjson
 
+from service.core.batch import Holdout
 from service.core.gate import assess_many_results
 from service.core.policy import Policy
 from service.ingest import AssessmentRequest, parse_csv_request, parse_json_request
@@ -112,24 +113,31 @@ def parse(
     return parse_json_request(body, **limits)
 
 
+def holdout_input(h: Holdout | None, i: int, nh: int, stamps: Any) -> dict[str, Any]:
+    """Row ``i``'s stored holdout fields (its first ``nh`` values; the interval and its level
+    only where both bounds and a level were given); empty without a holdout."""
+    if h is None or nh <= 0:
+        return {}
+    hold: dict[str, Any] = {
+        "holdout_actuals": h.actuals[i, :nh],
+        "holdout_forecasts": h.forecasts[i, :nh],
+        "holdout_timestamps": stamps,
+    }
+    level = np.nan if h.level is None else float(h.level[i])
+    if h.lower is not None and h.upper is not None and not np.isnan(level):
+        hold["holdout_lower"] = h.lower[i, :nh]
+        hold["holdout_upper"] = h.upper[i, :nh]
+        hold["holdout_level"] = level
+    return hold
+
+
 def _inputs(req: AssessmentRequest) -> list[SeriesInput]:
     b = req.batch
     h = b.holdout
     out = []
     for i, sid in enumerate(req.ids):
         n, nh = int(req.train_lengths[i]), int(req.holdout_lengths[i])
-        hold: dict[str, Any] = {}
-        if h is not None and nh > 0:
-            hold = {
-                "holdout_actuals": h.actuals[i, :nh],
-                "holdout_forecasts": h.forecasts[i, :nh],
-                "holdout_timestamps": req.holdout_timestamps[i],
-            }
-            level = np.nan if h.level is None else float(h.level[i])
-            if h.lower is not None and h.upper is not None and not np.isnan(level):
-                hold["holdout_lower"] = h.lower[i, :nh]
-                hold["holdout_upper"] = h.upper[i, :nh]
-                hold["holdout_level"] = level
+        hold = holdout_input(h, i, nh, req.holdout_timestamps[i])
         out.append(
             SeriesInput(
                 series_id=sid,

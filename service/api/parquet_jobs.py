@@ -50,6 +50,7 @@ from service.store.records import (
     utcnow,
 )
 
+from . import assessing
 from .memory import release_memory
 
 MIB = 1024 * 1024
@@ -454,18 +455,7 @@ def _inputs(batch: Any, hold_lengths: np.ndarray, texts: _Texts) -> list[SeriesI
     for i, (sid, n, nh) in enumerate(
         zip(batch.ids, batch.lengths.tolist(), hold_lengths.tolist(), strict=True)
     ):
-        hold: dict[str, Any] = {}
-        if h is not None and nh > 0:
-            hold = {
-                "holdout_actuals": h.actuals[i, :nh],
-                "holdout_forecasts": h.forecasts[i, :nh],
-                "holdout_timestamps": h_stamps[i],
-            }
-            level = np.nan if h.level is None else float(h.level[i])
-            if h.lower is not None and h.upper is not None and not np.isnan(level):
-                hold["holdout_lower"] = h.lower[i, :nh]
-                hold["holdout_upper"] = h.upper[i, :nh]
-                hold["holdout_level"] = level
+        hold = assessing.holdout_input(h, i, nh, h_stamps[i])
         out.append(
             SeriesInput(
                 series_id=sid,
