@@ -119,8 +119,11 @@ class Store(ABC):
         """
 
     @abstractmethod
-    def get_assessment(self, *, assessment_id: str) -> StoredAssessment | None:
-        """The stored assessment with this id and its per-series results, or ``None``."""
+    def get_assessment(
+        self, *, assessment_id: str, flagged_only: bool = False
+    ) -> StoredAssessment | None:
+        """The stored assessment with this id and its per-series results, or ``None``; with
+        ``flagged_only``, only the results of the series that did not pass."""
 
     @abstractmethod
     def get_assessment_by_seq(self, *, seq: int) -> StoredAssessment | None:

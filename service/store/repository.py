@@ -316,19 +316,21 @@ def save_assessments(
     return out
 
 
-def get_assessment(engine: Engine, *, assessment_id: str) -> StoredAssessment | None:
-    """The stored assessment with this id, or ``None``."""
+def get_assessment(
+    engine: Engine, *, assessment_id: str, flagged_only: bool = False
+) -> StoredAssessment | None:
+    """The stored assessment with this id, or ``None``; with ``flagged_only`` only the rows of
+    its series that did not pass are read (filtered by the database, in input order)."""
     with engine.connect() as conn:
         row = conn.execute(
             select(*_SUMMARY_COLUMNS, A.c.result).where(A.c.id == assessment_id)
         ).first()
         if row is None:
             return None
-        series = conn.execute(
-            select(SR.c.result, SR.c.verdict)
-            .where(SR.c.assessment_seq == row.seq)
-            .order_by(SR.c.position)
-        ).all()
+        q = select(SR.c.result, SR.c.verdict).where(SR.c.assessment_seq == row.seq)
+        if flagged_only:
+            q = q.where(SR.c.verdict != "pass")
+        series = conn.execute(q.order_by(SR.c.position)).all()
     return StoredAssessment(
         summary=_summary(row),
         head=row.result.encode(),

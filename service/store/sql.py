@@ -101,8 +101,12 @@ class SqlStore(Store):
         return out
 
     @_translated
-    def get_assessment(self, *, assessment_id: str) -> StoredAssessment | None:
-        return repo.get_assessment(self.engine, assessment_id=assessment_id)
+    def get_assessment(
+        self, *, assessment_id: str, flagged_only: bool = False
+    ) -> StoredAssessment | None:
+        return repo.get_assessment(
+            self.engine, assessment_id=assessment_id, flagged_only=flagged_only
+        )
 
     @_translated
     def get_assessment_by_seq(self, *, seq: int) -> StoredAssessment | None:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import orjson
 import pytest
 from sqlalchemy import inspect, select, text
 
@@ -96,13 +97,14 @@ def test_unsupported_url_is_refused():
         make_engine("mysql://u@127.0.0.1/db")
 
 
-def _save(engine, aid="a1", key=None, digest=None, n=3):
+def _save(engine, aid="a1", key=None, digest=None, n=3, verdicts=None):
+    verdicts = verdicts or ["pass"] * n
     series = [
         repo.SeriesResult(
             series_id=f"s{i}",
-            verdict="pass",
+            verdict=verdicts[i],
             n_obs=10,
-            json=f'{{"id":"s{i}","verdict":"pass","n_obs":10}}'.encode(),
+            json=f'{{"id":"s{i}","verdict":"{verdicts[i]}","n_obs":10}}'.encode(),
         )
         for i in range(n)
     ]
@@ -162,6 +164,17 @@ def test_save_and_read_back(engine):
     assert inputs[1].holdout_actuals is None
     assert repo.get_assessment(engine, assessment_id="nope") is None
     assert repo.series_inputs(engine, assessment_id="nope") is None
+
+
+def test_flagged_rows_are_picked_by_the_database_in_input_order(engine):
+    _save(engine, aid="f1", n=5, verdicts=["warn", "pass", "fail", "pass", "warn"])
+    flagged = repo.get_assessment(engine, assessment_id="f1", flagged_only=True)
+    assert flagged is not None
+    assert flagged.verdicts == ["warn", "fail", "warn"]
+    assert [orjson.loads(r)["id"] for r in flagged.series] == ["s0", "s2", "s4"]
+    whole = repo.get_assessment(engine, assessment_id="f1")
+    assert whole is not None and whole.head == flagged.head and len(whole.series) == 5
+    assert repo.get_assessment(engine, assessment_id="nope", flagged_only=True) is None
 
 
 def test_assessment_and_rows_are_one_transaction(engine):

@@ -395,6 +395,11 @@ def get_assessment(
         if head is None:
             raise ApiError(404, f"no assessment with id {assessment_id!r}")
         return conditional(request, series_view.joined(head.head, (), "none"), JSON)
+    if shown == "flagged":  # the rows that did not pass, picked by the database
+        flagged = store.get_assessment(assessment_id=assessment_id, flagged_only=True)
+        if flagged is None:
+            raise ApiError(404, f"no assessment with id {assessment_id!r}")
+        return conditional(request, series_view.joined(flagged.head, flagged.series, shown), JSON)
     stored = stored_or_404(store, assessment_id)
     return conditional(request, series_view.stored_answer(stored, shown), JSON)
 
