@@ -261,11 +261,12 @@ class LimitsMiddleware:
             spool = Spool()
             try:
                 read = await self._read_body(receive, send, spool)
-                if not read:
-                    return
             except BaseException:
                 spool.close()
                 raise
+            if not read:  # answered 413 or 408, or the client left: what arrived is dropped
+                spool.close()
+                return
             body = spool.done()
             if isinstance(body, bytes):
                 replay = _replaying(body, receive)
