@@ -310,8 +310,6 @@ def submit(
             return _same_key(found, key, digest)
     described = None
     if kind == "parquet":  # read in chunks when it runs, unless it cannot be (then None)
-        from . import parquet_jobs
-
         described = parquet_jobs.describe(body, params, settings)
     if described is not None:
         _policy, document = policy_lookup.resolve(store, described.policy)

@@ -36,6 +36,7 @@ import numpy as np
 import orjson
 
 from service.core.gate import Assessment
+from service.ingest.columnar import is_text_type
 from service.ingest.csv_body import check_params, read_csv_envelope, read_level
 from service.ingest.request import Errors, RequestInvalid
 from service.results import AssessmentDocument, SeriesTable, to_dicts
@@ -71,7 +72,6 @@ MAGIC = b"plumbline:parquet-parts:1\n"
 """How a job's ``input`` that describes parts (not ``.npz`` arrays) begins."""
 
 _DUMP = orjson.OPT_SERIALIZE_NUMPY
-_CONTIGUOUS = "must be contiguous"
 
 
 @dataclass(frozen=True)
@@ -124,7 +124,7 @@ def describe(
     """Check a Parquet upload for a job (the 422 a synchronous POST would answer, naming
     ``row[N].column``) and describe it; ``None`` when it must go the whole-file way (series not
     contiguous, ``burn_in`` or ``baseline`` asked for)."""
-    from service.ingest.parquet_chunks import ParquetChunks
+    from service.ingest.parquet_chunks import NOT_CONTIGUOUS, ParquetChunks
 
     params = dict(params)
     errs = Errors()
@@ -145,7 +145,7 @@ def describe(
             first_row=0,
         )
     except RequestInvalid as exc:
-        if any(_CONTIGUOUS in e["message"] for e in exc.errors):
+        if any(e["message"].endswith(NOT_CONTIGUOUS) for e in exc.errors):
             return None
         raise
     n = chunks.n_series
@@ -155,7 +155,8 @@ def describe(
         )
     stamps = _stamp_form(source, chunks.columns)
     del chunks
-    release_memory()
+    if not isinstance(body, bytes):  # a spooled upload: its scan freed hundreds of MiB
+        release_memory()
     return Described(
         params=params,
         model=envelope.model,
@@ -194,7 +195,7 @@ def _stamp_form(source: IO[bytes], columns: Sequence[str]) -> dict[str, Any] | N
     kind = reader.schema_arrow.field("timestamp").type
     if pat.is_dictionary(kind):
         kind = kind.value_type
-    text = pat.is_string(kind) or pat.is_large_string(kind) or pat.is_string_view(kind)
+    text = is_text_type(kind)
     errs = Errors()
     unit = "s"
     whole = True

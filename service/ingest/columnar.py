@@ -58,6 +58,15 @@ _PANDAS_INDEX = re.compile(r"__index_level_\d+__")
 _NUMERIC = ("actual", "fitted", "lower", "upper")
 
 
+def is_text_type(t: Any) -> bool:
+    """Whether an Arrow type holds text: ``string``, ``large_string`` or, where this pyarrow
+    has it, ``string_view``."""
+    import pyarrow.types as pat
+
+    is_view = getattr(pat, "is_string_view", None)
+    return bool(pat.is_string(t) or pat.is_large_string(t) or (is_view is not None and is_view(t)))
+
+
 def parse_columnar_request(
     body: bytes,
     fmt: Format,
@@ -202,7 +211,7 @@ class _Rows:
         t = arr.type
         if pat.is_dictionary(t):
             arr, t = arr.dictionary_decode(), t.value_type
-        if pat.is_string(t) or pat.is_large_string(t) or pat.is_string_view(t):
+        if is_text_type(t):
             return arr.cast(pa.string()) if not pat.is_string(t) else arr
         if integers and pat.is_integer(t):
             return arr.cast(pa.string())
@@ -313,7 +322,7 @@ class _Rows:
             raw, t = raw.dictionary_decode(), t.value_type
         nulls = np.asarray(raw.is_null()) if raw.null_count else np.zeros(self.n_rows, bool)
         strings = None
-        if pat.is_string(t) or pat.is_large_string(t) or pat.is_string_view(t):
+        if is_text_type(t):
             texts = pc.utf8_trim_whitespace(raw.cast(pa.string())).fill_null("")
             strings = np.asarray(texts.to_numpy(zero_copy_only=False), dtype=object)
             nulls = nulls | (strings == "")

@@ -68,6 +68,11 @@ class _Shape:
         return int(self.holdout.max(initial=0))
 
 
+NOT_CONTIGUOUS = "the rows of a series must be contiguous"
+"""The end of the message of a series whose rows are not contiguous (a caller that can read
+the file whole instead looks for it)."""
+
+
 class ParquetChunks:
     """The series of a Parquet file in the long layout as chunks (see the module docstring).
 
@@ -281,8 +286,7 @@ class ParquetChunks:
                 if s in seen:
                     errs.add(
                         f"row[{rows[k]}].series_id",
-                        f"series {s!r} appears again after other series: the rows of a "
-                        "series must be contiguous",
+                        f"series {s!r} appears again after other series: {NOT_CONTIGUOUS}",
                     )
                     continue
                 if len(s) > MAX_NAME_LENGTH or "\x00" in s:

@@ -98,7 +98,6 @@ def create_job(engine: Engine, job: NewJob) -> StoredJob:
             # The parts one statement each: a part's bytes are dropped once written.
             for position, data in enumerate(job.input_parts):
                 conn.execute(insert(JP), {"job_id": job.job_id, "position": position, "data": data})
-                del data
     except IntegrityError:
         if job.idempotency_key is not None and find_job_by_key(engine, key=job.idempotency_key):
             raise IdempotencyConflict(job.idempotency_key) from None

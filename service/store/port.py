@@ -123,7 +123,8 @@ class Store(ABC):
         self, *, assessment_id: str, flagged_only: bool = False
     ) -> StoredAssessment | None:
         """The stored assessment with this id and its per-series results, or ``None``; with
-        ``flagged_only``, only the results of the series that did not pass."""
+        ``flagged_only``, only the results of the series that did not pass (then ``to_json``
+        is not the whole document: join ``head`` and ``series`` as the flagged view does)."""
 
     @abstractmethod
     def get_assessment_by_seq(self, *, seq: int) -> StoredAssessment | None:

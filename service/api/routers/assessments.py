@@ -368,11 +368,18 @@ def list_assessments(
     return conditional(request, body, JSON, headers)
 
 
-def stored_or_404(store: Store, assessment_id: str) -> StoredAssessment:
-    """The stored assessment, or a 404 problem naming the id."""
-    found = store.get_assessment(assessment_id=assessment_id)
+def _not_found(assessment_id: str) -> ApiError:
+    return ApiError(404, f"no assessment with id {assessment_id!r}")
+
+
+def stored_or_404(
+    store: Store, assessment_id: str, *, flagged_only: bool = False
+) -> StoredAssessment:
+    """The stored assessment (with ``flagged_only``, only its series rows that did not pass),
+    or a 404 problem naming the id."""
+    found = store.get_assessment(assessment_id=assessment_id, flagged_only=flagged_only)
     if found is None:
-        raise ApiError(404, f"no assessment with id {assessment_id!r}")
+        raise _not_found(assessment_id)
     return found
 
 
@@ -393,12 +400,10 @@ def get_assessment(
     if shown == "none":  # the head alone: no series row is read (a big fleet has millions)
         head = store.assessment_head(assessment_id=assessment_id)
         if head is None:
-            raise ApiError(404, f"no assessment with id {assessment_id!r}")
+            raise _not_found(assessment_id)
         return conditional(request, series_view.joined(head.head, (), "none"), JSON)
     if shown == "flagged":  # the rows that did not pass, picked by the database
-        flagged = store.get_assessment(assessment_id=assessment_id, flagged_only=True)
-        if flagged is None:
-            raise ApiError(404, f"no assessment with id {assessment_id!r}")
+        flagged = stored_or_404(store, assessment_id, flagged_only=True)
         return conditional(request, series_view.joined(flagged.head, flagged.series, shown), JSON)
     stored = stored_or_404(store, assessment_id)
     return conditional(request, series_view.stored_answer(stored, shown), JSON)
