@@ -4,7 +4,9 @@ Source: Lazarus, Lewis, Stock & Watson (2018), "HAR Inference: Recommendations f
 Journal of Business & Economic Statistics 36(4), 541-559: the EWC estimator (p. 545) and their
 recommended rule of ``nu = 0.4 T^(2/3)`` cosine terms with Student t_nu critical values (eq. 4,
 rounded down as in footnote 3). The per-series bias check uses more terms
-(:func:`series_bins`): its residuals are the ones the autocorrelation check finds uncorrelated.
+(:func:`series_bins`): it is tuned for residuals that are uncorrelated or nearly so, since
+autocorrelated residuals are the autocorrelation check's finding (a series flagged by both gets
+a caveat in its bias reason, :mod:`service.core.gate`).
 """
 
 from __future__ import annotations

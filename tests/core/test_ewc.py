@@ -130,10 +130,14 @@ def test_t_is_the_ratio_of_the_zeroth_dct_term_to_the_next_b():
 
 def test_series_rule_takes_a_sixth_of_t_and_never_fewer_than_the_paper():
     # The per-series bias test's rule (a project choice; the README's gate study): B =
-    # max(floor(T / 6), floor(0.4 T^(2/3)), 2), at most T - 1; computed here by brute force.
+    # max(floor(T / 6), floor(0.4 T^(2/3)), 2), at most T - 1. The rule written out again for
+    # T up to 3,000 (with LLSW's term by the integer search b^3 <= 0.064 T^2, independent of
+    # ewc_bins), then values worked by hand from the rule.
     n = np.arange(2, 3001)
-    expected = np.minimum(np.maximum(np.floor(n / 6).astype(int), ewc_bins(n)), n - 1)
+    llsw = np.array([max(b for b in range(0, 200) if 1000 * b**3 <= 64 * t * t) for t in n])
+    expected = np.minimum(np.maximum(np.maximum(n // 6, llsw), 2), n - 1)
     np.testing.assert_array_equal(series_bins(n), expected)
+    # By hand: T = 104 -> floor(17.33) = 17 against floor(0.4 * 22.1) = 8; T = 20 -> 3.
     got = series_bins(np.array([3, 10, 20, 30, 52, 104, 156, 260]))
     assert got.tolist() == [2, 2, 3, 5, 8, 17, 26, 43]
 
