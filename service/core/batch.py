@@ -747,10 +747,10 @@ def nearly_constant(
     """
     hi = np.where(observed, values, -np.inf).max(axis=1, initial=-np.inf)
     lo = np.where(observed, values, np.inf).min(axis=1, initial=np.inf)
-    return _constant_from_range(hi, lo, observed.sum(axis=1) >= 2, scale)
+    return constant_from_range(hi, lo, observed.sum(axis=1) >= 2, scale)
 
 
-def _constant_from_range(
+def constant_from_range(
     hi: FloatVector, lo: FloatVector, have: np.ndarray, scale: FloatVector | float
 ) -> np.ndarray:
     """:func:`nearly_constant` from each row's largest and smallest observed value and whether
@@ -786,7 +786,7 @@ def residuals_of(batch: SeriesBatch) -> Residuals:
     # The largest and smallest observed residual (max and min are exact, NaN is missing).
     hi = np.where(n_obs > 0, np.fmax.reduce(e, axis=1, initial=-np.inf), -np.inf)
     lo = np.where(n_obs > 0, np.fmin.reduce(e, axis=1, initial=np.inf), np.inf)
-    constant = _constant_from_range(hi, lo, n_obs >= 2, rounding_scale)
+    constant = constant_from_range(hi, lo, n_obs >= 2, rounding_scale)
     unit = np.abs(centred).max(axis=1, initial=0.0)
     unit = np.where(unit > 0, unit, 1.0)
     standard = centred / unit[:, None]

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from numpy.lib.stride_tricks import sliding_window_view
 
-from ..batch import Residuals, scaled_squares
+from ..batch import Residuals, constant_from_range, scaled_squares
 from ..registry import CheckDef, CheckPolicy, Finding, Option, fmt
 from ..results import CheckResult, skip_reasons_and_ran
 from ..tails import chi2_sf
@@ -182,10 +182,7 @@ def arch_lm(res: Residuals, *, lags: int | None = None, min_obs: int = 0) -> Che
     # the largest and smallest observed |e| of :func:`nearly_constant`), or no variation left
     # in the regression rows.
     smallest = np.fmin.reduce(np.abs(res.values), axis=1, initial=np.inf)  # NaN: missing
-    have = n >= 2
-    base = np.maximum(np.maximum(top, smallest), res.rounding_scale)
-    with np.errstate(invalid="ignore"):
-        equal_size = ~have | ((top - smallest) <= 1e-12 * np.where(have, base, 1.0))
+    equal_size = constant_from_range(top, smallest, n >= 2, res.rounding_scale)
     flat = res.constant | equal_size | ~(tss > 0)
     reasons, ran = skip_reasons_and_ran(
         n_series,
