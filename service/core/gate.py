@@ -130,10 +130,10 @@ class Assessment:
         note_rows = note_rows[order]
         named = {r.series_id for r in self.reasons if r.series_id is not None}
         parts_of: dict[str, int] = {}
-        if named:
-            for row, sid in enumerate(self.ids):
-                if sid in named:
-                    parts_of[sid] = row // size
+        if named:  # the rows of the named series, found by numpy (a fleet has millions of ids)
+            ids = np.asarray(self.ids, dtype=object)
+            at = np.flatnonzero(np.isin(ids, np.array(sorted(named), dtype=object)))
+            parts_of = {self.ids[row]: row // size for row in at.tolist()}
         reasons: dict[int, list[Reason]] = {}
         for r in self.reasons:
             if r.series_id is not None:
