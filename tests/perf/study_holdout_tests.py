@@ -36,10 +36,10 @@ from scipy import stats
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
 from service.core import interval_coverage, make_batch
-from service.core.benchmarks import benchmark_forecasts
 from service.core.comparison import dm_test, ewc_terms, holm
 from service.core.coverage_tests import fleet_coverage, miss_dependence
 from service.core.fleet_pooling import pooled_mean
+from service.core.holdout import benchmark_forecasts
 from service.core.holdout_bias import fleet_holdout_bias, path_bias
 from service.core.path_variance import ewc_degrees
 

@@ -18,9 +18,9 @@ import time
 import numpy as np
 from scipy import stats
 
-from service.core.autocorrelation import ljung_box
-from service.core.bias import bias
 from service.core.burn_in import burn_in_hint
+from service.core.checks.autocorrelation import ljung_box
+from service.core.checks.bias import bias
 from service.core.ewc import ewc_bias
 from service.core.fleet_bias import fleet_bias
 from service.core.residual_arrays import as_residuals

@@ -3,8 +3,9 @@ Ljung-Box and Box-Pierce statistics beside it.
 
 The check (``ljung_box``, its name kept) tests with the robust portmanteau of Dalla, Giraitis &
 Phillips (2022) (:mod:`service.core.robust_portmanteau`), which keeps its size under GARCH-type
-residuals where Ljung-Box rejects several times too often; the classical statistics stay in
-``details``, matching statsmodels.
+residuals where Ljung-Box rejects several times too often, and beside it the robust lag-1
+regression test (:mod:`service.core.lag_one_regression`), the more powerful against first-order
+autocorrelation; the classical statistics stay in ``details``, matching statsmodels.
 """
 
 from __future__ import annotations
@@ -17,6 +18,7 @@ import numpy as np
 from ..batch import Residuals
 from ..fleet_autocorrelation import fleet_lag_from_parts, fleet_lag_part
 from ..fleet_parts import FleetPart
+from ..lag_one_regression import lag_one_regression
 from ..registry import (
     CheckDef,
     CheckInputs,
@@ -203,6 +205,43 @@ def _lag_autocorrelations(res: Residuals, lag_values: np.ndarray) -> FloatMatrix
     return out
 
 
+TEST_WEIGHTS = (2.0, 1.0, 1.0)
+"""Shares of the check's level given to its three tests (lag-1 regression, short lags,
+seasonal lags), normalised over the tests that ran for the series: 2/3 and 1/3 without the
+seasonal lags, 1/2, 1/4 and 1/4 with them. A project rule: first-order autocorrelation is the
+structure a model leaves most often, and the lag-1 regression the most powerful test of it
+(the README's gate study measures what each share gains and costs)."""
+
+DECIDERS = ("lag1", "short", "seasonal")
+"""``details.decided_by``: the test whose weighted p-value decided, in the order of
+:data:`TEST_WEIGHTS`."""
+
+
+def weighted_bonferroni(
+    p_values: tuple[FloatVector, ...], weights: tuple[float, ...]
+) -> tuple[FloatVector, IntVector]:
+    """One p-value per series from several tests of the same null: ``min_i p_i / w_i`` (at most
+    1) with the weights ``w_i`` normalised over the tests with a finite p-value, and the index
+    of the test that gave it (``-1`` where none ran).
+
+    The weighted Bonferroni rule (Rosenthal & Rubin 1983, "Ensemble-adjusted p values",
+    Psychological Bulletin 94; Holm 1979 gives its weighted step-down form; both from memory):
+    rejecting where ``p_i <= w_i alpha`` for some ``i`` has level at most ``alpha`` whatever the
+    tests' dependence, since ``sum_i w_i alpha = alpha`` (Boole's inequality). Equal weights
+    give ``k min_i p_i``.
+    """
+    p = np.vstack([np.asarray(v, dtype=float) for v in p_values])
+    ran = np.isfinite(p)
+    w = np.asarray(weights, dtype=float)[:, None] * ran
+    total = w.sum(axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        scaled = np.where(ran, p * total / w, np.inf)
+    decided = np.argmin(scaled, axis=0)
+    best = scaled[decided, np.arange(p.shape[1])]
+    none = ~ran.any(axis=0)
+    return np.where(none, np.nan, np.minimum(1.0, best)), np.where(none, -1, decided)
+
+
 SEASONAL_MIN_OBS = 20
 """Fewest residuals for the seasonal lags' test (the data-sufficiency threshold)."""
 
@@ -218,12 +257,18 @@ def autocorrelation_test(
     lags: int | None = None,
     min_obs: int = 0,
 ) -> CheckResult:
-    """The autocorrelation check: the robust portmanteau over :func:`autocorrelation_lags`.
+    """The autocorrelation check: the robust portmanteau over :func:`autocorrelation_lags`
+    beside the robust lag-1 regression test.
 
     ``Q~ = t~' R*^{-1} t~`` (Dalla, Giraitis & Phillips 2022; see
     :func:`service.core.robust_portmanteau.robust_lag_statistics`) over the ``K`` tested lags,
-    chi-square with ``df = K - model_params``. ``details``: ``lags`` (``K``), ``df``,
-    ``max_lag``, ``seasonal_lags`` (how many of ``m``, ``2 m`` are tested), ``lags_grown``,
+    chi-square with ``df = K - model_params``, on the short lags and apart on the seasonal
+    lags; the lag-1 regression t test of :func:`service.core.lag_one_regression.lag_one_regression`
+    wherever the short lags are tested. One p-value: :func:`weighted_bonferroni` over the tests
+    that ran, weights :data:`TEST_WEIGHTS`; ``statistic`` is the deciding test's (``Q~``, or
+    the regression's ``t``). ``details``: ``lags`` (``K``), ``df``,
+    ``max_lag``, ``seasonal_lags`` (how many of ``m``, ``2 m`` are tested), ``decided_by``
+    (:data:`DECIDERS`), ``lag1_slope``, ``lag1_t``, ``lag1_df``, ``lag1_p_value``, ``lags_grown``,
     ``method = "robust"``, the ``PEAKS`` largest autocorrelations among the tested lags
     (``peak_lag_1``, ``peak_acf_1``, ...), and the classical figures of :func:`ljung_box` with
     the classical lag rule (``ljung_box``, ``ljung_box_p_value``, ``classical_lags``,
@@ -249,12 +294,11 @@ def autocorrelation_test(
         p_seasonal = q_seasonal = np.full(n.shape, np.nan)
         k_seasonal = np.zeros(n.shape, dtype=np.int64)
     p_short = np.where(short.skipped, np.nan, short.p_value)
-    # Two tests, one decision: Bonferroni over the two where both ran.
-    both = np.isfinite(p_short) & np.isfinite(p_seasonal)
-    smaller = np.fmin(p_short, p_seasonal)
-    p = np.where(both, np.minimum(1.0, 2.0 * smaller), smaller)
-    by_seasonal = np.isfinite(p_seasonal) & ~(p_short <= p_seasonal)
-    q = np.where(by_seasonal, q_seasonal, short.statistic)
+    # The lag-1 regression joins wherever the short lags are tested (lag 1 is always among them).
+    lag1 = lag_one_regression(res)
+    p_lag1 = np.where(np.isfinite(p_short), lag1.p_value, np.nan)
+    p, decided = weighted_bonferroni((p_lag1, p_short, p_seasonal), TEST_WEIGHTS)
+    q = np.choose(np.maximum(decided, 0), (lag1.t, short.statistic, q_seasonal))
     classic = ljung_box(res, season_length=season_length, model_params=0)
     k = short.details["lags"]
     need = max(min_obs, 2)
@@ -295,7 +339,11 @@ def autocorrelation_test(
         "seasonal_lags": k_seasonal.astype(np.int64),
         "seasonal_statistic": np.where(ran, q_seasonal, np.nan),
         "seasonal_p_value": np.where(ran, p_seasonal, np.nan),
-        "decided_by": np.where(ran, np.where(by_seasonal, "seasonal", "short"), NONE),
+        "decided_by": np.where(ran & (decided >= 0), np.array(DECIDERS)[decided], NONE),
+        "lag1_slope": np.where(ran, lag1.slope, np.nan),
+        "lag1_t": np.where(ran, lag1.t, np.nan),
+        "lag1_df": np.where(ran, lag1.df, np.nan),
+        "lag1_p_value": np.where(ran, p_lag1, np.nan),
         "lags_grown": grown,
         "season_length": np.full(n.shape, m),
         "method": np.full(n.shape, "robust", dtype=object),
@@ -356,8 +404,14 @@ def _found(f: Finding) -> str:
     where = f"; the largest autocorrelations are at lags {', '.join(peaks)}" if peaks else ""
     if m > 1 and top and top % m == 0:
         where += f": seasonal, at a multiple of the season length {m}"
-    if f.detail("decided_by") == "seasonal":
+    decided = f.detail("decided_by")
+    if decided == "seasonal":
         test = f"robust portmanteau Q = {fmt(f.statistic)} at the seasonal lags"
+    elif decided == "lag1":
+        test = (
+            f"lag-1 regression slope {fmt(float(f.detail('lag1_slope')), 2)}, robust "
+            f"t = {fmt(f.statistic)} on {fmt(float(f.detail('lag1_df')), 3)} df"
+        )
     else:
         test = (
             f"robust portmanteau Q = {fmt(f.statistic)} on lags 1-{int(f.detail('lags'))}, "
@@ -463,7 +517,9 @@ CHECKS = (
         null_hypothesis="the residuals are not autocorrelated at the tested lags",
         defaults=(
             "lags 1..min(ceil(ln T), T/5) (Tsay 2010) and, tested apart, the seasonal lags m "
-            "(T >= 2m) and 2m (T >= 6m), the two p-values combined by Bonferroni; df = lags - "
+            "(T >= 2m) and 2m (T >= 6m), beside a lag-1 regression t test (HC2 standard error, "
+            "Bell-McCaffrey df); the p-values combined by weighted Bonferroni, weights 2:1:1 "
+            "(lag 1, short lags, seasonal lags) over the tests that ran; df = lags - "
             "model_params, the lags growing to df 2 (at most T/3) when that is 0 or less; R* "
             "threshold 1.96; classical Ljung-Box on 10 or 2m lags, at most T/5, in details"
         ),
@@ -477,6 +533,10 @@ CHECKS = (
             "seasonal_statistic",
             "seasonal_p_value",
             "decided_by",
+            "lag1_slope",
+            "lag1_t",
+            "lag1_df",
+            "lag1_p_value",
             "lags_grown",
             "season_length",
             "method",
@@ -496,8 +556,10 @@ CHECKS = (
             "acf_lag1",
         ),
         source=(
-            "Dalla, Giraitis & Phillips (2022), Econometric Theory 38(5); Ljung & Box (1978), "
-            "Biometrika 65:297-303; Box & Pierce (1970), JASA 65:1509-1526"
+            "Dalla, Giraitis & Phillips (2022), Econometric Theory 38(5); MacKinnon & White "
+            "(1985), J. Econometrics 29(3) (HC2); Bell & McCaffrey (2002), Survey Methodology "
+            "28(2), and Imbens & Kolesar (2016), REStat 98(4) (degrees of freedom); Ljung & Box "
+            "(1978), Biometrika 65:297-303; Box & Pierce (1970), JASA 65:1509-1526"
         ),
         run=_run,
         # Essential: warn at adjusted p < 0.05, fail at < 0.01, within the fleet's families;
