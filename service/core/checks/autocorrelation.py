@@ -206,7 +206,8 @@ def _lag_autocorrelations(res: Residuals, lag_values: np.ndarray) -> FloatMatrix
 
 
 TEST_WEIGHTS = (2.0, 1.0, 1.0)
-"""Shares of the check's level given to its three tests (lag-1 regression, short lags,
+"""Shares of the check's level given to its three tests (the lag-1 regression; the portmanteau on
+the other short lags, lags 2..L, or 1..L with fitted model parameters; the portmanteau on the
 seasonal lags), normalised over the tests that ran for the series: 2/3 and 1/3 without the
 seasonal lags, 1/2, 1/4 and 1/4 with them. A project rule: first-order autocorrelation is the
 structure a model leaves most often, and the lag-1 regression the most powerful test of it
@@ -283,7 +284,15 @@ def autocorrelation_test(
         raise InputError("lags", f"must be at least 1, got {lags}")
     n = res.n_obs
     short_mask, seasonal_mask, grown = autocorrelation_lags(n, season_length, model_params, lags)
-    short = robust_portmanteau(res, lags=short_mask, model_params=model_params)
+    # Lag 1 is the lag-1 regression's to test and the portmanteau takes the other short lags: the
+    # two then look at different lags, nearly independent under the null, so the Bonferroni
+    # rule below loses little of its level. With fitted model parameters the portmanteau keeps
+    # lag 1, since its degrees-of-freedom correction counts the lags from 1.
+    k_short = short_mask.sum(axis=1)
+    in_portmanteau = short_mask.copy()
+    if model_params == 0:
+        in_portmanteau[:, 0] = False
+    short = robust_portmanteau(res, lags=in_portmanteau, model_params=model_params)
     has_seasonal = seasonal_mask.any(axis=1)
     if has_seasonal.any():
         seasonal = robust_portmanteau(res, lags=seasonal_mask)
@@ -294,9 +303,9 @@ def autocorrelation_test(
         p_seasonal = q_seasonal = np.full(n.shape, np.nan)
         k_seasonal = np.zeros(n.shape, dtype=np.int64)
     p_short = np.where(short.skipped, np.nan, short.p_value)
-    # The lag-1 regression joins wherever the short lags are tested (lag 1 is always among them).
+    # The lag-1 regression runs wherever the short lags are tested (lag 1 is always among them).
     lag1 = lag_one_regression(res)
-    p_lag1 = np.where(np.isfinite(p_short), lag1.p_value, np.nan)
+    p_lag1 = np.where(short_mask[:, 0] & (k_short - model_params > 0), lag1.p_value, np.nan)
     p, decided = weighted_bonferroni((p_lag1, p_short, p_seasonal), TEST_WEIGHTS)
     q = np.choose(np.maximum(decided, 0), (lag1.t, short.statistic, q_seasonal))
     classic = ljung_box(res, season_length=season_length, model_params=0)
@@ -306,13 +315,18 @@ def autocorrelation_test(
         n.shape[0],
         (n < need, f"fewer than {need} residuals"),
         (res.constant, "residuals are constant, so autocorrelation is undefined"),
-        ((k < 1) & ~(k_seasonal > 0), "too short for one lag (the lag rule allows at most T/5)"),
         (
-            (k - model_params <= 0) & ~np.isfinite(p_seasonal),
+            (k_short < 1) & ~(k_seasonal > 0),
+            "too short for one lag (the lag rule allows at most T/5)",
+        ),
+        (
+            (k_short - model_params <= 0) & ~np.isfinite(p_seasonal),
             f"no degrees of freedom left for {model_params} model parameters, even with the "
             "lags grown to T/3",
         ),
+        (~np.isfinite(p), "no lag has enough observed pairs to test"),
     )
+    portmanteau_lags_used = np.where(in_portmanteau, np.arange(1, in_portmanteau.shape[1] + 1), 0)
     mask = short_mask | seasonal_mask
     lag_values = np.arange(1, mask.shape[1] + 1)
     used_lags = lag_values[mask.any(axis=0)]
@@ -333,6 +347,10 @@ def autocorrelation_test(
     details = {
         "lags": k,
         "df": short.details["df"],
+        "short_first_lag": np.where(
+            k > 0, np.where(in_portmanteau, portmanteau_lags_used, 1 << 30).min(axis=1), 0
+        ),
+        "short_last_lag": portmanteau_lags_used.max(axis=1, initial=0),
         "max_lag": np.where(mask, np.arange(1, mask.shape[1] + 1)[None, :], 0).max(axis=1),
         "short_statistic": np.where(ran, short.statistic, np.nan),
         "short_p_value": np.where(ran, p_short, np.nan),
@@ -413,10 +431,9 @@ def _found(f: Finding) -> str:
             f"t = {fmt(f.statistic)} on {fmt(float(f.detail('lag1_df')), 3)} df"
         )
     else:
-        test = (
-            f"robust portmanteau Q = {fmt(f.statistic)} on lags 1-{int(f.detail('lags'))}, "
-            f"df {int(f.detail('df'))}"
-        )
+        first, last = int(f.detail("short_first_lag")), int(f.detail("short_last_lag"))
+        span = f"lag {first}" if first == last else f"lags {first}-{last}"
+        test = f"robust portmanteau Q = {fmt(f.statistic)} on {span}, df {int(f.detail('df'))}"
     return f"residuals are autocorrelated ({test}, {f.p_text()}{where})"
 
 
@@ -516,10 +533,11 @@ CHECKS = (
         ),
         null_hypothesis="the residuals are not autocorrelated at the tested lags",
         defaults=(
-            "lags 1..min(ceil(ln T), T/5) (Tsay 2010) and, tested apart, the seasonal lags m "
-            "(T >= 2m) and 2m (T >= 6m), beside a lag-1 regression t test (HC2 standard error, "
-            "Bell-McCaffrey df); the p-values combined by weighted Bonferroni, weights 2:1:1 "
-            "(lag 1, short lags, seasonal lags) over the tests that ran; df = lags - "
+            "short lags 1..min(ceil(ln T), T/5) (Tsay 2010): lag 1 by a regression t test "
+            "(HC2 standard error, Bell-McCaffrey df), lags 2.. by the portmanteau (1.. with "
+            "model_params); tested apart, the seasonal lags m (T >= 2m) and 2m (T >= 6m); the "
+            "p-values combined by weighted Bonferroni, weights 2:1:1 (lag 1, short lags, "
+            "seasonal lags) over the tests that ran; df = lags - "
             "model_params, the lags growing to df 2 (at most T/3) when that is 0 or less; R* "
             "threshold 1.96; classical Ljung-Box on 10 or 2m lags, at most T/5, in details"
         ),
@@ -527,6 +545,8 @@ CHECKS = (
             "lags",
             "df",
             "max_lag",
+            "short_first_lag",
+            "short_last_lag",
             "short_statistic",
             "short_p_value",
             "seasonal_lags",
