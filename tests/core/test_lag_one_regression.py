@@ -146,3 +146,18 @@ def test_blocks_of_rows_give_each_row_its_own_answer():
         alone = lag_one_regression(as_residuals(e[i : i + 1]))
         np.testing.assert_allclose(whole.t[i], alone.t[0], rtol=1e-13)
         np.testing.assert_allclose(whole.df[i], alone.df[0], rtol=1e-13)
+
+
+def test_below_30_residuals_lag_1_stays_in_the_portmanteau():
+    # LAG1_MIN_OBS: at T = 20 the check is the portmanteau on lags 1-3 alone; at T = 30 lag 1
+    # goes to the regression and the portmanteau keeps lags 2-5 (ceil(ln 30) = 4, T/5 = 6).
+    rng = np.random.default_rng(5)
+    short, longer = rng.normal(size=(3, 20)), rng.normal(size=(3, 30))
+    d = autocorrelation_test(as_residuals(short)).details
+    assert np.isnan(d["lag1_p_value"]).all() and (d["short_first_lag"] == 1).all()
+    np.testing.assert_array_equal(d["lags"], 3)
+    d = autocorrelation_test(as_residuals(longer)).details
+    assert np.isfinite(d["lag1_p_value"]).all() and (d["short_first_lag"] == 2).all()
+    np.testing.assert_array_equal(d["short_last_lag"], 4)
+    fitted = autocorrelation_test(as_residuals(longer), model_params=1).details
+    assert (fitted["short_first_lag"] == 1).all() and np.isfinite(fitted["lag1_p_value"]).all()
