@@ -363,8 +363,9 @@ _SPECS: dict[str, tuple[str, _Draw, _Caption]] = {
             "Sample autocorrelation of the residuals by lag, with the approximate 95% "
             f"bounds ±1.96/√T for white noise (T = {d.n_obs} residuals)"
             + (
-                f"; shaded: lags 1–{d.ljung_box_lags}, the short lags the autocorrelation test "
-                "sums (the seasonal lags are tested apart)."
+                f"; shaded: lags 1–{d.ljung_box_lags}, the short lags the autocorrelation check "
+                "tests (from 30 residuals lag 1 by the lag-1 regression, the others by the "
+                "portmanteau; the seasonal lags apart)."
                 if d.ljung_box_lags
                 else "."
             )

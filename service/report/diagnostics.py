@@ -185,7 +185,11 @@ def series_diagnostics(
     mean = float(observed.mean()) if n_obs else float("nan")
     std = float(observed.std()) if n_obs else float("nan")
 
-    lb_lags = _detail(series_result, "ljung_box", "lags")
+    # The last short lag (lags 1..L are tested: lag 1 by the lag-1 regression, the rest by the
+    # portmanteau); a result stored before the detail existed carries only "lags" (1..lags).
+    lb_lags = _detail(series_result, "ljung_box", "short_last_lag")
+    if lb_lags is None:
+        lb_lags = _detail(series_result, "ljung_box", "lags")
     if lb_lags is None:
         lb_lags = int(portmanteau_lags(res.n_obs, batch.season_length)[0])
     lb_lags = int(lb_lags) if lb_lags and lb_lags > 0 else None

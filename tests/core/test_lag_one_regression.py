@@ -159,5 +159,7 @@ def test_below_30_residuals_lag_1_stays_in_the_portmanteau():
     d = autocorrelation_test(as_residuals(longer)).details
     assert np.isfinite(d["lag1_p_value"]).all() and (d["short_first_lag"] == 2).all()
     np.testing.assert_array_equal(d["short_last_lag"], 4)
+    np.testing.assert_array_equal(d["lags"], 4)  # lags 1-4 tested: 1 by the regression
+    np.testing.assert_array_equal(d["df"], 3)  # the portmanteau's lags 2-4
     fitted = autocorrelation_test(as_residuals(longer), model_params=1).details
     assert (fitted["short_first_lag"] == 1).all() and np.isfinite(fitted["lag1_p_value"]).all()

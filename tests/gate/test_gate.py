@@ -47,8 +47,8 @@ def test_sound_fleet_passes_and_result_is_json():
     lb = next(c for c in s["checks"] if c["name"] == "ljung_box")
     assert set(lb) >= {"name", "status", "statistic", "p_value", "p_adjusted", "details"}
     # ceil(ln 104) = 5 short lags (service.core.checks.autocorrelation.autocorrelation_lags):
-    # lag 1 by the lag-1 regression, lags 2-5 by the portmanteau.
-    assert lb["details"]["lags"] == 4 and lb["details"]["df"] == 4
+    # lag 1 by the lag-1 regression, lags 2-5 by the portmanteau (so 4 df).
+    assert lb["details"]["lags"] == 5 and lb["details"]["df"] == 4
     assert (lb["details"]["short_first_lag"], lb["details"]["short_last_lag"]) == (2, 5)
     assert lb["details"]["classical_lags"] == 10
 

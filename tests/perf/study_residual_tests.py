@@ -2,7 +2,8 @@
 
     python tests/perf/study_residual_tests.py [--part NAME ...] [--reps 5000]
 
-Parts: ``portmanteau`` (robust portmanteau vs Ljung-Box), ``ewc`` (EWC bias vs Newey-West),
+Parts: ``portmanteau`` (robust portmanteau vs Ljung-Box), ``lag1`` (the lag-1 regression test,
+the portmanteau on lags 2..L and the autocorrelation check), ``ewc`` (EWC bias vs Newey-West),
 ``exact`` (the EWC statistic against t_B under iid normal errors), ``fleet`` (Driscoll-Kraay vs
 independent series) and ``burnin`` (false-hint rates); peak memory and time are measured by
 ``tests/perf/bench_residual_stats.py``. Every cell uses its own fixed seed; the
@@ -19,10 +20,15 @@ import numpy as np
 from scipy import stats
 
 from service.core.burn_in import burn_in_hint
-from service.core.checks.autocorrelation import ljung_box
+from service.core.checks.autocorrelation import (
+    autocorrelation_lags,
+    autocorrelation_test,
+    ljung_box,
+)
 from service.core.checks.bias import bias
 from service.core.ewc import ewc_bias
 from service.core.fleet_bias import fleet_bias
+from service.core.lag_one_regression import lag_one_regression
 from service.core.residual_arrays import as_residuals
 from service.core.robust_portmanteau import robust_portmanteau
 
@@ -246,7 +252,66 @@ def part_burnin(reps):
                 )
 
 
-PARTS = ("portmanteau", "ewc", "exact", "fleet", "burnin")
+LAG1_LEVELS = (0.01 / 3, 0.01 / 15, 0.01, 0.05)
+"""One series' share of the fail family (0.01 / 3), the depth a fleet of five reaches in it
+(0.01 / 15), and the nominal 1% and 5%."""
+
+
+def _lag1_row(res):
+    """p-values of the lag-1 regression alone, the portmanteau on lags 2..L alone (L the
+    check's short-lag rule) and the whole autocorrelation check."""
+    check = autocorrelation_test(res)
+    short, _, _ = autocorrelation_lags(res.n_obs)
+    short[:, 0] = False
+    alone = robust_portmanteau(res, lags=short)
+    return lag_one_regression(res).p_value, alone.p_value, check.p_value, check
+
+
+def part_lag1(reps):
+    print("\n### The lag-1 regression test, the portmanteau on lags 2..L and the check\n")
+    print(
+        "Rejection rates at 0.01/3, 0.01/15, 1% and 5% (the check uses the lag-1 regression from "
+        "30 residuals; below that its figures are the portmanteau on lags 1..L).\n"
+    )
+    levels = " / ".join(f"{a:.4g}" for a in LAG1_LEVELS)
+    print(f"| residuals | T | lag-1 regression ({levels}) | portmanteau 2..L | check |")
+    print("|---|---|---|---|---|")
+    names = ("white noise", "GARCH(.1,.1,.8)", "GARCH(.1,.15,.8)", "t(3)", "lognormal")
+    for name in names:
+        for t in (20, 30, 52, 104, 156, 260):
+            res = as_residuals(null_data(name, cell_rng("lag1", name, t), reps, t))
+            cells = [
+                " / ".join(f"{rate(p, a):.2%}" for a in LAG1_LEVELS) for p in _lag1_row(res)[:3]
+            ]
+            print(f"| {name} | {t} | " + " | ".join(cells) + " |", flush=True)
+    print("\n### Power at 0.01 / 3 and 5% (same data for each test)\n")
+    print("| residuals | T | lag-1 regression | portmanteau 2..L | check | Ljung-Box (10 lags) |")
+    print("|---|---|---|---|---|---|")
+    alternatives = (
+        ("AR(1) 0.3", 52),
+        ("AR(1) 0.3", 104),
+        ("AR(1) 0.5", 52),
+        ("AR(1) 0.5", 104),
+        ("MA at lag 2, 0.4", 104),
+        ("MA at lag 3, 0.4", 104),
+        ("MA at lag 3, 0.4", 52),
+    )
+    for name, t in alternatives:
+        rng = cell_rng("lag1pow", name, t)
+        if name.startswith("AR"):
+            x = ar1(rng, reps, t, float(name.split()[-1]))
+        else:
+            lag = int(name.split()[3].rstrip(","))
+            u = rng.normal(size=(reps, t + lag))
+            x = u[:, lag:] + 0.4 * u[:, :-lag]
+        res = as_residuals(x)
+        p1, p2, pc, check = _lag1_row(res)
+        pl = check.details["ljung_box_p_value"]
+        cells = [f"{rate(p, 0.01 / 3):.1%} / {rate(p, 0.05):.1%}" for p in (p1, p2, pc, pl)]
+        print(f"| {name} | {t} | " + " | ".join(cells) + " |", flush=True)
+
+
+PARTS = ("portmanteau", "ewc", "exact", "fleet", "burnin", "lag1")
 
 
 def main():

@@ -274,7 +274,9 @@ def autocorrelation_test(
     from :data:`LAG1_MIN_OBS` residuals wherever the short lags are tested, lag 1 then leaving
     the portmanteau unless ``model_params`` is given. One p-value: :func:`weighted_bonferroni`
     over the tests that ran, weights :data:`TEST_WEIGHTS`; ``statistic`` is the deciding test's
-    (``Q~``, or the regression's ``t``). ``details``: ``lags`` (``K``), ``df``,
+    (``Q~``, or the regression's ``t``). ``details``: ``lags`` (the short lags tested, by
+    either test), ``df`` (the short portmanteau's), ``short_first_lag`` (the portmanteau's first
+    lag: 2 where lag 1 went to the regression) and ``short_last_lag`` (``L``),
     ``max_lag``, ``seasonal_lags`` (how many of ``m``, ``2 m`` are tested), ``decided_by``
     (:data:`DECIDERS`), ``lag1_slope``, ``lag1_t``, ``lag1_df``, ``lag1_p_value``, ``lags_grown``,
     ``method = "robust"``, the ``PEAKS`` largest autocorrelations among the tested lags
@@ -353,12 +355,15 @@ def autocorrelation_test(
             classical_df > 0, chi2_sf(classic.statistic, np.maximum(classical_df, 1)), np.nan
         )
     details = {
-        "lags": k,
+        # The short lags tested: the portmanteau's and, where it left lag 1 to the regression, 1.
+        "lags": k + (use_lag1 & (model_params == 0)),
         "df": short.details["df"],
         "short_first_lag": np.where(
             k > 0, np.where(in_portmanteau, portmanteau_lags_used, 1 << 30).min(axis=1), 0
         ),
-        "short_last_lag": portmanteau_lags_used.max(axis=1, initial=0),
+        "short_last_lag": np.where(short_mask, np.arange(1, short_mask.shape[1] + 1), 0).max(
+            axis=1, initial=0
+        ),
         "max_lag": np.where(mask, np.arange(1, mask.shape[1] + 1)[None, :], 0).max(axis=1),
         "short_statistic": np.where(ran, short.statistic, np.nan),
         "short_p_value": np.where(ran, p_short, np.nan),
