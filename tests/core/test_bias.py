@@ -264,6 +264,7 @@ def test_tracking_signal_formula_and_p_value():
         x = last.sum() / np.sqrt(12)
         z = x / max(np.sqrt(np.mean(e * e)), last.std(ddof=1))
         t = z * np.sqrt((n - 1) / (n - z * z))
+        assert not result.details["volatile_window"][i]  # these windows are not volatile
         np.testing.assert_allclose(result.statistic[i], ts, rtol=RTOL)
         np.testing.assert_allclose(result.details["z"][i], z, rtol=RTOL)
         np.testing.assert_allclose(result.details["t"][i], t, rtol=RTOL)
@@ -272,17 +273,31 @@ def test_tracking_signal_formula_and_p_value():
         assert result.details["beyond_trade_limit"][i] == (abs(ts) > 4)
 
 
+def test_a_volatile_window_is_judged_by_its_own_one_sample_t_test():
+    # Invented: 80 quiet periods, then 12 with five times the spread and a small mean. The
+    # window's variance is far above the whole sample's second moment, so its p-value is the
+    # one-sample t test of the window alone (scipy.stats.ttest_1samp, 11 df).
+    rng = np.random.default_rng(31)
+    row = np.r_[rng.normal(0, 1, 80), rng.normal(1.0, 5.0, 12)]
+    result = tracking_signal(residuals([row]), window=12)
+    ref = stats.ttest_1samp(row[-12:], 0.0)
+    assert result.details["volatile_window"][0] and result.details["df"][0] == 11
+    np.testing.assert_allclose(result.details["t"][0], ref.statistic, rtol=RTOL)
+    np.testing.assert_allclose(result.p_value[0], ref.pvalue, rtol=1e-9)
+
+
 def test_tracking_signal_alarms_at_nominal_rate_and_trade_limit_does_not():
     # Invented simulation, seeded: independent N(0, 1) errors, 4000 series of 60 periods.
     rng = np.random.default_rng(2026)
     rows = rng.normal(0, 1, (4000, 60))
     res = residuals(list(rows))
     rates = {}
-    for w in (6, 24):
+    for w, low in ((6, 0.025), (12, 0.035), (24, 0.035)):
         r = tracking_signal(res, window=w)
         # Nominal 5%: the test is at most as liberal as an exact one under these errors
-        # (binomial SE of the rate about 0.0035).
-        assert 0.035 < np.mean(r.p_value < 0.05) < 0.07
+        # (binomial SE of the rate about 0.0035); a short window is judged on its own t test
+        # (5 df) whenever its variance looks volatile, which makes it the more careful (3.5%).
+        assert low < np.mean(r.p_value < 0.05) < 0.07
         rates[w] = np.mean(r.details["beyond_trade_limit"])
     # The fixed limit of 4 alarms more often as the window grows.
     assert rates[24] > 2 * rates[6]

@@ -42,6 +42,12 @@ if TYPE_CHECKING:
 BIAS_MIN_OBS = 3
 TRACKING_TRADE_LIMIT = 4.0
 TRACKING_DEFAULT_WINDOW = 12
+TRACKING_VOLATILE_RATIO = 1.25
+"""A window whose own variance exceeds this many times the whole sample's second moment is
+judged on its own evidence: its one-sample t statistic on ``w - 1`` degrees of freedom. A project
+rule, measured in the README's gate study: under volatility clustering (GARCH) such windows are
+where the whole-sample reference is too light in the far tail; a level shift raises the second
+moment, not the window's variance about its own mean, so it rarely crosses the ratio."""
 
 
 def newey_west_lags(n_obs: IntVector | int) -> IntVector:
@@ -175,7 +181,11 @@ def tracking_signal(
     (``sum(e^2) = X^2 + R`` with ``R ~ sigma^2 chi2_{n-1}`` independent of ``X``), so the
     larger denominator only makes the test more careful there, while ``sw`` keeps a window
     of high volatility (errors whose variance comes and goes) from passing for a shift
-    (measured: the README's gate study). ``p = 2 sf(|t|)``. Whether
+    (measured: the README's gate study). ``p = 2 sf(|t|)``. Where ``sw^2`` exceeds
+    :data:`TRACKING_VOLATILE_RATIO` times ``s0^2`` the window is volatile and ``z`` itself, then
+    the window's one-sample t statistic (exact on ``w - 1`` degrees of freedom under independent
+    normal errors, whatever their variance in the window), is referred to Student t with
+    ``w - 1`` degrees of freedom; ``details.volatile_window`` marks it. Whether
     ``|TS| > 4`` is reported in ``details`` as ``beyond_trade_limit`` for reference.
 
     ``details`` also hold the window's mean error ``mean_recent``, as a percent of the level
@@ -216,7 +226,10 @@ def tracking_signal(
             if actuals_scale is None
             else 100.0 * (total / window) / np.asarray(actuals_scale, dtype=float)
         )
-    p = t_sf_two_sided(t_exact, np.maximum(n - 1, 1).astype(float))
+    volatile = w_var > TRACKING_VOLATILE_RATIO * second
+    t_exact = np.where(volatile, z, t_exact)
+    df_used = np.where(volatile, window - 1, np.maximum(n - 1, 1))
+    p = t_sf_two_sided(t_exact, df_used.astype(float))
     reasons, ran = skip_reasons_and_ran(
         n.shape[0],
         (n < need, f"fewer than {need} residuals for a window of {window}"),
@@ -237,7 +250,8 @@ def tracking_signal(
             "mean_absolute_error": np.where(ran, abs_total / window, np.nan),
             "z": np.where(ran, z, np.nan),
             "t": np.where(ran, t_exact, np.nan),
-            "df": np.where(ran, n - 1, 0),
+            "df": np.where(ran, df_used, 0),
+            "volatile_window": ran & volatile,
             "trade_limit": np.full(n.shape, TRACKING_TRADE_LIMIT),
             "beyond_trade_limit": ran & (np.abs(ts) > TRACKING_TRADE_LIMIT),
         },
@@ -694,6 +708,7 @@ CHECKS = (
             "z",
             "t",
             "df",
+            "volatile_window",
             "trade_limit",
             "beyond_trade_limit",
         ),
