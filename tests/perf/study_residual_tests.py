@@ -3,7 +3,8 @@
     python tests/perf/study_residual_tests.py [--part NAME ...] [--reps 5000]
 
 Parts: ``portmanteau`` (robust portmanteau vs Ljung-Box), ``lag1`` (the lag-1 regression test,
-the portmanteau on lags 2..L and the autocorrelation check), ``ewc`` (EWC bias vs Newey-West),
+the portmanteau on lags 2..L and the autocorrelation check), ``tracking`` (the tracking signal
+with and without its volatile-window rule), ``ewc`` (EWC bias vs Newey-West),
 ``exact`` (the EWC statistic against t_B under iid normal errors), ``fleet`` (Driscoll-Kraay vs
 independent series) and ``burnin`` (false-hint rates); peak memory and time are measured by
 ``tests/perf/bench_residual_stats.py``. Every cell uses its own fixed seed; the
@@ -25,7 +26,7 @@ from service.core.checks.autocorrelation import (
     autocorrelation_test,
     ljung_box,
 )
-from service.core.checks.bias import bias
+from service.core.checks.bias import bias, tracking_signal
 from service.core.ewc import ewc_bias
 from service.core.fleet_bias import fleet_bias
 from service.core.lag_one_regression import lag_one_regression
@@ -311,7 +312,48 @@ def part_lag1(reps):
         print(f"| {name} | {t} | " + " | ".join(cells) + " |", flush=True)
 
 
-PARTS = ("portmanteau", "ewc", "exact", "fleet", "burnin", "lag1")
+TRACKING_LEVELS = (0.005 / 3, 0.005 / 15, 0.01, 0.05)
+"""One series' tracking-signal share of the fail family (0.005 / 3), the depth a fleet of five
+reaches in it, and the nominal 1% and 5%."""
+
+
+def _tracking_pair(res):
+    """The tracking signal's p-values as the check gives them and as they were with the
+    whole-sample reference for every window (recomputed from the same ``z``)."""
+    r = tracking_signal(res)
+    n = res.n_obs.astype(float)
+    z = r.details["z"]
+    with np.errstate(invalid="ignore"):
+        t = z * np.sqrt((n - 1) / np.maximum(n - z * z, 0.0))
+    return r.p_value, 2 * stats.t.sf(np.abs(t), n - 1), r.details["volatile_window"]
+
+
+def part_tracking(reps):
+    print("\n### Tracking signal (window 12): volatile windows on their own t test or not\n")
+    levels = " / ".join(f"{a:.4g}" for a in TRACKING_LEVELS)
+    print(f"| residuals | T | check ({levels}) | whole-sample reference | volatile windows |")
+    print("|---|---|---|---|---|")
+    for name in ("white noise", "GARCH(.1,.1,.8)", "GARCH(.1,.15,.8)", "t(3)"):
+        for t in (52, 104, 260):
+            res = as_residuals(null_data(name, cell_rng("ts", name, t), reps, t))
+            now, before, volatile = _tracking_pair(res)
+            cells = [
+                " / ".join(f"{rate(p, a):.3%}" for a in TRACKING_LEVELS) for p in (now, before)
+            ]
+            print(f"| {name} | {t} | " + " | ".join(cells) + f" | {np.mean(volatile):.1%} |")
+    print("\n### Power: +d sd in the last 12 of T periods (white noise), at 0.005 / 3 and 5%\n")
+    print("| d | T | check | whole-sample reference |")
+    print("|---|---|---|---|")
+    for d in (0.5, 1.0):
+        for t in (52, 104):
+            x = cell_rng("tspow", d, t).normal(size=(reps, t))
+            x[:, -12:] += d
+            now, before, _ = _tracking_pair(as_residuals(x))
+            cells = [f"{rate(p, 0.005 / 3):.1%} / {rate(p, 0.05):.1%}" for p in (now, before)]
+            print(f"| {d} | {t} | " + " | ".join(cells) + " |", flush=True)
+
+
+PARTS = ("portmanteau", "ewc", "exact", "fleet", "burnin", "lag1", "tracking")
 
 
 def main():
