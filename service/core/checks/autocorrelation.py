@@ -314,10 +314,14 @@ def autocorrelation_test(
         p_seasonal = q_seasonal = np.full(n.shape, np.nan)
         k_seasonal = np.zeros(n.shape, dtype=np.int64)
     p_short = np.where(short.skipped, np.nan, short.p_value)
-    lag1 = lag_one_regression(res)
-    p_lag1 = np.where(use_lag1, lag1.p_value, np.nan)
+    if use_lag1.any():
+        lag1 = lag_one_regression(res)
+        lag1_slope, lag1_t, lag1_df = lag1.slope, lag1.t, lag1.df
+        p_lag1 = np.where(use_lag1, lag1.p_value, np.nan)
+    else:  # every series too short for it: nothing to compute
+        lag1_slope = lag1_t = lag1_df = p_lag1 = np.full(n.shape, np.nan)
     p, decided = weighted_bonferroni((p_lag1, p_short, p_seasonal), TEST_WEIGHTS)
-    q = np.choose(np.maximum(decided, 0), (lag1.t, short.statistic, q_seasonal))
+    q = np.choose(np.maximum(decided, 0), (lag1_t, short.statistic, q_seasonal))
     classic = ljung_box(res, season_length=season_length, model_params=0)
     k = short.details["lags"]
     need = max(min_obs, 2)
@@ -371,9 +375,9 @@ def autocorrelation_test(
         "seasonal_statistic": np.where(ran, q_seasonal, np.nan),
         "seasonal_p_value": np.where(ran, p_seasonal, np.nan),
         "decided_by": np.where(ran & (decided >= 0), np.array(DECIDERS)[decided], NONE),
-        "lag1_slope": np.where(ran, lag1.slope, np.nan),
-        "lag1_t": np.where(ran, lag1.t, np.nan),
-        "lag1_df": np.where(ran, lag1.df, np.nan),
+        "lag1_slope": np.where(ran & use_lag1, lag1_slope, np.nan),
+        "lag1_t": np.where(ran & use_lag1, lag1_t, np.nan),
+        "lag1_df": np.where(ran & use_lag1, lag1_df, np.nan),
         "lag1_p_value": np.where(ran, p_lag1, np.nan),
         "lags_grown": grown,
         "season_length": np.full(n.shape, m),
