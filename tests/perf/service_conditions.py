@@ -902,7 +902,7 @@ def main() -> None:
                     )
                     emit(
                         "| condition | T | bias (EWC t; zero-mean residuals in every row) | "
-                        "autocorrelation (robust portmanteau) |"
+                        "autocorrelation (the check: lag-1 regression and portmanteaus) |"
                     )
                     emit("|---|---|---|---|")
                     for cell in cells:
