@@ -16,6 +16,7 @@ from service.core.checks.autocorrelation import (
 )
 from service.core.lag_one_regression import hc2_slope_test, lag_one_regression
 from service.core.residual_arrays import as_residuals
+from service.core.types import InputError
 
 RTOL = 1e-10
 
@@ -163,3 +164,25 @@ def test_below_30_residuals_lag_1_stays_in_the_portmanteau():
     np.testing.assert_array_equal(d["df"], 3)  # the portmanteau's lags 2-4
     fitted = autocorrelation_test(as_residuals(longer), model_params=1).details
     assert (fitted["short_first_lag"] == 1).all() and np.isfinite(fitted["lag1_p_value"]).all()
+
+
+def test_lag1_weight_sets_the_regression_share_and_zero_restores_the_portmanteau_alone():
+    # Invented residuals, 3 white-noise series and one AR(1) 0.5, T = 104.
+    rng = np.random.default_rng(17)
+    e = rng.normal(size=(4, 104))
+    for t in range(1, 104):
+        e[3, t] += 0.5 * e[3, t - 1]
+    res = as_residuals(e)
+    alone = autocorrelation_test(res, lag1_weight=0)
+    d = alone.details
+    assert np.isnan(d["lag1_p_value"]).all() and (d["short_first_lag"] == 1).all()
+    assert (d["decided_by"] == "short").all()
+    np.testing.assert_allclose(alone.p_value, d["short_p_value"], rtol=1e-15)
+    even = autocorrelation_test(res, lag1_weight=1).details
+    both = np.vstack([even["lag1_p_value"], even["short_p_value"]])
+    np.testing.assert_allclose(
+        autocorrelation_test(res, lag1_weight=1).p_value, np.minimum(2 * both.min(axis=0), 1.0)
+    )
+    with pytest.raises(InputError) as err:
+        autocorrelation_test(res, lag1_weight=float("nan"))
+    assert err.value.argument == "lag1_weight"

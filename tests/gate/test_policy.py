@@ -87,6 +87,8 @@ def test_any_valid_policy_round_trips(warn, ratio, lags, window, weighting, crit
         ({"checks": {"bias": {"lags": 4}}}, "checks.bias.lags"),
         ({"checks": {"ljung_box": {"lags": 0}}}, "checks.ljung_box.lags"),
         ({"checks": {"ljung_box": {"lags": True}}}, "checks.ljung_box.lags"),
+        ({"checks": {"ljung_box": {"lag1_weight": -1}}}, "checks.ljung_box.lag1_weight"),
+        ({"checks": {"ljung_box": {"lag1_weight": "two"}}}, "checks.ljung_box.lag1_weight"),
         ({"checks": {"tracking_signal": {"window": 1}}}, "checks.tracking_signal.window"),
         ({"checks": {"mase": {"warn_p": 0.05}}}, "checks.mase.warn_p"),
         ({"checks": {"mase": {"warn_above": 3, "fail_above": 2}}}, "checks.mase.warn_above"),
@@ -127,3 +129,20 @@ def test_unnamed_checks_keep_defaults_and_disabled_checks_are_off():
     p = Policy.from_dict({"checks": {"jarque_bera": {"enabled": False}}})
     assert "jarque_bera" not in p.enabled_checks
     assert p.check("bias") == DEFAULT_CHECKS["bias"]
+
+
+def test_a_policy_can_leave_lag_1_to_the_portmanteau():
+    # Invented fleet: lag1_weight 0 in the policy reaches the check (no lag-1 regression).
+    import numpy as np
+
+    from service.core import assess, make_batch
+
+    rng = np.random.default_rng(1)
+    actuals = 100 + rng.normal(size=(3, 60))
+    fitted = actuals - rng.normal(size=(3, 60))
+    doc = {"name": "invented-no-lag1", "checks": {"ljung_box": {"lag1_weight": 0}}}
+    policy = Policy.from_dict(doc)
+    result = assess(make_batch(actuals, fitted, ids=["x", "y", "z"]), policy).result().to_dict()
+    for series in result["series"]:
+        lb = next(c for c in series["checks"] if c["name"] == "ljung_box")
+        assert lb["details"]["lag1_p_value"] is None and lb["details"]["short_first_lag"] == 1

@@ -263,6 +263,7 @@ def autocorrelation_test(
     model_params: int = 0,
     lags: int | None = None,
     min_obs: int = 0,
+    lag1_weight: float | None = None,
 ) -> CheckResult:
     """The autocorrelation check: the robust portmanteau over :func:`autocorrelation_lags`
     beside the robust lag-1 regression test.
@@ -284,11 +285,19 @@ def autocorrelation_test(
     the classical lag rule (``ljung_box``, ``ljung_box_p_value``, ``classical_lags``,
     ``classical_df``, ``box_pierce``, ``box_pierce_p_value``, ``acf_lag1``).
 
+    ``lag1_weight`` is the lag-1 regression's weight against 1 for each portmanteau (default
+    ``TEST_WEIGHTS[0] = 2``); 0 leaves lag 1 to the short portmanteau, the check of the build
+    before the regression joined (more power against structure beyond lag 1, less against
+    first-order autocorrelation: the README's gate study).
+
     Skipped below ``min_obs`` (at least 2) residuals, when no lag can be tested, when no
     degrees of freedom are left even with the lags grown, or when the residuals are constant.
     """
     if model_params < 0:
         raise InputError("model_params", f"must be 0 or more, got {model_params}")
+    weight = TEST_WEIGHTS[0] if lag1_weight is None else float(lag1_weight)
+    if not (np.isfinite(weight) and weight >= 0):
+        raise InputError("lag1_weight", f"must be a number 0 or more, got {lag1_weight}")
     if lags is not None and lags < 1:
         raise InputError("lags", f"must be at least 1, got {lags}")
     n = res.n_obs
@@ -300,6 +309,7 @@ def autocorrelation_test(
     # lags from 1.
     k_short = short_mask.sum(axis=1)
     use_lag1 = short_mask[:, 0] & (k_short - model_params > 0) & (n >= LAG1_MIN_OBS)
+    use_lag1 &= weight > 0
     in_portmanteau = short_mask.copy()
     if model_params == 0:
         in_portmanteau[:, 0] &= ~use_lag1
@@ -320,7 +330,8 @@ def autocorrelation_test(
         p_lag1 = np.where(use_lag1, lag1.p_value, np.nan)
     else:  # every series too short for it: nothing to compute
         lag1_slope = lag1_t = lag1_df = p_lag1 = np.full(n.shape, np.nan)
-    p, decided = weighted_bonferroni((p_lag1, p_short, p_seasonal), TEST_WEIGHTS)
+    weights = (weight if weight > 0 else 1.0, *TEST_WEIGHTS[1:])  # 0: the regression never ran
+    p, decided = weighted_bonferroni((p_lag1, p_short, p_seasonal), weights)
     q = np.choose(np.maximum(decided, 0), (lag1_t, short.statistic, q_seasonal))
     classic = ljung_box(res, season_length=season_length, model_params=0)
     k = short.details["lags"]
@@ -554,7 +565,8 @@ CHECKS = (
             "t test (HC2 standard error, Bell-McCaffrey df), lags 2.. by the portmanteau (1.. "
             "with model_params or below T = 30); tested apart, the seasonal lags m (T >= 2m) "
             "and 2m (T >= 6m); the p-values combined by weighted Bonferroni, weights 2:1:1 "
-            "(lag 1, short lags, seasonal lags) over the tests that ran; df = lags - "
+            "(lag 1, short lags, seasonal lags; lag1_weight 2, 0 for none) over the tests that "
+            "ran; df = lags - "
             "model_params, the lags growing to df 2 (at most T/3) when that is 0 or less; R* "
             "threshold 1.96; classical Ljung-Box on 10 or 2m lags, at most T/5, in details"
         ),
@@ -614,6 +626,7 @@ CHECKS = (
         options=(
             Option("min_obs"),
             Option("lags", minimum=1),
+            Option("lag1_weight", kind="float", maximum=100),
             Option("min_acf", kind="float", maximum=1, for_runner=False),
         ),
         essential=True,
