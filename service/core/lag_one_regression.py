@@ -2,9 +2,9 @@
 residual on the one before it, with the HC2 standard error and Bell-McCaffrey degrees of
 freedom.
 
-The regression test for AR(1) serial correlation with a heteroskedasticity-robust standard
-error is the textbook one (Wooldridge, Introductory Econometrics, the chapter on serial
-correlation, from memory). The small-sample parts are published: the HC2 variance of MacKinnon &
+Regressing the residuals on their own lag and testing the slope with a heteroskedasticity-robust
+standard error is common practice in econometrics for first-order serial correlation (from
+memory; no single source). The small-sample parts are published: the HC2 variance of MacKinnon &
 White (1985), "Some heteroskedasticity-consistent covariance matrix estimators with improved
 finite sample properties", Journal of Econometrics 29(3), and the degrees of freedom of Bell &
 McCaffrey (2002), "Bias reduction in standard errors for linear regression with multi-stage
