@@ -17,7 +17,8 @@ structure a model leaves, the slope's own residuals estimate its variance under 
 alternative as well as under the null (the portmanteau's self-normalised sums estimate
 ``1 + 2 rho^2`` where the lag-1 autocorrelation varies by ``1 - rho^2``), and the
 Bell-McCaffrey degrees of freedom keep its far tail, where the gate's family-wise thresholds
-sit, at its nominal rate from T = 20 (the README's gate study).
+sit, at or under its nominal rate, conservative at short T and under heavy tails (the README's
+gate study).
 """
 
 from __future__ import annotations

@@ -351,7 +351,6 @@ def autocorrelation_test(
         ),
         (~np.isfinite(p), "no lag has enough observed pairs to test"),
     )
-    portmanteau_lags_used = np.where(in_portmanteau, np.arange(1, in_portmanteau.shape[1] + 1), 0)
     mask = short_mask | seasonal_mask
     lag_values = np.arange(1, mask.shape[1] + 1)
     used_lags = lag_values[mask.any(axis=0)]
@@ -373,9 +372,7 @@ def autocorrelation_test(
         # The short lags tested: the portmanteau's and, where it left lag 1 to the regression, 1.
         "lags": k + (use_lag1 & (model_params == 0)),
         "df": short.details["df"],
-        "short_first_lag": np.where(
-            k > 0, np.where(in_portmanteau, portmanteau_lags_used, 1 << 30).min(axis=1), 0
-        ),
+        "short_first_lag": np.where(k > 0, in_portmanteau.argmax(axis=1) + 1, 0),
         "short_last_lag": np.where(short_mask, np.arange(1, short_mask.shape[1] + 1), 0).max(
             axis=1, initial=0
         ),
