@@ -330,8 +330,7 @@ def autocorrelation_test(
         p_lag1 = np.where(use_lag1, lag1.p_value, np.nan)
     else:  # every series too short for it: nothing to compute
         lag1_slope = lag1_t = lag1_df = p_lag1 = np.full(n.shape, np.nan)
-    weights = (weight if weight > 0 else 1.0, *TEST_WEIGHTS[1:])  # 0: the regression never ran
-    p, decided = weighted_bonferroni((p_lag1, p_short, p_seasonal), weights)
+    p, decided = weighted_bonferroni((p_lag1, p_short, p_seasonal), (weight, *TEST_WEIGHTS[1:]))
     q = np.choose(np.maximum(decided, 0), (lag1_t, short.statistic, q_seasonal))
     classic = ljung_box(res, season_length=season_length, model_params=0)
     k = short.details["lags"]
